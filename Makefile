@@ -1,0 +1,43 @@
+# biasbridge: one target per thing a person runs.
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.installed
+
+.PHONY: install demo test bench lint clean ngspice
+
+install: $(STAMP) ngspice
+
+# The venv and the editable install, redone only when pyproject.toml changes.
+$(STAMP): pyproject.toml
+	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e ".[test]"
+	@touch $(STAMP)
+
+# ngspice and its shared library from Debian's packages, when missing and we can.
+ngspice:
+	@if command -v ngspice >/dev/null 2>&1 && { ldconfig -p 2>/dev/null | grep -q libngspice.so; }; then \
+		true; \
+	elif [ "$$(id -u)" = 0 ] && command -v apt-get >/dev/null 2>&1; then \
+		echo "installing ngspice and libngspice0 with apt-get"; \
+		{ apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq ngspice libngspice0; } >/dev/null \
+		|| echo "biasbridge: apt-get could not install ngspice; the simulator column will be empty"; \
+	else \
+		echo "biasbridge: ngspice not found; install it with 'sudo apt-get install ngspice libngspice0' (the simulator column stays empty until then)"; \
+	fi
+
+demo: install
+	$(BIN)/biasbridge demo
+
+test: install
+	$(BIN)/python -m pytest
+
+bench: install
+	$(BIN)/python tests/bench/run.py
+
+lint: install
+	$(BIN)/ruff check bridge tests
+
+clean:
+	rm -rf $(VENV) build *.egg-info .pytest_cache .ruff_cache

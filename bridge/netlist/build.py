@@ -1,0 +1,509 @@
+"""Meaning: raw cards → the Circuit model.
+
+Evaluates `.param` values in order, resolves models, reads each element's fields
+in SI, flattens subcircuits and checks what the simulator would reject anyway
+(unknown models, duplicate names, sources that do not exist), each at its place.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field
+
+from .circuit import GROUND, KIND_BY_LETTER, Analysis, Circuit, DcSweep, Directive, Element, ModelCard
+from .circuit import Notice, Origin, Parameter, Waveform
+from .errors import NetlistError
+from .expressions import Expr, ExpressionError, UserFunction, evaluate
+from .numbers import NumberError, parse_number
+from .parser import (
+    AcPart,
+    Assignment,
+    DcPart,
+    Positional,
+    RawAnalysis,
+    RawCard,
+    RawElement,
+    RawEnds,
+    RawFunc,
+    RawGlobal,
+    RawKept,
+    RawModel,
+    RawParams,
+    RawSetting,
+    RawSubckt,
+    WaveformPart,
+    Word,
+    parse_card,
+)
+from .source import Deck, LogicalCard
+
+MODEL_TYPES = {"nmos", "pmos", "d", "npn", "pnp"}
+MODEL_TYPES_FOR = {"m": {"nmos", "pmos"}, "d": {"d"}, "q": {"npn", "pnp"}}
+MODEL_ALIASES = {"vt0": "vto", "u0": "uo"}
+
+# Instance parameters each element accepts (ngspice's instance tables, those a
+# bias circuit uses); anything else is an error rather than a silent drop.
+INSTANCE_PARAMS: dict[str, frozenset[str]] = {
+    "r": frozenset({"r", "resistance", "tc1", "tc2", "tc", "m", "temp", "dtemp", "scale", "noisy", "ac"}),
+    "c": frozenset({"c", "capacitance", "ic", "m", "tc1", "tc2", "temp", "dtemp", "scale"}),
+    "l": frozenset({"l", "inductance", "ic", "m", "tc1", "tc2", "temp", "dtemp", "scale", "nt"}),
+    "d": frozenset({"area", "pj", "m", "temp", "dtemp", "ic", "lm", "wm", "lp", "wp"}),
+    "m": frozenset({"w", "l", "m", "ad", "as", "pd", "ps", "nrd", "nrs", "temp", "dtemp", "ic"}),
+    "q": frozenset({"area", "areac", "areab", "m", "temp", "dtemp", "ic"}),
+}
+INSTANCE_FLAGS: dict[str, frozenset[str]] = {
+    "d": frozenset({"off"}),
+    "m": frozenset({"off"}),
+    "q": frozenset({"off"}),
+}
+MAX_SUBCKT_DEPTH = 10
+
+
+@dataclass
+class _Definition:
+    """A `.subckt` definition: ports, default parameters and its raw body."""
+
+    name: str
+    ports: tuple[str, ...]
+    defaults: tuple[Assignment, ...]
+    body: list[RawCard]
+    card: LogicalCard
+
+
+@dataclass
+class _Scope:
+    """What names mean inside one (sub)circuit instance."""
+
+    params: dict[str, float]
+    path: str = ""  # "" at top level, "x1" / "x1.x2" inside instances
+    ports: dict[str, str] = field(default_factory=dict)
+    models: dict[str, str] = field(default_factory=dict)  # local name → hoisted name
+    definitions: dict[str, _Definition] = field(default_factory=dict)
+    stack: tuple[str, ...] = ()
+
+
+def _origin(card: LogicalCard) -> Origin:
+    return Origin(card.source.name, card.line)
+
+
+class _Builder:
+    def __init__(self, deck: Deck) -> None:
+        self.deck = deck
+        self.notices: list[Notice] = list(deck.notices)
+        self.functions: dict[str, UserFunction] = {}
+        self.elements: list[Element] = []
+        self.element_cards: dict[str, LogicalCard] = {}
+        self.models: dict[str, ModelCard] = {}
+        self.parameters: list[Parameter] = []
+        self.analyses: list[RawAnalysis] = []
+        self.directives: list[Directive] = []
+        self.globals: set[str] = {GROUND}
+
+    # -- helpers -----------------------------------------------------------
+    def value(self, expr: Expr, card: LogicalCard, scope: _Scope) -> float:
+        try:
+            return evaluate(expr, scope.params, self.functions)
+        except ExpressionError as exc:
+            raise card.error(str(exc), exc.offset) from None
+
+    def word_number(self, word: Word, card: LogicalCard) -> float:
+        try:
+            return parse_number(word.text)
+        except NumberError as exc:
+            raise card.error(str(exc), word.offset + exc.offset) from None
+
+    def node(self, name: str, scope: _Scope) -> str:
+        lowered = name.lower()
+        if lowered == "gnd":
+            lowered = GROUND
+        if lowered in scope.ports:
+            return scope.ports[lowered]
+        if lowered in self.globals or not scope.path:
+            return lowered
+        return f"{scope.path}.{lowered}"
+
+    def element_name(self, raw_name: str, scope: _Scope) -> str:
+        # Flattened names follow ngspice's own: `m.x1.m1` for M1 inside X1.
+        return raw_name if not scope.path else f"{raw_name[0]}.{scope.path}.{raw_name}"
+
+    # -- the walk ------------------------------------------------------------
+    def build(self) -> Circuit:
+        top = self.split_subcircuits([parse_card(card) for card in self.deck.cards])
+        scope = _Scope(params={})
+        self.collect_globals(top)
+        self.instantiate(top, scope)
+        analyses = tuple(self.analysis(raw) for raw in self.analyses)
+        return Circuit(
+            title=self.deck.title,
+            source_file=self.deck.source.name,
+            elements=tuple(self.elements),
+            models=self.models,
+            parameters=tuple(self.parameters),
+            analyses=analyses,
+            directives=tuple(self.directives),
+            notices=tuple(self.notices),
+        )
+
+    def split_subcircuits(self, cards: list[RawCard]) -> list[RawCard]:
+        """Top-level cards, with `.subckt ... .ends` blocks turned into _Definition objects."""
+        top: list[RawCard] = []
+        current: _Definition | None = None
+        for raw in cards:
+            if isinstance(raw, RawSubckt):
+                if current is not None:
+                    raise raw.card.error(
+                        f"nested `.subckt {raw.name}` inside `.subckt {current.name}` is not supported", 0
+                    )
+                current = self.definition(raw)
+            elif isinstance(raw, RawEnds):
+                if current is None:
+                    raise raw.card.error("`.ends` without `.subckt`", 0)
+                if raw.name is not None and raw.name.lower() != current.name.lower():
+                    raise raw.card.error(f"`.ends {raw.name}` closes `.subckt {current.name}`", 0)
+                top.append(current)  # type: ignore[arg-type]
+                current = None
+            elif current is not None:
+                current.body.append(raw)
+            else:
+                top.append(raw)
+        if current is not None:
+            raise current.card.error(f"`.subckt {current.name}` is never closed by `.ends`", 0)
+        return top
+
+    def definition(self, raw: RawSubckt) -> _Definition:
+        ports: list[str] = []
+        defaults: list[Assignment] = []
+        for item in raw.items:
+            if isinstance(item, Assignment):
+                defaults.append(item)
+            elif isinstance(item, Word) and item.text.lower() == "params:":
+                continue
+            elif isinstance(item, Word):
+                if defaults:
+                    raise raw.card.error(f"port `{item.text}` after the parameters", item.offset)
+                ports.append(item.text.lower())
+            else:
+                raise raw.card.error("an expression is not a port name", item.offset)
+        return _Definition(raw.name, tuple(ports), tuple(defaults), [], raw.card)
+
+    def collect_globals(self, cards: Iterable[RawCard]) -> None:
+        for raw in cards:
+            if isinstance(raw, RawGlobal):
+                self.globals.update(n.lower() for n in raw.nodes)
+
+    def instantiate(self, cards: list, scope: _Scope) -> None:
+        """Build one (sub)circuit body in `scope`: definitions, params and models first."""
+        for raw in cards:
+            if isinstance(raw, _Definition):
+                scope.definitions[raw.name.lower()] = raw
+            elif isinstance(raw, RawFunc):
+                self.functions[raw.name.lower()] = UserFunction(raw.name.lower(), raw.parameters, raw.body)
+        for raw in cards:
+            if isinstance(raw, RawParams):
+                self.params(raw, scope)
+        for raw in cards:
+            if isinstance(raw, RawModel):
+                self.model(raw, scope)
+        for raw in cards:
+            if isinstance(raw, RawElement):
+                if raw.letter == "x":
+                    self.call(raw, scope)
+                else:
+                    self.element(raw, scope)
+            elif isinstance(raw, RawAnalysis):
+                self.top_only(raw.card, scope, raw.kind)
+                self.analyses.append(raw)
+            elif isinstance(raw, RawSetting):
+                self.top_only(raw.card, scope, raw.kind)
+                self.directives.append(self.setting(raw, scope))
+            elif isinstance(raw, RawKept):
+                if not scope.path:
+                    self.directives.append(Directive(raw.kind.lstrip("."), raw.card.text, _origin(raw.card)))
+
+    def top_only(self, card: LogicalCard, scope: _Scope, what: str) -> None:
+        if scope.path:
+            raise card.error(f"`.{what}` inside a subcircuit is not supported", 0)
+
+    def params(self, raw: RawParams, scope: _Scope) -> None:
+        for assignment in raw.assignments:
+            value = self.value(assignment.value, raw.card, scope)
+            scope.params[assignment.name.lower()] = value
+            if not scope.path:
+                self.parameters.append(Parameter(assignment.name, value, _origin(raw.card)))
+
+    # -- models ------------------------------------------------------------
+    def model(self, raw: RawModel, scope: _Scope) -> None:
+        type_ = raw.type.text.lower()
+        if type_ not in MODEL_TYPES:
+            raise raw.card.error(
+                f"model type `{raw.type.text}` is not supported (supported: {', '.join(sorted(MODEL_TYPES))})",
+                raw.type.offset,
+            )
+        params: dict[str, float] = {}
+        for item in raw.items:
+            if not isinstance(item, Assignment):
+                raise raw.card.error("a model parameter needs a value: `name=value`", item.offset)
+            key = item.name.lower()
+            params[MODEL_ALIASES.get(key, key)] = self.value(item.value, raw.card, scope)
+        level_value = params.pop("level", 1.0)
+        if level_value != int(level_value) or level_value < 1:
+            raise raw.card.error(f"LEVEL must be a positive integer, not {level_value:g}", 0)
+        name = raw.name if not scope.path else f"{scope.path}.{raw.name}"
+        key = name.lower()
+        if key in self.models and not scope.path:
+            first = self.models[key].origin
+            self.notices.append(
+                Notice(
+                    "duplicate-model",
+                    f"`.model {raw.name}` defined again (first on line {first.line}): the last one wins",
+                    raw.card.source.name,
+                    raw.card.line,
+                )
+            )
+        if scope.path:
+            scope.models[raw.name.lower()] = key
+        self.models[key] = ModelCard(name, type_, int(level_value), params, _origin(raw.card))
+
+    def resolve_model(self, word: Word, card: LogicalCard, scope: _Scope, letter: str) -> str:
+        key = scope.models.get(word.text.lower(), word.text.lower())
+        model = self.models.get(key)
+        if model is None:
+            raise card.error(f"model `{word.text}` is not defined (no `.model {word.text} ...` card)", word.offset)
+        if model.type not in MODEL_TYPES_FOR[letter]:
+            wanted = " or ".join(sorted(MODEL_TYPES_FOR[letter]))
+            raise card.error(
+                f"model `{word.text}` is of type {model.type}, but `{card.text.split()[0]}` needs {wanted}",
+                word.offset,
+            )
+        return model.name
+
+    # -- elements ------------------------------------------------------------
+    def element(self, raw: RawElement, scope: _Scope) -> None:
+        card = raw.card
+        name = self.element_name(raw.name, scope)
+        if name.lower() in self.element_cards:
+            first = self.element_cards[name.lower()]
+            raise card.error(f"duplicate element name `{raw.name}` (first on line {first.line})", 0)
+        nodes = tuple(self.node(n, scope) for n, _ in raw.nodes)
+        kind = KIND_BY_LETTER[raw.letter]
+        value: float | None = None
+        params: dict[str, float | str] = {}
+        model: str | None = None
+        control: str | None = None
+        waveform: Waveform | None = None
+        flags: list[str] = []
+        items = list(raw.items)
+        if raw.letter in "vi":
+            value, params, waveform = self.source_fields(raw, scope)
+        elif raw.letter == "q":
+            nodes, model, items = self.bjt_fields(raw, scope)
+        elif raw.model is not None:
+            model = self.resolve_model(raw.model, card, scope, raw.letter)
+        if raw.value is not None and raw.letter not in "vi":
+            value = self.value(raw.value, card, scope)
+        if raw.controlling_source is not None:
+            control = self.element_name(raw.controlling_source.text, scope)
+        for item in items:
+            self.instance_item(raw, item, scope, params, flags)
+        element = Element(
+            name=name,
+            kind=kind,
+            nodes=nodes,
+            value=value,
+            origin=_origin(card),
+            model=model,
+            params=params,
+            controlling_source=control,
+            waveform=waveform,
+            flags=tuple(flags),
+        )
+        self.elements.append(element)
+        self.element_cards[name.lower()] = card
+
+    def instance_item(
+        self, raw: RawElement, item, scope: _Scope, params: dict[str, float | str], flags: list[str]
+    ) -> None:
+        card = raw.card
+        allowed = INSTANCE_PARAMS.get(raw.letter, frozenset())
+        if isinstance(item, Assignment):
+            key = item.name.lower()
+            if key not in allowed:
+                known = ", ".join(sorted(allowed)) or "none"
+                raise card.error(
+                    f"`{item.name}` is not an instance parameter of `{raw.name}` (known: {known})", item.offset
+                )
+            params[key] = self.value(item.value, card, scope)
+            return
+        if isinstance(item, Word) and item.text.lower() in INSTANCE_FLAGS.get(raw.letter, frozenset()):
+            flags.append(item.text.lower())
+            return
+        if raw.letter in "dq" and "area" not in params:
+            number = (
+                self.value(item.value, card, scope)
+                if isinstance(item, Positional)
+                else self.word_number(item, card)
+            )
+            params["area"] = number
+            return
+        text = item.text if isinstance(item, Word) else "expression"
+        raise card.error(f"unexpected `{text}` in `{raw.name}`; expected `name=value`", item.offset)
+
+    def source_fields(
+        self, raw: RawElement, scope: _Scope
+    ) -> tuple[float, dict[str, float | str], Waveform | None]:
+        card = raw.card
+        dc: float | None = None if raw.value is None else self.value(raw.value, card, scope)
+        params: dict[str, float | str] = {}
+        waveform: Waveform | None = None
+        for part in raw.source_parts:
+            if isinstance(part, DcPart):
+                dc = self.value(part.value, card, scope)
+            elif isinstance(part, AcPart):
+                params["ac_mag"] = 1.0 if part.magnitude is None else self.value(part.magnitude, card, scope)
+                params["ac_phase"] = 0.0 if part.phase is None else self.value(part.phase, card, scope)
+            elif isinstance(part, WaveformPart):
+                if waveform is not None:
+                    raise card.error("a source takes one transient function", part.offset)
+                args = tuple(self.value(a, card, scope) for a in part.args)
+                waveform = Waveform(part.kind, args)
+        if dc is None:
+            dc = waveform.initial_value() if waveform is not None else 0.0
+            what = (
+                f"its {waveform.kind.upper()} value at t = 0 ({dc:g})" if waveform is not None else "0"
+            )
+            self.notices.append(
+                Notice(
+                    "no-dc-value",
+                    f"`{raw.name}` has no DC value: the operating point uses {what}, as ngspice does",
+                    card.source.name,
+                    card.line,
+                )
+            )
+        if waveform is not None:
+            params["waveform"] = f"{waveform.kind}({' '.join(f'{a:g}' for a in waveform.args)})"
+        return dc, params, waveform
+
+    def bjt_fields(self, raw: RawElement, scope: _Scope) -> tuple[tuple[str, ...], str, list]:
+        """Q has 3 or 4 nodes: the first word that names a model ends the node list."""
+        card = raw.card
+        nodes = [self.node(n, scope) for n, _ in raw.nodes]
+        items = list(raw.items)
+        for index in range(min(2, len(items))):
+            item = items[index]
+            if isinstance(item, Word):
+                key = scope.models.get(item.text.lower(), item.text.lower())
+                if key in self.models:
+                    nodes.extend(self.node(w.text, scope) for w in items[:index])
+                    model = self.resolve_model(item, card, scope, "q")
+                    return tuple(nodes), model, items[index + 1 :]
+        offset = items[0].offset if items else len(card.text)
+        raise card.error(f"`{raw.name}`: no model found after 3 or 4 nodes; expected `{_usage('q')}`", offset)
+
+    def call(self, raw: RawElement, scope: _Scope) -> None:
+        """Flatten `Xname nodes... SUBCKT [params]` into prefixed elements."""
+        card = raw.card
+        words = [i for i in raw.items if isinstance(i, Word) and i.text.lower() != "params:"]
+        overrides = [i for i in raw.items if isinstance(i, Assignment)]
+        if not words:
+            raise card.error(f"`{raw.name}` names no subcircuit; expected `{_usage('x')}`", len(card.text))
+        target = words[-1]
+        definition = scope.definitions.get(target.text.lower()) or self.find_definition(target.text, scope)
+        if definition is None:
+            raise card.error(f"subcircuit `{target.text}` is not defined", target.offset)
+        nodes = words[:-1]
+        if len(nodes) != len(definition.ports):
+            raise card.error(
+                f"`{raw.name}` connects {len(nodes)} node(s), `.subckt {definition.name}` has "
+                f"{len(definition.ports)} port(s) (line {definition.card.line})",
+                target.offset,
+            )
+        if definition.name.lower() in scope.stack or len(scope.stack) >= MAX_SUBCKT_DEPTH:
+            raise card.error(f"subcircuit `{definition.name}` instantiates itself", target.offset)
+        path = raw.name if not scope.path else f"{scope.path}.{raw.name}"
+        params = dict(scope.params)
+        for default in definition.defaults:
+            params[default.name.lower()] = self.value(default.value, definition.card, scope)
+        for override in overrides:
+            params[override.name.lower()] = self.value(override.value, card, scope)
+        inner = _Scope(
+            params=params,
+            path=path.lower(),
+            ports={port: self.node(n.text, scope) for port, n in zip(definition.ports, nodes)},
+            definitions=dict(scope.definitions),
+            stack=scope.stack + (definition.name.lower(),),
+        )
+        inner.models = {}
+        self.instantiate(definition.body, inner)
+
+    def find_definition(self, name: str, scope: _Scope) -> _Definition | None:
+        return scope.definitions.get(name.lower())
+
+    # -- control cards ---------------------------------------------------------
+    def setting(self, raw: RawSetting, scope: _Scope) -> Directive:
+        settings: list[tuple[str, float | str | None]] = []
+        if raw.kind == "options":
+            for item in raw.items:
+                if isinstance(item, Assignment):
+                    settings.append((item.name.lower(), self.value(item.value, raw.card, scope)))
+                elif isinstance(item, Word):
+                    settings.append((item.text.lower(), None))
+        elif raw.kind == "temp":
+            settings = [("temp", self.value(v, raw.card, scope)) for v in raw.values]
+        else:
+            for node, expr in raw.node_values:
+                settings.append((self.node(node, scope), self.value(expr, raw.card, scope)))
+        return Directive(raw.kind, raw.card.text, _origin(raw.card), tuple(settings))
+
+    def analysis(self, raw: RawAnalysis) -> Analysis:
+        sweeps: list[DcSweep] = []
+        top = _Scope(params={p.name.lower(): p.value for p in self.parameters})
+        for sweep in raw.sweeps:
+            element = next((e for e in self.elements if e.name.lower() == sweep.source.text.lower()), None)
+            if element is None or element.kind not in {"vsource", "isource"}:
+                raise raw.card.error(
+                    f"`.dc` sweeps `{sweep.source.text}`, which is not an independent source of this circuit",
+                    sweep.source.offset,
+                )
+            start, stop, step = (self.value(e, raw.card, top) for e in (sweep.start, sweep.stop, sweep.step))
+            if step == 0 or (stop - start) * step < 0:
+                raise raw.card.error(
+                    f"`.dc` step {step:g} never goes from {start:g} to {stop:g}", sweep.source.offset
+                )
+            sweeps.append(DcSweep(element.name, start, stop, step))
+        return Analysis(raw.kind, _origin(raw.card), tuple(sweeps))
+
+
+def _usage(key: str) -> str:
+    from .parser import USAGE
+
+    return USAGE[key]
+
+
+def check_references(circuit: Circuit, cards: Mapping[str, LogicalCard]) -> None:
+    """Current-controlled sources must name an existing voltage source."""
+    for element in circuit.elements:
+        if element.controlling_source is None:
+            continue
+        control = circuit.element(element.controlling_source)
+        if control is None or control.kind != "vsource":
+            card = cards[element.name.lower()]
+            words = card.text.split()
+            offset = card.text.find(words[3]) if len(words) > 3 else 0
+            raise card.error(
+                f"`{element.name}` is controlled by `{element.controlling_source}`, "
+                "which is not a voltage source of this circuit",
+                offset,
+            )
+
+
+def build_circuit(deck: Deck) -> Circuit:
+    """The Circuit of a deck, or a located NetlistError."""
+    builder = _Builder(deck)
+    try:
+        circuit = builder.build()
+    except RecursionError:
+        raise NetlistError(
+            "netlist nests too deeply to read", builder.deck.cards[0].locate(0) if builder.deck.cards else None
+        ) from None
+    check_references(circuit, builder.element_cards)
+    return circuit

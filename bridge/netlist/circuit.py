@@ -1,0 +1,194 @@
+"""The circuit model: what every analysis reads. Plain frozen dataclasses, SI units.
+
+Node names are folded to lower case (SPICE is case-insensitive) and `gnd` is
+node `0`. Element and model names are kept as written; look them up with
+`Circuit.element()` / `Circuit.model()`, which ignore case.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+GROUND = "0"
+
+# Element kinds, keyed by their SPICE letter.
+KIND_BY_LETTER: dict[str, str] = {
+    "r": "resistor",
+    "c": "capacitor",
+    "l": "inductor",
+    "v": "vsource",
+    "i": "isource",
+    "e": "vcvs",
+    "g": "vccs",
+    "f": "cccs",
+    "h": "ccvs",
+    "d": "diode",
+    "m": "mosfet",
+    "q": "bjt",
+}
+LETTER_BY_KIND: dict[str, str] = {kind: letter for letter, kind in KIND_BY_LETTER.items()}
+
+# Unit of an element's `value`, for display.
+VALUE_UNIT: dict[str, str] = {
+    "resistor": "Ω",
+    "capacitor": "F",
+    "inductor": "H",
+    "vsource": "V",
+    "isource": "A",
+    "vcvs": "V/V",
+    "vccs": "S",
+    "cccs": "A/A",
+    "ccvs": "Ω",
+}
+
+
+@dataclass(frozen=True)
+class Origin:
+    """Where a card came from: file and 1-based line of its first physical line."""
+
+    file: str
+    line: int
+
+
+@dataclass(frozen=True)
+class Waveform:
+    """A transient source function (SIN, PULSE, PWL, EXP, SFFM) kept as written, in SI."""
+
+    kind: str
+    args: tuple[float, ...]
+
+    def initial_value(self) -> float:
+        """The t = 0 value ngspice uses for the operating point when no DC is given."""
+        if not self.args:
+            return 0.0
+        if self.kind == "pwl":
+            # PWL(t1 v1 t2 v2 ...): value at t = 0, holding v1 before t1.
+            pairs = list(zip(self.args[0::2], self.args[1::2]))
+            if not pairs or pairs[0][0] >= 0:
+                return pairs[0][1] if pairs else 0.0
+            for (t0, v0), (t1, v1) in zip(pairs, pairs[1:]):
+                if t0 <= 0 <= t1:
+                    return v0 if t1 == t0 else v0 + (v1 - v0) * (0 - t0) / (t1 - t0)
+            return pairs[-1][1]
+        # SIN(vo va ...), PULSE(v1 v2 ...), EXP(v1 v2 ...), SFFM(vo va ...): first argument.
+        return self.args[0]
+
+
+@dataclass(frozen=True)
+class Element:
+    """One circuit element. `value` is in SI: Ω, F, H, V or A (a source's DC value),
+    a controlled source's gain; None for devices that take a model instead."""
+
+    name: str
+    kind: str
+    nodes: tuple[str, ...]
+    value: float | None
+    origin: Origin
+    model: str | None = None
+    params: dict[str, float | str] = field(default_factory=dict)
+    controlling_source: str | None = None
+    waveform: Waveform | None = None
+    flags: tuple[str, ...] = ()
+
+    @property
+    def letter(self) -> str:
+        return LETTER_BY_KIND[self.kind]
+
+
+@dataclass(frozen=True)
+class ModelCard:
+    """A `.model` card: parameters by lower-case name, aliases resolved (vt0→vto, u0→uo)."""
+
+    name: str
+    type: str
+    level: int
+    params: dict[str, float]
+    origin: Origin
+
+
+@dataclass(frozen=True)
+class Parameter:
+    """A `.param` after evaluation."""
+
+    name: str
+    value: float
+    origin: Origin
+
+
+@dataclass(frozen=True)
+class DcSweep:
+    source: str
+    start: float
+    stop: float
+    step: float
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """`.op` (no sweeps) or `.dc` (one or two sweeps)."""
+
+    kind: str
+    origin: Origin
+    sweeps: tuple[DcSweep, ...] = ()
+
+
+@dataclass(frozen=True)
+class Directive:
+    """A control card that does not change the circuit: kept for display.
+
+    `.options`, `.temp`, `.ic` and `.nodeset` have their settings in `settings`
+    (they are emitted for the simulator); the others (`.save`, `.print`, `.meas`,
+    `.tran`, ...) keep their text and are not emitted.
+    """
+
+    kind: str
+    text: str
+    origin: Origin
+    settings: tuple[tuple[str, float | str | None], ...] = ()
+
+
+@dataclass(frozen=True)
+class Notice:
+    """A warning about the input: something dropped, ignored or read in a way worth knowing."""
+
+    code: str
+    message: str
+    file: str | None = None
+    line: int | None = None
+
+    def __str__(self) -> str:
+        where = f"{self.file}:{self.line}: " if self.file and self.line else ""
+        return f"{where}{self.message} [{self.code}]"
+
+
+@dataclass(frozen=True)
+class Circuit:
+    """A whole netlist as understood: the only thing the analyses see."""
+
+    title: str
+    source_file: str
+    elements: tuple[Element, ...]
+    models: dict[str, ModelCard]
+    parameters: tuple[Parameter, ...] = ()
+    analyses: tuple[Analysis, ...] = ()
+    directives: tuple[Directive, ...] = ()
+    notices: tuple[Notice, ...] = ()
+
+    def element(self, name: str) -> Element | None:
+        wanted = name.lower()
+        return next((e for e in self.elements if e.name.lower() == wanted), None)
+
+    def model(self, name: str) -> ModelCard | None:
+        return self.models.get(name.lower())
+
+    def nodes(self) -> tuple[str, ...]:
+        """Every node but ground, in order of first appearance."""
+        seen: dict[str, None] = {}
+        for element in self.elements:
+            for node in element.nodes:
+                if node != GROUND:
+                    seen.setdefault(node, None)
+        return tuple(seen)
+
+    def elements_of(self, kind: str) -> tuple[Element, ...]:
+        return tuple(e for e in self.elements if e.kind == kind)

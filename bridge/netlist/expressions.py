@@ -1,0 +1,200 @@
+"""`{expr}` / `'expr'` values: a small tree and its evaluation against `.param` values."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+
+
+class ExpressionError(ValueError):
+    """An expression that cannot be evaluated; `offset` is its place in the card text."""
+
+    def __init__(self, message: str, offset: int) -> None:
+        super().__init__(message)
+        self.offset = offset
+
+
+@dataclass(frozen=True)
+class Literal:
+    value: float
+    offset: int = 0
+
+
+@dataclass(frozen=True)
+class Reference:
+    name: str
+    offset: int
+
+
+@dataclass(frozen=True)
+class Unary:
+    operator: str
+    operand: Expr
+    offset: int
+
+
+@dataclass(frozen=True)
+class Binary:
+    operator: str
+    left: Expr
+    right: Expr
+    offset: int
+
+
+@dataclass(frozen=True)
+class Call:
+    function: str
+    arguments: tuple[Expr, ...]
+    offset: int
+
+
+Expr = Literal | Reference | Unary | Binary | Call
+
+
+@dataclass(frozen=True)
+class UserFunction:
+    """A `.func name(args) {body}` definition."""
+
+    name: str
+    parameters: tuple[str, ...]
+    body: Expr
+
+
+def _checked_log(x: float) -> float:
+    if x <= 0:
+        raise ValueError("log of a value that is not positive")
+    return math.log(x)
+
+
+def _checked_sqrt(x: float) -> float:
+    if x < 0:
+        raise ValueError("sqrt of a negative value")
+    return math.sqrt(x)
+
+
+# name → (function, number of arguments or None for "one or more").
+BUILTINS: dict[str, tuple[Callable[..., float], int | None]] = {
+    "sqrt": (_checked_sqrt, 1),
+    "exp": (math.exp, 1),
+    "log": (_checked_log, 1),  # natural log, as in ngspice expressions
+    "ln": (_checked_log, 1),
+    "log10": (lambda x: _checked_log(x) / math.log(10), 1),
+    "abs": (abs, 1),
+    "min": (min, None),
+    "max": (max, None),
+    "pow": (math.pow, 2),
+    "pwr": (lambda x, y: math.copysign(abs(x) ** y, x), 2),
+    "sin": (math.sin, 1),
+    "cos": (math.cos, 1),
+    "tan": (math.tan, 1),
+    "atan": (math.atan, 1),
+    "sinh": (math.sinh, 1),
+    "cosh": (math.cosh, 1),
+    "tanh": (math.tanh, 1),
+    "floor": (math.floor, 1),
+    "ceil": (math.ceil, 1),
+    "int": (lambda x: float(int(x)), 1),
+    "sgn": (lambda x: float((x > 0) - (x < 0)), 1),
+}
+
+CONSTANTS: dict[str, float] = {"pi": math.pi}
+
+_MAX_DEPTH = 64
+
+
+def evaluate(
+    expr: Expr,
+    scope: Mapping[str, float],
+    functions: Mapping[str, UserFunction] | None = None,
+    _depth: int = 0,
+) -> float:
+    """Value of `expr`; `scope` maps lower-case parameter names to values."""
+    functions = functions or {}
+    if _depth > _MAX_DEPTH:
+        raise ExpressionError("expression nested too deeply (recursive .func?)", _offset(expr))
+    if isinstance(expr, Literal):
+        return expr.value
+    if isinstance(expr, Reference):
+        key = expr.name.lower()
+        if key in scope:
+            return scope[key]
+        if key in CONSTANTS:
+            return CONSTANTS[key]
+        raise ExpressionError(f"undefined parameter `{expr.name}`", expr.offset)
+    if isinstance(expr, Unary):
+        value = evaluate(expr.operand, scope, functions, _depth + 1)
+        return -value if expr.operator == "-" else value
+    if isinstance(expr, Binary):
+        left = evaluate(expr.left, scope, functions, _depth + 1)
+        right = evaluate(expr.right, scope, functions, _depth + 1)
+        return _binary(expr, left, right)
+    return _call(expr, scope, functions, _depth)
+
+
+def _binary(expr: Binary, left: float, right: float) -> float:
+    try:
+        if expr.operator == "+":
+            result = left + right
+        elif expr.operator == "-":
+            result = left - right
+        elif expr.operator == "*":
+            result = left * right
+        elif expr.operator == "/":
+            result = left / right
+        else:
+            result = math.pow(left, right)
+    except ZeroDivisionError:
+        raise ExpressionError("division by zero", expr.offset) from None
+    except (OverflowError, ValueError):
+        raise ExpressionError(f"`{left:g} {expr.operator} {right:g}` has no real value", expr.offset) from None
+    if not math.isfinite(result):
+        raise ExpressionError("result is not a finite number", expr.offset)
+    return result
+
+
+def _call(expr: Call, scope: Mapping[str, float], functions: Mapping[str, UserFunction], depth: int) -> float:
+    key = expr.function.lower()
+    arguments = [evaluate(a, scope, functions, depth + 1) for a in expr.arguments]
+    if key in functions:
+        user = functions[key]
+        if len(arguments) != len(user.parameters):
+            raise ExpressionError(
+                f"`{expr.function}` takes {len(user.parameters)} argument(s), got {len(arguments)}",
+                expr.offset,
+            )
+        inner = dict(scope)
+        inner.update(zip(user.parameters, arguments))
+        return evaluate(user.body, inner, functions, depth + 1)
+    if key not in BUILTINS:
+        raise ExpressionError(f"unknown function `{expr.function}`", expr.offset)
+    function, arity = BUILTINS[key]
+    if (arity is None and not arguments) or (arity is not None and len(arguments) != arity):
+        wanted = "at least 1" if arity is None else str(arity)
+        raise ExpressionError(
+            f"`{expr.function}` takes {wanted} argument(s), got {len(arguments)}", expr.offset
+        )
+    try:
+        result = float(function(*arguments))
+    except (ValueError, OverflowError) as exc:
+        raise ExpressionError(f"`{expr.function}`: {exc}", expr.offset) from None
+    if not math.isfinite(result):
+        raise ExpressionError(f"`{expr.function}` gives a value that is not finite", expr.offset)
+    return result
+
+
+def _offset(expr: Expr) -> int:
+    return expr.offset
+
+
+def references(expr: Expr) -> set[str]:
+    """Lower-case parameter names an expression reads."""
+    if isinstance(expr, Reference):
+        return {expr.name.lower()}
+    if isinstance(expr, Unary):
+        return references(expr.operand)
+    if isinstance(expr, Binary):
+        return references(expr.left) | references(expr.right)
+    if isinstance(expr, Call):
+        return set().union(*(references(a) for a in expr.arguments)) if expr.arguments else set()
+    return set()

@@ -1,0 +1,110 @@
+"""SPICE numbers: scale suffixes in, engineering notation out.
+
+The reading rules are ngspice's (manual, section 2.1.4.2 "Numbers" and 2.1.4.3
+"Letters following a number", Table 2.2): an integer or decimal, an optional
+exponent, then an optional scale factor T G MEG K MIL M U N P F (any case, `M` is
+milli), then any letters, which are ignored (`10uF`, `1kOhm`, `5V`).
+
+ngspice 39 has no atto suffix: `1a` reads as 1 (measured with the Debian build,
+and absent from Table 2.2), so biasbridge reads it the same way — the simulator
+must see the value the designer's simulator would see.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+
+# Scale factors of ngspice's Table 2.2. Order matters: "meg" and "mil" are tested
+# before the single letter "m".
+# Powers of ten, so that `10u` is the exact decimal 1e-05 rather than 10 * 1e-6.
+_SCALE_WORDS: tuple[tuple[str, int], ...] = (("meg", 6), ("mil", -6))
+_MIL_FACTOR = 25.4
+_SCALE_LETTERS: dict[str, int] = {"t": 12, "g": 9, "k": 3, "m": -3, "u": -6, "n": -9, "p": -12, "f": -15}
+
+_NUMBER = re.compile(
+    r"""(?P<mantissa>[+-]?(?:\d+\.?\d*|\.\d+))
+        (?:[eE](?P<exponent>[+-]?\d+))?
+        (?P<letters>.*)""",
+    re.VERBOSE | re.DOTALL,
+)
+
+# Characters a designer types for "micro" that SPICE does not know.
+_MICRO_SIGNS = ("\u00b5", "\u03bc")
+
+
+class NumberError(ValueError):
+    """A field that is not a SPICE number; `offset` is where it goes wrong."""
+
+    def __init__(self, message: str, offset: int = 0) -> None:
+        super().__init__(message)
+        self.offset = offset
+
+
+def parse_number(text: str, *, allow_mil: bool = True) -> float:
+    """Value of a SPICE number field such as `4.7k`, `1MEG`, `10uF`, `2.5e-3V`.
+
+    `allow_mil` is false inside `{...}` expressions, where ngspice's expression
+    parser does not know MIL.
+    """
+    match = _NUMBER.fullmatch(text)
+    if match is None:
+        raise NumberError(f"`{text}` is not a number", 0)
+    mantissa = match["mantissa"]
+    exponent = int(match["exponent"] or 0)
+    letters = match["letters"]
+    start = match.start("letters")
+    if letters:
+        for index, char in enumerate(letters):
+            if char in _MICRO_SIGNS:
+                raise NumberError(
+                    f"`{text}`: `{char}` is not a SPICE scale factor; write `u` for micro",
+                    start + index,
+                )
+            if not (char.isalpha() or ord(char) > 127):
+                raise NumberError(
+                    f"`{text}` is not a number (unexpected `{char}` after `{text[:start + index]}`)",
+                    start + index,
+                )
+        lowered = letters.lower()
+        for word, power in _SCALE_WORDS:
+            if lowered.startswith(word) and (word != "mil" or allow_mil):
+                scaled = float(f"{mantissa}e{exponent + power}")
+                return scaled * _MIL_FACTOR if word == "mil" else scaled
+        exponent += _SCALE_LETTERS.get(lowered[0], 0)
+    value = float(f"{mantissa}e{exponent}")
+    if not math.isfinite(value):
+        raise NumberError(f"`{text}` is out of range", 0)
+    return value
+
+
+_PREFIXES: tuple[tuple[int, str], ...] = (
+    (12, "T"),
+    (9, "G"),
+    (6, "M"),
+    (3, "k"),
+    (0, ""),
+    (-3, "m"),
+    (-6, "µ"),
+    (-9, "n"),
+    (-12, "p"),
+    (-15, "f"),
+    (-18, "a"),
+)
+
+
+def engineering(value: float | None, unit: str = "", digits: int = 4) -> str:
+    """`value` in engineering notation with an SI prefix: 1e-3 Ω → `1 mΩ`."""
+    if value is None:
+        return "—"
+    if value == 0 or not math.isfinite(value):
+        return f"{value:g} {unit}".rstrip()
+    exponent = math.floor(math.log10(abs(value)) / 3) * 3
+    exponent = max(-18, min(12, exponent))
+    scaled = value / 10.0**exponent
+    # Rounding may carry into the next decade group (999.96 → 1000).
+    if abs(float(f"{scaled:.{digits}g}")) >= 1000 and exponent < 12:
+        exponent += 3
+        scaled = value / 10.0**exponent
+    prefix = dict(_PREFIXES)[exponent]
+    return f"{scaled:.{digits}g} {prefix}{unit}".rstrip()

@@ -1,0 +1,450 @@
+"""Syntax: one logical card → a raw card, by the lark grammar in grammar/spice.lark.
+
+The grammar is the single statement of the syntax; the transformer below has one
+small method per rule and only turns tokens into values (numbers read with
+SPICE's suffix rules, expressions into trees). Meaning — parameters, subcircuits,
+models — is built afterwards in build.py.
+"""
+
+from __future__ import annotations
+
+import functools
+from dataclasses import dataclass, field
+from importlib import resources
+from pathlib import Path
+
+from lark import Lark, Token, Transformer
+from lark.exceptions import UnexpectedCharacters, UnexpectedEOF, UnexpectedInput, UnexpectedToken
+
+from .errors import NetlistError
+from .expressions import Binary, Call, Expr, Literal, Reference, Unary
+from .numbers import NumberError, parse_number
+from .source import LogicalCard
+
+# ---- raw cards: what one card says, before parameters and models are known ----
+
+
+@dataclass(frozen=True)
+class Assignment:
+    name: str
+    value: Expr
+    offset: int
+
+
+@dataclass(frozen=True)
+class Word:
+    text: str
+    offset: int
+
+
+@dataclass(frozen=True)
+class Positional:
+    value: Expr
+    offset: int
+
+
+Item = Assignment | Word | Positional
+
+
+@dataclass(frozen=True)
+class DcPart:
+    value: Expr
+
+
+@dataclass(frozen=True)
+class AcPart:
+    magnitude: Expr | None
+    phase: Expr | None
+
+
+@dataclass(frozen=True)
+class WaveformPart:
+    kind: str
+    args: tuple[Expr, ...]
+    offset: int
+
+
+SourcePart = DcPart | AcPart | WaveformPart
+
+
+@dataclass(frozen=True)
+class RawElement:
+    letter: str
+    name: str
+    nodes: tuple[tuple[str, int], ...]
+    card: LogicalCard
+    value: Expr | None = None
+    model: Word | None = None
+    controlling_source: Word | None = None
+    items: tuple[Item, ...] = ()
+    source_parts: tuple[SourcePart, ...] = ()
+
+
+@dataclass(frozen=True)
+class RawModel:
+    name: str
+    type: Word
+    items: tuple[Item, ...]
+    card: LogicalCard
+
+
+@dataclass(frozen=True)
+class RawParams:
+    assignments: tuple[Assignment, ...]
+    card: LogicalCard
+
+
+@dataclass(frozen=True)
+class RawFunc:
+    name: str
+    parameters: tuple[str, ...]
+    body: Expr
+    card: LogicalCard
+
+
+@dataclass(frozen=True)
+class RawSweep:
+    source: Word
+    start: Expr
+    stop: Expr
+    step: Expr
+
+
+@dataclass(frozen=True)
+class RawAnalysis:
+    kind: str
+    card: LogicalCard
+    sweeps: tuple[RawSweep, ...] = ()
+
+
+@dataclass(frozen=True)
+class RawSetting:
+    kind: str  # "options", "temp", "ic", "nodeset"
+    card: LogicalCard
+    items: tuple[Item, ...] = ()
+    values: tuple[Expr, ...] = ()
+    node_values: tuple[tuple[str, Expr], ...] = ()
+
+
+@dataclass(frozen=True)
+class RawGlobal:
+    nodes: tuple[str, ...]
+    card: LogicalCard
+
+
+@dataclass(frozen=True)
+class RawSubckt:
+    name: str
+    items: tuple[Item, ...]
+    card: LogicalCard
+
+
+@dataclass(frozen=True)
+class RawEnds:
+    name: str | None
+    card: LogicalCard
+
+
+@dataclass(frozen=True)
+class RawKept:
+    kind: str
+    card: LogicalCard
+
+
+RawCard = (
+    RawElement | RawModel | RawParams | RawFunc | RawAnalysis | RawSetting | RawGlobal
+    | RawSubckt | RawEnds | RawKept
+)
+
+
+# ---- the grammar -------------------------------------------------------------
+
+def grammar_text() -> str:
+    """The grammar file, from the installed package data or the source tree."""
+    try:
+        return resources.files("bridge._grammar").joinpath("spice.lark").read_text(encoding="utf-8")
+    except (ModuleNotFoundError, FileNotFoundError):
+        return (Path(__file__).resolve().parents[2] / "grammar" / "spice.lark").read_text(encoding="utf-8")
+
+
+class _CardTransformer(Transformer):
+    """Tokens → values, one method per grammar rule. `card` is the card being parsed."""
+
+    card: LogicalCard
+
+    # -- values and expressions
+    def number(self, children: list[Token]) -> Literal:
+        token = children[0]
+        try:
+            return Literal(parse_number(str(token)), token.start_pos)
+        except NumberError as exc:
+            raise self.card.error(str(exc), token.start_pos + exc.offset) from None
+
+    def literal(self, children: list[Token]) -> Literal:
+        token = children[0]
+        try:
+            return Literal(parse_number(str(token), allow_mil=False), token.start_pos)
+        except NumberError as exc:
+            raise self.card.error(str(exc), token.start_pos + exc.offset) from None
+
+    def reference(self, children: list[Token]) -> Reference:
+        return Reference(str(children[0]), children[0].start_pos)
+
+    def call(self, children: list) -> Call:
+        name = children[0]
+        return Call(str(name), tuple(c for c in children[1:] if c is not None), name.start_pos)
+
+    def braced(self, children: list) -> Expr:
+        return children[0]
+
+    def _binary(operator: str):  # noqa: N805 - a factory used in the class body
+        def method(self, children: list) -> Binary:
+            left, right = children
+            return Binary(operator, left, right, left.offset)
+
+        return method
+
+    add = _binary("+")
+    sub = _binary("-")
+    mul = _binary("*")
+    div = _binary("/")
+    pow = _binary("^")
+
+    def neg(self, children: list) -> Unary:
+        return Unary("-", children[0], children[0].offset)
+
+    # -- fields
+    def node(self, children: list[Token]) -> tuple[str, int]:
+        return (str(children[0]), children[0].start_pos)
+
+    def assignment(self, children: list) -> Assignment:
+        return Assignment(str(children[0]), children[1], children[0].start_pos)
+
+    def word(self, children: list[Token]) -> Word:
+        return Word(str(children[0]), children[0].start_pos)
+
+    def positional(self, children: list) -> Positional:
+        return Positional(children[0], children[0].offset)
+
+    def comma(self, children: list) -> None:
+        return None
+
+    # -- elements
+    def _two_terminal(self, children: list) -> RawElement:
+        name, n1, n2, value, *items = children
+        return RawElement(str(name)[0].lower(), str(name), (n1, n2), self.card, value=value, items=tuple(items))
+
+    resistor = capacitor = inductor = _two_terminal
+
+    def _source(self, children: list) -> RawElement:
+        name, n1, n2, *rest = children
+        value = rest.pop(0) if rest and not isinstance(rest[0], DcPart | AcPart | WaveformPart) else None
+        return RawElement(
+            str(name)[0].lower(), str(name), (n1, n2), self.card, value=value, source_parts=tuple(rest)
+        )
+
+    vsource = isource = _source
+
+    def source_dc(self, children: list) -> DcPart:
+        return DcPart(children[-1])
+
+    def source_ac(self, children: list) -> AcPart:
+        values = [c for c in children[1:] if c is not None and not isinstance(c, Token)]
+        return AcPart(values[0] if values else None, values[1] if len(values) > 1 else None)
+
+    def source_waveform(self, children: list) -> WaveformPart:
+        kind = children[0]
+        return WaveformPart(str(kind).lower(), tuple(children[1:]), kind.start_pos)
+
+    def _voltage_controlled(self, children: list) -> RawElement:
+        name, *nodes, gain = children
+        return RawElement(str(name)[0].lower(), str(name), tuple(nodes), self.card, value=gain)
+
+    vcvs = vccs = _voltage_controlled
+
+    def _current_controlled(self, children: list) -> RawElement:
+        name, n1, n2, control, gain = children
+        return RawElement(
+            str(name)[0].lower(), str(name), (n1, n2), self.card, value=gain,
+            controlling_source=Word(str(control), control.start_pos),
+        )
+
+    cccs = ccvs = _current_controlled
+
+    def _modelled(self, children: list, node_count: int) -> RawElement:
+        name = children[0]
+        nodes = tuple(children[1 : 1 + node_count])
+        model = children[1 + node_count]
+        return RawElement(
+            str(name)[0].lower(), str(name), nodes, self.card,
+            model=Word(str(model), model.start_pos), items=tuple(children[2 + node_count :]),
+        )
+
+    def diode(self, children: list) -> RawElement:
+        return self._modelled(children, 2)
+
+    def mosfet(self, children: list) -> RawElement:
+        return self._modelled(children, 4)
+
+    def bjt(self, children: list) -> RawElement:
+        name, *rest = children
+        nodes = tuple(rest[:3])
+        return RawElement("q", str(name), nodes, self.card, items=tuple(rest[3:]))
+
+    def subckt_call(self, children: list) -> RawElement:
+        name, *items = children
+        return RawElement("x", str(name), (), self.card, items=tuple(items))
+
+    # -- dot cards
+    def model_card(self, children: list) -> RawModel:
+        _, name, type_, *items = children
+        return RawModel(
+            str(name), Word(str(type_), type_.start_pos), tuple(i for i in items if i is not None), self.card
+        )
+
+    def param_assignment(self, children: list) -> Assignment:
+        return Assignment(str(children[0]), children[1], children[0].start_pos)
+
+    def param_card(self, children: list) -> RawParams:
+        return RawParams(tuple(children[1:]), self.card)
+
+    def func_card(self, children: list) -> RawFunc:
+        _, name, *rest = children
+        body = rest[-1]
+        parameters = tuple(str(p).lower() for p in rest[:-1] if p is not None)
+        return RawFunc(str(name), parameters, body, self.card)
+
+    def op_card(self, children: list) -> RawAnalysis:
+        return RawAnalysis("op", self.card)
+
+    def dc_sweep(self, children: list) -> RawSweep:
+        source, start, stop, step = children
+        return RawSweep(Word(str(source), source.start_pos), start, stop, step)
+
+    def dc_card(self, children: list) -> RawAnalysis:
+        return RawAnalysis("dc", self.card, tuple(c for c in children[1:] if c is not None))
+
+    def options_card(self, children: list) -> RawSetting:
+        return RawSetting("options", self.card, items=tuple(children[1:]))
+
+    def temp_card(self, children: list) -> RawSetting:
+        return RawSetting("temp", self.card, values=tuple(children[1:]))
+
+    def node_setting(self, children: list) -> tuple[str, Expr]:
+        _, node, value = children
+        return (str(node), value)
+
+    def ic_card(self, children: list) -> RawSetting:
+        return RawSetting("ic", self.card, node_values=tuple(children[1:]))
+
+    def nodeset_card(self, children: list) -> RawSetting:
+        return RawSetting("nodeset", self.card, node_values=tuple(children[1:]))
+
+    def global_card(self, children: list) -> RawGlobal:
+        return RawGlobal(tuple(str(c) for c in children[1:]), self.card)
+
+    def subckt_card(self, children: list) -> RawSubckt:
+        return RawSubckt(str(children[1]), tuple(children[2:]), self.card)
+
+    def ends_card(self, children: list) -> RawEnds:
+        return RawEnds(str(children[1]) if len(children) > 1 and children[1] is not None else None, self.card)
+
+    def kept_card(self, children: list) -> RawKept:
+        return RawKept(str(children[0]).lower(), self.card)
+
+
+# What each card looks like, for messages about incomplete or malformed cards.
+USAGE: dict[str, str] = {
+    "r": "Rname node node value",
+    "c": "Cname node node value",
+    "l": "Lname node node value",
+    "v": "Vname node+ node- [[DC] value] [AC mag [phase]] [SIN|PULSE|PWL|EXP|SFFM (...)]",
+    "i": "Iname node+ node- [[DC] value] [AC mag [phase]] [SIN|PULSE|PWL|EXP|SFFM (...)]",
+    "e": "Ename out+ out- in+ in- gain (only the linear form is supported)",
+    "g": "Gname out+ out- in+ in- transconductance (only the linear form is supported)",
+    "f": "Fname out+ out- Vcontrol gain",
+    "h": "Hname out+ out- Vcontrol transresistance",
+    "d": "Dname anode cathode model [area]",
+    "m": "Mname drain gate source bulk model [W=.. L=.. M=..]",
+    "q": "Qname collector base emitter [substrate] model [area]",
+    "x": "Xname node ... subcircuit [name=value ...]",
+    ".model": ".model NAME TYPE (name=value ...)",
+    ".param": ".param name=value [name=value ...]",
+    ".func": ".func name(args) {expression}",
+    ".dc": ".dc SOURCE start stop step [SOURCE2 start2 stop2 step2]",
+    ".ic": ".ic V(node)=value ...",
+    ".nodeset": ".nodeset V(node)=value ...",
+    ".temp": ".temp degrees",
+    ".global": ".global node ...",
+    ".subckt": ".subckt NAME node ... [params: name=value ...]",
+}
+
+SUPPORTED_LETTERS = "RCLVIEGFHDMQX"
+
+
+@functools.lru_cache(maxsize=1)
+def _parser() -> tuple[Lark, _CardTransformer]:
+    """Built once per process: LALR with the transformer applied while parsing."""
+    transformer = _CardTransformer()
+    parser = Lark(
+        grammar_text(),
+        parser="lalr",
+        lexer="contextual",
+        transformer=transformer,
+        maybe_placeholders=True,
+        propagate_positions=False,
+        cache=False,
+    )
+    return parser, transformer
+
+
+def parse_card(card: LogicalCard) -> RawCard:
+    """One logical card → its raw card, or a located NetlistError."""
+    parser, transformer = _parser()
+    transformer.card = card
+    try:
+        return parser.parse(card.text)
+    except UnexpectedInput as exc:
+        raise _explain(card, exc) from None
+
+
+def _card_key(card: LogicalCard) -> str:
+    first = card.text.split(None, 1)[0].lower()
+    if first.startswith("."):
+        return first
+    return first[0]
+
+
+def _explain(card: LogicalCard, exc: UnexpectedInput) -> NetlistError:
+    """A lark error → a message a designer understands, at the right column."""
+    key = _card_key(card)
+    usage = USAGE.get(key)
+    hint = f"; expected `{usage}`" if usage else ""
+    first = card.text.split(None, 1)[0]
+    if isinstance(exc, UnexpectedCharacters) and exc.pos_in_stream == 0:
+        if key.startswith("."):
+            return card.error(f"`{first}` is not a supported card", 0)
+        return card.error(
+            f"element `{first}`: letter `{first[0]}` is not a supported element "
+            f"(supported: {', '.join(SUPPORTED_LETTERS)})",
+            0,
+        )
+    expected = set(getattr(exc, "expected", None) or getattr(exc, "allowed", None) or ())
+    in_expression = bool(expected & {"RPAR", "RBRACE", "QUOTE", "ENUMBER", "NAME"}) and key != ".param"
+    if isinstance(exc, UnexpectedEOF) or (
+        isinstance(exc, UnexpectedToken) and exc.token.type == "$END"
+    ):
+        offset = len(card.text)
+        if expected & {"RPAR", "RBRACE", "QUOTE"} and in_expression:
+            return card.error("unbalanced expression: it is not closed before the end of the card", offset)
+        return card.error(f"incomplete `{first}` card: fields missing{hint}", offset)
+    if isinstance(exc, UnexpectedToken):
+        token = exc.token
+        if token.type in {"RPAR", "RBRACE", "QUOTE"} or in_expression:
+            return card.error(f"unbalanced or malformed expression at `{token}`", token.start_pos)
+        return card.error(f"unexpected `{token}` in `{first}` card{hint}", token.start_pos)
+    if isinstance(exc, UnexpectedCharacters):
+        char = card.text[exc.pos_in_stream]
+        what = "expression" if in_expression else f"`{first}` card"
+        return card.error(f"unexpected `{char}` in {what}{hint}", exc.pos_in_stream)
+    return card.error(f"cannot read this card{hint}", 0)

@@ -1,0 +1,311 @@
+"""The line layer: bytes on disk → logical cards with their places.
+
+SPICE's line rules live here, before the grammar sees anything: line 1 is the
+title; `*` (and `#`) comment lines; inline `;`, ` $ ` and ` //` comments; `+`
+continuation lines (comment and blank lines may stand between); `.control`
+blocks dropped; `.include` and `.lib FILE SECTION` expanded; reading stops at
+`.end`. Each logical card remembers, for every stretch of its text, the file,
+line and column it came from, so errors point at the user's own text.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .circuit import Notice
+from .errors import Location, NetlistError
+
+# A single-stage netlist has tens of cards; refuse early what is far beyond that.
+MAX_CARDS = 20_000
+MAX_FILE_BYTES = 16 * 1024 * 1024
+MAX_INCLUDE_DEPTH = 32
+
+_INCLUDE = re.compile(r"\.inc(?:l(?:u(?:d(?:e)?)?)?)?(?=\s|$)", re.IGNORECASE)
+_LIB = re.compile(r"\.lib(?=\s|$)", re.IGNORECASE)
+_ENDL = re.compile(r"\.endl(?=\s|$)", re.IGNORECASE)
+_CONTROL = re.compile(r"\.control(?=\s|$)", re.IGNORECASE)
+_ENDC = re.compile(r"\.endc(?=\s|$)", re.IGNORECASE)
+_END = re.compile(r"\.end(?=\s|$)", re.IGNORECASE)
+# Inline comments: `;` anywhere, `$` or `//` after a blank (a `$` inside a name is not one).
+_INLINE_COMMENT = re.compile(r";|(?<=\s)\$(?=\s|$)|(?<=\s)//")
+
+
+@dataclass(frozen=True)
+class SourceFile:
+    """One file's physical lines, kept to show the offending line in errors."""
+
+    name: str
+    lines: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class Segment:
+    """Card text from `offset` on came from `line`, starting at `column` (1-based)."""
+
+    offset: int
+    line: int
+    column: int
+
+
+@dataclass(frozen=True)
+class LogicalCard:
+    """One card with its continuations joined and its comments removed."""
+
+    text: str
+    source: SourceFile = field(repr=False)
+    segments: tuple[Segment, ...] = field(repr=False)
+
+    @property
+    def line(self) -> int:
+        return self.segments[0].line
+
+    def locate(self, offset: int) -> Location:
+        """File position of character `offset` (0-based) of the card text."""
+        segment = self.segments[0]
+        for candidate in self.segments:
+            if candidate.offset <= offset:
+                segment = candidate
+        return Location(self.source.name, segment.line, segment.column + offset - segment.offset)
+
+    def error(self, message: str, offset: int = 0, caret: bool = True) -> NetlistError:
+        location = self.locate(offset)
+        return NetlistError(message, location, self.source.lines[location.line - 1], caret)
+
+
+@dataclass
+class Deck:
+    """The title and the logical cards of a netlist, includes expanded."""
+
+    title: str
+    source: SourceFile
+    cards: list[LogicalCard] = field(default_factory=list)
+    notices: list[Notice] = field(default_factory=list)
+
+
+def read_source(path: str | os.PathLike[str], display_name: str | None = None) -> SourceFile:
+    """Read a netlist file as text: reject empty and binary files with a located message."""
+    name = display_name or str(path)
+    try:
+        size = os.path.getsize(path)
+        if size > MAX_FILE_BYTES:
+            raise NetlistError(
+                f"file is {size // (1024 * 1024)} MiB: far beyond a single-stage netlist "
+                f"(limit {MAX_FILE_BYTES // (1024 * 1024)} MiB)",
+                Location(name, 1, 1),
+            )
+        with open(path, "rb") as handle:
+            data = handle.read()
+    except IsADirectoryError:
+        raise NetlistError("is a directory, not a netlist file", Location(name, 1, 1)) from None
+    except OSError as exc:
+        raise NetlistError(f"cannot read: {exc.strerror or exc}", Location(name, 1, 1)) from None
+    return decode_source(data, name)
+
+
+def decode_source(data: bytes, name: str) -> SourceFile:
+    """Bytes → lines. Stray non-ASCII bytes are tolerated; NUL bytes mean binary data."""
+    if b"\x00" in data[:65536]:
+        raise NetlistError("binary data, not a SPICE netlist", Location(name, 1, 1))
+    text = data.decode("utf-8", errors="replace")
+    controls = sum(1 for ch in text[:65536] if ord(ch) < 32 and ch not in "\t\r\n\f\v")
+    if controls > max(8, len(text[:65536]) // 100):
+        raise NetlistError("binary data, not a SPICE netlist", Location(name, 1, 1))
+    lines = tuple(text.replace("\r\n", "\n").replace("\r", "\n").split("\n"))
+    if not text.strip():
+        raise NetlistError("empty netlist", Location(name, 1, 1))
+    return SourceFile(name, lines)
+
+
+def _strip_inline_comment(text: str) -> str:
+    match = _INLINE_COMMENT.search(text)
+    return text[: match.start()] if match else text
+
+
+def _first_word(text: str) -> str:
+    return text.split(None, 1)[0] if text.split() else ""
+
+
+class _Reader:
+    """Walks files, joining continuations and expanding includes into one Deck."""
+
+    def __init__(self, deck: Deck) -> None:
+        self.deck = deck
+        self.include_stack: list[Path] = []
+
+    # -- physical lines → logical cards of one file ---------------------------
+    def cards_of(self, source: SourceFile, first_line: int) -> list[LogicalCard]:
+        """Logical cards of `source` from line `first_line` (1-based) to `.end`."""
+        cards: list[LogicalCard] = []
+        text_parts: list[str] = []
+        segments: list[Segment] = []
+        control_start: int | None = None
+        ended_at: int | None = None
+        after_end = False
+
+        def flush() -> None:
+            if text_parts:
+                cards.append(LogicalCard("".join(text_parts), source, tuple(segments)))
+                text_parts.clear()
+                segments.clear()
+
+        for number in range(first_line, len(source.lines) + 1):
+            raw = source.lines[number - 1]
+            stripped = raw.lstrip(" \t\f\v")
+            indent = len(raw) - len(stripped)
+            if control_start is not None:
+                if _ENDC.match(stripped):
+                    self.note_control(source, control_start, number, closed=True)
+                    control_start = None
+                continue
+            if _CONTROL.match(stripped):
+                flush()
+                control_start = number
+                continue
+            if not stripped.strip() or stripped[0] in "*#":
+                continue
+            if ended_at is not None:
+                after_end = True
+                continue
+            if _ENDC.match(stripped):
+                self.deck.notices.append(
+                    Notice("stray-endc", "`.endc` without `.control`: ignored", source.name, number)
+                )
+                continue
+            body = _strip_inline_comment(stripped).rstrip()
+            if stripped[0] == "+":
+                if not text_parts:
+                    raise NetlistError(
+                        "continuation line `+` with no card before it",
+                        Location(source.name, number, indent + 1),
+                        raw,
+                    )
+                continued = body[1:]
+                lead = len(continued) - len(continued.lstrip())
+                text_parts.append(" ")
+                segments.append(Segment(sum(map(len, text_parts)), number, indent + 2 + lead))
+                text_parts.append(continued.strip())
+                continue
+            flush()
+            if _END.match(stripped):
+                ended_at = number
+                continue
+            if not body:
+                continue
+            segments.append(Segment(0, number, indent + 1))
+            text_parts.append(body)
+            if len(self.deck.cards) + len(cards) > MAX_CARDS:
+                raise NetlistError(
+                    f"more than {MAX_CARDS} cards: far beyond a single-stage netlist, refused",
+                    Location(source.name, number, 1),
+                )
+        flush()
+        if control_start is not None:
+            self.note_control(source, control_start, len(source.lines), closed=False)
+        if after_end:
+            self.deck.notices.append(
+                Notice("after-end", "lines after `.end` are ignored", source.name, ended_at)
+            )
+        return cards
+
+    def note_control(self, source: SourceFile, start: int, stop: int, closed: bool) -> None:
+        how = "" if closed else " (never closed by `.endc`)"
+        self.deck.notices.append(
+            Notice(
+                "control-dropped",
+                f"`.control` block on lines {start}–{stop} dropped{how}: its commands never "
+                "reach the simulator",
+                source.name,
+                start,
+            )
+        )
+
+    # -- includes ------------------------------------------------------------
+    def expand(self, source: SourceFile, path: Path, first_line: int) -> None:
+        """Append the cards of `source` to the deck, expanding `.include`/`.lib`."""
+        self.include_stack.append(path)
+        try:
+            for card in self.cards_of(source, first_line):
+                if _INCLUDE.match(card.text):
+                    self.include(card, path, section=None)
+                elif _LIB.match(card.text):
+                    words = card.text.split()
+                    if len(words) == 2:
+                        # `.lib NAME` in a netlist opens a section definition: skipped
+                        # here, read only where a `.lib FILE NAME` asks for it.
+                        self.deck.notices.append(
+                            Notice(
+                                "lib-section-skipped",
+                                f"`.lib {words[1]}` section definition outside a library file: skipped",
+                                source.name,
+                                card.line,
+                            )
+                        )
+                        continue
+                    self.include(card, path, section=words[2] if len(words) > 2 else None)
+                else:
+                    self.deck.cards.append(card)
+        finally:
+            self.include_stack.pop()
+
+    def include(self, card: LogicalCard, including: Path, section: str | None) -> None:
+        words = card.text.split(None, 2)
+        keyword = words[0]
+        if len(words) < 2:
+            raise card.error(f"`{keyword}` needs a file name", len(card.text))
+        offset = card.text.index(words[1], len(keyword))
+        raw_name = words[1]
+        if section is None and _LIB.match(card.text):
+            raise card.error("`.lib` needs a file and a section name: `.lib FILE SECTION`", offset)
+        if not _LIB.match(card.text) and len(words) > 2:
+            raw_name = card.text[offset:].strip()
+        file_name = raw_name.strip("\"'")
+        target = (including.parent / os.path.expanduser(file_name)).resolve()
+        if target in self.include_stack:
+            chain = " → ".join(p.name for p in self.include_stack[self.include_stack.index(target):])
+            raise card.error(f"include cycle: {chain} → {target.name}", offset)
+        if len(self.include_stack) >= MAX_INCLUDE_DEPTH:
+            raise card.error(f"includes nested deeper than {MAX_INCLUDE_DEPTH}", offset)
+        if not target.is_file():
+            raise card.error(f"included file `{file_name}` not found (looked for {target})", offset)
+        try:
+            included = read_source(target, display_name=str(target))
+        except NetlistError as exc:
+            raise card.error(f"in included file: {exc.location}: {exc.message}", offset) from None
+        if section is None:
+            # An included file has no title line: every line is a card.
+            self.expand(included, target, 1)
+            return
+        start, stop = _find_section(included, section)
+        if start is None:
+            raise card.error(f"section `{section}` not found in `{file_name}`", offset)
+        section_source = SourceFile(included.name, included.lines[:stop - 1])
+        self.expand(section_source, target, start + 1)
+
+
+def _find_section(source: SourceFile, section: str) -> tuple[int | None, int]:
+    """Lines (1-based) of `.lib SECTION` and of its `.endl` in a library file."""
+    wanted = section.lower()
+    start: int | None = None
+    for number, raw in enumerate(source.lines, start=1):
+        stripped = raw.strip()
+        if start is None:
+            words = stripped.split()
+            if len(words) == 2 and _LIB.match(stripped) and words[1].lower() == wanted:
+                start = number
+        elif _ENDL.match(stripped):
+            return start, number
+    return start, len(source.lines) + 1
+
+
+def read_deck(source: SourceFile, path: str | os.PathLike[str] | None = None) -> Deck:
+    """Title and logical cards of a main netlist (line 1 is always the title)."""
+    title = source.lines[0].strip()
+    if title.lower().startswith(".title"):
+        title = title[len(".title"):].strip()
+    deck = Deck(title=title, source=source)
+    base = Path(path if path is not None else source.name).resolve()
+    _Reader(deck).expand(source, base, 2)
+    return deck
