@@ -1,0 +1,377 @@
+"""Client of the ngspice worker: one child process started on first use and reused for every deck.
+
+The worker is killed and replaced transparently when it crashes, hangs past a run's timeout, or
+tells us that ngspice cannot recover; the failing run raises, the next one gets a fresh process,
+so a batch goes on. The client takes SPICE text only: it never looks inside a netlist.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import os
+import selectors
+import signal
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+import weakref
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import MappingProxyType
+from typing import Any
+
+import numpy as np
+
+from bridge.sim.locate import locate_ngspice
+from bridge.sim.worker import vector_key
+
+__all__ = [
+    "NgspiceSession",
+    "SimResult",
+    "SimulationFailed",
+    "SimulatorCrashed",
+    "SimulatorError",
+    "SimulatorTimeout",
+    "SimulatorUnavailable",
+    "ngspice_available",
+]
+
+_PACKAGE_ROOT = Path(__file__).resolve().parents[2]  # the directory holding ``bridge/``
+_READ_CHUNK = 1 << 20
+_CAPTURE_TAIL = 2000  # bytes of the worker's captured output quoted when it dies
+
+
+class SimulatorError(Exception):
+    """Anything that kept ngspice from giving an answer."""
+
+
+class SimulatorUnavailable(SimulatorError):
+    """libngspice is missing or will not load; ``hint`` says how to install it."""
+
+    def __init__(self, hint: str) -> None:
+        super().__init__(hint)
+        self.hint = hint
+
+
+class SimulationFailed(SimulatorError):
+    """ngspice ran the deck and gave no usable result (``kind``: no_convergence/simulator_error)."""
+
+    def __init__(self, kind: str, message: str, messages: Sequence[str] = ()) -> None:
+        super().__init__(f"{kind}: {message}")
+        self.kind = kind
+        self.message = message
+        self.messages = tuple(messages)
+
+
+class SimulatorCrashed(SimulatorError):
+    """The worker process died (or broke the protocol); the next run starts a new one."""
+
+    def __init__(self, message: str, returncode: int | None = None, output: str = "") -> None:
+        super().__init__(message)
+        self.returncode = returncode
+        self.output = output
+
+
+class SimulatorTimeout(SimulatorError, TimeoutError):
+    """The worker did not answer in time and was killed; the next run starts a new one."""
+
+    def __init__(self, message: str, timeout: float) -> None:
+        super().__init__(message)
+        self.timeout = timeout
+
+
+@dataclass(frozen=True, eq=False)
+class SimResult:
+    """The vectors of the plot one analysis made, keyed as the worker names them."""
+
+    plot: str
+    vectors: Mapping[str, np.ndarray]
+    messages: tuple[str, ...] = field(default=())
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        """A vector by name; ``v(out)``, ``out``, ``i(v1)`` and ``v1#branch`` all work."""
+        return self.vectors[vector_key(name)]
+
+    def __contains__(self, name: object) -> bool:
+        return isinstance(name, str) and vector_key(name) in self.vectors
+
+    def scalar(self, name: str) -> float:
+        """The single value of a vector of an operating point."""
+        values = self[name]
+        if values.shape != (1,):
+            raise ValueError(f"{name} has {values.size} points, not one")
+        return float(values[0])
+
+
+def ngspice_available(library: str | None = None) -> tuple[bool, str]:
+    """Whether libngspice can be found, and one line for the user; never raises."""
+    location = locate_ngspice(library)
+    return location.found, location.hint
+
+
+class _Worker:
+    """One running worker process and the two pipes to it."""
+
+    def __init__(self, library_path: str, startup_timeout: float) -> None:
+        capture_fd, self.capture_path = tempfile.mkstemp(prefix="biasbridge-ngspice-", suffix=".log")
+        response_read, response_write = os.pipe()
+        env = dict(os.environ)
+        env["NGSPICE_LIBRARY_PATH"] = library_path
+        env["PYTHONPATH"] = os.pathsep.join(
+            [str(_PACKAGE_ROOT), *filter(None, [env.get("PYTHONPATH")])]
+        )
+        command = [
+            sys.executable, "-m", "bridge.sim.worker",
+            "--response-fd", str(response_write),
+            "--capture", self.capture_path,
+            "--library", library_path,
+        ]
+        try:
+            # stdout/stderr go to the capture from the first instruction on (an import error
+            # lands there too); the worker then moves its fds 1 and 2 onto the same file.
+            self.process = subprocess.Popen(
+                command,
+                stdin=subprocess.PIPE,
+                stdout=capture_fd,
+                stderr=capture_fd,
+                pass_fds=(response_write,),
+                env=env,
+            )
+        except BaseException:
+            os.close(response_read)
+            os.close(capture_fd)
+            os.unlink(self.capture_path)
+            raise
+        finally:
+            os.close(response_write)
+        os.close(capture_fd)
+        self._responses = response_read
+        self._selector = selectors.DefaultSelector()
+        self._selector.register(response_read, selectors.EVENT_READ)
+        self._buffer = bytearray()
+        self._next_id = 1
+        self._finalizer = weakref.finalize(
+            self, _reap, self.process, self._selector, response_read, self.capture_path
+        )
+        started = time.monotonic()
+        try:
+            handshake = self._read_message(startup_timeout, during="start-up")
+        except BaseException:
+            self.close()
+            raise
+        self.startup_seconds = time.monotonic() - started
+        if not handshake.get("handshake"):
+            self.close()
+            raise SimulatorCrashed("ngspice worker sent no handshake")
+        if not handshake.get("ok"):
+            self.close()
+            raise SimulatorUnavailable(str(handshake.get("error") or "ngspice did not start"))
+        self.version = str(handshake.get("version"))
+        self.banner = tuple(handshake.get("messages") or ())
+
+    @property
+    def pid(self) -> int:
+        return self.process.pid
+
+    def request(self, deck: str, vectors: Sequence[str] | None, timeout: float) -> dict[str, Any]:
+        request_id = self._next_id
+        self._next_id += 1
+        line = json.dumps({"id": request_id, "deck": deck,
+                           "vectors": list(vectors) if vectors is not None else None})
+        try:
+            assert self.process.stdin is not None
+            self.process.stdin.write(line.encode("utf-8") + b"\n")
+            self.process.stdin.flush()
+        except (BrokenPipeError, OSError) as exc:
+            raise self._crashed(f"ngspice worker was gone before the deck was sent ({exc})") from None
+        reply = self._read_message(timeout, during="a run")
+        if reply.get("id") != request_id:
+            raise self._crashed(f"ngspice worker answered request {reply.get('id')!r}, "
+                                f"expected {request_id}")
+        return reply
+
+    def _read_message(self, timeout: float, during: str) -> dict[str, Any]:
+        deadline = time.monotonic() + timeout
+        while (end := self._buffer.find(b"\n")) < 0:
+            remaining = deadline - time.monotonic()
+            if remaining <= 0 or not self._selector.select(remaining):
+                self.kill()
+                raise SimulatorTimeout(
+                    f"ngspice did not answer within {timeout:g} s during {during}; "
+                    f"worker {self.pid} killed", timeout)
+            chunk = os.read(self._responses, _READ_CHUNK)
+            if not chunk:
+                raise self._crashed(f"ngspice worker died during {during}")
+            self._buffer += chunk
+        line = bytes(self._buffer[:end])
+        del self._buffer[:end + 1]
+        try:
+            message = json.loads(line)
+        except ValueError:
+            raise self._crashed("ngspice worker sent a malformed response") from None
+        if not isinstance(message, dict):
+            raise self._crashed("ngspice worker sent a malformed response")
+        return message
+
+    def _crashed(self, message: str) -> SimulatorCrashed:
+        """Make sure the process is gone and describe how it ended."""
+        try:
+            returncode = self.process.wait(timeout=1.0)
+        except subprocess.TimeoutExpired:
+            self.kill()
+            returncode = self.process.returncode
+        if returncode is not None and returncode < 0:
+            try:
+                how = f"killed by {signal.Signals(-returncode).name}"
+            except ValueError:
+                how = f"killed by signal {-returncode}"
+        else:
+            how = f"exit status {returncode}"
+        output = self.captured_output()
+        return SimulatorCrashed(f"{message} (pid {self.pid}, {how})", returncode, output)
+
+    def captured_output(self) -> str:
+        """The end of what the worker printed on its stdout and stderr."""
+        try:
+            with open(self.capture_path, "rb") as capture:
+                capture.seek(0, os.SEEK_END)
+                capture.seek(max(0, capture.tell() - _CAPTURE_TAIL))
+                return capture.read().decode("utf-8", "replace")
+        except OSError:
+            return ""
+
+    def kill(self) -> None:
+        if self.process.poll() is None:
+            self.process.kill()
+        self.process.wait()
+
+    def close(self) -> None:
+        self._finalizer()
+
+
+def _reap(process: subprocess.Popen, selector: selectors.BaseSelector, responses: int,
+          capture_path: str) -> None:
+    """Kill the worker and release what it held (also run when a session is garbage-collected)."""
+    if process.poll() is None:
+        process.kill()
+    process.wait()
+    if process.stdin is not None:
+        with contextlib.suppress(OSError):
+            process.stdin.close()
+    selector.close()
+    os.close(responses)
+    with contextlib.suppress(OSError):
+        os.unlink(capture_path)
+
+
+class NgspiceSession:
+    """ngspice through one reused worker process; use as a context manager.
+
+    ``run`` takes SPICE text with its analysis line and returns the vectors of the plot it made.
+    Constructing a session raises ``SimulatorUnavailable`` when libngspice cannot be found; the
+    worker itself starts on the first ``run`` (or ``version``).
+    """
+
+    available = staticmethod(ngspice_available)
+
+    def __init__(self, library: str | None = None, *, startup_timeout: float = 30.0) -> None:
+        location = locate_ngspice(library)
+        if location.path is None:
+            raise SimulatorUnavailable(location.hint)
+        self.library_path: str = location.path
+        self.startup_timeout = startup_timeout
+        self.workers_started = 0
+        self._worker: _Worker | None = None
+        self._version: str | None = None
+        self._unavailable: str | None = None  # once the library will not load, do not respawn
+        self._lock = threading.Lock()
+        self._closed = False
+
+    def __enter__(self) -> NgspiceSession:
+        return self
+
+    def __exit__(self, *exc_info: object) -> None:
+        self.close()
+
+    @property
+    def version(self) -> str:
+        """ngspice's version as the library reports it (e.g. ``"39"``); starts the worker."""
+        if self._version is None:
+            with self._lock:
+                self._ensure_worker()
+        assert self._version is not None
+        return self._version
+
+    @property
+    def worker_pid(self) -> int | None:
+        """The pid of the running worker, or None before the first run and after a failure."""
+        worker = self._worker
+        return worker.pid if worker is not None else None
+
+    @property
+    def startup_seconds(self) -> float | None:
+        """How long the running worker took from spawn to handshake."""
+        worker = self._worker
+        return worker.startup_seconds if worker is not None else None
+
+    def run(self, deck_text: str, vectors: Sequence[str] | None = None,
+            timeout: float = 10.0) -> SimResult:
+        """Simulate one deck; ``vectors`` limits the answer to those names (all when None).
+
+        Raises SimulationFailed when ngspice gives no result, SimulatorCrashed/SimulatorTimeout
+        when the worker dies or hangs (it is replaced on the next run).
+        """
+        if isinstance(vectors, str):
+            vectors = [vectors]
+        with self._lock:
+            worker = self._ensure_worker()
+            try:
+                reply = worker.request(deck_text, vectors, timeout)
+            except BaseException:
+                # Crash, timeout, Ctrl-C: the worker's state is unknown, so it goes.
+                self._discard_worker()
+                raise
+            if reply.get("retire"):
+                self._discard_worker()
+        messages = tuple(str(message) for message in reply.get("messages") or ())
+        if not reply.get("ok"):
+            raise SimulationFailed(str(reply.get("kind") or "simulator_error"),
+                                   str(reply.get("error") or "ngspice failed"), messages)
+        arrays = {}
+        for name, values in (reply.get("vectors") or {}).items():
+            array = np.asarray(values, dtype=float)
+            array.setflags(write=False)
+            arrays[name] = array
+        return SimResult(plot=str(reply.get("plot")), vectors=MappingProxyType(arrays),
+                         messages=messages)
+
+    def close(self) -> None:
+        """Kill the worker; the session cannot run after this."""
+        with self._lock:
+            self._closed = True
+            self._discard_worker()
+
+    def _ensure_worker(self) -> _Worker:
+        if self._closed:
+            raise SimulatorError("the ngspice session is closed")
+        if self._unavailable is not None:
+            raise SimulatorUnavailable(self._unavailable)
+        if self._worker is None or self._worker.process.poll() is not None:
+            self._discard_worker()
+            try:
+                self._worker = _Worker(self.library_path, self.startup_timeout)
+            except SimulatorUnavailable as exc:
+                self._unavailable = exc.hint
+                raise
+            self.workers_started += 1
+            self._version = self._worker.version
+        return self._worker
+
+    def _discard_worker(self) -> None:
+        worker, self._worker = self._worker, None
+        if worker is not None:
+            worker.close()
