@@ -415,36 +415,44 @@ def _card_key(card: LogicalCard) -> str:
     return first[0]
 
 
+def _open_expression(text: str) -> bool:
+    """Whether `text` (a card up to an error) ends inside a `{...}` or `'...'` expression."""
+    depth, quoted = 0, False
+    for char in text:
+        if char == "'":
+            quoted = not quoted
+        elif char == "{":
+            depth += 1
+        elif char == "}":
+            depth -= 1
+    return quoted or depth > 0
+
+
 def _explain(card: LogicalCard, exc: UnexpectedInput) -> NetlistError:
     """A lark error → a message a designer understands, at the right column."""
     key = _card_key(card)
     usage = USAGE.get(key)
     hint = f"; expected `{usage}`" if usage else ""
     first = card.text.split(None, 1)[0]
-    if isinstance(exc, UnexpectedCharacters) and exc.pos_in_stream == 0:
+    token = getattr(exc, "token", None)
+    position = token.start_pos if isinstance(token, Token) and token.type != "$END" else None
+    if position is None:
+        position = getattr(exc, "pos_in_stream", None)
+    if position is None or (isinstance(token, Token) and token.type == "$END") or isinstance(exc, UnexpectedEOF):
+        position = len(card.text)
+    if position == 0:
         if key.startswith("."):
             return card.error(f"`{first}` is not a supported card", 0)
         return card.error(
-            f"element `{first}`: letter `{first[0]}` is not a supported element "
-            f"(supported: {', '.join(SUPPORTED_LETTERS)})",
+            f"`{first}`: element letter `{first[0]}` is not supported (supported: {', '.join(SUPPORTED_LETTERS)})",
             0,
         )
-    expected = set(getattr(exc, "expected", None) or getattr(exc, "allowed", None) or ())
-    in_expression = bool(expected & {"RPAR", "RBRACE", "QUOTE", "ENUMBER", "NAME"}) and key != ".param"
-    if isinstance(exc, UnexpectedEOF) or (
-        isinstance(exc, UnexpectedToken) and exc.token.type == "$END"
-    ):
-        offset = len(card.text)
-        if expected & {"RPAR", "RBRACE", "QUOTE"} and in_expression:
-            return card.error("unbalanced expression: it is not closed before the end of the card", offset)
-        return card.error(f"incomplete `{first}` card: fields missing{hint}", offset)
-    if isinstance(exc, UnexpectedToken):
-        token = exc.token
-        if token.type in {"RPAR", "RBRACE", "QUOTE"} or in_expression:
-            return card.error(f"unbalanced or malformed expression at `{token}`", token.start_pos)
-        return card.error(f"unexpected `{token}` in `{first}` card{hint}", token.start_pos)
-    if isinstance(exc, UnexpectedCharacters):
-        char = card.text[exc.pos_in_stream]
-        what = "expression" if in_expression else f"`{first}` card"
-        return card.error(f"unexpected `{char}` in {what}{hint}", exc.pos_in_stream)
-    return card.error(f"cannot read this card{hint}", 0)
+    in_expression = _open_expression(card.text[:position])
+    if position >= len(card.text):
+        if in_expression:
+            return card.error("unbalanced expression: not closed before the end of the card", position)
+        return card.error(f"incomplete `{first}` card: fields missing{hint}", position)
+    shown = str(token) if isinstance(token, Token) else card.text[position]
+    if in_expression or shown in {"}", ")"}:
+        return card.error(f"unbalanced or malformed expression at `{shown}`", position)
+    return card.error(f"unexpected `{shown}` in `{first}` card{hint}", position)

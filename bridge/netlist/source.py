@@ -196,7 +196,7 @@ class _Reader:
                 continue
             segments.append(Segment(0, number, indent + 1))
             text_parts.append(body)
-            if len(self.deck.cards) + len(cards) > MAX_CARDS:
+            if len(self.deck.cards) + len(cards) >= MAX_CARDS:
                 raise NetlistError(
                     f"more than {MAX_CARDS} cards: far beyond a single-stage netlist, refused",
                     Location(source.name, number, 1),
@@ -271,7 +271,7 @@ class _Reader:
         if not target.is_file():
             raise card.error(f"included file `{file_name}` not found (looked for {target})", offset)
         try:
-            included = read_source(target, display_name=str(target))
+            included = read_source(target, display_name=_display_name(target))
         except NetlistError as exc:
             raise card.error(f"in included file: {exc.location}: {exc.message}", offset) from None
         if section is None:
@@ -283,6 +283,14 @@ class _Reader:
             raise card.error(f"section `{section}` not found in `{file_name}`", offset)
         section_source = SourceFile(included.name, included.lines[:stop - 1])
         self.expand(section_source, target, start + 1)
+
+
+def _display_name(path: Path) -> str:
+    """A path as the user would type it: relative to the working directory when inside it."""
+    try:
+        return os.path.relpath(path)
+    except ValueError:
+        return str(path)
 
 
 def _find_section(source: SourceFile, section: str) -> tuple[int | None, int]:

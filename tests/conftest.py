@@ -1,0 +1,37 @@
+"""Shared test helpers: ngspice run directly in batch mode, as the outside reference."""
+
+from __future__ import annotations
+
+import re
+import shutil
+import subprocess
+from pathlib import Path
+
+import pytest
+
+NGSPICE = shutil.which("ngspice")
+needs_ngspice = pytest.mark.skipif(NGSPICE is None, reason="ngspice is not installed")
+
+REPO = Path(__file__).resolve().parents[1]
+EXAMPLES = REPO / "netlists"
+
+_ROW = re.compile(r"^\s+(\S+)\s+([-+]?\d\.\d+e[-+]\d+)\s*$")
+
+
+def ngspice_batch_op(path: Path) -> dict[str, float]:
+    """Node voltages and source currents that `ngspice -b` prints for a `.op` netlist.
+
+    The netlist must hold its own `.op` card. Keys are ngspice's lower-case names
+    (`out`, `v1#branch`).
+    """
+    assert NGSPICE is not None
+    completed = subprocess.run(
+        [NGSPICE, "-b", str(path)], capture_output=True, text=True, timeout=60, cwd=path.parent
+    )
+    values: dict[str, float] = {}
+    for line in completed.stdout.splitlines():
+        match = _ROW.match(line)
+        if match:
+            values[match.group(1).lower()] = float(match.group(2))
+    assert values, f"ngspice printed no operating point:\n{completed.stdout}\n{completed.stderr}"
+    return values

@@ -1,0 +1,118 @@
+"""SPICE number fields: the scale-factor rules of the ngspice manual, and ngspice itself."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+
+from bridge.netlist.numbers import NumberError, engineering, parse_number
+from conftest import needs_ngspice, ngspice_batch_op
+
+# reference: ngspice manual (Debian ngspice-doc 39), section 2.1.4.2 "Numbers",
+# Table 2.2 "Ngspice scale factors", and 2.1.4.3 "Letters following a number".
+MANUAL_CASES = [
+    ("12", 12.0),
+    ("-44", -44.0),
+    ("3.14159", 3.14159),
+    ("1e-14", 1e-14),
+    ("2.65e3", 2650.0),
+    ("1T", 1e12),
+    ("1G", 1e9),
+    ("1Meg", 1e6),
+    ("1MEG", 1e6),
+    ("1K", 1e3),
+    ("1mil", 25.4e-6),
+    ("1m", 1e-3),
+    ("1M", 1e-3),  # "Note that `M' or `m' denote `milli'"
+    ("1u", 1e-6),
+    ("1n", 1e-9),
+    ("1p", 1e-12),
+    ("1f", 1e-15),
+    # "10, 10V, 10Volts, and 10Hz all represent the same number"
+    ("10", 10.0),
+    ("10V", 10.0),
+    ("10Volts", 10.0),
+    ("10Hz", 10.0),
+    # "M, MA, MSec, and MMhos all represent the same scale factor"
+    ("1MA", 1e-3),
+    ("1MSec", 1e-3),
+    ("1MMhos", 1e-3),
+    # "1000, 1000.0, 1000Hz, 1e3, 1.0e3, 1kHz, and 1k all represent the same number"
+    ("1000", 1000.0),
+    ("1000.0", 1000.0),
+    ("1000Hz", 1000.0),
+    ("1e3", 1000.0),
+    ("1.0e3", 1000.0),
+    ("1kHz", 1000.0),
+    ("1k", 1000.0),
+    # unit letters after a scale factor, as designers write them
+    ("10uF", 10e-6),
+    ("1kOhm", 1e3),
+    ("56Ohms", 56.0),
+    ("20um", 20e-6),
+    ("1MHz", 1e-3),  # one milli-hertz, exactly as the manual's rule says
+    ("1F", 1e-15),  # one femto
+    (".5", 0.5),
+    ("5.", 5.0),
+    ("+2.5e-3V", 2.5e-3),
+]
+
+
+@pytest.mark.parametrize("text, expected", MANUAL_CASES)
+def test_number_follows_manual_scale_rules(text: str, expected: float) -> None:
+    assert math.isclose(parse_number(text), expected, rel_tol=1e-15)
+
+
+def test_scale_factor_is_exact_decimal() -> None:
+    # 10u is the decimal 1e-05, not 10 * 1e-6 = 9.999999999999999e-06.
+    assert parse_number("10u") == 1e-05
+    assert parse_number("4.7k") == 4700.0
+
+
+def test_atto_is_not_a_scale_factor_in_ngspice() -> None:
+    # Table 2.2 has no atto, and ngspice 39 reads `1a` as 1 (see the ngspice check below).
+    assert parse_number("1a") == 1.0
+
+
+def test_mil_is_not_known_inside_expressions() -> None:
+    # spice-syntax notes: inside {...} expressions MIL is not recognised; `m` still is.
+    assert parse_number("1mil", allow_mil=False) == 1e-3
+
+
+@pytest.mark.parametrize("text", ["1.2.3k", "abc", "", "1k%", "--1", "1e5.5", "k1", "1,5"])
+def test_malformed_number_is_rejected(text: str) -> None:
+    with pytest.raises(NumberError):
+        parse_number(text)
+
+
+def test_micro_sign_gets_a_hint() -> None:
+    with pytest.raises(NumberError, match="write `u`"):
+        parse_number("10µF")
+
+
+@needs_ngspice
+@pytest.mark.parametrize("text", ["1k", "1M", "1MEG", "1mil", "10uF", "2.2kOhm", "1a", "3e2m", "1g"])
+def test_number_matches_ngspice_reading(tmp_path, text: str) -> None:
+    # reference: ngspice 39 run directly in batch mode. A 1 A source into the resistor
+    # makes the node voltage equal to the resistance ngspice read.
+    deck = tmp_path / "r.cir"
+    deck.write_text(f"suffix check\nI1 0 n 1\nR1 n 0 {text}\n.op\n.end\n")
+    assert math.isclose(ngspice_batch_op(deck)["n"], parse_number(text), rel_tol=1e-6)
+
+
+@pytest.mark.parametrize(
+    "value, unit, shown",
+    [
+        (1e-3, "Ω", "1 mΩ"),
+        (4700.0, "Ω", "4.7 kΩ"),
+        (1e6, "Ω", "1 MΩ"),
+        (999.96, "Ω", "1 kΩ"),
+        (1e-15, "F", "1 fF"),
+        (-0.0047, "A", "-4.7 mA"),
+        (0.0, "V", "0 V"),
+        (None, "V", "—"),
+    ],
+)
+def test_engineering_notation_shows_the_prefix(value, unit, shown) -> None:
+    assert engineering(value, unit) == shown
