@@ -203,7 +203,8 @@ class _Reader:
                 )
         flush()
         if control_start is not None:
-            self.note_control(source, control_start, len(source.lines), closed=False)
+            last = max(n for n in range(control_start, len(source.lines) + 1) if source.lines[n - 1].strip())
+            self.note_control(source, control_start, last, closed=False)
         if after_end:
             self.deck.notices.append(
                 Notice("after-end", "lines after `.end` are ignored", source.name, ended_at)

@@ -1,0 +1,46 @@
+"""The grammar and the examples are found at run time in a plain (non-editable) install too."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import zipfile
+from pathlib import Path
+
+from conftest import REPO
+
+
+def test_plain_install_finds_grammar_and_examples(tmp_path):
+    wheels = tmp_path / "wheels"
+    subprocess.run(
+        [sys.executable, "-m", "pip", "wheel", "--quiet", "--no-deps",
+         "-w", str(wheels), str(REPO)],
+        check=True, capture_output=True, timeout=300,
+    )
+    (wheel,) = wheels.glob("biasbridge-*.whl")
+    names = zipfile.ZipFile(wheel).namelist()
+    assert "bridge/_grammar/spice.lark" in names
+    assert "bridge/_examples/cs_divider.cir" in names
+    target = tmp_path / "site"
+    subprocess.run(
+        [sys.executable, "-m", "pip", "install", "--quiet", "--no-deps", "--target", str(target), str(wheel)],
+        check=True, capture_output=True, timeout=300,
+    )
+    netlist = tmp_path / "n.cir"
+    netlist.write_text("plain install\nV1 a 0 1\nR1 a 0 1k\n.op\n")
+    # Run from an unrelated directory with only the installed copy on the path.
+    env = {**os.environ, "PYTHONPATH": str(target), "NO_COLOR": "1", "COLUMNS": "300"}
+    code = (
+        "import bridge.netlist.parser as p, bridge.cli as c, sys; "
+        "assert 'site' in p.__file__, p.__file__; "
+        "print(c.example_path('cs_divider.cir')); sys.exit(c.main(['parse', sys.argv[1]]))"
+    )
+    completed = subprocess.run(
+        [sys.executable, "-I", "-c", f"import sys; sys.path.insert(0, {str(target)!r}); {code}", str(netlist)],
+        capture_output=True, text=True, cwd=tmp_path, env=env, timeout=120,
+    )
+    assert completed.returncode == 0, completed.stderr
+    assert str(target) in completed.stdout.splitlines()[0]
+    assert "plain install" in completed.stdout
+    assert Path(completed.stdout.splitlines()[0]).is_file()
