@@ -24,7 +24,14 @@ from bridge.sim.client import (
     SimulatorUnavailable,
     ngspice_available,
 )
+from bridge.netlist.emit import SpiceDeck
 from bridge.sim.locate import locate_ngspice
+
+
+def deck(text: str) -> SpiceDeck:
+    """Wrap a hand-written test deck: these tests exercise the worker on raw SPICE on purpose
+    (broken decks the emitter would never produce)."""
+    return SpiceDeck(text, "test deck")
 
 REPO_ROOT = Path(__file__).resolve().parents[1]
 LIBRARY_FOUND, LIBRARY_HINT = ngspice_available()
@@ -77,7 +84,7 @@ def test_handshake_reports_the_library_version(session):
 
 @needs_ngspice
 def test_op_of_divider_and_nmos_stage_gives_node_voltages(session):
-    result = session.run(STAGE_OP)
+    result = session.run(deck(STAGE_OP))
     assert result.plot.startswith("op")
     # The gate draws no current, so the divider is exact: 5 V * 30k / 130k.
     assert result.scalar("g") == pytest.approx(5.0 * 30e3 / 130e3, rel=1e-9)
@@ -90,7 +97,7 @@ def test_op_of_divider_and_nmos_stage_gives_node_voltages(session):
 
 @needs_ngspice
 def test_device_vectors_come_back_when_saved(session):
-    result = session.run(STAGE_OP)
+    result = session.run(deck(STAGE_OP))
     gate, drain = result.scalar("g"), result.scalar("d")
     assert result.scalar("@m1[id]") == pytest.approx(NGSPICE_B_ID, rel=1e-5)
     assert result.scalar("@m1[gm]") == pytest.approx(NGSPICE_B_GM, rel=1e-5)
@@ -104,16 +111,16 @@ def test_device_vectors_come_back_when_saved(session):
 
 @needs_ngspice
 def test_requested_vectors_limit_the_answer(session):
-    result = session.run(STAGE_OP, vectors=["v(d)", "@m1[id]"])
+    result = session.run(deck(STAGE_OP), vectors=["v(d)", "@m1[id]"])
     assert set(result.vectors) == {"d", "@m1[id]"}
     with pytest.raises(SimulationFailed) as failure:
-        session.run(STAGE_OP, vectors=["v(nosuchnode)"])
+        session.run(deck(STAGE_OP), vectors=["v(nosuchnode)"])
     assert "nosuchnode" in failure.value.message
 
 
 @needs_ngspice
 def test_dc_sweep_returns_arrays_of_the_sweep_length(session):
-    result = session.run(STAGE.format(analysis=".dc VDD 0 5 0.1"))
+    result = session.run(deck(STAGE.format(analysis=".dc VDD 0 5 0.1")))
     assert result.plot.startswith("dc")
     sweep = result["v-sweep"]
     assert len(sweep) == 51
@@ -128,11 +135,11 @@ def test_many_decks_reuse_one_worker_and_do_not_leak_into_each_other(session):
     pid = session.worker_pid
     for index in range(40):
         if index % 2:
-            result = session.run(SMALL_OP)
+            result = session.run(deck(SMALL_OP))
             assert "d" not in result and "g" not in result
             assert result.scalar("b") == pytest.approx(0.5)
         else:
-            result = session.run(STAGE_OP)
+            result = session.run(deck(STAGE_OP))
             assert "b" not in result
     assert session.worker_pid == pid
 
@@ -140,13 +147,13 @@ def test_many_decks_reuse_one_worker_and_do_not_leak_into_each_other(session):
 @needs_ngspice
 def test_title_with_the_word_error_is_not_a_failure(session):
     # PySpice alone would call this load failed: it looks for "error" in ngspice's output.
-    result = session.run("error amplifier bias\nV1 a 0 1\nR1 a b 1k\nR2 b 0 1k\n.op\n.end\n")
+    result = session.run(deck("error amplifier bias\nV1 a 0 1\nR1 a b 1k\nR2 b 0 1k\n.op\n.end\n"))
     assert result.scalar("b") == pytest.approx(0.5)
 
 
 @needs_ngspice
 def test_floating_node_converges_and_its_warnings_come_back(session):
-    result = session.run("floating\nV1 1 0 1\nR1 1 0 1k\nC1 2 3 1p\n.op\n.end\n")
+    result = session.run(deck("floating\nV1 1 0 1\nR1 1 0 1k\nC1 2 3 1p\n.op\n.end\n"))
     assert result.scalar("1") == pytest.approx(1.0)
     assert any("singular matrix" in message for message in result.messages)
 
@@ -155,48 +162,48 @@ def test_floating_node_converges_and_its_warnings_come_back(session):
 def test_voltage_source_loop_fails_as_no_convergence_and_session_goes_on(session):
     pid = session.worker_pid
     with pytest.raises(SimulationFailed) as failure:
-        session.run(VOLTAGE_SOURCE_LOOP)
+        session.run(deck(VOLTAGE_SOURCE_LOOP))
     assert failure.value.kind == "no_convergence"
     assert any("singular matrix" in message for message in failure.value.messages)
-    assert session.run(SMALL_OP).scalar("b") == pytest.approx(0.5)
+    assert session.run(deck(SMALL_OP)).scalar("b") == pytest.approx(0.5)
     assert session.worker_pid == pid
 
 
 @needs_ngspice
 def test_unknown_model_fails_as_simulator_error_and_session_goes_on(session):
     with pytest.raises(SimulationFailed) as failure:
-        session.run(UNKNOWN_MODEL)
+        session.run(deck(UNKNOWN_MODEL))
     assert failure.value.kind == "simulator_error"
     assert "nosuch" in failure.value.message
     assert failure.value.messages
-    assert session.run(SMALL_OP).scalar("b") == pytest.approx(0.5)
+    assert session.run(deck(SMALL_OP)).scalar("b") == pytest.approx(0.5)
 
 
 @needs_ngspice
 def test_deck_that_makes_ngspice_unrecoverable_retires_the_worker(session):
     pid = session.worker_pid
     with pytest.raises(SimulationFailed) as failure:
-        session.run(UNDEFINED_PARAMETER)
+        session.run(deck(UNDEFINED_PARAMETER))
     assert failure.value.kind == "simulator_error"
     assert "nosuchparam" in failure.value.message
-    assert session.run(SMALL_OP).scalar("b") == pytest.approx(0.5)
+    assert session.run(deck(SMALL_OP)).scalar("b") == pytest.approx(0.5)
     assert session.worker_pid != pid
 
 
 @needs_ngspice
 def test_worker_killed_mid_run_raises_crashed_and_next_run_gets_a_new_worker():
     with NgspiceSession() as session:
-        session.run(SMALL_OP)
+        session.run(deck(SMALL_OP))
         pid = session.worker_pid
         killer = threading.Timer(0.3, os.kill, (pid, signal.SIGKILL))
         killer.start()
         try:
             with pytest.raises(SimulatorCrashed) as crash:
-                session.run(LONG_SWEEP, timeout=30.0)
+                session.run(deck(LONG_SWEEP), timeout=30.0)
         finally:
             killer.cancel()
         assert crash.value.returncode == -signal.SIGKILL
-        assert session.run(SMALL_OP).scalar("b") == pytest.approx(0.5)
+        assert session.run(deck(SMALL_OP)).scalar("b") == pytest.approx(0.5)
         assert session.worker_pid != pid
         assert session.workers_started == 2
 
@@ -204,25 +211,25 @@ def test_worker_killed_mid_run_raises_crashed_and_next_run_gets_a_new_worker():
 @needs_ngspice
 def test_run_past_its_timeout_raises_timeout_and_next_run_gets_a_new_worker():
     with NgspiceSession() as session:
-        session.run(SMALL_OP)
+        session.run(deck(SMALL_OP))
         pid = session.worker_pid
         with pytest.raises(SimulatorTimeout) as timeout:
-            session.run(LONG_SWEEP, timeout=0.3)
+            session.run(deck(LONG_SWEEP), timeout=0.3)
         assert timeout.value.timeout == 0.3
         with pytest.raises(ProcessLookupError):
             os.kill(pid, 0)  # killed and reaped
-        assert session.run(SMALL_OP).scalar("b") == pytest.approx(0.5)
+        assert session.run(deck(SMALL_OP)).scalar("b") == pytest.approx(0.5)
         assert session.worker_pid != pid
 
 
 @needs_ngspice
 def test_nothing_reaches_the_callers_stdout_or_stderr(capfd):
     with NgspiceSession() as session:
-        session.run(STAGE_OP)  # device vectors make PySpice log "Unit is None ..."
-        for deck in (VOLTAGE_SOURCE_LOOP, UNKNOWN_MODEL, UNDEFINED_PARAMETER):
+        session.run(deck(STAGE_OP))  # device vectors make PySpice log "Unit is None ..."
+        for text in (VOLTAGE_SOURCE_LOOP, UNKNOWN_MODEL, UNDEFINED_PARAMETER):
             with pytest.raises(SimulationFailed):
-                session.run(deck)
-        session.run(SMALL_OP)
+                session.run(deck(text))
+        session.run(deck(SMALL_OP))
     captured = capfd.readouterr()
     assert captured.out == ""
     assert captured.err == ""
@@ -231,7 +238,7 @@ def test_nothing_reaches_the_callers_stdout_or_stderr(capfd):
 @needs_ngspice
 def test_closing_the_session_kills_the_worker():
     session = NgspiceSession()
-    session.run(SMALL_OP)
+    session.run(deck(SMALL_OP))
     pid = session.worker_pid
     session.close()
     with pytest.raises(ProcessLookupError):
@@ -278,9 +285,9 @@ def test_library_that_will_not_load_reports_unavailable(tmp_path):
     broken.write_bytes(b"not a shared object")
     session = NgspiceSession(str(broken))
     with pytest.raises(SimulatorUnavailable) as unavailable:
-        session.run(SMALL_OP)
+        session.run(deck(SMALL_OP))
     assert str(broken) in unavailable.value.hint
     with pytest.raises(SimulatorUnavailable):
-        session.run(SMALL_OP)  # remembered: no new worker for every deck of a batch
+        session.run(deck(SMALL_OP))  # remembered: no new worker for every deck of a batch
     assert session.workers_started == 0
     session.close()

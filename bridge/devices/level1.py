@@ -344,6 +344,15 @@ class Level1Point:
         return -1 if self.swapped else 1
 
 
+def classify_region(vov: float, vds: float) -> Region:
+    """Cutoff when vov ≤ 0, saturation when vds ≥ vov, otherwise triode (polarity-normalised)."""
+    if vov <= 0.0:
+        return "cutoff"
+    if vov <= vds:
+        return "saturation"
+    return "triode"
+
+
 def evaluate(
     model: Level1Model, geometry: Level1Geometry, vd: float, vg: float, vs: float, vb: float
 ) -> Level1Point:
@@ -370,17 +379,14 @@ def evaluate(
 
     gain = beta(model, geometry)
     clm = 1.0 + model.lambda_ * channel_bias  # channel-length modulation
-    region: Region
-    if vov <= 0.0:
-        region = "cutoff"
+    region = classify_region(vov, channel_bias)
+    if region == "cutoff":
         current = gm = gds = 0.0
-    elif vov <= channel_bias:
-        region = "saturation"
+    elif region == "saturation":
         current = 0.5 * gain * clm * vov * vov
         gm = gain * clm * vov
         gds = 0.5 * model.lambda_ * gain * vov * vov
     else:
-        region = "triode"
         current = gain * clm * channel_bias * (vov - 0.5 * channel_bias)
         gm = gain * clm * channel_bias
         gds = gain * clm * (vov - channel_bias) + model.lambda_ * gain * channel_bias * (

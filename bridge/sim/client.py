@@ -26,6 +26,7 @@ from typing import Any
 
 import numpy as np
 
+from bridge.netlist.emit import SpiceDeck
 from bridge.sim.locate import locate_ngspice
 from bridge.sim.worker import vector_key
 
@@ -318,13 +319,19 @@ class NgspiceSession:
         worker = self._worker
         return worker.startup_seconds if worker is not None else None
 
-    def run(self, deck_text: str, vectors: Sequence[str] | None = None,
+    def run(self, deck: SpiceDeck, vectors: Sequence[str] | None = None,
             timeout: float = 10.0) -> SimResult:
         """Simulate one deck; ``vectors`` limits the answer to those names (all when None).
+
+        Only a SpiceDeck made by the emitter is accepted: the user's own text (and with it any
+        `.control` block) never reaches ngspice.
 
         Raises SimulationFailed when ngspice gives no result, SimulatorCrashed/SimulatorTimeout
         when the worker dies or hangs (it is replaced on the next run).
         """
+        if not isinstance(deck, SpiceDeck):
+            raise TypeError("NgspiceSession.run takes a SpiceDeck from bridge.netlist.emit, not text")
+        deck_text = deck.text
         if isinstance(vectors, str):
             vectors = [vectors]
         with self._lock:
