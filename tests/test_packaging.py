@@ -22,6 +22,9 @@ def test_plain_install_finds_grammar_and_examples(tmp_path):
     names = zipfile.ZipFile(wheel).namelist()
     assert "bridge/_grammar/spice.lark" in names
     assert "bridge/_examples/cs_divider.cir" in names
+    # every subpackage of the source tree ships (the list in pyproject.toml is explicit)
+    for init in (REPO / "bridge").rglob("__init__.py"):
+        assert str(init.relative_to(REPO)) in names, init
     target = tmp_path / "site"
     subprocess.run(
         [sys.executable, "-m", "pip", "install", "--quiet", "--no-deps", "--target", str(target), str(wheel)],

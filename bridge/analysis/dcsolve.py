@@ -1,0 +1,1140 @@
+"""DC operating point of a Circuit: modified nodal analysis solved by Newton–Raphson, as ngspice's op.
+
+    solve_operating_point(circuit) -> OperatingPoint
+    solve_dc_sweep(circuit, "VIN", values) -> list[OperatingPoint]
+
+What is solved, stated once:
+
+* Resistors are conductances, capacitors open, inductors 0 V branches. Independent V sources and
+  E/H sources carry their branch current as an unknown; I, G and F sources inject current. SPICE
+  signs throughout: a source's current flows from n+ through the source to n−.
+* Diodes: Shockley (IS·AREA·M, emission coefficient N) with ngspice's reverse-bias form below
+  −3·N·Vt and GMIN in parallel. RS, BV and the rest are not modelled; a card that gives them is
+  listed in the caveats.
+* MOSFETs: the level-1 equations of ``bridge.devices.level1`` (one Level1Model per card), plus the
+  bulk–drain and bulk–source junction diodes with GMIN in parallel that ngspice's mos1 places, so
+  cutoff leakage and floating-bulk cases come out as ngspice's do. BJTs are refused.
+* Newton with ngspice's voltage limiting (DEVfetlim/DEVlimvds on vgs and vds, DEVpnjlim on every
+  junction); when plain Newton fails, gmin stepping, then source stepping. Convergence is judged
+  by ngspice's criteria (RELTOL, VNTOL, ABSTOL) and then the iteration goes on to 1e-9 relative:
+  the answer is the model's own solution, not merely one within ngspice's tolerance of it.
+* The circuit runs at 27 °C = TNOM: no temperature scaling (``.temp`` elsewhere is a caveat).
+
+Nothing here reads files: the Circuit is the only input.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from bridge.devices.level1 import (
+    DEFAULT_L,
+    DEFAULT_W,
+    K_OVER_Q,
+    Level1Geometry,
+    Level1Model,
+    Level1Point,
+    beta,
+    evaluate,
+)
+from bridge.netlist.circuit import GROUND, Circuit, Element, ModelCard
+
+__all__ = [
+    "BulkJunctions",
+    "DcSolveError",
+    "InvalidElement",
+    "METHODS",
+    "NoConvergence",
+    "OperatingPoint",
+    "SingularCircuit",
+    "UnsupportedElement",
+    "level1_model",
+    "solve_dc_sweep",
+    "solve_operating_point",
+]
+
+# ngspice's defaults (cktinit.c / .options): the convergence criteria and GMIN.
+GMIN = 1e-12  # S, in parallel with every junction
+RELTOL = 1e-3
+VNTOL = 1e-6  # V
+ABSTOL = 1e-12  # A
+# Where we stop: Newton converges quadratically, so going from RELTOL to this costs an
+# iteration or two and leaves no solver error worth speaking of in the answer.
+TIGHT_RELTOL = 1e-9
+TIGHT_VNTOL = 1e-12  # V
+TIGHT_ABSTOL = 1e-15  # A
+# Iterations allowed past ngspice's criteria for the tight ones; a node held only by GMIN can
+# carry round-off above 1e-9 relative, and then ngspice's criteria are what we can promise.
+TIGHTENING_ITERATIONS = 10
+MAX_NEWTON_ITERATIONS = 100  # ngspice's ITL1
+STEP_ITERATIONS = 50  # ngspice's ITL2-like budget for one gmin or source step
+MAX_STEPS = 400  # bound on the sub-solves of one stepping ladder: never hang
+GMIN_STEPPING_START = 1e-2  # S from every node to ground at the first gmin step
+GMIN_FACTOR = 10.0  # ngspice's gminfactor
+SOURCE_STEP_START = 1e-3  # first source-stepping raise, as ngspice's gillespie_src
+ZERO_RESISTANCE = 1e-3  # Ω: what ngspice's resistor makes of R = 0
+MAX_EXP_ARG = 709.0  # ngspice's clamp on junction exponents (exp overflows past it)
+CIRCUIT_TEMPERATURE_K = 300.15
+THERMAL_VOLTAGE = K_OVER_Q * CIRCUIT_TEMPERATURE_K  # kT/q at 27 °C, as ngspice computes it
+ROOT2 = math.sqrt(2.0)
+
+NEWTON = "newton"
+GMIN_STEPPING = "gmin stepping"
+SOURCE_STEPPING = "source stepping"
+METHODS: tuple[str, ...] = (NEWTON, GMIN_STEPPING, SOURCE_STEPPING)
+
+# Kinds whose branch current is an unknown of the MNA system.
+_BRANCH_KINDS = ("vsource", "inductor", "vcvs", "ccvs")
+# Diode card parameters ngspice uses that this solver does not model.
+_DIODE_UNMODELLED = {
+    "rs": "series resistance RS",
+    "bv": "reverse breakdown BV",
+    "ikf": "high-injection knee IKF",
+    "isr": "recombination current ISR",
+    "jsw": "sidewall saturation current JSW",
+    "isw": "sidewall saturation current ISW",
+}
+
+
+class DcSolveError(Exception):
+    """Anything that keeps the solver from giving an operating point."""
+
+
+class UnsupportedElement(DcSolveError):
+    """The circuit holds an element this solver does not model (a BJT, a non-level-1 MOSFET)."""
+
+    def __init__(self, element: str, message: str) -> None:
+        super().__init__(message)
+        self.element = element
+
+
+class InvalidElement(DcSolveError):
+    """An element's values make no sense for a DC solution (missing model, Leff ≤ 0, ...)."""
+
+    def __init__(self, element: str, message: str) -> None:
+        super().__init__(message)
+        self.element = element
+
+
+class NoConvergence(DcSolveError):
+    """No operating point found; ``methods`` says what was tried, ``iterations`` how hard."""
+
+    def __init__(self, message: str, methods: Sequence[str] = (), iterations: int = 0) -> None:
+        super().__init__(message)
+        self.methods = tuple(methods)
+        self.iterations = iterations
+
+
+class SingularCircuit(NoConvergence):
+    """The MNA matrix is singular by construction: a node with no DC path to ground, or a
+    loop of voltage sources. ``nodes`` / ``elements`` name the culprits."""
+
+    def __init__(self, message: str, nodes: Sequence[str] = (), elements: Sequence[str] = ()) -> None:
+        super().__init__(message)
+        self.nodes = tuple(nodes)
+        self.elements = tuple(elements)
+
+
+@dataclass(frozen=True)
+class BulkJunctions:
+    """A MOSFET's bulk–drain and bulk–source junction currents (A), GMIN included.
+
+    In device polarity, as ngspice's cbd/cbs: positive when forward biased, flowing from
+    the bulk into the drain or source diffusion.
+    """
+
+    bulk_drain: float
+    bulk_source: float
+
+
+@dataclass(frozen=True)
+class OperatingPoint:
+    """One DC solution.
+
+    ``node_voltages`` has every node, ground ``"0"`` included. ``branch_currents`` is keyed by
+    the name as written of every voltage source, inductor and E/H source, in SPICE sign: the
+    current flowing into n+, through the element, out of n−. ``devices`` holds each MOSFET's
+    level-1 point (channel only); ``junctions`` its bulk diodes; ``diode_currents`` the current
+    of each diode from anode to cathode. ``method`` is one of ``METHODS``; ``iterations``
+    counts every Newton iteration spent, stepping included.
+    """
+
+    node_voltages: dict[str, float]
+    branch_currents: dict[str, float]
+    devices: dict[str, Level1Point]
+    method: str
+    iterations: int
+    caveats: tuple[str, ...] = ()
+    junctions: dict[str, BulkJunctions] = field(default_factory=dict)
+    diode_currents: dict[str, float] = field(default_factory=dict)
+
+    def voltage(self, node: str) -> float:
+        """A node voltage by name, ignoring case (``gnd`` is ground)."""
+        key = node.lower()
+        return self.node_voltages[GROUND if key == "gnd" else key]
+
+    def device(self, name: str) -> Level1Point:
+        """A MOSFET's level-1 point by element name, ignoring case."""
+        return self.devices[_lookup(self.devices, name)]
+
+    def current(self, name: str) -> float:
+        """A branch current by element name, ignoring case."""
+        return self.branch_currents[_lookup(self.branch_currents, name)]
+
+    def drain_terminal_current(self, name: str) -> float:
+        """The drain current as ngspice's ``@m[id]`` reports it: channel id minus the
+        bulk–drain junction current, in device polarity (positive for a conducting PMOS)."""
+        key = _lookup(self.devices, name)
+        return self.devices[key].id - self.junctions[key].bulk_drain
+
+
+def _lookup(table: Mapping[str, object], name: str) -> str:
+    wanted = name.lower()
+    for key in table:
+        if key.lower() == wanted:
+            return key
+    raise KeyError(name)
+
+
+def level1_model(card: ModelCard) -> Level1Model:
+    """The Level1Model ngspice would build from a ``.model`` card (the default model choice)."""
+    return Level1Model.from_card(card.type, card.params)
+
+
+ModelChoice = Callable[[ModelCard], Level1Model]
+
+
+# --- the compiled network -----------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Mosfet:
+    name: str
+    drain: int
+    gate: int
+    source: int
+    bulk: int
+    model: Level1Model
+    geometry: Level1Geometry
+    drain_saturation_current: float
+    source_saturation_current: float
+    drain_vcrit: float
+    source_vcrit: float
+
+    def junction_start(self) -> list[float]:
+        """ngspice's MODEINITJCT guess: vgs = type·VTO, vds = 0, vbs = −1 (and von = vgs)."""
+        vgs = self.model.polarity * self.model.vto
+        return [vgs, 0.0, -1.0, -1.0, vgs]
+
+
+@dataclass(frozen=True)
+class _Diode:
+    name: str
+    anode: int
+    cathode: int
+    saturation_current: float
+    emission_voltage: float  # N·Vt
+    vcrit: float
+
+
+@dataclass(frozen=True)
+class _Network:
+    """The circuit as MNA arrays: ground is row/column 0 (stamped, then sliced away)."""
+
+    nodes: tuple[str, ...]
+    branch_names: tuple[str, ...]
+    linear: np.ndarray
+    source_columns: np.ndarray
+    source_names: tuple[str, ...]
+    source_defaults: np.ndarray
+    mosfets: tuple[_Mosfet, ...]
+    diodes: tuple[_Diode, ...]
+    gmin: float
+    caveats: tuple[str, ...]
+    nodeset: dict[str, float]
+
+    @property
+    def size(self) -> int:
+        return 1 + len(self.nodes) + len(self.branch_names)
+
+    def source_vector(self, overrides: Mapping[str, float] | None) -> np.ndarray:
+        values = self.source_defaults.copy()
+        if overrides:
+            position = {name.lower(): k for k, name in enumerate(self.source_names)}
+            for name, value in overrides.items():
+                k = position.get(name.lower())
+                if k is None:
+                    raise ValueError(f"`{name}` is not an independent source of this circuit")
+                values[k] = float(value)
+        return values
+
+
+@dataclass
+class _State:
+    """Where Newton stands: the solution vector and each device's last (limited) voltages."""
+
+    x: np.ndarray
+    mos: list[list[float]]  # per MOSFET, device polarity: vgs, vds, vbs, vbd, von
+    diode: list[float]  # per diode: vd
+
+    def copy(self) -> _State:
+        return _State(self.x.copy(), [row[:] for row in self.mos], self.diode[:])
+
+
+def _options(circuit: Circuit) -> dict[str, float | str | None]:
+    settings: dict[str, float | str | None] = {}
+    for directive in circuit.directives:
+        if directive.kind == "options":
+            settings.update(directive.settings)
+    return settings
+
+
+def _number(value: object, what: str, element: Element) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise InvalidElement(element.name, f"{element.name}: {what} is not a number ({value!r})")
+    return float(value)
+
+
+def _vcrit(thermal: float, saturation_current: float) -> float:
+    """ngspice's critical voltage for pnjlim: where the junction current bends up fastest."""
+    if saturation_current <= 0.0:
+        return math.inf
+    return thermal * math.log(thermal / (ROOT2 * saturation_current))
+
+
+def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
+    """Compile the circuit once: linear stamps, source columns and the nonlinear devices."""
+    caveats: list[str] = []
+    options = _options(circuit)
+    gmin = float(options["gmin"]) if isinstance(options.get("gmin"), (int, float)) else GMIN
+    default_w = float(options["defw"]) if isinstance(options.get("defw"), (int, float)) else DEFAULT_W
+    default_l = float(options["defl"]) if isinstance(options.get("defl"), (int, float)) else DEFAULT_L
+    if isinstance(options.get("temp"), (int, float)) and options["temp"] != 27.0:
+        caveats.append("`.options temp` is not 27 °C: no temperature scaling is modelled")
+    nodeset: dict[str, float] = {}
+    for directive in circuit.directives:
+        if directive.kind == "temp" and any(v not in (None, 27.0) for _, v in directive.settings):
+            caveats.append("`.temp` is not 27 °C: no temperature scaling is modelled, the answer is at 27 °C")
+        elif directive.kind == "ic" and directive.settings:
+            caveats.append("`.ic` ignored: ngspice applies it to a transient's operating point only")
+        elif directive.kind == "nodeset":
+            nodeset.update({node: float(v) for node, v in directive.settings if isinstance(v, (int, float))})
+    if nodeset:
+        caveats.append("`.nodeset` used as the starting guess of the Newton iteration")
+
+    for element in circuit.elements:
+        if element.kind == "bjt":
+            raise UnsupportedElement(
+                element.name, f"{element.name}: bipolar transistors are not modelled by this DC solver"
+            )
+        if element.kind not in {
+            "resistor", "capacitor", "inductor", "vsource", "isource",
+            "vcvs", "vccs", "cccs", "ccvs", "diode", "mosfet",
+        }:  # fmt: skip
+            raise UnsupportedElement(
+                element.name, f"{element.name}: element kind {element.kind} is not modelled"
+            )
+        if "temp" in element.params or "dtemp" in element.params:
+            caveats.append(f"{element.name}: instance TEMP/DTEMP ignored, the device runs at 27 °C")
+
+    nodes = circuit.nodes()
+    index = {GROUND: 0, **{node: k + 1 for k, node in enumerate(nodes)}}
+    branch_elements = [e for e in circuit.elements if e.kind in _BRANCH_KINDS]
+    branch_index = {e.name.lower(): 1 + len(nodes) + k for k, e in enumerate(branch_elements)}
+    size = 1 + len(nodes) + len(branch_elements)
+    linear = np.zeros((size, size))
+    sources = [e for e in circuit.elements if e.kind in ("vsource", "isource")]
+    source_columns = np.zeros((size, len(sources)))
+    source_column = {e.name: k for k, e in enumerate(sources)}
+
+    def control_branch(element: Element) -> int:
+        name = (element.controlling_source or "").lower()
+        if name not in branch_index:
+            raise InvalidElement(
+                element.name,
+                f"{element.name}: controlling source `{element.controlling_source}` is not a voltage source",
+            )
+        return branch_index[name]
+
+    mosfets: list[_Mosfet] = []
+    diodes: list[_Diode] = []
+    models: dict[str, Level1Model] = {}
+    for element in circuit.elements:
+        at = [index[node] for node in element.nodes]
+        kind = element.kind
+        if kind == "resistor":
+            resistance = _resistance(element)
+            if resistance == 0.0:
+                # ngspice's resistor sets 0 Ω to 1 mΩ (silently); so do we, to agree with it.
+                resistance = ZERO_RESISTANCE
+                caveats.append(f"{element.name}: 0 Ω taken as {ZERO_RESISTANCE:g} Ω, as ngspice does")
+            conductance = 1.0 / resistance
+            a, c = at[0], at[1]
+            linear[a, a] += conductance
+            linear[c, c] += conductance
+            linear[a, c] -= conductance
+            linear[c, a] -= conductance
+        elif kind in _BRANCH_KINDS:
+            k = branch_index[element.name.lower()]
+            a, c = at[0], at[1]
+            # KCL: the branch current leaves n+ and enters n−; the branch row states the voltage.
+            linear[a, k] += 1.0
+            linear[c, k] -= 1.0
+            linear[k, a] += 1.0
+            linear[k, c] -= 1.0
+            if kind == "vsource":
+                source_columns[k, source_column[element.name]] = 1.0
+            elif kind == "vcvs":
+                gain = _number(element.value, "gain", element)
+                linear[k, at[2]] -= gain
+                linear[k, at[3]] += gain
+            elif kind == "ccvs":
+                linear[k, control_branch(element)] -= _number(element.value, "transresistance", element)
+        elif kind == "isource":
+            # SPICE: the current leaves n+ into the source and re-enters the circuit at n−.
+            column = source_column[element.name]
+            source_columns[at[0], column] -= 1.0
+            source_columns[at[1], column] += 1.0
+        elif kind == "vccs":
+            gm = _number(element.value, "transconductance", element)
+            a, c, p, n = at
+            linear[a, p] += gm
+            linear[a, n] -= gm
+            linear[c, p] -= gm
+            linear[c, n] += gm
+        elif kind == "cccs":
+            gain = _number(element.value, "gain", element)
+            k = control_branch(element)
+            linear[at[0], k] += gain
+            linear[at[1], k] -= gain
+        elif kind == "diode":
+            diodes.append(_diode(element, at, circuit, caveats))
+        elif kind == "mosfet":
+            mosfets.append(_mosfet(element, at, circuit, models, model_choice, caveats, default_w, default_l))
+        # capacitors: open at DC, nothing to stamp
+
+    _check_structure(circuit, nodes)
+    return _Network(
+        nodes=nodes,
+        branch_names=tuple(e.name for e in branch_elements),
+        linear=linear,
+        source_columns=source_columns,
+        source_names=tuple(e.name for e in sources),
+        source_defaults=np.array([float(e.value or 0.0) for e in sources]),
+        mosfets=tuple(mosfets),
+        diodes=tuple(diodes),
+        gmin=gmin,
+        caveats=tuple(dict.fromkeys(caveats)),
+        nodeset={node: value for node, value in nodeset.items() if node in index},
+    )
+
+
+def _resistance(element: Element) -> float:
+    value = element.value
+    if value is None:
+        value = element.params.get("r", element.params.get("resistance"))
+    if value is None:
+        raise InvalidElement(element.name, f"{element.name}: resistor without a value")
+    resistance = _number(value, "resistance", element)
+    # M resistors in parallel.
+    return resistance / _number(element.params.get("m", 1.0), "M", element)
+
+
+def _diode(element: Element, at: list[int], circuit: Circuit, caveats: list[str]) -> _Diode:
+    card = circuit.model(element.model or "")
+    if card is None or card.type.lower() != "d":
+        raise InvalidElement(element.name, f"{element.name}: no diode model `{element.model}`")
+    params = card.params
+    if card.level != 1:
+        caveats.append(f"model {card.name}: diode LEVEL={card.level} solved with the level-1 equations")
+    for key, what in _DIODE_UNMODELLED.items():
+        # BV counts whenever given (ngspice then switches breakdown on); the others when non-zero.
+        if (key == "bv" and key in params) or params.get(key, 0.0) != 0.0:
+            caveats.append(f"model {card.name}: {what} not modelled (ignored by this solver)")
+    if "tnom" in params and params["tnom"] != 27.0:
+        caveats.append(f"model {card.name}: TNOM ≠ 27 °C, no temperature scaling modelled")
+    area = _number(element.params.get("area", 1.0), "AREA", element)
+    multiplier = _number(element.params.get("m", 1.0), "M", element)
+    saturation_current = params.get("is", 1e-14) * area * multiplier
+    emission_voltage = params.get("n", 1.0) * THERMAL_VOLTAGE
+    if emission_voltage <= 0.0:
+        raise InvalidElement(element.name, f"model {card.name}: emission coefficient N must be positive")
+    if "off" in element.flags:
+        caveats.append(f"{element.name}: OFF ignored (it only picks the starting point)")
+    return _Diode(
+        element.name, at[0], at[1], saturation_current, emission_voltage,
+        _vcrit(emission_voltage, saturation_current),
+    )  # fmt: skip
+
+
+def _mosfet(
+    element: Element,
+    at: list[int],
+    circuit: Circuit,
+    models: dict[str, Level1Model],
+    model_choice: ModelChoice,
+    caveats: list[str],
+    default_w: float,
+    default_l: float,
+) -> _Mosfet:
+    if len(at) != 4:
+        raise InvalidElement(element.name, f"{element.name}: a MOSFET needs 4 nodes (d g s b)")
+    card = circuit.model(element.model or "")
+    if card is None or card.type.lower() not in ("nmos", "pmos"):
+        raise InvalidElement(element.name, f"{element.name}: no MOSFET model `{element.model}`")
+    if card.level != 1:
+        raise UnsupportedElement(
+            element.name,
+            f"{element.name}: model {card.name} is LEVEL={card.level}; this solver has level 1 only",
+        )
+    key = card.name.lower()
+    if key not in models:
+        try:
+            models[key] = model_choice(card)
+        except ValueError as exc:
+            raise InvalidElement(element.name, f"{element.name}: model {card.name}: {exc}") from None
+        model = models[key]
+        caveats.extend(f"model {card.name}: {caveat}" for caveat in model.caveats)
+        if model.unrecognised:
+            names = ", ".join(n.upper() for n in model.unrecognised)
+            caveats.append(f"model {card.name}: parameters not known to level 1 ignored: {names}")
+    model = models[key]
+    params = element.params
+    multiplier = _number(params.get("m", 1.0), "M", element)
+    try:
+        geometry = Level1Geometry(
+            w=_number(params.get("w", default_w), "W", element),
+            l=_number(params.get("l", default_l), "L", element),
+            m=multiplier,
+        )
+        beta(model, geometry)  # checks Leff > 0 once, not at every Newton iteration
+    except ValueError as exc:
+        raise InvalidElement(element.name, f"{element.name}: {exc}") from None
+    if "off" in element.flags:
+        caveats.append(f"{element.name}: OFF ignored (it only picks the starting point)")
+    # Junction saturation currents as mos1load.c: JS·area when JS and both areas are given,
+    # IS otherwise; both times M.
+    density = card.params.get("js", 0.0)
+    drain_area = _number(params.get("ad", 0.0), "AD", element)
+    source_area = _number(params.get("as", 0.0), "AS", element)
+    if density == 0.0 or drain_area == 0.0 or source_area == 0.0:
+        drain_current = source_current = card.params.get("is", 1e-14) * multiplier
+    else:
+        drain_current = density * drain_area * multiplier
+        source_current = density * source_area * multiplier
+    return _Mosfet(
+        name=element.name,
+        drain=at[0],
+        gate=at[1],
+        source=at[2],
+        bulk=at[3],
+        model=model,
+        geometry=geometry,
+        drain_saturation_current=drain_current,
+        source_saturation_current=source_current,
+        drain_vcrit=_vcrit(THERMAL_VOLTAGE, drain_current),
+        source_vcrit=_vcrit(THERMAL_VOLTAGE, source_current),
+    )
+
+
+def _check_structure(circuit: Circuit, nodes: tuple[str, ...]) -> None:
+    """Refuse a circuit whose matrix is singular by construction, naming the cause.
+
+    A node with no DC path to ground (reached only through capacitors, current sources or
+    MOSFET gates) has no defined voltage; a loop of voltage sources and shorts has no
+    defined current. ngspice meets both as a singular matrix.
+    """
+    parent: dict[str, str] = {node: node for node in (GROUND, *nodes)}
+
+    def root(node: str) -> str:
+        while parent[node] != node:
+            parent[node] = parent[parent[node]]
+            node = parent[node]
+        return node
+
+    def join(a: str, b: str) -> bool:
+        ra, rb = root(a), root(b)
+        if ra == rb:
+            return False
+        parent[ra] = rb
+        return True
+
+    # Loops of fixed-voltage branches first: independent V sources and inductors.
+    fixed = [e for e in circuit.elements if e.kind in ("vsource", "inductor")]
+    for element in fixed:
+        if not join(element.nodes[0], element.nodes[1]):
+            group = root(element.nodes[0])
+            loop = [e.name for e in fixed if root(e.nodes[0]) == group]
+            raise SingularCircuit(
+                f"singular circuit: a loop of voltage sources and inductors among {', '.join(loop)} "
+                "(the currents around it are undefined)",
+                elements=loop,
+            )
+    # Then DC paths: everything that conducts at DC joins its nodes.
+    loose_ends: set[str] = set()  # outputs of G/F sources: they may pin a node in odd circuits
+    for element in circuit.elements:
+        kind, ends = element.kind, element.nodes
+        if kind in ("resistor", "diode", "vcvs", "ccvs"):
+            join(ends[0], ends[1])
+        elif kind == "mosfet":
+            # The bulk junctions (with GMIN) tie drain and source to the bulk.
+            join(ends[0], ends[3])
+            join(ends[2], ends[3])
+        elif kind in ("vccs", "cccs"):
+            loose_ends.update(ends[:2])
+            if kind == "vccs" and {ends[0], ends[1]} == {ends[2], ends[3]}:
+                join(ends[0], ends[1])  # a G source controlled by its own nodes is a conductance
+    ground = root(GROUND)
+    floating = [node for node in nodes if root(node) != ground]
+    if floating and not any(root(node) in {root(f) for f in floating} for node in loose_ends):
+        names = ", ".join(floating)
+        raise SingularCircuit(
+            f"singular circuit: no DC path to ground from node{'s' if len(floating) > 1 else ''} "
+            f"{names} (only capacitors, current sources or MOSFET gates reach "
+            f"{'them' if len(floating) > 1 else 'it'}), so the operating point is undefined",
+            nodes=floating,
+        )
+
+
+# --- device equations the solver adds around level1 ----------------------------------------
+
+
+def _mos_junction(voltage: float, saturation_current: float, gmin: float) -> tuple[float, float]:
+    """mos1load.c's bulk junction: current and conductance, GMIN included."""
+    if voltage <= -3.0 * THERMAL_VOLTAGE:
+        return gmin * voltage - saturation_current, gmin
+    growth = math.exp(min(MAX_EXP_ARG, voltage / THERMAL_VOLTAGE))
+    return (
+        saturation_current * (growth - 1.0) + gmin * voltage,
+        saturation_current * growth / THERMAL_VOLTAGE + gmin,
+    )
+
+
+def _diode_current(voltage: float, diode: _Diode, gmin: float) -> tuple[float, float]:
+    """dioload.c without breakdown: Shockley forward, a cubic approach to −IS in reverse."""
+    vte, saturation_current = diode.emission_voltage, diode.saturation_current
+    if voltage >= -3.0 * vte:
+        growth = math.exp(min(MAX_EXP_ARG, voltage / vte))
+        current = saturation_current * (growth - 1.0)
+        conductance = saturation_current * growth / vte
+    else:
+        ratio = (3.0 * vte / (voltage * math.e)) ** 3
+        current = -saturation_current * (1.0 + ratio)
+        conductance = saturation_current * 3.0 * ratio / voltage
+    return current + gmin * voltage, conductance + gmin
+
+
+def _pnjlim(new: float, old: float, thermal: float, vcrit: float) -> tuple[float, bool]:
+    """ngspice's DEVpnjlim: steps of a junction voltage above vcrit grow only logarithmically.
+
+    Returns the voltage to use and whether it was clipped (ngspice's icheck).
+    """
+    if new > vcrit and abs(new - old) > 2.0 * thermal:
+        if old > 0.0:
+            arg = 1.0 + (new - old) / thermal
+            return (old + thermal * math.log(arg) if arg > 0.0 else vcrit), True
+        return thermal * math.log(new / thermal), True
+    if new < 0.0:
+        # Reverse steps are limited too (ngspice's addition to the SPICE3 routine).
+        floor = -old - 1.0 if old > 0.0 else 2.0 * old - 1.0
+        if new < floor:
+            return floor, True
+    return new, False
+
+
+def _fetlim(new: float, old: float, vto: float) -> float:
+    """ngspice's DEVfetlim: keep a gate-voltage step from jumping across the threshold."""
+    high = abs(2.0 * (old - vto)) + 2.0
+    low = abs(old - vto) + 1.0
+    vtox = vto + 3.5
+    step = new - old
+    if old >= vto:
+        if old >= vtox:
+            if step <= 0.0:
+                if new >= vtox:
+                    if -step > low:
+                        new = old - low
+                else:
+                    new = max(new, vto + 2.0)
+            elif step >= high:
+                new = old + high
+        elif step <= 0.0:
+            new = max(new, vto - 0.5)
+        else:
+            new = min(new, vto + 4.0)
+    elif step <= 0.0:
+        if -step > high:
+            new = old - high
+    else:
+        vtemp = vto + 0.5
+        if new <= vtemp:
+            if step > low:
+                new = old + low
+        else:
+            new = vtemp
+    return new
+
+
+def _limvds(new: float, old: float) -> float:
+    """ngspice's DEVlimvds: bound a drain–source step."""
+    if old >= 3.5:
+        if new > old:
+            return min(new, 3.0 * old + 2.0)
+        if new < 3.5:
+            return max(new, 2.0)
+        return new
+    if new > old:
+        return min(new, 4.0)
+    return max(new, -0.5)
+
+
+def _limit_mosfet(
+    mos: _Mosfet, state: list[float], vgs: float, vds: float, vbs: float
+) -> tuple[float, float, float, float, bool]:
+    """mos1load.c's limiting of new device-polarity voltages against the last ones.
+
+    Returns vgs, vds, vbs, vbd to evaluate at and whether a junction step was clipped.
+    """
+    old_vgs, old_vds, old_vbs, old_vbd, von = state
+    vgd = vgs - vds
+    if old_vds >= 0.0:
+        vgs = _fetlim(vgs, old_vgs, von)
+        vds = _limvds(vgs - vgd, old_vds)
+    else:
+        vgd = _fetlim(vgd, old_vgs - old_vds, von)
+        vds = -_limvds(-(vgs - vgd), -old_vds)
+        vgs = vgd + vds
+    if vds >= 0.0:
+        vbs, clipped = _pnjlim(vbs, old_vbs, THERMAL_VOLTAGE, mos.source_vcrit)
+        vbd = vbs - vds
+    else:
+        vbd, clipped = _pnjlim(vbs - vds, old_vbd, THERMAL_VOLTAGE, mos.drain_vcrit)
+        vbs = vbd + vds
+    return vgs, vds, vbs, vbd, clipped
+
+
+def _stamp_pair(matrix: np.ndarray, rhs: np.ndarray, a: int, c: int, g: float, offset: float) -> None:
+    """A linearised two-terminal current leaving `a` for `c`: g·(va − vc) + offset."""
+    matrix[a, a] += g
+    matrix[c, c] += g
+    matrix[a, c] -= g
+    matrix[c, a] -= g
+    rhs[a] -= offset
+    rhs[c] += offset
+
+
+# --- Newton ---------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Attempt:
+    state: _State | None
+    iterations: int
+    tight: bool = False
+    singular: bool = False
+
+
+def _local_voltages(mos: _Mosfet, x: Sequence[float]) -> tuple[float, float, float]:
+    polarity = mos.model.polarity
+    vs = x[mos.source]
+    return polarity * (x[mos.gate] - vs), polarity * (x[mos.drain] - vs), polarity * (x[mos.bulk] - vs)
+
+
+def _settle(net: _Network, x: np.ndarray) -> _State:
+    """The device state of a solution vector, so that Newton can continue from it."""
+    values = x.tolist()
+    mos_state = []
+    for mos in net.mosfets:
+        vgs, vds, vbs = _local_voltages(mos, values)
+        point = evaluate(mos.model, mos.geometry, values[mos.drain], values[mos.gate],
+                         values[mos.source], values[mos.bulk])  # fmt: skip
+        mos_state.append([vgs, vds, vbs, vbs - vds, point.vth])
+    diode_state = [values[d.anode] - values[d.cathode] for d in net.diodes]
+    return _State(x.copy(), mos_state, diode_state)
+
+
+def _junction_start(net: _Network, x: np.ndarray | None = None) -> _State:
+    """ngspice's MODEINITJCT: devices start at fixed local voltages, not the node guess."""
+    return _State(
+        np.zeros(net.size) if x is None else x.copy(),
+        [mos.junction_start() for mos in net.mosfets],
+        [d.vcrit if math.isfinite(d.vcrit) else 0.6 for d in net.diodes],
+    )
+
+
+def _newton(
+    net: _Network,
+    start: _State,
+    sources: np.ndarray,
+    *,
+    diagonal_gmin: float = 0.0,
+    max_iterations: int = MAX_NEWTON_ITERATIONS,
+    fresh: bool = False,
+) -> _Attempt:
+    """Newton–Raphson from `start`; `fresh` means the device voltages are MODEINITJCT's guess.
+
+    The first iteration linearises every device at its state voltages unlimited (the guess,
+    or the previous solution); later ones limit the new voltages against the last ones.
+    Converged means: no junction step clipped, the solution moved by less than the tolerance,
+    and every device's linearised current agrees with its current at the new voltages.
+    """
+    state = start.copy()
+    x = state.x
+    base_rhs = net.source_columns @ sources
+    node_count = len(net.nodes)
+    diagonal = np.arange(1, node_count + 1)
+    loose_floor = np.concatenate(([0.0], np.full(node_count, VNTOL), np.full(len(net.branch_names), ABSTOL)))
+    tight_floor = np.concatenate(
+        ([0.0], np.full(node_count, TIGHT_VNTOL), np.full(len(net.branch_names), TIGHT_ABSTOL))
+    )
+    gmin = net.gmin
+    loose_count = 0
+    for iteration in range(1, max_iterations + 1):
+        matrix = net.linear.copy()
+        rhs = base_rhs.copy()
+        if diagonal_gmin:
+            matrix[diagonal, diagonal] += diagonal_gmin
+        values = x.tolist()
+        # As in ngspice, only a clipped junction step (pnjlim's icheck) forbids convergence;
+        # fetlim/limvds steps are caught by the device current test instead. That matters for
+        # a cut-off device whose gate is driven far negative: its limited vgs lags for many
+        # iterations while its current (zero) is already right.
+        clipped = False
+        linearised: list[tuple] = []
+        for mos, device_state in zip(net.mosfets, state.mos, strict=True):
+            if iteration == 1:
+                vgs, vds, vbs, vbd = device_state[:4]
+            else:
+                vgs, vds, vbs, vbd, junction_clipped = _limit_mosfet(
+                    mos, device_state, *_local_voltages(mos, values)
+                )
+                clipped = clipped or junction_clipped
+            polarity = mos.model.polarity
+            vs = values[mos.source]
+            vd, vg, vb = vs + polarity * vds, vs + polarity * vgs, vs + polarity * vbs
+            point = evaluate(mos.model, mos.geometry, vd, vg, vs, vb)
+            device_state[:] = [vgs, vds, vbs, vbd, point.vth]
+            g = point.conductances
+            # The linearised drain current is point.drain_current + Σ g·(v − v_here): its constant part.
+            offset = point.drain_current - (
+                g.wrt_drain * vd + g.wrt_gate * vg + g.wrt_source * vs + g.wrt_bulk * vb
+            )
+            d, gt, s, b = mos.drain, mos.gate, mos.source, mos.bulk
+            for row, sign in ((d, 1.0), (s, -1.0)):
+                matrix[row, d] += sign * g.wrt_drain
+                matrix[row, gt] += sign * g.wrt_gate
+                matrix[row, s] += sign * g.wrt_source
+                matrix[row, b] += sign * g.wrt_bulk
+                rhs[row] -= sign * offset
+            # Bulk junctions, in device polarity; the real current bulk → diffusion is polarity·c.
+            cbd, gbd = _mos_junction(vbd, mos.drain_saturation_current, gmin)
+            _stamp_pair(matrix, rhs, b, d, gbd, polarity * (cbd - gbd * vbd))
+            cbs, gbs = _mos_junction(vbs, mos.source_saturation_current, gmin)
+            _stamp_pair(matrix, rhs, b, s, gbs, polarity * (cbs - gbs * vbs))
+            linearised.append((mos, point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs))
+        for k, diode in enumerate(net.diodes):
+            vd = state.diode[k]
+            if iteration > 1:
+                vd, junction_clipped = _pnjlim(values[diode.anode] - values[diode.cathode], vd,
+                                               diode.emission_voltage, diode.vcrit)  # fmt: skip
+                clipped = clipped or junction_clipped
+            state.diode[k] = vd
+            current, conductance = _diode_current(vd, diode, gmin)
+            _stamp_pair(matrix, rhs, diode.anode, diode.cathode, conductance, current - conductance * vd)
+            linearised.append((diode, current, conductance, vd))
+        try:
+            solution = np.linalg.solve(matrix[1:, 1:], rhs[1:])
+        except np.linalg.LinAlgError:
+            return _Attempt(None, iteration, singular=True)
+        if not np.all(np.isfinite(solution)):
+            return _Attempt(None, iteration)
+        new = np.concatenate(([0.0], solution))
+        # A MODEINITJCT iteration proves nothing: its devices did not sit at the node voltages.
+        if not (fresh and iteration == 1) and not clipped:
+            change = np.abs(new - x)
+            scale = np.maximum(np.abs(new), np.abs(x))
+            if np.all(change <= RELTOL * scale + loose_floor):
+                loose, tight = _devices_settled(linearised, new.tolist(), gmin)
+                tight = tight and bool(np.all(change <= TIGHT_RELTOL * scale + tight_floor))
+                if tight:
+                    state.x = new
+                    return _Attempt(state, iteration, tight=True)
+                if loose:
+                    loose_count += 1
+                    if loose_count > TIGHTENING_ITERATIONS:
+                        state.x = new
+                        return _Attempt(state, iteration, tight=False)
+        x = new
+        state.x = x
+    return _Attempt(None, max_iterations)
+
+
+def _devices_settled(linearised: list[tuple], x: list[float], gmin: float) -> tuple[bool, bool]:
+    """ngspice's device convergence test (MOS1convTest, DIOconvTest), to both tolerances:
+    does each linearised current, carried to the new voltages, match the current there?"""
+    loose = tight = True
+
+    def compare(predicted: float, actual: float) -> None:
+        nonlocal loose, tight
+        error = abs(predicted - actual)
+        size = max(abs(predicted), abs(actual))
+        loose = loose and error <= RELTOL * size + ABSTOL
+        tight = tight and error <= TIGHT_RELTOL * size + TIGHT_ABSTOL
+
+    for entry in linearised:
+        if isinstance(entry[0], _Mosfet):
+            mos, point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs = entry
+            xd, xg, xs, xb = x[mos.drain], x[mos.gate], x[mos.source], x[mos.bulk]
+            g = point.conductances
+            predicted = point.drain_current + (
+                g.wrt_drain * (xd - vd) + g.wrt_gate * (xg - vg)
+                + g.wrt_source * (xs - vs) + g.wrt_bulk * (xb - vb)
+            )  # fmt: skip
+            compare(predicted, evaluate(mos.model, mos.geometry, xd, xg, xs, xb).drain_current)
+            polarity = mos.model.polarity
+            new_vbd, new_vbs = polarity * (xb - xd), polarity * (xb - xs)
+            drain_side = _mos_junction(new_vbd, mos.drain_saturation_current, gmin)[0]
+            source_side = _mos_junction(new_vbs, mos.source_saturation_current, gmin)[0]
+            compare(cbd + gbd * (new_vbd - vbd), drain_side)
+            compare(cbs + gbs * (new_vbs - vbs), source_side)
+        else:
+            diode, current, conductance, vd = entry
+            new_vd = x[diode.anode] - x[diode.cathode]
+            compare(current + conductance * (new_vd - vd), _diode_current(new_vd, diode, gmin)[0])
+        if not loose:
+            break
+    return loose, tight
+
+
+@dataclass(frozen=True)
+class _Solved:
+    state: _State
+    method: str
+    iterations: int
+    tight: bool
+
+
+def _gmin_stepping(net: _Network, start: _State, sources: np.ndarray, fresh: bool) -> tuple[_Attempt, int]:
+    """ngspice's dynamic gmin stepping: a conductance from every node to ground, shrunk
+    while Newton keeps converging, the step cut back when it does not; then removed."""
+    spent = 0
+    factor = GMIN_FACTOR
+    diagonal = previous = GMIN_STEPPING_START
+    # The last stepped value before the conductances go: GMIN, or 1e-12 S when `.options
+    # gmin=0` (else the stepping would shrink towards zero without end).
+    target = net.gmin if net.gmin > 0.0 else GMIN
+    state, saved = start, None
+    for _ in range(MAX_STEPS):
+        attempt = _newton(net, state, sources, diagonal_gmin=diagonal, max_iterations=STEP_ITERATIONS,
+                          fresh=fresh and saved is None)  # fmt: skip
+        spent += attempt.iterations
+        if attempt.state is not None:
+            saved = _settle(net, attempt.state.x)
+            state = saved
+            if diagonal <= target:
+                break
+            if attempt.iterations <= STEP_ITERATIONS // 4:
+                factor = min(factor * math.sqrt(factor), GMIN_FACTOR)
+            if attempt.iterations > 3 * STEP_ITERATIONS // 4:
+                factor = math.sqrt(factor)
+            previous = diagonal
+            if diagonal < factor * target:
+                diagonal = target
+            else:
+                diagonal /= factor
+        else:
+            if saved is None or factor < 1.00005:
+                return _Attempt(None, spent, singular=attempt.singular), spent
+            factor = math.sqrt(math.sqrt(factor))
+            diagonal = previous / factor
+            state = saved
+    else:
+        return _Attempt(None, spent), spent
+    final = _newton(net, state, sources)
+    return final, spent + final.iterations
+
+
+def _source_stepping(net: _Network, start: _State, sources: np.ndarray, fresh: bool) -> tuple[_Attempt, int]:
+    """ngspice's source stepping: every independent source scaled from 0 to its value, the
+    step grown after easy solves and cut after failures."""
+    spent = 0
+    attempt = _newton(net, start, sources * 0.0, fresh=fresh)
+    spent += attempt.iterations
+    if attempt.state is None:
+        attempt, used = _gmin_stepping(net, start, sources * 0.0, fresh)
+        spent += used
+        if attempt.state is None:
+            return attempt, spent
+    saved = _settle(net, attempt.state.x)
+    reached, raise_by = 0.0, SOURCE_STEP_START
+    for _ in range(MAX_STEPS):
+        scale = min(1.0, reached + raise_by)
+        attempt = _newton(net, saved, sources * scale, max_iterations=STEP_ITERATIONS)
+        spent += attempt.iterations
+        if attempt.state is not None:
+            reached = scale
+            saved = _settle(net, attempt.state.x)
+            if reached >= 1.0:
+                return attempt, spent
+            if attempt.iterations <= STEP_ITERATIONS // 4:
+                raise_by *= 1.5
+            if attempt.iterations > 3 * STEP_ITERATIONS // 4:
+                raise_by *= 0.5
+        else:
+            if scale - reached < 1e-8:
+                break
+            raise_by /= 10.0
+    return _Attempt(None, spent), spent
+
+
+def _solve(net: _Network, sources: np.ndarray, start: _State, fresh: bool, methods: Sequence[str]) -> _Solved:
+    """Plain Newton, then gmin stepping, then source stepping, as asked; each bounded."""
+    spent = 0
+    tried: list[str] = []
+    singular = False
+    for method in methods:
+        tried.append(method)
+        if method == NEWTON:
+            attempt = _newton(net, start, sources, fresh=fresh)
+            spent += attempt.iterations
+        elif method == GMIN_STEPPING:
+            attempt, used = _gmin_stepping(net, start, sources, fresh)
+            spent += used
+        elif method == SOURCE_STEPPING:
+            attempt, used = _source_stepping(net, start, sources, fresh)
+            spent += used
+        else:
+            raise ValueError(f"unknown method {method!r}; choose from {', '.join(METHODS)}")
+        if attempt.state is not None:
+            return _Solved(attempt.state, method, spent, attempt.tight)
+        singular = singular or attempt.singular
+    why = " (the matrix was singular)" if singular else ""
+    raise NoConvergence(
+        f"no DC operating point found{why}: tried {', '.join(tried) or 'nothing'} "
+        f"({spent} Newton iterations in all)",
+        methods=tried,
+        iterations=spent,
+    )
+
+
+def _operating_point(net: _Network, solved: _Solved, circuit_caveats: Sequence[str]) -> OperatingPoint:
+    x = solved.state.x.tolist()
+    node_voltages = {GROUND: 0.0, **{node: x[k + 1] for k, node in enumerate(net.nodes)}}
+    first_branch = 1 + len(net.nodes)
+    branch_currents = {name: x[first_branch + k] for k, name in enumerate(net.branch_names)}
+    devices: dict[str, Level1Point] = {}
+    junctions: dict[str, BulkJunctions] = {}
+    for mos in net.mosfets:
+        vd, vg, vs, vb = x[mos.drain], x[mos.gate], x[mos.source], x[mos.bulk]
+        devices[mos.name] = evaluate(mos.model, mos.geometry, vd, vg, vs, vb)
+        polarity = mos.model.polarity
+        vbd, vbs = polarity * (vb - vd), polarity * (vb - vs)
+        junctions[mos.name] = BulkJunctions(
+            bulk_drain=_mos_junction(vbd, mos.drain_saturation_current, net.gmin)[0],
+            bulk_source=_mos_junction(vbs, mos.source_saturation_current, net.gmin)[0],
+        )
+    diode_currents = {d.name: _diode_current(x[d.anode] - x[d.cathode], d, net.gmin)[0] for d in net.diodes}
+    caveats = list(circuit_caveats)
+    if not solved.tight:
+        caveats.append(
+            f"converged to ngspice's tolerances (RELTOL {RELTOL:g}) but not to {TIGHT_RELTOL:g}: "
+            "a node is held by very small conductances"
+        )
+    return OperatingPoint(
+        node_voltages=node_voltages,
+        branch_currents={name: branch_currents[name] for name in net.branch_names},
+        devices=devices,
+        method=solved.method,
+        iterations=solved.iterations,
+        caveats=tuple(caveats),
+        junctions=junctions,
+        diode_currents=diode_currents,
+    )
+
+
+def _start(net: _Network, initial: Mapping[str, float] | None) -> tuple[_State, bool]:
+    """The starting state: the caller's node guess, else `.nodeset`, else MODEINITJCT."""
+    guess = dict(net.nodeset) if initial is None else {}
+    for node, value in (initial or {}).items():
+        key = node.lower()
+        key = GROUND if key == "gnd" else key
+        if key != GROUND and key not in net.nodes:
+            raise ValueError(f"initial guess names node `{node}`, which is not in the circuit")
+        guess[key] = float(value)
+    if not guess:
+        return _junction_start(net), True
+    x = np.zeros(net.size)
+    for k, node in enumerate(net.nodes):
+        x[k + 1] = guess.get(node, 0.0)
+    return _settle(net, x), False
+
+
+def solve_operating_point(
+    circuit: Circuit,
+    *,
+    initial: Mapping[str, float] | None = None,
+    source_values: Mapping[str, float] | None = None,
+    model_override: ModelChoice | None = None,
+    methods: Sequence[str] = METHODS,
+) -> OperatingPoint:
+    """The DC operating point by MNA and Newton–Raphson, falling back to gmin then source stepping.
+
+    ``initial`` guesses node voltages (continuation); ``source_values`` replaces named independent
+    sources' DC values; ``model_override`` builds the Level1Model for a card in place of
+    ``level1_model`` (e.g. with LAMBDA and GAMMA set to 0); ``methods`` limits the ladder.
+    Raises UnsupportedElement, InvalidElement, SingularCircuit or NoConvergence.
+    """
+    net = _build_network(circuit, model_override or level1_model)
+    sources = net.source_vector(source_values)
+    start, fresh = _start(net, initial)
+    solved = _solve(net, sources, start, fresh, methods)
+    return _operating_point(net, solved, net.caveats)
+
+
+def solve_dc_sweep(
+    circuit: Circuit,
+    source: str,
+    values: Sequence[float],
+    *,
+    source_values: Mapping[str, float] | None = None,
+    model_override: ModelChoice | None = None,
+    methods: Sequence[str] = METHODS,
+) -> list[OperatingPoint]:
+    """Operating points with `source` stepped through `values`, each started from the last.
+
+    Like ngspice's ``.dc``: Newton continues from the previous solution, and a point where that
+    fails is solved afresh with the full ladder. Raises NoConvergence naming the failing value.
+    """
+    net = _build_network(circuit, model_override or level1_model)
+    if source.lower() not in {name.lower() for name in net.source_names}:
+        raise ValueError(f"`{source}` is not an independent source of this circuit")
+    overrides = dict(source_values or {})
+    swept = next(name for name in net.source_names if name.lower() == source.lower())
+    points: list[OperatingPoint] = []
+    previous: _State | None = None
+    for value in values:
+        overrides[swept] = float(value)
+        sources = net.source_vector(overrides)
+        solved: _Solved | None = None
+        spent = 0
+        if previous is not None:
+            attempt = _newton(net, previous, sources)
+            spent = attempt.iterations
+            if attempt.state is not None:
+                solved = _Solved(attempt.state, NEWTON, spent, attempt.tight)
+        if solved is None:
+            start, fresh = _start(net, None)
+            try:
+                solved = _solve(net, sources, start, fresh, methods)
+            except NoConvergence as exc:
+                raise NoConvergence(
+                    f"at {swept} = {value:g}: {exc}", exc.methods, exc.iterations + spent
+                ) from None
+            solved = _Solved(solved.state, solved.method, solved.iterations + spent, solved.tight)
+        previous = _settle(net, solved.state.x)
+        points.append(_operating_point(net, solved, net.caveats))
+    return points
