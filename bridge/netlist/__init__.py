@@ -25,6 +25,6 @@ def read_netlist(path: str | os.PathLike[str]) -> Circuit:
 
 def parse_netlist(text: str, name: str = "<netlist>", directory: str | None = None) -> Circuit:
     """Understand netlist text; includes resolve relative to `directory` (default: cwd)."""
-    source = decode_source(text.encode("utf-8", errors="surrogateescape"), name)
+    source = decode_source(text.encode("utf-8", errors="replace"), name)
     base = os.path.join(directory or os.getcwd(), os.path.basename(name) or "netlist")
     return build_circuit(read_deck(source, base))

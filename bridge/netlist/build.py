@@ -7,11 +7,24 @@ in SI, flattens subcircuits and checks what the simulator would reject anyway
 
 from __future__ import annotations
 
+import re
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 
-from .circuit import GROUND, KIND_BY_LETTER, Analysis, Circuit, DcSweep, Directive, Element, ModelCard
-from .circuit import Notice, Origin, Parameter, Waveform
+from .circuit import (
+    GROUND,
+    KIND_BY_LETTER,
+    Analysis,
+    Circuit,
+    DcSweep,
+    Directive,
+    Element,
+    ModelCard,
+    Notice,
+    Origin,
+    Parameter,
+    Waveform,
+)
 from .errors import NetlistError
 from .expressions import Expr, ExpressionError, UserFunction, evaluate
 from .numbers import NumberError, parse_number
@@ -57,6 +70,7 @@ INSTANCE_FLAGS: dict[str, frozenset[str]] = {
     "q": frozenset({"off"}),
 }
 MAX_SUBCKT_DEPTH = 10
+_IDENTIFIER = re.compile(r"^[a-z_][a-z0-9_]*$", re.IGNORECASE)
 
 
 @dataclass
@@ -175,6 +189,8 @@ class _Builder:
         defaults: list[Assignment] = []
         for item in raw.items:
             if isinstance(item, Assignment):
+                if not _IDENTIFIER.match(item.name):
+                    raise raw.card.error(f"`{item.name}` is not a parameter name", item.offset)
                 defaults.append(item)
             elif isinstance(item, Word) and item.text.lower() == "params:":
                 continue
@@ -216,9 +232,8 @@ class _Builder:
             elif isinstance(raw, RawSetting):
                 self.top_only(raw.card, scope, raw.kind)
                 self.directives.append(self.setting(raw, scope))
-            elif isinstance(raw, RawKept):
-                if not scope.path:
-                    self.directives.append(Directive(raw.kind.lstrip("."), raw.card.text, _origin(raw.card)))
+            elif isinstance(raw, RawKept) and not scope.path:
+                self.directives.append(Directive(raw.kind.lstrip("."), raw.card.text, _origin(raw.card)))
 
     def top_only(self, card: LogicalCard, scope: _Scope, what: str) -> None:
         if scope.path:
@@ -244,6 +259,8 @@ class _Builder:
             if not isinstance(item, Assignment):
                 raise raw.card.error("a model parameter needs a value: `name=value`", item.offset)
             key = item.name.lower()
+            if not _IDENTIFIER.match(key):
+                raise raw.card.error(f"`{item.name}` is not a model parameter name", item.offset)
             params[MODEL_ALIASES.get(key, key)] = self.value(item.value, raw.card, scope)
         level_value = params.pop("level", 1.0)
         if level_value != int(level_value) or level_value < 1:

@@ -44,8 +44,10 @@ def _params(params: dict[str, float | str], skip: Iterable[str] = ()) -> str:
 
 
 def _title(title: str) -> str:
-    # The title is free text on line 1; keep it on one line.
-    return " ".join(title.split()) or "untitled"
+    # The title is free text on line 1; keep it on one line. A title that itself starts
+    # with `.title` is written behind one, since the reader strips one `.title`.
+    text = " ".join(title.split()) or "untitled"
+    return f".title {text}" if text.lower().startswith(".title") else text
 
 
 def model_card(model: ModelCard) -> str:

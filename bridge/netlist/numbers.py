@@ -67,12 +67,14 @@ def parse_number(text: str, *, allow_mil: bool = True) -> float:
                     start + index,
                 )
         lowered = letters.lower()
-        for word, power in _SCALE_WORDS:
-            if lowered.startswith(word) and (word != "mil" or allow_mil):
-                scaled = float(f"{mantissa}e{exponent + power}")
-                return scaled * _MIL_FACTOR if word == "mil" else scaled
-        exponent += _SCALE_LETTERS.get(lowered[0], 0)
+        word = next((w for w, _ in _SCALE_WORDS if lowered.startswith(w) and (w != "mil" or allow_mil)), None)
+        if word is not None:
+            exponent += dict(_SCALE_WORDS)[word]
+        else:
+            exponent += _SCALE_LETTERS.get(lowered[0], 0)
     value = float(f"{mantissa}e{exponent}")
+    if match["letters"].lower().startswith("mil") and allow_mil:
+        value *= _MIL_FACTOR
     if not math.isfinite(value):
         raise NumberError(f"`{text}` is out of range", 0)
     return value

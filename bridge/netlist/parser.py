@@ -9,12 +9,12 @@ models — is built afterwards in build.py.
 from __future__ import annotations
 
 import functools
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from importlib import resources
 from pathlib import Path
 
 from lark import Lark, Token, Transformer
-from lark.exceptions import UnexpectedCharacters, UnexpectedEOF, UnexpectedInput, UnexpectedToken
+from lark.exceptions import UnexpectedEOF, UnexpectedInput
 
 from .errors import NetlistError
 from .expressions import Binary, Call, Expr, Literal, Reference, Unary
@@ -214,8 +214,9 @@ class _CardTransformer(Transformer):
         return Unary("-", children[0], children[0].offset)
 
     # -- fields
-    def node(self, children: list[Token]) -> tuple[str, int]:
-        return (str(children[0]), children[0].start_pos)
+    @staticmethod
+    def _node(token: Token) -> tuple[str, int]:
+        return (str(token), token.start_pos)
 
     def assignment(self, children: list) -> Assignment:
         return Assignment(str(children[0]), children[1], children[0].start_pos)
@@ -232,7 +233,8 @@ class _CardTransformer(Transformer):
     # -- elements
     def _two_terminal(self, children: list) -> RawElement:
         name, n1, n2, value, *items = children
-        return RawElement(str(name)[0].lower(), str(name), (n1, n2), self.card, value=value, items=tuple(items))
+        nodes = (self._node(n1), self._node(n2))
+        return RawElement(str(name)[0].lower(), str(name), nodes, self.card, value=value, items=tuple(items))
 
     resistor = capacitor = inductor = _two_terminal
 
@@ -240,7 +242,8 @@ class _CardTransformer(Transformer):
         name, n1, n2, *rest = children
         value = rest.pop(0) if rest and not isinstance(rest[0], DcPart | AcPart | WaveformPart) else None
         return RawElement(
-            str(name)[0].lower(), str(name), (n1, n2), self.card, value=value, source_parts=tuple(rest)
+            str(name)[0].lower(), str(name), (self._node(n1), self._node(n2)), self.card, value=value,
+            source_parts=tuple(rest),
         )
 
     vsource = isource = _source
@@ -258,14 +261,16 @@ class _CardTransformer(Transformer):
 
     def _voltage_controlled(self, children: list) -> RawElement:
         name, *nodes, gain = children
-        return RawElement(str(name)[0].lower(), str(name), tuple(nodes), self.card, value=gain)
+        return RawElement(
+            str(name)[0].lower(), str(name), tuple(self._node(n) for n in nodes), self.card, value=gain
+        )
 
     vcvs = vccs = _voltage_controlled
 
     def _current_controlled(self, children: list) -> RawElement:
         name, n1, n2, control, gain = children
         return RawElement(
-            str(name)[0].lower(), str(name), (n1, n2), self.card, value=gain,
+            str(name)[0].lower(), str(name), (self._node(n1), self._node(n2)), self.card, value=gain,
             controlling_source=Word(str(control), control.start_pos),
         )
 
@@ -273,7 +278,7 @@ class _CardTransformer(Transformer):
 
     def _modelled(self, children: list, node_count: int) -> RawElement:
         name = children[0]
-        nodes = tuple(children[1 : 1 + node_count])
+        nodes = tuple(self._node(n) for n in children[1 : 1 + node_count])
         model = children[1 + node_count]
         return RawElement(
             str(name)[0].lower(), str(name), nodes, self.card,
@@ -288,7 +293,7 @@ class _CardTransformer(Transformer):
 
     def bjt(self, children: list) -> RawElement:
         name, *rest = children
-        nodes = tuple(rest[:3])
+        nodes = tuple(self._node(n) for n in rest[:3])
         return RawElement("q", str(name), nodes, self.card, items=tuple(rest[3:]))
 
     def subckt_call(self, children: list) -> RawElement:
