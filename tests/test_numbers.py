@@ -5,9 +5,9 @@ from __future__ import annotations
 import math
 
 import pytest
+from conftest import needs_ngspice, ngspice_batch_op
 
 from bridge.netlist.numbers import NumberError, engineering, parse_number
-from conftest import needs_ngspice, ngspice_batch_op
 
 # reference: ngspice manual (Debian ngspice-doc 39), section 2.1.4.2 "Numbers",
 # Table 2.2 "Ngspice scale factors", and 2.1.4.3 "Letters following a number".

@@ -7,8 +7,9 @@ import os
 import subprocess
 import sys
 
-from bridge.cli import main
 from conftest import EXAMPLES
+
+from bridge.cli import main
 
 RESISTOR_MILLI = "One-milliohm trap\nV1 in 0 5\nR1 in out 1M\nR2 out 0 1MEG\n.op\n.end\n"
 

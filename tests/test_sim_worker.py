@@ -16,6 +16,7 @@ from pathlib import Path
 
 import pytest
 
+from bridge.netlist.emit import SpiceDeck
 from bridge.sim.client import (
     NgspiceSession,
     SimulationFailed,
@@ -24,7 +25,6 @@ from bridge.sim.client import (
     SimulatorUnavailable,
     ngspice_available,
 )
-from bridge.netlist.emit import SpiceDeck
 from bridge.sim.locate import locate_ngspice
 
 
