@@ -263,7 +263,7 @@ class _Builder:
                 raise raw.card.error(f"`{item.name}` is not a model parameter name", item.offset)
             params[MODEL_ALIASES.get(key, key)] = self.value(item.value, raw.card, scope)
         level_value = params.pop("level", 1.0)
-        if level_value != int(level_value) or level_value < 1:
+        if level_value != int(level_value) or not 1 <= level_value <= 100:
             raise raw.card.error(f"LEVEL must be a positive integer, not {level_value:g}", 0)
         name = raw.name if not scope.path else f"{scope.path}.{raw.name}"
         key = name.lower()
@@ -504,8 +504,9 @@ def check_references(circuit: Circuit, cards: Mapping[str, LogicalCard]) -> None
         control = circuit.element(element.controlling_source)
         if control is None or control.kind != "vsource":
             card = cards[element.name.lower()]
-            words = card.text.split()
-            offset = card.text.find(words[3]) if len(words) > 3 else 0
+            # The controlling source is the fourth field: `Fname n+ n- Vcontrol gain`.
+            fields = list(re.finditer(r"[^\s=(),{}']+", card.text))
+            offset = fields[3].start() if len(fields) > 3 else 0
             raise card.error(
                 f"`{element.name}` is controlled by `{element.controlling_source}`, "
                 "which is not a voltage source of this circuit",

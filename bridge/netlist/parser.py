@@ -336,7 +336,9 @@ class _CardTransformer(Transformer):
         return RawSetting("temp", self.card, values=tuple(children[1:]))
 
     def node_setting(self, children: list) -> tuple[str, Expr]:
-        _, node, value = children
+        function, node, value = children
+        if str(function).lower() != "v":
+            raise self.card.error(f"expected `V(node)=value`, not `{function}(...)`", function.start_pos)
         return (str(node), value)
 
     def ic_card(self, children: list) -> RawSetting:
