@@ -43,7 +43,7 @@ CASES = {
     "ic_not_a_voltage": ("t\nR1 a 0 1\n.ic foo(a)=1\n", 3, 5, "expected `V(node)=value`"),
     "level_out_of_range": ("t\n.model m nmos level=1e300\n", 2, 1, "LEVEL must be a positive integer"),
     "control_not_a_vsource": ("t\nV1 a 0 1\nF1 a 0 a 2\n", 3, 8, "not a voltage source"),
-    "node_setting_without_value": ("t\nR1 a 0 1\n.nodeset v(a)=\n", 3, 14, "incomplete `.nodeset` card"),
+    "node_setting_without_value": ("t\nR1 a 0 1\n.nodeset v(a)=\n", 3, 15, "incomplete `.nodeset` card"),
     "lib_without_section": ("t\n.lib models.lib\nR1 a 0 1\n", 2, 1, "section definition"),
 }
 
