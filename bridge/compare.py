@@ -1,0 +1,350 @@
+"""Comparison: hand, level-1 and ngspice side by side, the findings, and their causes.
+
+Takes solutions that were computed elsewhere and only measures their differences:
+per node and per transistor quantity, each column against the simulator (or, without
+one, hand against the level-1 solver), every region disagreement, and the level-1/ngspice
+agreement that says whether our own solver and ngspice see the same model. The
+attribution re-solves the hand model with one effect switched on at a time.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+
+from .analysis.dcsolve import OperatingPoint
+from .analysis.hand import HandSolution
+from .netlist.circuit import Circuit
+from .netlist.numbers import engineering
+from .sim.operating_point import SimOperatingPoint
+
+DEVICE_QUANTITIES = ("id", "vgs", "vds", "vth", "vov", "gm", "gds")
+UNITS = {"id": "A", "vgs": "V", "vds": "V", "vth": "V", "vov": "V", "gm": "S", "gds": "S"}
+# Absolute floors under the relative tolerance, so near-zero values are not flagged for
+# picoamp or microvolt noise (common practice, no source): voltages, currents, conductances.
+HAND_FLOOR = {"V": 5e-3, "A": 1e-9, "S": 1e-8}
+# Our level-1 solver and ngspice solve the same equations; ngspice stops at RELTOL = 1e-3
+# (ngspice manual, .options), so agreement to 0.2 % on currents and 1 mV on voltages is the bar.
+SOLVER_RELATIVE = 2e-3
+SOLVER_FLOOR = {"V": 1e-3, "A": 1e-12, "S": 1e-12}
+DEFAULT_TOLERANCE = 0.05
+EFFECTS = ("lambda", "gamma")
+EFFECT_NAMES = {"lambda": "channel-length modulation (LAMBDA)", "gamma": "body effect (GAMMA)"}
+COLUMNS = ("hand", "level1", "sim")
+COLUMN_NAMES = {"hand": "hand analysis", "level1": "level-1 solver", "sim": "ngspice"}
+
+
+@dataclass(frozen=True)
+class Finding:
+    severity: str  # "error" | "warning" | "info"
+    code: str
+    message: str
+    line: int | None = None
+    subject: str | None = None
+
+
+@dataclass(frozen=True)
+class Columns:
+    """One quantity in each column (None where a column has no value)."""
+
+    hand: float | None
+    level1: float | None
+    sim: float | None
+    expect: float | None = None
+    flagged: tuple[str, ...] = ()  # columns that disagree with the reference
+
+    def get(self, column: str) -> float | None:
+        return getattr(self, column)
+
+
+@dataclass(frozen=True)
+class DeviceComparison:
+    name: str
+    type: str
+    model: str
+    line: int
+    region: dict[str, str | None]
+    quantities: dict[str, Columns]
+    attribution: dict[str, float]
+    expect_region: str | None = None
+
+
+@dataclass(frozen=True)
+class Expectation:
+    """The designer's own target for one quantity, with its tolerance (relative)."""
+
+    value: float | str
+    tolerance: float
+    line: int | None = None
+
+
+@dataclass(frozen=True)
+class Expectations:
+    nodes: dict[str, Expectation] = field(default_factory=dict)
+    devices: dict[str, dict[str, Expectation]] = field(default_factory=dict)
+    file: str | None = None
+
+
+@dataclass(frozen=True)
+class CheckResult:
+    file: str
+    title: str
+    simulator: tuple[str, str] | None
+    topology: str
+    closed_form: bool
+    nodes: dict[str, Columns]
+    devices: dict[str, DeviceComparison]
+    findings: tuple[Finding, ...]
+    steps: tuple = ()
+    has_expect: bool = False
+
+    @property
+    def agree(self) -> bool:
+        return not any(f.severity in {"error", "warning"} for f in self.findings)
+
+
+def _differs(value: float | None, reference: float | None, relative: float, floor: float) -> bool:
+    if value is None or reference is None:
+        return False
+    return abs(value - reference) > relative * abs(reference) + floor
+
+
+def _relative_change(value: float, reference: float) -> float:
+    if reference == 0:
+        return 0.0 if value == 0 else math.copysign(math.inf, value)
+    return (value - reference) / abs(reference)
+
+
+def _percent(change: float) -> str:
+    return f"{change * 100:+.1f} %" if math.isfinite(change) else "from zero"
+
+
+def compare(
+    circuit: Circuit,
+    hand: HandSolution,
+    level1: OperatingPoint | None,
+    sim: SimOperatingPoint | None,
+    *,
+    simulator: tuple[str, str] | None = None,
+    tolerance: float = DEFAULT_TOLERANCE,
+    attribution: Callable[[str], HandSolution] | None = None,
+    expect: Expectations | None = None,
+    findings: tuple[Finding, ...] = (),
+) -> CheckResult:
+    """Lay the columns side by side and flag what disagrees.
+
+    `attribution(effect)` re-solves the hand model with one effect switched on; `findings`
+    carries what the callers already know (a failed simulation, a solver caveat).
+    """
+    found: list[Finding] = list(findings)
+    reference_column = "sim" if sim is not None else "level1"
+    nodes: dict[str, Columns] = {}
+    for node in ("0",) + circuit.nodes():
+        if node == "0":
+            continue
+        hand_v = hand.node_voltages.get(node)
+        level1_v = level1.node_voltages.get(node) if level1 else None
+        sim_v = sim.node_voltages.get(node) if sim else None
+        expected = expect.nodes.get(node) if expect else None
+        flagged = _flag_columns(
+            "V", hand_v, level1_v, sim_v, expected, reference_column, tolerance, found, f"V({node})", None
+        )
+        nodes[node] = Columns(hand_v, level1_v, sim_v, _expect_value(expected), flagged)
+
+    devices: dict[str, DeviceComparison] = {}
+    for element in circuit.elements_of("mosfet"):
+        model = circuit.model(element.model or "")
+        mos_type = model.type if model else "nmos"
+        hand_device = hand.devices.get(element.name)
+        level1_device = level1.devices.get(element.name) if level1 else None
+        sim_device = sim.devices.get(element.name) if sim else None
+        wanted = (expect.devices.get(element.name.lower(), {}) if expect else {})
+        quantities: dict[str, Columns] = {}
+        for quantity in DEVICE_QUANTITIES:
+            hand_q = getattr(hand_device, quantity) if hand_device else None
+            level1_q = getattr(level1_device, quantity) if level1_device else None
+            if quantity == "id" and level1 is not None and level1_device is not None:
+                # Like ngspice's @m[id]: the channel current less the bulk-drain junction's.
+                level1_q = level1.drain_terminal_current(element.name)
+            sim_q = getattr(sim_device, quantity) if sim_device else None
+            expected = wanted.get(quantity)
+            # The hand model's gds in saturation is 0 by its own assumption (λ = 0): not a finding.
+            assumed = quantity == "gds" and hand_device is not None and hand_device.region == "saturation"
+            flagged = _flag_columns(
+                UNITS[quantity], None if assumed else hand_q, level1_q, sim_q, expected, reference_column,
+                tolerance, found, f"{element.name} {quantity}", element,
+            )
+            quantities[quantity] = Columns(hand_q, level1_q, sim_q, _expect_value(expected), flagged)
+        region = {
+            "hand": hand_device.region if hand_device else None,
+            "level1": level1_device.region if level1_device else None,
+            "sim": sim_device.region if sim_device else None,
+        }
+        reference_region = region[reference_column]
+        effect_solutions = (
+            {effect: attribution(effect) for effect in EFFECTS} if attribution is not None and hand_device else {}
+        )
+        for column in ("hand", "level1") if reference_column == "sim" else ("hand",):
+            if region[column] and reference_region and region[column] != reference_region:
+                message = (
+                    f"{element.name}: the {COLUMN_NAMES[column]} puts it in {region[column]}, "
+                    f"{COLUMN_NAMES[reference_column]} in {reference_region}"
+                )
+                if column == "hand":
+                    movers = [
+                        EFFECT_NAMES[effect]
+                        for effect, solution in effect_solutions.items()
+                        if (moved := solution.devices.get(element.name)) is not None
+                        and moved.region == reference_region
+                    ]
+                    if movers:
+                        message += f"; {' or '.join(movers)} alone moves the hand model to {reference_region}"
+                found.append(
+                    Finding(
+                        "error" if column == "level1" else "warning",
+                        "region-mismatch" if column == "hand" else "solver-region-mismatch",
+                        message,
+                        element.origin.line,
+                        element.name,
+                    )
+                )
+        expected_region = wanted.get("region")
+        if expected_region is not None and reference_region and str(expected_region.value) != reference_region:
+            found.append(
+                Finding(
+                    "warning", "expect-region",
+                    f"{element.name}: expected {expected_region.value}, {COLUMN_NAMES[reference_column]} says "
+                    f"{reference_region}",
+                    expected_region.line, element.name,
+                )
+            )
+        reference_device = sim_device if reference_column == "sim" else level1_device
+        gamma = model.params.get("gamma", 0.0) if model is not None else 0.0
+        if (
+            "hand" in quantities["vth"].flagged
+            and reference_device is not None
+            and gamma > 0
+            and abs(reference_device.vbs) > 1e-6
+        ):
+            shifted = engineering(quantities["vth"].get(reference_column), "V")
+            found.append(
+                Finding(
+                    "info", "cause",
+                    f"{element.name}: the body effect (GAMMA = {gamma:g} √V at vbs = "
+                    f"{engineering(reference_device.vbs, 'V')}) raises the threshold to {shifted}; "
+                    "the hand model takes Vt = VTO",
+                    element.origin.line, element.name,
+                )
+            )
+        effects = _attribute(element.name, hand, effect_solutions)
+        if hand_device and (sim_device or level1_device):
+            _explain(element.name, element.origin.line, quantities["id"], effects, reference_column, found)
+        devices[element.name] = DeviceComparison(
+            element.name, mos_type, element.model or "", element.origin.line, region, quantities, effects,
+            str(expected_region.value) if expected_region else None,
+        )
+    return CheckResult(
+        file=circuit.source_file,
+        title=circuit.title,
+        simulator=simulator,
+        topology=hand.topology,
+        closed_form=hand.closed_form,
+        nodes=nodes,
+        devices=devices,
+        findings=tuple(found),
+        steps=tuple(hand.steps),
+        has_expect=expect is not None,
+    )
+
+
+def _expect_value(expected: Expectation | None) -> float | None:
+    return expected.value if expected is not None and isinstance(expected.value, float) else None
+
+
+def _flag_columns(
+    unit: str,
+    hand_v: float | None,
+    level1_v: float | None,
+    sim_v: float | None,
+    expected: Expectation | None,
+    reference_column: str,
+    tolerance: float,
+    found: list[Finding],
+    subject: str,
+    element,
+) -> tuple[str, ...]:
+    reference = sim_v if reference_column == "sim" else level1_v
+    line = element.origin.line if element is not None else None
+    name = element.name if element is not None else subject
+    flagged: list[str] = []
+    if _differs(hand_v, reference, tolerance, HAND_FLOOR[unit]):
+        flagged.append("hand")
+        found.append(
+            Finding(
+                "warning", "hand-differs",
+                f"{subject}: hand {engineering(hand_v, unit)} vs {COLUMN_NAMES[reference_column]} "
+                f"{engineering(reference, unit)} "
+                f"({_percent(_relative_change(hand_v, reference))}, tolerance {tolerance * 100:g} %)",
+                line, name,
+            )
+        )
+    if reference_column == "sim" and _differs(level1_v, sim_v, SOLVER_RELATIVE, SOLVER_FLOOR[unit]):
+        flagged.append("level1")
+        found.append(
+            Finding(
+                "error", "solver-differs",
+                f"{subject}: level-1 solver {engineering(level1_v, unit)} vs ngspice {engineering(sim_v, unit)} "
+                "beyond 0.2 %: a defect of biasbridge's solver or a model feature it does not cover",
+                line, name,
+            )
+        )
+    if (
+        expected is not None
+        and isinstance(expected.value, float)
+        and _differs(reference, expected.value, expected.tolerance, 0.0)
+    ):
+        flagged.append("expect")
+        found.append(
+            Finding(
+                "warning", "expect-differs",
+                f"{subject}: expected {engineering(expected.value, unit)} ± {expected.tolerance * 100:g} %, "
+                f"{reference_column} gives {engineering(reference, unit)}",
+                expected.line, name,
+            )
+        )
+    return tuple(flagged)
+
+
+def _attribute(name: str, hand: HandSolution, solutions: Mapping[str, HandSolution]) -> dict[str, float]:
+    """Relative change of the hand id that each effect causes on its own, largest first."""
+    base = hand.devices.get(name)
+    if base is None:
+        return {}
+    changes: dict[str, float] = {}
+    for effect, solution in solutions.items():
+        with_effect = solution.devices.get(name)
+        if with_effect is not None:
+            changes[effect] = _relative_change(with_effect.id, base.id)
+    return dict(sorted(changes.items(), key=lambda item: -abs(item[1]) if math.isfinite(item[1]) else -math.inf))
+
+
+def _explain(
+    name: str, line: int, id_columns: Columns, effects: Mapping[str, float], reference_column: str,
+    found: list[Finding],
+) -> None:
+    reference = id_columns.get(reference_column)
+    if id_columns.hand is None or reference is None:
+        return
+    gap = _relative_change(reference, id_columns.hand)
+    if not effects or abs(id_columns.hand - reference) <= 1e-12 or abs(gap) < 1e-4:
+        return
+    parts = [f"{EFFECT_NAMES.get(effect, effect)} {_percent(change)}" for effect, change in effects.items()]
+    explained = sum(change for change in effects.values() if math.isfinite(change))
+    message = (
+        f"{name}: {COLUMN_NAMES[reference_column]} id is {_percent(gap)} from the hand value; each effect "
+        f"switched on alone in the hand model changes id by: " + ", ".join(parts)
+    )
+    if math.isfinite(gap) and math.isfinite(explained) and abs(gap - explained) > max(0.01, 0.2 * abs(gap)):
+        message += f" (together {_percent(explained)}; the rest comes from their interaction or the circuit)"
+    found.append(Finding("info", "cause", message, line, name))
