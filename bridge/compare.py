@@ -215,8 +215,8 @@ def compare(
                 Finding(
                     "warning", "expect-region",
                     f"{element.name}: expected {expected_region.value}, {COLUMN_NAMES[reference_column]} says "
-                    f"{reference_region}",
-                    expected_region.line, element.name,
+                    f"{reference_region}{_expect_place(expected_region)}",
+                    element.origin.line, element.name,
                 )
             )
         reference_device = sim_device if reference_column == "sim" else level1_device
@@ -256,6 +256,11 @@ def compare(
         steps=tuple(hand.steps),
         has_expect=expect is not None,
     )
+
+
+def _expect_place(expected: Expectation) -> str:
+    """Where a target was written: finding lines refer to the netlist, so the TOML line goes in the text."""
+    return f" (expect file line {expected.line})" if expected.line else ""
 
 
 def _expect_value(expected: Expectation | None) -> float | None:
@@ -309,8 +314,9 @@ def _flag_columns(
             Finding(
                 "warning", "expect-differs",
                 f"{subject}: expected {engineering(expected.value, unit)} ± {expected.tolerance * 100:g} %, "
-                f"{reference_column} gives {engineering(reference, unit)}",
-                expected.line, name,
+                f"{COLUMN_NAMES[reference_column]} gives {engineering(reference, unit)}"
+                f"{_expect_place(expected)}",
+                element.origin.line if element is not None else None, name,
             )
         )
     return tuple(flagged)

@@ -29,10 +29,17 @@ REGIONS = ("cutoff", "saturation", "triode")
 _TOML_PLACE = re.compile(r"at line (\d+), column (\d+)")
 
 
-def _line_of(lines: list[str], key: str) -> int:
-    """The first line that assigns `key` (TOML gives values no positions)."""
+def _line_of(lines: list[str], key: str, section: str | None = None) -> int:
+    """The line that assigns `key`, inside `[section]` when given (TOML gives values no positions)."""
     pattern = re.compile(rf"^\s*\"?{re.escape(key)}\"?\s*=", re.IGNORECASE)
-    return next((n for n, text in enumerate(lines, 1) if pattern.match(text)), 1)
+    header = re.compile(r"^\s*\[")
+    inside = section is None
+    for number, text in enumerate(lines, 1):
+        if header.match(text):
+            inside = section is not None and text.strip().strip("[]").strip().lower() == section.lower()
+        elif inside and pattern.match(text):
+            return number
+    return 1
 
 
 def _tolerance(raw: object, where: Location, lines: list[str]) -> float:
@@ -86,8 +93,8 @@ def read_expectations(path: str | Path, default_tolerance: float) -> Expectation
         line = _line_of(lines, key)
         file_tolerance = _tolerance(data[key], Location(name, line, 1), lines)
 
-    def entry(key: str, raw: object, quantity: str) -> Expectation:
-        line = _line_of(lines, key)
+    def entry(key: str, raw: object, quantity: str, section: str) -> Expectation:
+        line = _line_of(lines, key, section)
         where = Location(name, line, 1)
         tolerance = file_tolerance
         if isinstance(raw, dict):
@@ -102,7 +109,7 @@ def read_expectations(path: str | Path, default_tolerance: float) -> Expectation
             return Expectation(str(raw).lower(), tolerance, line)
         return Expectation(_value(raw, where, lines), tolerance, line)
 
-    nodes = {str(k).lower(): entry(str(k), v, "node") for k, v in dict(data.get("nodes", {})).items()}
+    nodes = {str(k).lower(): entry(str(k), v, "node", "nodes") for k, v in dict(data.get("nodes", {})).items()}
     devices: dict[str, dict[str, Expectation]] = {}
     for device, table in dict(data.get("devices", {})).items():
         if not isinstance(table, dict):
@@ -113,12 +120,12 @@ def read_expectations(path: str | Path, default_tolerance: float) -> Expectation
         for quantity, raw in table.items():
             key = str(quantity).lower()
             if key not in DEVICE_QUANTITIES and key != "region":
-                line = _line_of(lines, str(quantity))
+                line = _line_of(lines, str(quantity), f"devices.{device}")
                 raise NetlistError(
                     f"`{quantity}` is not a device quantity (expected {', '.join(DEVICE_QUANTITIES)}, region)",
                     Location(name, line, 1), lines[line - 1],
                 )
-            entries[key] = entry(str(quantity), raw, key)
+            entries[key] = entry(str(quantity), raw, key, f"devices.{device}")
         devices[str(device).lower()] = entries
     return Expectations(nodes, devices, name)
 
