@@ -7,7 +7,7 @@ worker). A failure of one column becomes a finding; the others still report.
 from __future__ import annotations
 
 from .analysis.dcsolve import DcSolveError, OperatingPoint, solve_operating_point
-from .analysis.hand import HandSolution, hand_analysis
+from .analysis.hand import HandAnalysisError, HandSolution, hand_analysis
 from .compare import CheckResult, Expectations, Finding, compare
 from .netlist.circuit import Circuit
 from .sim.client import NgspiceSession, SimulationFailed, SimulatorError, SimulatorTimeout
@@ -32,15 +32,24 @@ def check_circuit(
     findings: list[Finding] = [
         Finding("info", n.code, n.message, n.line, None) for n in circuit.notices
     ]
-    hand = hand_analysis(circuit)
-    if not hand.closed_form:
+    attribution = None
+    try:
+        hand = hand_analysis(circuit)
+    except HandAnalysisError as exc:
+        # Outside the hand model (a BJT or diode in the circuit, a floating gate, ...): the
+        # other two columns still report.
+        findings.append(Finding("warning", "hand-unavailable", f"hand analysis: {exc}", None, None))
+        hand = HandSolution(f"outside the hand model ({exc})", False, {}, {}, (), ())
+    else:
+
+        def attribution(effect: str) -> HandSolution:
+            return hand_analysis(circuit, effects=frozenset({effect}))
+
+    if hand.devices and not hand.closed_form:
         findings.append(
             Finding("info", "hand-numeric", f"hand analysis: {hand.topology}; no closed form was used, the "
                     "simplified model was solved numerically", None, None)
         )
-
-    def with_effect(effect: str) -> HandSolution:
-        return hand_analysis(circuit, effects=frozenset({effect}))
 
     level1: OperatingPoint | None = None
     try:
@@ -63,7 +72,13 @@ def check_circuit(
             simulator = ("ngspice", session.version)
             sim = simulate_operating_point(session, circuit, timeout=sim_timeout)
             for message in sim.messages:
-                findings.append(Finding("info", "ngspice-says", message, None, None))
+                if "singular matrix" in message.lower():
+                    # ngspice then falls back to stepping or a transient op: its answer is set by
+                    # whatever resolves the singularity, not by the DC circuit.
+                    findings.append(Finding("warning", "sim-singular", f"ngspice: {message} — its operating "
+                                            "point is not trustworthy (a node with no DC path?)", None, None))
+                else:
+                    findings.append(Finding("info", "ngspice-says", message, None, None))
         except SimulatorTimeout:
             findings.append(Finding("error", "sim-timeout", f"ngspice did not answer within {sim_timeout:g} s; "
                                     "the worker was restarted", None, None))
@@ -76,6 +91,6 @@ def check_circuit(
                                     "next netlist", None, None))
     return compare(
         circuit, hand, level1, sim,
-        simulator=simulator, tolerance=tolerance, attribution=with_effect, expect=expect,
+        simulator=simulator, tolerance=tolerance, attribution=attribution, expect=expect,
         findings=tuple(findings),
     )
