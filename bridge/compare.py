@@ -343,7 +343,8 @@ def _explain(
     if id_columns.hand is None or reference is None:
         return
     gap = _relative_change(reference, id_columns.hand)
-    if not effects or abs(id_columns.hand - reference) <= 1e-12 or abs(gap) < 1e-4:
+    if not effects or abs(gap) < 1e-4 or max(abs(id_columns.hand), abs(reference)) < HAND_FLOOR["A"]:
+        # Nothing to explain: equal, or both at leakage level (a device in cutoff).
         return
     parts = [f"{EFFECT_NAMES.get(effect, effect)} {_percent(change)}" for effect, change in effects.items()]
     explained = sum(change for change in effects.values() if math.isfinite(change))

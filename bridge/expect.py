@@ -45,12 +45,15 @@ def _line_of(lines: list[str], key: str, section: str | None = None) -> int:
 def _tolerance(raw: object, where: Location, lines: list[str]) -> float:
     text = str(raw).strip()
     try:
-        if text.endswith("%"):
-            return float(text[:-1]) / 100.0
-        return float(text)
+        value = float(text[:-1]) / 100.0 if text.endswith("%") else float(text)
     except ValueError:
         raise NetlistError(f"tolerance `{text}` is not a number or a percentage", where,
                            lines[where.line - 1] if lines else None) from None
+    # The same range as --tol: above zero, below 1000 %.
+    if not 0 < value < 10:
+        raise NetlistError(f"tolerance `{text}` is out of range (above 0, below 1000 %)", where,
+                           lines[where.line - 1] if lines else None)
+    return value
 
 
 def _value(raw: object, where: Location, lines: list[str]) -> float:

@@ -25,6 +25,7 @@ def ngspice_batch_op(path: Path) -> dict[str, float]:
     (`out`, `v1#branch`).
     """
     assert NGSPICE is not None
+    path = Path(path).resolve()
     completed = subprocess.run(
         [NGSPICE, "-b", str(path)], capture_output=True, text=True, timeout=60, cwd=path.parent
     )

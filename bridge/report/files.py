@@ -17,7 +17,7 @@ def write_atomically(path: str | os.PathLike[str], write: Callable[[BinaryIO], N
     """Call `write(handle)` on a temporary file in the target's folder, then rename it into place."""
     target = Path(path)
     folder = target.parent if str(target.parent) else Path(".")
-    handle = tempfile.NamedTemporaryFile(
+    handle = tempfile.NamedTemporaryFile(  # noqa: SIM115 - closed below, then renamed or removed
         "wb", dir=folder, prefix=f".{target.name}.", suffix=".part", delete=False
     )
     try:
