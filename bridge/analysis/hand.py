@@ -1159,8 +1159,8 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
     steps.append(
         Step(
             f"Triode: ID = K·(VOV·{names.vds} − {names.vds}²/2) with "
-            f"VOV = {_q(u, 'V')} − ID·{_q(rg, 'Ω')} and "
-            f"{names.vds} = {_q(w, 'V')} − ID·{_q(rd, 'Ω')}: a quadratic in ID",
+            f"VOV = {_q(u, 'V')}" + (f" − ID·{_q(rg, 'Ω')}" if rg > 0.0 else "") + " and "
+            f"{names.vds} = {_q(w, 'V')}" + (f" − ID·{_q(rd, 'Ω')}" if rd else "") + ": a quadratic in ID",
             f"{qa:.4g} /A·ID² {_signed(qb)}·ID {_minus(qc, 'A')} = 0 → ID = " + " or ".join(_q(r, "A") for r in roots),
         )
     )
