@@ -34,7 +34,7 @@ test: install
 	$(BIN)/python -m pytest
 
 bench: install
-	$(BIN)/python tests/bench/run.py
+	$(BIN)/python tests/bench/run.py; a=$$?; $(BIN)/python tests/bench/sweep_bench.py; b=$$?; exit $$((a || b))
 
 lint: install
 	$(BIN)/ruff check bridge tests
