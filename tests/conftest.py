@@ -9,6 +9,8 @@ from pathlib import Path
 
 import pytest
 
+from bridge.sim.client import NgspiceSession, ngspice_available
+
 NGSPICE = shutil.which("ngspice")
 needs_ngspice = pytest.mark.skipif(NGSPICE is None, reason="ngspice is not installed")
 
@@ -36,3 +38,25 @@ def ngspice_batch_op(path: Path) -> dict[str, float]:
             values[match.group(1).lower()] = float(match.group(2))
     assert values, f"ngspice printed no operating point:\n{completed.stdout}\n{completed.stderr}"
     return values
+
+
+LIBRARY_FOUND, LIBRARY_HINT = ngspice_available()
+
+
+@pytest.fixture(scope="module")
+def ngspice_session():
+    """One ngspice worker for a test module; None where the library is not installed (tests
+    that need it skip, the others run the no-simulator path)."""
+    if not LIBRARY_FOUND:
+        yield None
+        return
+    with NgspiceSession() as session:
+        yield session
+
+
+@pytest.fixture(scope="module")
+def required_ngspice_session(ngspice_session):
+    """The module's ngspice worker; skips the test where the library is not installed."""
+    if ngspice_session is None:
+        pytest.skip(LIBRARY_HINT)
+    return ngspice_session

@@ -191,12 +191,9 @@ def own_dir(tmp_path_factory) -> Path:
 
 
 @pytest.fixture(scope="module")
-def session():
+def session(required_ngspice_session):
     """One ngspice worker shared by every check in this module that does not break workers."""
-    if not LIBRARY_FOUND:
-        pytest.skip(LIBRARY_HINT)
-    with NgspiceSession() as shared:
-        yield shared
+    return required_ngspice_session
 
 
 def case_path(case: str, own_dir: Path) -> Path:

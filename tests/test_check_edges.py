@@ -6,18 +6,14 @@ import pytest
 
 from bridge.check import NotASingleStage, check_circuit
 from bridge.netlist import parse_netlist
-from bridge.sim.client import NgspiceSession, ngspice_available
+from bridge.sim.client import ngspice_available
 
 AVAILABLE, _ = ngspice_available()
 
 
 @pytest.fixture(scope="module")
-def session():
-    if not AVAILABLE:
-        yield None
-        return
-    with NgspiceSession() as running:
-        yield running
+def session(ngspice_session):
+    return ngspice_session
 
 
 def codes(result) -> set[str]:

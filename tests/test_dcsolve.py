@@ -230,11 +230,8 @@ def circuit_of(text: str, name: str = "inline.cir") -> Circuit:
 
 
 @pytest.fixture(scope="module")
-def ngspice():
-    if not LIBRARY_FOUND:
-        pytest.skip(LIBRARY_HINT)
-    with NgspiceSession() as session:
-        yield session
+def ngspice(required_ngspice_session):
+    return required_ngspice_session
 
 
 def run_op(session: NgspiceSession, circuit: Circuit) -> SimResult:
