@@ -1,0 +1,1150 @@
+"""The DC transfer curve of a stage: one source stepped, one node watched, three ways.
+
+    sweep_values(start, stop, step=..., points=...) -> np.ndarray    the grid, arguments checked
+    transfer_curve(circuit, source, output, values, session) -> TransferCurve
+
+The columns, stated once:
+
+* hand — the hand model (square law, λ = γ = 0, no gate current) solved by ``hand_analysis``
+  at every point, on a copy of the circuit with the swept source's value replaced.
+* level1 — ``solve_dc_sweep``: the full level-1 model, each point started from the last, as
+  ngspice's ``.dc`` does.
+* sim — ngspice's own ``.dc`` through the worker, on SPICE emitted from the Circuit.
+
+Region edges are input values where a transistor changes region: ``cutoff_saturation`` where
+VOV crosses 0, ``saturation_triode`` where VDS − VOV does (device polarity). For hand and
+level1 each edge is found by Brent's method on the solved model between the two grid points
+where the region changes, so its accuracy does not depend on the step; ngspice's edges are
+linear interpolations of its @m[vgs], @m[vds], @m[von] vectors between sweep points. For the
+resistor-loaded common source the hand edges also have a closed form, worked out in steps.
+
+Gains are dVout/dVin: at the bias point (the swept source's own value in the netlist) by a
+central difference on the solved model for hand and level1 and from the curve for ngspice;
+the largest |gain| from each curve.
+
+Nothing here reads files or prints: the Circuit is the only input.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+from scipy.optimize import brentq
+
+from ..compare import SOLVER_FLOOR, SOLVER_RELATIVE, Finding
+from ..devices.level1 import (
+    DEFAULT_L,
+    DEFAULT_W,
+    Level1Geometry,
+    Level1Model,
+    beta,
+    classify_region,
+    threshold,
+)
+from ..netlist.circuit import GROUND, Analysis, Circuit, DcSweep, Element, Origin
+from ..netlist.emit import SpiceDeck, emit
+from ..netlist.numbers import engineering
+from ..sim.client import NgspiceSession, SimulationFailed, SimulatorError, SimulatorTimeout
+from .dcsolve import (
+    DcSolveError,
+    InvalidElement,
+    NoConvergence,
+    OperatingPoint,
+    SingularCircuit,
+    UnsupportedElement,
+    solve_dc_sweep,
+    solve_operating_point,
+)
+from .hand import HandAnalysisError, HandSolution, Step, hand_analysis, hand_model
+
+__all__ = [
+    "BOUNDARIES",
+    "COLUMNS",
+    "MAX_POINTS",
+    "ClosedFormEdges",
+    "Crossing",
+    "Curve",
+    "GainPeak",
+    "HandGainFormula",
+    "RegionEdges",
+    "SweepInputError",
+    "TransferCurve",
+    "default_output",
+    "default_range",
+    "default_source",
+    "sweep_values",
+    "transfer_curve",
+    "with_source_value",
+]
+
+COLUMNS = ("hand", "level1", "sim")
+BOUNDARIES = ("cutoff_saturation", "saturation_triode")
+MAX_POINTS = 100_000
+DEFAULT_POINTS = 201
+# Brent's method stops when the bracket is this narrow (V or A of the swept source).
+EDGE_XTOL = 1e-12
+# Central-difference half-width for the gain at the bias point, as a fraction of the sweep span:
+# wide enough that the level-1 solver's 1e-9 relative convergence is noise, narrow enough that
+# the curvature of the square law is.
+GAIN_STEP = 1e-4
+# What ngspice is asked for each MOSFET, beside the output node.
+DEVICE_SWEEP_VECTORS = ("vgs", "vds", "von")
+
+EDGE_METHODS = {
+    "hand": "Brent's method on the hand model between the grid points where the region changes",
+    "level1": "Brent's method on the level-1 solution between the grid points where the region changes",
+    "sim": "linear interpolation of ngspice's @m[vgs], @m[vds], @m[von] vectors between sweep points",
+}
+
+
+class SweepInputError(ValueError):
+    """Arguments that make no sweep: unknown source or node, a bad step, too many points."""
+
+
+# --- the results ----------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Crossing:
+    """One region change on the way through the sweep: which boundary, where, from what to what."""
+
+    boundary: str  # one of BOUNDARIES
+    at: float
+    before: str
+    after: str
+
+
+@dataclass(frozen=True)
+class RegionEdges:
+    """A transistor's region edges in one column: the first crossing of each boundary in sweep
+    order (None where never reached) and every crossing found."""
+
+    cutoff_saturation: float | None
+    saturation_triode: float | None
+    crossings: tuple[Crossing, ...] = ()
+
+    def get(self, boundary: str) -> float | None:
+        return getattr(self, boundary)
+
+
+@dataclass(frozen=True)
+class GainPeak:
+    """The largest |dVout/dVin| along a curve and where it is."""
+
+    gain: float
+    at: float
+
+
+@dataclass(frozen=True)
+class Curve:
+    """One column of the sweep: the output (NaN where the column has no solution), each
+    transistor's region per point (None there), its edges, and the gains."""
+
+    column: str
+    output: np.ndarray
+    regions: dict[str, tuple[str | None, ...]]
+    edges: dict[str, RegionEdges]
+    edge_method: str
+    gain_at_bias: float | None
+    largest_gain: GainPeak | None
+    failed_points: int = 0
+
+
+@dataclass(frozen=True)
+class ClosedFormEdges:
+    """The hand edges of a resistor-loaded common source in closed form, with the working.
+
+    ``gate_ratio`` and ``gate_offset`` give VG = gate_offset + gate_ratio·Vin.
+    """
+
+    device: str
+    cutoff_saturation: float
+    saturation_triode: float
+    gate_ratio: float
+    gate_offset: float
+    drain_resistor: str
+    drain_resistance: float
+    steps: tuple[Step, ...]
+
+
+@dataclass(frozen=True)
+class HandGainFormula:
+    """The hand small-signal gain at the bias point: −gm·(RD ∥ ro)·dVG/dVin."""
+
+    value: float
+    gm: float
+    ro: float  # math.inf in saturation, λ = 0
+    drain_resistance: float
+    gate_ratio: float
+    region: str
+    formula: str
+    steps: tuple[Step, ...]
+
+
+@dataclass(frozen=True)
+class Deviation:
+    """The largest |column − reference| over the sweep and where it is."""
+
+    volts: float
+    at: float
+
+
+@dataclass(frozen=True)
+class TransferCurve:
+    file: str
+    title: str
+    source: str
+    source_unit: str
+    output: str
+    x: np.ndarray
+    step: float
+    bias: float
+    devices: tuple[str, ...]
+    curves: dict[str, Curve | None]
+    simulator: tuple[str, str] | None
+    deviation: dict[str, Deviation | None]
+    deviation_reference: str | None
+    closed_form: dict[str, ClosedFormEdges] = field(default_factory=dict)
+    hand_gain: HandGainFormula | None = None
+    findings: tuple[Finding, ...] = ()
+
+    @property
+    def agree(self) -> bool:
+        """No error or warning: every column solved and level-1 matches ngspice."""
+        return not any(f.severity in {"error", "warning"} for f in self.findings)
+
+
+# --- arguments ------------------------------------------------------------------------------
+
+
+def independent_source(circuit: Circuit, name: str) -> Element:
+    """The independent V or I source called `name` (any case); SweepInputError otherwise."""
+    element = circuit.element(name)
+    sources = [e.name for e in circuit.elements if e.kind in ("vsource", "isource")]
+    if element is None:
+        listed = ", ".join(sources) or "none"
+        raise SweepInputError(f"no source named `{name}` in the netlist (independent sources: {listed})")
+    if element.kind not in ("vsource", "isource"):
+        raise SweepInputError(f"`{element.name}` is a {element.kind}, not an independent source: it cannot be swept")
+    return element
+
+
+def output_node(circuit: Circuit, name: str) -> str:
+    """The node called `name` (`v(name)` accepted), folded to lower case; SweepInputError otherwise."""
+    key = name.strip().lower()
+    if key.startswith("v(") and key.endswith(")"):
+        key = key[2:-1].strip()
+    key = GROUND if key == "gnd" else key
+    if key == GROUND:
+        raise SweepInputError("the output cannot be node 0: it is ground")
+    if key not in circuit.nodes():
+        nodes = ", ".join(circuit.nodes())
+        raise SweepInputError(f"no node named `{name}` in the netlist (nodes: {nodes})")
+    return key
+
+
+def _first_mosfet(circuit: Circuit) -> Element:
+    mosfets = circuit.elements_of("mosfet")
+    if not mosfets:
+        raise SweepInputError("the netlist has no MOSFET: the sweep follows a MOSFET stage")
+    return mosfets[0]
+
+
+def default_output(circuit: Circuit) -> str:
+    """The (first) MOSFET's drain node; its source node when a voltage source holds the drain
+    (a follower's output), since a held node does not move."""
+    mosfet = _first_mosfet(circuit)
+    drain, source = mosfet.nodes[0], mosfet.nodes[2]
+    held = _fixed_nodes(circuit)
+    if drain in held and source not in held:
+        return source
+    if drain == GROUND:
+        raise SweepInputError("the MOSFET's drain is ground: name the output with --output")
+    return drain
+
+
+def default_source(circuit: Circuit) -> str:
+    """The independent voltage source that drives the (first) MOSFET's gate at DC.
+
+    Found by walking from the gate through resistors and inductors (capacitors are open) to
+    the nodes voltage sources hold; the nearest wins, and a source that also feeds the drain
+    or source side only when nothing else reaches the gate.
+    """
+    mosfet = _first_mosfet(circuit)
+    drain, gate, source = mosfet.nodes[0], mosfet.nodes[1], mosfet.nodes[2]
+    held: dict[str, list[Element]] = {}
+    for element in circuit.elements_of("vsource"):
+        for node in element.nodes[:2]:
+            if node != GROUND:
+                held.setdefault(node, []).append(element)
+
+    def reached(start: str, stop: set[str]) -> list[Element]:
+        found: list[Element] = []
+        seen, frontier = {start} | stop, [start]
+        while frontier:
+            following: list[str] = []
+            for node in frontier:
+                if node in held:
+                    found.extend(e for e in held[node] if e not in found)
+                    continue
+                for element in circuit.elements:
+                    if element.kind in ("resistor", "inductor") and node in element.nodes[:2]:
+                        other = element.nodes[1] if element.nodes[0] == node else element.nodes[0]
+                        if other != GROUND and other not in seen:
+                            seen.add(other)
+                            following.append(other)
+            frontier = following
+        return found
+
+    if gate == GROUND:
+        raise SweepInputError(f"the gate of {mosfet.name} is grounded: name the source to sweep with --source")
+    candidates = reached(gate, set())
+    if not candidates:
+        raise SweepInputError(
+            f"no independent voltage source drives the gate of {mosfet.name} at DC: name one with --source"
+        )
+    supplies = {e.name for node in (drain, source) if node != GROUND for e in reached(node, {gate})}
+    preferred = [e for e in candidates if e.name not in supplies]
+    return (preferred or candidates)[0].name
+
+
+def supply_span(circuit: Circuit) -> float:
+    """The largest |V| of the independent voltage sources."""
+    return max((abs(e.value or 0.0) for e in circuit.elements_of("vsource")), default=0.0)
+
+
+def default_range(circuit: Circuit, source: str) -> tuple[float, float]:
+    """0 to the supply span for a voltage source; 0 to twice its own value for a current source."""
+    element = independent_source(circuit, source)
+    if element.kind == "isource":
+        top = 2.0 * abs(element.value or 0.0)
+        if top == 0.0:
+            raise SweepInputError(f"{element.name} is 0 A: give --start and --stop for the current sweep")
+        return 0.0, top
+    span = supply_span(circuit)
+    if span == 0.0:
+        raise SweepInputError("every independent voltage source is 0 V: give --start and --stop")
+    return 0.0, span
+
+
+def sweep_values(start: float, stop: float, *, step: float | None = None, points: int | None = None) -> np.ndarray:
+    """The grid ngspice's `.dc start stop step` visits: start + k·step up to stop.
+
+    Give `step` or `points` (default 201); SweepInputError for a zero step, one of the wrong
+    sign, fewer than 2 or more than MAX_POINTS points.
+    """
+    for name, value in (("--start", start), ("--stop", stop), ("--step", step)):
+        if value is not None and not math.isfinite(value):
+            raise SweepInputError(f"{name} must be a finite number, not {value}")
+    if step is not None and points is not None:
+        raise SweepInputError("give --step or --points, not both")
+    if step is not None:
+        if step == 0.0:
+            raise SweepInputError("--step must not be zero")
+        if start == stop:
+            return np.array([float(start)])
+        if (stop - start) * step < 0.0:
+            direction = "up" if stop > start else "down"
+            raise SweepInputError(
+                f"--step {step:g} goes the wrong way: from {start:g} {direction} to {stop:g} the step must be "
+                f"{'positive' if stop > start else 'negative'}"
+            )
+        intervals = (stop - start) / step
+        if intervals + 1 > MAX_POINTS:
+            raise SweepInputError(
+                f"the sweep would have {math.floor(intervals) + 1:,} points; at most {MAX_POINTS:,} are allowed"
+            )
+        # ngspice goes on while it has not passed stop by more than a rounding error.
+        count = math.floor(intervals * (1.0 + 1e-12) + 1e-9) + 1
+        return start + step * np.arange(count)
+    count = DEFAULT_POINTS if points is None else points
+    if count < 2:
+        raise SweepInputError(f"--points must be at least 2, not {count}")
+    if count > MAX_POINTS:
+        raise SweepInputError(f"--points {count:,} is more than the {MAX_POINTS:,} allowed")
+    if start == stop:
+        raise SweepInputError(f"--start and --stop are both {start:g}: nothing to sweep")
+    return np.linspace(start, stop, count)
+
+
+def grid_step(values: np.ndarray) -> float:
+    """The step of a grid from sweep_values (0 for a single point)."""
+    return float((values[-1] - values[0]) / (len(values) - 1)) if len(values) > 1 else 0.0
+
+
+def with_source_value(circuit: Circuit, source: str, value: float) -> Circuit:
+    """A copy of the circuit with one independent source's DC value replaced."""
+    wanted = source.lower()
+    elements = tuple(
+        replace(e, value=float(value)) if e.name.lower() == wanted and e.kind in ("vsource", "isource") else e
+        for e in circuit.elements
+    )
+    return replace(circuit, elements=elements)
+
+
+# --- one point of each model ----------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _DevicePoint:
+    """What an edge search needs of one device at one point (device polarity)."""
+
+    vov: float
+    channel: float  # |vds|: the device's own drain–source voltage, roles swapped when vds < 0
+    region: str
+
+    @property
+    def triode_margin(self) -> float:
+        """VDS − VOV: negative in triode, positive in saturation (and in cutoff)."""
+        return self.channel - self.vov
+
+
+def _indicator(boundary: str, point: _DevicePoint) -> float:
+    return point.vov if boundary == "cutoff_saturation" else point.triode_margin
+
+
+def _side(boundary: str, point: _DevicePoint) -> bool:
+    """Which side of a boundary: in cutoff (VOV ≤ 0), or in triode (VOV > 0, VDS < VOV)."""
+    if boundary == "cutoff_saturation":
+        return point.vov <= 0.0
+    return point.vov > 0.0 and point.triode_margin < 0.0
+
+
+class _HandModel:
+    """The hand model at any value of the swept source; `failure` keeps the last reason it gave none."""
+
+    def __init__(self, circuit: Circuit, source: str) -> None:
+        self.circuit = circuit
+        self.source = source
+        self.failure: str | None = None
+
+    def solve(self, value: float) -> HandSolution | None:
+        try:
+            return hand_analysis(with_source_value(self.circuit, self.source, value))
+        except (HandAnalysisError, np.linalg.LinAlgError) as exc:
+            self.failure = str(exc)
+            return None
+
+    @staticmethod
+    def device(solution: HandSolution, name: str) -> _DevicePoint:
+        d = solution.devices[name]
+        return _DevicePoint(d.vov, abs(d.vds), d.region)
+
+
+def _crossings(
+    x: np.ndarray,
+    points: Sequence[_DevicePoint | None],
+    refine: Callable[[str, int], float],
+) -> tuple[Crossing, ...]:
+    """Every region change between neighbouring solved grid points, each edge located by `refine`."""
+    found: list[Crossing] = []
+    for k in range(len(x) - 1):
+        here, there = points[k], points[k + 1]
+        if here is None or there is None:
+            continue
+        for boundary in BOUNDARIES:
+            if _side(boundary, here) != _side(boundary, there):
+                found.append(Crossing(boundary, refine(boundary, k), here.region, there.region))
+    return tuple(found)
+
+
+def _edges(crossings: tuple[Crossing, ...]) -> RegionEdges:
+    first = {b: next((c.at for c in crossings if c.boundary == b), None) for b in BOUNDARIES}
+    return RegionEdges(first["cutoff_saturation"], first["saturation_triode"], crossings)
+
+
+def _interpolated_edge(x: np.ndarray, values: Sequence[float], k: int) -> float:
+    """Where the straight line through two grid points crosses zero."""
+    f0, f1 = values[k], values[k + 1]
+    if f0 == f1:
+        return float(x[k])
+    return float(x[k] + (x[k + 1] - x[k]) * f0 / (f0 - f1))
+
+
+def _root(function: Callable[[float], float], a: float, b: float, fallback: float) -> float:
+    """Brent's method on [a, b]; the interpolated `fallback` if the model gives no value there."""
+    try:
+        fa, fb = function(a), function(b)
+        if fa == 0.0:
+            return a
+        if fb == 0.0:
+            return b
+        if fa * fb > 0.0:
+            return fallback
+        lo, hi = (a, b) if a < b else (b, a)
+        return float(brentq(function, lo, hi, xtol=EDGE_XTOL, rtol=4 * np.finfo(float).eps, maxiter=200))
+    except (ValueError, RuntimeError, DcSolveError, KeyError):
+        return fallback
+
+
+def _gradient(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """dy/dx at every point, second order inside and at the ends."""
+    return np.gradient(y, x, edge_order=2 if len(x) > 2 else 1)
+
+
+def _largest_gain(x: np.ndarray, y: np.ndarray) -> GainPeak | None:
+    if len(x) < 2 or not np.any(np.isfinite(y)):
+        return None
+    slope = _gradient(x, y)
+    magnitude = np.abs(slope)
+    if not np.any(np.isfinite(magnitude)):
+        return None
+    k = int(np.nanargmax(magnitude))
+    return GainPeak(float(slope[k]), float(x[k]))
+
+
+def _slope_from_curve(x: np.ndarray, y: np.ndarray, at: float) -> float | None:
+    """dVout/dVin at `at` from the curve: the derivative of the parabola through the three
+    grid points nearest to it (second order, also at the ends of the sweep)."""
+    count = len(x)
+    if count < 2 or not (min(x[0], x[-1]) <= at <= max(x[0], x[-1])):
+        return None
+    if count == 2:
+        value = float((y[1] - y[0]) / (x[1] - x[0]))
+        return value if math.isfinite(value) else None
+    nearest = int(np.argmin(np.abs(x - at)))
+    first = min(max(nearest - 1, 0), count - 3)
+    (x0, x1, x2), (y0, y1, y2) = x[first:first + 3], y[first:first + 3]
+    value = float(
+        y0 * ((at - x1) + (at - x2)) / ((x0 - x1) * (x0 - x2))
+        + y1 * ((at - x0) + (at - x2)) / ((x1 - x0) * (x1 - x2))
+        + y2 * ((at - x0) + (at - x1)) / ((x2 - x0) * (x2 - x1))
+    )
+    return value if math.isfinite(value) else None
+
+
+def _half_width(x: np.ndarray, bias: float) -> float:
+    """Half-width of the central difference at the bias point: GAIN_STEP of the sweep span."""
+    span = float(abs(x[-1] - x[0])) if len(x) > 1 else 0.0
+    return GAIN_STEP * (span if span > 0.0 else max(abs(bias), 1.0))
+
+
+# --- the hand column ------------------------------------------------------------------------
+
+
+def _hand_curve(
+    circuit: Circuit, source: str, output: str, x: np.ndarray, bias: float, devices: Sequence[str]
+) -> tuple[Curve | None, list[Finding], _HandModel]:
+    model = _HandModel(circuit, source)
+    solutions = [model.solve(float(value)) for value in x]
+    findings: list[Finding] = []
+    failed = sum(s is None for s in solutions)
+    if failed == len(solutions):
+        findings.append(Finding("warning", "hand-unavailable", f"hand analysis: {model.failure}"))
+        return None, findings, model
+    if failed:
+        first = next(float(v) for v, s in zip(x, solutions) if s is None)
+        findings.append(
+            Finding("warning", "hand-failed", f"the hand model has no solution at {failed} of {len(x)} points "
+                    f"(the first at {source} = {first:.6g})")
+        )
+    numeric = next((s for s in solutions if s is not None and not s.closed_form), None)
+    if numeric is not None:
+        findings.append(
+            Finding("info", "hand-numeric", f"hand analysis: {numeric.topology}; no closed form, the simplified "
+                    "model was solved numerically at each point")
+        )
+    output_values = np.array([s.node_voltages[output] if s is not None else math.nan for s in solutions])
+    regions: dict[str, tuple[str | None, ...]] = {}
+    edges: dict[str, RegionEdges] = {}
+    for name in devices:
+        points = [model.device(s, name) if s is not None else None for s in solutions]
+        regions[name] = tuple(p.region if p is not None else None for p in points)
+
+        def refine(boundary: str, k: int, name: str = name, points: list = points) -> float:
+            values = [_indicator(boundary, p) if p is not None else math.nan for p in points]
+            fallback = _interpolated_edge(x, values, k)
+
+            def indicator(value: float) -> float:
+                solution = model.solve(value)
+                if solution is None:
+                    raise ValueError("no hand solution")
+                return _indicator(boundary, model.device(solution, name))
+
+            return _root(indicator, float(x[k]), float(x[k + 1]), fallback)
+
+        edges[name] = _edges(_crossings(x, points, refine))
+
+    def vout(value: float) -> float:
+        solution = model.solve(value)
+        return solution.node_voltages[output] if solution is not None else math.nan
+
+    h = _half_width(x, bias)
+    gain = (vout(bias + h) - vout(bias - h)) / (2.0 * h)
+    curve = Curve(
+        "hand", output_values, regions, edges, EDGE_METHODS["hand"],
+        gain if math.isfinite(gain) else None, _largest_gain(x, output_values), failed,
+    )  # fmt: skip
+    return curve, findings, model
+
+
+# --- the level-1 column ---------------------------------------------------------------------
+
+
+def _level1_points(circuit: Circuit, source: str, x: np.ndarray) -> list[OperatingPoint | None]:
+    """The continuation sweep; if it stops at a point, each point on its own from the last.
+
+    Raises UnsupportedElement, InvalidElement or SingularCircuit: those hold at every point.
+    """
+    try:
+        return list(solve_dc_sweep(circuit, source, x))
+    except (UnsupportedElement, InvalidElement, SingularCircuit):
+        raise
+    except NoConvergence:
+        pass
+    solved: list[OperatingPoint | None] = []
+    guess: dict[str, float] | None = None
+    for value in x:
+        point: OperatingPoint | None = None
+        for start in (guess, None) if guess is not None else (None,):
+            try:
+                point = solve_operating_point(circuit, source_values={source: float(value)}, initial=start)
+                break
+            except NoConvergence:
+                continue
+        solved.append(point)
+        if point is not None:
+            guess = point.node_voltages
+    return solved
+
+
+def _level1_curve(
+    circuit: Circuit, source: str, output: str, x: np.ndarray, bias: float, devices: Sequence[str]
+) -> tuple[Curve | None, list[Finding]]:
+    findings: list[Finding] = []
+    try:
+        points = _level1_points(circuit, source, x)
+    except DcSolveError as exc:
+        findings.append(Finding("error", "solver-failed", f"level-1 solver: {exc}"))
+        return None, findings
+    failed = sum(p is None for p in points)
+    if failed == len(points):
+        findings.append(Finding("error", "solver-failed", "level-1 solver: no point of the sweep converged"))
+        return None, findings
+    if failed:
+        findings.append(Finding("error", "solver-failed", f"level-1 solver: no solution at {failed} of "
+                                f"{len(points)} points"))
+    caveats = next((p.caveats for p in points if p is not None), ())
+    findings.extend(Finding("info", "solver-caveat", caveat) for caveat in caveats)
+    output_values = np.array([p.voltage(output) if p is not None else math.nan for p in points])
+    regions: dict[str, tuple[str | None, ...]] = {}
+    edges: dict[str, RegionEdges] = {}
+
+    def device_point(point: OperatingPoint, name: str) -> _DevicePoint:
+        d = point.device(name)
+        return _DevicePoint(d.vov, abs(d.vds), d.region)
+
+    for name in devices:
+        device_points = [device_point(p, name) if p is not None else None for p in points]
+        regions[name] = tuple(p.region if p is not None else None for p in device_points)
+
+        def refine(boundary: str, k: int, name: str = name, device_points: list = device_points) -> float:
+            values = [_indicator(boundary, p) if p is not None else math.nan for p in device_points]
+            fallback = _interpolated_edge(x, values, k)
+            guess = points[k].node_voltages if points[k] is not None else None
+
+            def indicator(value: float) -> float:
+                solved = solve_operating_point(circuit, source_values={source: value}, initial=guess)
+                return _indicator(boundary, device_point(solved, name))
+
+            return _root(indicator, float(x[k]), float(x[k + 1]), fallback)
+
+        edges[name] = _edges(_crossings(x, device_points, refine))
+
+    gain: float | None = None
+    h = _half_width(x, bias)
+    nearest = points[int(np.argmin(np.abs(x - bias)))]
+    guess = nearest.node_voltages if nearest is not None else None
+    try:
+        above = solve_operating_point(circuit, source_values={source: bias + h}, initial=guess)
+        below = solve_operating_point(circuit, source_values={source: bias - h}, initial=guess)
+        gain = (above.voltage(output) - below.voltage(output)) / (2.0 * h)
+    except DcSolveError:
+        findings.append(Finding("warning", "solver-failed", "level-1 solver: no solution beside the bias point"))
+    curve = Curve(
+        "level1", output_values, regions, edges, EDGE_METHODS["level1"], gain,
+        _largest_gain(x, output_values), failed,
+    )  # fmt: skip
+    return curve, findings
+
+
+# --- the simulator column -------------------------------------------------------------------
+
+
+def _polarity(circuit: Circuit, element: Element) -> int:
+    card = circuit.model(element.model or "")
+    return -1 if card is not None and card.type.lower() == "pmos" else 1
+
+
+def sim_sweep_deck(circuit: Circuit, source: str, output: str, x: np.ndarray, with_devices: bool = True) -> SpiceDeck:
+    """The emitted deck of the sweep: the circuit, `.save` of the output (and each MOSFET's
+    vgs, vds, von) and one `.dc` card from the grid's first value, last value and step."""
+    element = independent_source(circuit, source)
+    step = grid_step(x) or 1.0
+    sweep = DcSweep(element.name, float(x[0]), float(x[-1]), step)
+    analysis = Analysis("dc", Origin(circuit.source_file, 0), (sweep,))
+    saves = sim_vectors(circuit, output) if with_devices else [f"v({output})"]
+    try:
+        return emit(circuit, analyses=[analysis], saves=saves)
+    except ValueError:
+        # A node name the .save card cannot carry: let ngspice keep everything instead.
+        return emit(circuit, analyses=[analysis], saves=["all", *saves[1:]])
+
+
+def sim_vectors(circuit: Circuit, output: str) -> list[str]:
+    """The vectors the sweep reads: V(output), and each MOSFET's vgs, vds and von."""
+    return [f"v({output})"] + [
+        f"@{m.name.lower()}[{q}]" for m in circuit.elements_of("mosfet") for q in DEVICE_SWEEP_VECTORS
+    ]
+
+
+def _device_regions(vov: np.ndarray, channel: np.ndarray) -> tuple[str | None, ...]:
+    """The level-1 module's region rule at every point (None where ngspice gave no number)."""
+    return tuple(
+        classify_region(o, c) if math.isfinite(o) and math.isfinite(c) else None
+        for o, c in zip(vov.tolist(), channel.tolist())
+    )
+
+
+def _interpolated_crossings(
+    x: np.ndarray, vov: np.ndarray, channel: np.ndarray, regions: Sequence[str | None]
+) -> tuple[Crossing, ...]:
+    """Every region change between neighbouring points, located by linear interpolation of
+    VOV (cutoff edge) or VDS − VOV (triode edge) between them."""
+    known = np.isfinite(vov) & np.isfinite(channel)
+    both = known[:-1] & known[1:]
+    margin = channel - vov
+    sides = {
+        "cutoff_saturation": (vov <= 0.0, vov),
+        "saturation_triode": ((vov > 0.0) & (margin < 0.0), margin),
+    }
+    found: list[tuple[int, int, Crossing]] = []
+    for order, (boundary, (side, indicator)) in enumerate(sides.items()):
+        for k in np.nonzero(both & (side[:-1] != side[1:]))[0].tolist():
+            at = _interpolated_edge(x, indicator, k)
+            found.append((k, order, Crossing(boundary, at, regions[k] or "", regions[k + 1] or "")))
+    return tuple(crossing for _, _, crossing in sorted(found, key=lambda item: item[:2]))
+
+
+def sim_curve(
+    circuit: Circuit,
+    session: NgspiceSession,
+    source: str,
+    output: str,
+    x: np.ndarray,
+    bias: float,
+    devices: Sequence[str],
+    timeout: float,
+) -> tuple[Curve | None, list[Finding]]:
+    """The ngspice column: one `.dc` through the worker, V(output) and each device's regions."""
+    findings: list[Finding] = []
+    deck = sim_sweep_deck(circuit, source, output, x)
+    wanted = sim_vectors(circuit, output)
+    try:
+        try:
+            result = session.run(deck, vectors=wanted, timeout=timeout)
+        except SimulationFailed as exc:
+            if "vectors not in plot" not in exc.message:
+                raise
+            # A device vector ngspice does not know: take what the plot has.
+            result = session.run(deck, timeout=timeout)
+    except SimulatorTimeout:
+        findings.append(Finding("error", "sim-timeout", f"ngspice did not answer within {timeout:g} s; "
+                                "the worker was restarted"))
+        return None, findings
+    except SimulationFailed as exc:
+        code = "sim-no-convergence" if exc.kind == "no_convergence" else "sim-failed"
+        findings.append(Finding("error", code, f"ngspice: {exc}"))
+        return None, findings
+    except SimulatorError as exc:
+        findings.append(Finding("error", "sim-crashed", f"ngspice worker failed: {exc}"))
+        return None, findings
+    findings.extend(Finding("info", "ngspice-says", message) for message in result.messages)
+    if output not in result:
+        findings.append(Finding("error", "sim-failed", f"ngspice gave no vector for V({output})"))
+        return None, findings
+    count = len(result[output])
+    if count != len(x):
+        # ngspice stepped once more or less than the grid (rounding at the stop value): its
+        # points are start + k·step all the same, so its curve is laid onto the grid.
+        findings.append(Finding("info", "sim-regridded", f"ngspice swept {count} points, the grid has {len(x)}: "
+                                "its curve was interpolated onto the grid"))
+
+    step = grid_step(x)
+
+    def on_grid(values: np.ndarray) -> np.ndarray:
+        values = np.asarray(values, dtype=float)
+        if len(values) == len(x):
+            return values
+        stepped = float(x[0]) + step * np.arange(len(values))
+        order = np.argsort(stepped)
+        return np.interp(x, stepped[order], values[order], left=math.nan, right=math.nan)
+
+    output_values = on_grid(result[output])
+    regions: dict[str, tuple[str | None, ...]] = {}
+    edges: dict[str, RegionEdges] = {}
+    for name in devices:
+        names = [f"@{name.lower()}[{q}]" for q in DEVICE_SWEEP_VECTORS]
+        if not all(vector in result for vector in names):
+            findings.append(Finding("warning", "sim-no-device", f"ngspice gave no vgs/vds/von for {name}: "
+                                    "its regions and edges are not known"))
+            continue
+        vgs, vds, von = (on_grid(result[vector]) for vector in names)
+        element = circuit.element(name)
+        assert element is not None
+        # As simulate_operating_point normalises them: von carries the type's sign; with
+        # vds < 0 the device runs with drain and source swapped.
+        vth = _polarity(circuit, element) * von
+        vov = np.where(vds < 0.0, vgs - vds - vth, vgs - vth)
+        channel = np.abs(vds)
+        regions[name] = _device_regions(vov, channel)
+        edges[name] = _edges(_interpolated_crossings(x, vov, channel, regions[name]))
+    gain = _slope_from_curve(x, output_values, bias)
+    if gain is None:
+        findings.append(Finding("info", "bias-outside-sweep", f"the bias point {source} = {bias:g} is outside the "
+                                "sweep: ngspice's gain there is not read from its curve"))
+    curve = Curve("sim", output_values, regions, edges, EDGE_METHODS["sim"], gain, _largest_gain(x, output_values))
+    return curve, findings
+
+
+# --- the closed form of the resistor-loaded common source -----------------------------------
+
+
+def _options(circuit: Circuit) -> dict[str, float | str | None]:
+    settings: dict[str, float | str | None] = {}
+    for directive in circuit.directives:
+        if directive.kind == "options":
+            settings.update(directive.settings)
+    return settings
+
+
+def _hand_constants(circuit: Circuit, mosfet: Element) -> tuple[float, float, int] | None:
+    """K = KP·W·M/Leff and Vt = VTO (device polarity) of the hand model, and the polarity."""
+    card = circuit.model(mosfet.model or "")
+    if card is None or card.type.lower() not in ("nmos", "pmos") or card.level != 1:
+        return None
+    options = _options(circuit)
+
+    def size(key: str, option: str, fallback: float) -> float:
+        value = mosfet.params.get(key, options.get(option, fallback))
+        return float(value) if isinstance(value, (int, float)) else fallback
+
+    try:
+        model = hand_model(Level1Model.from_card(card.type, card.params))
+        geometry = Level1Geometry(size("w", "defw", DEFAULT_W), size("l", "defl", DEFAULT_L), size("m", "", 1.0))
+        return beta(model, geometry), threshold(model, 0.0), model.polarity
+    except ValueError:
+        return None
+
+
+def _fixed_nodes(circuit: Circuit) -> set[str]:
+    """Nodes held by chains of voltage sources from ground."""
+    fixed = {GROUND}
+    pending = list(circuit.elements_of("vsource"))
+    progress = True
+    while progress:
+        progress = False
+        for element in list(pending):
+            plus, minus = element.nodes[0], element.nodes[1]
+            if plus in fixed or minus in fixed:
+                fixed |= {plus, minus}
+                pending.remove(element)
+                progress = True
+    return fixed
+
+
+@dataclass(frozen=True)
+class _CommonSource:
+    mosfet: Element
+    drain_resistor: Element
+    rail: str
+    k: float
+    vt: float
+    polarity: int
+
+
+def _resistor_loaded_common_source(circuit: Circuit) -> _CommonSource | None:
+    """One MOSFET, its source on a rail, its drain reaching only one resistor to a rail."""
+    mosfets = circuit.elements_of("mosfet")
+    if len(mosfets) != 1 or circuit.elements_of("inductor"):
+        return None
+    mosfet = mosfets[0]
+    drain, gate, source = mosfet.nodes[:3]
+    fixed = _fixed_nodes(circuit)
+    if drain in fixed or gate in (drain, source) or drain == source or source not in fixed:
+        return None
+    touching = [e for e in circuit.elements if e is not mosfet and e.kind != "capacitor" and drain in e.nodes]
+    if len(touching) != 1 or touching[0].kind != "resistor" or mosfet.nodes[1:].count(drain):
+        return None
+    resistor = touching[0]
+    rail = resistor.nodes[1] if resistor.nodes[0] == drain else resistor.nodes[0]
+    if rail not in fixed or "m" in resistor.params or not isinstance(resistor.value, float) or resistor.value <= 0.0:
+        return None
+    constants = _hand_constants(circuit, mosfet)
+    if constants is None:
+        return None
+    k, vt, polarity = constants
+    return _CommonSource(mosfet, resistor, rail, k, vt, polarity)
+
+
+def _difference(a: str, b: str) -> str:
+    """`a − b` as a designer writes it: no `− 0`, `−b` for `0 − b`."""
+    if b == "0":
+        return a
+    if a == "0":
+        return f"−{b}"
+    return f"{a} − {b}"
+
+
+def _offset_text(base: str, polarity: int, amount: str) -> str:
+    """The gate voltage at an edge: the source node's voltage plus (NMOS) or minus (PMOS) `amount`."""
+    if base == "0":
+        return amount if polarity > 0 else f"−{amount}"
+    return f"{base} {'+' if polarity > 0 else '−'} {amount}"
+
+
+def _rail_label(circuit: Circuit, node: str) -> str:
+    if node == GROUND:
+        return "0"
+    named = [e.name for e in circuit.elements_of("vsource") if node in e.nodes[:2] and GROUND in e.nodes[:2]]
+    return named[0] if named else f"V({node})"
+
+
+def _gate_ratio_words(circuit: Circuit, stage: _CommonSource, source: Element, ratio: float) -> str:
+    """How the gate follows the swept source, with the divider named when there is one."""
+    gate = stage.mosfet.nodes[1]
+    if gate in source.nodes[:2]:
+        return f"the gate is {source.name}'s own node: VG = {source.name}"
+    resistors = [e for e in circuit.elements_of("resistor") if gate in e.nodes[:2]]
+    others = [e for e in circuit.elements if gate in e.nodes and e.kind not in ("resistor", "capacitor")
+              and e is not stage.mosfet]  # fmt: skip
+    if len(resistors) == 2 and not others:
+        top = next((r for r in resistors if set(r.nodes[:2]) & set(source.nodes[:2]) - {GROUND}), None)
+        if top is not None:
+            bottom = resistors[1] if resistors[0] is top else resistors[0]
+            return (
+                f"divider {top.name}–{bottom.name}: dVG/d{source.name} = {bottom.name}/({top.name}+{bottom.name}) "
+                f"= {ratio:.6g}"
+            )
+    return f"the gate network is linear and draws no current: dVG/d{source.name} = {ratio:.6g}"
+
+
+def _closed_form(
+    circuit: Circuit, source: str, hand: _HandModel, x: np.ndarray
+) -> tuple[ClosedFormEdges | None, _CommonSource | None, float, float]:
+    """The hand edges of the resistor-loaded common source, or None where that form does not apply."""
+    stage = _resistor_loaded_common_source(circuit)
+    if stage is None:
+        return None, None, 0.0, 0.0
+    element = independent_source(circuit, source)
+    low, high = float(x[0]), float(x[-1])
+    if high == low:
+        high = low + 1.0
+    first, second = hand.solve(low), hand.solve(high)
+    if first is None or second is None:
+        return None, None, 0.0, 0.0
+    drain, gate, source_node = stage.mosfet.nodes[:3]
+    for node in (stage.rail, source_node):
+        if not math.isclose(first.node_voltages[node], second.node_voltages[node], rel_tol=1e-12, abs_tol=1e-12):
+            return None, None, 0.0, 0.0  # the swept source moves a rail: no closed form in it
+    ratio = (second.node_voltages[gate] - first.node_voltages[gate]) / (high - low)
+    offset = first.node_voltages[gate] - ratio * low
+    if abs(ratio) < 1e-12:
+        return None, None, 0.0, 0.0
+    p, k, vt = stage.polarity, stage.k, stage.vt
+    vs, rail_v = first.node_voltages[source_node], first.node_voltages[stage.rail]
+    span = p * (rail_v - vs)
+    if span <= 0.0:
+        return None, None, 0.0, 0.0
+    rd = float(stage.drain_resistor.value or 0.0)
+    name, rd_name = element.name, stage.drain_resistor.name
+    direct = math.isclose(ratio, 1.0, rel_tol=1e-12) and abs(offset) < 1e-12
+    rail, base = _rail_label(circuit, stage.rail), _rail_label(circuit, source_node)
+    # The designer's symbols: VSUP the voltage across drain resistor and channel, the drive VGS
+    # (VSG for a PMOS) written with the swept source when it is the gate.
+    supply = _difference(rail, base) if p > 0 else _difference(base, rail)
+    gate_symbol = name if direct else "VG"
+    drive = _difference(gate_symbol, base) if p > 0 else _difference(base, gate_symbol)
+    vds_name = "VDS" if p > 0 else "VSD"
+    vov = 2.0 * span / (1.0 + math.sqrt(1.0 + 2.0 * k * rd * span))
+    vg_edge = vs + p * (vt + vov)
+    vg_cut = vs + p * vt
+    edge = (vg_edge - offset) / ratio
+    cut = (vg_cut - offset) / ratio
+
+    def solved_for_input(vg: float, what: str) -> str:
+        if direct:
+            return f"{name} = {what} = {vg:.6g} V"
+        return f"VG = {what} = {vg:.6g} V → {name} = (VG − {offset:.6g} V)/{ratio:.6g} = {(vg - offset) / ratio:.6g} V"
+
+    steps = [
+        Step(
+            f"{stage.mosfet.name}: hand model (λ = γ = 0) K = KP·W·M/Leff = {engineering(k, 'A/V²')}, "
+            f"Vt = {vt:.6g} V" + (" (PMOS: device polarity)" if p < 0 else ""),
+            None, k, "A/V²",
+        ),
+        Step(
+            f"Gate: {_gate_ratio_words(circuit, stage, element, ratio)}",
+            f"VG = {name}" if direct else f"VG = {offset:.6g} V + {ratio:.6g}·{name}",
+        ),
+        Step(
+            f"Drain: {rd_name} = {engineering(rd, 'Ω')} to {rail}; in saturation {vds_name} = {supply} − "
+            f"(K/2)·VOV²·{rd_name}, and saturation ends where {vds_name} = VOV",
+            f"{supply} − (K/2)·({drive} − Vt)²·{rd_name} = {drive} − Vt",
+        ),
+        Step(
+            f"Solve (K·{rd_name}/2)·VOV² + VOV − VSUP = 0 for the positive root, VSUP = {supply} = {span:.6g} V",
+            f"VOV = 2·VSUP/(1 + √(1 + 2·K·{rd_name}·VSUP)) = {vov:.6g} V",
+            vov, "V",
+        ),
+        Step("Saturation → triode edge", solved_for_input(vg_edge, _offset_text(base, p, "(Vt + VOV)")), edge, "V"),
+        Step("Cutoff → saturation edge (VOV = 0)", solved_for_input(vg_cut, _offset_text(base, p, "Vt")), cut, "V"),
+    ]  # fmt: skip
+    lo, hi = min(float(x[0]), float(x[-1])), max(float(x[0]), float(x[-1]))
+    for label, value in (("saturation → triode", edge), ("cutoff → saturation", cut)):
+        if not lo <= value <= hi:
+            steps.append(Step(f"The {label} edge {value:.6g} V lies outside the sweep ({lo:g} … {hi:g})"))
+    closed = ClosedFormEdges(stage.mosfet.name, cut, edge, ratio, offset, rd_name, rd, tuple(steps))
+    return closed, stage, ratio, offset
+
+
+def _hand_gain_formula(
+    hand: _HandModel, stage: _CommonSource, ratio: float, output: str, bias: float, source: str
+) -> HandGainFormula | None:
+    """−gm·(RD ∥ ro)·dVG/dVin at the bias point; ro = ∞ in saturation (λ = 0), 1/gds in triode."""
+    if output != stage.mosfet.nodes[0]:
+        return None
+    solution = hand.solve(bias)
+    if solution is None:
+        return None
+    device = solution.devices[stage.mosfet.name]
+    rd = float(stage.drain_resistor.value or 0.0)
+    rd_name = stage.drain_resistor.name
+    ro = math.inf if device.gds == 0.0 else 1.0 / device.gds
+    load = rd if math.isinf(ro) else rd * ro / (rd + ro)
+    value = -device.gm * load * ratio
+    if device.region == "saturation":
+        why = f"saturation, λ = 0: ro = ∞, so RD ∥ ro = {rd_name}"
+    elif device.region == "triode":
+        why = f"triode: ro = 1/gds = 1/(K·(VOV − VDS)) = {engineering(ro, 'Ω')}"
+    else:
+        why = "cutoff: gm = 0"
+    formula = f"A = −gm·({rd_name} ∥ ro)·dVG/d{source}"
+    steps = (
+        Step(f"Hand small-signal gain at the bias point {source} = {bias:g}: {why}", formula),
+        Step(
+            "With the numbers",
+            f"A = −{engineering(device.gm, 'S')}·{engineering(load, 'Ω')}·{ratio:.6g} = {value:.6g}",
+            value, "V/V",
+        ),
+    )  # fmt: skip
+    return HandGainFormula(value, device.gm, ro, rd, ratio, device.region, formula, steps)
+
+
+# --- the whole sweep ------------------------------------------------------------------------
+
+
+def _deviation(x: np.ndarray, curve: Curve | None, reference: Curve | None) -> Deviation | None:
+    if curve is None or reference is None:
+        return None
+    difference = np.abs(curve.output - reference.output)
+    if not np.any(np.isfinite(difference)):
+        return None
+    k = int(np.nanargmax(difference))
+    return Deviation(float(difference[k]), float(x[k]))
+
+
+def transfer_curve(
+    circuit: Circuit,
+    source: str,
+    output: str,
+    values: Sequence[float] | np.ndarray,
+    session: NgspiceSession | None = None,
+    *,
+    sim_timeout: float = 10.0,
+    unavailable_hint: str | None = None,
+) -> TransferCurve:
+    """Sweep `source` through `values` and follow V(`output`) in the three columns.
+
+    Raises SweepInputError for an unknown source or node; a column that cannot be computed is
+    None, with a finding that says why.
+    """
+    element = independent_source(circuit, source)
+    output = output_node(circuit, output)
+    x = np.asarray(values, dtype=float)
+    if x.ndim != 1 or len(x) == 0:
+        raise SweepInputError("the sweep has no points")
+    devices = tuple(e.name for e in circuit.elements_of("mosfet"))
+    bias = float(element.value or 0.0)
+    findings: list[Finding] = [Finding("info", n.code, n.message, n.line) for n in circuit.notices]
+
+    hand, hand_findings, hand_model_at = _hand_curve(circuit, element.name, output, x, bias, devices)
+    findings += hand_findings
+    level1, level1_findings = _level1_curve(circuit, element.name, output, x, bias, devices)
+    findings += level1_findings
+
+    sim: Curve | None = None
+    simulator: tuple[str, str] | None = None
+    if session is None:
+        findings.append(Finding("info", "no-simulator", unavailable_hint or "ngspice not available"))
+    else:
+        try:
+            simulator = ("ngspice", session.version)
+        except SimulatorError as exc:
+            findings.append(Finding("error", "sim-crashed", f"ngspice worker failed: {exc}"))
+        else:
+            sim, sim_findings = sim_curve(circuit, session, element.name, output, x, bias, devices, sim_timeout)
+            findings += sim_findings
+
+    reference = sim if sim is not None else level1
+    reference_name = "sim" if sim is not None else ("level1" if level1 is not None else None)
+    deviation = {
+        "hand": _deviation(x, hand, reference),
+        "level1": _deviation(x, level1, sim) if sim is not None else None,
+    }
+    if sim is not None and level1 is not None:
+        worst = np.abs(level1.output - sim.output) - (SOLVER_RELATIVE * np.abs(sim.output) + SOLVER_FLOOR["V"])
+        if np.any(worst > 0.0):
+            k = int(np.nanargmax(worst))
+            findings.append(
+                Finding("warning", "solver-differs", f"V({output}): level-1 solver {level1.output[k]:.6g} V vs ngspice "
+                        f"{sim.output[k]:.6g} V at {element.name} = {x[k]:.6g} (beyond 0.2 % + 1 mV)")
+            )
+    for column, curve in (("hand", hand), ("level1", level1), ("sim", sim)):
+        for name, edges in (curve.edges.items() if curve is not None else ()):
+            for boundary in BOUNDARIES:
+                count = sum(c.boundary == boundary for c in edges.crossings)
+                if count > 1:
+                    findings.append(
+                        Finding("info", "several-crossings", f"{name} crosses the {boundary.replace('_', '–')} "
+                                f"boundary {count} times in the {column} column; the first is reported")
+                    )
+
+    closed: dict[str, ClosedFormEdges] = {}
+    hand_gain: HandGainFormula | None = None
+    if hand is not None:
+        form, stage, ratio, _ = _closed_form(circuit, element.name, hand_model_at, x)
+        if form is not None and stage is not None:
+            closed[form.device] = form
+            hand_gain = _hand_gain_formula(hand_model_at, stage, ratio, output, bias, element.name)
+    return TransferCurve(
+        file=circuit.source_file,
+        title=circuit.title,
+        source=element.name,
+        source_unit="V" if element.kind == "vsource" else "A",
+        output=output,
+        x=x,
+        step=grid_step(x),
+        bias=bias,
+        devices=devices,
+        curves={"hand": hand, "level1": level1, "sim": sim},
+        simulator=simulator,
+        deviation=deviation,
+        deviation_reference=reference_name,
+        closed_form=closed,
+        hand_gain=hand_gain,
+        findings=tuple(findings),
+    )

@@ -1,0 +1,263 @@
+"""How `biasbridge sweep` shows its result: a rich summary table, one JSON object, or CSV rows.
+
+Formatting only: every number here was computed by bridge.analysis.sweep.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+from rich.console import Group
+from rich.table import Table
+from rich.text import Text
+
+from ..analysis.hand import Step
+from ..analysis.sweep import BOUNDARIES, COLUMNS, TransferCurve
+from ..netlist.numbers import engineering
+
+COLUMN_TITLES = {"hand": "hand", "level1": "level-1", "sim": "ngspice"}
+BOUNDARY_TITLES = {"cutoff_saturation": "cutoff ↔ saturation", "saturation_triode": "saturation ↔ triode"}
+SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "info": "dim"}
+
+
+def _finite(value: float | None) -> float | None:
+    """JSON has no infinity or NaN: such a value is null."""
+    return float(value) if value is not None and math.isfinite(value) else None
+
+
+def _numbers(values: np.ndarray | None) -> list[float | None] | None:
+    return None if values is None else [_finite(float(v)) for v in values]
+
+
+def _quantity(value: float | None, unit: str) -> Text:
+    if value is None or not math.isfinite(value):
+        return Text("—", style="dim")
+    return Text(engineering(value, unit, digits=6))
+
+
+def _gain(value: float | None) -> Text:
+    if value is None or not math.isfinite(value):
+        return Text("—", style="dim")
+    return Text(f"{value:.5g}")
+
+
+def _sweep_line(result: TransferCurve) -> str:
+    unit = result.source_unit
+    x = result.x
+    step = f", step {engineering(result.step, unit)}" if len(x) > 1 else ""
+    return (
+        f"sweep {result.source} {engineering(float(x[0]), unit)} → {engineering(float(x[-1]), unit)}, "
+        f"{len(x)} points{step}; output V({result.output}); bias {result.source} = {engineering(result.bias, unit)}"
+    )
+
+
+def _dim(text: str = "—") -> Text:
+    return Text(text, style="dim")
+
+
+def _steps(title: str, steps: Sequence[Step]) -> list[Text]:
+    lines = [Text(title, style="bold")]
+    for number, step in enumerate(steps, start=1):
+        lines.append(Text(f"  {number:>2}. {step.text}"))
+        if step.equation:
+            lines.append(Text(f"      {step.equation}", style="cyan"))
+    return lines
+
+
+def sweep_renderable(result: TransferCurve, steps: bool = False) -> Group:
+    """The summary: deviations, region edges, gains; with `steps` the closed-form working."""
+    simulator = f"{result.simulator[0]} {result.simulator[1]}" if result.simulator else "no simulator"
+    header = Text.assemble((f"{result.file}", "bold"), f": {result.title}\n", _sweep_line(result),
+                           f"\nsimulator: {simulator}")  # fmt: skip
+    curves = result.curves
+    x_unit = result.source_unit
+    table = Table(title_justify="left")
+    table.add_column("quantity")
+    for column in COLUMNS:
+        table.add_column(COLUMN_TITLES[column], justify="right")
+
+    def row(label: str, cells: list[Text]) -> None:
+        table.add_row(Text(label), *cells)
+
+    reference = result.deviation_reference
+    found = [result.deviation.get(c) if c != reference else None for c in COLUMNS]
+    row(f"max |ΔV({result.output})| vs {COLUMN_TITLES.get(reference or '', '—')}",
+        [_quantity(d.volts, "V") if d else _dim() for d in found])  # fmt: skip
+    row(f"  at {result.source} =", [_quantity(d.at, x_unit) if d else _dim() for d in found])
+
+    for device in result.devices:
+        table.add_section()
+        for boundary in BOUNDARIES:
+            cells = []
+            for column in COLUMNS:
+                curve = curves[column]
+                edges = curve.edges.get(device) if curve is not None else None
+                if edges is None:
+                    cells.append(_dim())
+                elif edges.get(boundary) is None:
+                    cells.append(_dim("never"))
+                else:
+                    cells.append(_quantity(edges.get(boundary), x_unit))
+            row(f"{device} {BOUNDARY_TITLES[boundary]}", cells)
+            closed = result.closed_form.get(device)
+            if closed is not None:
+                row("  closed form", [_quantity(getattr(closed, boundary), x_unit), Text(""), Text("")])
+
+    table.add_section()
+    row("gain at the bias point", [_gain(curves[c].gain_at_bias) if curves[c] else _dim() for c in COLUMNS])
+    if result.hand_gain is not None:
+        row("  hand −gm·(RD ∥ ro)·dVG/dVin", [_gain(result.hand_gain.value), Text(""), Text("")])
+    peaks = [curves[c].largest_gain if curves[c] else None for c in COLUMNS]
+    row("largest |gain|", [_gain(p.gain) if p else _dim() for p in peaks])
+    row(f"  at {result.source} =", [_quantity(p.at, x_unit) if p else _dim() for p in peaks])
+
+    parts: list[Any] = [header, table]
+    parts += [_dim(f"{COLUMN_TITLES[c]} edges: {curves[c].edge_method}") for c in COLUMNS if curves[c] is not None]
+    if result.hand_gain is not None:
+        gain = result.hand_gain
+        ro = "ro = ∞ (λ = 0), so it is −gm·RD·dVG/dVin" if math.isinf(gain.ro) else (
+            f"ro = 1/gds = {engineering(gain.ro, 'Ω')} ({gain.region})")
+        parts.append(_dim(f"hand small-signal gain −gm·(RD ∥ ro)·dVG/dVin: {ro}"))
+    if steps:
+        for device, closed in result.closed_form.items():
+            parts += _steps(f"{device}: region edges in closed form (resistor-loaded common source)", closed.steps)
+        if result.hand_gain is not None:
+            parts += _steps("Hand small-signal gain", result.hand_gain.steps)
+        if not result.closed_form:
+            parts.append(_dim("No closed form for these edges (it covers one MOSFET with its source on a rail and "
+                              "one drain resistor, swept at the gate): they were found by root-finding"))  # fmt: skip
+    for finding in result.findings:
+        where = f"line {finding.line}: " if finding.line else ""
+        parts.append(Text(f"{finding.severity}: {where}{finding.message} [{finding.code}]",
+                          style=SEVERITY_STYLE.get(finding.severity, "")))  # fmt: skip
+    if not result.agree:
+        verdict = "problems flagged above"
+    elif curves["sim"] is None:
+        verdict = "hand and level-1 solved at every point; no ngspice column"
+    else:
+        verdict = "every column solved; level-1 and ngspice agree"
+    parts.append(Text(f"→ {verdict}", style="bold green" if result.agree else "bold red"))
+    return Group(*parts)
+
+
+def _json_safe(value: Any) -> Any:
+    """Every NaN or infinity, however deep, as null: JSON has neither."""
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {key: _json_safe(item) for key, item in value.items()}
+    if isinstance(value, list):
+        return [_json_safe(item) for item in value]
+    return value
+
+
+def sweep_json(result: TransferCurve) -> dict[str, Any]:
+    """The `sweep --json` object: every number finite or null."""
+    return _json_safe(_sweep_document(result))
+
+
+def _sweep_document(result: TransferCurve) -> dict[str, Any]:
+    curves = result.curves
+
+    def per_column(get) -> dict[str, Any]:
+        return {column: (get(curves[column]) if curves[column] is not None else None) for column in COLUMNS}
+
+    boundaries: dict[str, Any] = {}
+    regions: dict[str, Any] = {}
+    for device in result.devices:
+        boundaries[device] = per_column(
+            lambda curve, device=device: (
+                {b: _finite(curve.edges[device].get(b)) for b in BOUNDARIES} if device in curve.edges else None
+            )
+        )
+        regions[device] = per_column(
+            lambda curve, device=device: list(curve.regions[device]) if device in curve.regions else None
+        )
+    hand_gain = result.hand_gain
+    gain = {
+        "bias": _finite(result.bias),
+        **per_column(lambda curve: _finite(curve.gain_at_bias)),
+        "largest": per_column(
+            lambda curve: {"gain": curve.largest_gain.gain, "at": curve.largest_gain.at} if curve.largest_gain else None
+        ),
+        "hand_small_signal": None
+        if hand_gain is None
+        else {
+            "value": hand_gain.value,
+            "formula": hand_gain.formula,
+            "gm": hand_gain.gm,
+            "ro": _finite(hand_gain.ro),
+            "drain_resistance": hand_gain.drain_resistance,
+            "gate_ratio": hand_gain.gate_ratio,
+            "region": hand_gain.region,
+        },
+    }
+    return {
+        "file": result.file,
+        "title": result.title,
+        "source": result.source,
+        "unit": result.source_unit,
+        "output": result.output,
+        "step": _finite(result.step),
+        "x": _numbers(result.x),
+        **{column: (_numbers(curves[column].output) if curves[column] is not None else None) for column in COLUMNS},
+        "regions": regions,
+        "boundaries": boundaries,
+        "edge_methods": per_column(lambda curve: curve.edge_method),
+        "closed_form": {
+            device: {
+                "cutoff_saturation": _finite(closed.cutoff_saturation),
+                "saturation_triode": _finite(closed.saturation_triode),
+                "gate_ratio": closed.gate_ratio,
+                "gate_offset": closed.gate_offset,
+                "drain_resistor": closed.drain_resistor,
+                "steps": [str(step) for step in closed.steps],
+            }
+            for device, closed in result.closed_form.items()
+        },
+        "gain": gain,
+        "deviation": {
+            "reference": result.deviation_reference,
+            **{
+                column: ({"volts": found.volts, "at": found.at} if (found := result.deviation.get(column)) else None)
+                for column in ("hand", "level1")
+            },
+        },
+        "simulator": {"name": result.simulator[0], "version": result.simulator[1]} if result.simulator else None,
+        "findings": [
+            {"severity": f.severity, "code": f.code, "message": f.message, "line": f.line, "subject": f.subject}
+            for f in result.findings
+        ],
+        "agree": result.agree,
+    }
+
+
+def _cell(value: float | None) -> str:
+    return "" if value is None or not math.isfinite(value) else repr(float(value))
+
+
+def sweep_csv(result: TransferCurve) -> str:
+    """One row per point: x, the three outputs, then each transistor's region in each column."""
+    curves = result.curves
+    header: list[str] = ["x", *COLUMNS]
+    region_columns: list[tuple[str, str]] = [(device, column) for device in result.devices for column in COLUMNS]
+    header += [f"region_{device}_{column}" for device, column in region_columns]
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow(header)
+    for k, x in enumerate(result.x):
+        row: list[str] = [_cell(float(x))]
+        for column in COLUMNS:
+            curve = curves[column]
+            row.append(_cell(float(curve.output[k])) if curve is not None else "")
+        for device, column in region_columns:
+            curve = curves[column]
+            regions: Sequence[str | None] = curve.regions.get(device, ()) if curve is not None else ()
+            row.append((regions[k] or "") if k < len(regions) else "")
+        writer.writerow(row)
+    return buffer.getvalue()

@@ -1,0 +1,126 @@
+"""The speed goals of `biasbridge sweep`, measured (not asserted in the test suite).
+
+Each goal line prints the measurement, the goal and whether it is met; lines without a goal
+are context. Exit status 1 when a goal is missed.
+
+* a 1001-point level-1 sweep (solve_dc_sweep, each point started from the last) in under 50 ms;
+* the ngspice column costs no more than the same `.dc` run in the worker plus 20 %: "the same
+  `.dc`" is the deck the sweep emits (same `.save` vectors) run through the same worker with
+  nothing done to its answer; "ours" is sim_curve, the run plus everything the sweep extracts
+  (regions, edges, gains).
+"""
+
+from __future__ import annotations
+
+import shutil
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from collections.abc import Callable
+from pathlib import Path
+
+from bridge.analysis.dcsolve import solve_dc_sweep
+from bridge.analysis.sweep import sim_curve, sim_sweep_deck, sim_vectors, sweep_values
+from bridge.netlist import parse_netlist
+from bridge.sim.client import NgspiceSession, ngspice_available
+
+# A divider-biased common source with LAMBDA and GAMMA, swept at the gate through all three regions.
+STAGE = """\
+Bench: common source, VIN through a divider, all three regions
+VDD vdd 0 5
+VIN in 0 2.4
+R1 in g 100k
+R2 g 0 100k
+RD vdd d 10k
+M1 d g 0 0 nch w=20u l=2u
+.model nch nmos (vto=0.7 kp=120u lambda=0.02 gamma=0.4 phi=0.65)
+"""
+POINTS = 1001
+
+
+def median_seconds(action: Callable[[], object], repeat: int) -> float:
+    samples = []
+    for _ in range(repeat):
+        start = time.perf_counter()
+        action()
+        samples.append(time.perf_counter() - start)
+    return statistics.median(samples)
+
+
+def report(name: str, value: float, goal: float | None, unit: str = "ms") -> bool:
+    if goal is None:
+        print(f"{name:<60} {value:9.3f} {unit}")
+        return True
+    ok = value <= goal
+    print(f"{name:<60} {value:9.3f} {unit}   goal ≤ {goal:g} {unit}   {'ok' if ok else 'MISSED'}")
+    return ok
+
+
+def level1_goal() -> bool:
+    circuit = parse_netlist(STAGE, "bench.cir")
+    values = sweep_values(0.0, 5.0, points=POINTS)
+    solve_dc_sweep(circuit, "VIN", values)  # warm-up: imports, first-call costs
+    seconds = median_seconds(lambda: solve_dc_sweep(circuit, "VIN", values), 7)
+    return report(f"level-1 sweep, {POINTS} points (median of 7)", seconds * 1e3, 50.0)
+
+
+def ngspice_batch_seconds(folder: Path, deck_text: str, repeat: int) -> float:
+    """`ngspice -b` on the emitted deck with a `.print dc` card (without one, batch mode runs
+    nothing), minus the same process on a 1-point `.dc`: its compute and print time."""
+    lines = [line for line in deck_text.splitlines() if line.strip().lower() != ".end"]
+    output = next(line.split()[1] for line in lines if line.startswith(".save"))
+    full = folder / "full.cir"
+    single = folder / "single.cir"
+    full.write_text("\n".join(lines + [f".print dc {output}", ".end"]) + "\n")
+    single_lines = [".dc VIN 0 0 1" if line.startswith(".dc") else line for line in lines]
+    single.write_text("\n".join(single_lines + [f".print dc {output}", ".end"]) + "\n")
+
+    def batch(path: Path) -> Callable[[], object]:
+        return lambda: subprocess.run(["ngspice", "-b", str(path)], capture_output=True, check=False)
+
+    return median_seconds(batch(full), repeat) - median_seconds(batch(single), repeat)
+
+
+def sim_goal() -> bool:
+    available, hint = ngspice_available()
+    if not available:
+        print(f"{'ngspice column':<60} skipped: {hint}")
+        return True
+    circuit = parse_netlist(STAGE, "bench.cir")
+    values = sweep_values(0.0, 5.0, points=POINTS)
+    deck = sim_sweep_deck(circuit, "VIN", "d", values)
+    bare = sim_sweep_deck(circuit, "VIN", "d", values, with_devices=False)
+    wanted = sim_vectors(circuit, "d")
+    runs = {"ours": [], "same": [], "bare": []}
+    with NgspiceSession() as session:
+        session.run(deck)  # start the worker
+        for _ in range(31):  # interleaved, so that load on the machine hits all three alike
+            for name, action in (
+                ("ours", lambda: sim_curve(circuit, session, "VIN", "d", values, 2.4, ("M1",), 30.0)),
+                ("same", lambda: session.run(deck, vectors=wanted, timeout=30.0)),
+                ("bare", lambda: session.run(bare, vectors=["v(d)"], timeout=30.0)),
+            ):
+                start = time.perf_counter()
+                action()
+                runs[name].append(time.perf_counter() - start)
+    ours, same, bare_seconds = (statistics.median(runs[name]) for name in ("ours", "same", "bare"))
+    report(f"ngspice .dc, {POINTS} points, in the worker (V(out) only)", bare_seconds * 1e3, None)
+    report("  the same .dc with vgs, vds, von of M1 saved", same * 1e3, None)
+    report("  the ngspice column (that .dc and our extraction)", ours * 1e3, None)
+    if shutil.which("ngspice"):
+        with tempfile.TemporaryDirectory() as folder:
+            batch = ngspice_batch_seconds(Path(folder), deck.text, 11)
+        report("  context: ngspice -b, that .dc printed, minus its start-up", batch * 1e3, None)
+    overhead = (ours / same - 1.0) * 100.0
+    return report("ngspice column over the same .dc in the worker", overhead, 20.0, "%")
+
+
+def main() -> int:
+    results = [level1_goal(), sim_goal()]
+    return 0 if all(results) else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,343 @@
+"""`biasbridge sweep`: the transfer curve in three columns, region edges, gains, outputs.
+
+The edges are checked against closed forms written out here, the ngspice column against
+ngspice run directly, and the files against what was asked of them.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+import struct
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from bridge import cli
+from bridge.analysis.sweep import (
+    default_output,
+    default_source,
+    sweep_values,
+    transfer_curve,
+)
+from bridge.netlist import parse_netlist, read_netlist
+from bridge.sim.client import ngspice_available
+from tests.conftest import EXAMPLES, NGSPICE
+
+AVAILABLE, HINT = ngspice_available()
+needs_library = pytest.mark.skipif(not AVAILABLE, reason=HINT)
+needs_ngspice_binary = pytest.mark.skipif(NGSPICE is None or not AVAILABLE, reason="ngspice is not installed")
+
+# Resistor-loaded common source, gate driven by VIN through a divider; λ = γ = 0 so that the
+# level-1 model is the hand model (but for picoamp junction leakage).
+DIVIDER_CS = """\
+Common source, VIN through a divider to the gate
+VDD vdd 0 5
+VIN in 0 2.4
+R1 in g 100k
+R2 g 0 100k
+RD vdd d 10k
+M1 d g 0 0 nch w=20u l=2u
+.model nch nmos (vto=0.7 kp=120u)
+"""
+# PMOS common source: source on VDD, gate driven straight by VIN, drain resistor to ground.
+PMOS_CS = """\
+PMOS common source driven at the gate
+VDD vdd 0 5
+VIN g 0 2.5
+RD d 0 8k
+M1 d g vdd vdd pch w=40u l=2u
+.model pch pmos (vto=-0.8 kp=50u)
+"""
+# A follower into a resistor: VDS = VDD − VS stays above VOV for every VIN ≤ VDD + Vt.
+FOLLOWER = """\
+NMOS source follower into a resistor
+VDD vdd 0 5
+VIN g 0 2.5
+M1 vdd g out 0 nch w=30u l=1.5u
+RS out 0 10k
+.model nch nmos (vto=0.7 kp=120u lambda=0.02)
+"""
+
+
+@pytest.fixture(scope="module")
+def session(ngspice_session):
+    return ngspice_session
+
+
+def divider_edges() -> tuple[float, float, float]:
+    """Cutoff and triode edges in VIN, and K, by hand: VG = r·VIN with r = R2/(R1+R2);
+    VOV = 0 at the cutoff edge; VDD − (K/2)·VOV²·RD = VOV at the triode edge."""
+    k = 120e-6 * 20e-6 / 2e-6
+    vt, vdd, rd, ratio = 0.7, 5.0, 10e3, 100e3 / 200e3
+    vov = (-1.0 + math.sqrt(1.0 + 2.0 * k * rd * vdd)) / (k * rd)
+    return vt / ratio, (vt + vov) / ratio, k
+
+
+# --- edges ------------------------------------------------------------------------------------
+
+
+def test_edges_of_the_divider_common_source_match_the_closed_form(session):
+    circuit = parse_netlist(DIVIDER_CS, "divider.cir")
+    cutoff, triode, _ = divider_edges()
+    result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, step=0.05), session)
+    for column in ("hand", "level1"):
+        edges = result.curves[column].edges["M1"]
+        tolerance = 1e-9 if column == "hand" else 1e-6  # level-1: GMIN and junction leakage
+        assert edges.cutoff_saturation == pytest.approx(cutoff, abs=tolerance)
+        assert edges.saturation_triode == pytest.approx(triode, abs=tolerance)
+    closed = result.closed_form["M1"]
+    assert closed.cutoff_saturation == pytest.approx(cutoff, abs=1e-12)
+    assert closed.saturation_triode == pytest.approx(triode, abs=1e-12)
+    assert closed.gate_ratio == pytest.approx(0.5, abs=1e-12)
+    if session is not None:
+        sim = result.curves["sim"].edges["M1"]
+        # VOV is linear in VIN: interpolation finds the cutoff edge exactly.
+        assert sim.cutoff_saturation == pytest.approx(cutoff, abs=1e-6)
+        # VDS − VOV bends at the triode edge: the interpolation is good to a fraction of the step.
+        assert sim.saturation_triode == pytest.approx(triode, abs=0.25 * 0.05)
+
+
+def test_hand_and_level1_edges_do_not_depend_on_the_step():
+    circuit = parse_netlist(DIVIDER_CS, "divider.cir")
+    cutoff, triode, _ = divider_edges()
+    for points in (7, 301):
+        result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, points=points))
+        assert result.curves["hand"].edges["M1"].saturation_triode == pytest.approx(triode, abs=1e-9)
+        assert result.curves["level1"].edges["M1"].cutoff_saturation == pytest.approx(cutoff, abs=1e-6)
+
+
+def test_hand_gain_at_the_bias_point_is_minus_gm_rd_times_the_divider_ratio(session):
+    circuit = parse_netlist(DIVIDER_CS, "divider.cir")
+    _, _, k = divider_edges()
+    vov = 0.5 * 2.4 - 0.7  # bias VIN = 2.4 V: VG = 1.2 V, saturation
+    expected = -k * vov * 10e3 * 0.5  # −gm·RD·r, ro = ∞ for λ = 0
+    result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, step=0.025), session)
+    assert result.hand_gain is not None and math.isinf(result.hand_gain.ro)
+    assert result.hand_gain.value == pytest.approx(expected, rel=1e-12)
+    assert result.curves["hand"].gain_at_bias == pytest.approx(expected, rel=1e-6)
+    assert result.curves["level1"].gain_at_bias == pytest.approx(expected, rel=1e-4)
+    if session is not None:
+        assert result.curves["sim"].gain_at_bias == pytest.approx(expected, rel=1e-3)
+    # The steepest point of the curve is the saturation edge: −K·VOV·RD·r there.
+    _, triode, _ = divider_edges()
+    largest = result.curves["hand"].largest_gain
+    assert abs(largest.at - triode) <= 2 * 0.025  # read from the curve: to the grid
+    assert largest.gain == pytest.approx(-k * (0.5 * triode - 0.7) * 10e3 * 0.5, rel=0.05)
+
+
+def test_pmos_stage_turns_on_as_the_input_falls(session):
+    circuit = parse_netlist(PMOS_CS, "pmos.cir")
+    k = 50e-6 * 40e-6 / 2e-6
+    vt, vdd, rd = 0.8, 5.0, 8e3
+    vov = (-1.0 + math.sqrt(1.0 + 2.0 * k * rd * vdd)) / (k * rd)  # VSD = VDD − (K/2)·VOV²·RD = VOV
+    triode, cutoff = vdd - vt - vov, vdd - vt  # VSG = VDD − VIN
+    assert default_source(circuit) == "VIN" and default_output(circuit) == "d"
+    result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, step=0.05), session)
+    columns = ("hand", "level1") + (("sim",) if session is not None else ())
+    for column in columns:
+        curve = result.curves[column]
+        assert curve.regions["M1"][0] == "triode" and curve.regions["M1"][-1] == "cutoff"
+        assert curve.output[0] > 4.0 and abs(curve.output[-1]) < 1e-6
+        crossings = curve.edges["M1"].crossings
+        assert [(c.before, c.after) for c in crossings] == [("triode", "saturation"), ("saturation", "cutoff")]
+    hand = result.curves["hand"].edges["M1"]
+    assert hand.saturation_triode == pytest.approx(triode, abs=1e-9)
+    assert hand.cutoff_saturation == pytest.approx(cutoff, abs=1e-9)
+    assert result.curves["level1"].edges["M1"].saturation_triode == pytest.approx(triode, abs=1e-6)
+    assert result.closed_form["M1"].saturation_triode == pytest.approx(triode, abs=1e-12)
+
+
+def test_sweeping_vdd_of_the_bundled_divider_stage(session):
+    circuit = read_netlist(EXAMPLES / "cs_divider.cir")
+    assert default_source(circuit) == "VDD"  # VIN reaches the gate only through CIN
+    result = transfer_curve(circuit, "VDD", "drain", sweep_values(0.0, 15.0, step=0.1), session)
+    # VG = r·VDD, r = 120k/450k; cutoff where r·VDD = Vt (bulk on the source: no body effect).
+    ratio, vt, k, rd = 120 / 450, 0.7, 120e-6 * 20e-6 / 2e-6, 10e3
+    cutoff = vt / ratio
+    # Triode where VDD − (K/2)·(r·VDD − Vt)²·RD = r·VDD − Vt: a quadratic in VDD,
+    # (K·RD/2)·r²·V² − (K·RD·r·Vt + 1 − r)·V + (K·RD/2)·Vt² − Vt = 0; the root above the cutoff edge.
+    a = 0.5 * k * rd * ratio**2
+    b = -(k * rd * ratio * vt + 1.0 - ratio)
+    c = 0.5 * k * rd * vt**2 - vt
+    triode = (-b + math.sqrt(b * b - 4 * a * c)) / (2 * a)
+    assert triode > cutoff
+    hand = result.curves["hand"].edges["M1"]
+    assert hand.cutoff_saturation == pytest.approx(cutoff, abs=1e-9)
+    assert hand.saturation_triode == pytest.approx(triode, abs=1e-9)
+    assert result.curves["level1"].edges["M1"].cutoff_saturation == pytest.approx(cutoff, abs=1e-6)
+    # λ = 0.02 moves the level-1 triode edge, a little.
+    assert result.curves["level1"].edges["M1"].saturation_triode == pytest.approx(triode, abs=0.2)
+    assert result.closed_form == {}  # the swept source moves the drain rail: no closed form in VIN terms
+    if session is not None:
+        assert result.curves["sim"].edges["M1"].cutoff_saturation == pytest.approx(cutoff, abs=1e-6)
+        assert result.deviation["level1"].volts < 2e-3
+
+
+def test_a_follower_never_reaches_triode_and_the_edge_is_null(session):
+    circuit = parse_netlist(FOLLOWER, "follower.cir")
+    assert default_output(circuit) == "out"  # the drain sits on VDD
+    result = transfer_curve(circuit, "VIN", "out", sweep_values(0.0, 5.0, step=0.05), session)
+    from bridge.report.sweep_view import sweep_json
+
+    document = sweep_json(result)
+    for column in ("hand", "level1") + (("sim",) if session is not None else ()):
+        assert document["boundaries"]["M1"][column]["saturation_triode"] is None
+        assert document["boundaries"]["M1"][column]["cutoff_saturation"] == pytest.approx(0.7, abs=1e-6)
+    assert 0.0 < result.curves["level1"].gain_at_bias < 1.0
+
+
+def test_a_stage_that_never_leaves_cutoff_has_no_edges():
+    circuit = parse_netlist(DIVIDER_CS, "divider.cir")
+    result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 1.0, step=0.1))
+    for column in ("hand", "level1"):
+        edges = result.curves[column].edges["M1"]
+        assert edges.cutoff_saturation is None and edges.saturation_triode is None
+        assert set(result.curves[column].regions["M1"]) == {"cutoff"}
+
+
+# --- the ngspice column against ngspice itself -------------------------------------------------
+
+_PRINTED_ROW = re.compile(r"^(\d+)\s+(\S+)\s+(\S+)\s*$")
+
+
+@needs_ngspice_binary
+def test_sim_curve_matches_ngspice_run_directly(tmp_path, session):
+    netlist = tmp_path / "divider_dc.cir"
+    netlist.write_text(DIVIDER_CS + ".dc VIN 0 5 0.05\n.print dc v(d)\n.end\n")
+    # reference: ngspice 39 run directly in batch mode
+    completed = subprocess.run([NGSPICE, "-b", str(netlist)], capture_output=True, text=True, timeout=60)
+    printed = {}
+    for line in completed.stdout.splitlines():
+        match = _PRINTED_ROW.match(line)
+        if match:
+            printed[int(match.group(1))] = (float(match.group(2)), float(match.group(3)))
+    assert len(printed) == 101, completed.stdout[-2000:]
+    result = transfer_curve(read_netlist(netlist), "VIN", "d", sweep_values(0.0, 5.0, step=0.05), session)
+    sim = result.curves["sim"].output
+    for index, (sweep, vout) in printed.items():
+        assert result.x[index] == pytest.approx(sweep, abs=1e-9)
+        assert sim[index] == pytest.approx(vout, rel=2e-6, abs=1e-9)  # .print shows 7 digits
+
+
+# --- the command ------------------------------------------------------------------------------
+
+
+def run(argv, capsys) -> tuple[int, str, str]:
+    status = cli.main(["sweep", *argv])
+    captured = capsys.readouterr()
+    return status, captured.out, captured.err
+
+
+@pytest.fixture
+def divider_file(tmp_path) -> Path:
+    path = tmp_path / "divider.cir"
+    path.write_text(DIVIDER_CS + ".op\n.end\n")
+    return path
+
+
+@pytest.mark.parametrize(
+    ("extra", "says"),
+    [
+        (["--source", "VX"], "no source named `VX`"),
+        (["--source", "R1"], "not an independent source"),
+        (["--output", "nowhere"], "no node named `nowhere`"),
+        (["--step", "0"], "must not be zero"),
+        (["--start", "0", "--stop", "5", "--step=-0.1"], "wrong way"),
+        (["--start", "5", "--stop", "0", "--step", "0.1"], "wrong way"),
+        (["--step", "1u"], "at most 100,000"),
+        (["--points", "100001"], "100,000"),
+        (["--points", "1"], "at least 2"),
+        (["--points", "11", "--step", "0.1"], "not both"),
+        (["--step", "ten"], "not a number"),
+        (["--plot", "curve.pdf"], ".png or .svg"),
+    ],
+)
+def test_bad_arguments_exit_2_with_one_line(divider_file, capsys, extra, says):
+    status, out, err = run([str(divider_file), *extra], capsys)
+    assert status == 2
+    assert out == ""
+    assert len(err.strip().splitlines()) == 1 and says in err
+
+
+def test_an_output_path_equal_to_the_input_is_refused(divider_file, capsys):
+    before = divider_file.read_bytes()
+    for option in ("--csv", "--plot"):
+        target = divider_file if option == "--csv" else divider_file.with_suffix(".png")
+        if option == "--plot":
+            # the same file reached through another name is refused too
+            target.symlink_to(divider_file)
+        status, _, err = run([str(divider_file), option, str(target)], capsys)
+        assert status == 2 and "input netlist" in err
+    assert divider_file.read_bytes() == before
+
+
+def _png_size(data: bytes) -> tuple[int, int]:
+    assert data[:8] == b"\x89PNG\r\n\x1a\n" and data[12:16] == b"IHDR"
+    return struct.unpack(">II", data[16:24])
+
+
+@needs_library
+def test_plot_csv_and_json_are_written_whole(divider_file, tmp_path, capsys):
+    png, csv_path = tmp_path / "curve.png", tmp_path / "curve.csv"
+    status, out, err = run(
+        [str(divider_file), "--points", "51", "--plot", str(png), "--csv", str(csv_path), "--json"], capsys
+    )
+    assert status == 0, err
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["curve.csv", "curve.png", "divider.cir"]  # no temp files
+    assert _png_size(png.read_bytes()) == (800, 500)
+    rows = csv_path.read_text().splitlines()
+    assert rows[0] == "x,hand,level1,sim,region_M1_hand,region_M1_level1,region_M1_sim"
+    assert len(rows) == 52
+    assert rows[-1].split(",")[4:] == ["triode", "triode", "triode"]
+    document = json.loads(out)
+    assert {"file", "source", "output", "x", "hand", "level1", "sim", "boundaries", "gain", "findings"} <= set(document)
+    assert document["source"] == "VIN" and document["output"] == "d" and len(document["x"]) == 51
+    assert len(document["sim"]) == 51
+    cutoff, triode, _ = divider_edges()
+    assert document["boundaries"]["M1"]["hand"] == {
+        "cutoff_saturation": pytest.approx(cutoff, abs=1e-9),
+        "saturation_triode": pytest.approx(triode, abs=1e-9),
+    }
+    assert document["gain"]["bias"] == 2.4
+    assert max(abs(h - s) for h, s in zip(document["level1"], document["sim"])) < 2e-3
+
+
+def test_without_ngspice_the_sim_column_is_null_and_svg_still_plots(divider_file, tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("NGSPICE_LIBRARY_PATH", str(tmp_path / "no-such-libngspice.so"))
+    svg = tmp_path / "curve.svg"
+    status, out, err = run([str(divider_file), "--points", "41", "--json", "--plot", str(svg)], capsys)
+    assert status == 0
+    assert len(err.strip().splitlines()) == 1 and "ngspice" in err
+    document = json.loads(out)
+    assert document["sim"] is None and document["boundaries"]["M1"]["sim"] is None
+    assert document["level1"] is not None and document["gain"]["sim"] is None
+    text = svg.read_text()
+    assert text.startswith("<?xml") and 'width="576pt"' in text and 'height="360pt"' in text
+    assert "Common source, VIN through a divider to the gate" in text or "<path" in text
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["curve.svg", "divider.cir"]
+
+
+def test_table_shows_edges_and_the_closed_form_steps(divider_file, capsys, monkeypatch):
+    monkeypatch.setenv("NGSPICE_LIBRARY_PATH", "/nonexistent/libngspice.so")
+    status, out, _ = run([str(divider_file), "--points", "21", "--steps"], capsys)
+    assert status == 0
+    assert "saturation ↔ triode" in out and "closed form" in out
+    assert "VDD − (K/2)·(VG − Vt)²·RD = VG − Vt" in out
+    assert "R2/(R1+R2) = 0.5" in out
+    assert "ro = ∞" in out
+
+
+def test_defaults_sweep_the_gate_source_from_zero_to_the_supply():
+    circuit = parse_netlist(DIVIDER_CS, "divider.cir")
+    from bridge.analysis.sweep import default_range
+
+    assert default_source(circuit) == "VIN"
+    assert default_output(circuit) == "d"
+    assert default_range(circuit, "VIN") == (0.0, 5.0)
+    values = sweep_values(0.0, 5.0)
+    assert len(values) == 201 and values[1] == pytest.approx(0.025)
+    assert np.array_equal(sweep_values(5.0, 0.0, step=-1.0), np.array([5.0, 4.0, 3.0, 2.0, 1.0, 0.0]))
