@@ -1,17 +1,18 @@
 """The operating-point check of one circuit: run the three analyses, then compare.
 
 hand (square law, λ = γ = 0) · level1 (own MNA/Newton solver) · sim (ngspice .op via the
-worker). A failure of one column becomes a finding; the others still report.
+worker). A failure of one column becomes a finding; the others still report. The deck goes to
+the worker first, so ngspice solves it while the hand analysis and the level-1 solver run.
 """
 
 from __future__ import annotations
 
 from .analysis.dcsolve import DcSolveError, OperatingPoint, solve_operating_point
-from .analysis.hand import HandAnalysisError, HandSolution, hand_analysis
+from .analysis.hand import HandAnalysisError, HandModel, HandSolution
 from .compare import CheckResult, Expectations, Finding, compare
 from .netlist.circuit import Circuit
 from .sim.client import NgspiceSession, SimulationFailed, SimulatorError, SimulatorTimeout
-from .sim.operating_point import SimOperatingPoint, simulate_operating_point
+from .sim.operating_point import PendingOperatingPoint, SimOperatingPoint, submit_operating_point
 
 
 class NotASingleStage(ValueError):
@@ -32,9 +33,17 @@ def check_circuit(
     findings: list[Finding] = [
         Finding("info", n.code, n.message, n.line, None) for n in circuit.notices
     ]
+    pending: PendingOperatingPoint | None = None
+    not_sent: SimulatorError | None = None
+    if session is not None:
+        try:
+            pending = submit_operating_point(session, circuit, timeout=sim_timeout)
+        except SimulatorError as exc:  # reported below, in its place among the findings
+            not_sent = exc
     attribution = None
     try:
-        hand = hand_analysis(circuit)
+        model = HandModel(circuit)
+        hand = model.solve()
     except HandAnalysisError as exc:
         # Outside the hand model (a BJT or diode in the circuit, a floating gate, ...): the
         # other two columns still report.
@@ -43,7 +52,7 @@ def check_circuit(
     else:
 
         def attribution(effect: str) -> HandSolution:
-            return hand_analysis(circuit, effects=frozenset({effect}))
+            return model.solve(effects=frozenset({effect}), working=False)
 
     if hand.devices and not hand.closed_form:
         findings.append(
@@ -69,8 +78,11 @@ def check_circuit(
         findings.append(Finding("info", "no-simulator", unavailable_hint or "ngspice not available", None, None))
     else:
         try:
+            if not_sent is not None:
+                raise not_sent
+            assert pending is not None
             simulator = ("ngspice", session.version)
-            sim = simulate_operating_point(session, circuit, timeout=sim_timeout)
+            sim = pending.result()
             for message in sim.messages:
                 if "singular matrix" in message.lower():
                     # ngspice then falls back to stepping or a transient op: its answer is set by

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 from collections.abc import Sequence
 from importlib import resources
@@ -85,10 +86,15 @@ def _positive_seconds(text: str) -> float:
 
 
 def command_check(args: argparse.Namespace) -> int:
+    from .sim.client import NgspiceSession, ngspice_available
+
+    available, hint = ngspice_available()
+    session = NgspiceSession() if available else None
+    if session is not None:
+        session.spawn()  # ngspice starts up while the analyses are imported and the netlists read
     from .check import NotASingleStage, check_circuit
     from .expect import check_against_circuit, read_expectations
     from .report.check_view import check_json, check_renderable
-    from .sim.client import NgspiceSession, ngspice_available
 
     console = _console()
     expectations = None
@@ -97,9 +103,9 @@ def command_check(args: argparse.Namespace) -> int:
             expectations = read_expectations(args.expect, args.tol)
         except NetlistError as exc:
             print(exc.render(), file=sys.stderr)
+            if session is not None:
+                session.close()
             return EXIT_INPUT
-    available, hint = ngspice_available()
-    session = NgspiceSession() if available else None
     if session is None:
         print(f"biasbridge: {hint}", file=sys.stderr)
     status = EXIT_OK
@@ -157,6 +163,128 @@ def command_demo(args: argparse.Namespace) -> int:
     return EXIT_OK if status == EXIT_FINDINGS else status
 
 
+def _sweep_number(text: str | None, option: str) -> float | None:
+    from .netlist.numbers import NumberError, parse_number
+
+    if text is None:
+        return None
+    try:
+        return parse_number(text.strip())
+    except NumberError:
+        raise ValueError(f"{option} `{text}` is not a number (SPICE suffixes such as 10m or 1k are fine)") from None
+
+
+def _check_output_path(target: str, inputs: set[str], option: str) -> None:
+    """An output file may not be an input netlist, and its folder must exist."""
+    resolved = os.path.realpath(target)
+    if resolved in inputs:
+        raise ValueError(f"{option} {target}: refusing to write over an input netlist")
+    folder = os.path.dirname(resolved)
+    if not os.path.isdir(folder):
+        raise ValueError(f"{option} {target}: the folder {os.path.dirname(target) or '.'} does not exist")
+    if os.path.isdir(resolved):
+        raise ValueError(f"{option} {target} is a folder")
+
+
+def command_sweep(args: argparse.Namespace) -> int:
+    """`biasbridge sweep`: the DC transfer curve in three columns, with region edges and gain."""
+    from .analysis.sweep import (
+        SweepInputError,
+        default_output,
+        default_range,
+        default_source,
+        independent_source,
+        output_node,
+        sweep_values,
+        transfer_curve,
+    )
+    from .report.files import write_text_atomically
+    from .report.sweep_view import sweep_csv, sweep_json, sweep_renderable
+    from .sim.client import NgspiceSession, ngspice_available
+
+    def refuse(message: str) -> int:
+        print(f"biasbridge: error: {message}", file=sys.stderr)
+        return EXIT_INPUT
+
+    try:
+        circuit = read_netlist(args.file)
+    except NetlistError as exc:
+        print(exc.render(), file=sys.stderr)
+        return EXIT_INPUT
+    inputs = {os.path.realpath(args.file)} | {
+        os.path.realpath(element.origin.file) for element in circuit.elements if element.origin.file
+    }
+    try:
+        if args.plot is not None:
+            from .report.plot import plot_format
+
+            plot_format(args.plot)
+            _check_output_path(args.plot, inputs, "--plot")
+        if args.csv is not None:
+            _check_output_path(args.csv, inputs, "--csv")
+        if args.plot is not None and args.csv is not None and os.path.realpath(args.plot) == os.path.realpath(
+            args.csv
+        ):
+            raise ValueError("--plot and --csv name the same file")
+        start, stop, step = (
+            _sweep_number(args.start, "--start"), _sweep_number(args.stop, "--stop"), _sweep_number(args.step, "--step")
+        )  # fmt: skip
+        try:
+            sim_timeout = _positive_seconds(args.sim_timeout)
+        except argparse.ArgumentTypeError as exc:
+            raise ValueError(f"--sim-timeout: {exc}") from None
+        points: int | None = None
+        if args.points is not None:
+            try:
+                points = int(args.points)
+            except ValueError:
+                raise ValueError(f"--points `{args.points}` is not a whole number") from None
+        if step is not None and points is not None:
+            raise ValueError("give --step or --points, not both")
+        source = independent_source(circuit, args.source).name if args.source else default_source(circuit)
+        output = output_node(circuit, args.output) if args.output else default_output(circuit)
+        if start is None or stop is None:
+            low, high = default_range(circuit, source)
+            start = low if start is None else start
+            stop = high if stop is None else stop
+        values = sweep_values(start, stop, step=step, points=points)
+    except (SweepInputError, ValueError) as exc:
+        return refuse(f"{args.file}: {exc}")
+
+    available, hint = ngspice_available()
+    if not available:
+        print(f"biasbridge: {hint} (the ngspice column stays empty)", file=sys.stderr)
+    session = NgspiceSession() if available else None
+    try:
+        result = transfer_curve(
+            circuit, source, output, values, session,
+            sim_timeout=sim_timeout, unavailable_hint=None if available else hint,
+        )  # fmt: skip
+    finally:
+        if session is not None:
+            session.close()
+    def write_plot_file(path: str) -> None:
+        from .report.plot import write_plot
+
+        write_plot(result, path)
+
+    for target, write in (
+        (args.plot, write_plot_file),
+        (args.csv, lambda path: write_text_atomically(path, sweep_csv(result))),
+    ):
+        if target is None:
+            continue
+        try:
+            write(target)
+        except OSError as exc:
+            return refuse(f"cannot write {target}: {exc.strerror or exc}")
+    if args.json:
+        sys.stdout.write(json.dumps(sweep_json(result), allow_nan=False) + "\n")
+    else:
+        _console().print(sweep_renderable(result, steps=args.steps))
+    return EXIT_OK if result.agree else EXIT_FINDINGS
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="biasbridge",
@@ -181,6 +309,25 @@ def build_parser() -> argparse.ArgumentParser:
                        help="give up on ngspice for one netlist after this long (default 10)")
     check.add_argument("--expect", metavar="FILE.toml", help="the designer's own targets (see README)")
     check.set_defaults(run=command_check)
+    sweep = verbs.add_parser(
+        "sweep", help="the DC transfer curve: hand, level-1 and ngspice, with region edges and gain"
+    )
+    sweep.add_argument("file", metavar="FILE", help="SPICE netlist of a single-transistor stage")
+    sweep.add_argument("--source", metavar="NAME",
+                       help="independent source to sweep (default: the voltage source that drives the gate)")
+    sweep.add_argument("--output", metavar="NODE",
+                       help="node to follow (default: the MOSFET's drain; its source when the drain is on a supply)")
+    sweep.add_argument("--start", metavar="A", help="first value (default 0)")
+    sweep.add_argument("--stop", metavar="B", help="last value (default: the largest |V| of the sources)")
+    sweep.add_argument("--step", metavar="S", help="step, negative to sweep down (SPICE suffixes allowed)")
+    sweep.add_argument("--points", metavar="N", help="number of points instead of --step (default 201)")
+    sweep.add_argument("--steps", action="store_true", help="show the closed-form edges and gain, step by step")
+    sweep.add_argument("--plot", metavar="FILE.png|.svg", help="write the transfer-curve plot")
+    sweep.add_argument("--csv", metavar="FILE", help="write one row per point")
+    sweep.add_argument("--json", action="store_true", help="print one JSON object")
+    sweep.add_argument("--sim-timeout", default="30", metavar="SECONDS",
+                       help="give up on ngspice after this long (default 30)")
+    sweep.set_defaults(run=command_sweep)
     demo = verbs.add_parser("demo", help="run the main job on a bundled example")
     demo.set_defaults(run=command_demo)
     return parser

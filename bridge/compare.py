@@ -153,6 +153,7 @@ def compare(
         nodes[node] = Columns(hand_v, level1_v, sim_v, _expect_value(expected), flagged)
 
     devices: dict[str, DeviceComparison] = {}
+    solved_with_effect: dict[str, HandSolution] | None = None
     for element in circuit.elements_of("mosfet"):
         model = circuit.model(element.model or "")
         mos_type = model.type if model else "nmos"
@@ -182,9 +183,10 @@ def compare(
             "sim": sim_device.region if sim_device else None,
         }
         reference_region = region[reference_column]
-        effect_solutions = (
-            {effect: attribution(effect) for effect in EFFECTS} if attribution is not None and hand_device else {}
-        )
+        if attribution is not None and hand_device and solved_with_effect is None:
+            # Once per circuit: every transistor reads its own point from the same re-solves.
+            solved_with_effect = {effect: attribution(effect) for effect in EFFECTS}
+        effect_solutions = solved_with_effect if hand_device and solved_with_effect is not None else {}
         for column in ("hand", "level1") if reference_column == "sim" else ("hand",):
             if region[column] and reference_region and region[column] != reference_region:
                 message = (

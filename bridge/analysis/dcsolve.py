@@ -28,6 +28,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
@@ -224,6 +225,18 @@ class _Mosfet:
     source_saturation_current: float
     drain_vcrit: float
     source_vcrit: float
+    # The last (voltages, Level1Point) evaluated: a converged point is asked for again by the
+    # convergence test, the settling, the report and the next sweep point's first iteration.
+    last_point: list = field(default_factory=list, compare=False, repr=False)
+
+    def point(self, vd: float, vg: float, vs: float, vb: float) -> Level1Point:
+        """``evaluate`` at absolute terminal voltages, the last answer reused for the same ones."""
+        last = self.last_point
+        if last and last[0] == (vd, vg, vs, vb):
+            return last[1]
+        point = evaluate(self.model, self.geometry, vd, vg, vs, vb)
+        last[:] = ((vd, vg, vs, vb), point)
+        return point
 
     def junction_start(self) -> list[float]:
         """ngspice's MODEINITJCT guess: vgs = type·VTO, vds = 0, vbs = −1 (and von = vgs)."""
@@ -260,6 +273,15 @@ class _Network:
     @property
     def size(self) -> int:
         return 1 + len(self.nodes) + len(self.branch_names)
+
+    @cached_property
+    def newton_constants(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The node diagonal (for stepped gmin) and the loose and tight absolute tolerances."""
+        node_count, branch_count = len(self.nodes), len(self.branch_names)
+        diagonal = np.arange(1, node_count + 1)
+        loose = np.concatenate(([0.0], np.full(node_count, VNTOL), np.full(branch_count, ABSTOL)))
+        tight = np.concatenate(([0.0], np.full(node_count, TIGHT_VNTOL), np.full(branch_count, TIGHT_ABSTOL)))
+        return diagonal, loose, tight
 
     def source_vector(self, overrides: Mapping[str, float] | None) -> np.ndarray:
         values = self.source_defaults.copy()
@@ -750,8 +772,7 @@ def _settle(net: _Network, x: np.ndarray) -> _State:
     mos_state = []
     for mos in net.mosfets:
         vgs, vds, vbs = _local_voltages(mos, values)
-        point = evaluate(mos.model, mos.geometry, values[mos.drain], values[mos.gate],
-                         values[mos.source], values[mos.bulk])  # fmt: skip
+        point = mos.point(values[mos.drain], values[mos.gate], values[mos.source], values[mos.bulk])
         mos_state.append([vgs, vds, vbs, vbs - vds, point.vth])
     diode_state = [values[d.anode] - values[d.cathode] for d in net.diodes]
     return _State(x.copy(), mos_state, diode_state)
@@ -785,12 +806,7 @@ def _newton(
     state = start.copy()
     x = state.x
     base_rhs = net.source_columns @ sources
-    node_count = len(net.nodes)
-    diagonal = np.arange(1, node_count + 1)
-    loose_floor = np.concatenate(([0.0], np.full(node_count, VNTOL), np.full(len(net.branch_names), ABSTOL)))
-    tight_floor = np.concatenate(
-        ([0.0], np.full(node_count, TIGHT_VNTOL), np.full(len(net.branch_names), TIGHT_ABSTOL))
-    )
+    diagonal, loose_floor, tight_floor = net.newton_constants
     gmin = net.gmin
     loose_count = 0
     for iteration in range(1, max_iterations + 1):
@@ -816,7 +832,7 @@ def _newton(
             polarity = mos.model.polarity
             vs = values[mos.source]
             vd, vg, vb = vs + polarity * vds, vs + polarity * vgs, vs + polarity * vbs
-            point = evaluate(mos.model, mos.geometry, vd, vg, vs, vb)
+            point = mos.point(vd, vg, vs, vb)
             device_state[:] = [vgs, vds, vbs, vbd, point.vth]
             g = point.conductances
             # The linearised drain current is point.drain_current + Σ g·(v − v_here): its constant part.
@@ -894,7 +910,7 @@ def _devices_settled(linearised: list[tuple], x: list[float], gmin: float) -> tu
                 g.wrt_drain * (xd - vd) + g.wrt_gate * (xg - vg)
                 + g.wrt_source * (xs - vs) + g.wrt_bulk * (xb - vb)
             )  # fmt: skip
-            compare(predicted, evaluate(mos.model, mos.geometry, xd, xg, xs, xb).drain_current)
+            compare(predicted, mos.point(xd, xg, xs, xb).drain_current)
             polarity = mos.model.polarity
             new_vbd, new_vbs = polarity * (xb - xd), polarity * (xb - xs)
             drain_side = _mos_junction(new_vbd, mos.drain_saturation_current, gmin)[0]
@@ -1030,7 +1046,7 @@ def _operating_point(net: _Network, solved: _Solved, circuit_caveats: Sequence[s
     junctions: dict[str, BulkJunctions] = {}
     for mos in net.mosfets:
         vd, vg, vs, vb = x[mos.drain], x[mos.gate], x[mos.source], x[mos.bulk]
-        devices[mos.name] = evaluate(mos.model, mos.geometry, vd, vg, vs, vb)
+        devices[mos.name] = mos.point(vd, vg, vs, vb)
         polarity = mos.model.polarity
         vbd, vbs = polarity * (vb - vd), polarity * (vb - vs)
         junctions[mos.name] = BulkJunctions(

@@ -49,6 +49,7 @@ __all__ = [
     "EFFECTS",
     "HandAnalysisError",
     "HandDevice",
+    "HandModel",
     "HandSolution",
     "Step",
     "hand_analysis",
@@ -1413,42 +1414,56 @@ def _solve_numerically(dc: _DcCircuit) -> tuple[dict[str, float], int]:
     terminals = [
         (t, index.get(t.drain), index.get(t.gate), index.get(t.source), index.get(t.bulk)) for t in dc.transistors
     ]
+    node_count = len(nodes)
+    diagonal = np.arange(node_count)
 
     def system(x: np.ndarray, gmin: float) -> tuple[np.ndarray, np.ndarray]:
         residual = matrix @ x - rhs
         jacobian = matrix.copy()
         if gmin:
-            residual[: len(nodes)] += gmin * x[: len(nodes)]
-            jacobian[range(len(nodes)), range(len(nodes))] += gmin
+            residual[:node_count] += gmin * x[:node_count]
+            jacobian[diagonal, diagonal] += gmin
+        values = x.tolist()
         for t, d, g, s, b in terminals:
-            v = [0.0 if k is None else x[k] for k in (d, g, s, b)]
-            point = evaluate(t.model, t.geometry, *v)
+            point = evaluate(t.model, t.geometry, *(0.0 if k is None else values[k] for k in (d, g, s, b)))
             c = point.conductances
+            partials = ((d, c.wrt_drain), (g, c.wrt_gate), (s, c.wrt_source), (b, c.wrt_bulk))
             for row, sign in ((d, 1.0), (s, -1.0)):
                 if row is None:
                     continue
                 residual[row] += sign * point.drain_current
-                for col, partial in ((d, c.wrt_drain), (g, c.wrt_gate), (s, c.wrt_source), (b, c.wrt_bulk)):
+                for col, partial in partials:
                     if col is not None:
                         jacobian[row, col] += sign * partial
         return residual, jacobian
 
+    def ill_conditioned(jacobian: np.ndarray) -> bool:
+        """np.linalg.cond(jacobian) > 1e15, from the same singular values (0/0 counts as ∞)."""
+        if jacobian.size == 0:
+            return bool(np.linalg.cond(jacobian) > 1e15)  # raises, as cond does on an empty matrix
+        singular = np.linalg.svd(jacobian, compute_uv=False).tolist()
+        if singular[-1] == 0.0:
+            return True
+        return singular[0] / singular[-1] > 1e15
+
     def newton(x: np.ndarray, gmin: float) -> tuple[np.ndarray | None, int]:
+        # Plain floats for the bookkeeping (the same values numpy would give), numpy for the algebra.
         for iteration in range(1, _NEWTON_ITERATIONS + 1):
             residual, jacobian = system(x, gmin)
             try:
                 step = np.linalg.solve(jacobian, -residual)
             except np.linalg.LinAlgError:
                 return None, iteration
-            if not np.all(np.isfinite(step)) or np.linalg.cond(jacobian) > 1e15:
+            steps = step.tolist()
+            if not all(map(math.isfinite, steps)) or ill_conditioned(jacobian):
                 return None, iteration
-            largest = float(np.max(np.abs(step[: len(nodes)]))) if nodes else 0.0
-            widest = float(np.max(np.abs(x[: len(nodes)]))) if nodes else 0.0
+            largest = max(map(abs, steps[:node_count])) if nodes else 0.0
+            widest = max(map(abs, x[:node_count].tolist())) if nodes else 0.0
             limit = max(_NEWTON_STEP_LIMIT, 0.5 * widest)
             if largest > limit:
                 step *= limit / largest
             x = x + step
-            scale = 1.0 + (float(np.max(np.abs(x[: len(nodes)]))) if nodes else 0.0)
+            scale = 1.0 + (max(map(abs, x[:node_count].tolist())) if nodes else 0.0)
             if largest <= 1e-13 * scale:
                 return x, iteration
         return None, _NEWTON_ITERATIONS
@@ -1558,15 +1573,24 @@ def _effect_text(dc: _DcCircuit, effects: frozenset[str]) -> str:
 
 
 def _numerical_solution(
-    circuit: Circuit, dc: _DcCircuit, topology: str, reason: str, effects: frozenset[str], steps: list[Step]
+    circuit: Circuit,
+    dc: _DcCircuit,
+    topology: str,
+    reason: str,
+    effects: frozenset[str],
+    steps: list[Step],
+    working: bool = True,
 ) -> HandSolution:
-    steps.append(Step(f"No closed form used: {reason}"))
     voltages, iterations = _solve_numerically(dc)
+    points = _device_points(dc, voltages)
+    devices = {name: _hand_device(point) for name, point in points.items()}
+    if not working:
+        return HandSolution(topology, False, _all_nodes(circuit, dc, voltages), devices, (), (), effects)
+    steps.append(Step(f"No closed form used: {reason}"))
     model_words = "the hand model" + (f" with {_effect_text(dc, effects)} switched on" if effects else "")
     steps.append(
         Step(f"Solved {model_words} numerically: Newton's method on the node equations ({iterations} iterations)")
     )
-    points = _device_points(dc, voltages)
     warnings = _junction_warnings(dc, voltages)
     for t in dc.transistors:
         point = points[t.name]
@@ -1584,7 +1608,7 @@ def _numerical_solution(
         topology=topology,
         closed_form=False,
         node_voltages=_all_nodes(circuit, dc, voltages),
-        devices={name: _hand_device(point) for name, point in points.items()},
+        devices=devices,
         steps=tuple(steps + warnings),
         assumptions=_assumptions(dc, effects) + tuple(w.text for w in warnings),
         effects=effects,
@@ -1595,21 +1619,69 @@ def _all_nodes(circuit: Circuit, dc: _DcCircuit, voltages: dict[str, float]) -> 
     return {GROUND: 0.0, **{node: voltages[dc.merged[node]] for node in circuit.nodes()}}
 
 
-def hand_analysis(circuit: Circuit, *, effects: Iterable[str] = frozenset(), closed_form: bool = True) -> HandSolution:
+def _chosen_effects(effects: Iterable[str]) -> frozenset[str]:
+    chosen = frozenset(e.lower() for e in effects)
+    unknown = chosen - EFFECTS
+    if unknown:
+        raise ValueError(f"unknown effect(s) {sorted(unknown)}; choose from {sorted(EFFECTS)}")
+    return chosen
+
+
+def hand_analysis(
+    circuit: Circuit, *, effects: Iterable[str] = frozenset(), closed_form: bool = True, working: bool = True
+) -> HandSolution:
     """The designer's square-law bias point (λ = γ = 0, no gate current), with the working.
 
     ``effects`` switches "lambda" and/or "gamma" back on (for attributing a difference to
     one effect at a time); the closed forms then no longer apply and the same model is solved
     numerically. ``closed_form=False`` takes the numerical path even where a closed form
-    exists (the two agree to rounding). Raises HandAnalysisError when the circuit has no bias
-    point under the model or holds elements it excludes (diodes, BJTs).
+    exists (the two agree to rounding). ``working=False`` leaves the steps and assumptions
+    out of a numerical answer (its numbers are the same): for callers that only read the
+    bias point, such as the attribution. Raises HandAnalysisError when the circuit has no
+    bias point under the model or holds elements it excludes (diodes, BJTs).
     """
-    chosen = frozenset(e.lower() for e in effects)
-    unknown = chosen - EFFECTS
-    if unknown:
-        raise ValueError(f"unknown effect(s) {sorted(unknown)}; choose from {sorted(EFFECTS)}")
+    chosen = _chosen_effects(effects)
     dc = _dc_circuit(circuit, chosen)
-    topology, stage, reason = _recognise(dc)
+    return _solve(circuit, dc, chosen, _recognise(dc), closed_form, working)
+
+
+class HandModel:
+    """One circuit reduced for the hand model (DC circuit, topology) once, solved on demand.
+
+    ``HandModel(circuit).solve(...)`` gives what ``hand_analysis(circuit, ...)`` gives; the
+    reduction and the recognition do not depend on the effects switched on, so a caller that
+    solves the same circuit several ways (the attribution) does them once. Construction raises
+    HandAnalysisError as ``hand_analysis`` would.
+    """
+
+    def __init__(self, circuit: Circuit) -> None:
+        self.circuit = circuit
+        self._dc = _dc_circuit(circuit, frozenset())
+        self._recognised = _recognise(self._dc)
+
+    def solve(
+        self, *, effects: Iterable[str] = frozenset(), closed_form: bool = True, working: bool = True
+    ) -> HandSolution:
+        """The bias point with `effects` switched on; the arguments are those of ``hand_analysis``."""
+        chosen = _chosen_effects(effects)
+        dc = self._dc
+        if chosen:
+            # The same reduction with each transistor's hand model rebuilt from its card.
+            dc = replace(dc, transistors=[replace(t, model=hand_model(t.card, chosen)) for t in dc.transistors])
+        return _solve(self.circuit, dc, chosen, self._recognised, closed_form, working)
+
+
+def _solve(
+    circuit: Circuit,
+    dc: _DcCircuit,
+    chosen: frozenset[str],
+    recognised: tuple[str, _Stage | None, str | None],
+    closed_form: bool,
+    working: bool,
+) -> HandSolution:
+    topology, stage, reason = recognised
+    if not working and (chosen or not closed_form or stage is None):
+        return _numerical_solution(circuit, dc, topology, "", chosen, [], working=False)
     steps: list[Step] = []
     for t in dc.transistors:
         steps.extend(_model_steps(t, chosen))
@@ -1628,7 +1700,7 @@ def hand_analysis(circuit: Circuit, *, effects: Iterable[str] = frozenset(), clo
         _held_closed_form(dc, stage, steps) if stage.held_node is not None else _affine_closed_form(dc, stage, steps)
     )
     if isinstance(solved, str):
-        return _numerical_solution(circuit, dc, topology, solved, chosen, steps)
+        return _numerical_solution(circuit, dc, topology, solved, chosen, steps, working=working)
     voltages = {**dc.fixed, **solved.free_voltages}
     points = _device_points(dc, voltages)
     t = stage.transistor

@@ -2,79 +2,361 @@
 
 Formatting only. Disagreeing cells carry a `!` as well as a colour, so the table reads
 the same with colour off (NO_COLOR, a pipe).
+
+The table and the lines are laid out here exactly as rich's Table and Text lay them out (same
+widths, same wrapping, same styles on the same characters), so the output is the same in a pipe
+and in a terminal; a check prints hundreds of short cells and lines per netlist, and rich's
+general machinery would otherwise cost more than the analyses. What this layout does not cover
+(a table wider than the console, tabs or control characters, a caller's justify or overflow
+setting) is handed to rich's own Table or Text.
 """
 
 from __future__ import annotations
 
 import math
-from typing import Any
+import re
+from typing import TYPE_CHECKING, Any
 
-from rich.console import Group
-from rich.table import Table
+from rich import box
+from rich.cells import cell_len
+from rich.console import Console, ConsoleOptions, Group, RenderResult
+from rich.control import strip_control_codes
+from rich.measure import Measurement
+from rich.segment import Segment
+from rich.style import Style
 from rich.text import Text
 
 from ..compare import COLUMNS, UNITS, CheckResult, Columns
 from ..netlist.numbers import engineering
 
+if TYPE_CHECKING:
+    from rich.table import Table
+
 SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "info": "dim"}
 COLUMN_TITLES = {"hand": "hand", "level1": "level-1", "sim": "ngspice", "expect": "expected"}
 
+Cell = tuple[str, str]  # text and style name ("" for none)
+_TRAILING_SPACE = re.compile(r"\s+$")  # as Text.rstrip_end finds it
+_WORD = re.compile(r"\s*\S+\s*")  # a word and the space after it, as rich's wrapping sees words
 
-def _cell(value: float | None, unit: str, flagged: bool) -> Text:
+
+def _simple(text: str) -> bool:
+    """Text that rich's Text shows character for character: no newline, tab or control code."""
+    return "\n" not in text and "\t" not in text and strip_control_codes(text) == text
+
+
+def _single_cells(text: str) -> bool:
+    """Every character one cell wide (no wide, combining or zero-width ones)."""
+    return text.isascii() or all(cell_len(character) == 1 for character in set(text))
+
+
+def _breaks(text: str, width: int) -> list[int]:
+    """Where rich's Text breaks `text` (single-cell characters) into lines of `width`: words of
+    text and trailing space, a word too long for any line folded (rich._wrap.divide_line)."""
+    breaks: list[int] = []
+    offset = 0  # cells used on the current line
+    for word in _WORD.finditer(text):
+        start, chunk = word.start(), word.group()
+        length = len(chunk.rstrip())
+        if width - offset >= length:
+            offset += len(chunk)
+        elif length > width:
+            pieces = [chunk[index:index + width] for index in range(0, len(chunk), width)]
+            for piece in pieces:
+                if start:
+                    breaks.append(start)
+                start += len(piece)
+            offset = len(pieces[-1])
+        elif offset and start:
+            breaks.append(start)
+            offset = len(chunk)
+    return breaks
+
+
+def _wrap(text: str, options: ConsoleOptions) -> list[tuple[int, str]] | None:
+    """`text` cut into lines as a Text of it wraps at the options' width (default justify and
+    fold overflow), each with where it starts in `text`; None where that is not the case and
+    Text itself must do it."""
+    width = options.max_width
+    if options.justify not in (None, "default") or not _simple(text) or not _single_cells(text):
+        return None
+    if len(text) <= width:
+        return [(0, text)]
+    if options.no_wrap or options.overflow not in (None, "fold") or width < 1:
+        return None
+    bounds = [0, *_breaks(text, width), len(text)]
+    lines = []
+    for start, end in zip(bounds, bounds[1:]):
+        line = text[start:end]
+        if len(line) > width and (space := _TRAILING_SPACE.search(line)):  # Text.rstrip_end
+            line = line[: len(line) - min(len(space.group(0)), len(line) - width)]
+        lines.append((start, line[:width]))  # Text.truncate (a folded line already fits)
+    return lines
+
+
+Run = tuple[str, "Style | None"]  # text and the style it prints in
+
+
+def _emit(console: Console, runs: list[Run]) -> list[Segment]:
+    """Segments for (text, style) runs. Unstyled runs print as plain text, and in a console
+    without colour (a pipe) every run does, so those are joined: the output is the same."""
+    plain_output = console.color_system is None and not console.record
+    segments: list[Segment] = []
+    pending: list[str] = []
+    for text, style in runs:
+        if style and not plain_output:
+            if pending:
+                segments.append(Segment("".join(pending)))
+                pending.clear()
+            segments.append(Segment(text, style))
+        else:
+            pending.append(text)
+    if pending:
+        segments.append(Segment("".join(pending)))
+    return segments
+
+
+class _Part:
+    """A piece of the view: its runs as rich would render its fallback, or None to render that."""
+
+    def runs(self, console: Console, options: ConsoleOptions) -> list[Run] | None:
+        raise NotImplementedError
+
+    def fallback(self) -> Any:
+        raise NotImplementedError
+
+    def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
+        runs = self.runs(console, options)
+        if runs is None:
+            yield self.fallback()
+        else:
+            yield from _emit(console, runs)
+
+    def __rich_measure__(self, console: Console, options: ConsoleOptions) -> Measurement:
+        return Measurement.get(console, options, self.fallback())
+
+
+class _Line(_Part):
+    """One line of text in one style, as a rich Text of it renders."""
+
+    __slots__ = ("text", "style")
+
+    def __init__(self, text: str, style: str = "") -> None:
+        self.text = text
+        self.style = style
+
+    def fallback(self) -> Text:
+        return Text(self.text, style=self.style)
+
+    def runs(self, console: Console, options: ConsoleOptions) -> list[Run] | None:
+        lines = _wrap(self.text, options)
+        if lines is None:
+            return None
+        style = console.get_style(self.style) if self.style else None
+        runs: list[Run] = []
+        for _, line in lines:
+            runs += [(line, style), ("\n", None)]
+        return runs
+
+
+class _Header(_Part):
+    """`FILE: title` (the file in bold) over the topology line."""
+
+    __slots__ = ("file", "title", "second")
+
+    def __init__(self, file: str, title: str, second: str) -> None:
+        self.file, self.title, self.second = file, title, second
+
+    def fallback(self) -> Text:
+        return Text.assemble((self.file, "bold"), f": {self.title}\n", self.second)
+
+    def runs(self, console: Console, options: ConsoleOptions) -> list[Run] | None:
+        first = _wrap(f"{self.file}: {self.title}", options)
+        second = _wrap(self.second, options)
+        if first is None or second is None:
+            return None
+        bold = console.get_style("bold")
+        runs: list[Run] = []
+        for start, line in first:
+            split = min(max(len(self.file) - start, 0), len(line))  # the file name's part of this line
+            if split:
+                runs.append((line[:split], bold))
+            if line[split:]:
+                runs.append((line[split:], None))
+            runs.append(("\n", None))
+        for _, line in second:
+            runs += [(line, None), ("\n", None)]
+        return runs
+
+
+class _CheckTable(_Part):
+    """The quantity table: a first column of labels, then one right-justified column per source.
+
+    Laid out as rich's Table lays it out (default box, header, padding 1, sections) when every
+    column fits at its natural width; otherwise it is that Table.
+    """
+
+    def __init__(self, headers: tuple[str, ...]) -> None:
+        self.headers = headers  # plain ASCII
+        self.rows: list[list[Cell]] = []
+        self.section_ends: set[int] = set()  # rows followed by a section line
+
+    def add_row(self, cells: list[Cell]) -> None:
+        self.rows.append(cells)
+
+    def add_section(self) -> None:
+        """Like Table.add_section: a line under the last row so far (if there is one)."""
+        if self.rows:
+            self.section_ends.add(len(self.rows) - 1)
+
+    def fallback(self) -> Table:
+        from rich.table import Table  # only for a table wider than the console
+
+        table = Table(show_lines=False, title_justify="left")
+        table.add_column(self.headers[0])
+        for header in self.headers[1:]:
+            table.add_column(header, justify="right")
+        for index, cells in enumerate(self.rows):
+            table.add_row(*(Text(text, style=style) for text, style in cells), end_section=index in self.section_ends)
+        return table
+
+    def runs(self, console: Console, options: ConsoleOptions) -> list[Run] | None:
+        headers, rows = self.headers, self.rows
+        widths = [len(header) for header in headers]
+        for cells in rows:
+            for column, (text, _) in enumerate(cells):
+                if not (_simple(text) and _single_cells(text)):
+                    return None
+                if len(text) > widths[column]:
+                    widths[column] = len(text)
+        widths = [width + 2 for width in widths]  # padding (0, 1)
+        edges = len(headers) + 1  # the box's verticals, outer edges included
+        if sum(widths) > options.max_width - edges:
+            return None  # rich shrinks and wraps columns
+        frame = box.HEAVY_HEAD.substitute(options, safe=console.safe_box)
+        get_style = console.get_style
+        # The styles rich's Table gives each part.
+        border = get_style("none") + get_style("")
+        header_style = get_style("table.header") + get_style("")
+        pad = get_style("none")
+        styles = {style: get_style(style) for cells in rows for _, style in cells if style}
+        runs: list[Run] = []
+        put = runs.append
+
+        def content(text: str, width: int, first_column: bool) -> str:
+            # Text's justification in a cell: left pads, right strips the end and pads the front.
+            return text.ljust(width) if first_column else text.rstrip().rjust(width)
+
+        put((frame.get_top(widths), border))
+        put(("\n", None))
+        put((frame.head_left, border))
+        for column, header in enumerate(headers):
+            if column:
+                put((frame.head_vertical, border))
+            put((" ", header_style))
+            put((content(header, widths[column] - 2, column == 0), header_style))
+            put((" ", header_style))
+        put((frame.head_right, border))
+        put(("\n", None))
+        put((frame.get_row(widths, "head", edge=True), border))
+        put(("\n", None))
+        section = frame.get_row(widths, "row", edge=True)
+        last = len(rows) - 1
+        for index, cells in enumerate(rows):
+            if index == last:
+                left, right, divider = frame.foot_left, frame.foot_right, frame.foot_vertical
+            else:
+                left, right, divider = frame.mid_left, frame.mid_right, frame.mid_vertical
+            put((left, border))
+            for column, (text, style) in enumerate(cells):
+                if column:
+                    put((divider, border))
+                put((" ", pad))
+                put((content(text, widths[column] - 2, column == 0), styles[style] if style else None))
+                put((" ", pad))
+            put((right, border))
+            put(("\n", None))
+            if index in self.section_ends and index != last:
+                put((section, border))
+                put(("\n", None))
+        put((frame.get_bottom(widths), border))
+        put(("\n", None))
+        return runs
+
+
+class CheckView:
+    """One check result as printed: header, table, steps, findings and verdict, one after the
+    other (as a rich Group of them would be), the parts rich lays out itself handed to it."""
+
+    def __init__(self, parts: list[_Part]) -> None:
+        self.parts = parts
+
+    def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
+        runs: list[Run] = []
+        for part in self.parts:
+            own = part.runs(console, options)
+            if own is None:
+                yield from _emit(console, runs)
+                runs = []
+                yield part.fallback()
+            else:
+                runs += own
+        yield from _emit(console, runs)
+
+    def __rich_measure__(self, console: Console, options: ConsoleOptions) -> Measurement:
+        return Measurement.get(console, options, Group(*(part.fallback() for part in self.parts)))
+
+
+def _cell(value: float | None, unit: str, flagged: bool) -> Cell:
     if value is None:
-        return Text("—", style="dim")
+        return ("—", "dim")
     text = engineering(value, unit)
-    return Text(text + (" !" if flagged else "  "), style="red" if flagged else "green")
+    return (text + (" !" if flagged else "  "), "red" if flagged else "green")
 
 
-def _row(label: str, columns: Columns, unit: str, shown: tuple[str, ...]) -> list[Text]:
-    cells = [Text(label)]
+def _row(label: str, columns: Columns, unit: str, shown: tuple[str, ...]) -> list[Cell]:
+    cells = [(label, "")]
     for column in shown:
         cells.append(_cell(columns.get(column), unit, column in columns.flagged))
     return cells
 
 
-def check_renderable(result: CheckResult, steps: bool = False) -> Group:
+def check_renderable(result: CheckResult, steps: bool = False) -> CheckView:
     shown = COLUMNS + (("expect",) if result.has_expect else ())
     simulator = f"{result.simulator[0]} {result.simulator[1]}" if result.simulator else "no simulator"
-    header = Text.assemble(
-        (f"{result.file}", "bold"), f": {result.title}\n",
-        f"topology: {result.topology}" + ("" if result.closed_form else " (no closed form: solved numerically)"),
-        f"   simulator: {simulator}",
+    header = _Header(
+        f"{result.file}", result.title,
+        f"topology: {result.topology}" + ("" if result.closed_form else " (no closed form: solved numerically)")
+        + f"   simulator: {simulator}",
     )
-    table = Table(show_lines=False, title_justify="left")
-    table.add_column("quantity")
-    for column in shown:
-        table.add_column(COLUMN_TITLES[column], justify="right")
+    table = _CheckTable(("quantity", *(COLUMN_TITLES[column] for column in shown)))
     for node, columns in result.nodes.items():
-        table.add_row(*_row(f"V({node})", columns, "V", shown))
+        table.add_row(_row(f"V({node})", columns, "V", shown))
     for device in result.devices.values():
         table.add_section()
-        region_cells = [Text(f"{device.name} region ({device.type})")]
+        region_cells = [(f"{device.name} region ({device.type})", "")]
         reference = device.region.get("sim") or device.region.get("level1")
         for column in shown:
             value = device.expect_region if column == "expect" else device.region.get(column)
             differs = value is not None and reference is not None and value != reference
-            region_cells.append(
-                Text((value or "—") + (" !" if differs else "  "), style="red" if differs else "green")
-            )
-        table.add_row(*region_cells)
+            region_cells.append(((value or "—") + (" !" if differs else "  "), "red" if differs else "green"))
+        table.add_row(region_cells)
         for quantity, columns in device.quantities.items():
-            table.add_row(*_row(f"{device.name} {quantity}", columns, UNITS[quantity], shown))
-    parts: list[Any] = [header, table]
+            table.add_row(_row(f"{device.name} {quantity}", columns, UNITS[quantity], shown))
+    parts: list[_Part] = [header, table]
     if steps and result.steps:
-        parts.append(Text("Hand analysis, step by step:", style="bold"))
+        parts.append(_Line("Hand analysis, step by step:", "bold"))
         for number, step in enumerate(result.steps, start=1):
-            parts.append(Text(f"  {number:>2}. {step.text}"))
+            parts.append(_Line(f"  {number:>2}. {step.text}"))
             if step.equation:
-                parts.append(Text(f"      {step.equation}", style="cyan"))
+                parts.append(_Line(f"      {step.equation}", "cyan"))
     for finding in result.findings:
         where = f"line {finding.line}: " if finding.line else ""
-        parts.append(Text(f"{finding.severity}: {where}{finding.message} [{finding.code}]",
-                          style=SEVERITY_STYLE.get(finding.severity, "")))
+        parts.append(_Line(f"{finding.severity}: {where}{finding.message} [{finding.code}]",
+                           SEVERITY_STYLE.get(finding.severity, "")))
     verdict = "all three agree within tolerance" if result.agree else "disagreement flagged"
-    parts.append(Text(f"→ {verdict}", style="bold green" if result.agree else "bold red"))
-    return Group(*parts)
+    parts.append(_Line(f"→ {verdict}", "bold green" if result.agree else "bold red"))
+    return CheckView(parts)
 
 
 def _finite(value: float | None) -> float | None:

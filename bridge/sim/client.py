@@ -3,12 +3,16 @@
 The worker is killed and replaced transparently when it crashes, hangs past a run's timeout, or
 tells us that ngspice cannot recover; the failing run raises, the next one gets a fresh process,
 so a batch goes on. The client takes SPICE text only: it never looks inside a netlist.
+
+A run can be split in two (``submit`` then ``PendingRun.result``) so that the caller works on
+something else while ngspice solves; ``spawn`` starts the worker early for the same reason.
 """
 
 from __future__ import annotations
 
 import contextlib
 import json
+import math
 import os
 import selectors
 import signal
@@ -22,16 +26,18 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from types import MappingProxyType
-from typing import Any
-
-import numpy as np
+from typing import TYPE_CHECKING, Any
 
 from bridge.netlist.emit import SpiceDeck
 from bridge.sim.locate import locate_ngspice
 from bridge.sim.worker import vector_key
 
+if TYPE_CHECKING:
+    import numpy as np
+
 __all__ = [
     "NgspiceSession",
+    "PendingRun",
     "SimResult",
     "SimulationFailed",
     "SimulatorCrashed",
@@ -117,7 +123,7 @@ def ngspice_available(library: str | None = None) -> tuple[bool, str]:
 class _Worker:
     """One running worker process and the two pipes to it."""
 
-    def __init__(self, library_path: str, startup_timeout: float) -> None:
+    def __init__(self, library_path: str, startup_timeout: float, wait: bool = True) -> None:
         capture_fd, self.capture_path = tempfile.mkstemp(prefix="biasbridge-ngspice-", suffix=".log")
         response_read, response_write = os.pipe()
         env = dict(os.environ)
@@ -158,13 +164,24 @@ class _Worker:
         self._finalizer = weakref.finalize(
             self, _reap, self.process, self._selector, response_read, self.capture_path
         )
-        started = time.monotonic()
+        self._spawned = time.monotonic()
+        self._startup_timeout = startup_timeout
+        self.ready = False  # the handshake has been read
+        self.ready_at = math.inf
+        if wait:
+            self.wait_ready()
+
+    def wait_ready(self) -> None:
+        """Read the handshake (once): raises when the worker cannot run ngspice."""
+        if self.ready:
+            return
         try:
-            handshake = self._read_message(startup_timeout, during="start-up")
+            handshake = self._read_message(self._spawned + self._startup_timeout, self._startup_timeout,
+                                           during="start-up")
         except BaseException:
             self.close()
             raise
-        self.startup_seconds = time.monotonic() - started
+        self.startup_seconds = time.monotonic() - self._spawned
         if not handshake.get("handshake"):
             self.close()
             raise SimulatorCrashed("ngspice worker sent no handshake")
@@ -173,12 +190,19 @@ class _Worker:
             raise SimulatorUnavailable(str(handshake.get("error") or "ngspice did not start"))
         self.version = str(handshake.get("version"))
         self.banner = tuple(handshake.get("messages") or ())
+        self.ready_at = time.monotonic()
+        self.ready = True
 
     @property
     def pid(self) -> int:
         return self.process.pid
 
     def request(self, deck: str, vectors: Sequence[str] | None, timeout: float) -> dict[str, Any]:
+        request_id = self.send(deck, vectors)
+        return self.receive(request_id, time.monotonic() + timeout, timeout)
+
+    def send(self, deck: str, vectors: Sequence[str] | None) -> int:
+        """Write one request; the answer is read by ``receive``."""
         request_id = self._next_id
         self._next_id += 1
         line = json.dumps({"id": request_id, "deck": deck,
@@ -189,17 +213,22 @@ class _Worker:
             self.process.stdin.flush()
         except (BrokenPipeError, OSError) as exc:
             raise self._crashed(f"ngspice worker was gone before the deck was sent ({exc})") from None
-        reply = self._read_message(timeout, during="a run")
+        return request_id
+
+    def receive(self, request_id: int, deadline: float, timeout: float) -> dict[str, Any]:
+        """The answer to request `request_id`, waiting until `deadline` (time.monotonic)."""
+        reply = self._read_message(deadline, timeout, during="a run")
         if reply.get("id") != request_id:
             raise self._crashed(f"ngspice worker answered request {reply.get('id')!r}, "
                                 f"expected {request_id}")
         return reply
 
-    def _read_message(self, timeout: float, during: str) -> dict[str, Any]:
-        deadline = time.monotonic() + timeout
+    def _read_message(self, deadline: float, timeout: float, during: str) -> dict[str, Any]:
         while (end := self._buffer.find(b"\n")) < 0:
-            remaining = deadline - time.monotonic()
-            if remaining <= 0 or not self._selector.select(remaining):
+            # Past the deadline an answer already waiting in the pipe still counts: the caller
+            # may have been busy elsewhere while ngspice answered in time.
+            remaining = max(0.0, deadline - time.monotonic())
+            if not self._selector.select(remaining):
                 self.kill()
                 raise SimulatorTimeout(
                     f"ngspice did not answer within {timeout:g} s during {during}; "
@@ -269,12 +298,59 @@ def _reap(process: subprocess.Popen, selector: selectors.BaseSelector, responses
         os.unlink(capture_path)
 
 
+class PendingRun:
+    """A deck sent to the worker; ``result()`` waits for ngspice's answer.
+
+    Made by ``NgspiceSession.submit``. One run is in flight at a time: submitting the next deck
+    first reads this one's answer, which ``result()`` then returns (or raises) as usual.
+    """
+
+    def __init__(self, session: NgspiceSession, worker: _Worker, request_id: int, timeout: float) -> None:
+        self._session = session
+        self._worker = worker
+        self._request_id = request_id
+        self._timeout = timeout
+        self._sent = time.monotonic()
+        self._reply: dict[str, Any] | None = None
+        self._error: BaseException | None = None
+
+    @property
+    def done(self) -> bool:
+        """Whether the answer (or the failure) has been read."""
+        return self._reply is not None or self._error is not None
+
+    def result(self) -> SimResult:
+        """The vectors of the plot the deck made; raises as ``NgspiceSession.run`` does."""
+        with self._session._lock:
+            self._session._collect(self)
+        if self._error is not None:
+            raise self._error
+        assert self._reply is not None
+        return _sim_result(self._reply)
+
+
+def _sim_result(reply: Mapping[str, Any]) -> SimResult:
+    import numpy as np  # here, not at import: a session is made (and its worker spawned) first
+
+    messages = tuple(str(message) for message in reply.get("messages") or ())
+    if not reply.get("ok"):
+        raise SimulationFailed(str(reply.get("kind") or "simulator_error"),
+                               str(reply.get("error") or "ngspice failed"), messages)
+    arrays = {}
+    for name, values in (reply.get("vectors") or {}).items():
+        array = np.asarray(values, dtype=float)
+        array.setflags(write=False)
+        arrays[name] = array
+    return SimResult(plot=str(reply.get("plot")), vectors=MappingProxyType(arrays), messages=messages)
+
+
 class NgspiceSession:
     """ngspice through one reused worker process; use as a context manager.
 
-    ``run`` takes SPICE text with its analysis line and returns the vectors of the plot it made.
+    ``run`` takes SPICE text with its analysis line and returns the vectors of the plot it made;
+    ``submit`` sends it and returns at once, with a ``PendingRun`` to collect the answer from.
     Constructing a session raises ``SimulatorUnavailable`` when libngspice cannot be found; the
-    worker itself starts on the first ``run`` (or ``version``).
+    worker itself starts on the first run (or ``version``), or earlier with ``spawn``.
     """
 
     available = staticmethod(ngspice_available)
@@ -285,10 +361,11 @@ class NgspiceSession:
             raise SimulatorUnavailable(location.hint)
         self.library_path: str = location.path
         self.startup_timeout = startup_timeout
-        self.workers_started = 0
+        self.workers_started = 0  # workers that came up (handshake read)
         self._worker: _Worker | None = None
         self._version: str | None = None
         self._unavailable: str | None = None  # once the library will not load, do not respawn
+        self._pending: PendingRun | None = None
         self._lock = threading.Lock()
         self._closed = False
 
@@ -303,7 +380,11 @@ class NgspiceSession:
         """ngspice's version as the library reports it (e.g. ``"39"``); starts the worker."""
         if self._version is None:
             with self._lock:
-                self._ensure_worker()
+                worker = self._worker
+                if worker is not None and not worker.ready:
+                    self._finish_start(worker)  # a spawned worker: its handshake says it
+                else:
+                    self._ensure_worker()
         assert self._version is not None
         return self._version
 
@@ -315,9 +396,27 @@ class NgspiceSession:
 
     @property
     def startup_seconds(self) -> float | None:
-        """How long the running worker took from spawn to handshake."""
+        """How long the running worker took from spawn to handshake (None until it is known)."""
         worker = self._worker
-        return worker.startup_seconds if worker is not None else None
+        return worker.startup_seconds if worker is not None and worker.ready else None
+
+    def spawn(self) -> None:
+        """Start the worker process now and return without waiting for it.
+
+        Its start-up (a Python process loading PySpice and libngspice) then runs beside the
+        caller's own work, and the first run waits only for what is left of it. Problems are
+        reported by that first run, as without ``spawn``.
+        """
+        with self._lock:
+            if self._closed or self._unavailable is not None:
+                return
+            if self._worker is not None and self._worker.process.poll() is None:
+                return
+            self._discard_worker()
+            try:
+                self._worker = _Worker(self.library_path, self.startup_timeout, wait=False)
+            except OSError:
+                return  # the first run tries again and says why it cannot
 
     def run(self, deck: SpiceDeck, vectors: Sequence[str] | None = None,
             timeout: float = 10.0) -> SimResult:
@@ -329,32 +428,35 @@ class NgspiceSession:
         Raises SimulationFailed when ngspice gives no result, SimulatorCrashed/SimulatorTimeout
         when the worker dies or hangs (it is replaced on the next run).
         """
+        return self.submit(deck, vectors, timeout).result()
+
+    def submit(self, deck: SpiceDeck, vectors: Sequence[str] | None = None,
+               timeout: float = 10.0) -> PendingRun:
+        """Send one deck and return at once; ``result()`` on the answer waits for it.
+
+        The same rules and failures as ``run``; ``timeout`` counts from when the worker can take
+        the deck. A failure to send raises here, anything later from ``result()``.
+        """
         if not isinstance(deck, SpiceDeck):
             raise TypeError("NgspiceSession.run takes a SpiceDeck from bridge.netlist.emit, not text")
         deck_text = deck.text
         if isinstance(vectors, str):
             vectors = [vectors]
         with self._lock:
-            worker = self._ensure_worker()
+            if self._pending is not None:
+                self._collect(self._pending)  # its answer is read now and kept for its owner
+            worker = self._ensure_worker(ready=False)
             try:
-                reply = worker.request(deck_text, vectors, timeout)
-            except BaseException:
-                # Crash, timeout, Ctrl-C: the worker's state is unknown, so it goes.
+                request_id = worker.send(deck_text, vectors)
+            except BaseException as exc:
+                if isinstance(exc, SimulatorCrashed) and not worker.ready:
+                    self._finish_start(worker)  # a worker that never came up: its handshake says why
+                # Gone or Ctrl-C: the worker's state is unknown, so it goes.
                 self._discard_worker()
                 raise
-            if reply.get("retire"):
-                self._discard_worker()
-        messages = tuple(str(message) for message in reply.get("messages") or ())
-        if not reply.get("ok"):
-            raise SimulationFailed(str(reply.get("kind") or "simulator_error"),
-                                   str(reply.get("error") or "ngspice failed"), messages)
-        arrays = {}
-        for name, values in (reply.get("vectors") or {}).items():
-            array = np.asarray(values, dtype=float)
-            array.setflags(write=False)
-            arrays[name] = array
-        return SimResult(plot=str(reply.get("plot")), vectors=MappingProxyType(arrays),
-                         messages=messages)
+            pending = PendingRun(self, worker, request_id, timeout)
+            self._pending = pending
+        return pending
 
     def close(self) -> None:
         """Kill the worker; the session cannot run after this."""
@@ -362,20 +464,71 @@ class NgspiceSession:
             self._closed = True
             self._discard_worker()
 
-    def _ensure_worker(self) -> _Worker:
+    def _collect(self, pending: PendingRun) -> None:
+        """Read the answer to `pending` into it (once); called with the lock held."""
+        if pending.done:
+            return
+        if self._pending is pending:
+            self._pending = None
+        worker = pending._worker
+        if worker is not self._worker:
+            pending._error = SimulatorError("the ngspice session is closed" if self._closed
+                                            else "the ngspice worker was replaced before it answered")
+            return
+        try:
+            if not worker.ready:
+                self._finish_start(worker)
+            deadline = max(pending._sent, worker.ready_at) + pending._timeout
+            reply = worker.receive(pending._request_id, deadline, pending._timeout)
+        except Exception as exc:
+            # Crash, timeout, a broken start-up: the worker's state is unknown, so it goes.
+            if worker is self._worker:
+                self._discard_worker()
+            pending._error = exc
+            return
+        except BaseException:  # Ctrl-C while waiting
+            if worker is self._worker:
+                self._discard_worker()
+            pending._error = SimulatorError("the run was interrupted")
+            raise
+        if reply.get("retire"):
+            self._discard_worker()
+        pending._reply = reply
+
+    def _finish_start(self, worker: _Worker) -> None:
+        """Read a spawned worker's handshake; it fails as a start-up fails."""
+        try:
+            worker.wait_ready()
+        except SimulatorUnavailable as exc:
+            self._worker = None
+            self._unavailable = exc.hint
+            raise
+        except BaseException:
+            self._worker = None
+            raise
+        self.workers_started += 1
+        self._version = worker.version
+
+    def _ensure_worker(self, ready: bool = True) -> _Worker:
+        """The running worker, started if need be; with `ready` False a spawned one need not
+        have finished starting."""
         if self._closed:
             raise SimulatorError("the ngspice session is closed")
         if self._unavailable is not None:
             raise SimulatorUnavailable(self._unavailable)
+        worker = self._worker
+        if worker is not None and not worker.ready and (ready or worker.process.poll() is not None):
+            self._finish_start(worker)
         if self._worker is None or self._worker.process.poll() is not None:
             self._discard_worker()
             try:
-                self._worker = _Worker(self.library_path, self.startup_timeout)
+                self._worker = _Worker(self.library_path, self.startup_timeout, wait=ready)
             except SimulatorUnavailable as exc:
                 self._unavailable = exc.hint
                 raise
-            self.workers_started += 1
-            self._version = self._worker.version
+            if ready:
+                self.workers_started += 1
+                self._version = self._worker.version
         return self._worker
 
     def _discard_worker(self) -> None:

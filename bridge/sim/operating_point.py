@@ -13,7 +13,7 @@ from dataclasses import dataclass
 from ..devices.level1 import Region, classify_region
 from ..netlist.circuit import GROUND, Analysis, Circuit, Origin
 from ..netlist.emit import emit
-from .client import NgspiceSession
+from .client import NgspiceSession, PendingRun, SimResult
 
 DEVICE_VECTORS = ("id", "gm", "gds", "gmbs", "vdsat", "von", "vgs", "vds", "vbs")
 
@@ -49,10 +49,31 @@ def device_vector(element_name: str, quantity: str) -> str:
 
 def simulate_operating_point(session: NgspiceSession, circuit: Circuit, timeout: float = 10.0) -> SimOperatingPoint:
     """Run ngspice `.op` on the emitted circuit (never the user's text)."""
+    return submit_operating_point(session, circuit, timeout).result()
+
+
+class PendingOperatingPoint:
+    """An `.op` sent to ngspice; ``result()`` waits for it and reads the operating point."""
+
+    def __init__(self, circuit: Circuit, run: PendingRun) -> None:
+        self.circuit = circuit
+        self.run = run
+
+    def result(self) -> SimOperatingPoint:
+        """The operating point; raises as ``NgspiceSession.run`` does."""
+        return _read_operating_point(self.circuit, self.run.result())
+
+
+def submit_operating_point(session: NgspiceSession, circuit: Circuit, timeout: float = 10.0) -> PendingOperatingPoint:
+    """Send the emitted circuit's `.op` to ngspice and return at once (see ``PendingOperatingPoint``)."""
     mosfets = [e for e in circuit.elements if e.kind == "mosfet"]
     saves = ["all"] + [device_vector(m.name, q) for m in mosfets for q in DEVICE_VECTORS]
     deck = emit(circuit, analyses=[Analysis("op", Origin(circuit.source_file, 0))], saves=saves)
-    result = session.run(deck, timeout=timeout)
+    return PendingOperatingPoint(circuit, session.submit(deck, timeout=timeout))
+
+
+def _read_operating_point(circuit: Circuit, result: SimResult) -> SimOperatingPoint:
+    mosfets = [e for e in circuit.elements if e.kind == "mosfet"]
     nodes = {GROUND: 0.0}
     for node in circuit.nodes():
         if node in result:

@@ -260,7 +260,11 @@ class Simulator:
         plot = self._ngspice.plot(None, plot_name)
         vectors: dict[str, list[float]] = {}
         for name, vector in plot.items():
-            data = np.asarray(vector.to_waveform())
+            # The array PySpice read from ngspice, without wrapping it in its unit classes first
+            # (the same numbers, at a fraction of the cost); through them if it is not there.
+            data = getattr(vector, "_data", None)
+            if not isinstance(data, np.ndarray):
+                data = np.asarray(vector.to_waveform())
             if np.iscomplexobj(data):
                 continue  # .op and .dc are real; complex plots are not part of the protocol
             vectors[vector_key(name)] = np.asarray(data, dtype=float).tolist()

@@ -1,0 +1,94 @@
+"""The check view lays out its table and lines itself: it must print exactly what rich's own
+Table and Text print for the same content (the reference is rich, installed with the project),
+in a pipe and in a colour terminal, at any width."""
+
+from __future__ import annotations
+
+import io
+import random
+
+import pytest
+from conftest import EXAMPLES
+from rich.console import Console, Group
+
+from bridge.check import check_circuit
+from bridge.netlist import parse_netlist, read_netlist
+from bridge.report.check_view import _CheckTable, _Header, _Line, check_renderable
+
+# Plain words, the symbols the reports use, long words that must fold, odd spaces, and characters
+# rich measures as wide or as zero width (those go to rich's own Text and Table).
+PIECES = ["a", "bc", " ", "  ", "µ", "—", "Ω", "√", "λ", "−", "·", "→", "é", "!", "1.5 V", "x" * 9,
+          "y" * 31, "\u00a0", "\u2003", "\u3000", "漢", "ﾐ", "e\u0301", "\u200d", "\ufe0f", "👍"]
+CONSOLES = [(None, False), ("standard", True), ("truecolor", True)]
+
+
+def printed(renderable, width: int, color_system: str | None, terminal: bool) -> str:
+    console = Console(file=io.StringIO(), width=width, color_system=color_system, force_terminal=terminal,
+                      highlight=False, soft_wrap=False)
+    console.print(renderable)
+    return console.file.getvalue()
+
+
+def words(rng: random.Random, most: int) -> str:
+    return "".join(rng.choice(PIECES) for _ in range(rng.randint(0, most)))
+
+
+def test_a_line_prints_as_rich_text_prints_it_at_any_width():
+    rng = random.Random(1)
+    for _ in range(600):
+        line = _Line(words(rng, 40), rng.choice(["", "dim", "bold red", "cyan"]))
+        width = rng.randint(1, 60)
+        for color_system, terminal in CONSOLES:
+            assert printed(line, width, color_system, terminal) == printed(line.fallback(), width, color_system,
+                                                                           terminal), (line.text, width)
+
+
+def test_the_header_prints_as_rich_text_with_the_file_in_bold():
+    rng = random.Random(2)
+    for _ in range(300):
+        header = _Header(words(rng, 12), words(rng, 20), words(rng, 30))
+        width = rng.randint(1, 70)
+        for color_system, terminal in CONSOLES:
+            assert printed(header, width, color_system, terminal) == printed(header.fallback(), width,
+                                                                             color_system, terminal)
+
+
+def test_the_table_prints_as_rich_table_prints_it_or_is_that_table():
+    rng = random.Random(3)
+    pieces = ["a", "b ", "µ", "—", "x" * 9, "1.5 V !", "  ", "\u00a0", "漢", "e\u0301"]
+    for _ in range(300):
+        columns = rng.randint(2, 5)
+        table = _CheckTable(("quantity", *rng.sample(["hand", "level-1", "ngspice", "expected"], columns - 1)))
+        for _ in range(rng.randint(0, 6)):
+            if rng.random() < 0.3:
+                table.add_section()
+            table.add_row([("".join(rng.choice(pieces) for _ in range(rng.randint(1, 4))),
+                            rng.choice(["", "red", "green", "dim"])) for _ in range(columns)])
+        width = rng.randint(12, 90)
+        for color_system, terminal in CONSOLES:
+            assert printed(table, width, color_system, terminal) == printed(table.fallback(), width,
+                                                                            color_system, terminal)
+
+
+@pytest.mark.parametrize("name", ["cs_divider.cir", "source_follower.cir", "pmos_cs.cir"])
+@pytest.mark.parametrize("steps", [False, True])
+def test_a_whole_check_prints_as_the_rich_group_of_its_parts(name, steps):
+    result = check_circuit(read_netlist(EXAMPLES / name), None, tolerance=0.05)
+    view = check_renderable(result, steps=steps)
+    group = Group(*(part.fallback() for part in view.parts))
+    for width in (30, 60, 80, 132):
+        for color_system, terminal in CONSOLES:
+            assert printed(view, width, color_system, terminal) == printed(group, width, color_system, terminal)
+
+
+def test_a_check_of_two_transistors_prints_as_the_rich_group_of_its_parts():
+    circuit = parse_netlist(
+        "cascode\nVDD vdd 0 5\nVB b 0 2.5\nR1 vdd g 300k\nR2 g 0 100k\nRD vdd d 10k\nM2 d b x 0 nch W=20u L=2u\n"
+        "M1 x g 0 0 nch W=20u L=2u\n.model nch nmos (vto=0.7 kp=120u lambda=0.02 gamma=0.4 phi=0.65)\n.op\n",
+        "cascode.cir",
+    )
+    view = check_renderable(check_circuit(circuit, None, tolerance=0.05), steps=True)
+    group = Group(*(part.fallback() for part in view.parts))
+    for width in (40, 80):
+        for color_system, terminal in CONSOLES:
+            assert printed(view, width, color_system, terminal) == printed(group, width, color_system, terminal)
