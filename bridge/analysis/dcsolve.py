@@ -307,14 +307,6 @@ class _State:
         return _State(self.x.copy(), [row[:] for row in self.mos], self.diode[:])
 
 
-def _options(circuit: Circuit) -> dict[str, float | str | None]:
-    settings: dict[str, float | str | None] = {}
-    for directive in circuit.directives:
-        if directive.kind == "options":
-            settings.update(directive.settings)
-    return settings
-
-
 def _number(value: object, what: str, element: Element) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)):
         raise InvalidElement(element.name, f"{element.name}: {what} is not a number ({value!r})")
@@ -331,7 +323,7 @@ def _vcrit(thermal: float, saturation_current: float) -> float:
 def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
     """Compile the circuit once: linear stamps, source columns and the nonlinear devices."""
     caveats: list[str] = []
-    options = _options(circuit)
+    options = circuit.options()
     gmin = float(options["gmin"]) if isinstance(options.get("gmin"), (int, float)) else GMIN
     default_w = float(options["defw"]) if isinstance(options.get("defw"), (int, float)) else DEFAULT_W
     default_l = float(options["defl"]) if isinstance(options.get("defl"), (int, float)) else DEFAULT_L

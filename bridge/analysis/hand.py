@@ -230,14 +230,6 @@ def hand_model(card_model: Level1Model, effects: frozenset[str] = frozenset()) -
     )
 
 
-def _options(circuit: Circuit) -> dict[str, float | str | None]:
-    settings: dict[str, float | str | None] = {}
-    for directive in circuit.directives:
-        if directive.kind == "options":
-            settings.update(directive.settings)
-    return settings
-
-
 def _transistor(
     element: Element,
     circuit: Circuit,
@@ -276,7 +268,7 @@ def _dc_circuit(circuit: Circuit, effects: frozenset[str]) -> _DcCircuit:
                 f"{element.name}: the hand model covers MOSFETs, resistors, capacitors, inductors and "
                 f"sources; a {element.kind} is outside it"
             )
-    options = _options(circuit)
+    options = circuit.options()
     default_w, default_l = (
         float(value) if isinstance(value := options.get(key), (int, float)) else fallback
         for key, fallback in (("defw", DEFAULT_W), ("defl", DEFAULT_L))

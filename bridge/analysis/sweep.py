@@ -813,20 +813,12 @@ def sim_curve(
 # --- the closed form of the resistor-loaded common source -----------------------------------
 
 
-def _options(circuit: Circuit) -> dict[str, float | str | None]:
-    settings: dict[str, float | str | None] = {}
-    for directive in circuit.directives:
-        if directive.kind == "options":
-            settings.update(directive.settings)
-    return settings
-
-
 def _hand_constants(circuit: Circuit, mosfet: Element) -> tuple[float, float, int] | None:
     """K = KP·W·M/Leff and Vt = VTO (device polarity) of the hand model, and the polarity."""
     card = circuit.model(mosfet.model or "")
     if card is None or card.type.lower() not in ("nmos", "pmos") or card.level != 1:
         return None
-    options = _options(circuit)
+    options = circuit.options()
 
     def size(key: str, option: str, fallback: float) -> float:
         value = mosfet.params.get(key, options.get(option, fallback))

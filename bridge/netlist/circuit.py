@@ -190,5 +190,13 @@ class Circuit:
                     seen.setdefault(node, None)
         return tuple(seen)
 
+    def options(self) -> dict[str, float | str | None]:
+        """Every `.options` setting, later cards overriding earlier ones (a flag maps to None)."""
+        settings: dict[str, float | str | None] = {}
+        for directive in self.directives:
+            if directive.kind == "options":
+                settings.update(directive.settings)
+        return settings
+
     def elements_of(self, kind: str) -> tuple[Element, ...]:
         return tuple(e for e in self.elements if e.kind == kind)

@@ -21,6 +21,9 @@ import time
 from collections.abc import Callable
 from pathlib import Path
 
+from run import median_seconds, note  # the shared helpers of tests/bench/run.py
+from run import report as report_goal
+
 from bridge.analysis.dcsolve import solve_dc_sweep
 from bridge.analysis.sweep import sim_curve, sim_sweep_deck, sim_vectors, sweep_values
 from bridge.netlist import parse_netlist
@@ -40,22 +43,12 @@ M1 d g 0 0 nch w=20u l=2u
 POINTS = 1001
 
 
-def median_seconds(action: Callable[[], object], repeat: int) -> float:
-    samples = []
-    for _ in range(repeat):
-        start = time.perf_counter()
-        action()
-        samples.append(time.perf_counter() - start)
-    return statistics.median(samples)
-
-
 def report(name: str, value: float, goal: float | None, unit: str = "ms") -> bool:
+    """A goal line as in run.py, or a context line when there is no goal."""
     if goal is None:
-        print(f"{name:<60} {value:9.3f} {unit}")
+        note(name, value, unit)
         return True
-    ok = value <= goal
-    print(f"{name:<60} {value:9.3f} {unit}   goal ≤ {goal:g} {unit}   {'ok' if ok else 'MISSED'}")
-    return ok
+    return report_goal(name, value, goal, unit)
 
 
 def level1_goal() -> bool:
