@@ -9,6 +9,7 @@ models — is built afterwards in build.py.
 from __future__ import annotations
 
 import functools
+import os
 from dataclasses import dataclass
 from importlib import resources
 from pathlib import Path
@@ -400,9 +401,29 @@ def _parser() -> tuple[Lark, _CardTransformer]:
         transformer=transformer,
         maybe_placeholders=True,
         propagate_positions=False,
-        cache=False,
+        # Building the LALR tables costs 50-100 ms at every start; lark keeps them in a file
+        # keyed by a hash of the grammar, the options, lark's and Python's versions, and rebuilds
+        # when the file is missing, stale or unreadable.
+        cache=_grammar_cache_file() or False,
     )
     return parser, transformer
+
+
+def _grammar_cache_file() -> str | None:
+    """The user's own cache file for the built grammar, or None when there is no writable place.
+
+    It lives in the user's cache folder (never a shared temporary folder: lark reads it back with
+    pickle, so only a folder the user owns is trusted).
+    """
+    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
+    folder = os.path.join(base, "biasbridge")
+    try:
+        os.makedirs(folder, mode=0o700, exist_ok=True)
+        if not os.access(folder, os.W_OK) or os.stat(folder).st_uid != os.getuid():
+            return None
+    except OSError:
+        return None
+    return os.path.join(folder, "grammar.lark-cache")
 
 
 def parse_card(card: LogicalCard) -> RawCard:
