@@ -52,7 +52,9 @@ def check_circuit(
     else:
 
         def attribution(effect: str) -> HandSolution:
-            return model.solve(effects=frozenset({effect}), working=False)
+            # Started from the plain hand point: one effect moves it a little, and Newton from
+            # there needs a few iterations where a start from zero can need the gmin ladder.
+            return model.solve(effects=frozenset({effect}), working=False, start=hand.node_voltages)
 
     if hand.devices and not hand.closed_form:
         findings.append(

@@ -26,7 +26,7 @@ Nothing here reads files or prints: the Circuit is the only input.
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -1340,8 +1340,12 @@ def _gm_step(k: float, drive: float, current: float, region: str, vov: float | N
 # --- the numerical path -----------------------------------------------------------------------
 
 
-def _solve_numerically(dc: _DcCircuit) -> tuple[dict[str, float], int]:
-    """The simplified model's node equations solved by damped Newton (MNA): node voltages."""
+def _solve_numerically(dc: _DcCircuit, start: Mapping[str, float] | None = None) -> tuple[dict[str, float], int]:
+    """The simplified model's node equations solved by damped Newton (MNA): node voltages.
+
+    Newton starts from `start`'s node voltages where given (a nearby solution: the attribution
+    starts each one-effect re-solve from the plain hand point), from zero otherwise.
+    """
     nodes = [n for n in dict.fromkeys(dc.merged.values()) if n != GROUND]
     index = {node: k for k, node in enumerate(nodes)}
     branches = dc.voltage_sources + [e for e in dc.controlled if e.kind in ("vcvs", "ccvs")]
@@ -1461,7 +1465,11 @@ def _solve_numerically(dc: _DcCircuit) -> tuple[dict[str, float], int]:
         return None, _NEWTON_ITERATIONS
 
     spent = 0
-    x, used = newton(np.zeros(size), 0.0)
+    initial = np.zeros(size)
+    if start:
+        for node, k in index.items():
+            initial[k] = start.get(node, 0.0)
+    x, used = newton(initial, 0.0)
     spent += used
     if x is None:
         # A cut-off device can leave a node held by nothing at the start: lean on a shunt
@@ -1572,8 +1580,9 @@ def _numerical_solution(
     effects: frozenset[str],
     steps: list[Step],
     working: bool = True,
+    start: Mapping[str, float] | None = None,
 ) -> HandSolution:
-    voltages, iterations = _solve_numerically(dc)
+    voltages, iterations = _solve_numerically(dc, start)
     points = _device_points(dc, voltages)
     devices = {name: _hand_device(point) for name, point in points.items()}
     if not working:
@@ -1652,15 +1661,24 @@ class HandModel:
         self._recognised = _recognise(self._dc)
 
     def solve(
-        self, *, effects: Iterable[str] = frozenset(), closed_form: bool = True, working: bool = True
+        self,
+        *,
+        effects: Iterable[str] = frozenset(),
+        closed_form: bool = True,
+        working: bool = True,
+        start: Mapping[str, float] | None = None,
     ) -> HandSolution:
-        """The bias point with `effects` switched on; the arguments are those of ``hand_analysis``."""
+        """The bias point with `effects` switched on; the arguments are those of ``hand_analysis``.
+
+        `start` (node voltages of a nearby solution) seeds the numerical path of a solve without
+        working (``working=False``), the one the attribution uses.
+        """
         chosen = _chosen_effects(effects)
         dc = self._dc
         if chosen:
             # The same reduction with each transistor's hand model rebuilt from its card.
             dc = replace(dc, transistors=[replace(t, model=hand_model(t.card, chosen)) for t in dc.transistors])
-        return _solve(self.circuit, dc, chosen, self._recognised, closed_form, working)
+        return _solve(self.circuit, dc, chosen, self._recognised, closed_form, working, start)
 
 
 def _solve(
@@ -1670,10 +1688,11 @@ def _solve(
     recognised: tuple[str, _Stage | None, str | None],
     closed_form: bool,
     working: bool,
+    start: Mapping[str, float] | None = None,
 ) -> HandSolution:
     topology, stage, reason = recognised
     if not working and (chosen or not closed_form or stage is None):
-        return _numerical_solution(circuit, dc, topology, "", chosen, [], working=False)
+        return _numerical_solution(circuit, dc, topology, "", chosen, [], working=False, start=start)
     steps: list[Step] = []
     for t in dc.transistors:
         steps.extend(_model_steps(t, chosen))
