@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from bridge.analysis import dcsolve
 from bridge.analysis.dcsolve import (
     GMIN_STEPPING,
     NEWTON,
@@ -546,3 +547,91 @@ def test_inductor_is_a_short_with_its_current_reported() -> None:
     ours = solve_operating_point(circuit_of("inductor\nV1 a 0 2\nL1 a b 1m\nR1 b 0 1k\nC1 b 0 1u\n"))
     assert ours.voltage("b") == pytest.approx(2.0)
     assert ours.current("L1") == pytest.approx(2e-3)
+
+
+# --- the reduced Newton system ----------------------------------------------------------------
+
+
+@pytest.mark.parametrize("size", range(1, 14))
+def test_plain_elimination_agrees_with_lapack(size: int) -> None:
+    # reference: numpy's LAPACK solve (gesv); sizes past the plain-Python limit go to it directly
+    rng = np.random.default_rng(size)
+    for _ in range(20):
+        matrix = rng.normal(size=(size, size)) + size * np.eye(size) * rng.choice([-1.0, 1.0])
+        rhs = rng.normal(size=size)
+        ours = dcsolve._solve_linear(matrix.tolist(), rhs.tolist())
+        assert ours == pytest.approx(np.linalg.solve(matrix, rhs).tolist(), rel=1e-10, abs=1e-12)
+    # a row swap is needed: the first pivot is zero
+    swapped = np.roll(np.eye(size), 1, axis=0) * 2.0
+    assert dcsolve._solve_linear(swapped.tolist(), list(range(size))) == pytest.approx(
+        np.linalg.solve(swapped, np.arange(size, dtype=float)).tolist()
+    )
+
+
+@pytest.mark.parametrize("size", [1, 2, 3, 12])
+def test_plain_elimination_reports_a_singular_matrix(size: int) -> None:
+    matrix = [[1.0] * size for _ in range(size)] if size > 1 else [[0.0]]
+    assert dcsolve._solve_linear(matrix, [1.0] * size) is None
+
+
+def network_of(text: str) -> dcsolve._Network:
+    return dcsolve._build_network(circuit_of(text), level1_model)
+
+
+def kept_names(net: dcsolve._Network) -> set[str]:
+    names = ("0", *net.nodes, *(f"i({b.lower()})" for b in net.branch_names))
+    return {names[k] for k in net.reduction(0.0).kept}
+
+
+DIVIDER_FED = (
+    """common source fed through a gate divider and a source resistor
+VDD vdd 0 5
+VIN in 0 2.4
+R1 in g 100k
+R2 g 0 100k
+RD vdd d 10k
+RS s 0 1k
+M1 d g s 0 nch W=20u L=2u
+"""
+    + NCH
+)
+
+
+def test_reduction_keeps_only_the_device_terminals_behind_a_divider() -> None:
+    # VDD, VIN, the divider and the resistors are linear: Newton is left drain, gate and source.
+    assert kept_names(network_of(DIVIDER_FED)) == {"d", "g", "s"}
+
+
+@needs_ngspice
+def test_divider_fed_sweep_on_the_reduced_system_matches_ngspice_op_at_each_point(ngspice: NgspiceSession) -> None:
+    # reference: ngspice 39 (.op at each swept value) through its shared library (bridge.sim)
+    circuit = circuit_of(DIVIDER_FED, "divider_fed.cir")
+    values = np.linspace(0.0, 5.0, 26)
+    ours = solve_dc_sweep(circuit, "VIN", values)
+    for value, point in zip(values, ours, strict=True):
+        sim = run_op(ngspice, circuit_of(DIVIDER_FED.replace("VIN in 0 2.4", f"VIN in 0 {float(value)!r}")))
+        assert_agrees(point, sim, circuit)
+
+
+def test_reduction_keeps_the_branch_of_a_source_straight_across_device_terminals() -> None:
+    # VG from gate to ground: its branch row has no entry outside the kept gate, so the block
+    # to eliminate would be singular; the branch currents are kept instead.
+    net = network_of(INLINE["nmos_triode"])
+    assert {"d", "g", "i(vg)"} <= kept_names(net)
+
+
+@pytest.mark.parametrize("name", list(INLINE))
+def test_reduced_and_full_systems_give_the_same_operating_point(
+    name: str, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    circuit = circuit_of(INLINE[name], f"{name}.cir")
+    reduced = solve_operating_point(circuit)
+    monkeypatch.setattr(dcsolve._Network, "reduction", lambda net, g: dcsolve._reduce(net, g, eliminate=False))
+    full = solve_operating_point(circuit)
+    assert full.method == reduced.method
+    for node, voltage in full.node_voltages.items():
+        assert reduced.node_voltages[node] == pytest.approx(voltage, rel=1e-8, abs=1e-9), node
+    for element, current in full.branch_currents.items():
+        assert reduced.branch_currents[element] == pytest.approx(current, rel=1e-7, abs=1e-15), element
+    for device, point in full.devices.items():
+        assert reduced.devices[device].id == pytest.approx(point.id, rel=1e-7, abs=1e-15), device

@@ -19,6 +19,9 @@ What is solved, stated once:
   by ngspice's criteria (RELTOL, VNTOL, ABSTOL) and then the iteration goes on to 1e-9 relative:
   the answer is the model's own solution, not merely one within ngspice's tolerance of it.
 * The circuit runs at 27 °C = TNOM: no temperature scaling (``.temp`` elsewhere is a caveat).
+* Newton solves only for the unknowns a nonlinear device touches: the linear rest of the MNA
+  system is eliminated once per network (``_Reduction``, a Schur complement) and recovered
+  after each solve, so a one-transistor stage iterates on a 2–4 unknown system in plain Python.
 
 Nothing here reads files: the Circuit is the only input.
 """
@@ -29,6 +32,7 @@ import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property
+from typing import NamedTuple
 
 import numpy as np
 
@@ -140,8 +144,7 @@ class SingularCircuit(NoConvergence):
         self.elements = tuple(elements)
 
 
-@dataclass(frozen=True)
-class BulkJunctions:
+class BulkJunctions(NamedTuple):
     """A MOSFET's bulk–drain and bulk–source junction currents (A), GMIN included.
 
     In device polarity, as ngspice's cbd/cbs: positive when forward biased, flowing from
@@ -275,13 +278,26 @@ class _Network:
         return 1 + len(self.nodes) + len(self.branch_names)
 
     @cached_property
-    def newton_constants(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """The node diagonal (for stepped gmin) and the loose and tight absolute tolerances."""
+    def newton_floors(self) -> tuple[tuple[float, ...], tuple[float, ...]]:
+        """The loose and tight absolute tolerances of each unknown (ground first)."""
         node_count, branch_count = len(self.nodes), len(self.branch_names)
-        diagonal = np.arange(1, node_count + 1)
-        loose = np.concatenate(([0.0], np.full(node_count, VNTOL), np.full(branch_count, ABSTOL)))
-        tight = np.concatenate(([0.0], np.full(node_count, TIGHT_VNTOL), np.full(branch_count, TIGHT_ABSTOL)))
-        return diagonal, loose, tight
+        loose = (0.0,) + (VNTOL,) * node_count + (ABSTOL,) * branch_count
+        tight = (0.0,) + (TIGHT_VNTOL,) * node_count + (TIGHT_ABSTOL,) * branch_count
+        return loose, tight
+
+    @cached_property
+    def _reductions(self) -> dict[float, _Reduction]:
+        return {}
+
+    def reduction(self, diagonal_gmin: float) -> _Reduction:
+        """The system Newton solves, with `diagonal_gmin` from every node to ground (kept per value
+        without gmin; each gmin step builds its own, once for all its iterations)."""
+        if diagonal_gmin == 0.0:
+            cache = self._reductions
+            if 0.0 not in cache:
+                cache[0.0] = _reduce(self, 0.0)
+            return cache[0.0]
+        return _reduce(self, diagonal_gmin)
 
     def source_vector(self, overrides: Mapping[str, float] | None) -> np.ndarray:
         values = self.source_defaults.copy()
@@ -731,14 +747,147 @@ def _limit_mosfet(
     return vgs, vds, vbs, vbd, clipped
 
 
-def _stamp_pair(matrix: np.ndarray, rhs: np.ndarray, a: int, c: int, g: float, offset: float) -> None:
-    """A linearised two-terminal current leaving `a` for `c`: g·(va − vc) + offset."""
-    matrix[a, a] += g
-    matrix[c, c] += g
-    matrix[a, c] -= g
-    matrix[c, a] -= g
-    rhs[a] -= offset
-    rhs[c] += offset
+def _stamp_pair(matrix: list[list[float]], rhs: list[float], a: int, c: int, g: float, offset: float) -> None:
+    """A linearised two-terminal current leaving `a` for `c`: g·(va − vc) + offset.
+
+    `a` and `c` are positions in the reduced system; −1 is ground (nothing to stamp).
+    """
+    if a >= 0:
+        matrix[a][a] += g
+        rhs[a] -= offset
+        if c >= 0:
+            matrix[a][c] -= g
+            matrix[c][a] -= g
+    if c >= 0:
+        matrix[c][c] += g
+        rhs[c] += offset
+
+
+# --- the linear part folded onto the device terminals -------------------------------------
+
+
+@dataclass(frozen=True)
+class _Reduction:
+    """The MNA system with its linear-only unknowns eliminated (a Schur complement).
+
+    Newton only has to solve for the unknowns a nonlinear device touches (`kept`); every
+    other node voltage and branch current is an affine function of those and of the sources,
+    fixed once per network. For a one-transistor stage that turns a 6–10 unknown system into
+    a 2–4 unknown one, solved in plain Python instead of through numpy's per-call overhead.
+    """
+
+    kept: tuple[int, ...]  # full-vector indices Newton solves for (ground excluded)
+    position: tuple[int, ...]  # full index → its place in `kept`, −1 for ground or eliminated
+    matrix: tuple[tuple[float, ...], ...]  # the kept block after elimination
+    source_map: np.ndarray  # sources → right-hand side of the kept block
+    eliminated: tuple[int, ...]  # full-vector indices recovered after each solve
+    recover_sources: np.ndarray  # sources → eliminated values (with the kept ones at zero)
+    recover_kept: tuple[tuple[float, ...], ...]  # per eliminated unknown, its weight on each kept one
+
+
+def _reduce(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _Reduction:
+    """Fold the linear unknowns away. The block eliminated must be regular; where it is not
+    (a voltage source straight across two device terminals leaves its branch row empty
+    there), the branch currents are kept too, and failing that (or without `eliminate`)
+    nothing is eliminated."""
+    size = net.size
+    full = net.linear[1:, 1:].copy()
+    if diagonal_gmin:
+        nodes = np.arange(len(net.nodes))
+        full[nodes, nodes] += diagonal_gmin
+    columns = net.source_columns[1:]
+    touched = {i for mos in net.mosfets for i in (mos.drain, mos.gate, mos.source, mos.bulk)}
+    touched |= {i for diode in net.diodes for i in (diode.anode, diode.cathode)}
+    touched.discard(0)
+    branches = set(range(1 + len(net.nodes), size))
+    everything = set(range(1, size))
+    for kept_set in (touched, touched | branches, everything) if eliminate else (everything,):
+        kept = sorted(kept_set)
+        rest = [j for j in range(1, size) if j not in kept_set]
+        if rest:
+            r, k = np.array(rest) - 1, np.array(kept, dtype=int) - 1
+            block = full[np.ix_(r, r)]
+            # A rank test (SVD) once per network: a block that only rounds away from singular
+            # must not be inverted. Keeping more unknowns is always correct, only slower.
+            if np.linalg.matrix_rank(block) < len(rest):
+                continue
+            weights = np.linalg.solve(block, np.hstack((full[np.ix_(r, k)], columns[r])))
+            on_kept, on_sources = weights[:, : len(kept)], weights[:, len(kept) :]
+            matrix = full[np.ix_(k, k)] - full[np.ix_(k, r)] @ on_kept
+            source_map = columns[k] - full[np.ix_(k, r)] @ on_sources
+        else:
+            k = np.array(kept, dtype=int) - 1
+            matrix, source_map = full[np.ix_(k, k)], columns[k]
+            on_kept, on_sources = np.zeros((0, len(kept))), np.zeros((0, columns.shape[1]))
+        position = [-1] * size
+        for place, index in enumerate(kept):
+            position[index] = place
+        return _Reduction(
+            kept=tuple(kept),
+            position=tuple(position),
+            matrix=tuple(tuple(row) for row in matrix.tolist()),
+            source_map=source_map,
+            eliminated=tuple(rest),
+            recover_sources=on_sources,
+            recover_kept=tuple(tuple(row) for row in on_kept.tolist()),
+        )
+    raise AssertionError("keeping every unknown always gives a reduction")  # pragma: no cover
+
+
+# Above this many kept unknowns numpy's LAPACK solve beats elimination in plain Python.
+_PLAIN_SOLVE_LIMIT = 10
+
+
+def _solve_linear(matrix: list[list[float]], rhs: list[float]) -> list[float] | None:
+    """Gaussian elimination with partial pivoting; None when a pivot is exactly zero (singular)."""
+    size = len(rhs)
+    if size == 2:  # the common case (drain and gate of one device), written out
+        (a, b), (c, d) = matrix
+        if abs(c) > abs(a):
+            a, b, c, d = c, d, a, b
+            first, second = rhs[1], rhs[0]
+        else:
+            first, second = rhs
+        if a == 0.0:
+            return None
+        factor = c / a
+        pivot = d - factor * b
+        if pivot == 0.0:
+            return None
+        y = (second - factor * first) / pivot
+        return [(first - b * y) / a, y]
+    if size > _PLAIN_SOLVE_LIMIT:
+        try:
+            return np.linalg.solve(np.array(matrix), np.array(rhs)).tolist()
+        except np.linalg.LinAlgError:
+            return None
+    for column in range(size):
+        pivot_row, largest = column, abs(matrix[column][column])
+        for row in range(column + 1, size):
+            if abs(matrix[row][column]) > largest:
+                pivot_row, largest = row, abs(matrix[row][column])
+        pivot = matrix[pivot_row][column]
+        if pivot == 0.0:
+            return None
+        if pivot_row != column:
+            matrix[column], matrix[pivot_row] = matrix[pivot_row], matrix[column]
+            rhs[column], rhs[pivot_row] = rhs[pivot_row], rhs[column]
+        top = matrix[column]
+        for row in range(column + 1, size):
+            below = matrix[row]
+            factor = below[column] / pivot
+            if factor:
+                for j in range(column + 1, size):
+                    below[j] -= factor * top[j]
+                rhs[row] -= factor * rhs[column]
+    solution = [0.0] * size
+    for row in range(size - 1, -1, -1):
+        top = matrix[row]
+        total = rhs[row]
+        for j in range(row + 1, size):
+            total -= top[j] * solution[j]
+        solution[row] = total / top[row]
+    return solution
 
 
 # --- Newton ---------------------------------------------------------------------------------
@@ -794,19 +943,22 @@ def _newton(
     or the previous solution); later ones limit the new voltages against the last ones.
     Converged means: no junction step clipped, the solution moved by less than the tolerance,
     and every device's linearised current agrees with its current at the new voltages.
+    Each iteration solves the reduced system (`_Reduction`) and recovers the other unknowns.
     """
     state = start.copy()
-    x = state.x
-    base_rhs = net.source_columns @ sources
-    diagonal, loose_floor, tight_floor = net.newton_constants
+    reduction = net.reduction(diagonal_gmin)
+    position = reduction.position
+    base_rhs = (reduction.source_map @ sources).tolist()
+    recovery = list(zip(reduction.eliminated, (reduction.recover_sources @ sources).tolist(),
+                        reduction.recover_kept, strict=True))  # fmt: skip
+    kept = reduction.kept
+    loose_floor, tight_floor = net.newton_floors
     gmin = net.gmin
+    x = state.x.tolist()
     loose_count = 0
     for iteration in range(1, max_iterations + 1):
-        matrix = net.linear.copy()
-        rhs = base_rhs.copy()
-        if diagonal_gmin:
-            matrix[diagonal, diagonal] += diagonal_gmin
-        values = x.tolist()
+        matrix = [list(row) for row in reduction.matrix]
+        rhs = base_rhs[:]
         # As in ngspice, only a clipped junction step (pnjlim's icheck) forbids convergence;
         # fetlim/limvds steps are caught by the device current test instead. That matters for
         # a cut-off device whose gate is driven far negative: its limited vgs lags for many
@@ -817,12 +969,14 @@ def _newton(
             if iteration == 1:
                 vgs, vds, vbs, vbd = device_state[:4]
             else:
+                polarity, vs = mos.model.polarity, x[mos.source]
                 vgs, vds, vbs, vbd, junction_clipped = _limit_mosfet(
-                    mos, device_state, *_local_voltages(mos, values)
-                )
+                    mos, device_state, polarity * (x[mos.gate] - vs), polarity * (x[mos.drain] - vs),
+                    polarity * (x[mos.bulk] - vs),
+                )  # fmt: skip
                 clipped = clipped or junction_clipped
             polarity = mos.model.polarity
-            vs = values[mos.source]
+            vs = x[mos.source]
             vd, vg, vb = vs + polarity * vds, vs + polarity * vgs, vs + polarity * vbs
             point = mos.point(vd, vg, vs, vb)
             device_state[:] = [vgs, vds, vbs, vbd, point.vth]
@@ -831,13 +985,20 @@ def _newton(
             offset = point.drain_current - (
                 g.wrt_drain * vd + g.wrt_gate * vg + g.wrt_source * vs + g.wrt_bulk * vb
             )
-            d, gt, s, b = mos.drain, mos.gate, mos.source, mos.bulk
+            d, gt, s, b = position[mos.drain], position[mos.gate], position[mos.source], position[mos.bulk]
+            gd, gg, gs, gb = g
             for row, sign in ((d, 1.0), (s, -1.0)):
-                matrix[row, d] += sign * g.wrt_drain
-                matrix[row, gt] += sign * g.wrt_gate
-                matrix[row, s] += sign * g.wrt_source
-                matrix[row, b] += sign * g.wrt_bulk
-                rhs[row] -= sign * offset
+                if row >= 0:  # the drain current enters the drain row and leaves the source row
+                    line = matrix[row]
+                    if d >= 0:
+                        line[d] += sign * gd
+                    if gt >= 0:
+                        line[gt] += sign * gg
+                    if s >= 0:
+                        line[s] += sign * gs
+                    if b >= 0:
+                        line[b] += sign * gb
+                    rhs[row] -= sign * offset
             # Bulk junctions, in device polarity; the real current bulk → diffusion is polarity·c.
             cbd, gbd = _mos_junction(vbd, mos.drain_saturation_current, gmin)
             _stamp_pair(matrix, rhs, b, d, gbd, polarity * (cbd - gbd * vbd))
@@ -847,75 +1008,85 @@ def _newton(
         for k, diode in enumerate(net.diodes):
             vd = state.diode[k]
             if iteration > 1:
-                vd, junction_clipped = _pnjlim(values[diode.anode] - values[diode.cathode], vd,
+                vd, junction_clipped = _pnjlim(x[diode.anode] - x[diode.cathode], vd,
                                                diode.emission_voltage, diode.vcrit)  # fmt: skip
                 clipped = clipped or junction_clipped
             state.diode[k] = vd
             current, conductance = _diode_current(vd, diode, gmin)
-            _stamp_pair(matrix, rhs, diode.anode, diode.cathode, conductance, current - conductance * vd)
+            _stamp_pair(matrix, rhs, position[diode.anode], position[diode.cathode],
+                        conductance, current - conductance * vd)  # fmt: skip
             linearised.append((diode, current, conductance, vd))
-        try:
-            solution = np.linalg.solve(matrix[1:, 1:], rhs[1:])
-        except np.linalg.LinAlgError:
+        solution = _solve_linear(matrix, rhs)
+        if solution is None:
             return _Attempt(None, iteration, singular=True)
-        if not np.all(np.isfinite(solution)):
+        if not math.isfinite(sum(solution)):  # an inf or nan anywhere makes the sum one
             return _Attempt(None, iteration)
-        new = np.concatenate(([0.0], solution))
+        new = [0.0] * len(x)
+        for index, value in zip(kept, solution, strict=True):
+            new[index] = value
+        for index, value, weights in recovery:
+            for weight, kept_value in zip(weights, solution):
+                value -= weight * kept_value
+            new[index] = value
         # A MODEINITJCT iteration proves nothing: its devices did not sit at the node voltages.
-        if not (fresh and iteration == 1) and not clipped:
-            change = np.abs(new - x)
-            scale = np.maximum(np.abs(new), np.abs(x))
-            if np.all(change <= RELTOL * scale + loose_floor):
-                loose, tight = _devices_settled(linearised, new.tolist(), gmin)
-                tight = tight and bool(np.all(change <= TIGHT_RELTOL * scale + tight_floor))
-                if tight:
-                    state.x = new
-                    return _Attempt(state, iteration, tight=True)
-                if loose:
-                    loose_count += 1
-                    if loose_count > TIGHTENING_ITERATIONS:
-                        state.x = new
-                        return _Attempt(state, iteration, tight=False)
+        moved = 0 if (fresh and iteration == 1) or clipped else _settled(new, x, loose_floor, tight_floor)
+        if moved:
+            loose, tight = _devices_settled(linearised, new, gmin)
+            tight = tight and moved == 2
+            if tight:
+                state.x = np.array(new)
+                return _Attempt(state, iteration, tight=True)
+            if loose:
+                loose_count += 1
+                if loose_count > TIGHTENING_ITERATIONS:
+                    state.x = np.array(new)
+                    return _Attempt(state, iteration, tight=False)
         x = new
-        state.x = x
     return _Attempt(None, max_iterations)
+
+
+def _settled(new: list[float], old: list[float], loose: tuple[float, ...], tight: tuple[float, ...]) -> int:
+    """How far every unknown has settled: 2 within the tight tolerances (TIGHT_RELTOL of its
+    size plus its tight floor), 1 within ngspice's (RELTOL plus VNTOL or ABSTOL), else 0."""
+    level = 2
+    for a, b, loose_floor, tight_floor in zip(new, old, loose, tight, strict=True):
+        change, size_a, size_b = abs(a - b), abs(a), abs(b)
+        size = size_a if size_a > size_b else size_b
+        if change > RELTOL * size + loose_floor:
+            return 0
+        if level == 2 and change > TIGHT_RELTOL * size + tight_floor:
+            level = 1
+    return level
 
 
 def _devices_settled(linearised: list[tuple], x: list[float], gmin: float) -> tuple[bool, bool]:
     """ngspice's device convergence test (MOS1convTest, DIOconvTest), to both tolerances:
     does each linearised current, carried to the new voltages, match the current there?"""
-    loose = tight = True
-
-    def compare(predicted: float, actual: float) -> None:
-        nonlocal loose, tight
-        error = abs(predicted - actual)
-        size = max(abs(predicted), abs(actual))
-        loose = loose and error <= RELTOL * size + ABSTOL
-        tight = tight and error <= TIGHT_RELTOL * size + TIGHT_ABSTOL
-
+    tight = True
     for entry in linearised:
-        if isinstance(entry[0], _Mosfet):
+        if len(entry) == 12:  # a MOSFET: channel, then its two bulk junctions
             mos, point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs = entry
             xd, xg, xs, xb = x[mos.drain], x[mos.gate], x[mos.source], x[mos.bulk]
-            g = point.conductances
-            predicted = point.drain_current + (
-                g.wrt_drain * (xd - vd) + g.wrt_gate * (xg - vg)
-                + g.wrt_source * (xs - vs) + g.wrt_bulk * (xb - vb)
-            )  # fmt: skip
-            compare(predicted, mos.point(xd, xg, xs, xb).drain_current)
+            gd, gg, gs, gb = point.conductances
             polarity = mos.model.polarity
             new_vbd, new_vbs = polarity * (xb - xd), polarity * (xb - xs)
-            drain_side = _mos_junction(new_vbd, mos.drain_saturation_current, gmin)[0]
-            source_side = _mos_junction(new_vbs, mos.source_saturation_current, gmin)[0]
-            compare(cbd + gbd * (new_vbd - vbd), drain_side)
-            compare(cbs + gbs * (new_vbs - vbs), source_side)
+            pairs = (
+                (point.drain_current + gd * (xd - vd) + gg * (xg - vg) + gs * (xs - vs) + gb * (xb - vb),
+                 mos.point(xd, xg, xs, xb).drain_current),
+                (cbd + gbd * (new_vbd - vbd), _mos_junction(new_vbd, mos.drain_saturation_current, gmin)[0]),
+                (cbs + gbs * (new_vbs - vbs), _mos_junction(new_vbs, mos.source_saturation_current, gmin)[0]),
+            )  # fmt: skip
         else:
             diode, current, conductance, vd = entry
             new_vd = x[diode.anode] - x[diode.cathode]
-            compare(current + conductance * (new_vd - vd), _diode_current(new_vd, diode, gmin)[0])
-        if not loose:
-            break
-    return loose, tight
+            pairs = ((current + conductance * (new_vd - vd), _diode_current(new_vd, diode, gmin)[0]),)
+        for predicted, actual in pairs:
+            error, size_p, size_a = abs(predicted - actual), abs(predicted), abs(actual)
+            size = size_p if size_p > size_a else size_a
+            if error > RELTOL * size + ABSTOL:
+                return False, False
+            tight = tight and error <= TIGHT_RELTOL * size + TIGHT_ABSTOL
+    return True, tight
 
 
 @dataclass(frozen=True)
@@ -1120,13 +1291,13 @@ def solve_dc_sweep(
     net = _build_network(circuit, model_override or level1_model)
     if source.lower() not in {name.lower() for name in net.source_names}:
         raise ValueError(f"`{source}` is not an independent source of this circuit")
-    overrides = dict(source_values or {})
-    swept = next(name for name in net.source_names if name.lower() == source.lower())
+    swept = next(k for k, name in enumerate(net.source_names) if name.lower() == source.lower())
+    fixed = net.source_vector(source_values)
     points: list[OperatingPoint] = []
     previous: _State | None = None
     for value in values:
-        overrides[swept] = float(value)
-        sources = net.source_vector(overrides)
+        sources = fixed.copy()
+        sources[swept] = float(value)
         solved: _Solved | None = None
         spent = 0
         if previous is not None:
@@ -1140,7 +1311,7 @@ def solve_dc_sweep(
                 solved = _solve(net, sources, start, fresh, methods)
             except NoConvergence as exc:
                 raise NoConvergence(
-                    f"at {swept} = {value:g}: {exc}", exc.methods, exc.iterations + spent
+                    f"at {net.source_names[swept]} = {value:g}: {exc}", exc.methods, exc.iterations + spent
                 ) from None
             solved = _Solved(solved.state, solved.method, solved.iterations + spent, solved.tight)
         previous = _settle(net, solved.state.x)

@@ -26,7 +26,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import Literal
+from typing import Literal, NamedTuple
 
 # Physical constants exactly as ngspice 39 uses them (const.h, and the literal
 # permittivity written into mos1temp.c). Reproducing the derived KP/PHI/GAMMA/VTO
@@ -291,8 +291,7 @@ def threshold(model: Level1Model, vbs: float) -> float:
     return model.polarity * model.vto + model.gamma * (root - math.sqrt(model.phi))
 
 
-@dataclass(frozen=True)
-class TerminalConductances:
+class TerminalConductances(NamedTuple):
     """Partial derivatives of the drain-node current with respect to each terminal voltage.
 
     They sum to zero (only voltage differences matter), so a Newton solver can stamp
@@ -305,9 +304,11 @@ class TerminalConductances:
     wrt_bulk: float
 
 
-@dataclass(frozen=True)
-class Level1Point:
+class Level1Point(NamedTuple):
     """Operating point of one level-1 device, normalised the way ngspice reports it.
+
+    A named tuple rather than a dataclass: the solver makes one at every Newton iteration,
+    and a tuple costs a fraction of a frozen dataclass to create.
 
     ``vgs``, ``vds``, ``vbs`` are the terminal differences in device polarity (×−1 for a
     PMOS), before any source/drain swap. When ``vds < 0`` the device conducts with its
