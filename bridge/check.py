@@ -3,9 +3,14 @@
 hand (square law, λ = γ = 0) · level1 (own MNA/Newton solver) · sim (ngspice .op via the
 worker). A failure of one column becomes a finding; the others still report. The deck goes to
 the worker first, so ngspice solves it while the hand analysis and the level-1 solver run.
+`start_check` and `PendingCheck` split a check at ngspice's answer, so that a caller can start
+the next netlist's check (and send its deck) before comparing and printing this one.
 """
 
 from __future__ import annotations
+
+from collections import deque
+from collections.abc import Iterator
 
 from .analysis.dcsolve import DcSolveError, OperatingPoint, solve_operating_point
 from .analysis.hand import HandAnalysisError, HandModel, HandSolution
@@ -28,63 +33,142 @@ def check_circuit(
     expect: Expectations | None = None,
     unavailable_hint: str | None = None,
 ) -> CheckResult:
+    return start_check(
+        circuit, session, tolerance=tolerance, sim_timeout=sim_timeout, expect=expect,
+        unavailable_hint=unavailable_hint,
+    ).finish()
+
+
+def start_check(
+    circuit: Circuit,
+    session: NgspiceSession | None,
+    *,
+    tolerance: float,
+    sim_timeout: float = 10.0,
+    expect: Expectations | None = None,
+    unavailable_hint: str | None = None,
+    submit: bool = True,
+) -> PendingCheck:
+    """The check up to ngspice's answer: the deck sent (unless `submit` is False: then it is sent
+    by ``PendingCheck.submit`` or at the latest by ``finish``), hand and level-1 solved.
+
+    ``start_check(...).finish()`` is ``check_circuit(...)``, whenever the deck is sent.
+    """
     if not circuit.elements_of("mosfet"):
         raise NotASingleStage("the netlist has no MOSFET: biasbridge checks MOSFET bias points")
-    findings: list[Finding] = [
-        Finding("info", n.code, n.message, n.line, None) for n in circuit.notices
-    ]
-    pending: PendingOperatingPoint | None = None
-    not_sent: SimulatorError | None = None
-    if session is not None:
+    check = PendingCheck(circuit, session, tolerance, sim_timeout, expect, unavailable_hint)
+    if submit:
+        check.submit()
+    check._solve_own_columns()
+    return check
+
+
+class PendingCheck:
+    """One netlist's check between ``start_check`` and ``finish``: ngspice's column still to come.
+
+    The findings keep the order ``check_circuit`` gives them, wherever the deck was sent.
+    """
+
+    def __init__(
+        self,
+        circuit: Circuit,
+        session: NgspiceSession | None,
+        tolerance: float,
+        sim_timeout: float,
+        expect: Expectations | None,
+        unavailable_hint: str | None,
+    ) -> None:
+        self.circuit = circuit
+        self.session = session
+        self.tolerance = tolerance
+        self.sim_timeout = sim_timeout
+        self.expect = expect
+        self.unavailable_hint = unavailable_hint
+        self.findings: list[Finding] = [
+            Finding("info", n.code, n.message, n.line, None) for n in circuit.notices
+        ]
+        self.submitted = session is None
+        self._pending: PendingOperatingPoint | None = None
+        self._not_sent: SimulatorError | None = None
+        self._collected = False
+        self._sim: SimOperatingPoint | None = None
+        self._simulator: tuple[str, str] | None = None
+
+    def submit(self) -> None:
+        """Send the deck to ngspice (once; nothing without a session)."""
+        if self.submitted:
+            return
+        self.submitted = True
+        assert self.session is not None
         try:
-            pending = submit_operating_point(session, circuit, timeout=sim_timeout)
-        except SimulatorError as exc:  # reported below, in its place among the findings
-            not_sent = exc
-    attribution = None
-    try:
-        model = HandModel(circuit)
-        hand = model.solve()
-    except HandAnalysisError as exc:
-        # Outside the hand model (a BJT or diode in the circuit, a floating gate, ...): the
-        # other two columns still report.
-        findings.append(Finding("warning", "hand-unavailable", f"hand analysis: {exc}", None, None))
-        hand = HandSolution(f"outside the hand model ({exc})", False, {}, {}, (), ())
-    else:
+            self._pending = submit_operating_point(self.session, self.circuit, timeout=self.sim_timeout)
+        except SimulatorError as exc:  # reported in its place among the findings
+            self._not_sent = exc
 
-        def attribution(effect: str) -> HandSolution:
-            # Started from the plain hand point: one effect moves it a little, and Newton from
-            # there needs a few iterations where a start from zero can need the gmin ladder.
-            return model.solve(effects=frozenset({effect}), working=False, start=hand.node_voltages)
+    @property
+    def answered(self) -> bool:
+        """Whether ``collect`` (and ``finish``) would go on without waiting for ngspice."""
+        if self._collected or self.session is None or self._not_sent is not None:
+            return True
+        return self._pending is not None and self._pending.answered
 
-    if hand.devices and not hand.closed_form:
-        findings.append(
-            Finding("info", "hand-numeric", f"hand analysis: {hand.topology}; no closed form was used, the "
-                    "simplified model was solved numerically", None, None)
-        )
+    def _solve_own_columns(self) -> None:
+        circuit, findings = self.circuit, self.findings
+        self._attribution = None
+        try:
+            model = HandModel(circuit)
+            hand = model.solve()
+        except HandAnalysisError as exc:
+            # Outside the hand model (a BJT or diode in the circuit, a floating gate, ...): the
+            # other two columns still report.
+            findings.append(Finding("warning", "hand-unavailable", f"hand analysis: {exc}", None, None))
+            hand = HandSolution(f"outside the hand model ({exc})", False, {}, {}, (), ())
+        else:
 
-    level1: OperatingPoint | None = None
-    try:
-        level1 = solve_operating_point(circuit)
-        for caveat in level1.caveats:
-            findings.append(Finding("info", "solver-caveat", caveat, None, None))
-        if level1.method != "newton":
+            def attribution(effect: str) -> HandSolution:
+                # Started from the plain hand point: one effect moves it a little, and Newton from
+                # there needs a few iterations where a start from zero can need the gmin ladder.
+                return model.solve(effects=frozenset({effect}), working=False, start=hand.node_voltages)
+
+            self._attribution = attribution
+        self._hand = hand
+
+        if hand.devices and not hand.closed_form:
             findings.append(
-                Finding("info", "solver-method", f"level-1 solver converged by {level1.method}", None, None)
+                Finding("info", "hand-numeric", f"hand analysis: {hand.topology}; no closed form was used, the "
+                        "simplified model was solved numerically", None, None)
             )
-    except DcSolveError as exc:
-        findings.append(Finding("error", "solver-failed", f"level-1 solver: {exc}", None, None))
 
-    sim: SimOperatingPoint | None = None
-    simulator: tuple[str, str] | None = None
-    if session is None:
-        findings.append(Finding("info", "no-simulator", unavailable_hint or "ngspice not available", None, None))
-    else:
+        self._level1: OperatingPoint | None = None
         try:
-            if not_sent is not None:
-                raise not_sent
-            assert pending is not None
-            simulator = ("ngspice", session.version)
-            sim = pending.result()
+            level1 = solve_operating_point(circuit)
+            self._level1 = level1
+            for caveat in level1.caveats:
+                findings.append(Finding("info", "solver-caveat", caveat, None, None))
+            if level1.method != "newton":
+                findings.append(
+                    Finding("info", "solver-method", f"level-1 solver converged by {level1.method}", None, None)
+                )
+        except DcSolveError as exc:
+            findings.append(Finding("error", "solver-failed", f"level-1 solver: {exc}", None, None))
+
+    def collect(self) -> None:
+        """Take ngspice's answer (waiting for it if need be) or its failure, as findings."""
+        if self._collected:
+            return
+        self.submit()
+        self._collected = True
+        session, findings, sim_timeout = self.session, self.findings, self.sim_timeout
+        if session is None:
+            findings.append(Finding("info", "no-simulator", self.unavailable_hint or "ngspice not available",
+                                    None, None))
+            return
+        try:
+            if self._not_sent is not None:
+                raise self._not_sent
+            assert self._pending is not None
+            self._simulator = ("ngspice", session.version)
+            sim = self._sim = self._pending.result()
             for message in sim.messages:
                 if "singular matrix" in message.lower():
                     # ngspice then falls back to stepping or a transient op: its answer is set by
@@ -103,8 +187,72 @@ def check_circuit(
         except SimulatorError as exc:
             findings.append(Finding("error", "sim-crashed", f"ngspice worker failed: {exc}; restarted for the "
                                     "next netlist", None, None))
-    return compare(
-        circuit, hand, level1, sim,
-        simulator=simulator, tolerance=tolerance, attribution=attribution, expect=expect,
-        findings=tuple(findings),
-    )
+
+    def finish(self) -> CheckResult:
+        """The check's result: ngspice's answer collected (see ``collect``), the columns compared."""
+        self.collect()
+        return compare(
+            self.circuit, self._hand, self._level1, self._sim,
+            simulator=self._simulator, tolerance=self.tolerance, attribution=self._attribution,
+            expect=self.expect, findings=tuple(self.findings),
+        )
+
+
+class CheckQueue:
+    """Checks started in file order and handed back in that order, ngspice kept busy meanwhile.
+
+    One deck is with the worker at a time. A check added while an earlier one still waits for
+    ngspice's answer is started without its deck (``start_check(..., submit=queue.may_submit())``),
+    which is sent as soon as the worker is free; so while the worker starts up, later netlists
+    are read and solved instead of waited out. Each check stays queued until the next one has
+    started: its answer is then usually in, and the next deck is sent before it is compared and
+    printed. Anything else added (an error to report, say) keeps its place in the order.
+    """
+
+    def __init__(self, lookahead: int = 256) -> None:
+        self.lookahead = lookahead  # items held at most before waiting for the first one's answer
+        self._items: deque[object] = deque()
+        self._unsent: deque[PendingCheck] = deque()
+        self._in_flight: PendingCheck | None = None
+
+    def may_submit(self) -> bool:
+        """Whether a check started now may send its deck at once (the worker has nothing else)."""
+        self._send()
+        return not self._unsent and (self._in_flight is None or self._in_flight.answered)
+
+    def add(self, item: object) -> None:
+        self._items.append(item)
+        if isinstance(item, PendingCheck):
+            if item.submitted:
+                self._in_flight = item
+            else:
+                self._unsent.append(item)
+
+    def ready(self) -> Iterator[object]:
+        """The items that can be handed back now, in order; a check comes collected."""
+        while self._items:
+            self._send()
+            head = self._items[0]
+            if len(self._items) > self.lookahead or (
+                len(self._items) > 1 and (not isinstance(head, PendingCheck) or head.answered)
+            ):
+                yield self._take()
+            else:
+                return
+
+    def rest(self) -> Iterator[object]:
+        """Every item left, in order, waiting for ngspice where need be."""
+        while self._items:
+            yield self._take()
+
+    def _send(self) -> None:
+        if self._unsent and (self._in_flight is None or self._in_flight.answered):
+            self._in_flight = self._unsent.popleft()
+            self._in_flight.submit()
+
+    def _take(self) -> object:
+        item = self._items.popleft()
+        if isinstance(item, PendingCheck):
+            item.collect()
+            self._send()  # the next deck goes to ngspice before this check is compared and printed
+        return item

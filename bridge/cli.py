@@ -1,6 +1,9 @@
 """The `biasbridge` command: argument handling and exit status, nothing else.
 
 Exit status: 0 fine, 1 findings or disagreement, 2 unusable input.
+
+The netlist front end and rich are imported inside the commands, not here: `check` starts the
+ngspice worker first, so the worker's start-up runs beside those imports.
 """
 
 from __future__ import annotations
@@ -10,13 +13,13 @@ import json
 import os
 import sys
 from collections.abc import Sequence
-from importlib import resources
 from pathlib import Path
-
-from rich.console import Console
+from typing import TYPE_CHECKING
 
 from . import __version__
-from .netlist import NetlistError, read_netlist
+
+if TYPE_CHECKING:
+    from rich.console import Console
 
 EXIT_OK, EXIT_FINDINGS, EXIT_INPUT = 0, 1, 2
 DEMO_NETLIST = "cs_divider.cir"
@@ -29,15 +32,15 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _console() -> Console:
+    from rich.console import Console
+
     return Console(highlight=False, soft_wrap=False)
-
-
-def _error_console() -> Console:
-    return Console(stderr=True, highlight=False)
 
 
 def example_path(name: str) -> Path:
     """A bundled example netlist, from the installed package data or the source tree."""
+    from importlib import resources
+
     try:
         candidate = Path(str(resources.files("bridge._examples").joinpath(name)))
         if candidate.is_file():
@@ -48,6 +51,7 @@ def example_path(name: str) -> Path:
 
 
 def command_parse(args: argparse.Namespace) -> int:
+    from .netlist import NetlistError, read_netlist
     from .report.circuit_view import circuit_json, circuit_renderable
 
     status = EXIT_OK
@@ -92,9 +96,10 @@ def command_check(args: argparse.Namespace) -> int:
     session = NgspiceSession() if available else None
     if session is not None:
         session.spawn()  # ngspice starts up while the analyses are imported and the netlists read
-    from .check import NotASingleStage, check_circuit
+    from .check import CheckQueue, NotASingleStage, PendingCheck, start_check
     from .expect import check_against_circuit, read_expectations
-    from .report.check_view import check_json, check_renderable
+    from .netlist import NetlistError, read_netlist
+    from .report.check_view import check_json, check_renderable, print_check
 
     console = _console()
     expectations = None
@@ -111,40 +116,59 @@ def command_check(args: argparse.Namespace) -> int:
     status = EXIT_OK
     progress = None
     if len(args.files) > 3 and console.is_terminal and not args.json:
+        from rich.console import Console
         from rich.progress import Progress
 
         progress = Progress(console=Console(stderr=True), transient=True)
         progress.start()
         task = progress.add_task("checking", total=len(args.files))
+    queue = CheckQueue()
+
+    def report(item: object) -> None:
+        nonlocal status
+        if isinstance(item, str):  # a netlist that could not be checked
+            print(item, file=sys.stderr)
+            status = EXIT_INPUT
+            return
+        assert isinstance(item, PendingCheck)
+        try:
+            result = item.finish()
+        except NetlistError as exc:
+            report(exc.render())
+            return
+        if args.json:
+            sys.stdout.write(json.dumps(check_json(result), allow_nan=False) + "\n")
+        else:
+            print_check(console, check_renderable(result, steps=args.steps))
+        if not result.agree and status == EXIT_OK:
+            status = EXIT_FINDINGS
+        if progress is not None:
+            progress.advance(task)
+
     try:
+        # Started in order and reported in order; see CheckQueue for how ngspice is kept busy.
         for path in args.files:
+            item: object
             try:
                 circuit = read_netlist(path)
                 if expectations is not None:
                     check_against_circuit(
                         expectations, set(circuit.nodes()), {e.name.lower() for e in circuit.elements}
                     )
-                result = check_circuit(
+                item = start_check(
                     circuit, session, tolerance=args.tol, sim_timeout=args.sim_timeout,
                     expect=expectations, unavailable_hint=None if available else hint,
+                    submit=queue.may_submit(),
                 )
             except NetlistError as exc:
-                print(exc.render(), file=sys.stderr)
-                status = EXIT_INPUT
-                continue
+                item = exc.render()
             except NotASingleStage as exc:
-                print(f"{path}:1:1: {exc}", file=sys.stderr)
-                status = EXIT_INPUT
-                continue
-            if args.json:
-                sys.stdout.write(json.dumps(check_json(result), allow_nan=False) + "\n")
-            else:
-                console.print(check_renderable(result, steps=args.steps))
-                console.print()
-            if not result.agree and status == EXIT_OK:
-                status = EXIT_FINDINGS
-            if progress is not None:
-                progress.advance(task)
+                item = f"{path}:1:1: {exc}"
+            queue.add(item)
+            for done in queue.ready():
+                report(done)
+        for done in queue.rest():
+            report(done)
     finally:
         if progress is not None:
             progress.stop()
@@ -198,6 +222,7 @@ def command_sweep(args: argparse.Namespace) -> int:
         sweep_values,
         transfer_curve,
     )
+    from .netlist import NetlistError, read_netlist
     from .report.files import write_text_atomically
     from .report.sweep_view import sweep_csv, sweep_json, sweep_renderable
     from .sim.client import NgspiceSession, ngspice_available

@@ -21,11 +21,12 @@ from pathlib import Path
 import pytest
 from conftest import EXAMPLES, NGSPICE, REPO, needs_ngspice, ngspice_batch_op
 
-from bridge.check import check_circuit
+from bridge.check import CheckQueue, PendingCheck, check_circuit, start_check
 from bridge.cli import main
 from bridge.compare import CheckResult
 from bridge.netlist import read_netlist
 from bridge.netlist.numbers import engineering
+from bridge.report.check_view import check_json
 from bridge.sim.client import NgspiceSession, ngspice_available
 
 LIBRARY_FOUND, LIBRARY_HINT = ngspice_available()
@@ -848,6 +849,72 @@ def test_the_command_checks_eight_netlists_in_one_call(capsys):
     assert [obj["file"] for obj in objects] == files
     assert all(obj["simulator"] is not None for obj in objects)
     assert status == (0 if all(obj["agree"] for obj in objects) else 1), err
+
+
+@needs_library
+def test_a_check_started_without_its_deck_sends_it_later_and_ends_as_check_circuit_does():
+    circuit = read_netlist(EXAMPLES / "source_follower.cir")
+    with NgspiceSession() as own:
+        expected = check_json(check_circuit(circuit, own, tolerance=0.05))
+        started = start_check(circuit, own, tolerance=0.05, submit=False)
+        assert not started.submitted and not started.answered
+        later = start_check(circuit, own, tolerance=0.05, submit=False)
+        later.submit()
+        assert later.submitted
+        assert check_json(later.finish()) == expected
+        assert check_json(started.finish()) == expected  # sent by finish itself
+        assert own.workers_started == 1
+
+
+@needs_library
+def test_the_check_queue_hands_back_every_item_in_order_with_the_results_of_check_circuit():
+    circuits = [read_netlist(EXAMPLES / name) for name in BUNDLED]
+    with NgspiceSession() as own:
+        expected = [check_json(check_circuit(circuit, own, tolerance=0.05)) for circuit in circuits]
+    with NgspiceSession() as own:
+        own.spawn()  # still starting while the first checks are queued: their decks wait
+        queue = CheckQueue()
+        handed: list[object] = []
+        added: list[object] = []
+        for index, circuit in enumerate(circuits * 3):
+            check = start_check(circuit, own, tolerance=0.05, submit=queue.may_submit())
+            for item in (check, f"error {index}") if index % 4 == 1 else (check,):
+                queue.add(item)
+                added.append(item)
+            handed.extend(queue.ready())
+        handed.extend(queue.rest())
+        assert handed == added
+        results = [check_json(item.finish()) for item in handed if isinstance(item, PendingCheck)]
+        assert results == expected * 3
+        assert own.workers_started == 1
+
+
+@needs_library
+def test_the_check_queue_holds_checks_while_ngspice_is_busy_and_then_sends_them_in_turn():
+    circuit = read_netlist(EXAMPLES / "cs_divider.cir")
+    with NgspiceSession() as own:
+        expected = check_json(check_circuit(circuit, own, tolerance=0.05))
+        pid = own.worker_pid
+        queue = CheckQueue(lookahead=4)
+        os.kill(pid, signal.SIGSTOP)  # the first deck stays unanswered
+        try:
+            first = start_check(circuit, own, tolerance=0.05, submit=queue.may_submit())
+            assert first.submitted
+            queue.add(first)
+            held = []
+            for _ in range(3):
+                assert not queue.may_submit()
+                check = start_check(circuit, own, tolerance=0.05, submit=False)
+                queue.add(check)
+                held.append(check)
+                assert list(queue.ready()) == []
+            assert not any(check.submitted for check in held)
+        finally:
+            os.kill(pid, signal.SIGCONT)
+        handed = list(queue.rest())  # each held deck sent once the one before it is answered
+        assert handed == [first, *held]
+        assert [check_json(check.finish()) for check in handed] == [expected] * 4
+        assert own.workers_started == 1
 
 
 # ---------------------------------------------------------------------------------------------

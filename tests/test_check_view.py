@@ -13,7 +13,7 @@ from rich.console import Console, Group
 
 from bridge.check import check_circuit
 from bridge.netlist import parse_netlist, read_netlist
-from bridge.report.check_view import _CheckTable, _Header, _Line, check_renderable
+from bridge.report.check_view import _CheckTable, _Header, _Line, check_renderable, plain_text, print_check
 
 # Plain words, the symbols the reports use, long words that must fold, odd spaces, and characters
 # rich measures as wide or as zero width (those go to rich's own Text and Table).
@@ -92,3 +92,30 @@ def test_a_check_of_two_transistors_prints_as_the_rich_group_of_its_parts():
     for width in (40, 80):
         for color_system, terminal in CONSOLES:
             assert printed(view, width, color_system, terminal) == printed(group, width, color_system, terminal)
+
+
+@pytest.mark.parametrize("name", ["cs_divider.cir", "source_follower.cir", "pmos_cs.cir"])
+@pytest.mark.parametrize("steps", [False, True])
+def test_print_check_writes_what_two_console_prints_write(name, steps):
+    """Plain text in one piece where the console prints plain text, rich's printing otherwise: the
+    same characters either way, at widths where the table fits and where it does not."""
+    view = check_renderable(check_circuit(read_netlist(EXAMPLES / name), None, tolerance=0.05), steps=steps)
+    for width in (20, 30, 60, 80, 132):
+        for color_system, terminal in CONSOLES:
+            consoles = [Console(file=io.StringIO(), width=width, color_system=color_system,
+                                force_terminal=terminal, highlight=False, soft_wrap=False) for _ in range(2)]
+            consoles[0].print(view)
+            consoles[0].print()
+            print_check(consoles[1], view)
+            assert consoles[1].file.getvalue() == consoles[0].file.getvalue(), (width, color_system)
+
+
+def test_plain_text_only_for_a_plain_console_and_a_view_laid_out_here():
+    view = check_renderable(check_circuit(read_netlist(EXAMPLES / "cs_divider.cir"), None, tolerance=0.05))
+    plain = Console(file=io.StringIO(), width=100, color_system=None, highlight=False, soft_wrap=False)
+    assert plain_text(view, plain) == printed(view, 100, None, False)
+    assert plain_text(view, Console(file=io.StringIO(), width=100, color_system="standard", force_terminal=True,
+                                    highlight=False)) is None
+    assert plain_text(view, Console(file=io.StringIO(), width=100, color_system=None, record=True)) is None
+    assert plain_text(view, Console(file=io.StringIO(), width=100, color_system=None, soft_wrap=True)) is None
+    assert plain_text(view, Console(file=io.StringIO(), width=20, color_system=None)) is None  # table too wide

@@ -291,3 +291,39 @@ def test_library_that_will_not_load_reports_unavailable(tmp_path):
         session.run(deck(SMALL_OP))  # remembered: no new worker for every deck of a batch
     assert session.workers_started == 0
     session.close()
+
+
+@needs_ngspice
+def test_answered_says_whether_result_would_wait_and_never_waits_itself():
+    import time
+
+    with NgspiceSession() as session:
+        session.spawn()
+        pending = session.submit(deck(LONG_SWEEP), timeout=30.0)
+        # A worker still starting, then seconds of ngspice: had it waited, the answer would be in.
+        assert not pending.answered
+        while not pending.answered:
+            time.sleep(0.05)
+        assert len(pending.result()["v(b)"]) > 1
+        assert pending.answered  # and stays so once read
+        quick = session.submit(deck(SMALL_OP))
+        while not quick.answered:
+            time.sleep(0.01)
+        assert quick.result().scalar("b") == pytest.approx(0.5)
+
+
+@needs_ngspice
+def test_answered_is_true_for_a_worker_that_died_and_result_says_so():
+    import time
+
+    with NgspiceSession() as session:
+        session.run(deck(SMALL_OP))
+        pending = session.submit(deck(LONG_SWEEP), timeout=30.0)
+        os.kill(session.worker_pid, signal.SIGKILL)
+        deadline = time.monotonic() + 10
+        while not pending.answered and time.monotonic() < deadline:
+            time.sleep(0.01)
+        assert pending.answered
+        with pytest.raises(SimulatorCrashed):
+            pending.result()
+        assert session.run(deck(SMALL_OP)).scalar("b") == pytest.approx(0.5)

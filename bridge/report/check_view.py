@@ -307,6 +307,50 @@ class CheckView:
         return Measurement.get(console, options, Group(*(part.fallback() for part in self.parts)))
 
 
+def plain_text(view: CheckView, console: Console) -> str | None:
+    """What ``console.print(view)`` writes when that is plain text: a console without colour,
+    recording or a terminal (a pipe, a file) and every part of the view laid out here. None
+    otherwise, and rich must print it."""
+    if (
+        console.color_system is not None or console.record or console.quiet or console.soft_wrap
+        or console.is_terminal or console.is_jupyter
+    ):
+        return None
+    # The options Console.print renders with, its arguments left at their defaults.
+    options = console.options.update(justify=None, overflow=None, height=None, no_wrap=None, markup=None,
+                                     highlight=None)
+    if options.max_width < 1:
+        return None  # rich renders nothing at all then
+    texts: list[str] = []
+    for part in view.parts:
+        runs = part.runs(console, options)
+        if runs is None:
+            return None
+        texts += [text for text, _ in runs]
+    return "".join(texts)
+
+
+def print_check(console: Console, view: CheckView) -> None:
+    """``console.print(view)`` and then ``console.print()``: the view and an empty line.
+
+    Plain text (see ``plain_text``) is written to the console's file in one piece, as rich would
+    write it (the view's lines all fit the width, so there is nothing to crop); the rest is
+    printed by rich."""
+    text = plain_text(view, console)
+    if text is None:
+        console.print(view)
+        console.print()
+        return
+    try:
+        console.file.write(text + "\n")
+        console.file.flush()
+    except BrokenPipeError:
+        console.on_broken_pipe()
+    except UnicodeEncodeError as error:  # with the hint rich adds to it
+        error.reason = f"{error.reason}\n*** You may need to add PYTHONIOENCODING=utf-8 to your environment ***"
+        raise
+
+
 def _cell(value: float | None, unit: str, flagged: bool) -> Cell:
     if value is None:
         return ("—", "dim")

@@ -28,12 +28,13 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import TYPE_CHECKING, Any
 
-from bridge.netlist.emit import SpiceDeck
 from bridge.sim.locate import locate_ngspice
 from bridge.sim.worker import vector_key
 
 if TYPE_CHECKING:
     import numpy as np
+
+    from bridge.netlist.emit import SpiceDeck
 
 __all__ = [
     "NgspiceSession",
@@ -247,6 +248,16 @@ class _Worker:
             raise self._crashed("ngspice worker sent a malformed response")
         return message
 
+    def answers_waiting(self) -> int | None:
+        """The complete messages already sent by the worker (read now, without waiting), or None
+        once it has closed its end: reading a message then does not wait either."""
+        while self._selector.select(0):
+            chunk = os.read(self._responses, _READ_CHUNK)
+            if not chunk:
+                return None
+            self._buffer += chunk
+        return self._buffer.count(b"\n")
+
     def _crashed(self, message: str) -> SimulatorCrashed:
         """Make sure the process is gone and describe how it ended."""
         try:
@@ -318,6 +329,17 @@ class PendingRun:
     def done(self) -> bool:
         """Whether the answer (or the failure) has been read."""
         return self._reply is not None or self._error is not None
+
+    @property
+    def answered(self) -> bool:
+        """Whether ``result()`` would return without waiting for the worker: its answer (or its
+        end) has arrived. Never waits itself."""
+        with self._session._lock:
+            if self.done or self._worker is not self._session._worker:
+                return True  # read, or the worker was replaced: result() says so at once
+            waiting = self._worker.answers_waiting()
+            # A worker still starting sends its handshake first.
+            return waiting is None or waiting >= (1 if self._worker.ready else 2)
 
     def result(self) -> SimResult:
         """The vectors of the plot the deck made; raises as ``NgspiceSession.run`` does."""
@@ -437,6 +459,9 @@ class NgspiceSession:
         The same rules and failures as ``run``; ``timeout`` counts from when the worker can take
         the deck. A failure to send raises here, anything later from ``result()``.
         """
+        # Imported here: a session is made (and its worker spawned) before the netlist front end loads.
+        from bridge.netlist.emit import SpiceDeck
+
         if not isinstance(deck, SpiceDeck):
             raise TypeError("NgspiceSession.run takes a SpiceDeck from bridge.netlist.emit, not text")
         deck_text = deck.text

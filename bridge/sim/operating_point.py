@@ -59,6 +59,11 @@ class PendingOperatingPoint:
         self.circuit = circuit
         self.run = run
 
+    @property
+    def answered(self) -> bool:
+        """Whether ``result()`` would return without waiting for ngspice (see ``PendingRun.answered``)."""
+        return self.run.answered
+
     def result(self) -> SimOperatingPoint:
         """The operating point; raises as ``NgspiceSession.run`` does."""
         return _read_operating_point(self.circuit, self.run.result())
