@@ -804,21 +804,24 @@ def _reduce(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _
     for kept_set in (touched, touched | branches, everything) if eliminate else (everything,):
         kept = sorted(kept_set)
         rest = [j for j in range(1, size) if j not in kept_set]
+        order = np.array(kept + rest, dtype=int) - 1
+        ordered = full[order][:, order]  # kept unknowns first, then the ones to eliminate
+        count = len(kept)
+        kk, kr = ordered[:count, :count], ordered[:count, count:]
+        rk, rr = ordered[count:, :count], ordered[count:, count:]
+        kept_sources, rest_sources = columns[order[:count]], columns[order[count:]]
         if rest:
-            r, k = np.array(rest) - 1, np.array(kept, dtype=int) - 1
-            block = full[np.ix_(r, r)]
-            # A rank test (SVD) once per network: a block that only rounds away from singular
-            # must not be inverted. Keeping more unknowns is always correct, only slower.
-            if np.linalg.matrix_rank(block) < len(rest):
+            # A rank test (SVD, numpy's matrix_rank tolerance) once per network: a block that only
+            # rounds away from singular must not be inverted. Keeping more is always correct.
+            singular = np.linalg.svd(rr, compute_uv=False)
+            if singular[-1] <= singular[0] * len(rest) * np.finfo(float).eps:
                 continue
-            weights = np.linalg.solve(block, np.hstack((full[np.ix_(r, k)], columns[r])))
-            on_kept, on_sources = weights[:, : len(kept)], weights[:, len(kept) :]
-            matrix = full[np.ix_(k, k)] - full[np.ix_(k, r)] @ on_kept
-            source_map = columns[k] - full[np.ix_(k, r)] @ on_sources
+            weights = np.linalg.solve(rr, np.hstack((rk, rest_sources)))
+            on_kept, on_sources = weights[:, :count], weights[:, count:]
+            matrix, source_map = kk - kr @ on_kept, kept_sources - kr @ on_sources
         else:
-            k = np.array(kept, dtype=int) - 1
-            matrix, source_map = full[np.ix_(k, k)], columns[k]
-            on_kept, on_sources = np.zeros((0, len(kept))), np.zeros((0, columns.shape[1]))
+            matrix, source_map = kk, kept_sources
+            on_kept, on_sources = np.zeros((0, count)), np.zeros((0, columns.shape[1]))
         position = [-1] * size
         for place, index in enumerate(kept):
             position[index] = place
