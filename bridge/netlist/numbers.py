@@ -93,6 +93,7 @@ _PREFIXES: tuple[tuple[int, str], ...] = (
     (-15, "f"),
     (-18, "a"),
 )
+_PREFIX_OF = dict(_PREFIXES)
 
 
 def engineering(value: float | None, unit: str = "", digits: int = 4) -> str:
@@ -103,10 +104,9 @@ def engineering(value: float | None, unit: str = "", digits: int = 4) -> str:
         return f"{value:g} {unit}".rstrip()
     exponent = math.floor(math.log10(abs(value)) / 3) * 3
     exponent = max(-18, min(12, exponent))
-    scaled = value / 10.0**exponent
+    text = f"{value / 10.0**exponent:.{digits}g}"
     # Rounding may carry into the next decade group (999.96 → 1000).
-    if abs(float(f"{scaled:.{digits}g}")) >= 1000 and exponent < 12:
+    if exponent < 12 and abs(float(text)) >= 1000:
         exponent += 3
-        scaled = value / 10.0**exponent
-    prefix = dict(_PREFIXES)[exponent]
-    return f"{scaled:.{digits}g} {prefix}{unit}".rstrip()
+        text = f"{value / 10.0**exponent:.{digits}g}"
+    return f"{text} {_PREFIX_OF[exponent]}{unit}".rstrip()
