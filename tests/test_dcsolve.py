@@ -32,6 +32,7 @@ from bridge.analysis.dcsolve import (
     solve_dc_sweep,
     solve_operating_point,
 )
+from bridge.analysis.linear import solve_dense
 from bridge.netlist import parse_netlist, read_netlist
 from bridge.netlist.circuit import Analysis, Circuit, DcSweep, Origin
 from bridge.netlist.emit import emit
@@ -559,11 +560,11 @@ def test_plain_elimination_agrees_with_lapack(size: int) -> None:
     for _ in range(20):
         matrix = rng.normal(size=(size, size)) + size * np.eye(size) * rng.choice([-1.0, 1.0])
         rhs = rng.normal(size=size)
-        ours = dcsolve._solve_linear(matrix.tolist(), rhs.tolist())
+        ours = solve_dense(matrix.tolist(), rhs.tolist())
         assert ours == pytest.approx(np.linalg.solve(matrix, rhs).tolist(), rel=1e-10, abs=1e-12)
     # a row swap is needed: the first pivot is zero
     swapped = np.roll(np.eye(size), 1, axis=0) * 2.0
-    assert dcsolve._solve_linear(swapped.tolist(), list(range(size))) == pytest.approx(
+    assert solve_dense(swapped.tolist(), list(range(size))) == pytest.approx(
         np.linalg.solve(swapped, np.arange(size, dtype=float)).tolist()
     )
 
@@ -571,7 +572,7 @@ def test_plain_elimination_agrees_with_lapack(size: int) -> None:
 @pytest.mark.parametrize("size", [1, 2, 3, 12])
 def test_plain_elimination_reports_a_singular_matrix(size: int) -> None:
     matrix = [[1.0] * size for _ in range(size)] if size > 1 else [[0.0]]
-    assert dcsolve._solve_linear(matrix, [1.0] * size) is None
+    assert solve_dense(matrix, [1.0] * size) is None
 
 
 def network_of(text: str) -> dcsolve._Network:

@@ -44,6 +44,7 @@ from ..devices.level1 import (
 )
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
+from .linear import solve_dense
 
 __all__ = [
     "EFFECTS",
@@ -1411,61 +1412,60 @@ def _solve_numerically(dc: _DcCircuit, start: Mapping[str, float] | None = None)
         (t, index.get(t.drain), index.get(t.gate), index.get(t.source), index.get(t.bulk)) for t in dc.transistors
     ]
     node_count = len(nodes)
-    diagonal = np.arange(node_count)
+    # The algebra in plain floats: a stage leaves a handful of unknowns, where numpy's per-call
+    # overhead would be most of the time (bridge.analysis.linear).
+    base, source_side = matrix.tolist(), rhs.tolist()
 
-    def system(x: np.ndarray, gmin: float) -> tuple[np.ndarray, np.ndarray]:
-        residual = matrix @ x - rhs
-        jacobian = matrix.copy()
+    def system(x: list[float], gmin: float) -> tuple[list[float], list[list[float]]]:
+        residual = [sum(a * b for a, b in zip(row, x)) - r for row, r in zip(base, source_side)]
+        jacobian = [row[:] for row in base]
         if gmin:
-            residual[:node_count] += gmin * x[:node_count]
-            jacobian[diagonal, diagonal] += gmin
-        values = x.tolist()
+            for k in range(node_count):
+                residual[k] += gmin * x[k]
+                jacobian[k][k] += gmin
         for t, d, g, s, b in terminals:
-            point = evaluate(t.model, t.geometry, *(0.0 if k is None else values[k] for k in (d, g, s, b)))
-            c = point.conductances
-            partials = ((d, c.wrt_drain), (g, c.wrt_gate), (s, c.wrt_source), (b, c.wrt_bulk))
+            point = evaluate(t.model, t.geometry, *(0.0 if k is None else x[k] for k in (d, g, s, b)))
+            partials = tuple(zip((d, g, s, b), point.conductances))
             for row, sign in ((d, 1.0), (s, -1.0)):
                 if row is None:
                     continue
                 residual[row] += sign * point.drain_current
+                line = jacobian[row]
                 for col, partial in partials:
                     if col is not None:
-                        jacobian[row, col] += sign * partial
+                        line[col] += sign * partial
         return residual, jacobian
 
-    def ill_conditioned(jacobian: np.ndarray) -> bool:
+    def ill_conditioned(jacobian: list[list[float]]) -> bool:
         """np.linalg.cond(jacobian) > 1e15, from the same singular values (0/0 counts as ∞)."""
-        if jacobian.size == 0:
-            return bool(np.linalg.cond(jacobian) > 1e15)  # raises, as cond does on an empty matrix
-        singular = np.linalg.svd(jacobian, compute_uv=False).tolist()
+        if not jacobian:
+            return bool(np.linalg.cond(np.zeros((0, 0))) > 1e15)  # raises, as cond does on an empty matrix
+        singular = np.linalg.svd(np.array(jacobian), compute_uv=False).tolist()
         if singular[-1] == 0.0:
             return True
         return singular[0] / singular[-1] > 1e15
 
-    def newton(x: np.ndarray, gmin: float) -> tuple[np.ndarray | None, int]:
-        # Plain floats for the bookkeeping (the same values numpy would give), numpy for the algebra.
+    def newton(x: list[float], gmin: float) -> tuple[list[float] | None, int]:
         for iteration in range(1, _NEWTON_ITERATIONS + 1):
             residual, jacobian = system(x, gmin)
-            try:
-                step = np.linalg.solve(jacobian, -residual)
-            except np.linalg.LinAlgError:
-                return None, iteration
-            steps = step.tolist()
-            if not all(map(math.isfinite, steps)) or ill_conditioned(jacobian):
+            # The condition test first: elimination overwrites the jacobian.
+            bad = ill_conditioned(jacobian)
+            steps = solve_dense(jacobian, [-r for r in residual])
+            if steps is None or not math.isfinite(sum(steps)) or bad:
                 return None, iteration
             largest = max(map(abs, steps[:node_count])) if nodes else 0.0
-            widest = max(map(abs, x[:node_count].tolist())) if nodes else 0.0
+            widest = max(map(abs, x[:node_count])) if nodes else 0.0
             limit = max(_NEWTON_STEP_LIMIT, 0.5 * widest)
             if largest > limit:
-                step *= limit / largest
-            x = x + step
-            scale = 1.0 + (max(map(abs, x[:node_count].tolist())) if nodes else 0.0)
+                steps = [step * (limit / largest) for step in steps]
+            x = [value + step for value, step in zip(x, steps)]
+            scale = 1.0 + (max(map(abs, x[:node_count])) if nodes else 0.0)
             if largest <= 1e-13 * scale:
                 return x, iteration
         return None, _NEWTON_ITERATIONS
 
     spent = 0
-    initial = np.zeros(size)
+    initial = [0.0] * size
     if start:
         for node, k in index.items():
             initial[k] = start.get(node, 0.0)
@@ -1474,7 +1474,7 @@ def _solve_numerically(dc: _DcCircuit, start: Mapping[str, float] | None = None)
     if x is None:
         # A cut-off device can leave a node held by nothing at the start: lean on a shunt
         # conductance to ground, shrink it away, and finish without one.
-        x = np.zeros(size)
+        x = [0.0] * size
         for gmin in _GMIN_LADDER:
             attempt, used = newton(x, gmin)
             spent += used
