@@ -1150,9 +1150,9 @@ def _solve(net: _Network, sources: np.ndarray, start: _State, fresh: bool, metho
 
 def _operating_point(net: _Network, solved: _Solved, circuit_caveats: Sequence[str]) -> OperatingPoint:
     x = solved.state.x.tolist()
-    node_voltages = {GROUND: 0.0, **{node: x[k + 1] for k, node in enumerate(net.nodes)}}
-    first_branch = 1 + len(net.nodes)
-    branch_currents = {name: x[first_branch + k] for k, name in enumerate(net.branch_names)}
+    node_voltages = {GROUND: 0.0}
+    node_voltages.update(zip(net.nodes, x[1:]))
+    branch_currents = dict(zip(net.branch_names, x[1 + len(net.nodes) :]))
     devices: dict[str, Level1Point] = {}
     junctions: dict[str, BulkJunctions] = {}
     for mos in net.mosfets:
@@ -1165,19 +1165,19 @@ def _operating_point(net: _Network, solved: _Solved, circuit_caveats: Sequence[s
             bulk_source=_mos_junction(vbs, mos.source_saturation_current, net.gmin)[0],
         )
     diode_currents = {d.name: _diode_current(x[d.anode] - x[d.cathode], d, net.gmin)[0] for d in net.diodes}
-    caveats = list(circuit_caveats)
+    caveats = tuple(circuit_caveats)
     if not solved.tight:
-        caveats.append(
+        caveats += (
             f"converged to ngspice's tolerances (RELTOL {RELTOL:g}) but not to {TIGHT_RELTOL:g}: "
-            "a node is held by very small conductances"
+            "a node is held by very small conductances",
         )
     return OperatingPoint(
         node_voltages=node_voltages,
-        branch_currents={name: branch_currents[name] for name in net.branch_names},
+        branch_currents=branch_currents,
         devices=devices,
         method=solved.method,
         iterations=solved.iterations,
-        caveats=tuple(caveats),
+        caveats=caveats,
         junctions=junctions,
         diode_currents=diode_currents,
     )
