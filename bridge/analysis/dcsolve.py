@@ -287,18 +287,14 @@ class _Network:
         return loose, tight
 
     @cached_property
-    def _reductions(self) -> dict[float, _Reduction]:
-        return {}
+    def plain_reduction(self) -> _Reduction:
+        """The reduced system without stepped gmin: built once, used by every plain Newton."""
+        return _reduce(self, 0.0)
 
     def reduction(self, diagonal_gmin: float) -> _Reduction:
-        """The system Newton solves, with `diagonal_gmin` from every node to ground (kept per value
-        without gmin; each gmin step builds its own, once for all its iterations)."""
-        if diagonal_gmin == 0.0:
-            cache = self._reductions
-            if 0.0 not in cache:
-                cache[0.0] = _reduce(self, 0.0)
-            return cache[0.0]
-        return _reduce(self, diagonal_gmin)
+        """The system Newton solves with `diagonal_gmin` from every node to ground (each gmin
+        step builds its own, once for all its iterations)."""
+        return self.plain_reduction if diagonal_gmin == 0.0 else _reduce(self, diagonal_gmin)
 
     def source_vector(self, overrides: Mapping[str, float] | None) -> np.ndarray:
         values = self.source_defaults.copy()
