@@ -10,11 +10,12 @@ the next netlist's check (and send its deck) before comparing and printing this 
 from __future__ import annotations
 
 from collections import deque
+from dataclasses import dataclass
 from collections.abc import Iterator
 
 from .analysis.dcsolve import DcSolveError, OperatingPoint, solve_operating_point
 from .analysis.hand import HandAnalysisError, HandModel, HandSolution
-from .compare import CheckResult, Expectations, Finding, compare
+from .compare import EFFECTS, CheckResult, Expectations, Finding, compare
 from .netlist.circuit import Circuit
 from .sim.client import NgspiceSession, SimulationFailed, SimulatorError, SimulatorTimeout
 from .sim.operating_point import PendingOperatingPoint, SimOperatingPoint, submit_operating_point
@@ -48,19 +49,79 @@ def start_check(
     expect: Expectations | None = None,
     unavailable_hint: str | None = None,
     submit: bool = True,
+    own: OwnColumns | None = None,
 ) -> PendingCheck:
     """The check up to ngspice's answer: the deck sent (unless `submit` is False: then it is sent
-    by ``PendingCheck.submit`` or at the latest by ``finish``), hand and level-1 solved.
+    by ``PendingCheck.submit`` or at the latest by ``finish``), hand and level-1 solved (or taken
+    from `own`, when ``solve_own_columns(circuit)`` was run already, in another process say).
 
     ``start_check(...).finish()`` is ``check_circuit(...)``, whenever the deck is sent.
     """
-    if not circuit.elements_of("mosfet"):
-        raise NotASingleStage("the netlist has no MOSFET: biasbridge checks MOSFET bias points")
+    if own is None and not circuit.elements_of("mosfet"):
+        raise NotASingleStage(NO_MOSFET)
     check = PendingCheck(circuit, session, tolerance, sim_timeout, expect, unavailable_hint)
     if submit:
         check.submit()
-    check._solve_own_columns()
+    check.own = own if own is not None else solve_own_columns(circuit)
     return check
+
+
+NO_MOSFET = "the netlist has no MOSFET: biasbridge checks MOSFET bias points"
+
+
+@dataclass(frozen=True)
+class OwnColumns:
+    """What a check computes without ngspice: the hand solution, its re-solves with one effect
+    switched on (``compare.EFFECTS``; None when the hand model does not cover the circuit), the
+    level-1 operating point (None when the solver failed), and the findings these raised."""
+
+    hand: HandSolution
+    with_effect: dict[str, HandSolution] | None
+    level1: OperatingPoint | None
+    findings: tuple[Finding, ...]
+
+
+def solve_own_columns(circuit: Circuit) -> OwnColumns:
+    """The hand and level-1 columns of `circuit`; a column that fails becomes a finding."""
+    if not circuit.elements_of("mosfet"):
+        raise NotASingleStage(NO_MOSFET)
+    findings: list[Finding] = []
+    with_effect = None
+    try:
+        model = HandModel(circuit)
+        hand = model.solve()
+    except HandAnalysisError as exc:
+        # Outside the hand model (a BJT or diode in the circuit, a floating gate, ...): the
+        # other two columns still report.
+        findings.append(Finding("warning", "hand-unavailable", f"hand analysis: {exc}", None, None))
+        hand = HandSolution(f"outside the hand model ({exc})", False, {}, {}, (), ())
+    else:
+        if hand.devices:
+            # Started from the plain hand point: one effect moves it a little, and Newton from
+            # there needs a few iterations where a start from zero can need the gmin ladder.
+            with_effect = {
+                effect: model.solve(effects=frozenset({effect}), working=False, start=hand.node_voltages)
+                for effect in EFFECTS
+            }
+
+    if hand.devices and not hand.closed_form:
+        findings.append(
+            Finding("info", "hand-numeric", f"hand analysis: {hand.topology}; no closed form was used, the "
+                    "simplified model was solved numerically", None, None)
+        )
+
+    level1 = None
+    try:
+        level1 = solve_operating_point(circuit)
+        for caveat in level1.caveats:
+            findings.append(Finding("info", "solver-caveat", caveat, None, None))
+        if level1.method != "newton":
+            findings.append(
+                Finding("info", "solver-method", f"level-1 solver converged by {level1.method}", None, None)
+            )
+    except DcSolveError as exc:
+        findings.append(Finding("error", "solver-failed", f"level-1 solver: {exc}", None, None))
+    return OwnColumns(hand, with_effect, level1, tuple(findings))
 
 
 class PendingCheck:
@@ -84,9 +145,8 @@ class PendingCheck:
         self.sim_timeout = sim_timeout
         self.expect = expect
         self.unavailable_hint = unavailable_hint
-        self.findings: list[Finding] = [
-            Finding("info", n.code, n.message, n.line, None) for n in circuit.notices
-        ]
+        self.findings: list[Finding] = []  # ngspice's; the circuit's notices and own columns' come first
+        self.own: OwnColumns | None = None  # set by start_check
         self.submitted = session is None
         self._pending: PendingOperatingPoint | None = None
         self._not_sent: SimulatorError | None = None
@@ -111,46 +171,6 @@ class PendingCheck:
         if self._collected or self.session is None or self._not_sent is not None:
             return True
         return self._pending is not None and self._pending.answered
-
-    def _solve_own_columns(self) -> None:
-        circuit, findings = self.circuit, self.findings
-        self._attribution = None
-        try:
-            model = HandModel(circuit)
-            hand = model.solve()
-        except HandAnalysisError as exc:
-            # Outside the hand model (a BJT or diode in the circuit, a floating gate, ...): the
-            # other two columns still report.
-            findings.append(Finding("warning", "hand-unavailable", f"hand analysis: {exc}", None, None))
-            hand = HandSolution(f"outside the hand model ({exc})", False, {}, {}, (), ())
-        else:
-
-            def attribution(effect: str) -> HandSolution:
-                # Started from the plain hand point: one effect moves it a little, and Newton from
-                # there needs a few iterations where a start from zero can need the gmin ladder.
-                return model.solve(effects=frozenset({effect}), working=False, start=hand.node_voltages)
-
-            self._attribution = attribution
-        self._hand = hand
-
-        if hand.devices and not hand.closed_form:
-            findings.append(
-                Finding("info", "hand-numeric", f"hand analysis: {hand.topology}; no closed form was used, the "
-                        "simplified model was solved numerically", None, None)
-            )
-
-        self._level1: OperatingPoint | None = None
-        try:
-            level1 = solve_operating_point(circuit)
-            self._level1 = level1
-            for caveat in level1.caveats:
-                findings.append(Finding("info", "solver-caveat", caveat, None, None))
-            if level1.method != "newton":
-                findings.append(
-                    Finding("info", "solver-method", f"level-1 solver converged by {level1.method}", None, None)
-                )
-        except DcSolveError as exc:
-            findings.append(Finding("error", "solver-failed", f"level-1 solver: {exc}", None, None))
 
     def collect(self) -> None:
         """Take ngspice's answer (waiting for it if need be) or its failure, as findings."""
@@ -191,10 +211,15 @@ class PendingCheck:
     def finish(self) -> CheckResult:
         """The check's result: ngspice's answer collected (see ``collect``), the columns compared."""
         self.collect()
+        own = self.own
+        assert own is not None
+        notices = [Finding("info", n.code, n.message, n.line, None) for n in self.circuit.notices]
+        findings = (*notices, *own.findings, *self.findings)
         return compare(
-            self.circuit, self._hand, self._level1, self._sim,
-            simulator=self._simulator, tolerance=self.tolerance, attribution=self._attribution,
-            expect=self.expect, findings=tuple(self.findings),
+            self.circuit, own.hand, own.level1, self._sim,
+            simulator=self._simulator, tolerance=self.tolerance,
+            attribution=own.with_effect.__getitem__ if own.with_effect is not None else None,
+            expect=self.expect, findings=findings,
         )
 
 

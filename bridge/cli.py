@@ -96,9 +96,10 @@ def command_check(args: argparse.Namespace) -> int:
     session = NgspiceSession() if available else None
     if session is not None:
         session.spawn()  # ngspice starts up while the analyses are imported and the netlists read
-    from .check import CheckQueue, NotASingleStage, PendingCheck, start_check
-    from .expect import check_against_circuit, read_expectations
-    from .netlist import NetlistError, read_netlist
+    from .ahead import Preparation, Prepared, worth_a_helper
+    from .check import CheckQueue, PendingCheck, start_check
+    from .expect import read_expectations
+    from .netlist import NetlistError
     from .report.check_view import check_json, check_renderable, print_check
 
     console = _console()
@@ -114,6 +115,8 @@ def command_check(args: argparse.Namespace) -> int:
     if session is None:
         print(f"biasbridge: {hint}", file=sys.stderr)
     status = EXIT_OK
+    # Reading and solving run ahead in a second process when there are enough files (see ahead.py).
+    prepared = Preparation(args.files, expectations, helper=worth_a_helper(len(args.files)))
     progress = None
     if len(args.files) > 3 and console.is_terminal and not args.json:
         from rich.console import Console
@@ -147,29 +150,21 @@ def command_check(args: argparse.Namespace) -> int:
 
     try:
         # Started in order and reported in order; see CheckQueue for how ngspice is kept busy.
-        for path in args.files:
-            item: object
-            try:
-                circuit = read_netlist(path)
-                if expectations is not None:
-                    check_against_circuit(
-                        expectations, set(circuit.nodes()), {e.name.lower() for e in circuit.elements}
-                    )
+        for ready in prepared:
+            item: object = ready
+            if isinstance(ready, Prepared):
                 item = start_check(
-                    circuit, session, tolerance=args.tol, sim_timeout=args.sim_timeout,
+                    ready.circuit, session, tolerance=args.tol, sim_timeout=args.sim_timeout,
                     expect=expectations, unavailable_hint=None if available else hint,
-                    submit=queue.may_submit(),
+                    submit=queue.may_submit(), own=ready.own,
                 )
-            except NetlistError as exc:
-                item = exc.render()
-            except NotASingleStage as exc:
-                item = f"{path}:1:1: {exc}"
             queue.add(item)
             for done in queue.ready():
                 report(done)
         for done in queue.rest():
             report(done)
     finally:
+        prepared.close()
         if progress is not None:
             progress.stop()
         if session is not None:

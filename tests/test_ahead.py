@@ -1,0 +1,132 @@
+"""Reading ahead in a forked helper (bridge/ahead.py): the same items, in the same order, as
+reading every file in this process; the output of a many-file `check` unchanged by it.
+
+Real forked helpers throughout; where a test needs one to stall or die, it is stopped or killed
+with a real signal.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import threading
+from pathlib import Path
+
+import pytest
+from conftest import EXAMPLES
+
+from bridge.ahead import AHEAD_FROM, Preparation, Prepared, prepare, worth_a_helper
+from bridge.cli import main
+from bridge.sim.client import NgspiceSession, ngspice_available
+
+LIBRARY_FOUND, LIBRARY_HINT = ngspice_available()
+needs_library = pytest.mark.skipif(not LIBRARY_FOUND, reason=LIBRARY_HINT)
+
+BUNDLED = sorted(EXAMPLES.glob("*.cir"))
+
+
+def mixed_inputs(folder: Path) -> list[str]:
+    """Bundled stages twice over, with a bad card, a netlist without a MOSFET and a missing file
+    among them."""
+    bad = folder / "bad.cir"
+    bad.write_text("bad value\nR1 a 0 1.2.3k\n.end\n")
+    plain = folder / "no_mosfet.cir"
+    plain.write_text("a divider only\nV1 a 0 5\nR1 a b 1k\nR2 b 0 1k\n.op\n.end\n")
+    paths = [str(path) for path in BUNDLED]
+    return [*paths[:3], str(bad), *paths[3:], str(plain), str(folder / "missing.cir"), *paths]
+
+
+def test_prepare_gives_the_circuit_and_its_columns_or_the_located_message(tmp_path):
+    paths = mixed_inputs(tmp_path)
+    ready = prepare(paths[0], None)
+    assert isinstance(ready, Prepared) and ready.own.hand.devices and ready.own.level1 is not None
+    bad = prepare(str(tmp_path / "bad.cir"), None)
+    assert isinstance(bad, str) and bad.startswith(f"{tmp_path / 'bad.cir'}:2:")
+    plain = prepare(str(tmp_path / "no_mosfet.cir"), None)
+    assert plain == f"{tmp_path / 'no_mosfet.cir'}:1:1: the netlist has no MOSFET: biasbridge checks MOSFET bias points"
+
+
+def test_the_helper_delivers_what_preparing_here_gives_in_the_same_order(tmp_path):
+    paths = mixed_inputs(tmp_path)
+    here = list(Preparation(paths, None, helper=False))
+    preparation = Preparation(paths, None, helper=True)
+    assert preparation.helper_pid is not None
+    assert list(preparation) == here
+    assert preparation.helper_pid is None  # reaped once the last item is out
+
+
+def test_while_the_helper_stalls_this_process_takes_the_files_from_the_back(tmp_path):
+    paths = mixed_inputs(tmp_path)
+    here = list(Preparation(paths, None, helper=False))
+    preparation = Preparation(paths, None, helper=True)
+    pid = preparation.helper_pid
+    os.kill(pid, signal.SIGSTOP)
+
+    def resume_once_all_but_the_first_are_taken() -> None:
+        # This process then waits for the helper's first file, the only one left to it.
+        for _ in range(6000):
+            if preparation.taken_here == len(paths) - 1:
+                break
+            threading.Event().wait(0.01)
+        os.kill(pid, signal.SIGCONT)
+
+    resume = threading.Thread(target=resume_once_all_but_the_first_are_taken)
+    resume.start()
+    try:
+        assert list(preparation) == here
+    finally:
+        resume.join()
+    assert preparation.taken_here == len(paths) - 1
+
+
+def test_a_helper_killed_midway_leaves_the_rest_to_this_process(tmp_path):
+    paths = mixed_inputs(tmp_path)
+    here = list(Preparation(paths, None, helper=False))
+    preparation = Preparation(paths, None, helper=True)
+    items = iter(preparation)
+    first = next(items)
+    os.kill(preparation.helper_pid, signal.SIGKILL)
+    assert [first, *items] == here
+
+
+@needs_library
+def test_the_helper_holds_none_of_the_pipes_to_the_ngspice_worker(tmp_path):
+    paths = mixed_inputs(tmp_path)
+    with NgspiceSession() as session:
+        session.spawn()
+        preparation = Preparation(paths, None, helper=True)
+        pid = preparation.helper_pid
+        assert preparation._from_helper.poll(30)  # it has sent a result: past its start
+        os.kill(pid, signal.SIGSTOP)
+        try:
+            held = {int(fd) for fd in os.listdir(f"/proc/{pid}/fd")} - {0, 1, 2}
+            kinds = [os.readlink(f"/proc/{pid}/fd/{fd}") for fd in held]
+        finally:
+            os.kill(pid, signal.SIGCONT)
+        list(preparation)
+    assert len(held) == 1 and kinds[0].startswith("pipe:"), kinds  # its own pipe to this process
+
+
+def test_a_helper_only_pays_from_a_few_files_on():
+    assert not worth_a_helper(AHEAD_FROM - 1)
+    assert worth_a_helper(AHEAD_FROM) == (len(os.sched_getaffinity(0)) > 1)
+
+
+@needs_library
+def test_a_many_file_check_prints_what_checking_each_file_alone_prints(tmp_path, capsys):
+    paths = mixed_inputs(tmp_path)
+    assert worth_a_helper(len(paths)) or len(os.sched_getaffinity(0)) == 1
+    alone_out, alone_err = [], []
+    for path in paths:
+        main(["check", "--json", path])
+        captured = capsys.readouterr()
+        alone_out.append(captured.out)
+        alone_err.append(captured.err)
+    status = main(["check", "--json", *paths])
+    captured = capsys.readouterr()
+    assert status == 2
+    assert captured.out == "".join(alone_out)
+    assert captured.err == "".join(alone_err)
+    assert [json.loads(line)["file"] for line in captured.out.splitlines()] == [
+        path for path in paths if path.endswith(tuple(p.name for p in BUNDLED))]
