@@ -10,8 +10,8 @@ the next netlist's check (and send its deck) before comparing and printing this 
 from __future__ import annotations
 
 from collections import deque
-from dataclasses import dataclass
 from collections.abc import Iterator
+from dataclasses import dataclass
 
 from .analysis.dcsolve import DcSolveError, OperatingPoint, solve_operating_point
 from .analysis.hand import HandAnalysisError, HandModel, HandSolution
