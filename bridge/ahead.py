@@ -24,6 +24,7 @@ from .compare import Expectations
 from .expect import check_against_circuit
 from .netlist import NetlistError, read_netlist
 from .netlist.circuit import Circuit
+from .netlist.parser import load_grammar
 
 # Below this many files the fork (a few ms) and the pickling cost more than they save.
 AHEAD_FROM = 4
@@ -138,6 +139,7 @@ class Preparation:
         return index, item
 
     def _fork(self) -> None:
+        load_grammar()  # once, here, for both processes
         receiving, sending = Pipe(duplex=False)
         pid = os.fork()
         if pid == 0:  # the helper

@@ -97,12 +97,9 @@ def command_check(args: argparse.Namespace) -> int:
     if session is not None:
         session.spawn()  # ngspice starts up while the analyses are imported and the netlists read
     from .ahead import Preparation, Prepared, worth_a_helper
-    from .check import CheckQueue, PendingCheck, start_check
     from .expect import read_expectations
     from .netlist import NetlistError
-    from .report.check_view import check_json, check_renderable, print_check
 
-    console = _console()
     expectations = None
     if args.expect:
         try:
@@ -112,11 +109,16 @@ def command_check(args: argparse.Namespace) -> int:
             if session is not None:
                 session.close()
             return EXIT_INPUT
+    # Reading and solving run ahead in a second process when there are enough files (see
+    # ahead.py); it is forked before the report's modules load, which it does not need.
+    prepared = Preparation(args.files, expectations, helper=worth_a_helper(len(args.files)))
+    from .check import CheckQueue, PendingCheck, start_check
+    from .report.check_view import check_json, check_renderable, print_check
+
+    console = _console()
     if session is None:
         print(f"biasbridge: {hint}", file=sys.stderr)
     status = EXIT_OK
-    # Reading and solving run ahead in a second process when there are enough files (see ahead.py).
-    prepared = Preparation(args.files, expectations, helper=worth_a_helper(len(args.files)))
     progress = None
     if len(args.files) > 3 and console.is_terminal and not args.json:
         from rich.console import Console

@@ -409,6 +409,12 @@ def _parser() -> tuple[Lark, _CardTransformer]:
     return parser, transformer
 
 
+def load_grammar() -> None:
+    """Build the card parser now rather than at the first card (before a fork, say, so that
+    both processes share it)."""
+    _parser()
+
+
 def _grammar_cache_file() -> str | None:
     """The user's own cache file for the built grammar, or None when there is no writable place.
 
