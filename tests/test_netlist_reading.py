@@ -39,6 +39,29 @@ def test_comments_indented_inline_and_dollar():
     ]
 
 
+def test_inline_comment_forms_and_lookalikes():
+    circuit = parse(
+        "t\n.param half={1/2}\nR1 a 0 1k;glued\nR2 a 0 2k // slashes\nR3 a 0 3k $\n"
+        "R4 a//b 0 {4/half}\nR5 a$ 0 5k\n"
+    )
+    assert [(e.name, e.nodes, e.value) for e in circuit.elements] == [
+        ("R1", ("a", GROUND), 1e3),
+        ("R2", ("a", GROUND), 2e3),
+        ("R3", ("a", GROUND), 3e3),
+        ("R4", ("a//b", GROUND), 8.0),  # `//` and `/` that follow no blank are not comments
+        ("R5", ("a$", GROUND), 5e3),
+    ]
+
+
+def test_a_few_control_characters_are_tolerated():
+    # More control characters than max(8, 1 % of the text) mean binary data.
+    assert parse("t\n* \x01\x02\x03\x04\x05\x06\x07\x08\nR1 a 0 1k\n").element("R1") is not None
+    with pytest.raises(NetlistError, match="binary data"):
+        parse("t\n* \x01\x02\x03\x04\x05\x06\x07\x08\x0e\nR1 a 0 1k\n")
+    # Tab, line feed, vertical tab, form feed and carriage return are blanks, not binary.
+    assert parse("t\n" + "\t\v\f\r\n" * 20 + "R1 a 0 1k\n").element("R1") is not None
+
+
 def test_continuation_lines_indented_and_after_comments():
     circuit = parse(
         "t\nM1 d g 0 0 nch\n* a comment between\n\n   + w=10u\n+ l=2u\n"
@@ -206,6 +229,41 @@ def test_include_relative_to_including_file(tmp_path):
     assert circuit.model("nch") is not None
     assert circuit.element("R9").origin.file.endswith("more.inc")
     assert circuit.element("R9").origin.line == 2
+
+
+def test_include_through_a_symlinked_netlist(tmp_path):
+    # Includes resolve against the folder of the file itself, not of a link to it.
+    (tmp_path / "real").mkdir()
+    (tmp_path / "real" / "main.cir").write_text("t\n.include parts.inc\n")
+    (tmp_path / "real" / "parts.inc").write_text("R1 a 0 1k\n")
+    (tmp_path / "parts.inc").write_text("R2 a 0 2k\n")
+    try:
+        (tmp_path / "link.cir").symlink_to(tmp_path / "real" / "main.cir")
+    except OSError:
+        pytest.skip("no symbolic links here")
+    assert [e.name for e in read_netlist(tmp_path / "link.cir").elements] == ["R1"]
+
+
+def test_self_include_through_a_symlink_is_a_cycle(tmp_path):
+    (tmp_path / "main.cir").write_text("t\n.include link.cir\n")
+    try:
+        (tmp_path / "link.cir").symlink_to(tmp_path / "main.cir")
+    except OSError:
+        pytest.skip("no symbolic links here")
+    with pytest.raises(NetlistError, match="include cycle: main.cir → main.cir"):
+        read_netlist(tmp_path / "link.cir")
+
+
+def test_include_of_a_loop_of_symlinks_is_a_located_error(tmp_path):
+    (tmp_path / "main.cir").write_text("t\nR1 a 0 1k\n.include loop_a.inc\n")
+    try:
+        (tmp_path / "loop_a.inc").symlink_to(tmp_path / "loop_b.inc")
+        (tmp_path / "loop_b.inc").symlink_to(tmp_path / "loop_a.inc")
+    except OSError:
+        pytest.skip("no symbolic links here")
+    with pytest.raises(NetlistError, match="included file `loop_a.inc` cannot be located") as raised:
+        read_netlist(tmp_path / "main.cir")
+    assert (raised.value.location.line, raised.value.location.column) == (3, 10)
 
 
 def test_lib_section(tmp_path):

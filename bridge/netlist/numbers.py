@@ -18,14 +18,15 @@ import re
 # Scale factors of ngspice's Table 2.2. Order matters: "meg" and "mil" are tested
 # before the single letter "m".
 # Powers of ten, so that `10u` is the exact decimal 1e-05 rather than 10 * 1e-6.
-_SCALE_WORDS: tuple[tuple[str, int], ...] = (("meg", 6), ("mil", -6))
+_SCALE_WORDS: dict[str, int] = {"meg": 6, "mil": -6}
 _MIL_FACTOR = 25.4
 _SCALE_LETTERS: dict[str, int] = {"t": 12, "g": 9, "k": 3, "m": -3, "u": -6, "n": -9, "p": -12, "f": -15}
 
 _NUMBER = re.compile(
-    r"""(?P<mantissa>[+-]?(?:\d+\.?\d*|\.\d+))
-        (?:[eE](?P<exponent>[+-]?\d+))?
-        (?P<letters>.*)""",
+    r"""([+-]?(?:\d+\.?\d*|\.\d+))   # mantissa
+        (?:[eE]([+-]?\d+))?             # exponent
+        (.*)                            # letters
+    """,
     re.VERBOSE | re.DOTALL,
 )
 
@@ -50,34 +51,41 @@ def parse_number(text: str, *, allow_mil: bool = True) -> float:
     match = _NUMBER.fullmatch(text)
     if match is None:
         raise NumberError(f"`{text}` is not a number", 0)
-    mantissa = match["mantissa"]
-    exponent = int(match["exponent"] or 0)
-    letters = match["letters"]
-    start = match.start("letters")
+    mantissa, exponent_text, letters = match.groups()
+    exponent = int(exponent_text) if exponent_text else 0
+    mil = False
     if letters:
-        for index, char in enumerate(letters):
-            if char in _MICRO_SIGNS:
-                raise NumberError(
-                    f"`{text}`: `{char}` is not a SPICE scale factor; write `u` for micro",
-                    start + index,
-                )
-            if not (char.isalpha() or ord(char) > 127):
-                raise NumberError(
-                    f"`{text}` is not a number (unexpected `{char}` after `{text[:start + index]}`)",
-                    start + index,
-                )
+        # Plain ASCII letters (`k`, `uF`, `Meg`) are always fine: look closer only otherwise.
+        if not (letters.isascii() and letters.isalpha()):
+            _check_letters(text, letters, match.start(3))
         lowered = letters.lower()
-        word = next((w for w, _ in _SCALE_WORDS if lowered.startswith(w) and (w != "mil" or allow_mil)), None)
-        if word is not None:
-            exponent += dict(_SCALE_WORDS)[word]
+        word = lowered[:3]
+        if word == "meg" or (word == "mil" and allow_mil):
+            exponent += _SCALE_WORDS[word]
+            mil = word == "mil"
         else:
             exponent += _SCALE_LETTERS.get(lowered[0], 0)
     value = float(f"{mantissa}e{exponent}")
-    if match["letters"].lower().startswith("mil") and allow_mil:
+    if mil:
         value *= _MIL_FACTOR
     if not math.isfinite(value):
         raise NumberError(f"`{text}` is out of range", 0)
     return value
+
+
+def _check_letters(text: str, letters: str, start: int) -> None:
+    """The letters after a number must be letters: say which character is not, and where."""
+    for index, char in enumerate(letters):
+        if char in _MICRO_SIGNS:
+            raise NumberError(
+                f"`{text}`: `{char}` is not a SPICE scale factor; write `u` for micro",
+                start + index,
+            )
+        if not (char.isalpha() or ord(char) > 127):
+            raise NumberError(
+                f"`{text}` is not a number (unexpected `{char}` after `{text[:start + index]}`)",
+                start + index,
+            )
 
 
 _PREFIXES: tuple[tuple[int, str], ...] = (

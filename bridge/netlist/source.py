@@ -31,6 +31,8 @@ _ENDC = re.compile(r"\.endc(?=\s|$)", re.IGNORECASE)
 _END = re.compile(r"\.end(?=\s|$)", re.IGNORECASE)
 # Inline comments: `;` anywhere, `$` or `//` after a blank (a `$` inside a name is not one).
 _INLINE_COMMENT = re.compile(r";|(?<=\s)\$(?=\s|$)|(?<=\s)//")
+# Control characters other than the blanks \t \n \v \f \r: a sign of binary data.
+_CONTROL_CHARACTERS = re.compile(r"[\x00-\x08\x0e-\x1f]")
 
 
 @dataclass(frozen=True)
@@ -110,8 +112,9 @@ def decode_source(data: bytes, name: str) -> SourceFile:
     if b"\x00" in data[:65536]:
         raise NetlistError("binary data, not a SPICE netlist", Location(name, 1, 1))
     text = data.decode("utf-8", errors="replace")
-    controls = sum(1 for ch in text[:65536] if ord(ch) < 32 and ch not in "\t\r\n\f\v")
-    if controls > max(8, len(text[:65536]) // 100):
+    head = text[:65536]
+    controls = len(_CONTROL_CHARACTERS.findall(head))
+    if controls > max(8, len(head) // 100):
         raise NetlistError("binary data, not a SPICE netlist", Location(name, 1, 1))
     lines = tuple(text.replace("\r\n", "\n").replace("\r", "\n").split("\n"))
     if not text.strip():
@@ -120,6 +123,10 @@ def decode_source(data: bytes, name: str) -> SourceFile:
 
 
 def _strip_inline_comment(text: str) -> str:
+    # The pattern is slow to try at every position (its look-behinds defeat the literal
+    # search): most lines hold none of its characters, so look for those first.
+    if ";" not in text and "$" not in text and "//" not in text:
+        return text
     match = _INLINE_COMMENT.search(text)
     return text[: match.start()] if match else text
 
@@ -133,7 +140,11 @@ class _Reader:
 
     def __init__(self, deck: Deck) -> None:
         self.deck = deck
+        # Resolved paths of the files being read, the main file first. The main file's path
+        # is resolved only at its first include (resolving costs a system call per folder,
+        # and most netlists include nothing).
         self.include_stack: list[Path] = []
+        self.main_resolved = False
 
     # -- physical lines → logical cards of one file ---------------------------
     def cards_of(self, source: SourceFile, first_line: int) -> list[LogicalCard]:
@@ -154,13 +165,14 @@ class _Reader:
         for number in range(first_line, len(source.lines) + 1):
             raw = source.lines[number - 1]
             stripped = raw.lstrip(" \t\f\v")
-            indent = len(raw) - len(stripped)
+            # `.control`, `.endc` and `.end` all start with a dot: only then try their patterns.
+            dot = stripped[:1] == "."
             if control_start is not None:
-                if _ENDC.match(stripped):
+                if dot and _ENDC.match(stripped):
                     self.note_control(source, control_start, number, closed=True)
                     control_start = None
                 continue
-            if _CONTROL.match(stripped):
+            if dot and _CONTROL.match(stripped):
                 flush()
                 control_start = number
                 continue
@@ -169,11 +181,12 @@ class _Reader:
             if ended_at is not None:
                 after_end = True
                 continue
-            if _ENDC.match(stripped):
+            if dot and _ENDC.match(stripped):
                 self.deck.notices.append(
                     Notice("stray-endc", "`.endc` without `.control`: ignored", source.name, number)
                 )
                 continue
+            indent = len(raw) - len(stripped)
             body = _strip_inline_comment(stripped).rstrip()
             if stripped[0] == "+":
                 if not text_parts:
@@ -189,7 +202,7 @@ class _Reader:
                 text_parts.append(continued.strip())
                 continue
             flush()
-            if _END.match(stripped):
+            if dot and _END.match(stripped):
                 ended_at = number
                 continue
             if not body:
@@ -230,7 +243,7 @@ class _Reader:
         try:
             for card in self.cards_of(source, first_line):
                 if _INCLUDE.match(card.text):
-                    self.include(card, path, section=None)
+                    self.include(card, section=None)
                 elif _LIB.match(card.text):
                     words = card.text.split()
                     if len(words) == 2:
@@ -245,13 +258,13 @@ class _Reader:
                             )
                         )
                         continue
-                    self.include(card, path, section=words[2] if len(words) > 2 else None)
+                    self.include(card, section=words[2] if len(words) > 2 else None)
                 else:
                     self.deck.cards.append(card)
         finally:
             self.include_stack.pop()
 
-    def include(self, card: LogicalCard, including: Path, section: str | None) -> None:
+    def include(self, card: LogicalCard, section: str | None) -> None:
         words = card.text.split(None, 2)
         keyword = words[0]
         if len(words) < 2:
@@ -263,7 +276,13 @@ class _Reader:
         if not _LIB.match(card.text) and len(words) > 2:
             raw_name = card.text[offset:].strip()
         file_name = raw_name.strip("\"'")
-        target = (including.parent / os.path.expanduser(file_name)).resolve()
+        try:
+            if not self.main_resolved:
+                self.include_stack[0] = self.include_stack[0].resolve()
+                self.main_resolved = True
+            target = (self.include_stack[-1].parent / os.path.expanduser(file_name)).resolve()
+        except (OSError, RuntimeError) as exc:  # RuntimeError: a loop of symbolic links
+            raise card.error(f"included file `{file_name}` cannot be located ({exc})", offset) from None
         if target in self.include_stack:
             chain = " → ".join(p.name for p in self.include_stack[self.include_stack.index(target):])
             raise card.error(f"include cycle: {chain} → {target.name}", offset)
@@ -315,6 +334,6 @@ def read_deck(source: SourceFile, path: str | os.PathLike[str] | None = None) ->
     if title.lower().startswith(".title"):
         title = title[len(".title"):].strip()
     deck = Deck(title=title, source=source)
-    base = Path(path if path is not None else source.name).resolve()
+    base = Path(path if path is not None else source.name)  # resolved at the first include
     _Reader(deck).expand(source, base, 2)
     return deck
