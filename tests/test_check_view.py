@@ -9,11 +9,23 @@ import random
 
 import pytest
 from conftest import EXAMPLES
+from rich._wrap import divide_line
 from rich.console import Console, Group
 
 from bridge.check import check_circuit
 from bridge.netlist import parse_netlist, read_netlist
-from bridge.report.check_view import _CheckTable, _Header, _Line, check_renderable, plain_text, print_check
+from bridge.report.check_view import (
+    _breaks,
+    _CheckTable,
+    _Header,
+    _Line,
+    _one_cell_each,
+    _simple,
+    _single_cells,
+    check_renderable,
+    plain_text,
+    print_check,
+)
 
 # Plain words, the symbols the reports use, long words that must fold, odd spaces, and characters
 # rich measures as wide or as zero width (those go to rich's own Text and Table).
@@ -31,6 +43,24 @@ def printed(renderable, width: int, color_system: str | None, terminal: bool) ->
 
 def words(rng: random.Random, most: int) -> str:
     return "".join(rng.choice(PIECES) for _ in range(rng.randint(0, most)))
+
+
+def test_one_cell_each_is_simple_and_single_cells():
+    rng = random.Random(4)
+    for _ in range(3000):
+        text = words(rng, 8) + rng.choice(["", "\t", "\n", "\r", "\x01", "\x7f", "\u0085", "\u2028", "ä"])
+        assert _one_cell_each(text) == (_simple(text) and _single_cells(text)), repr(text)
+
+
+def test_breaks_are_where_rich_breaks_a_line():
+    rng = random.Random(5)
+    spaces = [" ", "  ", "\u00a0", "\u2003", "     "]
+    for _ in range(3000):
+        text = "".join(rng.choice(PIECES + spaces) for _ in range(rng.randint(0, 30)))
+        if not _one_cell_each(text):
+            continue
+        for width in (1, 2, 3, 7, 10, 31, 32, 80):
+            assert _breaks(text, width) == divide_line(text, width), (text, width)
 
 
 def test_a_line_prints_as_rich_text_prints_it_at_any_width():

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import random
 
 import pytest
 from conftest import needs_ngspice, ngspice_batch_op
@@ -116,3 +117,25 @@ def test_number_matches_ngspice_reading(tmp_path, text: str) -> None:
 )
 def test_engineering_notation_shows_the_prefix(value, unit, shown) -> None:
     assert engineering(value, unit) == shown
+
+
+def _engineering_reference(value: float, unit: str, digits: int) -> str:
+    """The notation computed the plain way: scale, round, and carry when the rounding reaches 1000."""
+    exponent = max(-18, min(12, math.floor(math.log10(abs(value)) / 3) * 3))
+    text = f"{value / 10.0**exponent:.{digits}g}"
+    if exponent < 12 and abs(float(text)) >= 1000:
+        exponent += 3
+        text = f"{value / 10.0**exponent:.{digits}g}"
+    prefix = {12: "T", 9: "G", 6: "M", 3: "k", 0: "", -3: "m", -6: "µ", -9: "n", -12: "p", -15: "f", -18: "a"}
+    return f"{text} {prefix[exponent]}{unit}".rstrip()
+
+
+def test_engineering_notation_rounds_and_carries_as_the_plain_computation() -> None:
+    rng = random.Random(7)
+    near_carry = [949.9999, 950.0, 950.0001, 999.4999, 999.5, 999.95, 999.96, 999.9999999]
+    for _ in range(20000):
+        value = rng.choice([rng.uniform(-1, 1) * 10 ** rng.uniform(-22, 16),
+                            rng.choice(near_carry) * 10.0 ** (3 * rng.randint(-7, 5)) * rng.choice([1, -1])])
+        for digits in (1, 2, 3, 4, 6):
+            for unit in ("V", ""):
+                assert engineering(value, unit, digits) == _engineering_reference(value, unit, digits), (value, digits)

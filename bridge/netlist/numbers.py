@@ -102,6 +102,7 @@ _PREFIXES: tuple[tuple[int, str], ...] = (
     (-18, "a"),
 )
 _PREFIX_OF = dict(_PREFIXES)
+_SCALE_OF = {exponent: 10.0**exponent for exponent, _ in _PREFIXES}  # the very floats 10.0**exponent gives
 
 
 def engineering(value: float | None, unit: str = "", digits: int = 4) -> str:
@@ -111,10 +112,15 @@ def engineering(value: float | None, unit: str = "", digits: int = 4) -> str:
     if value == 0 or not math.isfinite(value):
         return f"{value:g} {unit}".rstrip()
     exponent = math.floor(math.log10(abs(value)) / 3) * 3
-    exponent = max(-18, min(12, exponent))
-    text = f"{value / 10.0**exponent:.{digits}g}"
-    # Rounding may carry into the next decade group (999.96 → 1000).
-    if exponent < 12 and abs(float(text)) >= 1000:
+    if exponent > 12:  # clamped to the prefixes there are (if-tests: min and max cost more here)
+        exponent = 12
+    elif exponent < -18:
+        exponent = -18
+    scaled = value / _SCALE_OF[exponent]
+    text = f"{scaled:.{digits}g}"
+    # Rounding may carry into the next decade group (999.96 → 1000), which it can only from 950 up
+    # (one significant digit); below that the text need not be read back.
+    if exponent < 12 and abs(scaled) >= 950 and abs(float(text)) >= 1000:
         exponent += 3
-        text = f"{value / 10.0**exponent:.{digits}g}"
+        text = f"{value / _SCALE_OF[exponent]:.{digits}g}"
     return f"{text} {_PREFIX_OF[exponent]}{unit}".rstrip()

@@ -8,13 +8,14 @@ widths, same wrapping, same styles on the same characters), so the output is the
 and in a terminal; a check prints hundreds of short cells and lines per netlist, and rich's
 general machinery would otherwise cost more than the analyses. What this layout does not cover
 (a table wider than the console, tabs or control characters, a caller's justify or overflow
-setting) is handed to rich's own Table or Text.
+setting, a theme that styles the table's frame) is handed to rich's own Table or Text.
 """
 
 from __future__ import annotations
 
 import math
 import re
+from functools import lru_cache
 from typing import TYPE_CHECKING, Any
 
 from rich import box
@@ -36,8 +37,9 @@ SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "info": "dim"}
 COLUMN_TITLES = {"hand": "hand", "level1": "level-1", "sim": "ngspice", "expect": "expected"}
 
 Cell = tuple[str, str]  # text and style name ("" for none)
-_TRAILING_SPACE = re.compile(r"\s+$")  # as Text.rstrip_end finds it
-_WORD = re.compile(r"\s*\S+\s*")  # a word and the space after it, as rich's wrapping sees words
+_LAST_WORD_END = re.compile(r".*\S(?=\s)", re.DOTALL)  # up to the last word followed by space
+_WORD_AFTER = re.compile(r"(\S+)\s*")  # the next word: its text, then the space after it
+_ONE_CELL: set[str] = set()  # characters rich measures as one cell (its measure of one never changes)
 
 
 def _simple(text: str) -> bool:
@@ -47,29 +49,45 @@ def _simple(text: str) -> bool:
 
 def _single_cells(text: str) -> bool:
     """Every character one cell wide (no wide, combining or zero-width ones)."""
-    return text.isascii() or all(cell_len(character) == 1 for character in set(text))
+    if text.isascii():
+        return True
+    characters = set(text)
+    if all(cell_len(character) == 1 for character in characters):
+        _ONE_CELL.update(characters)
+        return True
+    return False
+
+
+def _one_cell_each(text: str) -> bool:
+    """``_simple(text) and _single_cells(text)``, at once for the usual text: printable text has no
+    newline, tab or control code, and its characters were mostly measured before."""
+    if text.isprintable() and (text.isascii() or _ONE_CELL.issuperset(text)):
+        return True
+    return _simple(text) and _single_cells(text)
 
 
 def _breaks(text: str, width: int) -> list[int]:
-    """Where rich's Text breaks `text` (single-cell characters) into lines of `width`: words of
-    text and trailing space, a word too long for any line folded (rich._wrap.divide_line)."""
+    """Where rich's Text breaks `text` (single-cell characters) into lines of `width`
+    (rich._wrap.divide_line): a word, its trailing space included, goes on the line when its text
+    ends within the line; a word too long for any line is folded, a line's width at a time."""
     breaks: list[int] = []
-    offset = 0  # cells used on the current line
-    for word in _WORD.finditer(text):
-        start, chunk = word.start(), word.group()
-        length = len(chunk.rstrip())
-        if width - offset >= length:
-            offset += len(chunk)
-        elif length > width:
-            pieces = [chunk[index:index + width] for index in range(0, len(chunk), width)]
-            for piece in pieces:
-                if start:
-                    breaks.append(start)
-                start += len(piece)
-            offset = len(pieces[-1])
-        elif offset and start:
+    line = 0  # where the current line starts
+    while line + width < len(text):
+        # The last word that fits is the last followed by space within one character past the
+        # line (a word the line cuts off is not), so the next word is the first that does not fit.
+        last = _LAST_WORD_END.match(text, line, line + width + 1)
+        fitted = last.end() if last else line
+        word = _WORD_AFTER.search(text, fitted)
+        if word is None:
+            break  # only space is left: it may run past the line
+        start = word.start() if fitted else 0  # the text's first word includes the space before it
+        if word.end(1) - start > width:
+            pieces = range(start, word.end(), width)
+            breaks += [piece for piece in pieces if piece]
+            line = pieces[-1]
+        else:  # onto the next line (never the first word: that one fits or is folded)
             breaks.append(start)
-            offset = len(chunk)
+            line = start
     return breaks
 
 
@@ -78,29 +96,30 @@ def _wrap(text: str, options: ConsoleOptions) -> list[tuple[int, str]] | None:
     fold overflow), each with where it starts in `text`; None where that is not the case and
     Text itself must do it."""
     width = options.max_width
-    if options.justify not in (None, "default") or not _simple(text) or not _single_cells(text):
+    if options.justify not in (None, "default") or not _one_cell_each(text):
         return None
     if len(text) <= width:
         return [(0, text)]
     if options.no_wrap or options.overflow not in (None, "fold") or width < 1:
         return None
     bounds = [0, *_breaks(text, width), len(text)]
-    lines = []
-    for start, end in zip(bounds, bounds[1:]):
-        line = text[start:end]
-        if len(line) > width and (space := _TRAILING_SPACE.search(line)):  # Text.rstrip_end
-            line = line[: len(line) - min(len(space.group(0)), len(line) - width)]
-        lines.append((start, line[:width]))  # Text.truncate (a folded line already fits)
-    return lines
+    # A line longer than the width is one that ends in space: Text strips that space down to the
+    # width (rstrip_end) and then cuts the line at the width (truncate), which is the cut alone.
+    return [(start, text[start:min(end, start + width)]) for start, end in zip(bounds, bounds[1:])]
 
 
 Run = tuple[str, "Style | None"]  # text and the style it prints in
 
 
+def _plain_output(console: Console) -> bool:
+    """Whether every run prints as plain text: a console without colour (a pipe) that does not record."""
+    return console.color_system is None and not console.record
+
+
 def _emit(console: Console, runs: list[Run]) -> list[Segment]:
     """Segments for (text, style) runs. Unstyled runs print as plain text, and in a console
     without colour (a pipe) every run does, so those are joined: the output is the same."""
-    plain_output = console.color_system is None and not console.record
+    plain_output = _plain_output(console)
     segments: list[Segment] = []
     pending: list[str] = []
     for text, style in runs:
@@ -152,7 +171,9 @@ class _Line(_Part):
         lines = _wrap(self.text, options)
         if lines is None:
             return None
-        style = console.get_style(self.style) if self.style else None
+        style = console.get_style(self.style) if self.style and not _plain_output(console) else None
+        if not style:  # one run: runs in no style are joined anyway (see _emit)
+            return [("".join(f"{line}\n" for _, line in lines), None)]
         runs: list[Run] = []
         for _, line in lines:
             runs += [(line, style), ("\n", None)]
@@ -175,7 +196,9 @@ class _Header(_Part):
         second = _wrap(self.second, options)
         if first is None or second is None:
             return None
-        bold = console.get_style("bold")
+        bold = None if _plain_output(console) else console.get_style("bold")
+        if not bold:  # one run: runs in no style are joined anyway (see _emit)
+            return [("".join(f"{line}\n" for _, line in (*first, *second)), None)]
         runs: list[Run] = []
         for start, line in first:
             split = min(max(len(self.file) - start, 0), len(line))  # the file name's part of this line
@@ -187,6 +210,14 @@ class _Header(_Part):
         for _, line in second:
             runs += [(line, None), ("\n", None)]
         return runs
+
+
+@lru_cache(maxsize=16)
+def _frame_lines(frame: box.Box, widths: tuple[int, ...]) -> tuple[str, str, str, str]:
+    """The table's top, its line under the header, a section line and its bottom for these column
+    widths (a check of many netlists prints tables of a few widths, over and over)."""
+    return (frame.get_top(widths), frame.get_row(widths, "head", edge=True), frame.get_row(widths, "row", edge=True),
+            frame.get_bottom(widths))
 
 
 class _CheckTable(_Part):
@@ -222,65 +253,67 @@ class _CheckTable(_Part):
 
     def runs(self, console: Console, options: ConsoleOptions) -> list[Run] | None:
         headers, rows = self.headers, self.rows
-        widths = [len(header) for header in headers]
-        for cells in rows:
-            for column, (text, _) in enumerate(cells):
-                if not (_simple(text) and _single_cells(text)):
-                    return None
-                if len(text) > widths[column]:
-                    widths[column] = len(text)
-        widths = [width + 2 for width in widths]  # padding (0, 1)
+        # Column by column (a row has a cell per header).
+        texts = [[cells[column][0] for cells in rows] for column in range(len(headers))]
+        # A column's text at once passes where each of its cells does (the usual case), or each is tried.
+        if not all(_one_cell_each("".join(column)) or all(map(_one_cell_each, column)) for column in texts):
+            return None
+        widths = [max(map(len, [header, *column])) + 2 for header, column in zip(headers, texts)]  # padding (0, 1)
         edges = len(headers) + 1  # the box's verticals, outer edges included
         if sum(widths) > options.max_width - edges:
             return None  # rich shrinks and wraps columns
-        frame = box.HEAVY_HEAD.substitute(options, safe=console.safe_box)
         get_style = console.get_style
-        # The styles rich's Table gives each part.
-        border = get_style("none") + get_style("")
+        # The styles rich's Table gives each part. The frame (style "none" + "") and the padding
+        # ("none") print as plain text, unless a theme gives those styles attributes: then rich does it.
+        if get_style("none") + get_style(""):
+            return None
         header_style = get_style("table.header") + get_style("")
-        pad = get_style("none")
-        styles = {style: get_style(style) for cells in rows for _, style in cells if style}
-        runs: list[Run] = []
-        put = runs.append
+        # The cells' styles; none without colour, where they do not show (see _emit).
+        styles: dict[str, Style | None] = {} if _plain_output(console) else {
+            name: get_style(name) if name else None for name in {style for cells in rows for _, style in cells}
+        }
+        frame = box.HEAVY_HEAD.substitute(options, safe=console.safe_box)
+        # Text's justification in a cell: the first column is left-justified and padded; the others
+        # strip the end and pad the front.
+        inner = [width - 2 for width in widths]
+        first, *others = texts
+        bodies = [[text.ljust(inner[0]) for text in first]]
+        bodies += [[text.rstrip().rjust(width) for text in column] for column, width in zip(others, inner[1:])]
 
-        def content(text: str, width: int, first_column: bool) -> str:
-            # Text's justification in a cell: left pads, right strips the end and pads the front.
-            return text.ljust(width) if first_column else text.rstrip().rjust(width)
-
-        put((frame.get_top(widths), border))
-        put(("\n", None))
-        put((frame.head_left, border))
+        top, head_row, section, bottom = _frame_lines(frame, tuple(widths))
+        runs: list[Run] = [(f"{top}\n{frame.head_left}", None)]
         for column, header in enumerate(headers):
             if column:
-                put((frame.head_vertical, border))
-            put((" ", header_style))
-            put((content(header, widths[column] - 2, column == 0), header_style))
-            put((" ", header_style))
-        put((frame.head_right, border))
-        put(("\n", None))
-        put((frame.get_row(widths, "head", edge=True), border))
-        put(("\n", None))
-        section = frame.get_row(widths, "row", edge=True)
+                runs.append((frame.head_vertical, None))
+            text = header.ljust(inner[0]) if column == 0 else header.rstrip().rjust(inner[column])
+            # Three segments, as rich's padded cell gives them: in colour each is styled on its own.
+            runs += [(" ", header_style), (text, header_style), (" ", header_style)]
+        runs.append((f"{frame.head_right}\n{head_row}\n", None))
         last = len(rows) - 1
-        for index, cells in enumerate(rows):
+        pending = ""  # unstyled text not yet in a run: runs in no style are joined anyway (see _emit)
+        for index, (cells, row) in enumerate(zip(rows, zip(*bodies))):
             if index == last:
                 left, right, divider = frame.foot_left, frame.foot_right, frame.foot_vertical
             else:
                 left, right, divider = frame.mid_left, frame.mid_right, frame.mid_vertical
-            put((left, border))
-            for column, (text, style) in enumerate(cells):
-                if column:
-                    put((divider, border))
-                put((" ", pad))
-                put((content(text, widths[column] - 2, column == 0), styles[style] if style else None))
-                put((" ", pad))
-            put((right, border))
-            put(("\n", None))
+            gap = f" {divider} "
+            row_styles = [styles[name] for _, name in cells] if styles else ()
+            if any(row_styles):
+                pending += f"{left} "
+                for column, (body, style) in enumerate(zip(row, row_styles)):
+                    if column:
+                        pending += gap
+                    if style:
+                        runs += [(pending, None), (body, style)]
+                        pending = ""
+                    else:
+                        pending += body
+                pending += f" {right}\n"
+            else:
+                pending += f"{left} {gap.join(row)} {right}\n"
             if index in self.section_ends and index != last:
-                put((section, border))
-                put(("\n", None))
-        put((frame.get_bottom(widths), border))
-        put(("\n", None))
+                pending += f"{section}\n"
+        runs.append((f"{pending}{bottom}\n", None))
         return runs
 
 
@@ -359,10 +392,8 @@ def _cell(value: float | None, unit: str, flagged: bool) -> Cell:
 
 
 def _row(label: str, columns: Columns, unit: str, shown: tuple[str, ...]) -> list[Cell]:
-    cells = [(label, "")]
-    for column in shown:
-        cells.append(_cell(columns.get(column), unit, column in columns.flagged))
-    return cells
+    flagged = columns.flagged
+    return [(label, ""), *[_cell(columns.get(column), unit, column in flagged) for column in shown]]
 
 
 def check_renderable(result: CheckResult, steps: bool = False) -> CheckView:
