@@ -759,3 +759,67 @@ def test_both_effects_on_reproduce_the_full_level1_model_in_ngspice(path):
     for node, value in solution.node_voltages.items():
         if node != "0":
             assert value == pytest.approx(reference[node], rel=1e-3, abs=1e-6), node
+
+
+# --- the numerical path's condition test ------------------------------------------------------
+
+
+def _cond_verdict(matrix: list[list[float]]) -> bool:
+    """What the numerical path refuses: np.linalg.cond above 1e15 (0/0 counts as ∞)."""
+    import numpy as np
+
+    return bool(np.linalg.cond(np.array(matrix)) > 1e15)
+
+
+def test_condition_screen_gives_the_svd_verdict_on_every_jacobian(monkeypatch):
+    # _ConditionTest skips the SVD of a jacobian close (Weyl) to one it has seen: on sequences
+    # like Newton's (a few rows changing) it must say exactly what np.linalg.cond says, and skip.
+    import numpy as np
+
+    from bridge.analysis import hand
+
+    svds = 0
+    svd = np.linalg.svd
+
+    def counted(*args, **kwargs):
+        nonlocal svds
+        svds += 1
+        return svd(*args, **kwargs)
+
+    monkeypatch.setattr(hand.np.linalg, "svd", counted)
+    rng = np.random.default_rng(7)
+    checked = skipped = 0
+    for size in (1, 2, 3, 5, 8):
+        for scale in (1.0, 1e-6, 1e6):
+            for weak in (1.0, 1e-5, 1e-9, 1e-14, 1e-17, 0.0):
+                base = rng.normal(size=(size, size)) * scale
+                base[-1] *= weak  # one row from well to not at all held
+                test = hand._ConditionTest()
+                for step in (0.0, 1e-12, 1e-9, 1e-6, 1e-3, 1.0, 1e-9):
+                    jacobian = base.copy()
+                    jacobian[0] += step * scale * rng.normal(size=size)
+                    rows = jacobian.tolist()
+                    before = svds
+                    assert test(rows) == _cond_verdict(jacobian.tolist()), (size, scale, weak, step)
+                    skipped += svds == before
+                    checked += 1
+    assert skipped > checked // 8  # the point of it: the small steps from a well-held base
+    # NaN and inf go to the SVD, as before (which gives its own verdict or raises).
+    test = hand._ConditionTest()
+    assert test([[1.0, 0.0], [0.0, 1.0]]) is False
+    with pytest.raises(np.linalg.LinAlgError):
+        test([[1.0, 0.0], [0.0, float("nan")]])
+
+
+def test_numerical_path_gives_the_same_answers_with_and_without_the_condition_screen(monkeypatch):
+    # The same answers, bit for bit, when every jacobian goes through the SVD.
+    from bridge.analysis import hand
+
+    def always_svd(self, jacobian):
+        return _cond_verdict(jacobian) if jacobian else hand.np.linalg.cond(hand.np.zeros((0, 0))) > 1e15
+
+    cases = [read_netlist(path) for path in sorted(EXAMPLES.glob("*.cir"))]
+    screened = [hand_analysis(c, effects={"lambda", "gamma"}) for c in cases]
+    monkeypatch.setattr(hand._ConditionTest, "__call__", always_svd)
+    plain = [hand_analysis(c, effects={"lambda", "gamma"}) for c in cases]
+    assert screened == plain

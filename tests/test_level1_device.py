@@ -522,3 +522,14 @@ def test_non_positive_effective_length_is_an_error() -> None:
 def test_non_positive_geometry_is_an_error() -> None:
     with pytest.raises(ValueError, match="W must be positive"):
         Level1Geometry(w=0.0)
+
+
+def test_with_lambda_gamma_is_dataclasses_replace() -> None:
+    import dataclasses
+
+    card = Level1Model.from_card("pmos", {"vto": -0.8, "kp": 40e-6, "lambda": 0.03, "gamma": 0.5, "tox": 1e-8})
+    for lambda_, gamma in ((0.0, 0.0), (card.lambda_, 0.0), (0.0, card.gamma)):
+        ours = card.with_lambda_gamma(lambda_, gamma)
+        assert ours == dataclasses.replace(card, lambda_=lambda_, gamma=gamma)
+        assert vars(ours) == vars(dataclasses.replace(card, lambda_=lambda_, gamma=gamma))
+    assert card.lambda_ == 0.03 and card.gamma == 0.5  # the card itself untouched

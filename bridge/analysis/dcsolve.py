@@ -87,6 +87,7 @@ MAX_EXP_ARG = 709.0  # ngspice's clamp on junction exponents (exp overflows past
 CIRCUIT_TEMPERATURE_K = 300.15
 THERMAL_VOLTAGE = K_OVER_Q * CIRCUIT_TEMPERATURE_K  # kT/q at 27 °C, as ngspice computes it
 ROOT2 = math.sqrt(2.0)
+_EPS = float(np.finfo(float).eps)  # machine epsilon, 2.2e-16
 
 NEWTON = "newton"
 GMIN_STEPPING = "gmin stepping"
@@ -373,9 +374,10 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
     branch_elements = [e for e in circuit.elements if e.kind in _BRANCH_KINDS]
     branch_index = {e.name.lower(): 1 + len(nodes) + k for k, e in enumerate(branch_elements)}
     size = 1 + len(nodes) + len(branch_elements)
-    linear = np.zeros((size, size))
+    # Stamped in plain floats (numpy's per-element indexing is slow), the same sums in the same order.
+    linear = [[0.0] * size for _ in range(size)]
     sources = [e for e in circuit.elements if e.kind in ("vsource", "isource")]
-    source_columns = np.zeros((size, len(sources)))
+    source_columns = [[0.0] * len(sources) for _ in range(size)]
     source_column = {e.name: k for k, e in enumerate(sources)}
 
     def control_branch(element: Element) -> int:
@@ -401,43 +403,43 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
                 caveats.append(f"{element.name}: 0 Ω taken as {ZERO_RESISTANCE:g} Ω, as ngspice does")
             conductance = 1.0 / resistance
             a, c = at[0], at[1]
-            linear[a, a] += conductance
-            linear[c, c] += conductance
-            linear[a, c] -= conductance
-            linear[c, a] -= conductance
+            linear[a][a] += conductance
+            linear[c][c] += conductance
+            linear[a][c] -= conductance
+            linear[c][a] -= conductance
         elif kind in _BRANCH_KINDS:
             k = branch_index[element.name.lower()]
             a, c = at[0], at[1]
             # KCL: the branch current leaves n+ and enters n−; the branch row states the voltage.
-            linear[a, k] += 1.0
-            linear[c, k] -= 1.0
-            linear[k, a] += 1.0
-            linear[k, c] -= 1.0
+            linear[a][k] += 1.0
+            linear[c][k] -= 1.0
+            linear[k][a] += 1.0
+            linear[k][c] -= 1.0
             if kind == "vsource":
-                source_columns[k, source_column[element.name]] = 1.0
+                source_columns[k][source_column[element.name]] = 1.0
             elif kind == "vcvs":
                 gain = _number(element.value, "gain", element)
-                linear[k, at[2]] -= gain
-                linear[k, at[3]] += gain
+                linear[k][at[2]] -= gain
+                linear[k][at[3]] += gain
             elif kind == "ccvs":
-                linear[k, control_branch(element)] -= _number(element.value, "transresistance", element)
+                linear[k][control_branch(element)] -= _number(element.value, "transresistance", element)
         elif kind == "isource":
             # SPICE: the current leaves n+ into the source and re-enters the circuit at n−.
             column = source_column[element.name]
-            source_columns[at[0], column] -= 1.0
-            source_columns[at[1], column] += 1.0
+            source_columns[at[0]][column] -= 1.0
+            source_columns[at[1]][column] += 1.0
         elif kind == "vccs":
             gm = _number(element.value, "transconductance", element)
             a, c, p, n = at
-            linear[a, p] += gm
-            linear[a, n] -= gm
-            linear[c, p] -= gm
-            linear[c, n] += gm
+            linear[a][p] += gm
+            linear[a][n] -= gm
+            linear[c][p] -= gm
+            linear[c][n] += gm
         elif kind == "cccs":
             gain = _number(element.value, "gain", element)
             k = control_branch(element)
-            linear[at[0], k] += gain
-            linear[at[1], k] -= gain
+            linear[at[0]][k] += gain
+            linear[at[1]][k] -= gain
         elif kind == "diode":
             diodes.append(_diode(element, at, circuit, caveats))
         elif kind == "mosfet":
@@ -448,8 +450,8 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
     return _Network(
         nodes=nodes,
         branch_names=tuple(e.name for e in branch_elements),
-        linear=linear,
-        source_columns=source_columns,
+        linear=np.array(linear, dtype=float).reshape(size, size),
+        source_columns=np.array(source_columns, dtype=float).reshape(size, len(sources)),
         source_names=tuple(e.name for e in sources),
         source_defaults=np.array([float(e.value or 0.0) for e in sources]),
         mosfets=tuple(mosfets),
@@ -782,6 +784,30 @@ class _Reduction:
     recover_kept: tuple[tuple[float, ...], ...]  # per eliminated unknown, its weight on each kept one
 
 
+def _surely_regular(block: np.ndarray) -> bool:
+    """Whether a 1×1 or 2×2 block is so far from singular that the rank test's SVD is sure to
+    pass it (False proves nothing: then the SVD decides).
+
+    1×1: any finite non-zero value. 2×2: σ₁·σ₂ = |det| and σ₁² ≤ ‖A‖²_F bound the condition
+    number by ‖A‖²_F/|det|. Where that is ≤ 1e10 (|det| taken from below), the SVD, whose
+    singular values are within far less than 1e-12·σ₁ of the exact ones, finds σ₂/σ₁ ≥ 0.99e-10:
+    far above the rank test's 2ε.
+    """
+    if block.shape == (1, 1):
+        value = float(block[0, 0])
+        return value != 0.0 and math.isfinite(value)
+    if block.shape != (2, 2):
+        return False
+    (a, b), (c, d) = block.tolist()
+    ad, bc = a * d, b * c
+    # |det| from below: ad − bc is off by at most about 2ε(|ad| + |bc|), and by a denormal's ulp
+    # if a product underflows. The range of ‖A‖²_F makes that margin immaterial and keeps the
+    # sums finite; NaN and inf fail the comparisons.
+    determinant = abs(ad - bc) - 4.0 * _EPS * (abs(ad) + abs(bc)) - 1e-300
+    square = a * a + b * b + c * c + d * d
+    return 1e-150 < square < 1e150 and square * (1.0 + 1e-12) <= 1e10 * determinant
+
+
 def _reduce(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _Reduction:
     """Fold the linear unknowns away. The block eliminated must be regular; where it is not
     (a voltage source straight across two device terminals leaves its branch row empty
@@ -810,10 +836,11 @@ def _reduce(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _
         if rest:
             # A rank test (SVD, numpy's matrix_rank tolerance) once per network: a block that only
             # rounds away from singular must not be inverted. Keeping more is always correct.
-            singular = np.linalg.svd(rr, compute_uv=False)
-            if singular[-1] <= singular[0] * len(rest) * np.finfo(float).eps:
-                continue
-            weights = np.linalg.solve(rr, np.hstack((rk, rest_sources)))
+            if not _surely_regular(rr):
+                singular = np.linalg.svd(rr, compute_uv=False)
+                if singular[-1] <= singular[0] * len(rest) * _EPS:
+                    continue
+            weights = np.linalg.solve(rr, np.concatenate((rk, rest_sources), axis=1))
             on_kept, on_sources = weights[:, :count], weights[:, count:]
             matrix, source_map = kk - kr @ on_kept, kept_sources - kr @ on_sources
         else:
@@ -899,6 +926,13 @@ def _newton(
     loose_floor, tight_floor = net.newton_floors
     gmin = net.gmin
     x = state.x.tolist()
+    # Per MOSFET, what no iteration changes: its state row (updated in place), polarity, and
+    # the places of its drain, gate, source and bulk in the reduced system.
+    mosfets = [
+        (mos, device_state, mos.model.polarity,
+         position[mos.drain], position[mos.gate], position[mos.source], position[mos.bulk])
+        for mos, device_state in zip(net.mosfets, state.mos, strict=True)
+    ]  # fmt: skip
     loose_count = 0
     for iteration in range(1, max_iterations + 1):
         matrix = [list(row) for row in reduction.matrix]
@@ -909,18 +943,16 @@ def _newton(
         # iterations while its current (zero) is already right.
         clipped = False
         linearised: list[tuple] = []
-        for mos, device_state in zip(net.mosfets, state.mos, strict=True):
+        for mos, device_state, polarity, d, gt, s, b in mosfets:
+            vs = x[mos.source]
             if iteration == 1:
                 vgs, vds, vbs, vbd = device_state[:4]
             else:
-                polarity, vs = mos.model.polarity, x[mos.source]
                 vgs, vds, vbs, vbd, junction_clipped = _limit_mosfet(
                     mos, device_state, polarity * (x[mos.gate] - vs), polarity * (x[mos.drain] - vs),
                     polarity * (x[mos.bulk] - vs),
                 )  # fmt: skip
                 clipped = clipped or junction_clipped
-            polarity = mos.model.polarity
-            vs = x[mos.source]
             vd, vg, vb = vs + polarity * vds, vs + polarity * vgs, vs + polarity * vbs
             point = mos.point(vd, vg, vs, vb)
             device_state[:] = [vgs, vds, vbs, vbd, point.vth]
@@ -929,7 +961,6 @@ def _newton(
             offset = point.drain_current - (
                 g.wrt_drain * vd + g.wrt_gate * vg + g.wrt_source * vs + g.wrt_bulk * vb
             )
-            d, gt, s, b = position[mos.drain], position[mos.gate], position[mos.source], position[mos.bulk]
             gd, gg, gs, gb = g
             for row, sign in ((d, 1.0), (s, -1.0)):
                 if row >= 0:  # the drain current enters the drain row and leaves the source row

@@ -28,6 +28,7 @@ from __future__ import annotations
 import math
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field, replace
+from operator import mul
 
 import numpy as np
 
@@ -44,7 +45,7 @@ from ..devices.level1 import (
 )
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
-from .linear import solve_dense
+from .linear import as_array, solve_dense
 
 __all__ = [
     "EFFECTS",
@@ -62,6 +63,7 @@ EFFECTS: frozenset[str] = frozenset({"lambda", "gamma"})
 
 _LINEAR_KINDS = frozenset({"resistor", "capacitor", "inductor", "vsource", "isource"})
 _CONTROLLED_KINDS = frozenset({"vcvs", "vccs", "cccs", "ccvs"})
+_HAND_KINDS = _LINEAR_KINDS | _CONTROLLED_KINDS | {"mosfet"}
 _MATCH = 1e-9  # relative agreement for "this Thevenin equivalent is just that one resistor"
 # Largest node-voltage change of one Newton iteration: 2 V, or half the largest node voltage
 # when the circuit swings wider (so a far-off solution is still reached in few steps).
@@ -194,6 +196,7 @@ class _Transistor:
 class _DcCircuit:
     """The circuit at DC: shorts merged, voltage-source nodes fixed, the rest as lists."""
 
+    nodes: tuple[str, ...]  # the circuit's nodes but ground (Circuit.nodes)
     merged: dict[str, str]  # every node name → the node it is shorted into
     fixed: dict[str, float]  # node → voltage set by voltage sources from ground
     rail_label: dict[str, str]  # fixed node → how the working names it (VDD, VNEG, 0)
@@ -204,6 +207,10 @@ class _DcCircuit:
     floating_sources: list[Element]  # voltage sources not referred to ground
     controlled: list[Element]
     notes: list[str] = field(default_factory=list)
+    # The numerical path's linear equations, once built (_node_equations). They do not involve
+    # the transistors, and the copies HandModel.solve makes with other transistor models share
+    # this list, so the attribution's re-solves build them once.
+    equations: list[_NodeEquations] = field(default_factory=list, repr=False, compare=False)
 
 
 def _number(value: object, what: str, element: Element) -> float:
@@ -224,10 +231,9 @@ def _resistance(element: Element) -> float:
 
 def hand_model(card_model: Level1Model, effects: frozenset[str] = frozenset()) -> Level1Model:
     """The hand model of a card: LAMBDA and GAMMA zeroed, unless named in `effects`."""
-    return replace(
-        card_model,
-        lambda_=card_model.lambda_ if "lambda" in effects else 0.0,
-        gamma=card_model.gamma if "gamma" in effects else 0.0,
+    return card_model.with_lambda_gamma(
+        card_model.lambda_ if "lambda" in effects else 0.0,
+        card_model.gamma if "gamma" in effects else 0.0,
     )
 
 
@@ -264,7 +270,7 @@ def _transistor(
 def _dc_circuit(circuit: Circuit, effects: frozenset[str]) -> _DcCircuit:
     """Reduce the circuit to DC: capacitors open, shorts merged, supplies fixed."""
     for element in circuit.elements:
-        if element.kind not in _LINEAR_KINDS | _CONTROLLED_KINDS | {"mosfet"}:
+        if element.kind not in _HAND_KINDS:
             raise HandAnalysisError(
                 f"{element.name}: the hand model covers MOSFETs, resistors, capacitors, inductors and "
                 f"sources; a {element.kind} is outside it"
@@ -275,11 +281,12 @@ def _dc_circuit(circuit: Circuit, effects: frozenset[str]) -> _DcCircuit:
         for key, fallback in (("defw", DEFAULT_W), ("defl", DEFAULT_L))
     )
     notes: list[str] = []
-    order = {node: k for k, node in enumerate(circuit.nodes())}
+    circuit_nodes = circuit.nodes()
+    order = {node: k for k, node in enumerate(circuit_nodes)}
 
     # Shorts (inductors, 0 Ω resistors) merge their nodes; ground stays its class's name.
     parent: dict[str, str] = {GROUND: GROUND}
-    for node in circuit.nodes():
+    for node in circuit_nodes:
         parent[node] = node
 
     def root(node: str) -> str:
@@ -288,8 +295,10 @@ def _dc_circuit(circuit: Circuit, effects: frozenset[str]) -> _DcCircuit:
             node = parent[node]
         return node
 
-    for element in circuit.elements:
-        shorted = element.kind == "inductor" or (element.kind == "resistor" and _resistance(element) == 0.0)
+    # Each resistor's value, read once (in element order, so the first bad one is reported).
+    resistances = [_resistance(e) if e.kind == "resistor" else None for e in circuit.elements]
+    for element, resistance in zip(circuit.elements, resistances):
+        shorted = element.kind == "inductor" or resistance == 0.0
         if shorted:
             a, b = root(element.nodes[0]), root(element.nodes[1])
             if a != b:
@@ -334,10 +343,9 @@ def _dc_circuit(circuit: Circuit, effects: frozenset[str]) -> _DcCircuit:
     current_sources = []
     transistors = []
     controlled = []
-    for element in circuit.elements:
+    for element, resistance in zip(circuit.elements, resistances):
         kind = element.kind
         if kind == "resistor":
-            resistance = _resistance(element)
             a, b = merged[element.nodes[0]], merged[element.nodes[1]]
             if resistance != 0.0 and a != b:
                 resistors.append(_Resistor(element.name, a, b, resistance))
@@ -351,6 +359,7 @@ def _dc_circuit(circuit: Circuit, effects: frozenset[str]) -> _DcCircuit:
         elif kind in _CONTROLLED_KINDS:
             controlled.append(element)
     return _DcCircuit(
+        nodes=circuit_nodes,
         merged=merged,
         fixed=fixed,
         rail_label=rail_label,
@@ -380,21 +389,30 @@ class _Network:
     conductance: np.ndarray
     injection: np.ndarray
     device: np.ndarray
+    rows: list[list[float]]  # the conductance matrix in plain floats, to cut blocks from
+
+    def block(self, rows: list[int], columns: list[int]) -> np.ndarray:
+        """``conductance[np.ix_(rows, columns)]``: the same array, without np.ix_'s overhead."""
+        g = self.rows
+        values = [[g[r][c] for c in columns] for r in rows]
+        return np.array(values, dtype=float).reshape(len(rows), len(columns))
 
 
 def _network(dc: _DcCircuit, transistor: _Transistor) -> _Network:
     free = [n for n in dict.fromkeys(dc.merged.values()) if n not in dc.fixed]
     index = {node: k for k, node in enumerate(free)}
     size = len(free)
-    conductance = np.zeros((size, size))
-    injection = np.zeros(size)
+    # Stamped in plain floats (numpy's per-element indexing is slow), the same sums in the same order.
+    conductance = [[0.0] * size for _ in range(size)]
+    injection = [0.0] * size
     for resistor in dc.resistors:
         g = 1.0 / resistor.resistance
         for here, there in ((resistor.a, resistor.b), (resistor.b, resistor.a)):
             if here in index:
-                conductance[index[here], index[here]] += g
+                row = conductance[index[here]]
+                row[index[here]] += g
                 if there in index:
-                    conductance[index[here], index[there]] -= g
+                    row[index[there]] -= g
                 else:
                     injection[index[here]] += g * dc.fixed[there]
     for source in dc.current_sources:
@@ -402,13 +420,14 @@ def _network(dc: _DcCircuit, transistor: _Transistor) -> _Network:
             injection[index[source.leaves]] -= source.current
         if source.enters in index:
             injection[index[source.enters]] += source.current
-    device = np.zeros(size)
+    device = [0.0] * size
     p = transistor.polarity
     if transistor.drain in index:
         device[index[transistor.drain]] -= p
     if transistor.source in index:
         device[index[transistor.source]] += p
-    return _Network(free, index, conductance, injection, device)
+    matrix = np.array(conductance, dtype=float).reshape(size, size)
+    return _Network(free, index, matrix, np.array(injection, dtype=float), np.array(device, dtype=float), conductance)
 
 
 def _unanchored_groups(dc: _DcCircuit, net: _Network) -> list[set[str]]:
@@ -442,14 +461,15 @@ def _reduce(net: _Network, kept: list[str], ports: list[str]) -> tuple[np.ndarra
     internal = [n for n in kept if n not in ports]
     pi = [net.index[n] for n in ports]
     ii = [net.index[n] for n in internal]
-    g, j = net.conductance, net.injection
-    y = g[np.ix_(pi, pi)].copy()
-    jt = j[pi].copy()
+    j = net.injection
+    y = net.block(pi, pi)
+    jt = j[pi]
     if ii:
-        rhs = np.column_stack([g[np.ix_(ii, pi)], j[ii]])
-        solved = np.linalg.solve(g[np.ix_(ii, ii)], rhs)
-        y -= g[np.ix_(pi, ii)] @ solved[:, :-1]
-        jt -= g[np.ix_(pi, ii)] @ solved[:, -1]
+        rhs = np.column_stack([net.block(ii, pi), j[ii]])
+        solved = np.linalg.solve(net.block(ii, ii), rhs)
+        coupling = net.block(pi, ii)
+        y -= coupling @ solved[:, :-1]
+        jt -= coupling @ solved[:, -1]
     return y, jt
 
 
@@ -487,6 +507,7 @@ class _Stage:
     held_node: str | None  # the node whose only DC path is a current source: it fixes ID
     held_current: float
     held_by: tuple[str, ...]
+    response: np.ndarray | None  # without a held node: each node's voltage per A of device current
 
 
 def _group_resistors(dc: _DcCircuit, node: str, skip: str | None) -> tuple[str, ...]:
@@ -681,12 +702,16 @@ def _recognise(dc: _DcCircuit) -> tuple[str, _Stage | None, str | None]:
         drain = _channel_terminal(dc, d, "drain", y, jt, channel_ports.index(d) if d in channel_ports else 0, held)
         source = _channel_terminal(dc, s, "source", y, jt, channel_ports.index(s) if s in channel_ports else 0, held)
         gate = _gate_terminal(dc, net, transistor, kept)
-        if kept:
+        response = None
+        if held is None:
+            # The affine closed form's slopes; the solve doubles as the test that the network is regular.
+            response = np.linalg.solve(net.conductance, net.device)
+        elif kept:
             rows = [net.index[n] for n in kept]
-            np.linalg.solve(net.conductance[np.ix_(rows, rows)], np.ones(len(rows)))
+            np.linalg.solve(net.block(rows, rows), np.ones(len(rows)))
     except np.linalg.LinAlgError:
         return f"{pmos}single MOSFET, other bias network", None, "the resistive network is singular"
-    stage = _Stage(transistor, net, gate, drain, source, held, held_current, held_by)
+    stage = _Stage(transistor, net, gate, drain, source, held, held_current, held_by, response)
     if held is not None and held_current == 0.0:
         return (
             _topology_label(dc, stage),
@@ -993,10 +1018,15 @@ def _voltage(dc: _DcCircuit, free: dict[str, float], node: str) -> float:
 
 
 def _solve_network(net: _Network, kept: list[str], drain_current: float) -> dict[str, float]:
-    idx = [net.index[n] for n in kept]
-    if not idx:
+    """The voltages of the `kept` nodes (a subsequence of net.nodes) with the device drawing ID."""
+    if not kept:
         return {}
-    solution = np.linalg.solve(net.conductance[np.ix_(idx, idx)], net.injection[idx] + drain_current * net.device[idx])
+    if len(kept) == len(net.nodes):  # all of them: the arrays as they are
+        matrix, injection, device = net.conductance, net.injection, net.device
+    else:
+        idx = [net.index[n] for n in kept]
+        matrix, injection, device = net.block(idx, idx), net.injection[idx], net.device[idx]
+    solution = np.linalg.solve(matrix, injection + drain_current * device)
     return dict(zip(kept, solution.tolist(), strict=True))
 
 
@@ -1038,7 +1068,8 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
     k, vt = beta(t.model, t.geometry), threshold(t.model, 0.0)
     base = _solve_network(net, net.nodes, 0.0)
     # Each node's response to the device current alone: V = base + ID·response.
-    response = dict(zip(net.nodes, np.linalg.solve(net.conductance, net.device).tolist(), strict=True))
+    assert stage.response is not None
+    response = dict(zip(net.nodes, stage.response.tolist(), strict=True))
 
     def at(node: str, current: float) -> float:
         if node in dc.fixed:
@@ -1082,7 +1113,7 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
                 "A",
             )
         )
-        return _ClosedForm(_solve_network(net, net.nodes, 0.0), 0.0, steps)
+        return _ClosedForm(dict(base), 0.0, steps)  # the network with ID = 0
 
     steps.append(Step("Assume saturation", "ID = (K/2)·VOV²"))
     if rg == 0.0:
@@ -1341,26 +1372,84 @@ def _gm_step(k: float, drive: float, current: float, region: str, vov: float | N
 # --- the numerical path -----------------------------------------------------------------------
 
 
-def _solve_numerically(dc: _DcCircuit, start: Mapping[str, float] | None = None) -> tuple[dict[str, float], int]:
-    """The simplified model's node equations solved by damped Newton (MNA): node voltages.
+_ILL_CONDITIONED = 1e15  # np.linalg.cond above which the numerical path refuses a Newton step
+_SURELY_CONDITIONED = 1e10
+_SVD_ERROR = 1e-12  # bound on |σ̂ − σ| / σmax for numpy's (LAPACK's) computed singular values
 
-    Newton starts from `start`'s node voltages where given (a nearby solution: the attribution
-    starts each one-effect re-solve from the plain hand point), from zero otherwise.
+
+class _ConditionTest:
+    """``np.linalg.cond(J) > 1e15`` for the successive jacobians of one numerical solve, with
+    most of the SVDs skipped (an SVD costs more than the rest of a Newton iteration).
+
+    Weyl's inequality: no singular value moves by more than ‖J − J₀‖₂ ≤ ‖J − J₀‖_F. So once a
+    jacobian J₀ has been through the SVD, a later J whose distance from J₀ keeps its condition
+    number below _SURELY_CONDITIONED needs no SVD of its own; otherwise the SVD runs and J
+    becomes the new J₀. The gap up to _ILL_CONDITIONED covers the SVD's own error: LAPACK's
+    singular values are within p(n)·ε·σmax of the exact ones, and _SVD_ERROR allows p(n) up to
+    about 4000, far more than a matrix of a few unknowns needs. A J the bound passes thus has an
+    exact condition number ≤ 1e10 and an SVD-computed one ≤ 1.02e10: the verdict the SVD itself
+    would give. J₀ is kept only when all its entries are finite; a NaN or inf in J fails the
+    bound (every comparison with NaN is false) and goes to the SVD.
     """
+
+    def __init__(self) -> None:
+        self._rows: list[list[float]] | None = None  # J₀, kept only when finite and well conditioned
+        self._high = self._low = 0.0  # its largest and smallest computed singular values
+
+    def __call__(self, jacobian: list[list[float]]) -> bool:
+        if not jacobian:
+            return bool(np.linalg.cond(np.zeros((0, 0))) > _ILL_CONDITIONED)  # raises, as cond does
+        if self._rows is not None:
+            square = 0.0
+            for row, old in zip(jacobian, self._rows):
+                if row != old:  # most rows are the linear network's, the same floats as in J₀
+                    square += sum([(a - b) * (a - b) for a, b in zip(row, old)])
+            # ‖J − J₀‖₂ from above, with room for the rounding of the sum and for underflow.
+            slack = _SVD_ERROR * self._high + math.sqrt(square) * (1.0 + 1e-9) + 1e-150
+            low = self._low - slack
+            if low > 0.0 and self._high + slack <= _SURELY_CONDITIONED * low:
+                return False
+        singular = np.linalg.svd(as_array(jacobian), compute_uv=False).tolist()
+        high, low = singular[0], singular[-1]
+        if low == 0.0:
+            return True  # 0/0 counts as ∞, as in cond
+        if high <= _SURELY_CONDITIONED * low and math.isfinite(sum(map(sum, jacobian))):
+            self._rows, self._high, self._low = [row[:] for row in jacobian], high, low
+        return high / low > _ILL_CONDITIONED
+
+
+@dataclass(frozen=True)
+class _NodeEquations:
+    """The linear part of the numerical path's MNA system, matrix·x = rhs: the unknowns are the
+    node voltages (ground left out; `index` gives their places) and then the branch currents of
+    the voltage sources and E/H sources. Newton adds the transistors at every iteration."""
+
+    nodes: list[str]
+    index: dict[str, int]
+    matrix: list[list[float]]
+    rhs: list[float]
+
+
+def _node_equations(dc: _DcCircuit) -> _NodeEquations:
+    """The linear MNA system of `dc`, built on first use and kept in ``dc.equations``."""
+    if dc.equations:
+        return dc.equations[0]
     nodes = [n for n in dict.fromkeys(dc.merged.values()) if n != GROUND]
     index = {node: k for k, node in enumerate(nodes)}
     branches = dc.voltage_sources + [e for e in dc.controlled if e.kind in ("vcvs", "ccvs")]
     branch_index = {e.name.lower(): len(nodes) + k for k, e in enumerate(branches)}
     size = len(nodes) + len(branches)
-    matrix = np.zeros((size, size))
-    rhs = np.zeros(size)
+    # The algebra in plain floats: a stage leaves a handful of unknowns, where numpy's per-call
+    # overhead would be most of the time (bridge.analysis.linear).
+    matrix = [[0.0] * size for _ in range(size)]
+    rhs = [0.0] * size
 
     def slot(node: str) -> int | None:
         return index.get(dc.merged.get(node, node))
 
     def add(row: int | None, col: int | None, value: float) -> None:
         if row is not None and col is not None:
-            matrix[row, col] += value
+            matrix[row][col] += value
 
     def control(element: Element) -> int:
         key = (element.controlling_source or "").lower()
@@ -1407,43 +1496,57 @@ def _solve_numerically(dc: _DcCircuit, start: Mapping[str, float] | None = None)
             gain = _number(element.value, "gain", element)
             add(a, control(element), gain)
             add(b, control(element), -gain)
+    equations = _NodeEquations(nodes, index, matrix, rhs)
+    dc.equations.append(equations)
+    return equations
 
-    terminals = [
-        (t, index.get(t.drain), index.get(t.gate), index.get(t.source), index.get(t.bulk)) for t in dc.transistors
-    ]
+
+def _solve_numerically(dc: _DcCircuit, start: Mapping[str, float] | None = None) -> tuple[dict[str, float], int]:
+    """The simplified model's node equations solved by damped Newton (MNA): node voltages.
+
+    Newton starts from `start`'s node voltages where given (a nearby solution: the attribution
+    starts each one-effect re-solve from the plain hand point), from zero otherwise.
+    """
+    equations = _node_equations(dc)
+    nodes, index, base, source_side = equations.nodes, equations.index, equations.matrix, equations.rhs
+    size = len(source_side)
+
+    # Per transistor: its terminals' unknowns (None for ground), the rows its drain current
+    # enters (+) and leaves (−), and the unknowns whose columns its partials go to (in the
+    # order d, g, s, b: with several devices on one node the sums keep that order).
+    devices = []
+    for t in dc.transistors:
+        terminals = tuple(index.get(n) for n in (t.drain, t.gate, t.source, t.bulk))
+        rows = tuple((row, sign) for row, sign in ((terminals[0], 1.0), (terminals[2], -1.0)) if row is not None)
+        columns = tuple((col, k) for k, col in enumerate(terminals) if col is not None)
+        devices.append((t.model, t.geometry, terminals, rows, columns))
     node_count = len(nodes)
-    # The algebra in plain floats: a stage leaves a handful of unknowns, where numpy's per-call
-    # overhead would be most of the time (bridge.analysis.linear).
-    base, source_side = matrix.tolist(), rhs.tolist()
 
     def system(x: list[float], gmin: float) -> tuple[list[float], list[list[float]]]:
-        residual = [sum(a * b for a, b in zip(row, x)) - r for row, r in zip(base, source_side)]
+        residual = [sum(map(mul, row, x)) - r for row, r in zip(base, source_side)]
         jacobian = [row[:] for row in base]
         if gmin:
             for k in range(node_count):
                 residual[k] += gmin * x[k]
                 jacobian[k][k] += gmin
-        for t, d, g, s, b in terminals:
-            point = evaluate(t.model, t.geometry, *(0.0 if k is None else x[k] for k in (d, g, s, b)))
-            partials = tuple(zip((d, g, s, b), point.conductances))
-            for row, sign in ((d, 1.0), (s, -1.0)):
-                if row is None:
-                    continue
-                residual[row] += sign * point.drain_current
+        for model, geometry, (d, g, s, b), rows, columns in devices:
+            point = evaluate(
+                model,
+                geometry,
+                0.0 if d is None else x[d],
+                0.0 if g is None else x[g],
+                0.0 if s is None else x[s],
+                0.0 if b is None else x[b],
+            )
+            current, partials = point.drain_current, point.conductances
+            for row, sign in rows:
+                residual[row] += sign * current
                 line = jacobian[row]
-                for col, partial in partials:
-                    if col is not None:
-                        line[col] += sign * partial
+                for col, k in columns:
+                    line[col] += sign * partials[k]
         return residual, jacobian
 
-    def ill_conditioned(jacobian: list[list[float]]) -> bool:
-        """np.linalg.cond(jacobian) > 1e15, from the same singular values (0/0 counts as ∞)."""
-        if not jacobian:
-            return bool(np.linalg.cond(np.zeros((0, 0))) > 1e15)  # raises, as cond does on an empty matrix
-        singular = np.linalg.svd(np.array(jacobian), compute_uv=False).tolist()
-        if singular[-1] == 0.0:
-            return True
-        return singular[0] / singular[-1] > 1e15
+    ill_conditioned = _ConditionTest()
 
     def newton(x: list[float], gmin: float) -> tuple[list[float] | None, int]:
         for iteration in range(1, _NEWTON_ITERATIONS + 1):
@@ -1498,21 +1601,13 @@ def _solve_numerically(dc: _DcCircuit, start: Mapping[str, float] | None = None)
 
 
 def _hand_device(point: Level1Point) -> HandDevice:
-    return HandDevice(
-        id=point.id,
-        vgs=point.vgs,
-        vds=point.vds,
-        vth=point.vth,
-        vov=point.vov,
-        gm=point.gm,
-        gds=point.gds,
-        region=point.region,
-    )
+    # HandDevice's fields in order: id, vgs, vds, vth, vov, gm, gds, region.
+    return HandDevice(point.id, point.vgs, point.vds, point.vth, point.vov, point.gm, point.gds, point.region)
 
 
 def _device_points(dc: _DcCircuit, voltages: dict[str, float]) -> dict[str, Level1Point]:
     return {
-        t.name: evaluate(t.model, t.geometry, *(voltages[n] for n in (t.drain, t.gate, t.source, t.bulk)))
+        t.name: evaluate(t.model, t.geometry, voltages[t.drain], voltages[t.gate], voltages[t.source], voltages[t.bulk])
         for t in dc.transistors
     }
 
@@ -1586,7 +1681,7 @@ def _numerical_solution(
     points = _device_points(dc, voltages)
     devices = {name: _hand_device(point) for name, point in points.items()}
     if not working:
-        return HandSolution(topology, False, _all_nodes(circuit, dc, voltages), devices, (), (), effects)
+        return HandSolution(topology, False, _all_nodes(dc, voltages), devices, (), (), effects)
     steps.append(Step(f"No closed form used: {reason}"))
     model_words = "the hand model" + (f" with {_effect_text(dc, effects)} switched on" if effects else "")
     steps.append(
@@ -1608,7 +1703,7 @@ def _numerical_solution(
     return HandSolution(
         topology=topology,
         closed_form=False,
-        node_voltages=_all_nodes(circuit, dc, voltages),
+        node_voltages=_all_nodes(dc, voltages),
         devices=devices,
         steps=tuple(steps + warnings),
         assumptions=_assumptions(dc, effects) + tuple(w.text for w in warnings),
@@ -1616,8 +1711,8 @@ def _numerical_solution(
     )
 
 
-def _all_nodes(circuit: Circuit, dc: _DcCircuit, voltages: dict[str, float]) -> dict[str, float]:
-    return {GROUND: 0.0, **{node: voltages[dc.merged[node]] for node in circuit.nodes()}}
+def _all_nodes(dc: _DcCircuit, voltages: dict[str, float]) -> dict[str, float]:
+    return {GROUND: 0.0, **{node: voltages[dc.merged[node]] for node in dc.nodes}}
 
 
 def _chosen_effects(effects: Iterable[str]) -> frozenset[str]:
@@ -1725,7 +1820,7 @@ def _solve(
     return HandSolution(
         topology=topology,
         closed_form=True,
-        node_voltages=_all_nodes(circuit, dc, voltages),
+        node_voltages=_all_nodes(dc, voltages),
         devices={t.name: _hand_device(point)},
         steps=tuple(solved.steps + warnings),
         assumptions=_assumptions(dc, chosen) + tuple(w.text for w in warnings),

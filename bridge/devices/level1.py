@@ -121,6 +121,14 @@ class Level1Model:
         """True when TNOM is the 27 °C circuit temperature, so no scaling is missing."""
         return math.isclose(self.tnom_celsius, CIRCUIT_TEMPERATURE_C, abs_tol=1e-9)
 
+    def with_lambda_gamma(self, lambda_: float, gamma: float) -> Level1Model:
+        """This model with LAMBDA and GAMMA replaced: ``dataclasses.replace(self, lambda_=...,
+        gamma=...)``, without replace's walk over every field and the frozen ``__init__`` (the
+        hand analysis makes three per checked stage). Nothing is derived from the two."""
+        model = object.__new__(type(self))
+        vars(model).update(vars(self), lambda_=lambda_, gamma=gamma)
+        return model
+
     def source_of(self, name: str) -> str:
         """Where a parameter's value came from: 'given', 'default' or the derivation rule."""
         key = _ALIASES.get(name.lower(), name.lower())
@@ -354,6 +362,9 @@ def classify_region(vov: float, vds: float) -> Region:
     return "triode"
 
 
+_new = tuple.__new__  # evaluate's way to make its named tuples (see there)
+
+
 def evaluate(
     model: Level1Model, geometry: Level1Geometry, vd: float, vg: float, vs: float, vb: float
 ) -> Level1Point:
@@ -396,31 +407,18 @@ def evaluate(
     gmbs = gm * body_factor
     gmbs_exact = gm * exact_body_factor
 
+    # The named tuples are made by tuple.__new__ from their fields in order: their own __new__
+    # is a Python function taking keywords, and the solvers evaluate at every Newton iteration.
     if swapped:
         # Current runs source→drain; the device's "source" is the drain terminal.
         # The polarity factors cancel in each derivative, so these hold for both types.
         drain_current = -polarity * current
-        conductances = TerminalConductances(
-            wrt_drain=gm + gds + gmbs_exact, wrt_gate=-gm, wrt_source=-gds, wrt_bulk=-gmbs_exact
-        )
+        # (wrt_drain, wrt_gate, wrt_source, wrt_bulk)
+        conductances = _new(TerminalConductances, (gm + gds + gmbs_exact, -gm, -gds, -gmbs_exact))
     else:
         drain_current = polarity * current
-        conductances = TerminalConductances(
-            wrt_drain=gds, wrt_gate=gm, wrt_source=-(gm + gds + gmbs_exact), wrt_bulk=gmbs_exact
-        )
-    return Level1Point(
-        id=-current if swapped else current,
-        vgs=vgs,
-        vds=vds,
-        vbs=vbs,
-        vth=vth,
-        vov=vov,
-        vdsat=vdsat,
-        gm=gm,
-        gds=gds,
-        gmbs=gmbs,
-        region=region,
-        swapped=swapped,
-        drain_current=drain_current,
-        conductances=conductances,
-    )
+        conductances = _new(TerminalConductances, (gds, gm, -(gm + gds + gmbs_exact), gmbs_exact))
+    return _new(Level1Point, (  # the fields, named alike but for id
+        -current if swapped else current, vgs, vds, vbs, vth, vov, vdsat, gm, gds, gmbs, region, swapped,
+        drain_current, conductances,
+    ))  # fmt: skip
