@@ -218,7 +218,7 @@ class PendingCheck:
         return compare(
             self.circuit, own.hand, own.level1, self._sim,
             simulator=self._simulator, tolerance=self.tolerance,
-            attribution=own.with_effect.__getitem__ if own.with_effect is not None else None,
+            with_effect=own.with_effect,
             expect=self.expect, findings=findings,
         )
 

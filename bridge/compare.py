@@ -10,7 +10,7 @@ attribution re-solves the hand model with one effect switched on at a time.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Mapping
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 from .analysis.dcsolve import OperatingPoint
@@ -128,13 +128,14 @@ def compare(
     *,
     simulator: tuple[str, str] | None = None,
     tolerance: float = DEFAULT_TOLERANCE,
-    attribution: Callable[[str], HandSolution] | None = None,
+    with_effect: Mapping[str, HandSolution] | None = None,
     expect: Expectations | None = None,
     findings: tuple[Finding, ...] = (),
 ) -> CheckResult:
     """Lay the columns side by side and flag what disagrees.
 
-    `attribution(effect)` re-solves the hand model with one effect switched on; `findings`
+    `with_effect[effect]` is the hand model re-solved with that effect switched on (one
+    solution per circuit, read by every transistor); `findings`
     carries what the callers already know (a failed simulation, a solver caveat).
     """
     found: list[Finding] = list(findings)
@@ -153,7 +154,6 @@ def compare(
         nodes[node] = Columns(hand_v, level1_v, sim_v, _expect_value(expected), flagged)
 
     devices: dict[str, DeviceComparison] = {}
-    solved_with_effect: dict[str, HandSolution] | None = None
     for element in circuit.elements_of("mosfet"):
         model = circuit.model(element.model or "")
         mos_type = model.type if model else "nmos"
@@ -183,10 +183,7 @@ def compare(
             "sim": sim_device.region if sim_device else None,
         }
         reference_region = region[reference_column]
-        if attribution is not None and hand_device and solved_with_effect is None:
-            # Once per circuit: every transistor reads its own point from the same re-solves.
-            solved_with_effect = {effect: attribution(effect) for effect in EFFECTS}
-        effect_solutions = solved_with_effect if hand_device and solved_with_effect is not None else {}
+        effect_solutions = with_effect if hand_device and with_effect is not None else {}
         for column in ("hand", "level1") if reference_column == "sim" else ("hand",):
             if region[column] and reference_region and region[column] != reference_region:
                 message = (
