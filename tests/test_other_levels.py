@@ -13,6 +13,7 @@ from __future__ import annotations
 import json
 import re
 import subprocess
+import sys
 from pathlib import Path
 
 import pytest
@@ -22,6 +23,7 @@ from bridge.check import check_circuit
 from bridge.cli import main
 from bridge.netlist import read_netlist
 from bridge.report.check_view import check_json
+from bridge.sim.client import NgspiceSession
 
 # Stages of a greenhouse sensor board and a bicycle dynamo light, one per model family.
 CARDS = {
@@ -258,3 +260,28 @@ def test_text_value_on_a_level1_card_is_still_a_located_error(tmp_path, capsys):
     assert main(["parse", str(path)]) == 2
     err = capsys.readouterr().err
     assert f"{path}:3:28: `3.3.0` is not a number (unexpected `.` after `3.3`)" in err
+
+
+@needs_ngspice
+def test_ngspice_files_stay_out_of_the_users_folder(card_files, tmp_path):
+    # BSIM3's parameter check writes `b3v33check.log` into ngspice's working folder (as
+    # `ngspice -b` does into the folder it is run from): the worker has a private one.
+    netlist = tmp_path / "bsim3_level8_nmos.cir"
+    netlist.write_text(CARDS["bsim3_level8_nmos.cir"])
+    completed = subprocess.run(
+        [sys.executable, "-m", "bridge", "check", netlist.name], capture_output=True, text=True,
+        cwd=tmp_path, timeout=120,
+    )
+    assert completed.returncode == 0, completed.stdout + completed.stderr
+    assert sorted(p.name for p in tmp_path.iterdir()) == [netlist.name]
+    subprocess.run([NGSPICE, "-b", netlist.name], capture_output=True, cwd=tmp_path, timeout=60)
+    assert (tmp_path / "b3v33check.log").exists()  # what the worker's folder kept away
+
+
+@needs_ngspice
+def test_the_workers_folder_goes_with_it(card_files):
+    with NgspiceSession() as session:
+        check_circuit(read_netlist(card_files["bsim3_level8_nmos.cir"]), session, tolerance=0.05)
+        folder = Path(session._worker.workdir)
+        assert (folder / "b3v33check.log").exists()
+    assert not folder.exists()
