@@ -14,6 +14,7 @@ import json
 import re
 import subprocess
 import sys
+from dataclasses import replace
 from pathlib import Path
 
 import pytest
@@ -21,7 +22,8 @@ from conftest import NGSPICE, needs_ngspice, ngspice_batch_op
 
 from bridge.check import check_circuit
 from bridge.cli import main
-from bridge.netlist import read_netlist
+from bridge.netlist import parse_netlist, read_netlist
+from bridge.netlist.emit import emit
 from bridge.report.check_view import check_json
 from bridge.sim.client import NgspiceSession
 
@@ -285,3 +287,12 @@ def test_the_workers_folder_goes_with_it(card_files):
         folder = Path(session._worker.workdir)
         assert (folder / "b3v33check.log").exists()
     assert not folder.exists()
+
+
+def test_emitted_card_keeps_names_and_text_and_is_a_fixed_point(card_files):
+    circuit = read_netlist(card_files["bsim3_level8_nmos.cir"])
+    card = next(line for line in emit(circuit).text.splitlines() if line.startswith(".model"))
+    assert card.startswith(".model NSENSE nmos (level=8 version=3.3.0 tox=4.1e-09 vth0=0.42 u0=280 ")
+    again = parse_netlist(emit(circuit).text)
+    assert again.models == {key: replace(m, origin=again.models[key].origin) for key, m in circuit.models.items()}
+    assert emit(again).text == emit(circuit).text
