@@ -32,6 +32,7 @@ from .parser import (
     AcPart,
     Assignment,
     DcPart,
+    ModelText,
     Positional,
     RawAnalysis,
     RawCard,
@@ -254,17 +255,7 @@ class _Builder:
                 f"model type `{raw.type.text}` is not supported (supported: {', '.join(sorted(MODEL_TYPES))})",
                 raw.type.offset,
             )
-        params: dict[str, float] = {}
-        for item in raw.items:
-            if not isinstance(item, Assignment):
-                raise raw.card.error("a model parameter needs a value: `name=value`", item.offset)
-            key = item.name.lower()
-            if not _IDENTIFIER.match(key):
-                raise raw.card.error(f"`{item.name}` is not a model parameter name", item.offset)
-            params[MODEL_ALIASES.get(key, key)] = self.value(item.value, raw.card, scope)
-        level_value = params.pop("level", 1.0)
-        if level_value != int(level_value) or not 1 <= level_value <= 100:
-            raise raw.card.error(f"LEVEL must be a positive integer, not {level_value:g}", 0)
+        params, level_value = self.model_params(raw, scope, type_)
         name = raw.name if not scope.path else f"{scope.path}.{raw.name}"
         key = name.lower()
         if key in self.models and not scope.path:
@@ -280,6 +271,43 @@ class _Builder:
         if scope.path:
             scope.models[raw.name.lower()] = key
         self.models[key] = ModelCard(name, type_, int(level_value), params, _origin(raw.card))
+
+    def model_params(self, raw: RawModel, scope: _Scope, type_: str) -> tuple[dict[str, float | str], float]:
+        """A model card's parameters by lower-case name, and its LEVEL (the last one written).
+
+        Level-1 cards take biasbridge's aliases (`vt0` → `vto`, `u0` → `uo`, as mos1 reads them);
+        other levels keep every name as written, since their own models name them (BSIM3 knows
+        `u0`, not `uo`). A value that is no number (`version=3.3.0`) is kept as text on a MOSFET
+        card of another level, and is an error everywhere else.
+        """
+        for item in raw.items:
+            if not isinstance(item, Assignment):
+                raise raw.card.error("a model parameter needs a value: `name=value`", item.offset)
+            if not _IDENTIFIER.match(item.name.lower()):
+                raise raw.card.error(f"`{item.name}` is not a model parameter name", item.offset)
+        level_value = 1.0
+        for item in raw.items:
+            if item.name.lower() == "level":
+                level_value = self.model_value(item.value, raw.card, scope)
+        if level_value != int(level_value) or not 1 <= level_value <= 100:
+            raise raw.card.error(f"LEVEL must be a positive integer, not {level_value:g}", 0)
+        level1 = level_value == 1
+        text_allowed = not level1 and type_ in MODEL_TYPES_FOR["m"]
+        params: dict[str, float | str] = {}
+        for item in raw.items:
+            key = item.name.lower()
+            if key == "level":
+                continue
+            if isinstance(item.value, ModelText) and text_allowed:
+                params[key] = item.value.text
+            else:
+                params[MODEL_ALIASES.get(key, key) if level1 else key] = self.model_value(item.value, raw.card, scope)
+        return params, level_value
+
+    def model_value(self, value: Expr | ModelText, card: LogicalCard, scope: _Scope) -> float:
+        if isinstance(value, ModelText):
+            return self.word_number(Word(value.text, value.offset), card)
+        return self.value(value, card, scope)
 
     def resolve_model(self, word: Word, card: LogicalCard, scope: _Scope, letter: str) -> str:
         key = scope.models.get(word.text.lower(), word.text.lower())

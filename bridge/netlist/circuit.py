@@ -97,12 +97,13 @@ class Element:
 
 @dataclass(frozen=True)
 class ModelCard:
-    """A `.model` card: parameters by lower-case name, aliases resolved (vt0→vto, u0→uo)."""
+    """A `.model` card: parameters by lower-case name; on level-1 cards aliases resolved (vt0→vto,
+    u0→uo), on other levels names as written and text values (`version`: "3.3.0") kept as str."""
 
     name: str
     type: str
     level: int
-    params: dict[str, float]
+    params: dict[str, float | str]
     origin: Origin
 
 

@@ -3,8 +3,8 @@
 Canonical means: one card per line, lower-case keywords, values as exact decimal
 numbers in SI (no suffixes to misread), models before elements, parameters already
 resolved. emit → parse → emit is a fixed point. Nothing of the user's own text
-passes through except names (which the grammar has already read as single
-fields) and the title line.
+passes through except names and text-valued model parameters (`version=3.3.0`),
+which the grammar has already read as single fields, and the title line.
 """
 
 from __future__ import annotations
@@ -50,8 +50,13 @@ def _title(title: str) -> str:
     return f".title {text}" if text.lower().startswith(".title") else text
 
 
+def _model_value(value: float | str) -> str:
+    # Text values (`version=3.3.0` on a BSIM card) are single fields the grammar has read: as written.
+    return value if isinstance(value, str) else number(value)
+
+
 def model_card(model: ModelCard) -> str:
-    body = " ".join([f"level={model.level}"] + [f"{k}={number(v)}" for k, v in model.params.items()])
+    body = " ".join([f"level={model.level}"] + [f"{k}={_model_value(v)}" for k, v in model.params.items()])
     return f".model {model.name} {model.type} ({body})"
 
 

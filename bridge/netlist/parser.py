@@ -28,7 +28,7 @@ from .source import LogicalCard
 @dataclass(frozen=True)
 class Assignment:
     name: str
-    value: Expr
+    value: Expr | ModelText  # ModelText only in a `.model` card
     offset: int
 
 
@@ -45,6 +45,18 @@ class Positional:
 
 
 Item = Assignment | Word | Positional
+
+
+@dataclass(frozen=True)
+class ModelText:
+    """A model parameter's value that is not a number (`version=3.3.0`), kept as written.
+
+    Only a `.model` card's `name=value` has one; build.py accepts it on cards other than level 1
+    and reports it there as the number it is not.
+    """
+
+    text: str
+    offset: int
 
 
 @dataclass(frozen=True)
@@ -180,6 +192,13 @@ class _CardTransformer(Transformer):
             return Literal(parse_number(str(token)), token.start_pos)
         except NumberError as exc:
             raise self.card.error(str(exc), token.start_pos + exc.offset) from None
+
+    def model_number(self, children: list[Token]) -> Literal | ModelText:
+        token = children[0]
+        try:
+            return Literal(parse_number(str(token)), token.start_pos)
+        except NumberError:
+            return ModelText(str(token), token.start_pos)
 
     def literal(self, children: list[Token]) -> Literal:
         token = children[0]

@@ -396,12 +396,33 @@ def _row(label: str, columns: Columns, unit: str, shown: tuple[str, ...]) -> lis
     return [(label, ""), *[_cell(columns.get(column), unit, column in flagged) for column in shown]]
 
 
+def _hand_solved(result: CheckResult) -> bool:
+    """Whether the hand column holds a solution (it is empty when the hand model could not run)."""
+    return any(columns.hand is not None for columns in result.nodes.values())
+
+
+def _agreement(result: CheckResult) -> str:
+    """The verdict when nothing is flagged, naming only the columns that hold values."""
+    filled = [
+        COLUMN_TITLES[column] for column in COLUMNS
+        if any(columns.get(column) is not None for columns in result.nodes.values())
+    ]
+    if len(filled) == len(COLUMNS):
+        return "all three agree within tolerance"
+    if len(filled) > 1:
+        return f"{' and '.join(filled)} agree within tolerance"
+    if filled:
+        return f"nothing flagged; only the {filled[0]} column holds values, so nothing was compared"
+    return "nothing flagged; no column holds values, so nothing was compared"
+
+
 def check_renderable(result: CheckResult, steps: bool = False) -> CheckView:
     shown = COLUMNS + (("expect",) if result.has_expect else ())
     simulator = f"{result.simulator[0]} {result.simulator[1]}" if result.simulator else "no simulator"
     header = _Header(
         f"{result.file}", result.title,
-        f"topology: {result.topology}" + ("" if result.closed_form else " (no closed form: solved numerically)")
+        f"topology: {result.topology}" + ("" if result.closed_form or not _hand_solved(result)
+                                           else " (no closed form: solved numerically)")
         + f"   simulator: {simulator}",
     )
     table = _CheckTable(("quantity", *(COLUMN_TITLES[column] for column in shown)))
@@ -429,7 +450,7 @@ def check_renderable(result: CheckResult, steps: bool = False) -> CheckView:
         where = f"line {finding.line}: " if finding.line else ""
         parts.append(_Line(f"{finding.severity}: {where}{finding.message} [{finding.code}]",
                            SEVERITY_STYLE.get(finding.severity, "")))
-    verdict = "all three agree within tolerance" if result.agree else "disagreement flagged"
+    verdict = _agreement(result) if result.agree else "disagreement flagged"
     parts.append(_Line(f"→ {verdict}", "bold green" if result.agree else "bold red"))
     return CheckView(parts)
 

@@ -85,7 +85,7 @@ def circuit_renderable(circuit: Circuit) -> Group:
                 model.name,
                 model.type,
                 str(model.level),
-                " ".join(f"{k}={v:.6g}" for k, v in model.params.items()),
+                " ".join(f"{k}={v}" if isinstance(v, str) else f"{k}={v:.6g}" for k, v in model.params.items()),
                 _place(model.origin, circuit),
             )
         parts.append(models)

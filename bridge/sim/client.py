@@ -15,6 +15,7 @@ import json
 import math
 import os
 import selectors
+import shutil
 import signal
 import subprocess
 import sys
@@ -126,11 +127,15 @@ class _Worker:
 
     def __init__(self, library_path: str, startup_timeout: float, wait: bool = True) -> None:
         capture_fd, self.capture_path = tempfile.mkstemp(prefix="biasbridge-ngspice-", suffix=".log")
+        # ngspice writes files of its own into its working folder (BSIM3's parameter check leaves
+        # `b3v33check.log`): the worker runs in a private folder, removed with it, never the user's.
+        self.workdir = _private_workdir()
+        library_path = os.path.abspath(library_path)
         response_read, response_write = os.pipe()
         env = dict(os.environ)
         env["NGSPICE_LIBRARY_PATH"] = library_path
         env["PYTHONPATH"] = os.pathsep.join(
-            [str(_PACKAGE_ROOT), *filter(None, [env.get("PYTHONPATH")])]
+            [str(_PACKAGE_ROOT), *(os.path.abspath(p) for p in env.get("PYTHONPATH", "").split(os.pathsep) if p)]
         )
         command = [
             sys.executable, "-m", "bridge.sim.worker",
@@ -148,11 +153,13 @@ class _Worker:
                 stderr=capture_fd,
                 pass_fds=(response_write,),
                 env=env,
+                cwd=self.workdir,
             )
         except BaseException:
             os.close(response_read)
             os.close(capture_fd)
             os.unlink(self.capture_path)
+            shutil.rmtree(self.workdir, ignore_errors=True)
             raise
         finally:
             os.close(response_write)
@@ -163,7 +170,7 @@ class _Worker:
         self._buffer = bytearray()
         self._next_id = 1
         self._finalizer = weakref.finalize(
-            self, _reap, self.process, self._selector, response_read, self.capture_path
+            self, _reap, self.process, self._selector, response_read, self.capture_path, self.workdir
         )
         self._spawned = time.monotonic()
         self._startup_timeout = startup_timeout
@@ -294,8 +301,12 @@ class _Worker:
         self._finalizer()
 
 
+def _private_workdir() -> str:
+    return tempfile.mkdtemp(prefix="biasbridge-ngspice-")
+
+
 def _reap(process: subprocess.Popen, selector: selectors.BaseSelector, responses: int,
-          capture_path: str) -> None:
+          capture_path: str, workdir: str) -> None:
     """Kill the worker and release what it held (also run when a session is garbage-collected)."""
     if process.poll() is None:
         process.kill()
@@ -307,6 +318,7 @@ def _reap(process: subprocess.Popen, selector: selectors.BaseSelector, responses
     os.close(responses)
     with contextlib.suppress(OSError):
         os.unlink(capture_path)
+    shutil.rmtree(workdir, ignore_errors=True)
 
 
 class PendingRun:

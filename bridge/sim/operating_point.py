@@ -1,9 +1,11 @@
 """ngspice's operating point of a Circuit: emit it, run `.op`, read nodes and device quantities.
 
 Device quantities come from ngspice's own MOSFET vectors (`@m1[id]`, `gm`, `gds`,
-`gmbs`, `vdsat`, `von`, `vgs`, `vds`, `vbs`), polarity-normalised as ngspice reports id,
-vgs and vds (positive for a conducting PMOS); `von` and `vdsat` carry the type's sign
-in ngspice and are normalised here.
+`gmbs`, `vdsat`, `vgs`, `vds`, `vbs` and the threshold, `von` or `vth` by model family),
+polarity-normalised as ngspice reports id, vgs and vds (positive for a conducting PMOS);
+mos1/2/3/6/9 give `von` and `vdsat` the type's sign, normalised here, BSIM3/4 give `vth`
+and `vdsat` as they are for the device. A vector the device's model lacks leaves its
+quantity (and what is derived from it) None.
 """
 
 from __future__ import annotations
@@ -11,28 +13,41 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from ..devices.level1 import Region, classify_region
-from ..netlist.circuit import GROUND, Analysis, Circuit, Origin
+from ..netlist.circuit import GROUND, Analysis, Circuit, Element, Origin
 from ..netlist.emit import emit
 from .client import NgspiceSession, PendingRun, SimResult
 
-DEVICE_VECTORS = ("id", "gm", "gds", "gmbs", "vdsat", "von", "vgs", "vds", "vbs")
+# The quantities every ngspice MOSFET family verified here reports under these names, normalised
+# to the device's polarity.
+COMMON_VECTORS = ("id", "gm", "gds", "gmbs", "vgs", "vds", "vbs")
+
+# Per model LEVEL: the vector holding ngspice's threshold, and whether it and `vdsat` carry the
+# type's sign (negative for a PMOS). Source: ngspice 39, `show m1 : all` and `.save @m1[von]
+# @m1[vth] ...` with `print` on an NMOS and a PMOS of each level (mos1/2/3/6/9: `von`, signed;
+# BSIM3 at 8 and 49, BSIM4 at 14 and 54: `vth` and `vdsat` positive for a conducting PMOS;
+# `@m1[von]` of a BSIM card and `@m1[vth]` of a mos1 card come back 0 long). For a level not
+# listed the threshold and vdsat are not read: their names or signs are not known here.
+THRESHOLD_BY_LEVEL: dict[int, tuple[str, bool]] = {
+    1: ("von", True), 2: ("von", True), 3: ("von", True), 6: ("von", True), 9: ("von", True),
+    8: ("vth", False), 49: ("vth", False), 14: ("vth", False), 54: ("vth", False),
+}
 
 
 @dataclass(frozen=True)
 class SimDevice:
     """One MOSFET as ngspice solved it, polarity-normalised."""
 
-    id: float
-    vgs: float
-    vds: float
-    vbs: float
-    vth: float
-    vov: float
-    vdsat: float
-    gm: float
-    gds: float
-    gmbs: float
-    region: Region
+    id: float | None
+    vgs: float | None
+    vds: float | None
+    vbs: float | None
+    vth: float | None
+    vov: float | None
+    vdsat: float | None
+    gm: float | None
+    gds: float | None
+    gmbs: float | None
+    region: Region | None
 
 
 @dataclass(frozen=True)
@@ -72,9 +87,20 @@ class PendingOperatingPoint:
 def submit_operating_point(session: NgspiceSession, circuit: Circuit, timeout: float = 10.0) -> PendingOperatingPoint:
     """Send the emitted circuit's `.op` to ngspice and return at once (see ``PendingOperatingPoint``)."""
     mosfets = [e for e in circuit.elements if e.kind == "mosfet"]
-    saves = ["all"] + [device_vector(m.name, q) for m in mosfets for q in DEVICE_VECTORS]
+    saves = ["all"] + [device_vector(m.name, q) for m in mosfets for q in device_vectors(circuit, m)]
     deck = emit(circuit, analyses=[Analysis("op", Origin(circuit.source_file, 0))], saves=saves)
     return PendingOperatingPoint(circuit, session.submit(deck, timeout=timeout))
+
+
+def _threshold(circuit: Circuit, mosfet: Element) -> tuple[str, bool] | None:
+    model = circuit.model(mosfet.model or "")
+    return THRESHOLD_BY_LEVEL.get(model.level) if model is not None else None
+
+
+def device_vectors(circuit: Circuit, mosfet: Element) -> tuple[str, ...]:
+    """The quantities asked of ngspice for one MOSFET: those its model family is known to have."""
+    threshold = _threshold(circuit, mosfet)
+    return COMMON_VECTORS + (("vdsat", threshold[0]) if threshold is not None else ())
 
 
 def _read_operating_point(circuit: Circuit, result: SimResult) -> SimOperatingPoint:
@@ -90,26 +116,40 @@ def _read_operating_point(circuit: Circuit, result: SimResult) -> SimOperatingPo
     }
     devices: dict[str, SimDevice] = {}
     for mosfet in mosfets:
-        values = {q: result.scalar(device_vector(mosfet.name, q)) for q in DEVICE_VECTORS}
-        model = circuit.model(mosfet.model or "")
-        polarity = -1.0 if model is not None and model.type == "pmos" else 1.0
-        vth = polarity * values["von"]
-        vds = values["vds"]
-        vov = values["vgs"] - vth
+        devices[mosfet.name] = _read_device(circuit, mosfet, result)
+    return SimOperatingPoint(nodes, branches, devices, result.messages)
+
+
+def _read_device(circuit: Circuit, mosfet: Element, result: SimResult) -> SimDevice:
+    """One MOSFET's quantities; each is None where its vector is missing (the model lacks it)."""
+    values: dict[str, float | None] = {}
+    for quantity in device_vectors(circuit, mosfet):
+        name = device_vector(mosfet.name, quantity)
+        values[quantity] = result.scalar(name) if name in result else None
+    threshold = _threshold(circuit, mosfet)
+    model = circuit.model(mosfet.model or "")
+    sign = -1.0 if threshold is not None and threshold[1] and model is not None and model.type == "pmos" else 1.0
+    raw_vth = values.get(threshold[0]) if threshold is not None else None
+    vth = sign * raw_vth if raw_vth is not None else None
+    raw_vdsat = values.get("vdsat")
+    vdsat = sign * raw_vdsat if raw_vdsat is not None else None
+    vgs, vds = values["vgs"], values["vds"]
+    vov = None
+    if vth is not None and vgs is not None and vds is not None:
+        vov = vgs - vth
         if vds < 0:
             # ngspice reports the terminal vds; the device itself runs with drain and source swapped.
-            vov = values["vgs"] - vds - vth
-        devices[mosfet.name] = SimDevice(
-            id=values["id"],
-            vgs=values["vgs"],
-            vds=vds,
-            vbs=values["vbs"],
-            vth=vth,
-            vov=vov,
-            vdsat=polarity * values["vdsat"],
-            gm=values["gm"],
-            gds=values["gds"],
-            gmbs=values["gmbs"],
-            region=classify_region(vov, abs(vds)),
-        )
-    return SimOperatingPoint(nodes, branches, devices, result.messages)
+            vov = vgs - vds - vth
+    return SimDevice(
+        id=values["id"],
+        vgs=vgs,
+        vds=vds,
+        vbs=values["vbs"],
+        vth=vth,
+        vov=vov,
+        vdsat=vdsat,
+        gm=values["gm"],
+        gds=values["gds"],
+        gmbs=values["gmbs"],
+        region=classify_region(vov, abs(vds)) if vov is not None and vds is not None else None,
+    )

@@ -268,9 +268,21 @@ class Simulator:
             if np.iscomplexobj(data):
                 continue  # .op and .dc are real; complex plots are not part of the protocol
             vectors[vector_key(name)] = np.asarray(data, dtype=float).tolist()
+        _drop_absent_device_vectors(vectors)
         if not vectors or any(len(values) == 0 for values in vectors.values()):
             return plot_name, {}, f"the analysis produced no data (plot {plot_name})"
         return plot_name, vectors, None
+
+
+def _drop_absent_device_vectors(vectors: dict[str, list[float]]) -> None:
+    """Remove the device vectors the device's model does not have.
+
+    A `.save @m1[von]` for a model without `von` (BSIM3 and BSIM4 call their threshold `vth`)
+    leaves a vector of length 0 in the plot, beside full ones (seen with `ngspice -b` and
+    `display`, ngspice 39). It is absent, not a failed analysis: the caller finds it missing.
+    """
+    for key in [key for key, values in vectors.items() if not values and key.startswith("@")]:
+        del vectors[key]
 
 
 def _failure(request_id: Any, error: str, messages: list[str], kind: str) -> dict[str, Any]:
