@@ -236,9 +236,10 @@ def compare(
         ):
             found.append(_body_effect_cause(element, gamma, quantities["vth"], reference_column, reference_device,
                                             level1))
-        effects = _acting(_attribute(element.name, hand, effect_solutions), element, model, reference_device)
+        effects = _attribute(element.name, hand, effect_solutions)
         if hand_device and (sim_device or level1_device):
-            _explain(element.name, element.origin.line, quantities["id"], effects, reference_column, found)
+            _explain(element.name, element.origin.line, quantities["id"],
+                     _acting(effects, element, model, reference_device), reference_column, found)
         devices[element.name] = DeviceComparison(
             element.name, mos_type, element.model or "", element.origin.line, region, quantities, effects,
             str(expected_region.value) if expected_region else None,
@@ -374,9 +375,9 @@ def _body_effect_cause(
     direction = "raises" if shifted is not None and plain is not None and shifted > plain else "lowers"
     state = "reverse" if body < 0 else "forward"
     message = (
-        f"{element.name}: with its bulk–{terminal} junction {state} biased by {engineering(abs(body), 'V')} "
-        f"(vb{terminal[0]} = {body:+.4g} V in device polarity), the body effect (GAMMA = {gamma:g} √V) "
-        f"{direction} the threshold to {engineering(shifted, 'V')}; the hand model takes Vt = "
+        f"{element.name}: the body effect (GAMMA = {gamma:g} √V; the bulk–{terminal} junction {state} biased by "
+        f"{engineering(abs(body), 'V')}, vb{terminal[0]} = {body:+.4g} V in device polarity) {direction} the "
+        f"threshold to {engineering(shifted, 'V')}; the hand model takes Vt = "
         f"{engineering(plain, 'V')} from VTO"
     )
     if body > 0:
