@@ -245,10 +245,13 @@ def _beyond_supplies(circuit: Circuit, solved: _Solved) -> list[Finding]:
         message = (
             f"V({node}) is {engineering(voltage, 'V')} {_in(solved.column)}, "
             f"{engineering(excess, 'V')} {side} every voltage supply (they span {engineering(low, 'V')} to "
-            f"{engineering(high, 'V')}): no real bias point; a stage biased from these supplies cannot get there"
+            f"{engineering(high, 'V')})"
         )
-        if drivers:
-            message += f" unless a source forces it, and only {_names(drivers)} can"
+        if not circuit.elements_of("bjt"):
+            message += (": resistors, diodes and MOSFETs only carry current from a higher node to a lower one, so "
+                        "only a current or controlled source can hold a node there")
+            if drivers:
+                message += f" — here {_names(drivers)}"
         line = _first_line(circuit, node)
         found.append(Finding("error", "beyond-supplies", message, line, f"V({node})"))
     return found
