@@ -13,7 +13,7 @@ import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 
-from .analysis.dcsolve import OperatingPoint
+from .analysis.dcsolve import OperatingPoint, level1_model
 from .analysis.hand import HandSolution
 from .netlist.circuit import Circuit
 from .netlist.numbers import engineering
@@ -98,6 +98,7 @@ class CheckResult:
     findings: tuple[Finding, ...]
     steps: tuple = ()
     has_expect: bool = False
+    supplies: dict = field(default_factory=dict)  # name → bias_rules.Supply: current and power per column
 
     @property
     def agree(self) -> bool:
@@ -169,6 +170,9 @@ def compare(
                 # Like ngspice's @m[id]: the channel current less the bulk-drain junction's.
                 level1_q = level1.drain_terminal_current(element.name)
             sim_q = getattr(sim_device, quantity) if sim_device else None
+            if quantity == "vov":  # vov = vgs − vth in each column, or no value (see _swapped_finding)
+                hand_q, level1_q, sim_q = _summable_overdrive((hand_device, level1_device, sim_device),
+                                                              (hand_q, level1_q, sim_q))
             expected = wanted.get(quantity)
             # The hand model's gds in saturation is 0 by its own assumption (λ = 0): not a finding.
             assumed = quantity == "gds" and hand_device is not None and hand_device.region == "saturation"
@@ -208,6 +212,10 @@ def compare(
                         element.name,
                     )
                 )
+        swapped = _swapped_finding(element, mos_type, {"hand": hand_device, "level1": level1_device,
+                                                       "sim": sim_device}, reference_column)
+        if swapped is not None:
+            found.append(swapped)
         expected_region = wanted.get("region")
         if expected_region is not None and reference_region and str(expected_region.value) != reference_region:
             found.append(
@@ -224,21 +232,14 @@ def compare(
             "hand" in quantities["vth"].flagged
             and reference_device is not None
             and gamma > 0
-            and abs(reference_device.vbs) > 1e-6
+            and abs(_body_bias(reference_device)) > 1e-6
         ):
-            shifted = engineering(quantities["vth"].get(reference_column), "V")
-            found.append(
-                Finding(
-                    "info", "cause",
-                    f"{element.name}: the body effect (GAMMA = {gamma:g} √V at vbs = "
-                    f"{engineering(reference_device.vbs, 'V')}) raises the threshold to {shifted}; "
-                    "the hand model takes Vt = VTO",
-                    element.origin.line, element.name,
-                )
-            )
+            found.append(_body_effect_cause(element, gamma, quantities["vth"], reference_column, reference_device,
+                                            level1))
         effects = _attribute(element.name, hand, effect_solutions)
         if hand_device and (sim_device or level1_device):
-            _explain(element.name, element.origin.line, quantities["id"], effects, reference_column, found)
+            _explain(element.name, element.origin.line, quantities["id"],
+                     _acting(effects, element, model, reference_device), reference_column, found)
         devices[element.name] = DeviceComparison(
             element.name, mos_type, element.model or "", element.origin.line, region, quantities, effects,
             str(expected_region.value) if expected_region else None,
@@ -354,3 +355,87 @@ def _explain(
     if math.isfinite(gap) and math.isfinite(explained) and abs(gap - explained) > max(0.01, 0.2 * abs(gap)):
         message += f" (together {_percent(explained)}; the rest comes from their interaction or the circuit)"
     found.append(Finding("info", "cause", message, line, name))
+
+
+def _body_bias(device) -> float:
+    """The bulk's bias against the terminal that acts as source, in device polarity: vbs, or vbd
+    when the device runs with drain and source swapped (vds < 0, ngspice's mode −1)."""
+    return device.vbs - device.vds if device.vds < 0 else device.vbs
+
+
+def _body_effect_cause(
+    element, gamma: float, vth: Columns, reference_column: str, device, level1: OperatingPoint | None,
+) -> Finding:
+    """What the body effect does to the threshold at this bias, from the sign of the body bias
+    and the thresholds themselves: a reverse-biased bulk raises it, a forward-biased one lowers
+    it, and a forward-biased junction conducts (its current from the level-1 solver)."""
+    body = _body_bias(device)
+    terminal = "drain" if device.vds < 0 else "source"
+    shifted, plain = vth.get(reference_column), vth.hand
+    direction = "raises" if shifted is not None and plain is not None and shifted > plain else "lowers"
+    state = "reverse" if body < 0 else "forward"
+    message = (
+        f"{element.name}: the body effect (GAMMA = {gamma:g} √V; the bulk–{terminal} junction {state} biased by "
+        f"{engineering(abs(body), 'V')}, vb{terminal[0]} = {body:+.4g} V in device polarity) {direction} the "
+        f"threshold to {engineering(shifted, 'V')}; the hand model takes Vt = "
+        f"{engineering(plain, 'V')} from VTO"
+    )
+    if body > 0:
+        message += "; a forward-biased junction conducts"
+        junction = level1.junctions.get(element.name) if level1 is not None else None
+        current = None if junction is None else (junction.bulk_drain if terminal == "drain" else junction.bulk_source)
+        if current is not None and current > 0:
+            message += f": {engineering(current, 'A')} through it in the level-1 solver"
+    return Finding("info", "cause", message, element.origin.line, element.name)
+
+
+def _acting(effects: dict[str, float], element, model, reference_device) -> dict[str, float]:
+    """Only the effects that can act on this device: LAMBDA when the card gives it one, GAMMA
+    when the card gives it one and the bulk is not tied to the terminal acting as source."""
+    if model is None:
+        return {}
+    try:
+        card = level1_model(model)
+    except ValueError:
+        return effects
+    drain, _, source, bulk = element.nodes
+    acting_source = drain if reference_device is not None and reference_device.vds < 0 else source
+    can_act = {"lambda": card.lambda_ > 0, "gamma": card.gamma > 0 and bulk != acting_source}
+    return {effect: change for effect, change in effects.items() if can_act.get(effect, True)}
+
+
+def _summable_overdrive(devices: tuple, values: tuple) -> tuple:
+    """vov where the row adds up (vov = vgs − vth), None in a column whose device runs with
+    drain and source swapped: there vgs is the terminal value and vth, vov belong to the gate
+    against the drain terminal (ngspice's mode −1)."""
+    return tuple(
+        None if device is not None and device.vds < 0 else value for device, value in zip(devices, values)
+    )
+
+
+def _swapped_finding(element, mos_type: str, devices: Mapping[str, object], reference_column: str) -> Finding | None:
+    """A device wired upside down (drain and source swapped): which terminal acts as source, what
+    the table's rows then mean, and the overdrive from that terminal."""
+    swapped = [column for column in COLUMNS if devices.get(column) is not None and devices[column].vds < 0]
+    if not swapped:
+        return None
+    device = devices.get(reference_column) if reference_column in swapped else devices[swapped[0]]
+    column = reference_column if reference_column in swapped else swapped[0]
+    drain, _, source, _ = element.nodes
+    titles = {"hand": "hand", "level1": "level-1", "sim": "ngspice"}
+    higher = "above" if mos_type == "pmos" else "below"
+    message = (
+        f"{element.name}: drain and source work swapped — its drain node {drain} is {higher} its source node "
+        f"{source} (vds = {engineering(device.vds, 'V')} in the {titles[column]} column), so node {drain} acts as "
+        f"the {mos_type.upper()}'s source, as ngspice takes it (mode −1). vgs, vds and id are the terminal values "
+        f"(id negative), vth, gm, gds and the region those of the swapped device; vov = vgs − vth does not hold "
+        f"there, so vov is left empty in the {_listed([titles[c] for c in swapped])} "
+        f"column{'s' if len(swapped) > 1 else ''}: the overdrive from node {drain} is vgd − vth (device polarity) = "
+        f"{engineering(device.vov, 'V')}. If this is not meant, exchange the drain and source nodes ({drain} and "
+        f"{source})"
+    )
+    return Finding("warning", "swapped-terminals", message, element.origin.line, element.name)
+
+
+def _listed(words: list[str]) -> str:
+    return words[0] if len(words) == 1 else f"{', '.join(words[:-1])} and {words[-1]}"

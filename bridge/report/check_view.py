@@ -428,6 +428,7 @@ def check_renderable(result: CheckResult, steps: bool = False) -> CheckView:
     table = _CheckTable(("quantity", *(COLUMN_TITLES[column] for column in shown)))
     for node, columns in result.nodes.items():
         table.add_row(_row(f"V({node})", columns, "V", shown))
+    _add_supply_rows(table, result, shown)
     for device in result.devices.values():
         table.add_section()
         region_cells = [(f"{device.name} region ({device.type})", "")]
@@ -453,6 +454,16 @@ def check_renderable(result: CheckResult, steps: bool = False) -> CheckView:
     verdict = _agreement(result) if result.agree else "disagreement flagged"
     parts.append(_Line(f"→ {verdict}", "bold green" if result.agree else "bold red"))
     return CheckView(parts)
+
+
+def _add_supply_rows(table: _CheckTable, result: CheckResult, shown: tuple[str, ...]) -> None:
+    """Each supply's current (as delivered) and power, in a section of their own under the nodes."""
+    if not result.supplies:
+        return
+    table.add_section()
+    for supply in result.supplies.values():
+        table.add_row(_row(f"I({supply.name})", supply.current, "A", shown))
+        table.add_row(_row(f"P({supply.name})", supply.power, "W", shown))
 
 
 def _finite(value: float | None) -> float | None:
@@ -487,6 +498,10 @@ def check_json(result: CheckResult) -> dict[str, Any]:
         "closed_form": result.closed_form,
         "nodes": {node: _triple(columns, with_expect) for node, columns in result.nodes.items()},
         "devices": devices,
+        "supplies": {
+            supply.name: {"current": _triple(supply.current, False), "power": _triple(supply.power, False)}
+            for supply in result.supplies.values()
+        },
         "findings": [
             {"severity": f.severity, "code": f.code, "message": f.message, "line": f.line, "subject": f.subject}
             for f in result.findings
