@@ -357,10 +357,15 @@ def _explain(
     found.append(Finding("info", "cause", message, line, name))
 
 
+def _runs_swapped(device) -> bool:
+    """Drain and source work swapped (vds < 0, ngspice's mode −1); False where vds is unknown."""
+    return device is not None and device.vds is not None and device.vds < 0
+
+
 def _body_bias(device) -> float:
     """The bulk's bias against the terminal that acts as source, in device polarity: vbs, or vbd
     when the device runs with drain and source swapped (vds < 0, ngspice's mode −1)."""
-    return device.vbs - device.vds if device.vds < 0 else device.vbs
+    return device.vbs - device.vds if _runs_swapped(device) else device.vbs
 
 
 def _body_effect_cause(
@@ -370,7 +375,7 @@ def _body_effect_cause(
     and the thresholds themselves: a reverse-biased bulk raises it, a forward-biased one lowers
     it, and a forward-biased junction conducts (its current from the level-1 solver)."""
     body = _body_bias(device)
-    terminal = "drain" if device.vds < 0 else "source"
+    terminal = "drain" if _runs_swapped(device) else "source"
     shifted, plain = vth.get(reference_column), vth.hand
     direction = "raises" if shifted is not None and plain is not None and shifted > plain else "lowers"
     state = "reverse" if body < 0 else "forward"
@@ -399,7 +404,7 @@ def _acting(effects: dict[str, float], element, model, reference_device) -> dict
     except ValueError:
         return effects
     drain, _, source, bulk = element.nodes
-    acting_source = drain if reference_device is not None and reference_device.vds < 0 else source
+    acting_source = drain if _runs_swapped(reference_device) else source
     can_act = {"lambda": card.lambda_ > 0, "gamma": card.gamma > 0 and bulk != acting_source}
     return {effect: change for effect, change in effects.items() if can_act.get(effect, True)}
 
@@ -409,14 +414,14 @@ def _summable_overdrive(devices: tuple, values: tuple) -> tuple:
     drain and source swapped: there vgs is the terminal value and vth, vov belong to the gate
     against the drain terminal (ngspice's mode −1)."""
     return tuple(
-        None if device is not None and device.vds < 0 else value for device, value in zip(devices, values)
+        None if _runs_swapped(device) else value for device, value in zip(devices, values)
     )
 
 
 def _swapped_finding(element, mos_type: str, devices: Mapping[str, object], reference_column: str) -> Finding | None:
     """A device wired upside down (drain and source swapped): which terminal acts as source, what
     the table's rows then mean, and the overdrive from that terminal."""
-    swapped = [column for column in COLUMNS if devices.get(column) is not None and devices[column].vds < 0]
+    swapped = [column for column in COLUMNS if _runs_swapped(devices.get(column))]
     if not swapped:
         return None
     device = devices.get(reference_column) if reference_column in swapped else devices[swapped[0]]
