@@ -825,7 +825,9 @@ def _hand_constants(circuit: Circuit, mosfet: Element) -> tuple[float, float, in
         return float(value) if isinstance(value, (int, float)) else fallback
 
     try:
-        model = hand_model(Level1Model.from_card(card.type, card.params))
+        # The card at the device temperature (ngspice's level-1 rules), as the hand column takes it.
+        card_model = Level1Model.from_card(card.type, card.params, circuit.nominal_temperature())
+        model = hand_model(card_model.at_temperature(circuit.device_temperature(mosfet)))
         geometry = Level1Geometry(size("w", "defw", DEFAULT_W), size("l", "defl", DEFAULT_L), size("m", "", 1.0))
         return beta(model, geometry), threshold(model, 0.0), model.polarity
     except ValueError:
