@@ -21,6 +21,7 @@ from conftest import NGSPICE, needs_ngspice, ngspice_batch_op
 
 from bridge.analysis.dcsolve import solve_operating_point
 from bridge.analysis.hand import hand_analysis
+from bridge.analysis.sweep import sweep_values, transfer_curve
 from bridge.check import check_circuit
 from bridge.devices.level1 import Level1Geometry, Level1Model, evaluate
 from bridge.netlist import parse_netlist, read_netlist
@@ -91,7 +92,8 @@ def ngspice_device(
 
 DEVICE_CASES = {
     # card, bias (d, g, s, b): saturation with body effect and λ
-    "nmos_body": ("nmos", {"vto": 0.7, "kp": 1.1e-4, "gamma": 0.45, "phi": 0.68, "lambda": 0.03}, (3.0, 2.0, 0.2, -0.8)),
+    "nmos_body": ("nmos", {"vto": 0.7, "kp": 1.1e-4, "gamma": 0.45, "phi": 0.68, "lambda": 0.03},
+                  (3.0, 2.0, 0.2, -0.8)),
     # PMOS in triode with body effect (device polarity: vsg 2.2, vsd 0.4, vsb −0.5)
     "pmos_body_triode": ("pmos", {"vto": -0.8, "kp": 4e-5, "gamma": 0.55, "phi": 0.7, "lambda": 0.05},
                          (2.9, 1.1, 3.3, 3.8)),
@@ -308,3 +310,63 @@ def test_several_values_on_the_last_temp_card_leave_27_c_and_say_so() -> None:
 def test_27_c_circuit_gets_no_temperature_note() -> None:
     solved = solve_operating_point(parse_netlist(STAGES["divider_cs"] + ".temp 27\n.op\n.end\n"))
     assert solved.caveats == ()
+
+
+# --- `sweep` at temperature ----------------------------------------------------------------------
+
+SWEPT_CS = """\
+Greenhouse vent-position sensor amplifier: NMOS common source, VIN on the gate
+VDD vdd 0 5
+VIN in 0 1.2
+RD vdd d 15k
+M1 d in 0 0 nch W=20u L=2u
+.model nch nmos (vto=0.7 kp=100u lambda=0.02 gamma=0.4 phi=0.65)
+"""
+
+
+def test_sweep_at_85_c_takes_the_temperature_in_every_column(session) -> None:
+    # reference: ngspice 39's own `.dc` through the worker (the sim column), and the mos1temp.c
+    # formulas above for the hand edges
+    circuit = parse_netlist(SWEPT_CS + ".temp 85\n.op\n.end\n")
+    result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, step=0.05), session)
+    codes = {finding.code for finding in result.findings}
+    assert not {"solver-differs", "solver-failed"} & codes
+    level1, sim = result.curves["level1"], result.curves["sim"]
+    assert max(abs(a - b) for a, b in zip(level1.output, sim.output)) <= VOLTS
+    kp, _, vto = mos1temp(100e-6, 0.7, 0.65, 0.4, 1, 85.0)
+    k, rd = kp * 10, 15e3
+    vov = 2 * 5 / (1 + math.sqrt(1 + 2 * k * rd * 5))  # (K·RD/2)·VOV² + VOV − VDD = 0
+    closed = result.closed_form["M1"]
+    assert closed.cutoff_saturation == pytest.approx(vto, abs=1e-9)
+    assert closed.saturation_triode == pytest.approx(vto + vov, abs=1e-9)
+    hand = result.curves["hand"].edges["M1"]
+    assert hand.cutoff_saturation == pytest.approx(vto, abs=1e-6)
+    assert hand.saturation_triode == pytest.approx(vto + vov, abs=1e-6)
+    assert any("M1 at 85 °C" in step.text for step in closed.steps)
+
+
+DIODE_STAGE = """\
+Greenhouse frost sensor: forward-biased diodes as thermometers, one MOSFET reading them
+VDD vdd 0 5
+R1 vdd a 47k
+D1 a 0 dsense
+R2 vdd k 100k
+D2 k 0 dslow area=2
+M1 d a 0 0 nch W=10u L=2u
+RD vdd d 20k
+.model dsense d (is=2e-14 n=1.05)
+.model dslow d (is=1e-15 n=1.6 eg=1.2 xti=2.5 tnom=40)
+.model nch nmos (vto=0.4 kp=100u lambda=0.02)
+"""
+
+
+@needs_ngspice
+@pytest.mark.parametrize("celsius", TEMPERATURES)
+def test_diodes_at_temperature_match_ngspice(celsius: float, tmp_path: Path) -> None:
+    # reference: ngspice 39 run directly in batch mode (its diotemp.c scaling of IS and N·kT/q)
+    path = tmp_path / "frost.cir"
+    path.write_text(DIODE_STAGE + f".temp {celsius:g}\n.op\n.end\n")
+    ngspice = ngspice_batch_op(path)
+    solved = solve_operating_point(read_netlist(path))
+    for node in ("a", "k", "d"):
+        assert solved.voltage(node) == pytest.approx(ngspice[node], abs=VOLTS), f"V({node})"
