@@ -23,6 +23,7 @@ from bridge.analysis.dcsolve import solve_operating_point
 from bridge.analysis.hand import hand_analysis
 from bridge.analysis.sweep import sweep_values, transfer_curve
 from bridge.check import check_circuit
+from bridge.cli import main
 from bridge.devices.level1 import Level1Geometry, Level1Model, evaluate
 from bridge.netlist import parse_netlist, read_netlist
 
@@ -370,3 +371,28 @@ def test_diodes_at_temperature_match_ngspice(celsius: float, tmp_path: Path) -> 
     solved = solve_operating_point(read_netlist(path))
     for node in ("a", "k", "d"):
         assert solved.voltage(node) == pytest.approx(ngspice[node], abs=VOLTS), f"V({node})"
+
+
+# --- temperatures no device has a meaning at ------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    "card, column, fragment",
+    [
+        (".temp -300", 7, "`.temp` = -300 °C is at or below absolute zero"),
+        (".options reltol=1e-3 temp=-280", 22, "`.options temp` = -280 °C"),
+        (".options tnom=-273.15", 10, "`.options tnom` = -273.15 °C"),
+    ],
+)
+def test_temperature_below_absolute_zero_is_a_located_error(card, column, fragment, tmp_path, capsys) -> None:
+    path = tmp_path / "cold.cir"
+    path.write_text(STAGES["divider_cs"] + card + "\n.op\n.end\n")
+    assert main(["check", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert f"cold.cir:8:{column}: {fragment}" in err
+    assert "Traceback" not in err
+
+
+def test_card_tnom_below_absolute_zero_is_an_invalid_model() -> None:
+    with pytest.raises(ValueError, match="TNOM = -300 °C"):
+        Level1Model.from_card("nmos", {"tnom": -300.0}).at_temperature(27.0)

@@ -166,6 +166,8 @@ class Level1Model:
         if not kelvin > 0.0:
             raise ValueError(f"temperature {celsius:g} °C is below absolute zero")
         tnom = card.tnom_celsius + CELSIUS_TO_KELVIN
+        if not tnom > 0.0:
+            raise ValueError(f"TNOM = {card.tnom_celsius:g} °C is below absolute zero")
         kp, phi, vto = card.kp, card.phi, card.vto
         if not math.isclose(kelvin, tnom, rel_tol=0.0, abs_tol=1e-9):
             ratio = kelvin / tnom
