@@ -625,7 +625,7 @@ def _temperature_notes(circuit: Circuit) -> list[str]:
     devices = [e for e in circuit.elements if e.kind in ("mosfet", "diode")]
     own = [e for e in devices if circuit.device_temperature(e) != temperature]
     cards = [circuit.model(e.model or "") for e in devices]
-    card_tnom = any(card is not None and "tnom" in card.params for card in cards)
+    card_tnom = any(card is not None and card.params.get("tnom", nominal) != nominal for card in cards)
     if devices and (temperature != CIRCUIT_TEMPERATURE_C or nominal != CIRCUIT_TEMPERATURE_C or own or card_tnom):
         what = []
         if any(e.kind == "mosfet" for e in devices):
