@@ -18,7 +18,10 @@ What is solved, stated once:
   junction); when plain Newton fails, gmin stepping, then source stepping. Convergence is judged
   by ngspice's criteria (RELTOL, VNTOL, ABSTOL) and then the iteration goes on to 1e-9 relative:
   the answer is the model's own solution, not merely one within ngspice's tolerance of it.
-* The circuit runs at 27 °C = TNOM: no temperature scaling (``.temp`` elsewhere is a caveat).
+* Temperature: each device at its own temperature (``Circuit.device_temperature``: ``.temp``,
+  ``.options temp``, instance TEMP/DTEMP) with its card's TNOM (``.options tnom`` by default): the
+  MOSFET through ``Level1Model.at_temperature`` (ngspice's mos1temp.c) with its bulk junctions'
+  IS/JS and kT/q at that temperature, the diode's IS and N·kT/q as ngspice's diotemp.c.
 * Newton solves only for the unknowns a nonlinear device touches: the linear rest of the MNA
   system is eliminated once per network (``_Reduction``, a Schur complement) and recovered
   after each solve, so a one-transistor stage iterates on a 2–4 unknown system in plain Python.
@@ -30,7 +33,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cached_property
 from typing import NamedTuple
 
@@ -38,6 +41,8 @@ import numpy as np
 
 from bridge.analysis.linear import solve_dense
 from bridge.devices.level1 import (
+    CELSIUS_TO_KELVIN,
+    CIRCUIT_TEMPERATURE_C,
     DEFAULT_L,
     DEFAULT_W,
     K_OVER_Q,
@@ -230,6 +235,7 @@ class _Mosfet:
     source_saturation_current: float
     drain_vcrit: float
     source_vcrit: float
+    thermal_voltage: float  # kT/q at the device temperature, for its bulk junctions
     # The last (voltages, Level1Point) evaluated: a converged point is asked for again by the
     # convergence test, the settling, the report and the next sweep point's first iteration.
     last_point: list = field(default_factory=list, compare=False, repr=False)
@@ -341,13 +347,10 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
     gmin = float(options["gmin"]) if isinstance(options.get("gmin"), (int, float)) else GMIN
     default_w = float(options["defw"]) if isinstance(options.get("defw"), (int, float)) else DEFAULT_W
     default_l = float(options["defl"]) if isinstance(options.get("defl"), (int, float)) else DEFAULT_L
-    if isinstance(options.get("temp"), (int, float)) and options["temp"] != 27.0:
-        caveats.append("`.options temp` is not 27 °C: no temperature scaling is modelled")
+    caveats.extend(_temperature_notes(circuit))
     nodeset: dict[str, float] = {}
     for directive in circuit.directives:
-        if directive.kind == "temp" and any(v not in (None, 27.0) for _, v in directive.settings):
-            caveats.append("`.temp` is not 27 °C: no temperature scaling is modelled, the answer is at 27 °C")
-        elif directive.kind == "ic" and directive.settings:
+        if directive.kind == "ic" and directive.settings:
             caveats.append("`.ic` ignored: ngspice applies it to a transient's operating point only")
         elif directive.kind == "nodeset":
             nodeset.update({node: float(v) for node, v in directive.settings if isinstance(v, (int, float))})
@@ -366,8 +369,6 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
             raise UnsupportedElement(
                 element.name, f"{element.name}: element kind {element.kind} is not modelled"
             )
-        if "temp" in element.params or "dtemp" in element.params:
-            caveats.append(f"{element.name}: instance TEMP/DTEMP ignored, the device runs at 27 °C")
 
     nodes = circuit.nodes()
     index = {GROUND: 0, **{node: k + 1 for k, node in enumerate(nodes)}}
@@ -391,7 +392,7 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
 
     mosfets: list[_Mosfet] = []
     diodes: list[_Diode] = []
-    models: dict[str, Level1Model] = {}
+    models: dict[tuple[str, float], Level1Model] = {}
     for element in circuit.elements:
         at = [index[node] for node in element.nodes]
         kind = element.kind
@@ -484,12 +485,15 @@ def _diode(element: Element, at: list[int], circuit: Circuit, caveats: list[str]
         # BV counts whenever given (ngspice then switches breakdown on); the others when non-zero.
         if (key == "bv" and key in params) or params.get(key, 0.0) != 0.0:
             caveats.append(f"model {card.name}: {what} not modelled (ignored by this solver)")
-    if "tnom" in params and params["tnom"] != 27.0:
-        caveats.append(f"model {card.name}: TNOM ≠ 27 °C, no temperature scaling modelled")
     area = _number(element.params.get("area", 1.0), "AREA", element)
     multiplier = _number(element.params.get("m", 1.0), "M", element)
-    saturation_current = params.get("is", 1e-14) * area * multiplier
-    emission_voltage = params.get("n", 1.0) * THERMAL_VOLTAGE
+    try:
+        saturation_current, emission_voltage = _diode_at_temperature(
+            params, circuit.device_temperature(element), circuit.nominal_temperature()
+        )
+    except ValueError as exc:
+        raise InvalidElement(element.name, f"{element.name}: {exc}") from None
+    saturation_current *= area * multiplier
     if emission_voltage <= 0.0:
         raise InvalidElement(element.name, f"model {card.name}: emission coefficient N must be positive")
     if "off" in element.flags:
@@ -504,7 +508,7 @@ def _mosfet(
     element: Element,
     at: list[int],
     circuit: Circuit,
-    models: dict[str, Level1Model],
+    models: dict[tuple[str, float], Level1Model],
     model_choice: ModelChoice,
     caveats: list[str],
     default_w: float,
@@ -520,10 +524,12 @@ def _mosfet(
             element.name,
             f"{element.name}: model {card.name} is LEVEL={card.level}; this solver has level 1 only",
         )
-    key = card.name.lower()
+    # One model per card and device temperature (instances with TEMP/DTEMP may differ).
+    temperature = circuit.device_temperature(element)
+    key = (card.name.lower(), temperature)
     if key not in models:
         try:
-            models[key] = model_choice(card)
+            models[key] = _model_at_temperature(_card_with_tnom(card, circuit), model_choice, temperature)
         except ValueError as exc:
             raise InvalidElement(element.name, f"{element.name}: model {card.name}: {exc}") from None
         model = models[key]
@@ -546,15 +552,18 @@ def _mosfet(
     if "off" in element.flags:
         caveats.append(f"{element.name}: OFF ignored (it only picks the starting point)")
     # Junction saturation currents as mos1load.c: JS·area when JS and both areas are given,
-    # IS otherwise; both times M.
-    density = card.params.get("js", 0.0)
+    # IS otherwise; both times M, and both at the device temperature (mos1temp.c's tSatCur,
+    # tSatCurDens: the card's value times exp(−EG(T)/Vt(T) + EG(TNOM)/Vt(TNOM))).
+    scale = model.saturation_current_factor
+    density = card.params.get("js", 0.0) * scale
     drain_area = _number(params.get("ad", 0.0), "AD", element)
     source_area = _number(params.get("as", 0.0), "AS", element)
     if density == 0.0 or drain_area == 0.0 or source_area == 0.0:
-        drain_current = source_current = card.params.get("is", 1e-14) * multiplier
+        drain_current = source_current = card.params.get("is", 1e-14) * scale * multiplier
     else:
         drain_current = density * drain_area * multiplier
         source_current = density * source_area * multiplier
+    thermal = model.thermal_voltage
     return _Mosfet(
         name=element.name,
         drain=at[0],
@@ -565,9 +574,70 @@ def _mosfet(
         geometry=geometry,
         drain_saturation_current=drain_current,
         source_saturation_current=source_current,
-        drain_vcrit=_vcrit(THERMAL_VOLTAGE, drain_current),
-        source_vcrit=_vcrit(THERMAL_VOLTAGE, source_current),
+        drain_vcrit=_vcrit(thermal, drain_current),
+        source_vcrit=_vcrit(thermal, source_current),
+        thermal_voltage=thermal,
     )
+
+
+def _card_with_tnom(card: ModelCard, circuit: Circuit) -> ModelCard:
+    """The card with ngspice's TNOM default made explicit: a card without TNOM takes the
+    circuit's nominal temperature (`.options tnom`, mos1temp.c: `MOS1tnom = CKTnomTemp`)."""
+    nominal = circuit.nominal_temperature()
+    if "tnom" in card.params or nominal == CIRCUIT_TEMPERATURE_C:
+        return card
+    return replace(card, params={**card.params, "tnom": nominal})
+
+
+def _model_at_temperature(card: ModelCard, model_choice: ModelChoice, celsius: float) -> Level1Model:
+    """The chosen model of a card at a device temperature (°C), ngspice's temperature phase."""
+    return model_choice(card).at_temperature(celsius)
+
+
+def _diode_at_temperature(params: Mapping[str, float], celsius: float, nominal_celsius: float) -> tuple[float, float]:
+    """A diode card's IS (per unit area, before AREA·M) and N·kT/q at `celsius`, as diotemp.c
+    (ngspice 39, DIOtempUpdate): IS(T) = IS·exp((T/TNOM − 1)·EG/(N·Vt(T)) + (XTI/N)·ln(T/TNOM)),
+    EG = 1.11 eV and XTI = 3 by default, TNOM the card's or the circuit's nominal temperature."""
+    kelvin = celsius + CELSIUS_TO_KELVIN
+    if not kelvin > 0.0:
+        raise ValueError(f"temperature {celsius:g} °C is below absolute zero")
+    emission = params.get("n", 1.0)
+    emission_voltage = emission * K_OVER_Q * kelvin
+    saturation_current = params.get("is", 1e-14)
+    tnom = params.get("tnom", nominal_celsius) + CELSIUS_TO_KELVIN
+    if kelvin != tnom and emission_voltage > 0.0:
+        ratio = kelvin / tnom
+        band_gap_term = (ratio - 1.0) * params.get("eg", 1.11) / emission_voltage
+        saturation_current *= math.exp(band_gap_term + params.get("xti", 3.0) / emission * math.log(ratio))
+    return saturation_current, emission_voltage
+
+
+def _temperature_notes(circuit: Circuit) -> list[str]:
+    """What the reader should know about the temperature the circuit is solved at."""
+    notes: list[str] = []
+    last = [d for d in circuit.directives if d.kind == "temp" and d.settings][-1:]
+    if last and len(last[0].settings) > 1:
+        notes.append(
+            f"`{' '.join(last[0].text.split())}` gives several temperatures: ngspice sets none of them "
+            f"(it warns \"Could not set temperature\") and runs at {CIRCUIT_TEMPERATURE_C:g} °C; so does this solver"
+        )
+    temperature, nominal = circuit.temperature(), circuit.nominal_temperature()
+    devices = [e for e in circuit.elements if e.kind in ("mosfet", "diode")]
+    own = [e for e in devices if circuit.device_temperature(e) != temperature]
+    cards = [circuit.model(e.model or "") for e in devices]
+    card_tnom = any(card is not None and card.params.get("tnom", nominal) != nominal for card in cards)
+    if devices and (temperature != CIRCUIT_TEMPERATURE_C or nominal != CIRCUIT_TEMPERATURE_C or own or card_tnom):
+        what = []
+        if any(e.kind == "mosfet" for e in devices):
+            what.append("MOSFET KP, VTO, PHI and bulk-junction IS")
+        if any(e.kind == "diode" for e in devices):
+            what.append("diode IS")
+        exceptions = "".join(f", {e.name} at {circuit.device_temperature(e):g} °C (TEMP/DTEMP)" for e in own)
+        notes.append(
+            f"solved at {temperature:g} °C{exceptions}, TNOM {nominal:g} °C unless a card gives its own: "
+            f"{' and '.join(what)} and kT/q at the device temperature by ngspice's rules"
+        )
+    return notes
 
 
 def _check_structure(circuit: Circuit, nodes: tuple[str, ...]) -> None:
@@ -632,14 +702,17 @@ def _check_structure(circuit: Circuit, nodes: tuple[str, ...]) -> None:
 # --- device equations the solver adds around level1 ----------------------------------------
 
 
-def _mos_junction(voltage: float, saturation_current: float, gmin: float) -> tuple[float, float]:
-    """mos1load.c's bulk junction: current and conductance, GMIN included."""
-    if voltage <= -3.0 * THERMAL_VOLTAGE:
+def _mos_junction(
+    voltage: float, saturation_current: float, gmin: float, thermal: float = THERMAL_VOLTAGE
+) -> tuple[float, float]:
+    """mos1load.c's bulk junction: current and conductance, GMIN included; `thermal` is kT/q
+    at the device temperature."""
+    if voltage <= -3.0 * thermal:
         return gmin * voltage - saturation_current, gmin
-    growth = math.exp(min(MAX_EXP_ARG, voltage / THERMAL_VOLTAGE))
+    growth = math.exp(min(MAX_EXP_ARG, voltage / thermal))
     return (
         saturation_current * (growth - 1.0) + gmin * voltage,
-        saturation_current * growth / THERMAL_VOLTAGE + gmin,
+        saturation_current * growth / thermal + gmin,
     )
 
 
@@ -738,10 +811,10 @@ def _limit_mosfet(
         vds = -_limvds(-(vgs - vgd), -old_vds)
         vgs = vgd + vds
     if vds >= 0.0:
-        vbs, clipped = _pnjlim(vbs, old_vbs, THERMAL_VOLTAGE, mos.source_vcrit)
+        vbs, clipped = _pnjlim(vbs, old_vbs, mos.thermal_voltage, mos.source_vcrit)
         vbd = vbs - vds
     else:
-        vbd, clipped = _pnjlim(vbs - vds, old_vbd, THERMAL_VOLTAGE, mos.drain_vcrit)
+        vbd, clipped = _pnjlim(vbs - vds, old_vbd, mos.thermal_voltage, mos.drain_vcrit)
         vbs = vbd + vds
     return vgs, vds, vbs, vbd, clipped
 
@@ -975,9 +1048,9 @@ def _newton(
                         line[b] += sign * gb
                     rhs[row] -= sign * offset
             # Bulk junctions, in device polarity; the real current bulk → diffusion is polarity·c.
-            cbd, gbd = _mos_junction(vbd, mos.drain_saturation_current, gmin)
+            cbd, gbd = _mos_junction(vbd, mos.drain_saturation_current, gmin, mos.thermal_voltage)
             _stamp_pair(matrix, rhs, b, d, gbd, polarity * (cbd - gbd * vbd))
-            cbs, gbs = _mos_junction(vbs, mos.source_saturation_current, gmin)
+            cbs, gbs = _mos_junction(vbs, mos.source_saturation_current, gmin, mos.thermal_voltage)
             _stamp_pair(matrix, rhs, b, s, gbs, polarity * (cbs - gbs * vbs))
             linearised.append((mos, point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs))
         for k, diode in enumerate(net.diodes):
@@ -1048,8 +1121,10 @@ def _devices_settled(linearised: list[tuple], x: list[float], gmin: float) -> tu
             pairs = (
                 (point.drain_current + gd * (xd - vd) + gg * (xg - vg) + gs * (xs - vs) + gb * (xb - vb),
                  mos.point(xd, xg, xs, xb).drain_current),
-                (cbd + gbd * (new_vbd - vbd), _mos_junction(new_vbd, mos.drain_saturation_current, gmin)[0]),
-                (cbs + gbs * (new_vbs - vbs), _mos_junction(new_vbs, mos.source_saturation_current, gmin)[0]),
+                (cbd + gbd * (new_vbd - vbd),
+                 _mos_junction(new_vbd, mos.drain_saturation_current, gmin, mos.thermal_voltage)[0]),
+                (cbs + gbs * (new_vbs - vbs),
+                 _mos_junction(new_vbs, mos.source_saturation_current, gmin, mos.thermal_voltage)[0]),
             )  # fmt: skip
         else:
             diode, current, conductance, vd = entry
@@ -1188,8 +1263,8 @@ def _operating_point(net: _Network, solved: _Solved, circuit_caveats: Sequence[s
         polarity = mos.model.polarity
         vbd, vbs = polarity * (vb - vd), polarity * (vb - vs)
         junctions[mos.name] = BulkJunctions(
-            bulk_drain=_mos_junction(vbd, mos.drain_saturation_current, net.gmin)[0],
-            bulk_source=_mos_junction(vbs, mos.source_saturation_current, net.gmin)[0],
+            bulk_drain=_mos_junction(vbd, mos.drain_saturation_current, net.gmin, mos.thermal_voltage)[0],
+            bulk_source=_mos_junction(vbs, mos.source_saturation_current, net.gmin, mos.thermal_voltage)[0],
         )
     diode_currents = {d.name: _diode_current(x[d.anode] - x[d.cathode], d, net.gmin)[0] for d in net.diodes}
     caveats = tuple(circuit_caveats)

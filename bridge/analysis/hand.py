@@ -33,6 +33,8 @@ from operator import mul
 import numpy as np
 
 from ..devices.level1 import (
+    CELSIUS_TO_KELVIN,
+    CIRCUIT_TEMPERATURE_C,
     DEFAULT_L,
     DEFAULT_W,
     Level1Geometry,
@@ -254,7 +256,7 @@ def _transistor(
             f"{element.name}: model {card.name} is LEVEL={card.level}; the hand model reads level-1 cards"
         )
     try:
-        card_model = Level1Model.from_card(card.type, card.params)
+        card_model = _card_at_temperature(circuit, element, card.type, card.params)
         geometry = Level1Geometry(
             w=_number(element.params.get("w", defaults[0]), "W", element),
             l=_number(element.params.get("l", defaults[1]), "L", element),
@@ -265,6 +267,37 @@ def _transistor(
         raise HandAnalysisError(f"{element.name}: {exc}") from None
     d, g, s, b = (merged[node] for node in element.nodes)
     return _Transistor(element, hand_model(card_model, effects), card_model, geometry, d, g, s, b)
+
+
+def _card_at_temperature(circuit: Circuit, element: Element, mos_type: str, params: Mapping[str, float]) -> Level1Model:
+    """A card's level-1 model at the device's temperature (``.temp``, ``.options temp``, TEMP/DTEMP),
+    its TNOM defaulting to ``.options tnom``: ngspice's temperature phase, before the hand model
+    zeroes LAMBDA and GAMMA (VTO at temperature is ngspice's, which involves the card's GAMMA)."""
+    card = Level1Model.from_card(mos_type, params, circuit.nominal_temperature())
+    return card.at_temperature(circuit.device_temperature(element))
+
+
+def _temperature_moved(model: Level1Model) -> bool:
+    """True when the model is not simply the card at 27 °C: another temperature or TNOM."""
+    return model.temperature_celsius is not None and (
+        model.temperature_celsius != CIRCUIT_TEMPERATURE_C or not model.at_nominal_temperature
+    )
+
+
+def _temperature_step(transistor: _Transistor) -> Step:
+    """The working's line for KP and VTO at the device temperature (mos1temp.c's rules)."""
+    model = transistor.model
+    card = model.nominal or model
+    celsius = model.temperature_celsius
+    kelvin, tnom_kelvin = model.kelvin, card.tnom_celsius + CELSIUS_TO_KELVIN
+    return Step(
+        f"{transistor.name} at {celsius:g} °C: KP and VTO at that temperature (ngspice level-1 temperature "
+        f"rules, TNOM = {card.tnom_celsius:g} °C: KP·(T/TNOM)^−1.5, VTO through PHI and the band gap)",
+        f"KP = {_q(card.kp, 'A/V²')}·({kelvin:.2f} K/{tnom_kelvin:.2f} K)^−1.5 = {_q(model.kp, 'A/V²')}, "
+        f"VTO = {_q(card.vto, 'V')} → {_q(model.vto, 'V')}, PHI = {_q(card.phi, 'V')} → {_q(model.phi, 'V')}",
+        model.kp,
+        "A/V²",
+    )
 
 
 def _dc_circuit(circuit: Circuit, effects: frozenset[str]) -> _DcCircuit:
@@ -802,9 +835,12 @@ def _model_steps(transistor: _Transistor, effects: frozenset[str]) -> list[Step]
     m_text = "·M" if geometry.m != 1.0 else ""
     m_value = f"·{geometry.m:g}" if geometry.m != 1.0 else ""
     l_text = "Leff" if model.ld != 0.0 else "L"
-    steps = [
+    moved = _temperature_moved(model)
+    at_text = f" at {model.temperature_celsius:g} °C" if moved else ""
+    steps = [_temperature_step(transistor)] if moved else []
+    steps += [
         Step(
-            f"{transistor.name}: gain factor K = KP·W{m_text}/{l_text}"
+            f"{transistor.name}: gain factor K = KP·W{m_text}/{l_text}{at_text}"
             + (f" (Leff = L − 2·LD = {_q(length, 'm')})" if model.ld != 0.0 else ""),
             f"K = {_q(model.kp, 'A/V²')}·{_q(geometry.w, 'm')}{m_value}/{_q(length, 'm')} = {_q(k, 'A/V²')}",
             k,
@@ -815,7 +851,7 @@ def _model_steps(transistor: _Transistor, effects: frozenset[str]) -> list[Step]
     if "gamma" in effects:
         steps.append(
             Step(
-                f"{transistor.name}: zero-bias threshold (body effect on: GAMMA = {model.gamma:.4g} √V, "
+                f"{transistor.name}: zero-bias threshold{at_text} (body effect on: GAMMA = {model.gamma:.4g} √V, "
                 f"PHI = {_q(model.phi, 'V')})",
                 f"Vt0 = {'−VTO' if model.polarity < 0 else 'VTO'} = {_q(vt, 'V')}",
                 vt,
@@ -825,7 +861,7 @@ def _model_steps(transistor: _Transistor, effects: frozenset[str]) -> list[Step]
     else:
         steps.append(
             Step(
-                f"{transistor.name}: threshold from the card, no body effect"
+                f"{transistor.name}: threshold from the card{at_text}, no body effect"
                 + (" (PMOS: in device polarity)" if model.polarity < 0 else ""),
                 f"Vt = {'−VTO' if model.polarity < 0 else 'VTO'} = {_q(vt, 'V')}",
                 vt,
@@ -1652,6 +1688,12 @@ def _assumptions(dc: _DcCircuit, effects: frozenset[str]) -> tuple[str, ...]:
         "VDS = V(s) − V(d), Vt",
     ]
     items.extend(dc.notes)
+    for t in dc.transistors:
+        if _temperature_moved(t.model):
+            items.append(
+                f"{t.name} at {t.model.temperature_celsius:g} °C: the card's KP, VTO and PHI taken to that "
+                f"temperature by ngspice's level-1 rules (TNOM = {t.model.tnom_celsius:g} °C)"
+            )
     for t in dc.transistors:
         items.extend(f"{t.name}: {caveat}" for caveat in t.card.caveats)
     return tuple(dict.fromkeys(items))

@@ -825,11 +825,25 @@ def _hand_constants(circuit: Circuit, mosfet: Element) -> tuple[float, float, in
         return float(value) if isinstance(value, (int, float)) else fallback
 
     try:
-        model = hand_model(Level1Model.from_card(card.type, card.params))
+        # The card at the device temperature (ngspice's level-1 rules), as the hand column takes it.
+        card_model = Level1Model.from_card(card.type, card.params, circuit.nominal_temperature())
+        model = hand_model(card_model.at_temperature(circuit.device_temperature(mosfet)))
         geometry = Level1Geometry(size("w", "defw", DEFAULT_W), size("l", "defl", DEFAULT_L), size("m", "", 1.0))
         return beta(model, geometry), threshold(model, 0.0), model.polarity
     except ValueError:
         return None
+
+
+def _temperature_note(circuit: Circuit, mosfet: Element) -> list[Step]:
+    """One line of working when K and Vt are not the card's 27 °C values: they are at the device
+    temperature (or from a TNOM other than 27 °C) by ngspice's level-1 rules."""
+    card = circuit.model(mosfet.model or "")
+    celsius, nominal = circuit.device_temperature(mosfet), circuit.nominal_temperature()
+    tnom = float(card.params.get("tnom", nominal)) if card is not None else nominal
+    if celsius == 27.0 and tnom == 27.0:
+        return []
+    return [Step(f"{mosfet.name} at {celsius:g} °C: K and Vt from KP and VTO at that temperature "
+                 f"(ngspice level-1 temperature rules, TNOM = {tnom:g} °C)")]
 
 
 def _fixed_nodes(circuit: Circuit) -> set[str]:
@@ -995,6 +1009,7 @@ def _closed_form(
         Step("Saturation → triode edge", solved_for_input(vg_edge, _offset_text(base, p, "(Vt + VOV)")), edge, "V"),
         Step("Cutoff → saturation edge (VOV = 0)", solved_for_input(vg_cut, _offset_text(base, p, "Vt")), cut, "V"),
     ]  # fmt: skip
+    steps[1:1] = _temperature_note(circuit, stage.mosfet)
     lo, hi = min(float(x[0]), float(x[-1])), max(float(x[0]), float(x[-1]))
     for label, value in (("saturation → triode", edge), ("cutoff → saturation", cut)):
         if not lo <= value <= hi:

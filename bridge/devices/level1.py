@@ -5,12 +5,14 @@ One place for the physics of the level-1 device: model card → derived values
 
 Scope and assumptions, stated once:
 
-* Temperature: the circuit runs at TNOM = 27 °C, so no temperature scaling is
-  applied (at that point ngspice's scaled KP, PHI and VTO equal the card values).
-  A card whose TNOM is not 27 °C is still accepted — ngspice uses TNOM for the
-  NSUB derivations, and so does this module — but it is listed in
-  ``Level1Model.caveats`` because ngspice would then rescale KP, PHI and VTO to the
-  27 °C circuit temperature, which is not modelled here.
+* Temperature: ``Level1Model.from_card`` gives the card's values, which hold at
+  TNOM (27 °C unless the card or ``.options tnom`` says otherwise; the NSUB
+  derivations use TNOM, as ngspice does). ``Level1Model.at_temperature`` is
+  ngspice's temperature phase (mos1temp.c): KP scaled by (T/TNOM)^−1.5, PHI and VTO
+  moved through the band gap EG(T) = 1.16 − 7.02e-4·T²/(T + 1108) and kT/q, the
+  bulk-junction IS/JS scaled by exp(EG(TNOM)/Vt(TNOM) − EG(T)/Vt(T)); GAMMA and
+  LAMBDA do not change. The junction capacitances and potential (PB) it also scales
+  play no part at DC and are left out.
 * Only the channel current is modelled. ngspice also places bulk–source and
   bulk–drain junction diodes (IS = 1e-14 A by default) plus GMIN (1e-12 S) across
   them; with reverse-biased junctions they add picoamps, which is why ngspice
@@ -40,6 +42,9 @@ EPS_SI = 11.70 * EPS0_MOS1  # F/m, silicon
 NI_SILICON = 1.45e16  # m⁻³ (1.45e10 cm⁻³), intrinsic carrier density
 CELSIUS_TO_KELVIN = 273.15
 CIRCUIT_TEMPERATURE_C = 27.0  # ngspice's default TEMP and TNOM
+REFERENCE_TEMPERATURE_K = 300.15  # ngspice's REFTEMP (const.h), 27 °C
+# The silicon band gap at REFTEMP as mos1temp.c writes it (1.1150877 eV in its `arg`).
+BAND_GAP_AT_REFERENCE = 1.1150877  # eV
 
 # ngspice's instance defaults (.options DEFW / DEFL).
 DEFAULT_W = 100e-6
@@ -110,6 +115,10 @@ class Level1Model:
     derived: tuple[str, ...]
     unrecognised: tuple[str, ...] = ()
     caveats: tuple[str, ...] = ()
+    # Set by at_temperature: the device temperature (°C) the values above hold at, and the
+    # model as the card gives it (at TNOM). None for the card itself.
+    temperature_celsius: float | None = None
+    nominal: Level1Model | None = None
 
     @property
     def mos_type(self) -> MosType:
@@ -118,8 +127,68 @@ class Level1Model:
 
     @property
     def at_nominal_temperature(self) -> bool:
-        """True when TNOM is the 27 °C circuit temperature, so no scaling is missing."""
+        """True when TNOM is 27 °C, ngspice's default circuit temperature."""
         return math.isclose(self.tnom_celsius, CIRCUIT_TEMPERATURE_C, abs_tol=1e-9)
+
+    @property
+    def kelvin(self) -> float:
+        """The device temperature in K: the one given to ``at_temperature``, else TNOM."""
+        celsius = self.tnom_celsius if self.temperature_celsius is None else self.temperature_celsius
+        return celsius + CELSIUS_TO_KELVIN
+
+    @property
+    def thermal_voltage(self) -> float:
+        """kT/q at the device temperature: mos1load.c's `vt` for the bulk junctions."""
+        return K_OVER_Q * self.kelvin
+
+    @property
+    def saturation_current_factor(self) -> float:
+        """IS(T)/IS and JS(T)/JS of the bulk junctions: mos1temp.c's
+        exp(−EG(T)/Vt(T) + EG(TNOM)/Vt(TNOM)); 1 at TNOM."""
+        kelvin, tnom = self.kelvin, self.tnom_celsius + CELSIUS_TO_KELVIN
+        if kelvin == tnom:
+            return 1.0
+        return math.exp(-band_gap(kelvin) / (K_OVER_Q * kelvin) + band_gap(tnom) / (K_OVER_Q * tnom))
+
+    def at_temperature(self, celsius: float) -> Level1Model:
+        """This card at a device temperature of `celsius` °C: ngspice's temperature phase.
+
+        mos1temp.c (ngspice 39, MOS1temp), with T the device temperature and TNOM the card's:
+        KP(T) = KP·(T/TNOM)^−1.5; PHI(T) = (T/REFTEMP)·PHIo + pbfact(T) with
+        PHIo = (PHI − pbfact(TNOM))/(TNOM/REFTEMP); Vbi(T) = VTO − type·GAMMA·√PHI
+        + (EG(TNOM) − EG(T))/2 + type·(PHI(T) − PHI)/2; VTO(T) = Vbi(T) + type·GAMMA·√PHI(T).
+        GAMMA, LAMBDA and the rest keep the card's values. At T = TNOM the card's values
+        stand as they are. The result keeps the card in ``nominal`` (a model already at a
+        temperature is re-scaled from that card). Raises ValueError when PHI(T) ≤ 0.
+        """
+        card = self.nominal or self
+        kelvin = celsius + CELSIUS_TO_KELVIN
+        if not kelvin > 0.0:
+            raise ValueError(f"temperature {celsius:g} °C is below absolute zero")
+        tnom = card.tnom_celsius + CELSIUS_TO_KELVIN
+        if not tnom > 0.0:
+            raise ValueError(f"TNOM = {card.tnom_celsius:g} °C is below absolute zero")
+        kp, phi, vto = card.kp, card.phi, card.vto
+        if not math.isclose(kelvin, tnom, rel_tol=0.0, abs_tol=1e-9):
+            ratio = kelvin / tnom
+            kp = card.kp / (ratio * math.sqrt(ratio))
+            phi_at_reference = (card.phi - _potential_shift(tnom)) / (tnom / REFERENCE_TEMPERATURE_K)
+            phi = (kelvin / REFERENCE_TEMPERATURE_K) * phi_at_reference + _potential_shift(kelvin)
+            if phi <= 0.0:
+                raise ValueError(
+                    f"PHI at {celsius:g} °C comes out as {phi:.4g} V (ngspice's level-1 temperature "
+                    f"rules from PHI = {card.phi:g} V at TNOM = {card.tnom_celsius:g} °C); it must be positive"
+                )
+            built_in = (
+                card.vto
+                - card.polarity * card.gamma * math.sqrt(card.phi)
+                + 0.5 * (band_gap(tnom) - band_gap(kelvin))
+                + card.polarity * 0.5 * (phi - card.phi)
+            )
+            vto = built_in + card.polarity * card.gamma * math.sqrt(phi)
+        model = object.__new__(type(self))
+        vars(model).update(vars(self), kp=kp, phi=phi, vto=vto, temperature_celsius=float(celsius), nominal=card)
+        return model
 
     def with_lambda_gamma(self, lambda_: float, gamma: float) -> Level1Model:
         """This model with LAMBDA and GAMMA replaced: ``dataclasses.replace(self, lambda_=...,
@@ -141,8 +210,13 @@ class Level1Model:
         raise KeyError(f"level-1 model has no parameter {name!r}")
 
     @classmethod
-    def from_card(cls, mos_type: str, params: Mapping[str, float]) -> Level1Model:
-        """Build the model ngspice would use from a card's type and numeric parameters."""
+    def from_card(
+        cls, mos_type: str, params: Mapping[str, float], nominal_celsius: float = CIRCUIT_TEMPERATURE_C
+    ) -> Level1Model:
+        """Build the model ngspice would use from a card's type and numeric parameters.
+
+        `nominal_celsius` is the circuit's nominal temperature (`.options tnom`), the TNOM of
+        a card that gives none. The values hold at TNOM; ``at_temperature`` moves them."""
         kind = mos_type.lower()
         if kind not in ("nmos", "pmos"):
             raise ValueError(f"level-1 device type must be 'nmos' or 'pmos', not {mos_type!r}")
@@ -166,7 +240,7 @@ class Level1Model:
         vto = value_of("vto")
         uo = value_of("uo")
         nss = value_of("nss")
-        tnom_celsius = value_of("tnom")
+        tnom_celsius = card.get("tnom", nominal_celsius)
         tnom_kelvin = tnom_celsius + CELSIUS_TO_KELVIN
         tpg_value = value_of("tpg")
         if tpg_value != int(tpg_value):
@@ -215,11 +289,6 @@ class Level1Model:
 
         if phi <= 0.0:
             raise ValueError(f"PHI must be positive, got {phi:g} V")
-        if not math.isclose(tnom_celsius, CIRCUIT_TEMPERATURE_C, abs_tol=1e-9):
-            caveats.append(
-                f"TNOM = {tnom_celsius:g} °C: ngspice would rescale KP, PHI and VTO to the "
-                f"{CIRCUIT_TEMPERATURE_C:g} °C circuit temperature; not modelled here"
-            )
         for series in ("rd", "rs", "rsh"):
             if card.get(series, 0.0) != 0.0:
                 caveats.append(f"{series.upper()} given: series resistance not modelled here")
@@ -247,6 +316,20 @@ class Level1Model:
             unrecognised=unrecognised,
             caveats=tuple(caveats),
         )
+
+
+def band_gap(kelvin: float) -> float:
+    """Silicon band gap in eV at `kelvin`, as mos1temp.c computes it: 1.16 − 7.02e-4·T²/(T + 1108)."""
+    return 1.16 - (7.02e-4 * kelvin * kelvin) / (kelvin + 1108.0)
+
+
+def _potential_shift(kelvin: float) -> float:
+    """mos1temp.c's pbfact: −2·Vt·(1.5·ln(T/REFTEMP) + q·(−EG(T)/(2kT) + 1.1150877/(2k·REFTEMP)))."""
+    thermal_energy = BOLTZMANN * kelvin
+    arg = -band_gap(kelvin) / (thermal_energy + thermal_energy) + BAND_GAP_AT_REFERENCE / (
+        BOLTZMANN * (REFERENCE_TEMPERATURE_K + REFERENCE_TEMPERATURE_K)
+    )
+    return -2.0 * K_OVER_Q * kelvin * (1.5 * math.log(kelvin / REFERENCE_TEMPERATURE_K) + CHARGE * arg)
 
 
 @dataclass(frozen=True)

@@ -497,6 +497,7 @@ class _Builder:
         else:
             for node, expr in raw.node_values:
                 settings.append((self.node(node, scope), self.value(expr, raw.card, scope)))
+        _check_temperatures(raw, settings)
         return Directive(raw.kind, raw.card.text, _origin(raw.card), tuple(settings))
 
     def analysis(self, raw: RawAnalysis) -> Analysis:
@@ -553,3 +554,18 @@ def build_circuit(deck: Deck) -> Circuit:
         ) from None
     check_references(circuit, builder.element_cards)
     return circuit
+
+
+def _check_temperatures(raw: RawSetting, settings: list[tuple[str, float | str | None]]) -> None:
+    """A `.temp`, `.options temp` or `.options tnom` at or below absolute zero (−273.15 °C) is
+    refused at its place: no device equation has a meaning there (ngspice fails to converge)."""
+    if raw.kind == "temp":
+        places = [getattr(value, "offset", 0) for value in raw.values]
+    elif raw.kind == "options":
+        places = [item.offset for item in raw.items if isinstance(item, (Assignment, Word))]
+    else:
+        return
+    for (name, value), offset in zip(settings, places):
+        if name in ("temp", "tnom") and isinstance(value, (int, float)) and value <= -273.15:
+            what = "`.temp`" if raw.kind == "temp" else f"`.options {name}`"
+            raise raw.card.error(f"{what} = {value:g} °C is at or below absolute zero (−273.15 °C)", offset)

@@ -10,6 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 GROUND = "0"
+CIRCUIT_TEMPERATURE_C = 27.0  # ngspice's default circuit temperature (TEMP) and TNOM, °C
 
 # Element kinds, keyed by their SPICE letter.
 KIND_BY_LETTER: dict[str, str] = {
@@ -201,3 +202,32 @@ class Circuit:
 
     def elements_of(self, kind: str) -> tuple[Element, ...]:
         return tuple(e for e in self.elements if e.kind == kind)
+
+    def temperature(self) -> float:
+        """The circuit temperature in °C as ngspice 39 sets it (checked with `ngspice -b`): the last
+        `.temp` card, which beats `.options temp` wherever it stands; a last `.temp` with several
+        values sets nothing (ngspice warns "Could not set temperature") and leaves 27 °C; without
+        `.temp`, the last `.options temp`; else 27 °C."""
+        cards = [d for d in self.directives if d.kind == "temp" and d.settings]
+        if cards:
+            values = [v for _, v in cards[-1].settings]
+            if len(values) == 1 and isinstance(values[0], (int, float)):
+                return float(values[0])
+            return CIRCUIT_TEMPERATURE_C
+        value = self.options().get("temp")
+        return float(value) if isinstance(value, (int, float)) else CIRCUIT_TEMPERATURE_C
+
+    def nominal_temperature(self) -> float:
+        """ngspice's nominal temperature TNOM in °C: the last `.options tnom`, else 27 °C. A model
+        card's own TNOM wins over it."""
+        value = self.options().get("tnom")
+        return float(value) if isinstance(value, (int, float)) else CIRCUIT_TEMPERATURE_C
+
+    def device_temperature(self, element: Element) -> float:
+        """An instance's temperature in °C, as ngspice's devices take it: its own TEMP when
+        given, else the circuit temperature plus its DTEMP (0 by default)."""
+        own = element.params.get("temp")
+        if isinstance(own, (int, float)):
+            return float(own)
+        offset = element.params.get("dtemp", 0.0)
+        return self.temperature() + (float(offset) if isinstance(offset, (int, float)) else 0.0)
