@@ -272,7 +272,8 @@ def compare(
                 )
             )
         reference_device = sim_device if reference_column == "sim" else level1_device
-        if not_amplifying := _not_amplifying(element, reference_region, quantities, reference_column):
+        single = len(circuit.elements_of("mosfet")) == 1
+        if not_amplifying := _not_amplifying(element, reference_region, quantities, reference_column, single):
             found.append(not_amplifying)
         gamma = model.params.get("gamma", 0.0) if model is not None else 0.0
         if (
@@ -419,10 +420,12 @@ def _sat_margin(quantities: Mapping[str, Columns], resolution: float) -> Columns
 
 
 def _not_amplifying(
-    element, region: str | None, quantities: Mapping[str, Columns], reference_column: str
+    element, region: str | None, quantities: Mapping[str, Columns], reference_column: str, single: bool
 ) -> Finding | None:
-    """A device out of saturation in the reference column: the columns may agree, but a stage built
-    to amplify does not. A diode-connected device (drain on its gate) is a bias element: skipped."""
+    """A device out of saturation in the reference column: the columns may agree, but the stage is
+    not biased to amplify. A diode-connected device (drain on its gate) is a bias element: skipped.
+    Only cutoff (gm = 0) is said not to amplify at all, of the stage when it is the only transistor;
+    in triode the stage can keep some gain (a common gate, a cascode), so only the facts are given."""
     if region not in ("cutoff", "triode") or element.nodes[0] == element.nodes[1]:
         return None
     source = COLUMN_NAMES[reference_column]
@@ -433,15 +436,13 @@ def _not_amplifying(
 
     if region == "cutoff":
         message = (f"{element.name}: {source} puts it in cutoff (vov = {shown('vov')}): no channel current, "
-                   "gm = 0 — the stage does not amplify")
+                   f"gm = 0 — {'the stage' if single else 'it'} does not amplify")
     else:
         message = (f"{element.name}: {source} puts it in triode (vds − vov = {shown(SAT_MARGIN)}), not "
                    "saturation — the stage is not biased to amplify")
         gm, gds = quantities["gm"].get(reference_column), quantities["gds"].get(reference_column)
         if gm is not None and gds:
-            ratio = gm / gds
-            message += f"; its intrinsic gain gm/gds is {ratio:.3g}" + (
-                ", below 1: it does not amplify" if ratio < 1 else "")
+            message += f"; its intrinsic gain gm/gds is {gm / gds:.3g}"
     message += " (--allow-region accepts a stage meant to sit there)"
     return Finding("warning", NOT_AMPLIFYING, message, element.origin.line, element.name)
 
