@@ -129,6 +129,11 @@ def _round_half_away(scaled: float, digits: int) -> str:
     """`scaled` to `digits` significant digits (as %g writes them), ties away from zero, on the
     decimal value with float noise dropped: 1.5625 and 1.5625000000000002 both give 1.563."""
     text = f"{scaled:.{digits}g}"
+    # Cheap first look: far from a tie (in float arithmetic, with room for its noise) %g is right.
+    magnitude = abs(scaled)
+    kept = magnitude * 10.0 ** (digits - 1 - math.floor(math.log10(magnitude)))
+    if abs(kept - math.floor(kept) - 0.5) > 1e-9 * kept:
+        return text
     decimal = f"{scaled:.{_NOISE_DIGITS - 1}e}"
     mantissa, _, power = decimal.partition("e")
     if mantissa.lstrip("-").replace(".", "")[digits:].rstrip("0") != "5":
