@@ -133,24 +133,25 @@ def _differs(value: float | None, reference: float | None, relative: float, floo
 _FLOAT_SLACK = 1e-9  # relative: far below any tolerance, far above a subtraction's rounding
 
 
-def _resolutions(circuit: Circuit, node_voltages: Mapping[str, float]) -> dict[str, float]:
+def _resolutions(circuit: Circuit) -> dict[str, float]:
     """Per unit, what a solved value can be and still be zero at the solver's resolution: VNTOL,
-    and GMIN for conductances, as the netlist's `.options` set them or ngspice's defaults (ngspice
-    manual, section 15.1.2); for currents ABSTOL plus the GMIN leakage the largest voltage in the
-    circuit drives through one junction's GMIN (a device in cutoff shows GMIN times its bias)."""
+    ABSTOL and, for conductances, GMIN, as the netlist's `.options` set them or ngspice's defaults
+    (ngspice manual, section 15.1.2). A drain current adds its GMIN leakage (``_drain_resolution``)."""
     options = circuit.options()
 
     def option(name: str, default: float) -> float:
         value = options.get(name)
         return float(value) if isinstance(value, (int, float)) and value >= 0 else default
 
-    voltages = [0.0, *(v for v in node_voltages.values() if v is not None and math.isfinite(v))]
-    gmin = option("gmin", GMIN)
-    return {
-        "V": option("vntol", VNTOL),
-        "A": option("abstol", ABSTOL) + gmin * (max(voltages) - min(voltages)),
-        "S": gmin,
-    }
+    return {"V": option("vntol", VNTOL), "A": option("abstol", ABSTOL), "S": option("gmin", GMIN)}
+
+
+def _drain_resolution(element, resolution: Mapping[str, float], voltages: Mapping[str, float]) -> dict[str, float]:
+    """`resolution` with the current's widened by the GMIN leakage of the drain–bulk junction: ngspice's
+    id is the channel current less that junction's, which carries GMIN × V(drain, bulk) even in cutoff."""
+    drain, _, _, bulk = element.nodes
+    bias = abs(voltages.get(drain, 0.0) - voltages.get(bulk, 0.0))
+    return {**resolution, "A": resolution["A"] + resolution["S"] * (bias if math.isfinite(bias) else 0.0)}
 
 
 def _relative_change(value: float, reference: float) -> float:
@@ -185,7 +186,8 @@ def compare(
     found: list[Finding] = list(findings)
     reference_column = "sim" if sim is not None else "level1"
     reference_point = sim if sim is not None else level1
-    resolution = _resolutions(circuit, reference_point.node_voltages if reference_point else hand.node_voltages)
+    reference_voltages = reference_point.node_voltages if reference_point else hand.node_voltages
+    resolution = _resolutions(circuit)
     nodes: dict[str, Columns] = {}
     for node in ("0",) + circuit.nodes():
         if node == "0":
@@ -209,6 +211,7 @@ def compare(
         level1_device = level1.devices.get(element.name) if level1 else None
         sim_device = sim.devices.get(element.name) if sim else None
         wanted = (expect.devices.get(element.name.lower(), {}) if expect else {})
+        device_resolution = _drain_resolution(element, resolution, reference_voltages)
         quantities: dict[str, Columns] = {}
         for quantity in DEVICE_QUANTITIES:
             hand_q = getattr(hand_device, quantity) if hand_device else None
@@ -222,12 +225,12 @@ def compare(
             assumed = quantity == "gds" and hand_device is not None and hand_device.region == "saturation"
             flagged = _flag_columns(
                 UNITS[quantity], None if assumed else hand_q, level1_q, sim_q, expected, reference_column,
-                tolerance, found, f"{element.name} {quantity}", element, resolution,
+                tolerance, found, f"{element.name} {quantity}", element, device_resolution,
             )
             quantities[quantity] = Columns(
                 hand_q, level1_q, sim_q, _expect_value(expected), flagged,
                 _compared(None if assumed else hand_q, level1_q, sim_q, expected, reference_column),
-                resolution[UNITS[quantity]],
+                device_resolution[UNITS[quantity]],
             )
         quantities[SAT_MARGIN] = _sat_margin(quantities, resolution["V"])
         region = {

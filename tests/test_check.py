@@ -1111,8 +1111,10 @@ def test_a_reference_at_the_solver_resolution_is_zero_and_compared_absolutely(ve
     assert source.sim != 0 and abs(source.sim) < 1e-6
     assert check_json(result)["nodes"]["s"]["sim"] == source.sim
     # The drain current in cutoff is GMIN (1e-12 S) times the 10 V from drain to bulk, within ABSTOL.
-    drain_current = result.devices["M1"].quantities["id"].sim
-    assert abs(drain_current - 1e-12 * 10) < 1e-12
+    drain_current = result.devices["M1"].quantities["id"]
+    assert abs(drain_current.sim - 1e-12 * 10) < 1e-12
+    # So the current's resolution is ABSTOL plus GMIN times that drain-to-bulk voltage.
+    assert drain_current.resolution == pytest.approx(1e-12 + 1e-12 * 10)
     completed = check_text(path)
     rows = table_rows(completed.stdout)
     assert rows["V(s)"][1:] == ["0 V", "0 V"]
