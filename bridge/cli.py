@@ -1,6 +1,7 @@
 """The `biasbridge` command: argument handling and exit status, nothing else.
 
-Exit status: 0 fine, 1 findings or disagreement, 2 unusable input.
+Exit status: 0 fine, 1 findings or disagreement (or, for `check`, a stage out of saturation
+without --allow-region), 2 unusable input.
 
 The netlist front end and rich are imported inside the commands, not here: `check` starts the
 ngspice worker first, so the worker's start-up runs beside those imports.
@@ -144,8 +145,9 @@ def command_check(args: argparse.Namespace) -> int:
         if args.json:
             sys.stdout.write(json.dumps(check_json(result), allow_nan=False) + "\n")
         else:
-            print_check(console, check_renderable(result, steps=args.steps))
-        if not result.agree and status == EXIT_OK:
+            print_check(console, check_renderable(result, steps=args.steps, allow_region=args.allow_region))
+        # A stage that does not amplify is a finding too, unless --allow-region accepts it.
+        if (not result.agree or not (result.amplifies or args.allow_region)) and status == EXIT_OK:
             status = EXIT_FINDINGS
         if progress is not None:
             progress.advance(task)
@@ -178,7 +180,7 @@ def command_demo(args: argparse.Namespace) -> int:
     path = example_path(DEMO_NETLIST)
     _console().print(f"[bold]biasbridge demo[/bold]: check --steps on the bundled example {path.name}\n")
     demo_args = argparse.Namespace(
-        files=[str(path)], json=False, steps=True, tol=0.05, sim_timeout=10.0, expect=None
+        files=[str(path)], json=False, steps=True, tol=0.05, sim_timeout=10.0, expect=None, allow_region=False
     )
     status = command_check(demo_args)
     return EXIT_OK if status == EXIT_FINDINGS else status
@@ -330,6 +332,9 @@ def build_parser() -> argparse.ArgumentParser:
     check.add_argument("--sim-timeout", type=_positive_seconds, default=10.0, metavar="SECONDS",
                        help="give up on ngspice for one netlist after this long (default 10)")
     check.add_argument("--expect", metavar="FILE.toml", help="the designer's own targets (see README)")
+    check.add_argument("--allow-region", action="store_true",
+                       help="a device in cutoff or triode (a switch, say) is reported but does not make the exit "
+                            "status 1")
     check.set_defaults(run=command_check)
     sweep = verbs.add_parser(
         "sweep", help="the DC transfer curve: hand, level-1 and ngspice, with region edges and gain"

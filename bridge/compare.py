@@ -16,12 +16,15 @@ from dataclasses import dataclass, field
 from .analysis.dcsolve import OperatingPoint, level1_model
 from .analysis.hand import HandSolution
 from .netlist.circuit import Circuit
-from .netlist.numbers import engineering
+from .netlist.numbers import ABSTOL, GMIN, VNTOL, engineering
 from .sim.operating_point import SimOperatingPoint
 
 DEVICE_QUANTITIES = ("id", "vgs", "vds", "vth", "vov", "gm", "gds")
-UNITS = {"id": "A", "vgs": "V", "vds": "V", "vth": "V", "vov": "V", "gm": "S", "gds": "S"}
-# Absolute floors under the relative tolerance, so near-zero values are not flagged for
+UNITS = {"id": "A", "vgs": "V", "vds": "V", "vth": "V", "vov": "V", "gm": "S", "gds": "S", "sat_margin": "V"}
+# The saturation margin vds − vov per device (the table's `vds − vov` row): negative is triode.
+SAT_MARGIN = "sat_margin"
+# Absolute floors beside the relative tolerance: a value passes when within the relative
+# tolerance of the reference OR within the floor, so near-zero values are not flagged for
 # picoamp or microvolt noise (common practice, no source): voltages, currents, conductances.
 HAND_FLOOR = {"V": 5e-3, "A": 1e-9, "S": 1e-8}
 # Our level-1 solver and ngspice solve the same equations; ngspice stops at RELTOL = 1e-3
@@ -33,6 +36,8 @@ EFFECTS = ("lambda", "gamma")
 EFFECT_NAMES = {"lambda": "channel-length modulation (LAMBDA)", "gamma": "body effect (GAMMA)"}
 COLUMNS = ("hand", "level1", "sim")
 COLUMN_NAMES = {"hand": "hand analysis", "level1": "level-1 solver", "sim": "ngspice"}
+# A device outside saturation: the columns may agree, but the stage does not amplify.
+NOT_AMPLIFYING = "not-amplifying"
 
 
 @dataclass(frozen=True)
@@ -53,6 +58,8 @@ class Columns:
     sim: float | None
     expect: float | None = None
     flagged: tuple[str, ...] = ()  # columns that disagree with the reference
+    compared: tuple[str, ...] = ()  # columns that were compared with the reference (flagged or not)
+    resolution: float = 0.0  # |value| up to this is zero at the solver's resolution (see _resolutions)
 
     def get(self, column: str) -> float | None:
         return getattr(self, column)
@@ -99,16 +106,53 @@ class CheckResult:
     steps: tuple = ()
     has_expect: bool = False
     supplies: dict = field(default_factory=dict)  # name → bias_rules.Supply: current and power per column
+    tolerance: float = DEFAULT_TOLERANCE  # the relative tolerance of the hand column
 
     @property
     def agree(self) -> bool:
-        return not any(f.severity in {"error", "warning"} for f in self.findings)
+        """The columns agree: no error or warning but the not-amplifying one (which is about the
+        circuit, not about the columns)."""
+        return not any(f.severity in {"error", "warning"} and f.code != NOT_AMPLIFYING for f in self.findings)
+
+    @property
+    def amplifies(self) -> bool:
+        """No device that should amplify sits outside saturation (see ``_not_amplifying``)."""
+        return not any(f.code == NOT_AMPLIFYING for f in self.findings)
 
 
 def _differs(value: float | None, reference: float | None, relative: float, floor: float) -> bool:
+    """Beyond the relative tolerance AND beyond the absolute floor: a value passes when within
+    either. Near zero the floor decides, so a reference at the solver's resolution (where a
+    relative difference means nothing) is compared absolutely."""
     if value is None or reference is None:
         return False
-    return abs(value - reference) > relative * abs(reference) + floor
+    difference = abs(value - reference)
+    # A difference of exactly the tolerance passes: 0.95 against 1 is 5 % (its float is 5.000000000000004 %).
+    return difference > relative * abs(reference) * (1 + _FLOAT_SLACK) and difference > floor
+
+
+_FLOAT_SLACK = 1e-9  # relative: far below any tolerance, far above a subtraction's rounding
+
+
+def _resolutions(circuit: Circuit) -> dict[str, float]:
+    """Per unit, what a solved value can be and still be zero at the solver's resolution: VNTOL,
+    ABSTOL and, for conductances, GMIN, as the netlist's `.options` set them or ngspice's defaults
+    (ngspice manual, section 15.1.2). A drain current adds its GMIN leakage (``_drain_resolution``)."""
+    options = circuit.options()
+
+    def option(name: str, default: float) -> float:
+        value = options.get(name)
+        return float(value) if isinstance(value, (int, float)) and value >= 0 else default
+
+    return {"V": option("vntol", VNTOL), "A": option("abstol", ABSTOL), "S": option("gmin", GMIN)}
+
+
+def _drain_resolution(element, resolution: Mapping[str, float], voltages: Mapping[str, float]) -> dict[str, float]:
+    """`resolution` with the current's widened by the GMIN leakage of the drain–bulk junction: ngspice's
+    id is the channel current less that junction's, which carries GMIN × V(drain, bulk) even in cutoff."""
+    drain, _, _, bulk = element.nodes
+    bias = abs(voltages.get(drain, 0.0) - voltages.get(bulk, 0.0))
+    return {**resolution, "A": resolution["A"] + resolution["S"] * (bias if math.isfinite(bias) else 0.0)}
 
 
 def _relative_change(value: float, reference: float) -> float:
@@ -118,6 +162,7 @@ def _relative_change(value: float, reference: float) -> float:
 
 
 def _percent(change: float) -> str:
+    """A relative difference as every percentage in the report is: (other − reference)/|reference|."""
     return f"{change * 100:+.1f} %" if math.isfinite(change) else "from zero"
 
 
@@ -141,6 +186,9 @@ def compare(
     """
     found: list[Finding] = list(findings)
     reference_column = "sim" if sim is not None else "level1"
+    reference_point = sim if sim is not None else level1
+    reference_voltages = reference_point.node_voltages if reference_point else hand.node_voltages
+    resolution = _resolutions(circuit)
     nodes: dict[str, Columns] = {}
     for node in ("0",) + circuit.nodes():
         if node == "0":
@@ -150,9 +198,11 @@ def compare(
         sim_v = sim.node_voltages.get(node) if sim else None
         expected = expect.nodes.get(node) if expect else None
         flagged = _flag_columns(
-            "V", hand_v, level1_v, sim_v, expected, reference_column, tolerance, found, f"V({node})", None
+            "V", hand_v, level1_v, sim_v, expected, reference_column, tolerance, found, f"V({node})", None,
+            resolution,
         )
-        nodes[node] = Columns(hand_v, level1_v, sim_v, _expect_value(expected), flagged)
+        nodes[node] = Columns(hand_v, level1_v, sim_v, _expect_value(expected), flagged,
+                              _compared(hand_v, level1_v, sim_v, expected, reference_column), resolution["V"])
 
     devices: dict[str, DeviceComparison] = {}
     for element in circuit.elements_of("mosfet"):
@@ -162,6 +212,7 @@ def compare(
         level1_device = level1.devices.get(element.name) if level1 else None
         sim_device = sim.devices.get(element.name) if sim else None
         wanted = (expect.devices.get(element.name.lower(), {}) if expect else {})
+        device_resolution = _drain_resolution(element, resolution, reference_voltages)
         quantities: dict[str, Columns] = {}
         for quantity in DEVICE_QUANTITIES:
             hand_q = getattr(hand_device, quantity) if hand_device else None
@@ -178,9 +229,14 @@ def compare(
             assumed = quantity == "gds" and hand_device is not None and hand_device.region == "saturation"
             flagged = _flag_columns(
                 UNITS[quantity], None if assumed else hand_q, level1_q, sim_q, expected, reference_column,
-                tolerance, found, f"{element.name} {quantity}", element,
+                tolerance, found, f"{element.name} {quantity}", element, device_resolution,
             )
-            quantities[quantity] = Columns(hand_q, level1_q, sim_q, _expect_value(expected), flagged)
+            quantities[quantity] = Columns(
+                hand_q, level1_q, sim_q, _expect_value(expected), flagged,
+                _compared(None if assumed else hand_q, level1_q, sim_q, expected, reference_column),
+                device_resolution[UNITS[quantity]],
+            )
+        quantities[SAT_MARGIN] = _sat_margin(quantities, resolution["V"])
         region = {
             "hand": hand_device.region if hand_device else None,
             "level1": level1_device.region if level1_device else None,
@@ -227,6 +283,9 @@ def compare(
                 )
             )
         reference_device = sim_device if reference_column == "sim" else level1_device
+        single = len(circuit.elements_of("mosfet")) == 1
+        if not_amplifying := _not_amplifying(element, reference_region, quantities, reference_column, single):
+            found.append(not_amplifying)
         gamma = model.params.get("gamma", 0.0) if model is not None else 0.0
         if (
             "hand" in quantities["vth"].flagged
@@ -255,6 +314,7 @@ def compare(
         findings=tuple(found),
         steps=tuple(hand.steps),
         has_expect=expect is not None,
+        tolerance=tolerance,
     )
 
 
@@ -278,28 +338,34 @@ def _flag_columns(
     found: list[Finding],
     subject: str,
     element,
+    resolutions: Mapping[str, float],
 ) -> tuple[str, ...]:
     reference = sim_v if reference_column == "sim" else level1_v
     line = element.origin.line if element is not None else None
     name = element.name if element is not None else subject
+    resolution = resolutions[unit]
     flagged: list[str] = []
     if _differs(hand_v, reference, tolerance, HAND_FLOOR[unit]):
         flagged.append("hand")
         found.append(
             Finding(
                 "warning", "hand-differs",
-                f"{subject}: hand {engineering(hand_v, unit)} vs {COLUMN_NAMES[reference_column]} "
-                f"{engineering(reference, unit)} "
-                f"({_percent(_relative_change(hand_v, reference))}, tolerance {tolerance * 100:g} %)",
+                f"{subject}: hand {engineering(hand_v, unit, resolution=resolution)} vs "
+                f"{COLUMN_NAMES[reference_column]} {engineering(reference, unit, resolution=resolution)} "
+                f"({_difference(hand_v, reference, resolution, unit)}; tolerance {tolerance * 100:g} % or "
+                f"{engineering(HAND_FLOOR[unit], unit)})",
                 line, name,
             )
         )
-    if reference_column == "sim" and _differs(level1_v, sim_v, SOLVER_RELATIVE, SOLVER_FLOOR[unit]):
+    if reference_column == "sim" and _differs(
+        level1_v, sim_v, SOLVER_RELATIVE, max(SOLVER_FLOOR[unit], resolution)
+    ):
         flagged.append("level1")
         found.append(
             Finding(
                 "error", "solver-differs",
-                f"{subject}: level-1 solver {engineering(level1_v, unit)} vs ngspice {engineering(sim_v, unit)} "
+                f"{subject}: level-1 solver {engineering(level1_v, unit, resolution=resolution)} vs ngspice "
+                f"{engineering(sim_v, unit, resolution=resolution)} "
                 "beyond 0.2 %: a defect of biasbridge's solver or a model feature it does not cover",
                 line, name,
             )
@@ -307,19 +373,82 @@ def _flag_columns(
     if (
         expected is not None
         and isinstance(expected.value, float)
-        and _differs(reference, expected.value, expected.tolerance, 0.0)
+        and _differs(reference, expected.value, expected.tolerance, resolution)
     ):
         flagged.append("expect")
         found.append(
             Finding(
                 "warning", "expect-differs",
                 f"{subject}: expected {engineering(expected.value, unit)} ± {expected.tolerance * 100:g} %, "
-                f"{COLUMN_NAMES[reference_column]} gives {engineering(reference, unit)}"
+                f"{COLUMN_NAMES[reference_column]} gives {engineering(reference, unit, resolution=resolution)}"
                 f"{_expect_place(expected)}",
                 element.origin.line if element is not None else None, name,
             )
         )
     return tuple(flagged)
+
+
+def _difference(value: float, reference: float, resolution: float, unit: str) -> str:
+    """How far `value` is from `reference`: relative, (value − reference)/|reference|, or absolute
+    when the reference is zero at the solver's resolution (a percentage of it means nothing)."""
+    if abs(reference) <= resolution:
+        change = value - reference
+        return f"{'+' if change > 0 else ''}{engineering(change, unit)} from a value at the solver's resolution"
+    return _percent(_relative_change(value, reference))
+
+
+def _compared(
+    hand_v: float | None, level1_v: float | None, sim_v: float | None, expected: Expectation | None,
+    reference_column: str,
+) -> tuple[str, ...]:
+    """The columns `_flag_columns` compares with the reference (those with a value to compare)."""
+    reference = sim_v if reference_column == "sim" else level1_v
+    if reference is None:
+        return ()
+    columns = ["hand"] if hand_v is not None else []
+    if reference_column == "sim" and level1_v is not None:
+        columns.append("level1")
+    if expected is not None and isinstance(expected.value, float):
+        columns.append("expect")
+    return tuple(columns)
+
+
+def _sat_margin(quantities: Mapping[str, Columns], resolution: float) -> Columns:
+    """vds − vov in each column: how far the device is inside saturation (negative: triode)."""
+
+    def margin(column: str) -> float | None:
+        vds, vov = quantities["vds"].get(column), quantities["vov"].get(column)
+        return None if vds is None or vov is None else vds - vov
+
+    return Columns(margin("hand"), margin("level1"), margin("sim"), resolution=resolution)
+
+
+def _not_amplifying(
+    element, region: str | None, quantities: Mapping[str, Columns], reference_column: str, single: bool
+) -> Finding | None:
+    """A device out of saturation in the reference column: the columns may agree, but the stage is
+    not biased to amplify. A diode-connected device (drain on its gate) is a bias element: skipped.
+    Only cutoff (gm = 0) is said not to amplify at all, of the stage when it is the only transistor;
+    in triode the stage can keep some gain (a common gate, a cascode), so only the facts are given."""
+    if region not in ("cutoff", "triode") or element.nodes[0] == element.nodes[1]:
+        return None
+    source = COLUMN_NAMES[reference_column]
+
+    def shown(quantity: str) -> str:
+        columns = quantities[quantity]
+        return engineering(columns.get(reference_column), UNITS[quantity], resolution=columns.resolution)
+
+    if region == "cutoff":
+        message = (f"{element.name}: {source} puts it in cutoff (vov = {shown('vov')}): no channel current, "
+                   f"gm = 0 — {'the stage' if single else 'it'} does not amplify")
+    else:
+        message = (f"{element.name}: {source} puts it in triode (vds − vov = {shown(SAT_MARGIN)}), not "
+                   "saturation — the stage is not biased to amplify")
+        gm, gds = quantities["gm"].get(reference_column), quantities["gds"].get(reference_column)
+        if gm is not None and gds:
+            message += f"; its intrinsic gain gm/gds is {gm / gds:.3g}"
+    message += " (--allow-region accepts a stage meant to sit there)"
+    return Finding("warning", NOT_AMPLIFYING, message, element.origin.line, element.name)
 
 
 def _attribute(name: str, hand: HandSolution, solutions: Mapping[str, HandSolution]) -> dict[str, float]:
@@ -342,17 +471,22 @@ def _explain(
     reference = id_columns.get(reference_column)
     if id_columns.hand is None or reference is None:
         return
-    gap = _relative_change(reference, id_columns.hand)
+    if abs(reference) <= id_columns.resolution:
+        return  # the reference is zero at the solver's resolution: no percentage of it means anything
+    # Every percentage as the report states it: (other − reference)/|reference|. An effect's change
+    # of the hand id (relative to the hand value) is restated as a share of the reference id.
+    gap = _relative_change(id_columns.hand, reference)
     if not effects or abs(gap) < 1e-4 or max(abs(id_columns.hand), abs(reference)) < HAND_FLOOR["A"]:
         # Nothing to explain: equal, or both at leakage level (a device in cutoff).
         return
-    parts = [f"{EFFECT_NAMES.get(effect, effect)} {_percent(change)}" for effect, change in effects.items()]
-    explained = sum(change for change in effects.values() if math.isfinite(change))
+    share = abs(id_columns.hand / reference)
+    parts = [f"{EFFECT_NAMES.get(effect, effect)} {_percent(change * share)}" for effect, change in effects.items()]
+    explained = sum(change * share for change in effects.values() if math.isfinite(change))
     message = (
-        f"{name}: {COLUMN_NAMES[reference_column]} id is {_percent(gap)} from the hand value; each effect "
-        f"switched on alone in the hand model changes id by: " + ", ".join(parts)
+        f"{name}: hand id is {_percent(gap)} from {COLUMN_NAMES[reference_column]}'s; each effect switched on "
+        f"alone in the hand model moves it by (of {COLUMN_NAMES[reference_column]}'s id): " + ", ".join(parts)
     )
-    if math.isfinite(gap) and math.isfinite(explained) and abs(gap - explained) > max(0.01, 0.2 * abs(gap)):
+    if math.isfinite(gap) and math.isfinite(explained) and abs(gap + explained) > max(0.01, 0.2 * abs(gap)):
         message += f" (together {_percent(explained)}; the rest comes from their interaction or the circuit)"
     found.append(Finding("info", "cause", message, line, name))
 

@@ -149,3 +149,47 @@ def test_plain_text_only_for_a_plain_console_and_a_view_laid_out_here():
     assert plain_text(view, Console(file=io.StringIO(), width=100, color_system=None, record=True)) is None
     assert plain_text(view, Console(file=io.StringIO(), width=100, color_system=None, soft_wrap=True)) is None
     assert plain_text(view, Console(file=io.StringIO(), width=20, color_system=None)) is None  # table too wide
+
+
+# What the colours say. reference: README, `check` (the legend under the table).
+
+def _table_cells(view) -> dict[str, list[tuple[str, str]]]:
+    (table,) = [part for part in view.parts if isinstance(part, _CheckTable)]
+    return {cells[0][0]: cells[1:] for cells in table.rows}
+
+
+def test_a_value_not_compared_is_not_green():
+    # cs_divider in saturation: the hand gds is 0 S by its own assumption (λ = 0), not compared with
+    # the level-1 solver's 4.8 µS; the reference column is not compared with itself.
+    result = check_circuit(read_netlist(EXAMPLES / "cs_divider.cir"), None, tolerance=0.05)
+    cells = _table_cells(check_renderable(result))
+    hand, level1, _ = cells["M1 gds"]
+    assert hand == ("0 S  ", "") and level1[1] == ""
+    assert result.devices["M1"].quantities["gds"].level1 > 1e-6
+    assert cells["M1 id"][0][1] == "green" and cells["M1 id"][1][1] == ""  # the reference (no ngspice here)
+    assert cells["M1 region (nmos)"][0][1] == "green" and cells["M1 region (nmos)"][1][1] == ""
+    assert all(style == "" for text, style in cells["M1 vds − vov"] if text != "—")  # derived, not compared
+
+
+def test_a_disagreeing_cell_is_red_with_a_bang():
+    result = check_circuit(read_netlist(EXAMPLES / "cs_degenerated.cir"), None, tolerance=0.05)
+    cells = _table_cells(check_renderable(result))
+    assert cells["V(d)"][0][0].endswith(" !") and cells["V(d)"][0][1] == "red"
+
+
+def test_one_legend_line_says_what_colour_bang_zero_and_percent_mean():
+    result = check_circuit(read_netlist(EXAMPLES / "cs_divider.cir"), None, tolerance=0.07)
+    text = printed(check_renderable(result, steps=True), 400, None, False)
+    legend = [line for line in text.splitlines() if line.startswith("legend:")]
+    assert legend == [
+        "legend: green = within tolerance of level-1 solver (hand: 7 % or 5 mV, 1 nA, 10 nS); red and ! = beyond it; "
+        "no colour = not compared; 0 = zero at the solver's resolution; "
+        "% = (value − level-1 solver)/|level-1 solver|"
+    ]
+
+
+def test_cause_lines_are_not_dim():
+    result = check_circuit(read_netlist(EXAMPLES / "cs_degenerated.cir"), None, tolerance=0.05)
+    lines = [part for part in check_renderable(result).parts if isinstance(part, _Line)]
+    causes = [line for line in lines if line.text.endswith("[cause]")]
+    assert causes and all(line.style == "" for line in causes)

@@ -4,11 +4,12 @@ from __future__ import annotations
 
 import math
 import random
+from decimal import ROUND_HALF_UP, Decimal
 
 import pytest
 from conftest import needs_ngspice, ngspice_batch_op
 
-from bridge.netlist.numbers import NumberError, engineering, parse_number
+from bridge.netlist.numbers import SOLVER_RESOLUTION, NumberError, engineering, parse_number
 
 # reference: ngspice manual (Debian ngspice-doc 39), section 2.1.4.2 "Numbers",
 # Table 2.2 "Ngspice scale factors", and 2.1.4.3 "Letters following a number".
@@ -119,14 +120,27 @@ def test_engineering_notation_shows_the_prefix(value, unit, shown) -> None:
     assert engineering(value, unit) == shown
 
 
+def _half_away(value: Decimal, digits: int) -> str:
+    """`value` to `digits` significant digits, ties away from zero, written as %g writes it."""
+    quantum = Decimal(1).scaleb(value.adjusted() - digits + 1)
+    return f"{float(value.quantize(quantum, rounding=ROUND_HALF_UP)):.{digits}g}"
+
+
 def _engineering_reference(value: float, unit: str, digits: int) -> str:
-    """The notation computed the plain way: scale, round, and carry when the rounding reaches 1000."""
-    exponent = max(-18, min(12, math.floor(math.log10(abs(value)) / 3) * 3))
-    text = f"{value / 10.0**exponent:.{digits}g}"
+    """The notation computed the plain way, in decimal: the value to 12 significant digits, scaled
+    exactly, rounded half away from zero, carried when the rounding reaches 1000; an exponent
+    below femto and for mega (but for Ω)."""
+    decimal = Decimal(f"{value:.11e}")
+    if abs(value) < 1e-15:
+        return f"{_half_away(decimal, digits)} {unit}".rstrip()
+    exponent = max(-15, min(12, math.floor(math.log10(abs(value)) / 3) * 3))
+    text = _half_away(decimal.scaleb(-exponent), digits)
     if exponent < 12 and abs(float(text)) >= 1000:
         exponent += 3
-        text = f"{value / 10.0**exponent:.{digits}g}"
-    prefix = {12: "T", 9: "G", 6: "M", 3: "k", 0: "", -3: "m", -6: "µ", -9: "n", -12: "p", -15: "f", -18: "a"}
+        text = _half_away(decimal.scaleb(-exponent), digits)
+    if exponent == 6 and unit != "Ω":
+        return f"{text}e6 {unit}".rstrip()
+    prefix = {12: "T", 9: "G", 6: "M", 3: "k", 0: "", -3: "m", -6: "µ", -9: "n", -12: "p", -15: "f"}
     return f"{text} {prefix[exponent]}{unit}".rstrip()
 
 
@@ -137,5 +151,65 @@ def test_engineering_notation_rounds_and_carries_as_the_plain_computation() -> N
         value = rng.choice([rng.uniform(-1, 1) * 10 ** rng.uniform(-22, 16),
                             rng.choice(near_carry) * 10.0 ** (3 * rng.randint(-7, 5)) * rng.choice([1, -1])])
         for digits in (1, 2, 3, 4, 6):
-            for unit in ("V", ""):
+            for unit in ("V", "", "Ω"):
                 assert engineering(value, unit, digits) == _engineering_reference(value, unit, digits), (value, digits)
+
+
+# reference: ngspice manual (Debian ngspice-doc 39), section 15.1.2 "OP and DC Solution Options":
+# VNTOL = 1 µV, ABSTOL = 1 pA, GMIN = 1e-12 S are the defaults.
+def test_solver_resolution_is_ngspice_default_tolerances() -> None:
+    assert SOLVER_RESOLUTION == {"V": 1e-6, "A": 1e-12, "S": 1e-12}
+
+
+@pytest.mark.parametrize(
+    "value, unit, shown",
+    [
+        (-1.902e-27, "V", "0 V"),  # ngspice's reading of a node held at zero
+        (1.713e-16, "V", "0 V"),
+        (-0.0, "V", "0 V"),
+        (4.4e-16, "V", "0 V"),
+        (9.9e-7, "V", "0 V"),
+        (1.2e-6, "V", "1.2 µV"),  # just above VNTOL: a value
+        (-1.532e-10, "A", "-153.2 pA"),
+        (3.31e-13, "A", "0 A"),
+        (2e-12, "A", "2 pA"),
+        (5e-13, "S", "0 S"),
+    ],
+)
+def test_a_solved_value_at_the_solver_resolution_is_zero_of_its_unit(value, unit, shown) -> None:
+    assert engineering(value, unit, resolution=SOLVER_RESOLUTION[unit]) == shown
+
+
+def test_minus_zero_and_atto_are_never_written() -> None:
+    assert engineering(-0.0, "V") == "0 V"
+    # Without a resolution (an element value, say) a tiny value keeps its digits, with an exponent:
+    # ngspice 39 has no atto suffix, so `171.3 aV` would not read back as the value.
+    assert engineering(1.713e-16, "V") == "1.713e-16 V"
+    assert engineering(-1.902e-27, "V") == "-1.902e-27 V"
+    assert engineering(1e-18, "F") == "1e-18 F"
+    assert parse_number(engineering(1.713e-16, "V").split()[0]) == 1.713e-16
+
+
+def test_mega_cannot_be_read_as_milli() -> None:
+    # SPICE's `M` is milli (manual, Table 2.2): a voltage of 150 MV would read as 150 mV.
+    assert engineering(150e6, "V") == "150e6 V"
+    assert engineering(1.5e6, "A") == "1.5e6 A"
+    assert engineering(2.2e6, "") == "2.2e6"
+    assert parse_number(engineering(150e6, "V").split()[0]) == 150e6
+    # A resistance keeps MΩ: that is how a designer reads a resistor (and `parse` shows `1M` as 1 mΩ).
+    assert engineering(150e6, "Ω") == "150 MΩ"
+
+
+@pytest.mark.parametrize("value", [1.5625, 1.5625000000000002, 1.5624999999999998])
+def test_a_tie_rounds_half_away_from_zero_the_same_in_every_column(value) -> None:
+    # Three float neighbours of the decimal 1.5625 (one column's closed form, another's Newton):
+    # one text, the decimal tie rounded away from zero.
+    assert engineering(value, "V") == "1.563 V"
+    assert engineering(-value, "V") == "-1.563 V"
+
+
+def test_rounding_half_away_from_zero_on_the_decimal_value() -> None:
+    assert engineering(2.5, "V", digits=1) == "3 V"
+    assert engineering(0.0125, "A", digits=2) == "13 mA"
+    assert engineering(999.95, "Ω") == "1 kΩ"  # the tie carries into the next prefix
+    assert engineering(1.23449, "V") == "1.234 V"  # no tie: plain rounding

@@ -8,12 +8,20 @@ milli), then any letters, which are ignored (`10uF`, `1kOhm`, `5V`).
 ngspice 39 has no atto suffix: `1a` reads as 1 (measured with the Debian build,
 and absent from Table 2.2), so biasbridge reads it the same way — the simulator
 must see the value the designer's simulator would see.
+
+The notation written out follows from the same rules: below femto there is no prefix a
+SPICE user reads right (no atto), so such values are written with an exponent; mega is
+written with an exponent too (`150e6 V`), because to a SPICE user `M` is milli — except
+for resistances, where `MΩ` is how a designer reads and writes a resistor. Digits are
+rounded half away from zero on the value's decimal digits (12 significant, float noise
+below that dropped), so 1.5625 and 1.5625000000000002 both show as 1.563.
 """
 
 from __future__ import annotations
 
 import math
 import re
+from decimal import ROUND_HALF_UP, Decimal
 
 # Scale factors of ngspice's Table 2.2. Order matters: "meg" and "mil" are tested
 # before the single letter "m".
@@ -99,28 +107,66 @@ _PREFIXES: tuple[tuple[int, str], ...] = (
     (-9, "n"),
     (-12, "p"),
     (-15, "f"),
-    (-18, "a"),
 )
 _PREFIX_OF = dict(_PREFIXES)
 _SCALE_OF = {exponent: 10.0**exponent for exponent, _ in _PREFIXES}  # the very floats 10.0**exponent gives
 
 
-def engineering(value: float | None, unit: str = "", digits: int = 4) -> str:
-    """`value` in engineering notation with an SI prefix: 1e-3 Ω → `1 mΩ`."""
+# What a solved operating point resolves, per unit: ngspice's defaults (ngspice manual, section
+# 15.1.2 "OP and DC Solution Options"): VNTOL = 1 µV, the absolute voltage error tolerance;
+# ABSTOL = 1 pA, the absolute current error tolerance; GMIN = 1e-12 S, the conductance ngspice
+# puts in parallel with every junction (a conductance below it is below what the solver adds).
+# A solved value within these of zero is zero of its unit: its digits are the solver's noise.
+VNTOL = 1e-6
+ABSTOL = 1e-12
+GMIN = 1e-12
+SOLVER_RESOLUTION: dict[str, float] = {"V": VNTOL, "A": ABSTOL, "S": GMIN}
+
+_NOISE_DIGITS = 12  # significant digits kept before rounding: float noise sits below these
+
+
+def _round_half_away(scaled: float, digits: int) -> str:
+    """`scaled` to `digits` significant digits (as %g writes them), ties away from zero, on the
+    decimal value with float noise dropped: 1.5625 and 1.5625000000000002 both give 1.563."""
+    text = f"{scaled:.{digits}g}"
+    # Cheap first look: far from a tie (in float arithmetic, with room for its noise) %g is right.
+    magnitude = abs(scaled)
+    kept = magnitude * 10.0 ** (digits - 1 - math.floor(math.log10(magnitude)))
+    if abs(kept - math.floor(kept) - 0.5) > 1e-9 * kept:
+        return text
+    decimal = f"{scaled:.{_NOISE_DIGITS - 1}e}"
+    mantissa, _, power = decimal.partition("e")
+    if mantissa.lstrip("-").replace(".", "")[digits:].rstrip("0") != "5":
+        return text  # not a tie: %g's rounding of the binary value is the decimal rounding
+    quantum = Decimal(1).scaleb(int(power) - digits + 1)
+    return f"{float(Decimal(decimal).quantize(quantum, rounding=ROUND_HALF_UP)):.{digits}g}"
+
+
+def engineering(value: float | None, unit: str = "", digits: int = 4, *, resolution: float = 0.0) -> str:
+    """`value` in engineering notation with an SI prefix: 1e-3 Ω → `1 mΩ`.
+
+    A value within `resolution` of zero (see SOLVER_RESOLUTION), and zero itself, is `0 unit`
+    (never `-0`). Below femto and at mega (but for Ω) the value is written with an exponent.
+    """
     if value is None:
         return "—"
-    if value == 0 or not math.isfinite(value):
+    if not math.isfinite(value):
         return f"{value:g} {unit}".rstrip()
+    if value == 0 or abs(value) <= resolution:
+        return f"0 {unit}".rstrip()
     exponent = math.floor(math.log10(abs(value)) / 3) * 3
     if exponent > 12:  # clamped to the prefixes there are (if-tests: min and max cost more here)
         exponent = 12
-    elif exponent < -18:
-        exponent = -18
+    elif exponent < -15:  # below femto: no prefix a SPICE user reads right (no atto in ngspice)
+        return f"{_round_half_away(value, digits)} {unit}".rstrip()
     scaled = value / _SCALE_OF[exponent]
-    text = f"{scaled:.{digits}g}"
+    text = _round_half_away(scaled, digits)
     # Rounding may carry into the next decade group (999.96 → 1000), which it can only from 950 up
-    # (one significant digit); below that the text need not be read back.
-    if exponent < 12 and abs(scaled) >= 950 and abs(float(text)) >= 1000:
+    # (one significant digit; 949.5 leaves room for the float noise of the scaling); below that
+    # the text need not be read back.
+    if exponent < 12 and abs(scaled) >= 949.5 and abs(float(text)) >= 1000:
         exponent += 3
-        text = f"{value / _SCALE_OF[exponent]:.{digits}g}"
+        text = _round_half_away(value / _SCALE_OF[exponent], digits)
+    if exponent == 6 and unit != "Ω":  # `M` reads as milli in SPICE: mega as a power of ten
+        return f"{text}e6 {unit}".rstrip()
     return f"{text} {_PREFIX_OF[exponent]}{unit}".rstrip()

@@ -27,7 +27,7 @@ from rich.segment import Segment
 from rich.style import Style
 from rich.text import Text
 
-from ..compare import COLUMNS, UNITS, CheckResult, Columns
+from ..compare import COLUMN_NAMES, COLUMNS, HAND_FLOOR, NOT_AMPLIFYING, SAT_MARGIN, UNITS, CheckResult, Columns
 from ..netlist.numbers import engineering
 
 if TYPE_CHECKING:
@@ -35,6 +35,9 @@ if TYPE_CHECKING:
 
 SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "info": "dim"}
 COLUMN_TITLES = {"hand": "hand", "level1": "level-1", "sim": "ngspice", "expect": "expected"}
+QUANTITY_LABELS = {SAT_MARGIN: "vds − vov"}  # the saturation margin: negative is triode
+# Finding lines in no style although info: the causes are the most useful text of a check.
+PLAIN_INFO = {"cause"}
 
 Cell = tuple[str, str]  # text and style name ("" for none)
 _LAST_WORD_END = re.compile(r".*\S(?=\s)", re.DOTALL)  # up to the last word followed by space
@@ -384,16 +387,19 @@ def print_check(console: Console, view: CheckView) -> None:
         raise
 
 
-def _cell(value: float | None, unit: str, flagged: bool) -> Cell:
+def _cell(value: float | None, unit: str, flagged: bool, compared: bool = True, resolution: float = 0.0) -> Cell:
+    """A value: red with `!` when it differs from the reference, green when compared and within
+    tolerance, no colour when not compared (the reference itself, a value assumed by the model)."""
     if value is None:
         return ("—", "dim")
-    text = engineering(value, unit)
-    return (text + (" !" if flagged else "  "), "red" if flagged else "green")
+    text = engineering(value, unit, resolution=resolution)
+    return (text + (" !" if flagged else "  "), "red" if flagged else "green" if compared else "")
 
 
 def _row(label: str, columns: Columns, unit: str, shown: tuple[str, ...]) -> list[Cell]:
-    flagged = columns.flagged
-    return [(label, ""), *[_cell(columns.get(column), unit, column in flagged) for column in shown]]
+    flagged, compared, resolution = columns.flagged, columns.compared, columns.resolution
+    return [(label, ""), *[_cell(columns.get(column), unit, column in flagged, column in compared, resolution)
+                           for column in shown]]
 
 
 def _hand_solved(result: CheckResult) -> bool:
@@ -416,13 +422,44 @@ def _agreement(result: CheckResult) -> str:
     return "nothing flagged; no column holds values, so nothing was compared"
 
 
-def check_renderable(result: CheckResult, steps: bool = False) -> CheckView:
+def _legend(result: CheckResult) -> str:
+    """What colour, `!`, 0 and a percentage mean in this table, said once under it."""
+    reference = "ngspice" if result.simulator else COLUMN_NAMES["level1"]
+    floors = ", ".join(engineering(HAND_FLOOR[unit], unit) for unit in ("V", "A", "S"))
+    solver = "; level-1: 0.2 % or a smaller floor" if result.simulator else ""
+    return (
+        f"legend: green = within tolerance of {reference} (hand: {result.tolerance * 100:g} % or {floors}{solver}); "
+        f"red and ! = beyond it; no colour = not compared; 0 = zero at the solver's resolution; "
+        f"% = (value − {reference})/|{reference}|"
+    )
+
+
+def _verdict(result: CheckResult, allow_region: bool) -> tuple[str, str]:
+    """The last line and its style: the columns' agreement, and whether the stage amplifies."""
+    verdict = _agreement(result) if result.agree else "disagreement flagged"
+    if result.amplifies:
+        return verdict, "bold green" if result.agree else "bold red"
+    outside = [f"{f.subject} in {_region_of(result, f.subject)}" for f in result.findings if f.code == NOT_AMPLIFYING]
+    verdict += f", {'but' if result.agree else 'and'} the stage is not biased to amplify ({', '.join(outside)})"
+    if allow_region:
+        return verdict + "; accepted by --allow-region", "bold green" if result.agree else "bold red"
+    return verdict, "bold red"
+
+
+def _region_of(result: CheckResult, name: str | None) -> str:
+    device = result.devices.get(name or "")
+    region = device.region.get("sim") or device.region.get("level1") if device else None
+    return region or "another region"
+
+
+def check_renderable(result: CheckResult, steps: bool = False, *, allow_region: bool = False) -> CheckView:
     shown = COLUMNS + (("expect",) if result.has_expect else ())
     simulator = f"{result.simulator[0]} {result.simulator[1]}" if result.simulator else "no simulator"
+    # Solved numerically only when there is a hand column at all (not when the hand model failed).
+    numeric = not result.closed_form and _hand_solved(result)
     header = _Header(
         f"{result.file}", result.title,
-        f"topology: {result.topology}" + ("" if result.closed_form or not _hand_solved(result)
-                                           else " (no closed form: solved numerically)")
+        f"topology: {result.topology}" + (" (no closed form: solved numerically)" if numeric else "")
         + f"   simulator: {simulator}",
     )
     table = _CheckTable(("quantity", *(COLUMN_TITLES[column] for column in shown)))
@@ -432,15 +469,19 @@ def check_renderable(result: CheckResult, steps: bool = False) -> CheckView:
     for device in result.devices.values():
         table.add_section()
         region_cells = [(f"{device.name} region ({device.type})", "")]
-        reference = device.region.get("sim") or device.region.get("level1")
+        reference_column = "sim" if device.region.get("sim") else "level1"
+        reference = device.region.get(reference_column)
         for column in shown:
             value = device.expect_region if column == "expect" else device.region.get(column)
             differs = value is not None and reference is not None and value != reference
-            region_cells.append(((value or "—") + (" !" if differs else "  "), "red" if differs else "green"))
+            compared = value is not None and reference is not None and column != reference_column
+            region_cells.append(((value or "—") + (" !" if differs else "  "),
+                                 "red" if differs else "green" if compared else "dim" if value is None else ""))
         table.add_row(region_cells)
         for quantity, columns in device.quantities.items():
-            table.add_row(_row(f"{device.name} {quantity}", columns, UNITS[quantity], shown))
-    parts: list[_Part] = [header, table]
+            label = QUANTITY_LABELS.get(quantity, quantity)
+            table.add_row(_row(f"{device.name} {label}", columns, UNITS[quantity], shown))
+    parts: list[_Part] = [header, table, _Line(_legend(result))]
     if steps and result.steps:
         parts.append(_Line("Hand analysis, step by step:", "bold"))
         for number, step in enumerate(result.steps, start=1):
@@ -449,10 +490,11 @@ def check_renderable(result: CheckResult, steps: bool = False) -> CheckView:
                 parts.append(_Line(f"      {step.equation}", "cyan"))
     for finding in result.findings:
         where = f"line {finding.line}: " if finding.line else ""
-        parts.append(_Line(f"{finding.severity}: {where}{finding.message} [{finding.code}]",
-                           SEVERITY_STYLE.get(finding.severity, "")))
-    verdict = _agreement(result) if result.agree else "disagreement flagged"
-    parts.append(_Line(f"→ {verdict}", "bold green" if result.agree else "bold red"))
+        severity = "info" if finding.code == NOT_AMPLIFYING and allow_region else finding.severity
+        style = "" if finding.code in PLAIN_INFO else SEVERITY_STYLE.get(severity, "")
+        parts.append(_Line(f"{severity}: {where}{finding.message} [{finding.code}]", style))
+    verdict, style = _verdict(result, allow_region)
+    parts.append(_Line(f"→ {verdict}", style))
     return CheckView(parts)
 
 
@@ -507,4 +549,5 @@ def check_json(result: CheckResult) -> dict[str, Any]:
             for f in result.findings
         ],
         "agree": result.agree,
+        "amplifies": result.amplifies,
     }
