@@ -254,7 +254,7 @@ def test_milliohm_divider_is_found_with_the_current_it_draws():
     milli = findings(result, "milliohm-resistor")
     assert [(f.subject, f.line) for f in milli] == [("R1", 3), ("R2", 4)]
     # 5 V across 2.2 mΩ + 1 mΩ = 1.5625 kA
-    assert "R1 is 2.2 mΩ and carries 1.562 kA in the level-1 solution" in milli[0].message
+    assert "R1 is 2.2 mΩ and carries 1.563 kA in the level-1 solution" in milli[0].message
     assert "`2.2M` is 2.2 mΩ); mega is `MEG` — `2.2MEG` for 2.2 MΩ" in milli[0].message
     supply = findings(result, "supply-current")
     assert len(supply) == 1 and supply[0].line == 2
