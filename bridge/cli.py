@@ -11,6 +11,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import re
 import sys
 from collections.abc import Sequence
 from pathlib import Path
@@ -23,6 +24,7 @@ if TYPE_CHECKING:
 
 EXIT_OK, EXIT_FINDINGS, EXIT_INPUT = 0, 1, 2
 DEMO_NETLIST = "cs_divider.cir"
+SWEEP_NEGATIVE_VALUE = re.compile(r"^-\.?\d")
 
 
 class _Parser(argparse.ArgumentParser):
@@ -202,9 +204,22 @@ def _check_output_path(target: str, inputs: set[str], option: str) -> None:
         raise ValueError(f"{option} {target}: refusing to write over an input netlist")
     folder = os.path.dirname(resolved)
     if not os.path.isdir(folder):
-        raise ValueError(f"{option} {target}: the folder {os.path.dirname(target) or '.'} does not exist")
+        raise ValueError(f"{option} {target}: {_unusable_folder(os.path.dirname(target) or '.')}")
     if os.path.isdir(resolved):
         raise ValueError(f"{option} {target} is a folder")
+
+
+def _unusable_folder(folder: str) -> str:
+    """Why `folder` cannot take a file: the first part of it that is a file, or that it does not exist."""
+    part = folder
+    while part and not os.path.lexists(part):
+        parent = os.path.dirname(part)
+        if parent == part:
+            break
+        part = parent
+    if part and os.path.lexists(part) and not os.path.isdir(part):
+        return f"{part} is a file, not a folder"
+    return f"the folder {folder} does not exist"
 
 
 def command_sweep(args: argparse.Namespace) -> int:
@@ -334,6 +349,9 @@ def build_parser() -> argparse.ArgumentParser:
     sweep = verbs.add_parser(
         "sweep", help="the DC transfer curve: hand, level-1 and ngspice, with region edges and gain"
     )
+    # A negative value with a SPICE suffix (`--step -10m`, `--start -1.5k`, `-2e-3`) is a value, not an
+    # option: argparse's own pattern knows only plain numbers (`-10`, `-0.5`); no sweep option starts `-<digit>`.
+    sweep._negative_number_matcher = SWEEP_NEGATIVE_VALUE
     sweep.add_argument("file", metavar="FILE", help="SPICE netlist of a single-transistor stage")
     sweep.add_argument("--source", metavar="NAME",
                        help="independent source to sweep (default: the voltage source that drives the gate)")

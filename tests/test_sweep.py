@@ -248,6 +248,7 @@ def divider_file(tmp_path) -> Path:
         (["--step", "0"], "must not be zero"),
         (["--start", "0", "--stop", "5", "--step=-0.1"], "wrong way"),
         (["--start", "5", "--stop", "0", "--step", "0.1"], "wrong way"),
+        (["--start", "0", "--stop", "5", "--step", "-10m"], "wrong way"),  # read as a value, not an option
         (["--step", "1u"], "at most 100,000"),
         (["--points", "100001"], "100,000"),
         (["--points", "1"], "at least 2"),
@@ -341,3 +342,23 @@ def test_defaults_sweep_the_gate_source_from_zero_to_the_supply():
     values = sweep_values(0.0, 5.0)
     assert len(values) == 201 and values[1] == pytest.approx(0.025)
     assert np.array_equal(sweep_values(5.0, 0.0, step=-1.0), np.array([5.0, 4.0, 3.0, 2.0, 1.0, 0.0]))
+
+
+def test_a_negative_step_with_a_suffix_is_a_value(divider_file, capsys, monkeypatch):
+    monkeypatch.setenv("NGSPICE_LIBRARY_PATH", "/nonexistent/libngspice.so")
+    status, out, err = run([str(divider_file), "--start", "5", "--stop", "-1.5", "--step", "-500m", "--json"], capsys)
+    assert status == 0, err
+    document = json.loads(out)
+    assert document["x"] == pytest.approx([5.0 - 0.5 * k for k in range(14)])
+
+
+def test_an_output_folder_that_is_a_file_is_named_as_such(divider_file, tmp_path, capsys):
+    data = tmp_path / "data.csv"
+    data.write_text("x\n")
+    for target in (data / "curve.png", data / "deeper" / "curve.png"):
+        status, out, err = run([str(divider_file), "--plot", str(target)], capsys)
+        assert status == 2 and out == ""
+        assert f"{data} is a file, not a folder" in err and "does not exist" not in err
+    status, _, err = run([str(divider_file), "--csv", str(tmp_path / "none" / "c.csv")], capsys)
+    assert status == 2 and f"the folder {tmp_path / 'none'} does not exist" in err
+    assert data.read_text() == "x\n"
