@@ -223,6 +223,92 @@ def test_sim_curve_matches_ngspice_run_directly(tmp_path, session):
         assert sim[index] == pytest.approx(vout, rel=2e-6, abs=1e-9)  # .print shows 7 digits
 
 
+# --- ngspice's gain and edges do not depend on the grid ------------------------------------------
+
+# A greenhouse soil-moisture sensor board: the probe amplifier, a common source with λ and γ,
+# VIN through a divider to the gate.
+GREENHOUSE_CS = """\
+Greenhouse soil-moisture probe amplifier: common source, VIN through a divider
+VDD vdd 0 5
+VIN in 0 2.4
+R1 in g 100k
+R2 g 0 100k
+RD vdd d 12k
+M1 d g 0 0 nch w=20u l=2u
+.model nch nmos (level=1 vto=0.7 kp=110u lambda=0.02 gamma=0.4 phi=0.65)
+"""
+
+
+def ngspice_dc_rows(tmp_path: Path, netlist: str, dc: str, vectors: list[str]) -> np.ndarray:
+    """The `.dc` of `netlist` as ngspice 39 run directly (`ngspice -b`) prints it to 15 digits:
+    one row per point, the sweep value first, then `vectors`."""
+    deck = tmp_path / "reference.cir"
+    listed = " ".join(vectors)
+    deck.write_text(
+        netlist + f".dc {dc}\n.save {listed}\n.control\nset numdgt=15\nset width=1000\nset height=1000000\n"
+        f"run\nprint {listed}\n.endc\n.end\n"
+    )
+    completed = subprocess.run([NGSPICE, "-b", str(deck)], capture_output=True, text=True, timeout=60)
+    rows = [
+        [float(field) for field in line.split()[1:]]
+        for line in completed.stdout.splitlines()
+        if re.match(r"^\d+\t", line)
+    ]
+    assert rows, completed.stdout[-2000:]
+    return np.array(rows)
+
+
+def coarse_slope(x: np.ndarray, y: np.ndarray, at: float) -> float:
+    """The derivative at `at` of the parabola through the three grid points nearest to it."""
+    k = min(max(int(np.argmin(np.abs(x - at))) - 1, 0), len(x) - 3)
+    return float(np.polyval(np.polyder(np.polyfit(x[k:k + 3], y[k:k + 3], 2)), at))
+
+
+@needs_ngspice_binary
+def test_sim_gain_is_refined_beyond_the_grid_within_its_stated_accuracy(tmp_path, session):
+    circuit = parse_netlist(GREENHOUSE_CS, "greenhouse.cir")
+    result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, points=201), session)
+    sim = result.curves["sim"]
+    # reference: ngspice run directly at 10 µV steps around the bias point VIN = 2.4 V
+    rows = ngspice_dc_rows(tmp_path, GREENHOUSE_CS, "VIN 2.39 2.41 1e-5", ["v(d)"])
+    centre = int(np.argmin(np.abs(rows[:, 0] - 2.4)))
+    reference = (rows[centre + 1, 1] - rows[centre - 1, 1]) / (rows[centre + 1, 0] - rows[centre - 1, 0])
+    assert sim.gain_accuracy is not None and 0.0 < sim.gain_accuracy < 1e-5
+    assert abs(sim.gain_at_bias - reference) <= sim.gain_accuracy + 1e-6  # the reference: ±1e-6 at most
+    # The 201-point grid alone is far less accurate: the refined gain is not the grid's.
+    coarse = coarse_slope(result.x, sim.output, 2.4)
+    assert abs(coarse - reference) > 20 * (sim.gain_accuracy + 1e-6)
+    # and another grid gives the same gain within the stated accuracies
+    other = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, points=7), session).curves["sim"]
+    assert abs(other.gain_at_bias - sim.gain_at_bias) <= other.gain_accuracy + sim.gain_accuracy
+
+
+@needs_ngspice_binary
+def test_sim_edges_are_refined_beyond_the_grid_within_their_stated_accuracy(tmp_path, session):
+    circuit = parse_netlist(GREENHOUSE_CS, "greenhouse.cir")
+    result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, points=201), session)
+    sim = result.curves["sim"].edges["M1"]
+    level1 = result.curves["level1"].edges["M1"]
+    for boundary in ("cutoff_saturation", "saturation_triode"):
+        near = level1.get(boundary)
+        # reference: ngspice run directly at 1 µV steps over ±4 mV around the edge
+        rows = ngspice_dc_rows(tmp_path, GREENHOUSE_CS, f"VIN {near - 4e-3:.6f} {near + 4e-3:.6f} 1e-6",
+                               ["@m1[vgs]", "@m1[vds]", "@m1[von]"])  # fmt: skip
+        vin, vgs, vds, von = rows.T
+        vov = vgs - von
+        indicator = vov if boundary == "cutoff_saturation" else vds - vov
+        k = int(np.nonzero(np.sign(indicator[:-1]) != np.sign(indicator[1:]))[0][0])
+        reference = vin[k] + (vin[k + 1] - vin[k]) * indicator[k] / (indicator[k] - indicator[k + 1])
+        accuracy = sim.accuracy(boundary)
+        assert accuracy is not None and accuracy < 1e-5  # the grid step is 25 mV
+        assert abs(sim.get(boundary) - reference) <= accuracy + 1e-6, boundary
+    # The grid's own interpolation of the triode edge is off by about a millivolt: not what is reported.
+    coarse = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, points=7), session).curves["sim"]
+    assert abs(coarse.edges["M1"].saturation_triode - sim.saturation_triode) <= (
+        coarse.edges["M1"].accuracy("saturation_triode") + sim.accuracy("saturation_triode")
+    )
+
+
 # --- the command ------------------------------------------------------------------------------
 
 
@@ -291,7 +377,9 @@ def test_plot_csv_and_json_are_written_whole(divider_file, tmp_path, capsys):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["curve.csv", "curve.png", "divider.cir"]  # no temp files
     assert _png_size(png.read_bytes()) == (800, 500)
     rows = csv_path.read_text().splitlines()
-    assert rows[0] == "x,hand,level1,sim,region_M1_hand,region_M1_level1,region_M1_sim"
+    assert rows[0] == (
+        "VIN (V),V(d) hand (V),V(d) level-1 (V),V(d) ngspice (V),M1 region hand,M1 region level-1,M1 region ngspice"
+    )
     assert len(rows) == 52
     assert rows[-1].split(",")[4:] == ["triode", "triode", "triode"]
     document = json.loads(out)
@@ -362,3 +450,23 @@ def test_an_output_folder_that_is_a_file_is_named_as_such(divider_file, tmp_path
     status, _, err = run([str(divider_file), "--csv", str(tmp_path / "none" / "c.csv")], capsys)
     assert status == 2 and f"the folder {tmp_path / 'none'} does not exist" in err
     assert data.read_text() == "x\n"
+
+
+@needs_library
+def test_table_states_ngspice_accuracy_one_precision_per_column_and_a_positive_largest_gain(divider_file, capsys):
+    status, out, err = run([str(divider_file), "--points", "21"], capsys)
+    assert status == 0, err
+    rows = {}
+    for line in out.splitlines():
+        cells = [cell.strip() for cell in line.strip("│ ").split("│")]
+        if len(cells) == 4:
+            rows[cells[0]] = cells[1:]
+    largest = rows["largest |gain| on the grid (V/V)"]
+    assert all(float(cell) > 0.0 for cell in largest)  # the gain is negative, its magnitude is not
+    assert float(rows["gain at the bias point (V/V)"][2].split(" ± ")[0]) < 0.0
+    for index in range(3):  # one number of decimals per column
+        numbers = [cells[index].split(" ± ") for cells in rows.values() if re.match(r"^-?\d", cells[index])]
+        places = {len(part.split(".")[1]) if "." in part else 0 for pair in numbers for part in pair}
+        assert len(places) == 1, (index, numbers)
+    for label in ("M1 cutoff ↔ saturation (V)", "M1 saturation ↔ triode (V)", "gain at the bias point (V/V)"):
+        assert " ± " in rows[label][2] and " ± " not in rows[label][0]

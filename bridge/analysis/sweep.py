@@ -93,10 +93,33 @@ GAIN_STEP = 1e-4
 # What ngspice is asked for each MOSFET, beside the output node.
 DEVICE_SWEEP_VECTORS = ("vgs", "vds", "von")
 
+# ngspice's edges and gain are refined with further `.dc` runs through the same worker, so they
+# do not depend on the grid: each grid interval where a region changes is swept again in
+# REFINE_INTERVALS steps, twice (the second time inside the finer interval where it changes);
+# the gain is read on a `.dc` of 2·2^GAIN_LEVELS steps over ±GAIN_WINDOW of the sweep span
+# around the bias point.
+REFINE_INTERVALS = 256
+REFINE_ROUNDS = 2
+REFINED_CROSSINGS = 8  # at most this many crossings per device are refined; the rest keep the grid
+GAIN_WINDOW = 2.0**-6
+GAIN_LEVELS = 8
+
 EDGE_METHODS = {
     "hand": "Brent's method on the hand model between the grid points where the region changes",
     "level1": "Brent's method on the level-1 solution between the grid points where the region changes",
-    "sim": "linear interpolation of ngspice's @m[vgs], @m[vds], @m[von] vectors between sweep points",
+    "sim": (
+        f"each grid interval where the region changes swept again by ngspice in {REFINE_INTERVALS} steps, "
+        f"{REFINE_ROUNDS} times, then linear interpolation of @m[vgs], @m[vds], @m[von]; ± the last interval, "
+        "inside which the edge lies"
+    ),
+}
+GAIN_METHODS = {
+    "hand": "centred difference on the hand model",
+    "level1": "centred difference on the level-1 solution",
+    "sim": (
+        "centred difference on a fine ngspice .dc around the bias point; ± the difference between the "
+        "estimates at steps h and h/2 (Richardson), or a quarter of the one before when that is larger"
+    ),
 }
 
 
@@ -115,6 +138,7 @@ class Crossing:
     at: float
     before: str
     after: str
+    accuracy: float | None = None  # |at − the true edge| is at most this (None: not stated)
 
 
 @dataclass(frozen=True)
@@ -128,6 +152,10 @@ class RegionEdges:
 
     def get(self, boundary: str) -> float | None:
         return getattr(self, boundary)
+
+    def accuracy(self, boundary: str) -> float | None:
+        """The stated accuracy of the first crossing of `boundary` (None where not stated or never reached)."""
+        return next((c.accuracy for c in self.crossings if c.boundary == boundary), None)
 
 
 @dataclass(frozen=True)
@@ -151,6 +179,7 @@ class Curve:
     gain_at_bias: float | None
     largest_gain: GainPeak | None
     failed_points: int = 0
+    gain_accuracy: float | None = None  # |gain_at_bias − the true slope| is at most this (None: not stated)
 
 
 @dataclass(frozen=True)
@@ -792,22 +821,149 @@ def sim_curve(
             findings.append(Finding("warning", "sim-no-device", f"ngspice gave no vgs/vds/von for {name}: "
                                     "its regions and edges are not known"))
             continue
-        vgs, vds, von = (on_grid(result[vector]) for vector in names)
-        element = circuit.element(name)
-        assert element is not None
-        # As simulate_operating_point normalises them: von carries the type's sign; with
-        # vds < 0 the device runs with drain and source swapped.
-        vth = _polarity(circuit, element) * von
-        vov = np.where(vds < 0.0, vgs - vds - vth, vgs - vth)
-        channel = np.abs(vds)
+        vov, channel = _sim_device_drive(circuit, name, *(on_grid(result[vector]) for vector in names))
         regions[name] = _device_regions(vov, channel)
-        edges[name] = _edges(_interpolated_crossings(x, vov, channel, regions[name]))
-    gain = _slope_from_curve(x, output_values, bias)
+        crossings = _interpolated_crossings(x, vov, channel, regions[name])
+        edges[name] = _edges(_refined_crossings(circuit, session, source, output, name, x, crossings, timeout))
+    refined = _refined_sim_gain(circuit, session, source, output, x, bias, timeout)
+    gain, gain_accuracy = refined if refined is not None else (_slope_from_curve(x, output_values, bias), None)
     if gain is None:
         findings.append(Finding("info", "bias-outside-sweep", f"the bias point {source} = {bias:g} is outside the "
                                 "sweep: ngspice's gain there is not read from its curve"))
-    curve = Curve("sim", output_values, regions, edges, EDGE_METHODS["sim"], gain, _largest_gain(x, output_values))
+    elif refined is None:
+        findings.append(Finding("info", "sim-gain-from-grid", "ngspice's gain at the bias point is read from the "
+                                "sweep's own grid (the finer .dc around the bias point failed); its accuracy is "
+                                "not known"))
+    curve = Curve("sim", output_values, regions, edges, EDGE_METHODS["sim"], gain, _largest_gain(x, output_values),
+                  gain_accuracy=gain_accuracy)  # fmt: skip
     return curve, findings
+
+
+def _sim_device_drive(
+    circuit: Circuit, name: str, vgs: np.ndarray, vds: np.ndarray, von: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """VOV and |VDS| (device polarity) from ngspice's @m[vgs], @m[vds], @m[von] vectors."""
+    element = circuit.element(name)
+    assert element is not None
+    # As simulate_operating_point normalises them: von carries the type's sign; with
+    # vds < 0 the device runs with drain and source swapped.
+    vth = _polarity(circuit, element) * np.asarray(von, dtype=float)
+    vgs, vds = np.asarray(vgs, dtype=float), np.asarray(vds, dtype=float)
+    vov = np.where(vds < 0.0, vgs - vds - vth, vgs - vth)
+    return vov, np.abs(vds)
+
+
+def _sim_window(
+    circuit: Circuit, session: NgspiceSession, source: str, output: str, start: float, step: float, intervals: int,
+    timeout: float, with_devices: bool,
+) -> tuple[np.ndarray, dict[str, np.ndarray]] | None:
+    """One further ngspice `.dc` from `start` in `intervals` steps of `step`: its sweep values and
+    vectors (V(output) under the node's name), or None when ngspice gives no such sweep."""
+    grid = start + step * np.arange(intervals + 1)
+    deck = sim_sweep_deck(circuit, source, output, grid, with_devices)
+    wanted = sim_vectors(circuit, output) if with_devices else [f"v({output})"]
+    try:
+        result = session.run(deck, vectors=wanted, timeout=timeout)
+    except SimulatorError:
+        return None
+    names = [output] + wanted[1:]
+    if not all(name in result for name in names):
+        return None
+    vectors = {name: np.asarray(result[name], dtype=float) for name in names}
+    count = min(len(v) for v in vectors.values())
+    if count < 2:
+        return None
+    return start + step * np.arange(count), {name: v[:count] for name, v in vectors.items()}
+
+
+def _refined_crossings(
+    circuit: Circuit, session: NgspiceSession, source: str, output: str, name: str, x: np.ndarray,
+    crossings: Sequence[Crossing], timeout: float,
+) -> tuple[Crossing, ...]:
+    """ngspice's crossings located on finer `.dc` runs inside their grid intervals, each with its
+    accuracy: the width of the last interval in which the region changes (the grid's own interval
+    where a run fails)."""
+    refined: list[Crossing] = []
+    for number, crossing in enumerate(crossings):
+        k = _grid_interval(x, crossing.at)
+        a, b = float(x[k]), float(x[k + 1])
+        located = None
+        if number < REFINED_CROSSINGS:
+            located = _refined_edge(circuit, session, source, output, name, crossing.boundary, a, b, timeout)
+            if located is None and len(x) > 2:
+                # An edge on a grid point may be seen one interval over: the two neighbours too.
+                wide = float(x[max(k - 1, 0)]), float(x[min(k + 2, len(x) - 1)])
+                located = _refined_edge(circuit, session, source, output, name, crossing.boundary, *wide, timeout)
+        at, accuracy = located if located is not None else (crossing.at, abs(b - a))
+        refined.append(replace(crossing, at=at, accuracy=accuracy))
+    return tuple(refined)
+
+
+def _grid_interval(x: np.ndarray, at: float) -> int:
+    """k such that `at` lies between x[k] and x[k + 1] (the grid in sweep order)."""
+    direction = 1.0 if x[-1] >= x[0] else -1.0
+    behind = np.nonzero((x - at) * direction <= 0.0)[0]
+    return min(int(behind[-1]) if len(behind) else 0, len(x) - 2)
+
+
+def _refined_edge(
+    circuit: Circuit, session: NgspiceSession, source: str, output: str, name: str, boundary: str,
+    a: float, b: float, timeout: float,
+) -> tuple[float, float] | None:
+    """Zoom in on one edge: REFINE_ROUNDS `.dc` runs, each over the interval where the last one saw
+    the region change; the edge by linear interpolation in the last, ± that interval's width."""
+    at: float | None = None
+    for _ in range(REFINE_ROUNDS):
+        step = (b - a) / REFINE_INTERVALS
+        if step == 0.0:
+            break
+        window = _sim_window(circuit, session, source, output, a, step, REFINE_INTERVALS, timeout, True)
+        if window is None:
+            return None
+        xs, vectors = window
+        vov, channel = _sim_device_drive(
+            circuit, name, *(vectors[f"@{name.lower()}[{q}]"] for q in DEVICE_SWEEP_VECTORS)
+        )
+        known = np.isfinite(vov) & np.isfinite(channel)
+        side = vov <= 0.0 if boundary == "cutoff_saturation" else (vov > 0.0) & (channel - vov < 0.0)
+        indicator = vov if boundary == "cutoff_saturation" else channel - vov
+        changes = np.nonzero(known[:-1] & known[1:] & (side[:-1] != side[1:]))[0]
+        if not len(changes):
+            return None
+        k = int(changes[0])
+        at = _interpolated_edge(xs, indicator, k)
+        a, b = float(xs[k]), float(xs[k + 1])
+    return None if at is None else (at, abs(b - a))
+
+
+def _refined_sim_gain(
+    circuit: Circuit, session: NgspiceSession, source: str, output: str, x: np.ndarray, bias: float, timeout: float
+) -> tuple[float, float] | None:
+    """ngspice's dVout/dVin at the bias point and its accuracy, from one fine `.dc` around it.
+
+    The run covers bias ± H (H = GAIN_WINDOW of the sweep span) in 2·2^GAIN_LEVELS steps; the
+    centred differences at h = H, H/2, …, H/2^GAIN_LEVELS are read from it. The finest is the
+    gain; its accuracy is the larger of its difference from the one at 2h and a quarter of the
+    difference before (for a smooth curve the error falls fourfold per halving: Richardson).
+    """
+    span = float(abs(x[-1] - x[0])) if len(x) > 1 else 0.0
+    half = GAIN_WINDOW * (span if span > 0.0 else max(abs(bias), 1.0))
+    levels = 2**GAIN_LEVELS
+    step = half / levels
+    window = _sim_window(circuit, session, source, output, bias - half, step, 2 * levels, timeout, False)
+    if window is None or len(window[0]) < 2 * levels + 1:
+        return None
+    y = window[1][output]
+    estimates = []
+    k = levels
+    while k >= 1:
+        estimates.append(float((y[levels + k] - y[levels - k]) / (2.0 * k * step)))
+        k //= 2
+    gain = estimates[-1]
+    accuracy = max(abs(estimates[-1] - estimates[-2]), 0.25 * abs(estimates[-2] - estimates[-3]))
+    if not (math.isfinite(gain) and math.isfinite(accuracy)):
+        return None
+    return gain, accuracy
 
 
 # --- the closed form of the resistor-loaded common source -----------------------------------
