@@ -229,6 +229,7 @@ def command_sweep(args: argparse.Namespace) -> int:
         default_output,
         default_range,
         default_source,
+        gate_bias_source,
         independent_source,
         output_node,
         sweep_values,
@@ -278,7 +279,12 @@ def command_sweep(args: argparse.Namespace) -> int:
                 raise ValueError(f"--points `{args.points}` is not a whole number") from None
         if step is not None and points is not None:
             raise ValueError("give --step or --points, not both")
-        source = independent_source(circuit, args.source).name if args.source else default_source(circuit)
+        # A capacitor-coupled gate biased by a divider: the gate bias is swept, not the supply.
+        gate_bias = None if args.source else gate_bias_source(circuit)
+        if gate_bias is not None:
+            circuit = gate_bias.circuit
+        source = independent_source(circuit, args.source).name if args.source else (
+            gate_bias.source if gate_bias is not None else default_source(circuit))  # fmt: skip
         output = output_node(circuit, args.output) if args.output else default_output(circuit)
         if start is None or stop is None:
             low, high = default_range(circuit, source)
@@ -295,7 +301,7 @@ def command_sweep(args: argparse.Namespace) -> int:
     try:
         result = transfer_curve(
             circuit, source, output, values, session,
-            sim_timeout=sim_timeout, unavailable_hint=None if available else hint,
+            sim_timeout=sim_timeout, unavailable_hint=None if available else hint, gate_bias=gate_bias,
         )  # fmt: skip
     finally:
         if session is not None:
@@ -354,7 +360,8 @@ def build_parser() -> argparse.ArgumentParser:
     sweep._negative_number_matcher = SWEEP_NEGATIVE_VALUE
     sweep.add_argument("file", metavar="FILE", help="SPICE netlist of a single-transistor stage")
     sweep.add_argument("--source", metavar="NAME",
-                       help="independent source to sweep (default: the voltage source that drives the gate)")
+                       help="independent source to sweep (default: the voltage source that drives the gate; for a "
+                       "divider-biased gate whose signal comes through a capacitor, a source created at the gate)")
     sweep.add_argument("--output", metavar="NODE",
                        help="node to follow (default: the MOSFET's drain; its source when the drain is on a supply)")
     sweep.add_argument("--start", metavar="A", help="first value (default 0)")

@@ -25,7 +25,7 @@ from bridge.analysis.sweep import (
 )
 from bridge.netlist import parse_netlist, read_netlist
 from bridge.sim.client import ngspice_available
-from tests.conftest import EXAMPLES, NGSPICE
+from tests.conftest import EXAMPLES, NGSPICE, ngspice_batch_op
 
 AVAILABLE, HINT = ngspice_available()
 needs_library = pytest.mark.skipif(not AVAILABLE, reason=HINT)
@@ -470,3 +470,77 @@ def test_table_states_ngspice_accuracy_one_precision_per_column_and_a_positive_l
         assert len(places) == 1, (index, numbers)
     for label in ("M1 cutoff ↔ saturation (V)", "M1 saturation ↔ triode (V)", "gain at the bias point (V/V)"):
         assert " ± " in rows[label][2] and " ± " not in rows[label][0]
+
+
+# --- a capacitor-coupled gate: the gate bias is swept ------------------------------------------
+
+# A bicycle dynamo light's ambient-light amplifier: the photodiode signal reaches the gate only
+# through CIN, the gate bias comes from the RTOP–RBOT divider on the battery.
+DYNAMO_CS = """\
+Bicycle dynamo light: ambient-light amplifier, signal through a capacitor
+VBAT vbat 0 6
+VSIG sig 0 0
+CIN sig g 100n
+RTOP vbat g 470k
+RBOT g 0 150k
+RD vbat d 15k
+M1 d g 0 0 nch w=16u l=2u
+.model nch nmos (level=1 vto=0.6 kp=100u lambda=0.03 gamma=0.35 phi=0.7)
+.op
+.end
+"""
+
+
+def test_a_capacitor_coupled_gate_sweeps_its_divider_bias_in_every_column(tmp_path, session):
+    from bridge.analysis.dcsolve import solve_operating_point
+    from bridge.analysis.hand import hand_analysis
+    from bridge.analysis.sweep import gate_bias_source, sim_sweep_deck
+
+    path = tmp_path / "dynamo.cir"
+    path.write_text(DYNAMO_CS)
+    circuit = read_netlist(path)
+    bias = gate_bias_source(circuit)
+    assert bias is not None and bias.source == "VGATE" and bias.gate == "g"
+    assert (bias.divider, bias.rails, bias.coupling) == (("RTOP", "RBOT"), ("VBAT",), ("CIN",))
+    assert bias.thevenin_voltage == pytest.approx(6.0 * 150 / 620, rel=1e-12)
+    assert bias.thevenin_resistance == pytest.approx(470e3 * 150e3 / 620e3, rel=1e-12)
+    values = sweep_values(0.0, 4.0 * bias.thevenin_voltage, points=5)  # values[1] is the bias value
+    # ngspice gets the same modified circuit: the source at the gate, no divider
+    deck = sim_sweep_deck(bias.circuit, "VGATE", "d", values).text.lower()
+    assert re.search(r"^vgate g 0 ", deck, re.M) and not re.search(r"^r(top|bot) ", deck, re.M)
+    assert re.search(r"^\.dc vgate 0 ", deck, re.M)
+    result = transfer_curve(bias.circuit, "VGATE", "d", values, session, gate_bias=bias)
+    assert result.bias == pytest.approx(bias.thevenin_voltage, rel=1e-12)
+    # At the bias value every column is the netlist's own bias point.
+    assert result.curves["level1"].output[1] == pytest.approx(solve_operating_point(circuit).voltage("d"), abs=1e-9)
+    assert result.curves["hand"].output[1] == pytest.approx(hand_analysis(circuit).node_voltages["d"], abs=1e-9)
+    if session is not None and NGSPICE is not None:
+        # reference: ngspice run directly on the netlist as written (`.op`, 7 digits printed)
+        assert result.curves["sim"].output[1] == pytest.approx(ngspice_batch_op(path)["d"], rel=2e-6)
+
+
+def test_the_command_says_which_source_it_created_and_why(tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("NGSPICE_LIBRARY_PATH", "/nonexistent/libngspice.so")
+    path = tmp_path / "dynamo.cir"
+    path.write_text(DYNAMO_CS)
+    status, out, _ = run([str(path), "--points", "21", "--json"], capsys)
+    document = json.loads(out)
+    assert status == 0 and document["source"] == "VGATE"
+    assert document["gate_bias"]["replaces"] == ["RTOP", "RBOT"] and document["gate_bias"]["coupling"] == ["CIN"]
+    assert document["gain"]["bias"] == pytest.approx(6.0 * 150 / 620, rel=1e-12)
+    status, out, _ = run([str(path), "--points", "21"], capsys)
+    assert "VGATE is a source biasbridge created at M1's gate" in " ".join(out.split())
+    assert "only through CIN" in " ".join(out.split())
+    # A source named on the command line is swept as it is.
+    status, out, _ = run([str(path), "--points", "21", "--json", "--source", "VBAT"], capsys)
+    document = json.loads(out)
+    assert document["source"] == "VBAT" and document["gate_bias"] is None
+
+
+def test_gates_driven_at_dc_keep_their_own_source():
+    from bridge.analysis.sweep import gate_bias_source
+
+    assert gate_bias_source(parse_netlist(DIVIDER_CS, "divider.cir")) is None  # VIN reaches it through R1
+    no_coupling = DYNAMO_CS.replace("CIN sig g 100n\n", "")
+    assert gate_bias_source(parse_netlist(no_coupling, "plain.cir")) is None
+    assert gate_bias_source(parse_netlist(FOLLOWER, "follower.cir")) is None  # VIN is the gate's node

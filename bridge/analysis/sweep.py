@@ -75,6 +75,8 @@ __all__ = [
     "default_output",
     "default_range",
     "default_source",
+    "GateBias",
+    "gate_bias_source",
     "sweep_values",
     "transfer_curve",
     "with_source_value",
@@ -239,6 +241,7 @@ class TransferCurve:
     closed_form: dict[str, ClosedFormEdges] = field(default_factory=dict)
     hand_gain: HandGainFormula | None = None
     findings: tuple[Finding, ...] = ()
+    gate_bias: GateBias | None = None  # the source created at the gate, when the sweep swept one
 
     @property
     def agree(self) -> bool:
@@ -338,6 +341,140 @@ def default_source(circuit: Circuit) -> str:
     supplies = {e.name for node in (drain, source) if node != GROUND for e in reached(node, {gate})}
     preferred = [e for e in candidates if e.name not in supplies]
     return (preferred or candidates)[0].name
+
+
+@dataclass(frozen=True)
+class GateBias:
+    """A capacitor-coupled gate's divider replaced by one swept source at the gate.
+
+    `circuit` is the netlist's circuit with the divider resistors removed and `source` (a voltage
+    source from the gate to ground at the divider's Thevenin voltage) added; the three columns
+    all sweep that circuit.
+    """
+
+    circuit: Circuit
+    source: str
+    gate: str
+    device: str
+    thevenin_voltage: float
+    thevenin_resistance: float
+    divider: tuple[str, ...]  # the resistors replaced
+    rails: tuple[str, ...]  # the voltage sources that fed them
+    coupling: tuple[str, ...]  # the capacitors through which the gate's signal arrives
+
+    def explanation(self) -> str:
+        divider = "–".join(self.divider)
+        coupled = ", ".join(self.coupling)
+        return (
+            f"{self.source} is a source biasbridge created at {self.device}'s gate (node {self.gate}) in place of "
+            f"the divider {divider} (Thevenin {self.thevenin_voltage:.6g} V from {', '.join(self.rails)}, "
+            f"{engineering(self.thevenin_resistance, 'Ω')}): the gate's signal arrives only through {coupled}, "
+            f"so the gate bias is swept, not the supply; its bias value is the divider's voltage "
+            f"(--source names any other source to sweep)"
+        )
+
+
+def _held_voltages(circuit: Circuit) -> dict[str, float]:
+    """The DC voltage of every node held by chains of voltage sources from ground."""
+    known = {GROUND: 0.0}
+    pending = list(circuit.elements_of("vsource"))
+    progress = True
+    while progress:
+        progress = False
+        for element in list(pending):
+            plus, minus = element.nodes[0], element.nodes[1]
+            value = float(element.value or 0.0)
+            if minus in known and plus not in known:
+                known[plus] = known[minus] + value
+            elif plus in known and minus not in known:
+                known[minus] = known[plus] - value
+            elif plus not in known:
+                continue
+            pending.remove(element)
+            progress = True
+    return known
+
+
+def gate_bias_source(circuit: Circuit) -> GateBias | None:
+    """The gate bias the designer means, when the (first) MOSFET's gate is fed at DC only by a
+    resistive divider from the supplies and its signal arrives through a capacitor: the circuit
+    with the divider replaced by a voltage source at the gate, at the divider's Thevenin voltage.
+
+    None when the gate is driven otherwise: a source reaches it at DC that does not also feed the
+    drain or source side (that source is the input), no capacitor couples a signal to it, or its
+    DC network is more than resistors from the gate straight to held nodes.
+    """
+    mosfets = circuit.elements_of("mosfet")
+    if not mosfets:
+        return None
+    mosfet = mosfets[0]
+    gate = mosfet.nodes[1]
+    held = _held_voltages(circuit)
+    if gate in held or gate in (mosfet.nodes[0], mosfet.nodes[2], mosfet.nodes[3] if len(mosfet.nodes) > 3 else None):
+        return None
+    try:
+        if default_source(circuit) not in _supplies(circuit, mosfet):
+            return None  # a source of its own reaches the gate at DC: it is the input
+    except SweepInputError:
+        return None
+    divider: list[Element] = []
+    coupling: list[Element] = []
+    for element in circuit.elements:
+        if gate not in element.nodes or element is mosfet:
+            continue
+        if element.kind == "resistor" and element.nodes[:2].count(gate) == 1:
+            other = element.nodes[1] if element.nodes[0] == gate else element.nodes[0]
+            value = element.value
+            if other not in held or not isinstance(value, float) or not value > 0.0 or "m" in element.params:
+                return None
+            divider.append(element)
+        elif element.kind == "capacitor":
+            other = element.nodes[1] if element.nodes[0] == gate else element.nodes[0]
+            if other != GROUND and other != gate:
+                coupling.append(element)
+        else:
+            return None  # a source, inductor, another device's terminal on the gate: not a plain divider
+    if not divider or not coupling or any(gate in m.nodes for m in mosfets if m is not mosfet):
+        return None
+    conductance = sum(1.0 / float(r.value) for r in divider)  # type: ignore[arg-type]
+    current = sum(held[r.nodes[1] if r.nodes[0] == gate else r.nodes[0]] / float(r.value) for r in divider)  # type: ignore[arg-type]
+    thevenin = current / conductance
+    taken = {e.name.lower() for e in circuit.elements}
+    name = next(n for n in ("VGATE", *(f"VGATE{i}" for i in range(1, 1000))) if n.lower() not in taken)
+    created = Element(name, "vsource", (gate, GROUND), thevenin, mosfet.origin)
+    replaced = {r.name for r in divider}
+    elements = tuple(e for e in circuit.elements if e.name not in replaced) + (created,)
+    rails = tuple(
+        dict.fromkeys(
+            e.name for r in divider for e in circuit.elements_of("vsource")
+            if (set(r.nodes[:2]) - {gate, GROUND}) & set(e.nodes[:2])
+        )
+    )  # fmt: skip
+    return GateBias(
+        replace(circuit, elements=elements), name, gate, mosfet.name, thevenin, 1.0 / conductance,
+        tuple(r.name for r in divider), rails or ("ground",), tuple(c.name for c in coupling),
+    )  # fmt: skip
+
+
+def _supplies(circuit: Circuit, mosfet: Element) -> set[str]:
+    """The voltage sources that hold the drain's or source's side (through resistors), or that hold
+    a node the drain or source sits on."""
+    found: set[str] = set()
+    for node in (mosfet.nodes[0], mosfet.nodes[2]):
+        frontier, seen = [node], {node}
+        while frontier:
+            here = frontier.pop()
+            for element in circuit.elements:
+                if here not in element.nodes[:2] or here == GROUND:
+                    continue
+                if element.kind == "vsource":
+                    found.add(element.name)
+                elif element.kind in ("resistor", "inductor"):
+                    other = element.nodes[1] if element.nodes[0] == here else element.nodes[0]
+                    if other not in seen and other != mosfet.nodes[1]:
+                        seen.add(other)
+                        frontier.append(other)
+    return found
 
 
 def supply_span(circuit: Circuit) -> float:
@@ -1214,11 +1351,13 @@ def transfer_curve(
     *,
     sim_timeout: float = 10.0,
     unavailable_hint: str | None = None,
+    gate_bias: GateBias | None = None,
 ) -> TransferCurve:
     """Sweep `source` through `values` and follow V(`output`) in the three columns.
 
     Raises SweepInputError for an unknown source or node; a column that cannot be computed is
-    None, with a finding that says why.
+    None, with a finding that says why. With `gate_bias` (from gate_bias_source), `circuit` must
+    be its circuit: the result then says which source was created and why.
     """
     element = independent_source(circuit, source)
     output = output_node(circuit, output)
@@ -1295,4 +1434,5 @@ def transfer_curve(
         closed_form=closed,
         hand_gain=hand_gain,
         findings=tuple(findings),
+        gate_bias=gate_bias,
     )

@@ -103,6 +103,8 @@ def sweep_renderable(result: TransferCurve, steps: bool = False) -> Group:
     simulator = f"{result.simulator[0]} {result.simulator[1]}" if result.simulator else "no simulator"
     header = Text.assemble((f"{result.file}", "bold"), f": {result.title}\n", _sweep_line(result),
                            f"\nsimulator: {simulator}")  # fmt: skip
+    if result.gate_bias is not None:
+        header.append(f"\n{result.gate_bias.explanation()}", style="yellow")
     curves = result.curves
     x_unit = result.source_unit
     table = Table(title_justify="left")
@@ -293,6 +295,7 @@ def _sweep_document(result: TransferCurve) -> dict[str, Any]:
             for device, closed in result.closed_form.items()
         },
         "gain": gain,
+        "gate_bias": _gate_bias_document(result),
         "deviation": {
             "reference": result.deviation_reference,
             **{
@@ -307,6 +310,19 @@ def _sweep_document(result: TransferCurve) -> dict[str, Any]:
         ],
         "agree": result.agree,
     }
+
+
+def _gate_bias_document(result: TransferCurve) -> dict[str, Any] | None:
+    """The source created at a capacitor-coupled gate, or None when the netlist's own source was swept."""
+    bias = result.gate_bias
+    if bias is None:
+        return None
+    return {
+        "source": bias.source, "node": bias.gate, "device": bias.device,
+        "thevenin_voltage": bias.thevenin_voltage, "thevenin_resistance": bias.thevenin_resistance,
+        "replaces": list(bias.divider), "rails": list(bias.rails), "coupling": list(bias.coupling),
+        "explanation": bias.explanation(),
+    }  # fmt: skip
 
 
 def _cell(value: float | None) -> str:
