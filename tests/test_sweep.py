@@ -544,3 +544,50 @@ def test_gates_driven_at_dc_keep_their_own_source():
     no_coupling = DYNAMO_CS.replace("CIN sig g 100n\n", "")
     assert gate_bias_source(parse_netlist(no_coupling, "plain.cir")) is None
     assert gate_bias_source(parse_netlist(FOLLOWER, "follower.cir")) is None  # VIN is the gate's node
+
+
+# --- the plot ---------------------------------------------------------------------------------
+
+
+def _panels(figure):
+    """The figure's plotting panels (not the secondary top axes that carry the edge ticks)."""
+    return [axes for axes in figure.axes if axes.get_xlabel()]
+
+
+def test_plot_keeps_an_end_bias_point_inside_the_frame_and_labels_hand_and_level1_edges():
+    from bridge.report.plot import plot_figure
+
+    circuit = parse_netlist(DIVIDER_CS, "divider.cir")
+    # The bias point VIN = 2.4 V is the last value of the sweep.
+    result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 2.4, points=49))
+    figure = plot_figure(result)
+    (axes,) = _panels(figure)
+    left, right = axes.get_xlim()
+    assert left < 0.0 and right > 2.4 + 0.02  # the end markers are not cut by the frame
+    labels = {text.get_text() for text in axes.texts}
+    cutoff = result.curves["hand"].edges["M1"].cutoff_saturation
+    assert f"hand {cutoff:.4g} V" in labels
+    assert f"level-1 {result.curves['level1'].edges['M1'].cutoff_saturation:.4g} V" in labels
+    edge_markers = [line for line in axes.lines if line.get_marker() in ("v", "^") and len(line.get_xdata()) == 1]
+    assert edge_markers and min(line.get_markersize() for line in edge_markers) >= 10
+
+
+def test_plot_enlarges_a_small_active_region_in_a_second_panel(tmp_path):
+    from bridge.analysis.sweep import gate_bias_source
+    from bridge.report.plot import active_window, plot_figure, write_plot
+
+    bias = gate_bias_source(parse_netlist(DYNAMO_CS, "dynamo.cir"))
+    result = transfer_curve(bias.circuit, "VGATE", "d", sweep_values(0.0, 6.0, points=121), gate_bias=bias)
+    edges = result.curves["level1"].edges["M1"]
+    assert edges.saturation_triode - edges.cutoff_saturation < 0.25 * 6.0  # a small part of the sweep
+    window = active_window(result)
+    assert window is not None and window[0] < edges.cutoff_saturation and window[1] > edges.saturation_triode
+    whole, detail = _panels(plot_figure(result))
+    assert whole.get_xlim()[1] - whole.get_xlim()[0] > 6.0
+    shown = detail.get_xlim()
+    assert shown[0] < edges.cutoff_saturation and edges.saturation_triode < shown[1] and shown[1] - shown[0] < 3.0
+    png = write_plot(result, tmp_path / "detail.png")
+    assert _png_size(png.read_bytes()) == (800, 800)
+    # A sweep whose active region is a large part of it keeps one panel.
+    wide = transfer_curve(parse_netlist(DIVIDER_CS, "divider.cir"), "VIN", "d", sweep_values(0.0, 5.0, points=51))
+    assert active_window(wide) is None and len(_panels(plot_figure(wide))) == 1
