@@ -97,22 +97,23 @@ DEVICE_SWEEP_VECTORS = ("vgs", "vds", "von")
 
 # ngspice's edges and gain are refined with further `.dc` runs through the same worker, so they
 # do not depend on the grid: each grid interval where a region changes is swept again in
-# REFINE_INTERVALS steps, twice (the second time inside the finer interval where it changes);
-# the gain is read on a `.dc` of 2·2^GAIN_LEVELS steps over ±GAIN_WINDOW of the sweep span
-# around the bias point.
-REFINE_INTERVALS = 256
-REFINE_ROUNDS = 2
+# REFINE_INTERVALS steps, then the finer interval where it changes, and so on until that interval
+# is at most EDGE_TARGET of the sweep span (at most REFINE_ROUNDS runs); the gain is read on a
+# `.dc` of 2·2^GAIN_LEVELS steps over ±GAIN_WINDOW of the sweep span around the bias point.
+REFINE_INTERVALS = 64
+REFINE_ROUNDS = 4
+EDGE_TARGET = 1e-5
 REFINED_CROSSINGS = 8  # at most this many crossings per device are refined; the rest keep the grid
-GAIN_WINDOW = 2.0**-6
-GAIN_LEVELS = 8
+GAIN_WINDOW = 2.0**-8
+GAIN_LEVELS = 6
 
 EDGE_METHODS = {
     "hand": "Brent's method on the hand model between the grid points where the region changes",
     "level1": "Brent's method on the level-1 solution between the grid points where the region changes",
     "sim": (
-        f"each grid interval where the region changes swept again by ngspice in {REFINE_INTERVALS} steps, "
-        f"{REFINE_ROUNDS} times, then linear interpolation of @m[vgs], @m[vds], @m[von]; ± the last interval, "
-        "inside which the edge lies"
+        f"the grid interval where the region changes swept again by ngspice in {REFINE_INTERVALS} steps, then "
+        f"the finer interval where it changes, until it is at most {EDGE_TARGET:g} of the sweep; linear "
+        "interpolation of @m[vgs], @m[vds], @m[von] there; ± that interval, inside which the edge lies"
     ),
 }
 GAIN_METHODS = {
@@ -1021,16 +1022,19 @@ def _refined_crossings(
     accuracy: the width of the last interval in which the region changes (the grid's own interval
     where a run fails)."""
     refined: list[Crossing] = []
+    target = EDGE_TARGET * float(abs(x[-1] - x[0]))
     for number, crossing in enumerate(crossings):
         k = _grid_interval(x, crossing.at)
         a, b = float(x[k]), float(x[k + 1])
         located = None
         if number < REFINED_CROSSINGS:
-            located = _refined_edge(circuit, session, source, output, name, crossing.boundary, a, b, timeout)
+            located = _refined_edge(circuit, session, source, output, name, crossing.boundary, a, b, target, timeout)
             if located is None and len(x) > 2:
                 # An edge on a grid point may be seen one interval over: the two neighbours too.
                 wide = float(x[max(k - 1, 0)]), float(x[min(k + 2, len(x) - 1)])
-                located = _refined_edge(circuit, session, source, output, name, crossing.boundary, *wide, timeout)
+                located = _refined_edge(
+                    circuit, session, source, output, name, crossing.boundary, *wide, target, timeout
+                )
         at, accuracy = located if located is not None else (crossing.at, abs(b - a))
         refined.append(replace(crossing, at=at, accuracy=accuracy))
     return tuple(refined)
@@ -1045,12 +1049,15 @@ def _grid_interval(x: np.ndarray, at: float) -> int:
 
 def _refined_edge(
     circuit: Circuit, session: NgspiceSession, source: str, output: str, name: str, boundary: str,
-    a: float, b: float, timeout: float,
+    a: float, b: float, target: float, timeout: float,
 ) -> tuple[float, float] | None:
-    """Zoom in on one edge: REFINE_ROUNDS `.dc` runs, each over the interval where the last one saw
-    the region change; the edge by linear interpolation in the last, ± that interval's width."""
+    """Zoom in on one edge: `.dc` runs, each over the interval where the last one saw the region
+    change, until that interval is at most `target` wide (at most REFINE_ROUNDS runs); the edge by
+    linear interpolation in the last, ± that interval's width."""
     at: float | None = None
     for _ in range(REFINE_ROUNDS):
+        if at is not None and abs(b - a) <= target:
+            break
         step = (b - a) / REFINE_INTERVALS
         if step == 0.0:
             break
