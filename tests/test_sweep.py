@@ -530,7 +530,7 @@ def test_the_command_says_which_source_it_created_and_why(tmp_path, capsys, monk
     assert document["gain"]["bias"] == pytest.approx(6.0 * 150 / 620, rel=1e-12)
     status, out, _ = run([str(path), "--points", "21"], capsys)
     assert "VGATE is a source biasbridge created at M1's gate" in " ".join(out.split())
-    assert "only through CIN" in " ".join(out.split())
+    assert "CIN couples the input to it, so the gate bias is swept, not the supply" in " ".join(out.split())
     # A source named on the command line is swept as it is.
     status, out, _ = run([str(path), "--points", "21", "--json", "--source", "VBAT"], capsys)
     document = json.loads(out)
@@ -544,6 +544,9 @@ def test_gates_driven_at_dc_keep_their_own_source():
     no_coupling = DYNAMO_CS.replace("CIN sig g 100n\n", "")
     assert gate_bias_source(parse_netlist(no_coupling, "plain.cir")) is None
     assert gate_bias_source(parse_netlist(FOLLOWER, "follower.cir")) is None  # VIN is the gate's node
+    # A capacitor to the drain (Miller) or to the battery couples no input.
+    for capacitor in ("CM d g 10p", "CF vbat g 10n"):
+        assert gate_bias_source(parse_netlist(DYNAMO_CS.replace("CIN sig g 100n", capacitor), "c.cir")) is None
 
 
 # --- the plot ---------------------------------------------------------------------------------

@@ -369,9 +369,9 @@ class GateBias:
         return (
             f"{self.source} is a source biasbridge created at {self.device}'s gate (node {self.gate}) in place of "
             f"the divider {divider} (Thevenin {self.thevenin_voltage:.6g} V from {', '.join(self.rails)}, "
-            f"{engineering(self.thevenin_resistance, 'Ω')}): the gate's signal arrives only through {coupled}, "
-            f"so the gate bias is swept, not the supply; its bias value is the divider's voltage "
-            f"(--source names any other source to sweep)"
+            f"{engineering(self.thevenin_resistance, 'Ω')}): only the divider sets the gate at DC and {coupled} "
+            f"couples the input to it, so the gate bias is swept, not the supply; its bias value is the divider's "
+            f"voltage (--source names any other source to sweep)"
         )
 
 
@@ -418,6 +418,8 @@ def gate_bias_source(circuit: Circuit) -> GateBias | None:
             return None  # a source of its own reaches the gate at DC: it is the input
     except SweepInputError:
         return None
+    supplies = _supplies(circuit, mosfet)
+    supply_nodes = {n for e in circuit.elements_of("vsource") if e.name in supplies for n in e.nodes[:2]} - {GROUND}
     divider: list[Element] = []
     coupling: list[Element] = []
     for element in circuit.elements:
@@ -431,7 +433,8 @@ def gate_bias_source(circuit: Circuit) -> GateBias | None:
             divider.append(element)
         elif element.kind == "capacitor":
             other = element.nodes[1] if element.nodes[0] == gate else element.nodes[0]
-            if other != GROUND and other != gate:
+            # A capacitor to ground, to a supply's node or to the transistor itself couples no input.
+            if other not in (GROUND, gate, *mosfet.nodes) and other not in supply_nodes:
                 coupling.append(element)
         else:
             return None  # a source, inductor, another device's terminal on the gate: not a plain divider
@@ -962,7 +965,12 @@ def sim_curve(
         vov, channel = _sim_device_drive(circuit, name, *(on_grid(result[vector]) for vector in names))
         regions[name] = _device_regions(vov, channel)
         crossings = _interpolated_crossings(x, vov, channel, regions[name])
-        edges[name] = _edges(_refined_crossings(circuit, session, source, output, name, x, crossings, timeout))
+        refined, from_grid = _refined_crossings(circuit, session, source, output, name, x, crossings, timeout)
+        edges[name] = _edges(refined)
+        if from_grid:
+            findings.append(Finding("info", "sim-edge-from-grid", f"{from_grid} of {name}'s ngspice edges could "
+                                    "not be refined with a finer .dc: they are the grid's interpolation, ± the grid "
+                                    "step"))  # fmt: skip
     refined = _refined_sim_gain(circuit, session, source, output, x, bias, timeout)
     gain, gain_accuracy = refined if refined is not None else (_slope_from_curve(x, output_values, bias), None)
     if gain is None:
@@ -1017,12 +1025,13 @@ def _sim_window(
 def _refined_crossings(
     circuit: Circuit, session: NgspiceSession, source: str, output: str, name: str, x: np.ndarray,
     crossings: Sequence[Crossing], timeout: float,
-) -> tuple[Crossing, ...]:
+) -> tuple[tuple[Crossing, ...], int]:
     """ngspice's crossings located on finer `.dc` runs inside their grid intervals, each with its
     accuracy: the width of the last interval in which the region changes (the grid's own interval
-    where a run fails)."""
+    where a run fails); and how many kept the grid's value."""
     refined: list[Crossing] = []
     target = EDGE_TARGET * float(abs(x[-1] - x[0]))
+    unrefined = 0
     for number, crossing in enumerate(crossings):
         k = _grid_interval(x, crossing.at)
         a, b = float(x[k]), float(x[k + 1])
@@ -1037,7 +1046,8 @@ def _refined_crossings(
                 )
         at, accuracy = located if located is not None else (crossing.at, abs(b - a))
         refined.append(replace(crossing, at=at, accuracy=accuracy))
-    return tuple(refined)
+        unrefined += located is None
+    return tuple(refined), unrefined
 
 
 def _grid_interval(x: np.ndarray, at: float) -> int:
