@@ -197,7 +197,8 @@ def _draw_panel(axes, result: TransferCurve, window: tuple[float, float] | None,
                 axes.plot([result.bias], [y], marker="D", color="tab:purple", markersize=8,
                           markeredgecolor="white", markeredgewidth=0.8, zorder=6)  # fmt: skip
     symbols = {"hand": "▼ hand", "level1": "▲ level-1", "sim": "○ ngspice"}
-    present = [symbols[c] for c in COLUMNS if result.curves.get(c) is not None and result.curves[c].edges]
+    present = [symbols[c] for c in COLUMNS if result.curves.get(c) is not None
+               and any(edges.crossings for edges in result.curves[c].edges.values())]  # fmt: skip
     if present:
         axes.plot([], [], marker="v", color="#555555", linestyle="none", label="region edges: " + " ".join(present))
     if shaded_by:
