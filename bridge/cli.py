@@ -12,6 +12,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import re
 import sys
 from collections.abc import Sequence
 from pathlib import Path
@@ -24,6 +25,7 @@ if TYPE_CHECKING:
 
 EXIT_OK, EXIT_FINDINGS, EXIT_INPUT = 0, 1, 2
 DEMO_NETLIST = "cs_divider.cir"
+SWEEP_NEGATIVE_VALUE = re.compile(r"^-\.?\d")
 
 
 class _Parser(argparse.ArgumentParser):
@@ -204,9 +206,22 @@ def _check_output_path(target: str, inputs: set[str], option: str) -> None:
         raise ValueError(f"{option} {target}: refusing to write over an input netlist")
     folder = os.path.dirname(resolved)
     if not os.path.isdir(folder):
-        raise ValueError(f"{option} {target}: the folder {os.path.dirname(target) or '.'} does not exist")
+        raise ValueError(f"{option} {target}: {_unusable_folder(os.path.dirname(target) or '.')}")
     if os.path.isdir(resolved):
         raise ValueError(f"{option} {target} is a folder")
+
+
+def _unusable_folder(folder: str) -> str:
+    """Why `folder` cannot take a file: the first part of it that is a file, or that it does not exist."""
+    part = folder
+    while part and not os.path.lexists(part):
+        parent = os.path.dirname(part)
+        if parent == part:
+            break
+        part = parent
+    if part and os.path.lexists(part) and not os.path.isdir(part):
+        return f"{part} is a file, not a folder"
+    return f"the folder {folder} does not exist"
 
 
 def command_sweep(args: argparse.Namespace) -> int:
@@ -216,6 +231,7 @@ def command_sweep(args: argparse.Namespace) -> int:
         default_output,
         default_range,
         default_source,
+        gate_bias_source,
         independent_source,
         output_node,
         sweep_values,
@@ -265,7 +281,12 @@ def command_sweep(args: argparse.Namespace) -> int:
                 raise ValueError(f"--points `{args.points}` is not a whole number") from None
         if step is not None and points is not None:
             raise ValueError("give --step or --points, not both")
-        source = independent_source(circuit, args.source).name if args.source else default_source(circuit)
+        # A capacitor-coupled gate biased by a divider: the gate bias is swept, not the supply.
+        gate_bias = None if args.source else gate_bias_source(circuit)
+        if gate_bias is not None:
+            circuit = gate_bias.circuit
+        source = independent_source(circuit, args.source).name if args.source else (
+            gate_bias.source if gate_bias is not None else default_source(circuit))  # fmt: skip
         output = output_node(circuit, args.output) if args.output else default_output(circuit)
         if start is None or stop is None:
             low, high = default_range(circuit, source)
@@ -282,7 +303,7 @@ def command_sweep(args: argparse.Namespace) -> int:
     try:
         result = transfer_curve(
             circuit, source, output, values, session,
-            sim_timeout=sim_timeout, unavailable_hint=None if available else hint,
+            sim_timeout=sim_timeout, unavailable_hint=None if available else hint, gate_bias=gate_bias,
         )  # fmt: skip
     finally:
         if session is not None:
@@ -339,9 +360,13 @@ def build_parser() -> argparse.ArgumentParser:
     sweep = verbs.add_parser(
         "sweep", help="the DC transfer curve: hand, level-1 and ngspice, with region edges and gain"
     )
+    # A negative value with a SPICE suffix (`--step -10m`, `--start -1.5k`, `-2e-3`) is a value, not an
+    # option: argparse's own pattern knows only plain numbers (`-10`, `-0.5`); no sweep option starts `-<digit>`.
+    sweep._negative_number_matcher = SWEEP_NEGATIVE_VALUE
     sweep.add_argument("file", metavar="FILE", help="SPICE netlist of a single-transistor stage")
     sweep.add_argument("--source", metavar="NAME",
-                       help="independent source to sweep (default: the voltage source that drives the gate)")
+                       help="independent source to sweep (default: the voltage source that drives the gate; for a "
+                       "divider-biased gate whose signal comes through a capacitor, a source created at the gate)")
     sweep.add_argument("--output", metavar="NODE",
                        help="node to follow (default: the MOSFET's drain; its source when the drain is on a supply)")
     sweep.add_argument("--start", metavar="A", help="first value (default 0)")

@@ -25,7 +25,7 @@ from bridge.analysis.sweep import (
 )
 from bridge.netlist import parse_netlist, read_netlist
 from bridge.sim.client import ngspice_available
-from tests.conftest import EXAMPLES, NGSPICE
+from tests.conftest import EXAMPLES, NGSPICE, ngspice_batch_op
 
 AVAILABLE, HINT = ngspice_available()
 needs_library = pytest.mark.skipif(not AVAILABLE, reason=HINT)
@@ -223,6 +223,92 @@ def test_sim_curve_matches_ngspice_run_directly(tmp_path, session):
         assert sim[index] == pytest.approx(vout, rel=2e-6, abs=1e-9)  # .print shows 7 digits
 
 
+# --- ngspice's gain and edges do not depend on the grid ------------------------------------------
+
+# A greenhouse soil-moisture sensor board: the probe amplifier, a common source with λ and γ,
+# VIN through a divider to the gate.
+GREENHOUSE_CS = """\
+Greenhouse soil-moisture probe amplifier: common source, VIN through a divider
+VDD vdd 0 5
+VIN in 0 2.4
+R1 in g 100k
+R2 g 0 100k
+RD vdd d 12k
+M1 d g 0 0 nch w=20u l=2u
+.model nch nmos (level=1 vto=0.7 kp=110u lambda=0.02 gamma=0.4 phi=0.65)
+"""
+
+
+def ngspice_dc_rows(tmp_path: Path, netlist: str, dc: str, vectors: list[str]) -> np.ndarray:
+    """The `.dc` of `netlist` as ngspice 39 run directly (`ngspice -b`) prints it to 15 digits:
+    one row per point, the sweep value first, then `vectors`."""
+    deck = tmp_path / "reference.cir"
+    listed = " ".join(vectors)
+    deck.write_text(
+        netlist + f".dc {dc}\n.save {listed}\n.control\nset numdgt=15\nset width=1000\nset height=1000000\n"
+        f"run\nprint {listed}\n.endc\n.end\n"
+    )
+    completed = subprocess.run([NGSPICE, "-b", str(deck)], capture_output=True, text=True, timeout=60)
+    rows = [
+        [float(field) for field in line.split()[1:]]
+        for line in completed.stdout.splitlines()
+        if re.match(r"^\d+\t", line)
+    ]
+    assert rows, completed.stdout[-2000:]
+    return np.array(rows)
+
+
+def coarse_slope(x: np.ndarray, y: np.ndarray, at: float) -> float:
+    """The derivative at `at` of the parabola through the three grid points nearest to it."""
+    k = min(max(int(np.argmin(np.abs(x - at))) - 1, 0), len(x) - 3)
+    return float(np.polyval(np.polyder(np.polyfit(x[k:k + 3], y[k:k + 3], 2)), at))
+
+
+@needs_ngspice_binary
+def test_sim_gain_is_refined_beyond_the_grid_within_its_stated_accuracy(tmp_path, session):
+    circuit = parse_netlist(GREENHOUSE_CS, "greenhouse.cir")
+    result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, points=201), session)
+    sim = result.curves["sim"]
+    # reference: ngspice run directly at 10 µV steps around the bias point VIN = 2.4 V
+    rows = ngspice_dc_rows(tmp_path, GREENHOUSE_CS, "VIN 2.39 2.41 1e-5", ["v(d)"])
+    centre = int(np.argmin(np.abs(rows[:, 0] - 2.4)))
+    reference = (rows[centre + 1, 1] - rows[centre - 1, 1]) / (rows[centre + 1, 0] - rows[centre - 1, 0])
+    assert sim.gain_accuracy is not None and 0.0 < sim.gain_accuracy < 1e-5
+    assert abs(sim.gain_at_bias - reference) <= sim.gain_accuracy + 1e-6  # the reference: ±1e-6 at most
+    # The 201-point grid alone is far less accurate: the refined gain is not the grid's.
+    coarse = coarse_slope(result.x, sim.output, 2.4)
+    assert abs(coarse - reference) > 20 * (sim.gain_accuracy + 1e-6)
+    # and another grid gives the same gain within the stated accuracies
+    other = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, points=7), session).curves["sim"]
+    assert abs(other.gain_at_bias - sim.gain_at_bias) <= other.gain_accuracy + sim.gain_accuracy
+
+
+@needs_ngspice_binary
+def test_sim_edges_are_refined_beyond_the_grid_within_their_stated_accuracy(tmp_path, session):
+    circuit = parse_netlist(GREENHOUSE_CS, "greenhouse.cir")
+    result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, points=201), session)
+    sim = result.curves["sim"].edges["M1"]
+    level1 = result.curves["level1"].edges["M1"]
+    for boundary in ("cutoff_saturation", "saturation_triode"):
+        near = level1.get(boundary)
+        # reference: ngspice run directly at 1 µV steps over ±4 mV around the edge
+        rows = ngspice_dc_rows(tmp_path, GREENHOUSE_CS, f"VIN {near - 4e-3:.6f} {near + 4e-3:.6f} 1e-6",
+                               ["@m1[vgs]", "@m1[vds]", "@m1[von]"])  # fmt: skip
+        vin, vgs, vds, von = rows.T
+        vov = vgs - von
+        indicator = vov if boundary == "cutoff_saturation" else vds - vov
+        k = int(np.nonzero(np.sign(indicator[:-1]) != np.sign(indicator[1:]))[0][0])
+        reference = vin[k] + (vin[k + 1] - vin[k]) * indicator[k] / (indicator[k] - indicator[k + 1])
+        accuracy = sim.accuracy(boundary)
+        assert accuracy is not None and accuracy < 1e-5  # the grid step is 25 mV
+        assert abs(sim.get(boundary) - reference) <= accuracy + 1e-6, boundary
+    # The grid's own interpolation of the triode edge is off by about a millivolt: not what is reported.
+    coarse = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, points=7), session).curves["sim"]
+    assert abs(coarse.edges["M1"].saturation_triode - sim.saturation_triode) <= (
+        coarse.edges["M1"].accuracy("saturation_triode") + sim.accuracy("saturation_triode")
+    )
+
+
 # --- the command ------------------------------------------------------------------------------
 
 
@@ -248,6 +334,7 @@ def divider_file(tmp_path) -> Path:
         (["--step", "0"], "must not be zero"),
         (["--start", "0", "--stop", "5", "--step=-0.1"], "wrong way"),
         (["--start", "5", "--stop", "0", "--step", "0.1"], "wrong way"),
+        (["--start", "0", "--stop", "5", "--step", "-10m"], "wrong way"),  # read as a value, not an option
         (["--step", "1u"], "at most 100,000"),
         (["--points", "100001"], "100,000"),
         (["--points", "1"], "at least 2"),
@@ -290,7 +377,9 @@ def test_plot_csv_and_json_are_written_whole(divider_file, tmp_path, capsys):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["curve.csv", "curve.png", "divider.cir"]  # no temp files
     assert _png_size(png.read_bytes()) == (800, 500)
     rows = csv_path.read_text().splitlines()
-    assert rows[0] == "x,hand,level1,sim,region_M1_hand,region_M1_level1,region_M1_sim"
+    assert rows[0] == (
+        "VIN (V),V(d) hand (V),V(d) level-1 (V),V(d) ngspice (V),M1 region hand,M1 region level-1,M1 region ngspice"
+    )
     assert len(rows) == 52
     assert rows[-1].split(",")[4:] == ["triode", "triode", "triode"]
     document = json.loads(out)
@@ -341,3 +430,167 @@ def test_defaults_sweep_the_gate_source_from_zero_to_the_supply():
     values = sweep_values(0.0, 5.0)
     assert len(values) == 201 and values[1] == pytest.approx(0.025)
     assert np.array_equal(sweep_values(5.0, 0.0, step=-1.0), np.array([5.0, 4.0, 3.0, 2.0, 1.0, 0.0]))
+
+
+def test_a_negative_step_with_a_suffix_is_a_value(divider_file, capsys, monkeypatch):
+    monkeypatch.setenv("NGSPICE_LIBRARY_PATH", "/nonexistent/libngspice.so")
+    status, out, err = run([str(divider_file), "--start", "5", "--stop", "-1.5", "--step", "-500m", "--json"], capsys)
+    assert status == 0, err
+    document = json.loads(out)
+    assert document["x"] == pytest.approx([5.0 - 0.5 * k for k in range(14)])
+
+
+def test_an_output_folder_that_is_a_file_is_named_as_such(divider_file, tmp_path, capsys):
+    data = tmp_path / "data.csv"
+    data.write_text("x\n")
+    for target in (data / "curve.png", data / "deeper" / "curve.png"):
+        status, out, err = run([str(divider_file), "--plot", str(target)], capsys)
+        assert status == 2 and out == ""
+        assert f"{data} is a file, not a folder" in err and "does not exist" not in err
+    status, _, err = run([str(divider_file), "--csv", str(tmp_path / "none" / "c.csv")], capsys)
+    assert status == 2 and f"the folder {tmp_path / 'none'} does not exist" in err
+    assert data.read_text() == "x\n"
+
+
+@needs_library
+def test_table_states_ngspice_accuracy_one_precision_per_column_and_a_positive_largest_gain(divider_file, capsys):
+    status, out, err = run([str(divider_file), "--points", "21"], capsys)
+    assert status == 0, err
+    rows = {}
+    for line in out.splitlines():
+        cells = [cell.strip() for cell in line.strip("│ ").split("│")]
+        if len(cells) == 4:
+            rows[cells[0]] = cells[1:]
+    largest = rows["largest |gain| on the grid (V/V)"]
+    assert all(float(cell) > 0.0 for cell in largest)  # the gain is negative, its magnitude is not
+    assert float(rows["gain at the bias point (V/V)"][2].split(" ± ")[0]) < 0.0
+    for index in range(3):  # one number of decimals per column
+        numbers = [cells[index].split(" ± ") for cells in rows.values() if re.match(r"^-?\d", cells[index])]
+        places = {len(part.split(".")[1]) if "." in part else 0 for pair in numbers for part in pair}
+        assert len(places) == 1, (index, numbers)
+    for label in ("M1 cutoff ↔ saturation (V)", "M1 saturation ↔ triode (V)", "gain at the bias point (V/V)"):
+        assert " ± " in rows[label][2] and " ± " not in rows[label][0]
+
+
+# --- a capacitor-coupled gate: the gate bias is swept ------------------------------------------
+
+# A bicycle dynamo light's ambient-light amplifier: the photodiode signal reaches the gate only
+# through CIN, the gate bias comes from the RTOP–RBOT divider on the battery.
+DYNAMO_CS = """\
+Bicycle dynamo light: ambient-light amplifier, signal through a capacitor
+VBAT vbat 0 6
+VSIG sig 0 0
+CIN sig g 100n
+RTOP vbat g 470k
+RBOT g 0 150k
+RD vbat d 15k
+M1 d g 0 0 nch w=16u l=2u
+.model nch nmos (level=1 vto=0.6 kp=100u lambda=0.03 gamma=0.35 phi=0.7)
+.op
+.end
+"""
+
+
+def test_a_capacitor_coupled_gate_sweeps_its_divider_bias_in_every_column(tmp_path, session):
+    from bridge.analysis.dcsolve import solve_operating_point
+    from bridge.analysis.hand import hand_analysis
+    from bridge.analysis.sweep import gate_bias_source, sim_sweep_deck
+
+    path = tmp_path / "dynamo.cir"
+    path.write_text(DYNAMO_CS)
+    circuit = read_netlist(path)
+    bias = gate_bias_source(circuit)
+    assert bias is not None and bias.source == "VGATE" and bias.gate == "g"
+    assert (bias.divider, bias.rails, bias.coupling) == (("RTOP", "RBOT"), ("VBAT",), ("CIN",))
+    assert bias.thevenin_voltage == pytest.approx(6.0 * 150 / 620, rel=1e-12)
+    assert bias.thevenin_resistance == pytest.approx(470e3 * 150e3 / 620e3, rel=1e-12)
+    values = sweep_values(0.0, 4.0 * bias.thevenin_voltage, points=5)  # values[1] is the bias value
+    # ngspice gets the same modified circuit: the source at the gate, no divider
+    deck = sim_sweep_deck(bias.circuit, "VGATE", "d", values).text.lower()
+    assert re.search(r"^vgate g 0 ", deck, re.M) and not re.search(r"^r(top|bot) ", deck, re.M)
+    assert re.search(r"^\.dc vgate 0 ", deck, re.M)
+    result = transfer_curve(bias.circuit, "VGATE", "d", values, session, gate_bias=bias)
+    assert result.bias == pytest.approx(bias.thevenin_voltage, rel=1e-12)
+    # At the bias value every column is the netlist's own bias point.
+    assert result.curves["level1"].output[1] == pytest.approx(solve_operating_point(circuit).voltage("d"), abs=1e-9)
+    assert result.curves["hand"].output[1] == pytest.approx(hand_analysis(circuit).node_voltages["d"], abs=1e-9)
+    if session is not None and NGSPICE is not None:
+        # reference: ngspice run directly on the netlist as written (`.op`, 7 digits printed)
+        assert result.curves["sim"].output[1] == pytest.approx(ngspice_batch_op(path)["d"], rel=2e-6)
+
+
+def test_the_command_says_which_source_it_created_and_why(tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("NGSPICE_LIBRARY_PATH", "/nonexistent/libngspice.so")
+    path = tmp_path / "dynamo.cir"
+    path.write_text(DYNAMO_CS)
+    status, out, _ = run([str(path), "--points", "21", "--json"], capsys)
+    document = json.loads(out)
+    assert status == 0 and document["source"] == "VGATE"
+    assert document["gate_bias"]["replaces"] == ["RTOP", "RBOT"] and document["gate_bias"]["coupling"] == ["CIN"]
+    assert document["gain"]["bias"] == pytest.approx(6.0 * 150 / 620, rel=1e-12)
+    status, out, _ = run([str(path), "--points", "21"], capsys)
+    assert "VGATE is a source biasbridge created at M1's gate" in " ".join(out.split())
+    assert "CIN couples the input to it, so the gate bias is swept, not the supply" in " ".join(out.split())
+    # A source named on the command line is swept as it is.
+    status, out, _ = run([str(path), "--points", "21", "--json", "--source", "VBAT"], capsys)
+    document = json.loads(out)
+    assert document["source"] == "VBAT" and document["gate_bias"] is None
+
+
+def test_gates_driven_at_dc_keep_their_own_source():
+    from bridge.analysis.sweep import gate_bias_source
+
+    assert gate_bias_source(parse_netlist(DIVIDER_CS, "divider.cir")) is None  # VIN reaches it through R1
+    no_coupling = DYNAMO_CS.replace("CIN sig g 100n\n", "")
+    assert gate_bias_source(parse_netlist(no_coupling, "plain.cir")) is None
+    assert gate_bias_source(parse_netlist(FOLLOWER, "follower.cir")) is None  # VIN is the gate's node
+    # A capacitor to the drain (Miller) or to the battery couples no input.
+    for capacitor in ("CM d g 10p", "CF vbat g 10n"):
+        assert gate_bias_source(parse_netlist(DYNAMO_CS.replace("CIN sig g 100n", capacitor), "c.cir")) is None
+
+
+# --- the plot ---------------------------------------------------------------------------------
+
+
+def _panels(figure):
+    """The figure's plotting panels (not the secondary top axes that carry the edge ticks)."""
+    return [axes for axes in figure.axes if axes.get_xlabel()]
+
+
+def test_plot_keeps_an_end_bias_point_inside_the_frame_and_labels_hand_and_level1_edges():
+    from bridge.report.plot import plot_figure
+
+    circuit = parse_netlist(DIVIDER_CS, "divider.cir")
+    # The bias point VIN = 2.4 V is the last value of the sweep.
+    result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 2.4, points=49))
+    figure = plot_figure(result)
+    (axes,) = _panels(figure)
+    left, right = axes.get_xlim()
+    assert left < 0.0 and right > 2.4 + 0.02  # the end markers are not cut by the frame
+    labels = {text.get_text() for text in axes.texts}
+    cutoff = result.curves["hand"].edges["M1"].cutoff_saturation
+    assert f"hand {cutoff:.4g} V" in labels
+    assert f"level-1 {result.curves['level1'].edges['M1'].cutoff_saturation:.4g} V" in labels
+    edge_markers = [line for line in axes.lines if line.get_marker() in ("v", "^") and len(line.get_xdata()) == 1]
+    assert edge_markers and min(line.get_markersize() for line in edge_markers) >= 10
+
+
+def test_plot_enlarges_a_small_active_region_in_a_second_panel(tmp_path):
+    from bridge.analysis.sweep import gate_bias_source
+    from bridge.report.plot import active_window, plot_figure, write_plot
+
+    bias = gate_bias_source(parse_netlist(DYNAMO_CS, "dynamo.cir"))
+    result = transfer_curve(bias.circuit, "VGATE", "d", sweep_values(0.0, 6.0, points=121), gate_bias=bias)
+    edges = result.curves["level1"].edges["M1"]
+    assert edges.saturation_triode - edges.cutoff_saturation < 0.25 * 6.0  # a small part of the sweep
+    window = active_window(result)
+    assert window is not None and window[0] < edges.cutoff_saturation and window[1] > edges.saturation_triode
+    whole, detail = _panels(plot_figure(result))
+    assert whole.get_xlim()[1] - whole.get_xlim()[0] > 6.0
+    shown = detail.get_xlim()
+    assert shown[0] < edges.cutoff_saturation and edges.saturation_triode < shown[1] and shown[1] - shown[0] < 3.0
+    png = write_plot(result, tmp_path / "detail.png")
+    assert _png_size(png.read_bytes()) == (800, 800)
+    # A sweep whose active region is a large part of it keeps one panel.
+    wide = transfer_curve(parse_netlist(DIVIDER_CS, "divider.cir"), "VIN", "d", sweep_values(0.0, 5.0, points=51))
+    assert active_window(wide) is None and len(_panels(plot_figure(wide))) == 1

@@ -75,6 +75,8 @@ __all__ = [
     "default_output",
     "default_range",
     "default_source",
+    "GateBias",
+    "gate_bias_source",
     "sweep_values",
     "transfer_curve",
     "with_source_value",
@@ -93,10 +95,34 @@ GAIN_STEP = 1e-4
 # What ngspice is asked for each MOSFET, beside the output node.
 DEVICE_SWEEP_VECTORS = ("vgs", "vds", "von")
 
+# ngspice's edges and gain are refined with further `.dc` runs through the same worker, so they
+# do not depend on the grid: each grid interval where a region changes is swept again in
+# REFINE_INTERVALS steps, then the finer interval where it changes, and so on until that interval
+# is at most EDGE_TARGET of the sweep span (at most REFINE_ROUNDS runs); the gain is read on a
+# `.dc` of 2·2^GAIN_LEVELS steps over ±GAIN_WINDOW of the sweep span around the bias point.
+REFINE_INTERVALS = 64
+REFINE_ROUNDS = 4
+EDGE_TARGET = 1e-5
+REFINED_CROSSINGS = 8  # at most this many crossings per device are refined; the rest keep the grid
+GAIN_WINDOW = 2.0**-8
+GAIN_LEVELS = 6
+
 EDGE_METHODS = {
     "hand": "Brent's method on the hand model between the grid points where the region changes",
     "level1": "Brent's method on the level-1 solution between the grid points where the region changes",
-    "sim": "linear interpolation of ngspice's @m[vgs], @m[vds], @m[von] vectors between sweep points",
+    "sim": (
+        f"the grid interval where the region changes swept again by ngspice in {REFINE_INTERVALS} steps, then "
+        f"the finer interval where it changes, until it is at most {EDGE_TARGET:g} of the sweep; linear "
+        "interpolation of @m[vgs], @m[vds], @m[von] there; ± that interval, inside which the edge lies"
+    ),
+}
+GAIN_METHODS = {
+    "hand": "centred difference on the hand model",
+    "level1": "centred difference on the level-1 solution",
+    "sim": (
+        "centred difference on a fine ngspice .dc around the bias point; ± the difference between the "
+        "estimates at steps h and h/2 (Richardson), or a quarter of the one before when that is larger"
+    ),
 }
 
 
@@ -115,6 +141,7 @@ class Crossing:
     at: float
     before: str
     after: str
+    accuracy: float | None = None  # |at − the true edge| is at most this (None: not stated)
 
 
 @dataclass(frozen=True)
@@ -128,6 +155,10 @@ class RegionEdges:
 
     def get(self, boundary: str) -> float | None:
         return getattr(self, boundary)
+
+    def accuracy(self, boundary: str) -> float | None:
+        """The stated accuracy of the first crossing of `boundary` (None where not stated or never reached)."""
+        return next((c.accuracy for c in self.crossings if c.boundary == boundary), None)
 
 
 @dataclass(frozen=True)
@@ -151,6 +182,7 @@ class Curve:
     gain_at_bias: float | None
     largest_gain: GainPeak | None
     failed_points: int = 0
+    gain_accuracy: float | None = None  # |gain_at_bias − the true slope| is at most this (None: not stated)
 
 
 @dataclass(frozen=True)
@@ -210,6 +242,7 @@ class TransferCurve:
     closed_form: dict[str, ClosedFormEdges] = field(default_factory=dict)
     hand_gain: HandGainFormula | None = None
     findings: tuple[Finding, ...] = ()
+    gate_bias: GateBias | None = None  # the source created at the gate, when the sweep swept one
 
     @property
     def agree(self) -> bool:
@@ -309,6 +342,143 @@ def default_source(circuit: Circuit) -> str:
     supplies = {e.name for node in (drain, source) if node != GROUND for e in reached(node, {gate})}
     preferred = [e for e in candidates if e.name not in supplies]
     return (preferred or candidates)[0].name
+
+
+@dataclass(frozen=True)
+class GateBias:
+    """A capacitor-coupled gate's divider replaced by one swept source at the gate.
+
+    `circuit` is the netlist's circuit with the divider resistors removed and `source` (a voltage
+    source from the gate to ground at the divider's Thevenin voltage) added; the three columns
+    all sweep that circuit.
+    """
+
+    circuit: Circuit
+    source: str
+    gate: str
+    device: str
+    thevenin_voltage: float
+    thevenin_resistance: float
+    divider: tuple[str, ...]  # the resistors replaced
+    rails: tuple[str, ...]  # the voltage sources that fed them
+    coupling: tuple[str, ...]  # the capacitors through which the gate's signal arrives
+
+    def explanation(self) -> str:
+        divider = "–".join(self.divider)
+        coupled = ", ".join(self.coupling)
+        return (
+            f"{self.source} is a source biasbridge created at {self.device}'s gate (node {self.gate}) in place of "
+            f"the divider {divider} (Thevenin {self.thevenin_voltage:.6g} V from {', '.join(self.rails)}, "
+            f"{engineering(self.thevenin_resistance, 'Ω')}): only the divider sets the gate at DC and {coupled} "
+            f"couples the input to it, so the gate bias is swept, not the supply; its bias value is the divider's "
+            f"voltage (--source names any other source to sweep)"
+        )
+
+
+def _held_voltages(circuit: Circuit) -> dict[str, float]:
+    """The DC voltage of every node held by chains of voltage sources from ground."""
+    known = {GROUND: 0.0}
+    pending = list(circuit.elements_of("vsource"))
+    progress = True
+    while progress:
+        progress = False
+        for element in list(pending):
+            plus, minus = element.nodes[0], element.nodes[1]
+            value = float(element.value or 0.0)
+            if minus in known and plus not in known:
+                known[plus] = known[minus] + value
+            elif plus in known and minus not in known:
+                known[minus] = known[plus] - value
+            elif plus not in known:
+                continue
+            pending.remove(element)
+            progress = True
+    return known
+
+
+def gate_bias_source(circuit: Circuit) -> GateBias | None:
+    """The gate bias the designer means, when the (first) MOSFET's gate is fed at DC only by a
+    resistive divider from the supplies and its signal arrives through a capacitor: the circuit
+    with the divider replaced by a voltage source at the gate, at the divider's Thevenin voltage.
+
+    None when the gate is driven otherwise: a source reaches it at DC that does not also feed the
+    drain or source side (that source is the input), no capacitor couples a signal to it, or its
+    DC network is more than resistors from the gate straight to held nodes.
+    """
+    mosfets = circuit.elements_of("mosfet")
+    if not mosfets:
+        return None
+    mosfet = mosfets[0]
+    gate = mosfet.nodes[1]
+    held = _held_voltages(circuit)
+    if gate in held or gate in (mosfet.nodes[0], mosfet.nodes[2], mosfet.nodes[3] if len(mosfet.nodes) > 3 else None):
+        return None
+    try:
+        if default_source(circuit) not in _supplies(circuit, mosfet):
+            return None  # a source of its own reaches the gate at DC: it is the input
+    except SweepInputError:
+        return None
+    supplies = _supplies(circuit, mosfet)
+    supply_nodes = {n for e in circuit.elements_of("vsource") if e.name in supplies for n in e.nodes[:2]} - {GROUND}
+    divider: list[Element] = []
+    coupling: list[Element] = []
+    for element in circuit.elements:
+        if gate not in element.nodes or element is mosfet:
+            continue
+        if element.kind == "resistor" and element.nodes[:2].count(gate) == 1:
+            other = element.nodes[1] if element.nodes[0] == gate else element.nodes[0]
+            value = element.value
+            if other not in held or not isinstance(value, float) or not value > 0.0 or "m" in element.params:
+                return None
+            divider.append(element)
+        elif element.kind == "capacitor":
+            other = element.nodes[1] if element.nodes[0] == gate else element.nodes[0]
+            # A capacitor to ground, to a supply's node or to the transistor itself couples no input.
+            if other not in (GROUND, gate, *mosfet.nodes) and other not in supply_nodes:
+                coupling.append(element)
+        else:
+            return None  # a source, inductor, another device's terminal on the gate: not a plain divider
+    if not divider or not coupling or any(gate in m.nodes for m in mosfets if m is not mosfet):
+        return None
+    conductance = sum(1.0 / float(r.value) for r in divider)  # type: ignore[arg-type]
+    current = sum(held[r.nodes[1] if r.nodes[0] == gate else r.nodes[0]] / float(r.value) for r in divider)  # type: ignore[arg-type]
+    thevenin = current / conductance
+    taken = {e.name.lower() for e in circuit.elements}
+    name = next(n for n in ("VGATE", *(f"VGATE{i}" for i in range(1, 1000))) if n.lower() not in taken)
+    created = Element(name, "vsource", (gate, GROUND), thevenin, mosfet.origin)
+    replaced = {r.name for r in divider}
+    elements = tuple(e for e in circuit.elements if e.name not in replaced) + (created,)
+    rails = tuple(
+        dict.fromkeys(
+            e.name for r in divider for e in circuit.elements_of("vsource")
+            if (set(r.nodes[:2]) - {gate, GROUND}) & set(e.nodes[:2])
+        )
+    )  # fmt: skip
+    return GateBias(
+        replace(circuit, elements=elements), name, gate, mosfet.name, thevenin, 1.0 / conductance,
+        tuple(r.name for r in divider), rails or ("ground",), tuple(c.name for c in coupling),
+    )  # fmt: skip
+
+
+def _supplies(circuit: Circuit, mosfet: Element) -> set[str]:
+    """The voltage sources that hold the drain's or source's side (through resistors), or that hold
+    a node the drain or source sits on."""
+    found: set[str] = set()
+    for node in (mosfet.nodes[0], mosfet.nodes[2]):
+        frontier, seen = [node], {node}
+        while frontier:
+            here = frontier.pop()
+            for element in circuit.elements:
+                if here not in element.nodes[:2] or here == GROUND:
+                    continue
+                if element.kind == "vsource":
+                    found.add(element.name)
+                elif element.kind in ("resistor", "inductor"):
+                    other = element.nodes[1] if element.nodes[0] == here else element.nodes[0]
+                    if other not in seen and other != mosfet.nodes[1]:
+                        seen.add(other)
+                        frontier.append(other)
+    return found
 
 
 def supply_span(circuit: Circuit) -> float:
@@ -792,22 +962,162 @@ def sim_curve(
             findings.append(Finding("warning", "sim-no-device", f"ngspice gave no vgs/vds/von for {name}: "
                                     "its regions and edges are not known"))
             continue
-        vgs, vds, von = (on_grid(result[vector]) for vector in names)
-        element = circuit.element(name)
-        assert element is not None
-        # As simulate_operating_point normalises them: von carries the type's sign; with
-        # vds < 0 the device runs with drain and source swapped.
-        vth = _polarity(circuit, element) * von
-        vov = np.where(vds < 0.0, vgs - vds - vth, vgs - vth)
-        channel = np.abs(vds)
+        vov, channel = _sim_device_drive(circuit, name, *(on_grid(result[vector]) for vector in names))
         regions[name] = _device_regions(vov, channel)
-        edges[name] = _edges(_interpolated_crossings(x, vov, channel, regions[name]))
-    gain = _slope_from_curve(x, output_values, bias)
+        crossings = _interpolated_crossings(x, vov, channel, regions[name])
+        refined, from_grid = _refined_crossings(circuit, session, source, output, name, x, crossings, timeout)
+        edges[name] = _edges(refined)
+        if from_grid:
+            findings.append(Finding("info", "sim-edge-from-grid", f"{from_grid} of {name}'s ngspice edges could "
+                                    "not be refined with a finer .dc: they are the grid's interpolation, ± the grid "
+                                    "step"))  # fmt: skip
+    refined = _refined_sim_gain(circuit, session, source, output, x, bias, timeout)
+    gain, gain_accuracy = refined if refined is not None else (_slope_from_curve(x, output_values, bias), None)
     if gain is None:
         findings.append(Finding("info", "bias-outside-sweep", f"the bias point {source} = {bias:g} is outside the "
                                 "sweep: ngspice's gain there is not read from its curve"))
-    curve = Curve("sim", output_values, regions, edges, EDGE_METHODS["sim"], gain, _largest_gain(x, output_values))
+    elif refined is None:
+        findings.append(Finding("info", "sim-gain-from-grid", "ngspice's gain at the bias point is read from the "
+                                "sweep's own grid (the finer .dc around the bias point failed); its accuracy is "
+                                "not known"))
+    curve = Curve("sim", output_values, regions, edges, EDGE_METHODS["sim"], gain, _largest_gain(x, output_values),
+                  gain_accuracy=gain_accuracy)  # fmt: skip
     return curve, findings
+
+
+def _sim_device_drive(
+    circuit: Circuit, name: str, vgs: np.ndarray, vds: np.ndarray, von: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """VOV and |VDS| (device polarity) from ngspice's @m[vgs], @m[vds], @m[von] vectors."""
+    element = circuit.element(name)
+    assert element is not None
+    # As simulate_operating_point normalises them: von carries the type's sign; with
+    # vds < 0 the device runs with drain and source swapped.
+    vth = _polarity(circuit, element) * np.asarray(von, dtype=float)
+    vgs, vds = np.asarray(vgs, dtype=float), np.asarray(vds, dtype=float)
+    vov = np.where(vds < 0.0, vgs - vds - vth, vgs - vth)
+    return vov, np.abs(vds)
+
+
+def _sim_window(
+    circuit: Circuit, session: NgspiceSession, source: str, output: str, start: float, step: float, intervals: int,
+    timeout: float, with_devices: bool,
+) -> tuple[np.ndarray, dict[str, np.ndarray]] | None:
+    """One further ngspice `.dc` from `start` in `intervals` steps of `step`: its sweep values and
+    vectors (V(output) under the node's name), or None when ngspice gives no such sweep."""
+    grid = start + step * np.arange(intervals + 1)
+    deck = sim_sweep_deck(circuit, source, output, grid, with_devices)
+    wanted = sim_vectors(circuit, output) if with_devices else [f"v({output})"]
+    try:
+        result = session.run(deck, vectors=wanted, timeout=timeout)
+    except SimulatorError:
+        return None
+    names = [output] + wanted[1:]
+    if not all(name in result for name in names):
+        return None
+    vectors = {name: np.asarray(result[name], dtype=float) for name in names}
+    count = min(len(v) for v in vectors.values())
+    if count < 2:
+        return None
+    return start + step * np.arange(count), {name: v[:count] for name, v in vectors.items()}
+
+
+def _refined_crossings(
+    circuit: Circuit, session: NgspiceSession, source: str, output: str, name: str, x: np.ndarray,
+    crossings: Sequence[Crossing], timeout: float,
+) -> tuple[tuple[Crossing, ...], int]:
+    """ngspice's crossings located on finer `.dc` runs inside their grid intervals, each with its
+    accuracy: the width of the last interval in which the region changes (the grid's own interval
+    where a run fails); and how many kept the grid's value."""
+    refined: list[Crossing] = []
+    target = EDGE_TARGET * float(abs(x[-1] - x[0]))
+    unrefined = 0
+    for number, crossing in enumerate(crossings):
+        k = _grid_interval(x, crossing.at)
+        a, b = float(x[k]), float(x[k + 1])
+        located = None
+        if number < REFINED_CROSSINGS:
+            located = _refined_edge(circuit, session, source, output, name, crossing.boundary, a, b, target, timeout)
+            if located is None and len(x) > 2:
+                # An edge on a grid point may be seen one interval over: the two neighbours too.
+                wide = float(x[max(k - 1, 0)]), float(x[min(k + 2, len(x) - 1)])
+                located = _refined_edge(
+                    circuit, session, source, output, name, crossing.boundary, *wide, target, timeout
+                )
+        at, accuracy = located if located is not None else (crossing.at, abs(b - a))
+        refined.append(replace(crossing, at=at, accuracy=accuracy))
+        unrefined += located is None
+    return tuple(refined), unrefined
+
+
+def _grid_interval(x: np.ndarray, at: float) -> int:
+    """k such that `at` lies between x[k] and x[k + 1] (the grid in sweep order)."""
+    direction = 1.0 if x[-1] >= x[0] else -1.0
+    behind = np.nonzero((x - at) * direction <= 0.0)[0]
+    return min(int(behind[-1]) if len(behind) else 0, len(x) - 2)
+
+
+def _refined_edge(
+    circuit: Circuit, session: NgspiceSession, source: str, output: str, name: str, boundary: str,
+    a: float, b: float, target: float, timeout: float,
+) -> tuple[float, float] | None:
+    """Zoom in on one edge: `.dc` runs, each over the interval where the last one saw the region
+    change, until that interval is at most `target` wide (at most REFINE_ROUNDS runs); the edge by
+    linear interpolation in the last, ± that interval's width."""
+    at: float | None = None
+    for _ in range(REFINE_ROUNDS):
+        if at is not None and abs(b - a) <= target:
+            break
+        step = (b - a) / REFINE_INTERVALS
+        if step == 0.0:
+            break
+        window = _sim_window(circuit, session, source, output, a, step, REFINE_INTERVALS, timeout, True)
+        if window is None:
+            return None
+        xs, vectors = window
+        vov, channel = _sim_device_drive(
+            circuit, name, *(vectors[f"@{name.lower()}[{q}]"] for q in DEVICE_SWEEP_VECTORS)
+        )
+        known = np.isfinite(vov) & np.isfinite(channel)
+        side = vov <= 0.0 if boundary == "cutoff_saturation" else (vov > 0.0) & (channel - vov < 0.0)
+        indicator = vov if boundary == "cutoff_saturation" else channel - vov
+        changes = np.nonzero(known[:-1] & known[1:] & (side[:-1] != side[1:]))[0]
+        if not len(changes):
+            return None
+        k = int(changes[0])
+        at = _interpolated_edge(xs, indicator, k)
+        a, b = float(xs[k]), float(xs[k + 1])
+    return None if at is None else (at, abs(b - a))
+
+
+def _refined_sim_gain(
+    circuit: Circuit, session: NgspiceSession, source: str, output: str, x: np.ndarray, bias: float, timeout: float
+) -> tuple[float, float] | None:
+    """ngspice's dVout/dVin at the bias point and its accuracy, from one fine `.dc` around it.
+
+    The run covers bias ± H (H = GAIN_WINDOW of the sweep span) in 2·2^GAIN_LEVELS steps; the
+    centred differences at h = H, H/2, …, H/2^GAIN_LEVELS are read from it. The finest is the
+    gain; its accuracy is the larger of its difference from the one at 2h and a quarter of the
+    difference before (for a smooth curve the error falls fourfold per halving: Richardson).
+    """
+    span = float(abs(x[-1] - x[0])) if len(x) > 1 else 0.0
+    half = GAIN_WINDOW * (span if span > 0.0 else max(abs(bias), 1.0))
+    levels = 2**GAIN_LEVELS
+    step = half / levels
+    window = _sim_window(circuit, session, source, output, bias - half, step, 2 * levels, timeout, False)
+    if window is None or len(window[0]) < 2 * levels + 1:
+        return None
+    y = window[1][output]
+    estimates = []
+    k = levels
+    while k >= 1:
+        estimates.append(float((y[levels + k] - y[levels - k]) / (2.0 * k * step)))
+        k //= 2
+    gain = estimates[-1]
+    accuracy = max(abs(estimates[-1] - estimates[-2]), 0.25 * abs(estimates[-2] - estimates[-3]))
+    if not (math.isfinite(gain) and math.isfinite(accuracy)):
+        return None
+    return gain, accuracy
 
 
 # --- the closed form of the resistor-loaded common source -----------------------------------
@@ -1073,11 +1383,13 @@ def transfer_curve(
     *,
     sim_timeout: float = 10.0,
     unavailable_hint: str | None = None,
+    gate_bias: GateBias | None = None,
 ) -> TransferCurve:
     """Sweep `source` through `values` and follow V(`output`) in the three columns.
 
     Raises SweepInputError for an unknown source or node; a column that cannot be computed is
-    None, with a finding that says why.
+    None, with a finding that says why. With `gate_bias` (from gate_bias_source), `circuit` must
+    be its circuit: the result then says which source was created and why.
     """
     element = independent_source(circuit, source)
     output = output_node(circuit, output)
@@ -1154,4 +1466,5 @@ def transfer_curve(
         closed_form=closed,
         hand_gain=hand_gain,
         findings=tuple(findings),
+        gate_bias=gate_bias,
     )

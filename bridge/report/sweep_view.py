@@ -17,12 +17,41 @@ from rich.table import Table
 from rich.text import Text
 
 from ..analysis.hand import Step
-from ..analysis.sweep import BOUNDARIES, COLUMNS, TransferCurve
+from ..analysis.sweep import BOUNDARIES, COLUMNS, GAIN_METHODS, TransferCurve
 from ..netlist.numbers import engineering
 
 COLUMN_TITLES = {"hand": "hand", "level1": "level-1", "sim": "ngspice"}
 BOUNDARY_TITLES = {"cutoff_saturation": "cutoff ↔ saturation", "saturation_triode": "saturation ↔ triode"}
 SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "info": "dim"}
+# The summary table shows every number of a column with one number of decimals: DECIMALS, or
+# fewer in a column whose stated accuracy does not support them.
+DECIMALS = 4
+_PREFIXES = ((1.0, ""), (1e-3, "m"), (1e-6, "µ"), (1e-9, "n"), (1e-12, "p"))
+
+
+def column_decimals(accuracies: Sequence[float | None]) -> int:
+    """The decimals a column can show: DECIMALS, fewer when its worst stated accuracy exceeds half
+    the last digit."""
+    worst = max((a for a in accuracies if a is not None and math.isfinite(a)), default=0.0)
+    decimals = DECIMALS
+    while decimals > 0 and worst > 0.5 * 10.0**-decimals:
+        decimals -= 1
+    return decimals
+
+
+def shown_accuracy(accuracy: float, decimals: int) -> float:
+    """The ± of a value rounded to `decimals`: its stated accuracy plus the rounding, rounded up to the last digit."""
+    unit = 10.0**-decimals
+    return math.ceil((accuracy + 0.5 * unit) / unit * (1.0 - 1e-12)) * unit
+
+
+def _scale(values: Sequence[float], unit: str) -> tuple[float, str]:
+    """The SI prefix for a row of values in `unit` (volts stay volts from 1 V up to the kV a stage never sees)."""
+    largest = max((abs(v) for v in values if math.isfinite(v)), default=0.0)
+    for factor, prefix in _PREFIXES:
+        if largest >= factor:
+            return factor, f"{prefix}{unit}"
+    return _PREFIXES[-1][0], f"{_PREFIXES[-1][1]}{unit}"
 
 
 def _finite(value: float | None) -> float | None:
@@ -74,6 +103,8 @@ def sweep_renderable(result: TransferCurve, steps: bool = False) -> Group:
     simulator = f"{result.simulator[0]} {result.simulator[1]}" if result.simulator else "no simulator"
     header = Text.assemble((f"{result.file}", "bold"), f": {result.title}\n", _sweep_line(result),
                            f"\nsimulator: {simulator}")  # fmt: skip
+    if result.gate_bias is not None:
+        header.append(f"\n{result.gate_bias.explanation()}", style="yellow")
     curves = result.curves
     x_unit = result.source_unit
     table = Table(title_justify="left")
@@ -84,11 +115,36 @@ def sweep_renderable(result: TransferCurve, steps: bool = False) -> Group:
     def row(label: str, cells: list[Text]) -> None:
         table.add_row(Text(label), *cells)
 
+    x_factor, x_label = _scale([float(v) for v in result.x], x_unit)
+    gain_unit = "V/V" if x_unit == "V" else "V/A"
+    # Each column's decimals: the stated accuracies of its numbers (in the units shown) decide.
+    stated: dict[str, list[float | None]] = {column: [] for column in COLUMNS}
+    for column in COLUMNS:
+        curve = curves[column]
+        if curve is None:
+            continue
+        stated[column].append(curve.gain_accuracy)
+        for edges in curve.edges.values():
+            stated[column] += [
+                (a / x_factor if (a := edges.accuracy(b)) is not None else None) for b in BOUNDARIES
+            ]
+    decimals = {column: column_decimals(stated[column]) for column in COLUMNS}
+
+    def number(column: str, value: float | None, factor: float = 1.0, accuracy: float | None = None) -> Text:
+        if value is None or not math.isfinite(value):
+            return _dim()
+        places = decimals[column]
+        text = f"{value / factor:.{places}f}"
+        if accuracy is not None and math.isfinite(accuracy):
+            text += f" ± {shown_accuracy(accuracy / factor, places):.{places}f}"
+        return Text(text)
+
     reference = result.deviation_reference
     found = [result.deviation.get(c) if c != reference else None for c in COLUMNS]
-    row(f"max |ΔV({result.output})| vs {COLUMN_TITLES.get(reference or '', '—')}",
-        [_quantity(d.volts, "V") if d else _dim() for d in found])  # fmt: skip
-    row(f"  at {result.source} =", [_quantity(d.at, x_unit) if d else _dim() for d in found])
+    row(f"max |ΔV({result.output})| vs {COLUMN_TITLES.get(reference or '', '—')} (mV)",
+        [number(c, d.volts, 1e-3) if d else _dim() for c, d in zip(COLUMNS, found)])  # fmt: skip
+    row(f"  at {result.source} ({x_label})",
+        [number(c, d.at, x_factor) if d else _dim() for c, d in zip(COLUMNS, found)])  # fmt: skip
 
     for device in result.devices:
         table.add_section()
@@ -102,22 +158,30 @@ def sweep_renderable(result: TransferCurve, steps: bool = False) -> Group:
                 elif edges.get(boundary) is None:
                     cells.append(_dim("never"))
                 else:
-                    cells.append(_quantity(edges.get(boundary), x_unit))
-            row(f"{device} {BOUNDARY_TITLES[boundary]}", cells)
+                    cells.append(number(column, edges.get(boundary), x_factor, edges.accuracy(boundary)))
+            row(f"{device} {BOUNDARY_TITLES[boundary]} ({x_label})", cells)
             closed = result.closed_form.get(device)
             if closed is not None:
-                row("  closed form", [_quantity(getattr(closed, boundary), x_unit), Text(""), Text("")])
+                row("  closed form", [number("hand", getattr(closed, boundary), x_factor), Text(""), Text("")])
 
     table.add_section()
-    row("gain at the bias point", [_gain(curves[c].gain_at_bias) if curves[c] else _dim() for c in COLUMNS])
+    row(f"gain at the bias point ({gain_unit})",
+        [number(c, curves[c].gain_at_bias, 1.0, curves[c].gain_accuracy) if curves[c] else _dim()
+         for c in COLUMNS])  # fmt: skip
     if result.hand_gain is not None:
-        row("  hand −gm·(RD ∥ ro)·dVG/dVin", [_gain(result.hand_gain.value), Text(""), Text("")])
+        row("  hand −gm·(RD ∥ ro)·dVG/dVin", [number("hand", result.hand_gain.value), Text(""), Text("")])
     peaks = [curves[c].largest_gain if curves[c] else None for c in COLUMNS]
-    row("largest |gain|", [_gain(p.gain) if p else _dim() for p in peaks])
-    row(f"  at {result.source} =", [_quantity(p.at, x_unit) if p else _dim() for p in peaks])
+    row(f"largest |gain| on the grid ({gain_unit})",
+        [number(c, abs(p.gain)) if p else _dim() for c, p in zip(COLUMNS, peaks)])  # fmt: skip
+    row(f"  at {result.source} ({x_label})",
+        [number(c, p.at, x_factor) if p else _dim() for c, p in zip(COLUMNS, peaks)])  # fmt: skip
 
     parts: list[Any] = [header, table]
     parts += [_dim(f"{COLUMN_TITLES[c]} edges: {curves[c].edge_method}") for c in COLUMNS if curves[c] is not None]
+    parts += [_dim(f"{COLUMN_TITLES[c]} gain: {GAIN_METHODS[c]}") for c in COLUMNS if curves[c] is not None]
+    if any(curves[c] is not None for c in COLUMNS):
+        parts.append(_dim("± is the stated accuracy plus the rounding shown; the largest |gain| is read from the "
+                          "sweep's grid (np.gradient) at a grid point"))  # fmt: skip
     if result.hand_gain is not None:
         gain = result.hand_gain
         ro = "ro = ∞ (λ = 0), so it is −gm·RD·dVG/dVin" if math.isinf(gain.ro) else (
@@ -168,11 +232,17 @@ def _sweep_document(result: TransferCurve) -> dict[str, Any]:
         return {column: (get(curves[column]) if curves[column] is not None else None) for column in COLUMNS}
 
     boundaries: dict[str, Any] = {}
+    edge_accuracy: dict[str, Any] = {}
     regions: dict[str, Any] = {}
     for device in result.devices:
         boundaries[device] = per_column(
             lambda curve, device=device: (
                 {b: _finite(curve.edges[device].get(b)) for b in BOUNDARIES} if device in curve.edges else None
+            )
+        )
+        edge_accuracy[device] = per_column(
+            lambda curve, device=device: (
+                {b: _finite(curve.edges[device].accuracy(b)) for b in BOUNDARIES} if device in curve.edges else None
             )
         )
         regions[device] = per_column(
@@ -182,8 +252,11 @@ def _sweep_document(result: TransferCurve) -> dict[str, Any]:
     gain = {
         "bias": _finite(result.bias),
         **per_column(lambda curve: _finite(curve.gain_at_bias)),
+        "accuracy": per_column(lambda curve: _finite(curve.gain_accuracy)),
+        "methods": per_column(lambda curve: GAIN_METHODS[curve.column]),
         "largest": per_column(
-            lambda curve: {"gain": curve.largest_gain.gain, "at": curve.largest_gain.at} if curve.largest_gain else None
+            lambda curve: {"gain": curve.largest_gain.gain, "magnitude": abs(curve.largest_gain.gain),
+                           "at": curve.largest_gain.at} if curve.largest_gain else None
         ),
         "hand_small_signal": None
         if hand_gain is None
@@ -208,6 +281,7 @@ def _sweep_document(result: TransferCurve) -> dict[str, Any]:
         **{column: (_numbers(curves[column].output) if curves[column] is not None else None) for column in COLUMNS},
         "regions": regions,
         "boundaries": boundaries,
+        "boundary_accuracy": edge_accuracy,
         "edge_methods": per_column(lambda curve: curve.edge_method),
         "closed_form": {
             device: {
@@ -221,6 +295,7 @@ def _sweep_document(result: TransferCurve) -> dict[str, Any]:
             for device, closed in result.closed_form.items()
         },
         "gain": gain,
+        "gate_bias": _gate_bias_document(result),
         "deviation": {
             "reference": result.deviation_reference,
             **{
@@ -237,16 +312,34 @@ def _sweep_document(result: TransferCurve) -> dict[str, Any]:
     }
 
 
+def _gate_bias_document(result: TransferCurve) -> dict[str, Any] | None:
+    """The source created at a capacitor-coupled gate, or None when the netlist's own source was swept."""
+    bias = result.gate_bias
+    if bias is None:
+        return None
+    return {
+        "source": bias.source, "node": bias.gate, "device": bias.device,
+        "thevenin_voltage": bias.thevenin_voltage, "thevenin_resistance": bias.thevenin_resistance,
+        "replaces": list(bias.divider), "rails": list(bias.rails), "coupling": list(bias.coupling),
+        "explanation": bias.explanation(),
+    }  # fmt: skip
+
+
 def _cell(value: float | None) -> str:
     return "" if value is None or not math.isfinite(value) else repr(float(value))
 
 
 def sweep_csv(result: TransferCurve) -> str:
-    """One row per point: x, the three outputs, then each transistor's region in each column."""
+    """One row per point: x, the three outputs, then each transistor's region in each column.
+
+    The header names the swept source, the node, the column and the unit: `VIN (V)`,
+    `V(d) hand (V)`, …, `M1 region ngspice`.
+    """
     curves = result.curves
-    header: list[str] = ["x", *COLUMNS]
+    header: list[str] = [f"{result.source} ({result.source_unit})"]
+    header += [f"V({result.output}) {COLUMN_TITLES[column]} (V)" for column in COLUMNS]
     region_columns: list[tuple[str, str]] = [(device, column) for device in result.devices for column in COLUMNS]
-    header += [f"region_{device}_{column}" for device, column in region_columns]
+    header += [f"{device} region {COLUMN_TITLES[column]}" for device, column in region_columns]
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
     writer.writerow(header)

@@ -4,10 +4,10 @@ Each goal line prints the measurement, the goal and whether it is met; lines wit
 are context. Exit status 1 when a goal is missed.
 
 * a 1001-point level-1 sweep (solve_dc_sweep, each point started from the last) in under 50 ms;
-* the ngspice column costs no more than the same `.dc` run in the worker plus 20 %: "the same
-  `.dc`" is the deck the sweep emits (same `.save` vectors) run through the same worker with
-  nothing done to its answer; "ours" is sim_curve, the run plus everything the sweep extracts
-  (regions, edges, gains).
+* the ngspice column costs no more than the same `.dc` runs in the worker plus 20 %: "the same
+  runs" are the decks the sweep emits (the grid's `.dc` and the finer ones around each edge and
+  the bias point, same `.save` vectors) run through the same worker with nothing done to their
+  answers; "ours" is sim_curve, the runs plus everything the sweep extracts (regions, edges, gains).
 """
 
 from __future__ import annotations
@@ -25,7 +25,7 @@ from run import median_seconds, note  # the shared helpers of tests/bench/run.py
 from run import report as report_goal
 
 from bridge.analysis.dcsolve import solve_dc_sweep
-from bridge.analysis.sweep import sim_curve, sim_sweep_deck, sim_vectors, sweep_values
+from bridge.analysis.sweep import sim_curve, sim_sweep_deck, sweep_values
 from bridge.netlist import parse_netlist
 from bridge.sim.client import NgspiceSession, ngspice_available
 
@@ -76,6 +76,22 @@ def ngspice_batch_seconds(folder: Path, deck_text: str, repeat: int) -> float:
     return median_seconds(batch(full), repeat) - median_seconds(batch(single), repeat)
 
 
+class RecordingSession:
+    """An NgspiceSession that notes every deck sim_curve sends, so the same runs can be timed bare."""
+
+    def __init__(self, session: NgspiceSession) -> None:
+        self.session = session
+        self.runs: list[tuple[object, object]] = []
+
+    @property
+    def version(self) -> str:
+        return self.session.version
+
+    def run(self, deck, vectors=None, timeout: float = 30.0):
+        self.runs.append((deck, vectors))
+        return self.session.run(deck, vectors=vectors, timeout=timeout)
+
+
 def sim_goal() -> bool:
     available, hint = ngspice_available()
     if not available:
@@ -85,14 +101,21 @@ def sim_goal() -> bool:
     values = sweep_values(0.0, 5.0, points=POINTS)
     deck = sim_sweep_deck(circuit, "VIN", "d", values)
     bare = sim_sweep_deck(circuit, "VIN", "d", values, with_devices=False)
-    wanted = sim_vectors(circuit, "d")
     runs = {"ours": [], "same": [], "bare": []}
     with NgspiceSession() as session:
         session.run(deck)  # start the worker
+        recorder = RecordingSession(session)
+        sim_curve(circuit, recorder, "VIN", "d", values, 2.4, ("M1",), 30.0)  # type: ignore[arg-type]
+        sent = list(recorder.runs)
+
+        def same_runs() -> None:
+            for sent_deck, sent_vectors in sent:
+                session.run(sent_deck, vectors=sent_vectors, timeout=30.0)
+
         for _ in range(31):  # interleaved, so that load on the machine hits all three alike
             for name, action in (
                 ("ours", lambda: sim_curve(circuit, session, "VIN", "d", values, 2.4, ("M1",), 30.0)),
-                ("same", lambda: session.run(deck, vectors=wanted, timeout=30.0)),
+                ("same", same_runs),
                 ("bare", lambda: session.run(bare, vectors=["v(d)"], timeout=30.0)),
             ):
                 start = time.perf_counter()
@@ -100,14 +123,14 @@ def sim_goal() -> bool:
                 runs[name].append(time.perf_counter() - start)
     ours, same, bare_seconds = (statistics.median(runs[name]) for name in ("ours", "same", "bare"))
     report(f"ngspice .dc, {POINTS} points, in the worker (V(out) only)", bare_seconds * 1e3, None)
-    report("  the same .dc with vgs, vds, von of M1 saved", same * 1e3, None)
-    report("  the ngspice column (that .dc and our extraction)", ours * 1e3, None)
+    report(f"  the same runs: that .dc with vgs, vds, von of M1 saved and {len(sent) - 1} finer ones", same * 1e3, None)
+    report("  the ngspice column (those runs and our extraction)", ours * 1e3, None)
     if shutil.which("ngspice"):
         with tempfile.TemporaryDirectory() as folder:
             batch = ngspice_batch_seconds(Path(folder), deck.text, 11)
         report("  context: ngspice -b, that .dc printed, minus its start-up", batch * 1e3, None)
     overhead = (ours / same - 1.0) * 100.0
-    return report("ngspice column over the same .dc in the worker", overhead, 20.0, "%")
+    return report("ngspice column over the same runs in the worker", overhead, 20.0, "%")
 
 
 def main() -> int:
