@@ -17,9 +17,14 @@ from .analysis.dcsolve import DcSolveError, OperatingPoint, solve_operating_poin
 from .analysis.hand import HandAnalysisError, HandModel, HandSolution
 from .bias_rules import bias_findings, device_vector_findings, inconsistent_device_vectors, supplies
 from .compare import EFFECTS, CheckResult, Expectations, Finding, compare
-from .netlist.circuit import Circuit, Element, ModelCard
+from .netlist.circuit import Circuit, Directive, Element, ModelCard
 from .sim.client import NgspiceSession, SimulationFailed, SimulatorError, SimulatorTimeout
-from .sim.operating_point import PendingOperatingPoint, SimOperatingPoint, submit_operating_point
+from .sim.operating_point import (
+    PendingOperatingPoint,
+    SimOperatingPoint,
+    simulate_operating_point,
+    submit_operating_point,
+)
 
 
 class NotASingleStage(ValueError):
@@ -248,15 +253,61 @@ class PendingCheck:
         supply_table = supplies(self.circuit, own.hand, own.level1, self._sim)
         rules = bias_findings(self.circuit, own.hand, own.level1, self._sim, supply_table)
         rules += device_vector_findings(self.circuit, self._sim)
-        findings = (*notices, *own.findings, *self.findings, *rules)
-        result = compare(
-            self.circuit, own.hand, own.level1, self._sim,
-            simulator=self._simulator, tolerance=self.tolerance,
-            with_effect=own.with_effect,
-            expect=self.expect, findings=findings,
-        )
-        return replace(result, supplies=supply_table,
-                       findings=_without_disproved(result.findings, self.circuit, own.level1, self._sim))
+        findings_before = (*notices, *own.findings, *self.findings, *rules)
+        def compared(converged: SimOperatingPoint | None = None) -> tuple[CheckResult, tuple[Finding, ...]]:
+            result = compare(
+                self.circuit, own.hand, own.level1, self._sim,
+                simulator=self._simulator, tolerance=self.tolerance,
+                with_effect=own.with_effect,
+                expect=self.expect, findings=findings_before, converged=converged,
+            )
+            return result, _without_disproved(result.findings, self.circuit, own.level1, self._sim)
+
+        result, findings = compared()
+        if own.level1 is not None and self._sim is not None and any(f.code == SOLVER_DIFFERS for f in findings):
+            converged = self._tight_rerun()
+            if converged is not None:
+                at_default = findings
+                result, findings = compared(converged)
+                findings = _with_tolerance_note(at_default, findings, self.circuit)
+        return replace(result, supplies=supply_table, findings=findings)
+
+    def _tight_rerun(self) -> SimOperatingPoint | None:
+        """ngspice's operating point of the same circuit at RELTOL = 1e-6, or None when it fails.
+
+        ngspice stops iterating once every unknown moves by less than RELTOL (default 1e-3, ngspice
+        manual, `.options`), and its device vectors are those of the last iteration: a swapped PMOS's
+        `@m1[id]` was seen 0.22 % from its own branch current at the default, and equal to it (and to
+        the level-1 solver) at RELTOL = 1e-6 (`ngspice -b`). The level-1 column is judged against
+        this re-run; a difference that stays there is reported as before.
+        """
+        assert self.session is not None
+        tight_circuit = replace(self.circuit, directives=(*self.circuit.directives, _TIGHT_OPTIONS))
+        try:
+            return simulate_operating_point(self.session, tight_circuit, timeout=self.sim_timeout)
+        except SimulatorError:
+            return None
+
+
+def _with_tolerance_note(
+    before: tuple[Finding, ...], after: tuple[Finding, ...], circuit: Circuit,
+) -> tuple[Finding, ...]:
+    """`after`, with one note in place of the level-1/ngspice differences that the tight re-run removed."""
+    still = {_differing_quantity(f) for f in after if f.code == SOLVER_DIFFERS}
+    gone = [f for f in before if f.code == SOLVER_DIFFERS and _differing_quantity(f) not in still]
+    if not gone:
+        return after
+    names = ", ".join(_differing_quantity(f) for f in gone)
+    note = Finding(
+        "info", "sim-tolerance",
+        f"{names}: the level-1 solver differs from ngspice beyond 0.2 % at ngspice's RELTOL = "
+        f"{_reltol(circuit):g} and agrees with ngspice re-run at RELTOL = {TIGHT_RELTOL:g}: the difference is "
+        "where ngspice stopped iterating (the ngspice column shows its answer at the netlist's RELTOL)",
+        gone[0].line, gone[0].subject,
+    )
+    # In the place of the first difference it replaces: after what came before it at the default.
+    place = sum(1 for f in before[: before.index(gone[0])] if f in after)
+    return (*after[:place], note, *after[place:])
 
 
 def _without_disproved(
@@ -279,6 +330,21 @@ def _without_disproved(
         f for f in findings
         if not (f.code == "solver-differs" and any(f.message.startswith(prefix) for prefix in disproved))
     )
+
+
+SOLVER_DIFFERS = "solver-differs"
+TIGHT_RELTOL = 1e-6
+_TIGHT_OPTIONS = Directive("options", f".options reltol={TIGHT_RELTOL:g}", None, (("reltol", TIGHT_RELTOL),))
+
+
+def _reltol(circuit: Circuit) -> float:
+    value = circuit.options().get("reltol")
+    return float(value) if isinstance(value, float) else 1e-3  # ngspice's default (manual, .options)
+
+
+def _differing_quantity(finding: Finding) -> str:
+    """The quantity a level-1/ngspice difference is about (`M1 id`, `V(d)`): its message's lead."""
+    return finding.message.split(":", 1)[0]
 
 
 class CheckQueue:

@@ -177,8 +177,12 @@ def compare(
     with_effect: Mapping[str, HandSolution] | None = None,
     expect: Expectations | None = None,
     findings: tuple[Finding, ...] = (),
+    converged: SimOperatingPoint | None = None,
 ) -> CheckResult:
     """Lay the columns side by side and flag what disagrees.
+
+    `converged` is ngspice re-run at a tight RELTOL: when given, the level-1 column is judged
+    against it instead of `sim` (the ngspice column still shows what ngspice answered).
 
     `with_effect[effect]` is the hand model re-solved with that effect switched on (one
     solution per circuit, read by every transistor); `findings`
@@ -196,10 +200,11 @@ def compare(
         hand_v = hand.node_voltages.get(node)
         level1_v = level1.node_voltages.get(node) if level1 else None
         sim_v = sim.node_voltages.get(node) if sim else None
+        solver_v = converged.node_voltages.get(node) if converged else sim_v
         expected = expect.nodes.get(node) if expect else None
         flagged = _flag_columns(
             "V", hand_v, level1_v, sim_v, expected, reference_column, tolerance, found, f"V({node})", None,
-            resolution,
+            resolution, solver_v,
         )
         nodes[node] = Columns(hand_v, level1_v, sim_v, _expect_value(expected), flagged,
                               _compared(hand_v, level1_v, sim_v, expected, reference_column), resolution["V"])
@@ -211,6 +216,7 @@ def compare(
         hand_device = hand.devices.get(element.name)
         level1_device = level1.devices.get(element.name) if level1 else None
         sim_device = sim.devices.get(element.name) if sim else None
+        solver_device = converged.devices.get(element.name) if converged else sim_device
         wanted = (expect.devices.get(element.name.lower(), {}) if expect else {})
         device_resolution = _drain_resolution(element, resolution, reference_voltages)
         quantities: dict[str, Columns] = {}
@@ -221,15 +227,16 @@ def compare(
                 # Like ngspice's @m[id]: the channel current less the bulk-drain junction's.
                 level1_q = level1.drain_terminal_current(element.name)
             sim_q = getattr(sim_device, quantity) if sim_device else None
+            solver_q = getattr(solver_device, quantity) if solver_device else None
             if quantity == "vov":  # vov = vgs − vth in each column, or no value (see _swapped_finding)
-                hand_q, level1_q, sim_q = _summable_overdrive((hand_device, level1_device, sim_device),
-                                                              (hand_q, level1_q, sim_q))
+                hand_q, level1_q, sim_q, solver_q = _summable_overdrive(
+                    (hand_device, level1_device, sim_device, solver_device), (hand_q, level1_q, sim_q, solver_q))
             expected = wanted.get(quantity)
             # The hand model's gds in saturation is 0 by its own assumption (λ = 0): not a finding.
             assumed = quantity == "gds" and hand_device is not None and hand_device.region == "saturation"
             flagged = _flag_columns(
                 UNITS[quantity], None if assumed else hand_q, level1_q, sim_q, expected, reference_column,
-                tolerance, found, f"{element.name} {quantity}", element, device_resolution,
+                tolerance, found, f"{element.name} {quantity}", element, device_resolution, solver_q,
             )
             quantities[quantity] = Columns(
                 hand_q, level1_q, sim_q, _expect_value(expected), flagged,
@@ -339,7 +346,9 @@ def _flag_columns(
     subject: str,
     element,
     resolutions: Mapping[str, float],
+    solver_v: float | None,
 ) -> tuple[str, ...]:
+    """`solver_v`: ngspice's value the level-1 column is judged against (`sim_v`, or a re-run's)."""
     reference = sim_v if reference_column == "sim" else level1_v
     line = element.origin.line if element is not None else None
     name = element.name if element is not None else subject
@@ -358,7 +367,7 @@ def _flag_columns(
             )
         )
     if reference_column == "sim" and _differs(
-        level1_v, sim_v, SOLVER_RELATIVE, max(SOLVER_FLOOR[unit], resolution)
+        level1_v, solver_v, SOLVER_RELATIVE, max(SOLVER_FLOOR[unit], resolution)
     ):
         flagged.append("level1")
         found.append(
