@@ -448,7 +448,9 @@ def _not_amplifying(
         return engineering(columns.get(reference_column), UNITS[quantity], resolution=columns.resolution)
 
     if region == "cutoff":
-        message = (f"{element.name}: {source} puts it in cutoff (vov = {shown('vov')}): no channel current, "
+        vov = quantities["vov"].get(reference_column)
+        overdrive = "" if vov is None else f" (vov = {shown('vov')})"
+        message = (f"{element.name}: {source} puts it in cutoff{overdrive}: no channel current, "
                    f"gm = 0 — {'the stage' if single else 'it'} does not amplify")
     else:
         message = (f"{element.name}: {source} puts it in triode (vds − vov = {shown(SAT_MARGIN)}), not "

@@ -190,6 +190,15 @@ def test_minus_zero_and_atto_are_never_written() -> None:
     assert parse_number(engineering(1.713e-16, "V").split()[0]) == 1.713e-16
 
 
+def test_past_tera_is_a_power_of_ten_not_a_prefix_with_digits_to_spare() -> None:
+    # ngspice has no prefix above T (manual, Table 2.2): a forward-biased junction's 9e69 A
+    # was shown as `9.002e+57 TA`; a carry out of T as `1000 TA`.
+    assert engineering(9.002e69, "A") == "9.002e+69 A"
+    assert engineering(999.96e12, "A") == "1e+15 A"
+    assert engineering(999.4e12, "A") == "999.4 TA"
+    assert parse_number(engineering(9.002e69, "A").split()[0]) == 9.002e69
+
+
 def test_mega_cannot_be_read_as_milli() -> None:
     # SPICE's `M` is milli (manual, Table 2.2): a voltage of 150 MV would read as 150 mV.
     assert engineering(150e6, "V") == "150e6 V"

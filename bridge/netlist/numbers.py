@@ -146,7 +146,8 @@ def engineering(value: float | None, unit: str = "", digits: int = 4, *, resolut
     """`value` in engineering notation with an SI prefix: 1e-3 Ω → `1 mΩ`.
 
     A value within `resolution` of zero (see SOLVER_RESOLUTION), and zero itself, is `0 unit`
-    (never `-0`). Below femto and at mega (but for Ω) the value is written with an exponent.
+    (never `-0`). Below femto, above tera and at mega (but for Ω) the value is written with an
+    exponent.
     """
     if value is None:
         return "—"
@@ -155,16 +156,18 @@ def engineering(value: float | None, unit: str = "", digits: int = 4, *, resolut
     if value == 0 or abs(value) <= resolution:
         return f"0 {unit}".rstrip()
     exponent = math.floor(math.log10(abs(value)) / 3) * 3
-    if exponent > 12:  # clamped to the prefixes there are (if-tests: min and max cost more here)
-        exponent = 12
-    elif exponent < -15:  # below femto: no prefix a SPICE user reads right (no atto in ngspice)
+    if exponent > 12 or exponent < -15:
+        # Past tera or below femto: no prefix a SPICE user reads right (none above T, no atto in
+        # ngspice), so a power of ten instead.
         return f"{_round_half_away(value, digits)} {unit}".rstrip()
     scaled = value / _SCALE_OF[exponent]
     text = _round_half_away(scaled, digits)
     # Rounding may carry into the next decade group (999.96 → 1000), which it can only from 950 up
     # (one significant digit; 949.5 leaves room for the float noise of the scaling); below that
     # the text need not be read back.
-    if exponent < 12 and abs(scaled) >= 949.5 and abs(float(text)) >= 1000:
+    if abs(scaled) >= 949.5 and abs(float(text)) >= 1000:
+        if exponent == 12:
+            return f"{_round_half_away(value, digits)} {unit}".rstrip()
         exponent += 3
         text = _round_half_away(value / _SCALE_OF[exponent], digits)
     if exponent == 6 and unit != "Ω":  # `M` reads as milli in SPICE: mega as a power of ten
