@@ -129,13 +129,15 @@ def _half_away(value: Decimal, digits: int) -> str:
 def _engineering_reference(value: float, unit: str, digits: int) -> str:
     """The notation computed the plain way, in decimal: the value to 12 significant digits, scaled
     exactly, rounded half away from zero, carried when the rounding reaches 1000; an exponent
-    below femto and for mega (but for Ω)."""
+    below femto, past tera and for mega (but for Ω)."""
     decimal = Decimal(f"{value:.11e}")
-    if abs(value) < 1e-15:
+    if abs(value) < 1e-15 or abs(value) >= 1e15:
         return f"{_half_away(decimal, digits)} {unit}".rstrip()
-    exponent = max(-15, min(12, math.floor(math.log10(abs(value)) / 3) * 3))
+    exponent = max(-15, math.floor(math.log10(abs(value)) / 3) * 3)
     text = _half_away(decimal.scaleb(-exponent), digits)
-    if exponent < 12 and abs(float(text)) >= 1000:
+    if abs(float(text)) >= 1000:
+        if exponent == 12:
+            return f"{_half_away(decimal, digits)} {unit}".rstrip()
         exponent += 3
         text = _half_away(decimal.scaleb(-exponent), digits)
     if exponent == 6 and unit != "Ω":
