@@ -17,6 +17,7 @@ from .analysis.dcsolve import DcSolveError, OperatingPoint, solve_operating_poin
 from .analysis.hand import HandAnalysisError, HandModel, HandSolution
 from .compare import EFFECTS, CheckResult, Expectations, Finding, compare
 from .netlist.circuit import Circuit
+from .netlist.source import NOTICE_SEVERITY, notice_in
 from .sim.client import NgspiceSession, SimulationFailed, SimulatorError, SimulatorTimeout
 from .sim.operating_point import PendingOperatingPoint, SimOperatingPoint, submit_operating_point
 
@@ -213,7 +214,8 @@ class PendingCheck:
         self.collect()
         own = self.own
         assert own is not None
-        notices = [Finding("info", n.code, n.message, n.line, None) for n in self.circuit.notices]
+        notices = [Finding(NOTICE_SEVERITY, n.code, *notice_in(n, self.circuit.source_file), None)
+                   for n in self.circuit.notices]
         findings = (*notices, *own.findings, *self.findings)
         return compare(
             self.circuit, own.hand, own.level1, self._sim,
