@@ -22,7 +22,7 @@ from multiprocessing.connection import Connection
 from .check import NotASingleStage, OwnColumns, solve_own_columns
 from .compare import Expectations
 from .expect import check_against_circuit
-from .netlist import NetlistError, read_netlist
+from .netlist import Location, NetlistError, read_netlist
 from .netlist.circuit import Circuit
 from .netlist.parser import load_grammar
 
@@ -38,7 +38,22 @@ class Prepared:
     own: OwnColumns
 
 
-def prepare(path: str, expectations: Expectations | None) -> Prepared | str:
+@dataclass(frozen=True)
+class Unusable:
+    """A netlist that cannot be checked: the file as given, the message and where it points
+    (in that file or one it includes), and the located text printed for it."""
+
+    file: str
+    message: str
+    location: Location
+    rendered: str  # ``FILE:LINE:COL: message``, then the line and a caret where that helps
+
+    @classmethod
+    def from_error(cls, file: str, exc: NetlistError) -> Unusable:
+        return cls(file, exc.message, exc.location, exc.render())
+
+
+def prepare(path: str, expectations: Expectations | None) -> Prepared | Unusable:
     """Read `path` and solve its own columns; a netlist that cannot be checked gives its
     located message (``FILE:LINE:COL: ...``) instead."""
     try:
@@ -47,9 +62,9 @@ def prepare(path: str, expectations: Expectations | None) -> Prepared | str:
             check_against_circuit(expectations, set(circuit.nodes()), {e.name.lower() for e in circuit.elements})
         return Prepared(circuit, solve_own_columns(circuit))
     except NetlistError as exc:
-        return exc.render()
+        return Unusable.from_error(path, exc)
     except NotASingleStage as exc:
-        return f"{path}:1:1: {exc}"
+        return Unusable.from_error(path, NetlistError(str(exc), Location(path, 1, 1)))
 
 
 def worth_a_helper(count: int) -> bool:
@@ -84,11 +99,11 @@ class Preparation:
         self._from_helper: Connection | None = None
         self._back = len(self.paths)  # from here on, the files are this process's
         self._shared_back = RawValue("l", self._back)
-        self._kept: dict[int, Prepared | str] = {}
+        self._kept: dict[int, Prepared | Unusable] = {}
         if helper and len(self.paths) > 1:
             self._fork()
 
-    def __iter__(self) -> Iterator[Prepared | str]:
+    def __iter__(self) -> Iterator[Prepared | Unusable]:
         try:
             for index in range(len(self.paths)):
                 yield self._item(index)
@@ -107,7 +122,7 @@ class Preparation:
                 os.waitpid(self.helper_pid, 0)
             self.helper_pid = None
 
-    def _item(self, index: int) -> Prepared | str:
+    def _item(self, index: int) -> Prepared | Unusable:
         while index < self._back and self._from_helper is not None:
             if not self._from_helper.poll() and self._back - 1 > index:
                 self._take_from_back()  # the helper is on `index`: the last free file is done here
@@ -125,13 +140,13 @@ class Preparation:
         self._kept[self._back] = prepare(self.paths[self._back], self.expectations)
         self.taken_here += 1
 
-    def _receive(self) -> tuple[int, Prepared | str] | None:
+    def _receive(self) -> tuple[int, Prepared | Unusable] | None:
         """The helper's next (index, item), or None when the helper is gone (then stopped)."""
         assert self._from_helper is not None
         try:
             received = self._from_helper.recv()
             index, item = received
-            if not isinstance(index, int) or not isinstance(item, (Prepared, str)):
+            if not isinstance(index, int) or not isinstance(item, (Prepared, Unusable)):
                 raise TypeError(type(item).__name__)
         except Exception:  # gone (EOFError, OSError) or an answer that cannot be read
             self.close()

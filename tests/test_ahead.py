@@ -16,7 +16,7 @@ from pathlib import Path
 import pytest
 from conftest import EXAMPLES
 
-from bridge.ahead import AHEAD_FROM, Preparation, Prepared, prepare, worth_a_helper
+from bridge.ahead import AHEAD_FROM, Preparation, Prepared, Unusable, prepare, worth_a_helper
 from bridge.cli import main
 from bridge.sim.client import NgspiceSession, ngspice_available
 
@@ -42,9 +42,12 @@ def test_prepare_gives_the_circuit_and_its_columns_or_the_located_message(tmp_pa
     ready = prepare(paths[0], None)
     assert isinstance(ready, Prepared) and ready.own.hand.devices and ready.own.level1 is not None
     bad = prepare(str(tmp_path / "bad.cir"), None)
-    assert isinstance(bad, str) and bad.startswith(f"{tmp_path / 'bad.cir'}:2:")
+    assert isinstance(bad, Unusable) and bad.rendered.startswith(f"{tmp_path / 'bad.cir'}:2:")
+    assert (bad.file, bad.location.line, bad.location.column) == (str(tmp_path / "bad.cir"), 2, 11)
     plain = prepare(str(tmp_path / "no_mosfet.cir"), None)
-    assert plain == f"{tmp_path / 'no_mosfet.cir'}:1:1: the netlist has no MOSFET: biasbridge checks MOSFET bias points"
+    assert plain.rendered == (
+        f"{tmp_path / 'no_mosfet.cir'}:1:1: the netlist has no MOSFET: biasbridge checks MOSFET bias points"
+    )
 
 
 def test_the_helper_delivers_what_preparing_here_gives_in_the_same_order(tmp_path):
@@ -128,5 +131,5 @@ def test_a_many_file_check_prints_what_checking_each_file_alone_prints(tmp_path,
     assert status == 2
     assert captured.out == "".join(alone_out)
     assert captured.err == "".join(alone_err)
-    assert [json.loads(line)["file"] for line in captured.out.splitlines()] == [
-        path for path in paths if path.endswith(tuple(p.name for p in BUNDLED))]
+    # One line per file, in the order given: the unusable ones as {"file", "error"} objects.
+    assert [json.loads(line)["file"] for line in captured.out.splitlines()] == paths

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import json
 import os
 import subprocess
 import sys
@@ -158,3 +159,41 @@ def test_no_traceback_from_the_installed_command(tmp_path):
     assert completed.stderr.startswith(f"{path}:2:")
     assert "Traceback" not in completed.stderr
     assert Path(path).read_text() == "t\nR1 a 0 {1+\n"
+
+
+@pytest.mark.parametrize("verb", ["parse", "check"])
+def test_json_has_one_object_per_file_unusable_ones_included_in_order(tmp_path, capsys, monkeypatch, verb):
+    # A bicycle dynamo light's regulator stage, a card that is no number, a missing file, and an
+    # include whose own card is wrong: every file gets its JSON line, in the order given.
+    monkeypatch.chdir(tmp_path)
+    good = "dynamo light regulator\nVDD vdd 0 6\nRD vdd d 1k\nVG g 0 2\nM1 d g 0 0 nch W=10u L=1u\n"
+    (tmp_path / "lamp.cir").write_text(good + ".model nch nmos (vto=0.9 kp=80u)\n.op\n.end\n")
+    (tmp_path / "bad.cir").write_text("dynamo light, bad value\nR1 a 0 1.2.3k\n.end\n")
+    (tmp_path / "models.inc").write_text("* dynamo models\n.model nch nmos (vto=0.9 kp=8x0u)\n")
+    (tmp_path / "via_include.cir").write_text(good + ".include models.inc\n.op\n.end\n")
+    files = ["lamp.cir", "bad.cir", "missing.cir", "via_include.cir", "lamp.cir"]
+    status = main([verb, "--json", *files])
+    out, err = capsys.readouterr()
+    assert status == 2
+    objects = [json.loads(line) for line in out.splitlines()]
+    assert [o["file"] for o in objects] == files
+    assert "error" not in objects[0] and "error" not in objects[4]
+    errors = [o["error"] for o in objects[1:4]]
+    assert [(e["file"], e["line"], e["column"]) for e in errors] == [
+        ("bad.cir", 2, 11), ("missing.cir", 1, 1), ("models.inc", 2, 31),
+    ]
+    assert errors[0]["message"] == "`1.2.3k` is not a number (unexpected `.` after `1.2`)"
+    assert errors[1]["message"].startswith("cannot read")
+    # The located messages still go to stderr, one per unusable file, in the same order.
+    located = [line for line in err.splitlines() if line and not line.startswith((" ", "biasbridge:"))]
+    assert [line.split(":", 1)[0] for line in located] == ["bad.cir", "missing.cir", "models.inc"]
+
+
+def test_sweep_json_gives_the_error_object_of_an_unusable_file(tmp_path, capsys):
+    path = tmp_path / "bad.cir"
+    path.write_text("dynamo light, bad value\nR1 a 0 1.2.3k\n.end\n")
+    assert main(["sweep", "--json", str(path)]) == 2
+    out, err = capsys.readouterr()
+    assert json.loads(out) == {"file": str(path), "error": {
+        "message": "`1.2.3k` is not a number (unexpected `.` after `1.2`)", "file": str(path), "line": 2, "column": 11}}
+    assert err.startswith(f"{path}:2:11: ")

@@ -107,6 +107,7 @@ def circuit_renderable(circuit: Circuit) -> Group:
 def circuit_json(circuit: Circuit) -> dict[str, Any]:
     """The `parse --json` object."""
     return {
+        "file": circuit.source_file,
         "title": circuit.title,
         "elements": [
             {
