@@ -14,10 +14,12 @@ from __future__ import annotations
 import contextlib
 import os
 import signal
-from collections.abc import Iterator, Sequence
+import threading
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from multiprocessing import Pipe, RawValue
 from multiprocessing.connection import Connection
+from typing import TypeVar
 
 from .check import NotASingleStage, OwnColumns, solve_own_columns
 from .compare import Expectations
@@ -100,15 +102,26 @@ class Preparation:
         self._back = len(self.paths)  # from here on, the files are this process's
         self._shared_back = RawValue("l", self._back)
         self._kept: dict[int, Prepared | Unusable] = {}
+        self._next = 0  # the index of the next item the iteration hands out
         if helper and len(self.paths) > 1:
             self._fork()
 
     def __iter__(self) -> Iterator[Prepared | Unusable]:
         try:
             for index in range(len(self.paths)):
+                self._next = index
                 yield self._item(index)
+            self._next = len(self.paths)
         finally:
             self.close()
+
+    def at_hand(self) -> bool:
+        """Whether the next item comes without a file prepared here or a wait for the helper
+        (so without a wait that a slow netlist could make long)."""
+        index = self._next
+        if index >= len(self.paths) or index >= self._back:
+            return True
+        return self._from_helper is not None and self._from_helper.poll()
 
     def close(self) -> None:
         """Stop the helper (if it still runs) and reap it."""
@@ -178,3 +191,31 @@ class Preparation:
         sending.close()
         self.helper_pid = pid
         self._from_helper = receiving
+
+
+T = TypeVar("T")
+
+
+def next_meanwhile(items: Iterator[T], meanwhile: Callable[[], None], every: float = 0.01) -> T | None:
+    """The next of `items` (None at the end), taken in a thread of its own while this thread runs
+    `meanwhile` every `every` seconds: so that what is ready is reported while a slow netlist is
+    read or solved. Only the thread taken from `items` may touch what it uses meanwhile; an
+    exception it raises is raised here."""
+    taken: list[T | None] = []
+    failed: list[BaseException] = []
+
+    def take() -> None:
+        try:
+            taken.append(next(items, None))
+        except BaseException as exc:  # noqa: BLE001 - raised again in the caller's thread
+            failed.append(exc)
+
+    # A daemon: an interrupted check does not wait at exit for a netlist still being read.
+    thread = threading.Thread(target=take, name="biasbridge-prepare", daemon=True)
+    thread.start()
+    while thread.is_alive():
+        meanwhile()
+        thread.join(every)
+    if failed:
+        raise failed[0]
+    return taken[0]

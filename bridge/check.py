@@ -267,6 +267,16 @@ class CheckQueue:
             else:
                 return
 
+    def answered(self) -> Iterator[object]:
+        """The items at the front that can be handed back without waiting for ngspice, the last
+        one too: for when the next check will be a while in coming (a slow netlist being read)."""
+        while self._items:
+            self._send()
+            head = self._items[0]
+            if isinstance(head, PendingCheck) and not head.answered:
+                return
+            yield self._take()
+
     def rest(self) -> Iterator[object]:
         """Every item left, in order, waiting for ngspice where need be."""
         while self._items:

@@ -108,7 +108,7 @@ def command_check(args: argparse.Namespace) -> int:
     session = NgspiceSession() if available else None
     if session is not None:
         session.spawn()  # ngspice starts up while the analyses are imported and the netlists read
-    from .ahead import Preparation, Prepared, Unusable, worth_a_helper
+    from .ahead import Preparation, Prepared, Unusable, next_meanwhile, worth_a_helper
     from .expect import read_expectations
     from .netlist import NetlistError
 
@@ -164,9 +164,23 @@ def command_check(args: argparse.Namespace) -> int:
         if progress is not None:
             progress.advance(task)
 
+    def report_answered() -> None:
+        for done in queue.answered():
+            report(done)
+
+    # On a terminal, a result is shown as soon as it is complete: while the next netlist is read
+    # and solved (a slow one, say), what ngspice has answered is reported in between. Otherwise
+    # the next netlist is prepared first and the result reported after it, in the same order.
+    at_once = console.is_terminal
+    items = iter(prepared)
     try:
         # Started in order and reported in order; see CheckQueue for how ngspice is kept busy.
-        for ready in prepared:
+        while True:
+            ready = (
+                next_meanwhile(items, report_answered) if at_once and not prepared.at_hand() else next(items, None)
+            )
+            if ready is None:
+                break
             item: object = ready
             if isinstance(ready, Prepared):
                 item = start_check(
