@@ -187,3 +187,17 @@ def test_engineering_notation_rounds_and_carries_as_the_plain_computation() -> N
         for digits in (1, 2, 3, 4, 6):
             for unit in ("V", ""):
                 assert engineering(value, unit, digits) == _engineering_reference(value, unit, digits), (value, digits)
+
+
+@needs_ngspice
+def test_latin1_micro_byte_is_micro_to_ngspice_and_refused_here(tmp_path) -> None:
+    # reference: ngspice 39 (`ngspice -b`) reads the lone byte 0xB5 after a number as micro, and
+    # stops with "UTF-8 syntax error" on other bytes that are not UTF-8 (0x80, 0xE9, 0xFF, ...).
+    # Decoded, every such byte is U+FFFD: which one it was is lost, so the number is refused.
+    from bridge.netlist import NetlistError, read_netlist
+
+    deck = tmp_path / "latin1.cir"
+    deck.write_bytes(b"latin-1 micro\nI1 0 a 1\nR1 a 0 3\xb5\n.op\n.end\n")
+    assert ngspice_batch_op(deck)["a"] == pytest.approx(3e-6)
+    with pytest.raises(NetlistError, match="not UTF-8"):
+        read_netlist(deck)
