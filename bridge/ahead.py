@@ -14,15 +14,17 @@ from __future__ import annotations
 import contextlib
 import os
 import signal
-from collections.abc import Iterator, Sequence
+import threading
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from multiprocessing import Pipe, RawValue
 from multiprocessing.connection import Connection
+from typing import TypeVar
 
 from .check import NotASingleStage, OwnColumns, solve_own_columns
 from .compare import Expectations
 from .expect import check_against_circuit
-from .netlist import NetlistError, read_netlist
+from .netlist import Location, NetlistError, read_netlist
 from .netlist.circuit import Circuit
 from .netlist.parser import load_grammar
 
@@ -38,7 +40,22 @@ class Prepared:
     own: OwnColumns
 
 
-def prepare(path: str, expectations: Expectations | None) -> Prepared | str:
+@dataclass(frozen=True)
+class Unusable:
+    """A netlist that cannot be checked: the file as given, the message and where it points
+    (in that file or one it includes), and the located text printed for it."""
+
+    file: str
+    message: str
+    location: Location
+    rendered: str  # ``FILE:LINE:COL: message``, then the line and a caret where that helps
+
+    @classmethod
+    def from_error(cls, file: str, exc: NetlistError) -> Unusable:
+        return cls(file, exc.message, exc.location, exc.render())
+
+
+def prepare(path: str, expectations: Expectations | None) -> Prepared | Unusable:
     """Read `path` and solve its own columns; a netlist that cannot be checked gives its
     located message (``FILE:LINE:COL: ...``) instead."""
     try:
@@ -47,9 +64,9 @@ def prepare(path: str, expectations: Expectations | None) -> Prepared | str:
             check_against_circuit(expectations, set(circuit.nodes()), {e.name.lower() for e in circuit.elements})
         return Prepared(circuit, solve_own_columns(circuit))
     except NetlistError as exc:
-        return exc.render()
+        return Unusable.from_error(path, exc)
     except NotASingleStage as exc:
-        return f"{path}:1:1: {exc}"
+        return Unusable.from_error(path, NetlistError(str(exc), Location(path, 1, 1)))
 
 
 def worth_a_helper(count: int) -> bool:
@@ -84,16 +101,27 @@ class Preparation:
         self._from_helper: Connection | None = None
         self._back = len(self.paths)  # from here on, the files are this process's
         self._shared_back = RawValue("l", self._back)
-        self._kept: dict[int, Prepared | str] = {}
+        self._kept: dict[int, Prepared | Unusable] = {}
+        self._next = 0  # the index of the next item the iteration hands out
         if helper and len(self.paths) > 1:
             self._fork()
 
-    def __iter__(self) -> Iterator[Prepared | str]:
+    def __iter__(self) -> Iterator[Prepared | Unusable]:
         try:
             for index in range(len(self.paths)):
+                self._next = index
                 yield self._item(index)
+            self._next = len(self.paths)
         finally:
             self.close()
+
+    def at_hand(self) -> bool:
+        """Whether the next item comes without a file prepared here or a wait for the helper
+        (so without a wait that a slow netlist could make long)."""
+        index = self._next
+        if index >= len(self.paths) or index >= self._back:
+            return True
+        return self._from_helper is not None and self._from_helper.poll()
 
     def close(self) -> None:
         """Stop the helper (if it still runs) and reap it."""
@@ -107,7 +135,7 @@ class Preparation:
                 os.waitpid(self.helper_pid, 0)
             self.helper_pid = None
 
-    def _item(self, index: int) -> Prepared | str:
+    def _item(self, index: int) -> Prepared | Unusable:
         while index < self._back and self._from_helper is not None:
             if not self._from_helper.poll() and self._back - 1 > index:
                 self._take_from_back()  # the helper is on `index`: the last free file is done here
@@ -125,13 +153,13 @@ class Preparation:
         self._kept[self._back] = prepare(self.paths[self._back], self.expectations)
         self.taken_here += 1
 
-    def _receive(self) -> tuple[int, Prepared | str] | None:
+    def _receive(self) -> tuple[int, Prepared | Unusable] | None:
         """The helper's next (index, item), or None when the helper is gone (then stopped)."""
         assert self._from_helper is not None
         try:
             received = self._from_helper.recv()
             index, item = received
-            if not isinstance(index, int) or not isinstance(item, (Prepared, str)):
+            if not isinstance(index, int) or not isinstance(item, (Prepared, Unusable)):
                 raise TypeError(type(item).__name__)
         except Exception:  # gone (EOFError, OSError) or an answer that cannot be read
             self.close()
@@ -163,3 +191,31 @@ class Preparation:
         sending.close()
         self.helper_pid = pid
         self._from_helper = receiving
+
+
+T = TypeVar("T")
+
+
+def next_meanwhile(items: Iterator[T], meanwhile: Callable[[], None], every: float = 0.01) -> T | None:
+    """The next of `items` (None at the end), taken in a thread of its own while this thread runs
+    `meanwhile` every `every` seconds: so that what is ready is reported while a slow netlist is
+    read or solved. Only the thread taken from `items` may touch what it uses meanwhile; an
+    exception it raises is raised here."""
+    taken: list[T | None] = []
+    failed: list[BaseException] = []
+
+    def take() -> None:
+        try:
+            taken.append(next(items, None))
+        except BaseException as exc:  # noqa: BLE001 - raised again in the caller's thread
+            failed.append(exc)
+
+    # A daemon: an interrupted check does not wait at exit for a netlist still being read.
+    thread = threading.Thread(target=take, name="biasbridge-prepare", daemon=True)
+    thread.start()
+    while thread.is_alive():
+        meanwhile()
+        thread.join(every)
+    if failed:
+        raise failed[0]
+    return taken[0]

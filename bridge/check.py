@@ -18,6 +18,7 @@ from .analysis.hand import HandAnalysisError, HandModel, HandSolution
 from .bias_rules import bias_findings, device_vector_findings, inconsistent_device_vectors, supplies
 from .compare import EFFECTS, CheckResult, Expectations, Finding, compare
 from .netlist.circuit import Circuit, Directive, Element, ModelCard
+from .netlist.source import NOTICE_SEVERITY, notice_in
 from .sim.client import NgspiceSession, SimulationFailed, SimulatorError, SimulatorTimeout
 from .sim.operating_point import (
     PendingOperatingPoint,
@@ -249,11 +250,13 @@ class PendingCheck:
         self.collect()
         own = self.own
         assert own is not None
-        notices = [Finding("info", n.code, n.message, n.line, None) for n in self.circuit.notices]
+        notices = [Finding(NOTICE_SEVERITY, n.code, *notice_in(n, self.circuit.source_file), None)
+                   for n in self.circuit.notices]
         supply_table = supplies(self.circuit, own.hand, own.level1, self._sim)
         rules = bias_findings(self.circuit, own.hand, own.level1, self._sim, supply_table)
         rules += device_vector_findings(self.circuit, self._sim)
         findings_before = (*notices, *own.findings, *self.findings, *rules)
+
         def compared(converged: SimOperatingPoint | None = None) -> tuple[CheckResult, tuple[Finding, ...]]:
             result = compare(
                 self.circuit, own.hand, own.level1, self._sim,
@@ -388,6 +391,16 @@ class CheckQueue:
                 yield self._take()
             else:
                 return
+
+    def answered(self) -> Iterator[object]:
+        """The items at the front that can be handed back without waiting for ngspice, the last
+        one too: for when the next check will be a while in coming (a slow netlist being read)."""
+        while self._items:
+            self._send()
+            head = self._items[0]
+            if isinstance(head, PendingCheck) and not head.answered:
+                return
+            yield self._take()
 
     def rest(self) -> Iterator[object]:
         """Every item left, in order, waiting for ngspice where need be."""

@@ -23,6 +23,8 @@ from . import __version__
 if TYPE_CHECKING:
     from rich.console import Console
 
+    from .netlist import Location
+
 EXIT_OK, EXIT_FINDINGS, EXIT_INPUT = 0, 1, 2
 DEMO_NETLIST = "cs_divider.cir"
 SWEEP_NEGATIVE_VALUE = re.compile(r"^-\.?\d")
@@ -53,6 +55,14 @@ def example_path(name: str) -> Path:
     return Path(__file__).resolve().parents[1] / "netlists" / name
 
 
+def unusable_json(file: str, message: str, location: Location) -> dict[str, object]:
+    """The JSON line of a netlist that cannot be used (`--json`), in its place among the others:
+    the file as given, and the message with the place it points at (in that file or in one it
+    includes)."""
+    error = {"message": message, "file": location.file, "line": location.line, "column": location.column}
+    return {"file": file, "error": error}
+
+
 def command_parse(args: argparse.Namespace) -> int:
     from .netlist import NetlistError, read_netlist
     from .report.circuit_view import circuit_json, circuit_renderable
@@ -63,6 +73,8 @@ def command_parse(args: argparse.Namespace) -> int:
             circuit = read_netlist(path)
         except NetlistError as exc:
             print(exc.render(), file=sys.stderr)
+            if args.json:
+                sys.stdout.write(json.dumps(unusable_json(path, exc.message, exc.location)) + "\n")
             status = EXIT_INPUT
             continue
         if args.json:
@@ -99,7 +111,7 @@ def command_check(args: argparse.Namespace) -> int:
     session = NgspiceSession() if available else None
     if session is not None:
         session.spawn()  # ngspice starts up while the analyses are imported and the netlists read
-    from .ahead import Preparation, Prepared, worth_a_helper
+    from .ahead import Preparation, Prepared, Unusable, next_meanwhile, worth_a_helper
     from .expect import read_expectations
     from .netlist import NetlistError
 
@@ -134,15 +146,17 @@ def command_check(args: argparse.Namespace) -> int:
 
     def report(item: object) -> None:
         nonlocal status
-        if isinstance(item, str):  # a netlist that could not be checked
-            print(item, file=sys.stderr)
+        if isinstance(item, Unusable):  # a netlist that could not be checked
+            print(item.rendered, file=sys.stderr)
+            if args.json:
+                sys.stdout.write(json.dumps(unusable_json(item.file, item.message, item.location)) + "\n")
             status = EXIT_INPUT
             return
         assert isinstance(item, PendingCheck)
         try:
             result = item.finish()
         except NetlistError as exc:
-            report(exc.render())
+            report(Unusable.from_error(item.circuit.source_file, exc))
             return
         if args.json:
             sys.stdout.write(json.dumps(check_json(result), allow_nan=False) + "\n")
@@ -154,9 +168,23 @@ def command_check(args: argparse.Namespace) -> int:
         if progress is not None:
             progress.advance(task)
 
+    def report_answered() -> None:
+        for done in queue.answered():
+            report(done)
+
+    # On a terminal, a result is shown as soon as it is complete: while the next netlist is read
+    # and solved (a slow one, say), what ngspice has answered is reported in between. Otherwise
+    # the next netlist is prepared first and the result reported after it, in the same order.
+    at_once = console.is_terminal
+    items = iter(prepared)
     try:
         # Started in order and reported in order; see CheckQueue for how ngspice is kept busy.
-        for ready in prepared:
+        while True:
+            ready = (
+                next_meanwhile(items, report_answered) if at_once and not prepared.at_hand() else next(items, None)
+            )
+            if ready is None:
+                break
             item: object = ready
             if isinstance(ready, Prepared):
                 item = start_check(
@@ -250,6 +278,8 @@ def command_sweep(args: argparse.Namespace) -> int:
         circuit = read_netlist(args.file)
     except NetlistError as exc:
         print(exc.render(), file=sys.stderr)
+        if args.json:
+            sys.stdout.write(json.dumps(unusable_json(args.file, exc.message, exc.location)) + "\n")
         return EXIT_INPUT
     inputs = {os.path.realpath(args.file)} | {
         os.path.realpath(element.origin.file) for element in circuit.elements if element.origin.file

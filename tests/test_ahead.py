@@ -9,14 +9,20 @@ from __future__ import annotations
 
 import json
 import os
+import pty
+import re
+import select
 import signal
+import subprocess
+import sys
 import threading
+import time
 from pathlib import Path
 
 import pytest
 from conftest import EXAMPLES
 
-from bridge.ahead import AHEAD_FROM, Preparation, Prepared, prepare, worth_a_helper
+from bridge.ahead import AHEAD_FROM, Preparation, Prepared, Unusable, next_meanwhile, prepare, worth_a_helper
 from bridge.cli import main
 from bridge.sim.client import NgspiceSession, ngspice_available
 
@@ -42,9 +48,12 @@ def test_prepare_gives_the_circuit_and_its_columns_or_the_located_message(tmp_pa
     ready = prepare(paths[0], None)
     assert isinstance(ready, Prepared) and ready.own.hand.devices and ready.own.level1 is not None
     bad = prepare(str(tmp_path / "bad.cir"), None)
-    assert isinstance(bad, str) and bad.startswith(f"{tmp_path / 'bad.cir'}:2:")
+    assert isinstance(bad, Unusable) and bad.rendered.startswith(f"{tmp_path / 'bad.cir'}:2:")
+    assert (bad.file, bad.location.line, bad.location.column) == (str(tmp_path / "bad.cir"), 2, 11)
     plain = prepare(str(tmp_path / "no_mosfet.cir"), None)
-    assert plain == f"{tmp_path / 'no_mosfet.cir'}:1:1: the netlist has no MOSFET: biasbridge checks MOSFET bias points"
+    assert plain.rendered == (
+        f"{tmp_path / 'no_mosfet.cir'}:1:1: the netlist has no MOSFET: biasbridge checks MOSFET bias points"
+    )
 
 
 def test_the_helper_delivers_what_preparing_here_gives_in_the_same_order(tmp_path):
@@ -128,5 +137,87 @@ def test_a_many_file_check_prints_what_checking_each_file_alone_prints(tmp_path,
     assert status == 2
     assert captured.out == "".join(alone_out)
     assert captured.err == "".join(alone_err)
-    assert [json.loads(line)["file"] for line in captured.out.splitlines()] == [
-        path for path in paths if path.endswith(tuple(p.name for p in BUNDLED))]
+    # One line per file, in the order given: the unusable ones as {"file", "error"} objects.
+    assert [json.loads(line)["file"] for line in captured.out.splitlines()] == paths
+
+
+DYNAMO_LIGHT = (
+    "bicycle dynamo light: NMOS lamp driver, divider bias\nVDD vdd 0 6\nRG1 vdd g 200k\nRG2 g 0 100k\n"
+    "RD vdd d 2.2k\nM1 d g 0 0 nch W=20u L=2u\n.model nch nmos (vto=0.9 kp=100u)\n.op\n.end\n"
+)
+
+
+def test_on_a_terminal_a_result_is_not_held_back_while_a_later_netlist_is_slow_to_come(tmp_path):
+    # The second netlist is a FIFO that gets its text only once the first file's verdict is on
+    # the terminal (a netlist produced by a slow program, as with `<(...)`): before, the first
+    # result waited for the second netlist to be read and solved, so it never came.
+    first = tmp_path / "lamp.cir"
+    first.write_text(DYNAMO_LIGHT)
+    later = tmp_path / "later.cir"
+    os.mkfifo(later)
+    master, slave = pty.openpty()
+    env = {**os.environ, "NO_COLOR": "1", "COLUMNS": "200"}
+    process = subprocess.Popen(
+        [sys.executable, "-m", "bridge", "check", str(first), str(later)],
+        stdin=subprocess.DEVNULL, stdout=slave, stderr=slave, env=env,
+    )
+    os.close(slave)
+    output = b""
+
+    def read_until(done, seconds: float) -> bool:
+        nonlocal output
+        deadline = time.monotonic() + seconds
+        while not done() and time.monotonic() < deadline:
+            if select.select([master], [], [], 0.1)[0]:
+                try:
+                    chunk = os.read(master, 65536)
+                except OSError:  # the other end is closed: the process is gone
+                    return done()
+                if not chunk:
+                    return done()
+                output += chunk
+        return done()
+
+    try:
+        first_shown = read_until(lambda: "→".encode() in output, 20)
+        writer = os.open(later, os.O_WRONLY | os.O_NONBLOCK)  # the check has it open for reading
+        with os.fdopen(writer, "w") as fifo:
+            fifo.write(DYNAMO_LIGHT.replace("lamp driver", "tail-light driver"))
+        read_until(lambda: process.poll() is not None and not select.select([master], [], [], 0.1)[0], 60)
+    finally:
+        process.kill()
+        process.wait()
+        os.close(master)
+    text = re.sub(r"\x1b\[[0-9;]*m", "", output.decode())  # bold stays on a terminal under NO_COLOR
+    assert first_shown, text
+    # Both results, in the order given.
+    assert text.index(f"{first}: bicycle dynamo light: NMOS lamp driver") < text.index(
+        f"{later}: bicycle dynamo light: NMOS tail-light driver") < text.rindex("→")
+    assert text.count("→") == 2
+
+
+def test_next_meanwhile_reports_in_between_while_the_next_item_is_slow():
+    # The next item comes only once `meanwhile` has run: taken in this thread, it never would.
+    released = threading.Event()
+    calls: list[int] = []
+
+    def items():
+        assert released.wait(20)
+        yield "second netlist"
+
+    def meanwhile() -> None:
+        calls.append(1)
+        released.set()
+
+    assert next_meanwhile(items(), meanwhile) == "second netlist"
+    assert calls
+    assert next_meanwhile(iter(()), lambda: None) is None
+
+
+def test_next_meanwhile_raises_what_taking_the_item_raised():
+    def items():
+        raise KeyboardInterrupt
+        yield
+
+    with pytest.raises(KeyboardInterrupt):
+        next_meanwhile(items(), lambda: None)

@@ -704,8 +704,10 @@ def test_a_batch_with_one_bad_file_still_checks_the_others(tmp_path, capsys):
     files = [bad, EXAMPLES / "diode_connected.cir", EXAMPLES / "cs_degenerated.cir"]
     status, out, err = run_cli(["check", "--json", *map(str, files)], capsys)
     assert status == 2  # unusable input outranks a disagreement
-    assert [Path(json.loads(line)["file"]).name for line in out.splitlines()] == [
-        "diode_connected.cir", "cs_degenerated.cir"]
+    # One line per file in the order given, the unusable one as its error object.
+    objects = [json.loads(line) for line in out.splitlines()]
+    assert [Path(o["file"]).name for o in objects] == ["bad.cir", "diode_connected.cir", "cs_degenerated.cir"]
+    assert objects[0]["error"]["line"] == 2 and "error" not in objects[1]
     assert located(err, bad, 2)
 
 

@@ -88,9 +88,57 @@ def test_malformed_number_is_rejected(text: str) -> None:
         parse_number(text)
 
 
-def test_micro_sign_gets_a_hint() -> None:
-    with pytest.raises(NumberError, match="write `u`"):
-        parse_number("10µF")
+def test_micro_sign_is_micro() -> None:
+    # reference: ngspice 39 itself (see test_micro_sign_reads_as_ngspice_reads_it below).
+    assert parse_number("10\u00b5F") == 1e-05
+    assert parse_number("3\u00b5") == 3e-06
+    assert parse_number("2.2\u00b5A") == 2.2e-06
+    assert parse_number("1e3\u00b5") == 1e-03
+    assert parse_number("1\u00b5", allow_mil=False) == 1e-06
+
+
+def test_greek_mu_gets_a_hint_naming_what_ngspice_would_read() -> None:
+    # ngspice 39 reads `10μF` (Greek mu, U+03BC) as 10: refused, with the value it would be.
+    with pytest.raises(NumberError, match="ngspice 39 would read 10, ignoring it; write `u`") as caught:
+        parse_number("10\u03bcF")
+    assert caught.value.offset == 2
+    assert parse_number("10k\u03bc") == 1e4  # after the scale factor it is one more ignored letter
+
+
+def test_undecodable_byte_after_a_number_is_refused() -> None:
+    # A Latin-1 micro sign (byte 0xB5) decodes to U+FFFD; ngspice reads that byte as micro.
+    with pytest.raises(NumberError, match="not UTF-8") as caught:
+        parse_number("3\ufffd")
+    assert caught.value.offset == 1
+
+
+@needs_ngspice
+def test_micro_sign_reads_as_ngspice_reads_it(tmp_path) -> None:
+    # reference: ngspice 39 run directly in batch mode on UTF-8 text. 1 A into each resistor:
+    # the node voltage is the resistance ngspice read. The micro sign (U+00B5) is micro in a
+    # value, a `.param` and an expression; the Greek mu (U+03BC) is ignored as a unit letter.
+    from bridge.netlist import read_netlist
+
+    body = (
+        ".param pa=3\u00b5\n"
+        "I1 0 a 1\nR1 a 0 10\u00b5Ohm\n"
+        "I2 0 b 1\nR2 b 0 {pa}\n"
+        "I3 0 c 1\nR3 c 0 {2\u00b5*2}\n"
+        "I4 0 d 1\nR4 d 0 2\u00b5meg\n"
+    )
+    deck = tmp_path / "micro.cir"
+    deck.write_text("micro sign\n" + body + ".op\n.end\n", encoding="utf-8")
+    measured = ngspice_batch_op(deck)
+    circuit = read_netlist(deck)
+    for node, resistor in (("a", "R1"), ("b", "R2"), ("c", "R3"), ("d", "R4")):
+        assert math.isclose(circuit.element(resistor).value, measured[node], rel_tol=1e-9), resistor
+    assert measured["a"] == pytest.approx(10e-6) and measured["c"] == pytest.approx(4e-6)
+
+    greek = tmp_path / "greek.cir"
+    greek.write_text("greek mu\nI1 0 a 1\nR1 a 0 3\u03bc\n.op\n.end\n", encoding="utf-8")
+    assert ngspice_batch_op(greek)["a"] == pytest.approx(3.0)
+    with pytest.raises(NumberError, match="would read 3,"):
+        parse_number("3\u03bc")
 
 
 @needs_ngspice
@@ -224,3 +272,17 @@ def test_rounding_half_away_from_zero_on_the_decimal_value() -> None:
     assert engineering(0.0125, "A", digits=2) == "13 mA"
     assert engineering(999.95, "Ω") == "1 kΩ"  # the tie carries into the next prefix
     assert engineering(1.23449, "V") == "1.234 V"  # no tie: plain rounding
+
+
+@needs_ngspice
+def test_latin1_micro_byte_is_micro_to_ngspice_and_refused_here(tmp_path) -> None:
+    # reference: ngspice 39 (`ngspice -b`) reads the lone byte 0xB5 after a number as micro, and
+    # stops with "UTF-8 syntax error" on other bytes that are not UTF-8 (0x80, 0xE9, 0xFF, ...).
+    # Decoded, every such byte is U+FFFD: which one it was is lost, so the number is refused.
+    from bridge.netlist import NetlistError, read_netlist
+
+    deck = tmp_path / "latin1.cir"
+    deck.write_bytes(b"latin-1 micro\nI1 0 a 1\nR1 a 0 3\xb5\n.op\n.end\n")
+    assert ngspice_batch_op(deck)["a"] == pytest.approx(3e-6)
+    with pytest.raises(NetlistError, match="not UTF-8"):
+        read_netlist(deck)

@@ -91,3 +91,42 @@ def test_module_entry_point_in_a_pipe(tmp_path):
     )
     assert completed.returncode == 0
     assert "1 mΩ" in completed.stdout and "\x1b[" not in completed.stdout
+
+
+GREENHOUSE_MAIN = (
+    "greenhouse soil-probe buffer\n.include probe_models.inc\nVDD vdd 0 5\nRG1 vdd g 1MEG\nRG2 g 0 1MEG\n"
+    "RD vdd d 10k\nM1 d g 0 0 nch W=20u L=2u\n.op\n.control\nprint all\n.endc\n.end\n"
+)
+GREENHOUSE_MODELS = "* probe models\n.model nch nmos (vto=0.8 kp=120u)\n\n.control\nop\nprint all\n.endc\n"
+
+
+def test_control_block_in_an_include_is_named_with_its_file_alike_in_parse_and_check(
+    tmp_path, capsys, monkeypatch
+):
+    monkeypatch.chdir(tmp_path)
+    monkeypatch.setenv("NO_COLOR", "1")
+    monkeypatch.setenv("COLUMNS", "200")
+    (tmp_path / "probe.cir").write_text(GREENHOUSE_MAIN)
+    (tmp_path / "probe_models.inc").write_text(GREENHOUSE_MODELS)
+    included = "`.control` block on lines 4–7 dropped: its commands never reach the simulator [control-dropped]"
+    in_main = "`.control` block on lines 9–11 dropped: its commands never reach the simulator [control-dropped]"
+
+    assert main(["parse", "--json", "probe.cir"]) == 0
+    warnings = json.loads(capsys.readouterr().out)["warnings"]
+    assert [(w["file"], w["line"]) for w in warnings] == [("probe.cir", 9), ("probe_models.inc", 4)]
+    assert main(["parse", "probe.cir"]) == 0
+    parse_lines = capsys.readouterr().out.splitlines()
+    assert f"info: probe_models.inc:4: {included}" in parse_lines
+    assert f"info: probe.cir:9: {in_main}" in parse_lines
+
+    main(["check", "--json", "probe.cir"])
+    findings = [f for f in json.loads(capsys.readouterr().out)["findings"] if f["code"] == "control-dropped"]
+    # A finding's line is a line of the netlist checked: the included file's is in the message.
+    assert [(f["severity"], f["line"], f["message"]) for f in findings] == [
+        ("info", 9, in_main.removesuffix(" [control-dropped]")),
+        ("info", None, "probe_models.inc:4: " + included.removesuffix(" [control-dropped]")),
+    ]
+    main(["check", "probe.cir"])
+    check_lines = capsys.readouterr().out.splitlines()
+    assert f"info: probe_models.inc:4: {included}" in check_lines
+    assert f"info: line 9: {in_main}" in check_lines

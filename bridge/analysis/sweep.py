@@ -47,6 +47,7 @@ from ..devices.level1 import (
 from ..netlist.circuit import GROUND, Analysis, Circuit, DcSweep, Element, Origin
 from ..netlist.emit import SpiceDeck, emit
 from ..netlist.numbers import engineering
+from ..netlist.source import NOTICE_SEVERITY, notice_in
 from ..sim.client import NgspiceSession, SimulationFailed, SimulatorError, SimulatorTimeout
 from .dcsolve import (
     DcSolveError,
@@ -1398,7 +1399,8 @@ def transfer_curve(
         raise SweepInputError("the sweep has no points")
     devices = tuple(e.name for e in circuit.elements_of("mosfet"))
     bias = float(element.value or 0.0)
-    findings: list[Finding] = [Finding("info", n.code, n.message, n.line) for n in circuit.notices]
+    findings: list[Finding] = [Finding(NOTICE_SEVERITY, n.code, *notice_in(n, circuit.source_file))
+                               for n in circuit.notices]
 
     hand, hand_findings, hand_model_at = _hand_curve(circuit, element.name, output, x, bias, devices)
     findings += hand_findings

@@ -15,6 +15,11 @@ written with an exponent too (`150e6 V`), because to a SPICE user `M` is milli �
 for resistances, where `MΩ` is how a designer reads and writes a resistor. Digits are
 rounded half away from zero on the value's decimal digits (12 significant, float noise
 below that dropped), so 1.5625 and 1.5625000000000002 both show as 1.563.
+
+The micro sign `µ` (U+00B5) is a scale factor like `u`: ngspice 39 reads `3µ`, `3µF`,
+`W=20µ` and `{2µ*2}` as micro (measured with `ngspice -b`; not in Table 2.2). The Greek
+letter `μ` (U+03BC), which looks the same, it does not: `3μ` is 3 there, the letter
+ignored. That reading is refused here with a hint rather than followed silently.
 """
 
 from __future__ import annotations
@@ -38,8 +43,11 @@ _NUMBER = re.compile(
     re.VERBOSE | re.DOTALL,
 )
 
-# Characters a designer types for "micro" that SPICE does not know.
-_MICRO_SIGNS = ("\u00b5", "\u03bc")
+# The micro sign, read as micro (see the module notes), and the look-alike that is not.
+_MICRO_SIGN = "\u00b5"
+_GREEK_MU = "\u03bc"
+# What a byte that is not UTF-8 becomes when the netlist is decoded (source.decode_source).
+_UNDECODABLE = "\ufffd"
 
 
 class NumberError(ValueError):
@@ -71,6 +79,8 @@ def parse_number(text: str, *, allow_mil: bool = True) -> float:
         if word == "meg" or (word == "mil" and allow_mil):
             exponent += _SCALE_WORDS[word]
             mil = word == "mil"
+        elif lowered[0] == _MICRO_SIGN:
+            exponent -= 6
         else:
             exponent += _SCALE_LETTERS.get(lowered[0], 0)
     value = float(f"{mantissa}e{exponent}")
@@ -83,12 +93,20 @@ def parse_number(text: str, *, allow_mil: bool = True) -> float:
 
 def _check_letters(text: str, letters: str, start: int) -> None:
     """The letters after a number must be letters: say which character is not, and where."""
+    # Only the first letter can be a scale factor: the rest are ignored, as in ngspice.
+    if letters[0] == _GREEK_MU:
+        raise NumberError(
+            f"`{text}`: the Greek letter `\u03bc` (U+03BC) is not a scale factor — ngspice 39 "
+            f"would read {text[:start]}, ignoring it; write `u` or the micro sign `\u00b5` (U+00B5) for micro",
+            start,
+        )
+    if letters[0] == _UNDECODABLE:
+        raise NumberError(
+            f"`{text}`: a byte that is not UTF-8 follows the number (ngspice 39 reads a Latin-1 "
+            "micro sign there as micro and refuses other such bytes); write `u` for micro",
+            start,
+        )
     for index, char in enumerate(letters):
-        if char in _MICRO_SIGNS:
-            raise NumberError(
-                f"`{text}`: `{char}` is not a SPICE scale factor; write `u` for micro",
-                start + index,
-            )
         if not (char.isalpha() or ord(char) > 127):
             raise NumberError(
                 f"`{text}` is not a number (unexpected `{char}` after `{text[:start + index]}`)",

@@ -328,6 +328,24 @@ def _find_section(source: SourceFile, section: str) -> tuple[int | None, int]:
     return start, len(source.lines) + 1
 
 
+# The severity of the reader's notices (a `.control` block dropped, a model defined twice, ...)
+# wherever they are shown: `parse`, and the findings of `check` and `sweep`. They say how the
+# netlist was read, not that the columns disagree, so they leave a check's verdict alone.
+NOTICE_SEVERITY = "info"
+
+
+def notice_in(notice: Notice, main_file: str) -> tuple[str, int | None]:
+    """The message and line of `notice` as a finding of the netlist `main_file` states them.
+
+    A finding's line is a line of the netlist checked. A notice from an included file names
+    that file and its line in the message instead, and has no line of its own there.
+    """
+    if notice.file is None or notice.file == main_file:
+        return notice.message, notice.line
+    where = f"{notice.file}:{notice.line}" if notice.line is not None else notice.file
+    return f"{where}: {notice.message}", None
+
+
 def read_deck(source: SourceFile, path: str | os.PathLike[str] | None = None) -> Deck:
     """Title and logical cards of a main netlist (line 1 is always the title)."""
     title = source.lines[0].strip()

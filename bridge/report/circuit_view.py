@@ -14,6 +14,7 @@ from rich.text import Text
 
 from ..netlist.circuit import VALUE_UNIT, Analysis, Circuit, Directive, Element, Origin
 from ..netlist.numbers import engineering
+from ..netlist.source import NOTICE_SEVERITY
 
 # Units of the instance and model parameters a bias circuit uses, for display.
 PARAM_UNITS: dict[str, str] = {
@@ -99,13 +100,14 @@ def circuit_renderable(circuit: Circuit) -> Group:
     if circuit.directives:
         parts.append(Text("Kept: " + "; ".join(_directive_text(d) for d in circuit.directives)))
     for notice in circuit.notices:
-        parts.append(Text(f"warning: {notice}", style="yellow"))
+        parts.append(Text(f"{NOTICE_SEVERITY}: {notice}", style="yellow"))
     return Group(*parts)
 
 
 def circuit_json(circuit: Circuit) -> dict[str, Any]:
     """The `parse --json` object."""
     return {
+        "file": circuit.source_file,
         "title": circuit.title,
         "elements": [
             {
