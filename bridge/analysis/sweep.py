@@ -1159,18 +1159,7 @@ def _temperature_note(circuit: Circuit, mosfet: Element) -> list[Step]:
 
 def _fixed_nodes(circuit: Circuit) -> set[str]:
     """Nodes held by chains of voltage sources from ground."""
-    fixed = {GROUND}
-    pending = list(circuit.elements_of("vsource"))
-    progress = True
-    while progress:
-        progress = False
-        for element in list(pending):
-            plus, minus = element.nodes[0], element.nodes[1]
-            if plus in fixed or minus in fixed:
-                fixed |= {plus, minus}
-                pending.remove(element)
-                progress = True
-    return fixed
+    return set(_held_voltages(circuit))
 
 
 @dataclass(frozen=True)
