@@ -16,8 +16,8 @@ from dataclasses import dataclass, replace
 from .analysis.dcsolve import DcSolveError, OperatingPoint, solve_operating_point
 from .analysis.hand import HandAnalysisError, HandModel, HandSolution
 from .bias_rules import bias_findings, device_vector_findings, inconsistent_device_vectors, supplies
-from .compare import EFFECTS, CheckResult, Expectations, Finding, compare
-from .netlist.circuit import Circuit, Directive, Element, ModelCard
+from .compare import EFFECTS, CheckResult, Expectations, Finding, compare, not_level1_finding, other_level_cards
+from .netlist.circuit import Circuit, Directive
 from .netlist.source import NOTICE_SEVERITY, notice_in
 from .sim.client import NgspiceSession, SimulationFailed, SimulatorError, SimulatorTimeout
 from .sim.operating_point import (
@@ -92,7 +92,7 @@ def solve_own_columns(circuit: Circuit) -> OwnColumns:
     """The hand and level-1 columns of `circuit`; a column that fails becomes a finding."""
     if not circuit.elements_of("mosfet"):
         raise NotASingleStage(NO_MOSFET)
-    other_levels = other_level_mosfets(circuit)
+    other_levels = circuit.other_level_mosfets()
     if other_levels:
         return _without_own_columns(other_levels)
     findings: list[Finding] = []
@@ -134,31 +134,11 @@ def solve_own_columns(circuit: Circuit) -> OwnColumns:
     return OwnColumns(hand, with_effect, level1, tuple(findings))
 
 
-def other_level_mosfets(circuit: Circuit) -> list[tuple[Element, ModelCard]]:
-    """The MOSFETs whose model card is not level 1 (BSIM3, BSIM4, level 2 or 3, ...), with the card."""
-    found = []
-    for element in circuit.elements_of("mosfet"):
-        card = circuit.model(element.model or "")
-        if card is not None and card.level != 1:
-            found.append((element, card))
-    return found
-
-
-def _without_own_columns(other_levels: list[tuple[Element, ModelCard]]) -> OwnColumns:
-    """Hand and level-1 columns left empty: both read level-1 cards only (KP, VTO, LAMBDA, GAMMA),
-    and a card of another level has none of them to read; its defaults would be numbers of a
-    device the netlist does not hold. ngspice still solves the circuit as written."""
-    cards = ", ".join(f"model {card.name} of {element.name} is LEVEL={card.level}" for element, card in other_levels)
-    first = other_levels[0][0]
-    one = len(other_levels) == 1
-    message = (
-        f"{cards}: the hand and level-1 columns need level-1 model cards and are left empty; "
-        "ngspice solves the card as written"
-    )
-    hand = HandSolution(f"outside the hand model ({cards}; the hand model reads level-1 cards)",
-                        False, {}, {}, (), ())
-    finding = Finding("info", "not-level-1", message, first.origin.line if one else None, first.name if one else None)
-    return OwnColumns(hand, None, None, (finding,))
+def _without_own_columns(other_levels) -> OwnColumns:
+    """Hand and level-1 columns left empty for a card of another level (see ``not_level1_finding``)."""
+    hand = HandSolution(f"outside the hand model ({other_level_cards(other_levels)}; the hand model reads "
+                        "level-1 cards)", False, {}, {}, (), ())
+    return OwnColumns(hand, None, None, (not_level1_finding(other_levels),))
 
 
 class PendingCheck:

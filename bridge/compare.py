@@ -49,6 +49,26 @@ class Finding:
     subject: str | None = None
 
 
+def not_level1_finding(other_levels) -> Finding:
+    """Hand and level-1 columns left empty: both read level-1 cards only (KP, VTO, LAMBDA, GAMMA),
+    and a card of another level has none of them to read; its defaults would be numbers of a
+    device the netlist does not hold. ngspice still solves the circuit as written.
+    `other_levels`: ``Circuit.other_level_mosfets()``, not empty."""
+    cards = other_level_cards(other_levels)
+    first = other_levels[0][0]
+    one = len(other_levels) == 1
+    message = (
+        f"{cards}: the hand and level-1 columns need level-1 model cards and are left empty; "
+        "ngspice solves the card as written"
+    )
+    return Finding("info", "not-level-1", message, first.origin.line if one else None, first.name if one else None)
+
+
+def other_level_cards(other_levels) -> str:
+    """`model NB3 of M1 is LEVEL=49`, for each MOSFET of ``Circuit.other_level_mosfets()``."""
+    return ", ".join(f"model {card.name} of {element.name} is LEVEL={card.level}" for element, card in other_levels)
+
+
 @dataclass(frozen=True)
 class Columns:
     """One quantity in each column (None where a column has no value)."""

@@ -296,3 +296,30 @@ def test_emitted_card_keeps_names_and_text_and_is_a_fixed_point(card_files):
     again = parse_netlist(emit(circuit).text)
     assert again.models == {key: replace(m, origin=again.models[key].origin) for key, m in circuit.models.items()}
     assert emit(again).text == emit(circuit).text
+
+
+@needs_ngspice
+@pytest.mark.parametrize("name", ["bsim3_level8_nmos.cir", "bsim4_level14_nmos.cir"])
+def test_sweep_finds_the_cutoff_edge_from_the_familys_own_threshold(name, card_files, required_ngspice_session,
+                                                                     tmp_path):
+    # Reference: ngspice -b's own .dc at 0.1 mV steps, the first point where @m1[vgs] − @m1[vth]
+    # turns positive. The sweep reads BSIM's `vth` (it read `von`, which BSIM lacks, and found no edge).
+    import numpy as np
+
+    from bridge.analysis.sweep import transfer_curve
+
+    result = transfer_curve(read_netlist(card_files[name]), "VDD", "drain", np.linspace(0.0, 1.8, 37),
+                            required_ngspice_session)
+    assert "not-level-1" in [f.code for f in result.findings]
+    assert result.curves["hand"] is None and result.curves["level1"] is None
+    edge = result.curves["sim"].edges["M1"]
+    crossing = next(c for c in edge.crossings if c.boundary == "cutoff_saturation")
+
+    deck = tmp_path / "fine.cir"
+    deck.write_text(CARDS[name].replace(".op\n", ".save v(vdd) @m1[vgs] @m1[vth]\n.control\ndc VDD 0 1.8 1e-4\n"
+                                        f"print v(vdd) @m1[vgs] @m1[vth] > {tmp_path / 'fine.txt'}\n.endc\n"))
+    subprocess.run([NGSPICE, "-b", str(deck)], capture_output=True, text=True, timeout=60, cwd=tmp_path)
+    rows = [line.split() for line in (tmp_path / "fine.txt").read_text().splitlines()]
+    numbers = [[float(v) for v in row[2:5]] for row in rows if len(row) == 5 and row[0].isdigit()]
+    reference = next(vdd for vdd, vgs, vth in numbers if vgs - vth > 0)
+    assert abs(crossing.at - reference) <= crossing.accuracy + 1e-4

@@ -15,7 +15,8 @@ Region edges are input values where a transistor changes region: ``cutoff_satura
 VOV crosses 0, ``saturation_triode`` where VDS − VOV does (device polarity). For hand and
 level1 each edge is found by Brent's method on the solved model between the two grid points
 where the region changes, so its accuracy does not depend on the step; ngspice's edges are
-linear interpolations of its @m[vgs], @m[vds], @m[von] vectors between sweep points. For the
+linear interpolations of its @m[vgs], @m[vds] and threshold (@m[von] or @m[vth]) between
+sweep points. For the
 resistor-loaded common source the hand edges also have a closed form, worked out in steps.
 
 Gains are dVout/dVin: at the bias point (the swept source's own value in the netlist) by a
@@ -34,7 +35,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 from scipy.optimize import brentq
 
-from ..compare import SOLVER_FLOOR, SOLVER_RELATIVE, Finding
+from ..compare import SOLVER_FLOOR, SOLVER_RELATIVE, Finding, not_level1_finding
 from ..devices.level1 import (
     DEFAULT_L,
     DEFAULT_W,
@@ -49,6 +50,7 @@ from ..netlist.emit import SpiceDeck, emit
 from ..netlist.numbers import engineering
 from ..netlist.source import NOTICE_SEVERITY, notice_in
 from ..sim.client import NgspiceSession, SimulationFailed, SimulatorError, SimulatorTimeout
+from ..sim.operating_point import threshold_vector
 from .dcsolve import (
     DcSolveError,
     InvalidElement,
@@ -94,7 +96,7 @@ EDGE_XTOL = 1e-12
 # the curvature of the square law is.
 GAIN_STEP = 1e-4
 # What ngspice is asked for each MOSFET, beside the output node.
-DEVICE_SWEEP_VECTORS = ("vgs", "vds", "von")
+DEVICE_SWEEP_VECTORS = ("vgs", "vds")
 
 # ngspice's edges and gain are refined with further `.dc` runs through the same worker, so they
 # do not depend on the grid: each grid interval where a region changes is swept again in
@@ -114,7 +116,8 @@ EDGE_METHODS = {
     "sim": (
         f"the grid interval where the region changes swept again by ngspice in {REFINE_INTERVALS} steps, then "
         f"the finer interval where it changes, until it is at most {EDGE_TARGET:g} of the sweep; linear "
-        "interpolation of @m[vgs], @m[vds], @m[von] there; ± that interval, inside which the edge lies"
+        "interpolation of @m[vgs], @m[vds] and the threshold (@m[von] or @m[vth]) there; ± that interval, "
+        "inside which the edge lies"
     ),
 }
 GAIN_METHODS = {
@@ -852,7 +855,7 @@ def _polarity(circuit: Circuit, element: Element) -> int:
 
 def sim_sweep_deck(circuit: Circuit, source: str, output: str, x: np.ndarray, with_devices: bool = True) -> SpiceDeck:
     """The emitted deck of the sweep: the circuit, `.save` of the output (and each MOSFET's
-    vgs, vds, von) and one `.dc` card from the grid's first value, last value and step."""
+    vgs, vds and threshold) and one `.dc` card from the grid's first value, last value and step."""
     element = independent_source(circuit, source)
     step = grid_step(x) or 1.0
     sweep = DcSweep(element.name, float(x[0]), float(x[-1]), step)
@@ -866,10 +869,17 @@ def sim_sweep_deck(circuit: Circuit, source: str, output: str, x: np.ndarray, wi
 
 
 def sim_vectors(circuit: Circuit, output: str) -> list[str]:
-    """The vectors the sweep reads: V(output), and each MOSFET's vgs, vds and von."""
-    return [f"v({output})"] + [
-        f"@{m.name.lower()}[{q}]" for m in circuit.elements_of("mosfet") for q in DEVICE_SWEEP_VECTORS
-    ]
+    """The vectors the sweep reads: V(output), and each MOSFET's vgs, vds and threshold."""
+    mosfets = circuit.elements_of("mosfet")
+    return [f"v({output})"] + [vector for m in mosfets for vector in _device_sweep_vectors(circuit, m)]
+
+
+def _device_sweep_vectors(circuit: Circuit, mosfet: Element) -> list[str]:
+    """@m[vgs], @m[vds] and the threshold vector of its model family (von or vth; none when the
+    family is not known: then its regions are not read)."""
+    threshold = threshold_vector(circuit, mosfet)
+    quantities = DEVICE_SWEEP_VECTORS + ((threshold[0],) if threshold is not None else ())
+    return [f"@{mosfet.name.lower()}[{q}]" for q in quantities]
 
 
 def _device_regions(vov: np.ndarray, channel: np.ndarray) -> tuple[str | None, ...]:
@@ -958,10 +968,11 @@ def sim_curve(
     regions: dict[str, tuple[str | None, ...]] = {}
     edges: dict[str, RegionEdges] = {}
     for name in devices:
-        names = [f"@{name.lower()}[{q}]" for q in DEVICE_SWEEP_VECTORS]
-        if not all(vector in result for vector in names):
-            findings.append(Finding("warning", "sim-no-device", f"ngspice gave no vgs/vds/von for {name}: "
-                                    "its regions and edges are not known"))
+        element = circuit.element(name)
+        names = _device_sweep_vectors(circuit, element) if element is not None else []
+        if len(names) < 3 or not all(vector in result for vector in names):
+            findings.append(Finding("warning", "sim-no-device", f"ngspice gave no vgs, vds and threshold for "
+                                    f"{name}: its regions and edges are not known"))
             continue
         vov, channel = _sim_device_drive(circuit, name, *(on_grid(result[vector]) for vector in names))
         regions[name] = _device_regions(vov, channel)
@@ -987,14 +998,15 @@ def sim_curve(
 
 
 def _sim_device_drive(
-    circuit: Circuit, name: str, vgs: np.ndarray, vds: np.ndarray, von: np.ndarray
+    circuit: Circuit, name: str, vgs: np.ndarray, vds: np.ndarray, threshold: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
-    """VOV and |VDS| (device polarity) from ngspice's @m[vgs], @m[vds], @m[von] vectors."""
+    """VOV and |VDS| (device polarity) from ngspice's @m[vgs], @m[vds] and threshold vectors."""
     element = circuit.element(name)
     assert element is not None
-    # As simulate_operating_point normalises them: von carries the type's sign; with
-    # vds < 0 the device runs with drain and source swapped.
-    vth = _polarity(circuit, element) * np.asarray(von, dtype=float)
+    # As the operating point normalises them: the threshold made positive by its family's
+    # factor; with vds < 0 the device runs with drain and source swapped.
+    found = threshold_vector(circuit, element)
+    vth = (found[1] if found is not None else 1.0) * np.asarray(threshold, dtype=float)
     vgs, vds = np.asarray(vgs, dtype=float), np.asarray(vds, dtype=float)
     vov = np.where(vds < 0.0, vgs - vds - vth, vgs - vth)
     return vov, np.abs(vds)
@@ -1076,8 +1088,10 @@ def _refined_edge(
         if window is None:
             return None
         xs, vectors = window
+        element = circuit.element(name)
+        assert element is not None
         vov, channel = _sim_device_drive(
-            circuit, name, *(vectors[f"@{name.lower()}[{q}]"] for q in DEVICE_SWEEP_VECTORS)
+            circuit, name, *(vectors[vector] for vector in _device_sweep_vectors(circuit, element))
         )
         known = np.isfinite(vov) & np.isfinite(channel)
         side = vov <= 0.0 if boundary == "cutoff_saturation" else (vov > 0.0) & (channel - vov < 0.0)
@@ -1391,10 +1405,16 @@ def transfer_curve(
     findings: list[Finding] = [Finding(NOTICE_SEVERITY, n.code, *notice_in(n, circuit.source_file))
                                for n in circuit.notices]
 
-    hand, hand_findings, hand_model_at = _hand_curve(circuit, element.name, output, x, bias, devices)
-    findings += hand_findings
-    level1, level1_findings = _level1_curve(circuit, element.name, output, x, bias, devices)
-    findings += level1_findings
+    other_levels = circuit.other_level_mosfets()
+    hand: Curve | None = None
+    level1: Curve | None = None
+    if other_levels:
+        findings.append(not_level1_finding(other_levels))
+    else:
+        hand, hand_findings, hand_model_at = _hand_curve(circuit, element.name, output, x, bias, devices)
+        findings += hand_findings
+        level1, level1_findings = _level1_curve(circuit, element.name, output, x, bias, devices)
+        findings += level1_findings
 
     sim: Curve | None = None
     simulator: tuple[str, str] | None = None

@@ -203,6 +203,15 @@ class Circuit:
     def elements_of(self, kind: str) -> tuple[Element, ...]:
         return tuple(e for e in self.elements if e.kind == kind)
 
+    def other_level_mosfets(self) -> tuple[tuple[Element, ModelCard], ...]:
+        """The MOSFETs whose model card is not level 1 (BSIM3, BSIM4, level 2 or 3, ...), with the card."""
+        found = []
+        for element in self.elements_of("mosfet"):
+            card = self.model(element.model or "")
+            if card is not None and card.level != 1:
+                found.append((element, card))
+        return tuple(found)
+
     def temperature(self) -> float:
         """The circuit temperature in °C as ngspice 39 sets it (checked with `ngspice -b`): the last
         `.temp` card, which beats `.options temp` wherever it stands; a last `.temp` with several

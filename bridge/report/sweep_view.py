@@ -199,12 +199,21 @@ def sweep_renderable(result: TransferCurve, steps: bool = False) -> Group:
         where = f"line {finding.line}: " if finding.line else ""
         parts.append(Text(f"{finding.severity}: {where}{finding.message} [{finding.code}]",
                           style=SEVERITY_STYLE.get(finding.severity, "")))  # fmt: skip
+    solved = [COLUMN_TITLES[column] for column in ("hand", "level1", "sim") if curves[column] is not None]
+    missing = [COLUMN_TITLES[column] for column in ("hand", "level1", "sim") if curves[column] is None]
     if not result.agree:
         verdict = "problems flagged above"
-    elif curves["sim"] is None:
-        verdict = "hand and level-1 solved at every point; no ngspice column"
+    elif not solved:
+        verdict = "no column could be solved"
+    elif len(solved) == 1:
+        verdict = f"only the {solved[0]} column solved; nothing to compare it with"
     else:
-        verdict = "every column solved; level-1 and ngspice agree"
+        verdict = (
+            "every column solved" if not missing
+            else f"{' and '.join(solved)} solved; no {' or '.join(missing)} column"
+        )
+        if curves["sim"] is not None and curves["level1"] is not None:
+            verdict += "; level-1 and ngspice agree"
     parts.append(Text(f"→ {verdict}", style="bold green" if result.agree else "bold red"))
     return Group(*parts)
 

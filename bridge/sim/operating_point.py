@@ -92,14 +92,21 @@ def submit_operating_point(session: NgspiceSession, circuit: Circuit, timeout: f
     return PendingOperatingPoint(circuit, session.submit(deck, timeout=timeout))
 
 
-def _threshold(circuit: Circuit, mosfet: Element) -> tuple[str, bool] | None:
+def threshold_vector(circuit: Circuit, mosfet: Element) -> tuple[str, float] | None:
+    """The ngspice vector holding this MOSFET's threshold and the factor that makes it positive
+    for a conducting device (−1 for a PMOS of a family that gives it the type's sign), or None
+    when its model family is not known here."""
     model = circuit.model(mosfet.model or "")
-    return THRESHOLD_BY_LEVEL.get(model.level) if model is not None else None
+    found = THRESHOLD_BY_LEVEL.get(model.level) if model is not None else None
+    if found is None:
+        return None
+    name, signed = found
+    return name, -1.0 if signed and model is not None and model.type == "pmos" else 1.0
 
 
 def device_vectors(circuit: Circuit, mosfet: Element) -> tuple[str, ...]:
     """The quantities asked of ngspice for one MOSFET: those its model family is known to have."""
-    threshold = _threshold(circuit, mosfet)
+    threshold = threshold_vector(circuit, mosfet)
     return COMMON_VECTORS + (("vdsat", threshold[0]) if threshold is not None else ())
 
 
@@ -126,9 +133,8 @@ def _read_device(circuit: Circuit, mosfet: Element, result: SimResult) -> SimDev
     for quantity in device_vectors(circuit, mosfet):
         name = device_vector(mosfet.name, quantity)
         values[quantity] = result.scalar(name) if name in result else None
-    threshold = _threshold(circuit, mosfet)
-    model = circuit.model(mosfet.model or "")
-    sign = -1.0 if threshold is not None and threshold[1] and model is not None and model.type == "pmos" else 1.0
+    threshold = threshold_vector(circuit, mosfet)
+    sign = threshold[1] if threshold is not None else 1.0
     raw_vth = values.get(threshold[0]) if threshold is not None else None
     vth = sign * raw_vth if raw_vth is not None else None
     raw_vdsat = values.get("vdsat")
