@@ -36,7 +36,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from bridge.analysis.linear import solve_dense
+from bridge.analysis.linear import condition_estimate, solve_dense, sparse_factor, stamp_rows, stamped
 from bridge.devices.level1 import (
     DEFAULT_L,
     DEFAULT_W,
@@ -375,7 +375,7 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
     branch_index = {e.name.lower(): 1 + len(nodes) + k for k, e in enumerate(branch_elements)}
     size = 1 + len(nodes) + len(branch_elements)
     # Stamped in plain floats (numpy's per-element indexing is slow), the same sums in the same order.
-    linear = [[0.0] * size for _ in range(size)]
+    linear = stamp_rows(size)  # dict rows from linear.SPARSE_FROM unknowns on
     sources = [e for e in circuit.elements if e.kind in ("vsource", "isource")]
     source_columns = [[0.0] * len(sources) for _ in range(size)]
     source_column = {e.name: k for k, e in enumerate(sources)}
@@ -450,7 +450,7 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
     return _Network(
         nodes=nodes,
         branch_names=tuple(e.name for e in branch_elements),
-        linear=np.array(linear, dtype=float).reshape(size, size),
+        linear=stamped(linear, size),
         source_columns=np.array(source_columns, dtype=float).reshape(size, len(sources)),
         source_names=tuple(e.name for e in sources),
         source_defaults=np.array([float(e.value or 0.0) for e in sources]),
@@ -813,6 +813,8 @@ def _reduce(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _
     (a voltage source straight across two device terminals leaves its branch row empty
     there), the branch currents are kept too, and failing that (or without `eliminate`)
     nothing is eliminated."""
+    if not isinstance(net.linear, np.ndarray):
+        return _reduce_large(net, diagonal_gmin, eliminate=eliminate)
     size = net.size
     full = net.linear[1:, 1:].copy()
     if diagonal_gmin:
@@ -859,6 +861,68 @@ def _reduce(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _
             recover_kept=tuple(tuple(row) for row in on_kept.tolist()),
         )
     raise AssertionError("keeping every unknown always gives a reduction")  # pragma: no cover
+
+
+def _reduce_large(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _Reduction:
+    """`_reduce` for a network stamped sparse (linear.SPARSE_FROM unknowns or more).
+
+    The same Schur complement, with the eliminated block factored by a sparse LU instead of
+    a dense solve, and its rank test a 1-norm condition estimate from that LU instead of an
+    SVD (``linear.condition_estimate``), against the same tolerance. What cannot be done here
+    is the last fallback, keeping every unknown: Newton's dense system would have thousands
+    of rows. Such a network is refused (DcSolveError) instead.
+    """
+    size = net.size
+    full = net.linear[1:, 1:].tocsr()
+    if diagonal_gmin:
+        node_count = len(net.nodes)
+        diagonal = np.zeros(size - 1)
+        diagonal[:node_count] = diagonal_gmin
+        from scipy.sparse import diags
+
+        full = (full + diags(diagonal)).tocsr()
+    columns = net.source_columns[1:]
+    touched = {i for mos in net.mosfets for i in (mos.drain, mos.gate, mos.source, mos.bulk)}
+    touched |= {i for diode in net.diodes for i in (diode.anode, diode.cathode)}
+    touched.discard(0)
+    branches = set(range(1 + len(net.nodes), size))
+    for kept_set in (touched, touched | branches) if eliminate else ():
+        kept = sorted(kept_set)
+        rest = [j for j in range(1, size) if j not in kept_set]
+        if not rest:
+            break
+        kept_at, rest_at = np.array(kept, dtype=int) - 1, np.array(rest, dtype=int) - 1
+        kept_rows, rest_rows = full[kept_at], full[rest_at]
+        kk, kr = kept_rows[:, kept_at].toarray(), kept_rows[:, rest_at]
+        rk, rr = rest_rows[:, kept_at].toarray(), rest_rows[:, rest_at].tocsc()
+        count = len(kept)
+        kept_sources, rest_sources = columns[kept_at], columns[rest_at]
+        try:
+            factor = sparse_factor(rr)
+        except np.linalg.LinAlgError:
+            continue
+        # numpy's matrix_rank tolerance, σmin ≤ σmax·n·ε, read as a condition number.
+        if not condition_estimate(rr, factor) < 1.0 / (len(rest) * _EPS):
+            continue
+        weights = factor.solve(np.concatenate((rk, rest_sources), axis=1))
+        on_kept, on_sources = weights[:, :count], weights[:, count:]
+        matrix, source_map = kk - kr @ on_kept, kept_sources - kr @ on_sources
+        position = [-1] * size
+        for place, index in enumerate(kept):
+            position[index] = place
+        return _Reduction(
+            kept=tuple(kept),
+            position=tuple(position),
+            matrix=tuple(tuple(row) for row in np.asarray(matrix).tolist()),
+            source_map=np.asarray(source_map),
+            eliminated=tuple(rest),
+            recover_sources=on_sources,
+            recover_kept=tuple(tuple(row) for row in on_kept.tolist()),
+        )
+    raise DcSolveError(
+        f"the linear part of this {size - 1}-unknown network is singular or too close to it to be "
+        "eliminated, and a network this large is not solved without that elimination"
+    )
 
 
 # --- Newton ---------------------------------------------------------------------------------
