@@ -119,14 +119,13 @@ def stamped(rows: list, size: int):
         return np.array(rows, dtype=float).reshape(size, size)
     from scipy.sparse import csr_matrix
 
-    indptr, indices, data = [0], [], []
-    for row in rows:
-        for column in sorted(row):
-            indices.append(column)
-            data.append(row[column])
-        indptr.append(len(indices))
-    return csr_matrix((np.array(data, dtype=float), np.array(indices, dtype=np.int64), np.array(indptr)),
-                      shape=(size, size))
+    indptr = np.zeros(size + 1, dtype=np.int64)
+    np.cumsum([len(row) for row in rows], out=indptr[1:])
+    indices = np.fromiter(chain.from_iterable(rows), np.int64, int(indptr[-1]))
+    data = np.fromiter(chain.from_iterable(row.values() for row in rows), float, int(indptr[-1]))
+    matrix = csr_matrix((data, indices, indptr), shape=(size, size))
+    matrix.sort_indices()
+    return matrix
 
 
 def sparse_factor(matrix):
