@@ -216,6 +216,7 @@ def command_sweep(args: argparse.Namespace) -> int:
         default_source,
         independent_source,
         output_node,
+        refuse_large_sweep,
         sweep_values,
         transfer_curve,
     )
@@ -230,6 +231,7 @@ def command_sweep(args: argparse.Namespace) -> int:
 
     try:
         circuit = read_netlist(args.file)
+        refuse_large_sweep(circuit)
     except NetlistError as exc:
         print(exc.render(), file=sys.stderr)
         return EXIT_INPUT

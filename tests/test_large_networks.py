@@ -19,7 +19,9 @@ from conftest import needs_ngspice, ngspice_batch_op
 from bridge.analysis.dcsolve import solve_operating_point
 from bridge.analysis.hand import HandModel
 from bridge.analysis.linear import condition_estimate, sparse_factor, stamp_rows, stamped
+from bridge.analysis.sweep import MAX_SWEEP_ELEMENTS
 from bridge.check import check_circuit
+from bridge.cli import main
 from bridge.netlist import NetlistError, read_netlist
 from bridge.netlist.source import MAX_CARDS
 
@@ -172,3 +174,14 @@ def test_card_limit_refuses_with_a_location(tmp_path):
     # Title, then VDD, RD, M1, .model: the 10,001st card is on line 10,002.
     assert (info.value.location.file, info.value.location.line) == (str(path), MAX_CARDS + 2)
     assert math.isfinite(info.value.location.column)
+
+
+def test_sweep_past_its_element_limit_is_refused_with_a_location(tmp_path, capsys):
+    # VDD, RD, M1 and the string: MAX_SWEEP_ELEMENTS + 1 elements, the last on the last card line.
+    path = ladder_netlist(tmp_path / "sweep.cir", MAX_SWEEP_ELEMENTS - 1)
+    assert len(read_netlist(path).elements) == MAX_SWEEP_ELEMENTS + 1
+    assert main(["sweep", str(path)]) == 2
+    err = capsys.readouterr().err
+    last = MAX_SWEEP_ELEMENTS + 1 + 2  # title, VDD, RD, M1, .model, then the string from line 6
+    assert err.startswith(f"{path}:{last}:1: `sweep` takes at most {MAX_SWEEP_ELEMENTS} elements")
+    assert "Traceback" not in err
