@@ -1,0 +1,80 @@
+"""`make bench`, large networks: `check` of stages with thousands of resistors, up to the card
+limit, ends in seconds; `sweep` up to its element limit too; what is past a limit is refused
+at once with a located message.
+
+Each line: wall time and the peak memory (max RSS) of one `biasbridge` process, the goal and
+whether it is met. Exit status 1 when a goal is missed. The machine is shared: wall times move
+with its load, so the CPU time (user + system) is shown beside them.
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+REPO = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(REPO / "tests"))
+
+from test_large_networks import ladder_netlist, mesh_netlist  # noqa: E402
+
+from bridge.analysis.sweep import MAX_SWEEP_ELEMENTS  # noqa: E402
+from bridge.netlist.source import MAX_CARDS  # noqa: E402
+
+GOAL_SECONDS = 5.0
+REFUSAL_SECONDS = 1.0
+
+
+def measure(arguments: list[str]) -> tuple[int, float, float, float]:
+    """Exit status, wall seconds, CPU seconds and max RSS (MB) of one `python -m bridge` run."""
+    env = dict(os.environ, NO_COLOR="1")
+    env.pop("FORCE_COLOR", None)
+    start = time.perf_counter()
+    process = subprocess.Popen([sys.executable, "-m", "bridge", *arguments], stdin=subprocess.DEVNULL,
+                               stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env, cwd=REPO)
+    _, status, usage = os.wait4(process.pid, 0)
+    wall = time.perf_counter() - start
+    process.returncode = os.waitstatus_to_exitcode(status)
+    # ru_maxrss of the child alone (kB on Linux); the ngspice worker is a child of it and not counted.
+    return process.returncode, wall, usage.ru_utime + usage.ru_stime, usage.ru_maxrss / 1024
+
+
+def report(name: str, arguments: list[str], goal: float, statuses: tuple[int, ...]) -> bool:
+    status, wall, cpu, rss = measure(arguments)
+    ok = wall <= goal and status in statuses
+    print(f"{name:<58} {wall:7.2f} s (cpu {cpu:5.2f} s, {rss:5.0f} MB, exit {status})   goal ≤ {goal:g} s   "
+          f"{'ok' if ok else 'MISSED'}")
+    return ok
+
+
+def main() -> int:
+    results = []
+    with tempfile.TemporaryDirectory() as folder:
+        here = Path(folder)
+        for resistors in (2_000, 5_000, MAX_CARDS - 4):
+            path = ladder_netlist(here / f"ladder{resistors}.cir", resistors)
+            cards = resistors + 4
+            results.append(report(f"check: ladder of {resistors:,} resistors ({cards:,} cards)",
+                                  ["check", str(path)], GOAL_SECONDS, (0, 1)))
+        side = 70
+        path = mesh_netlist(here / "mesh.cir", side)
+        results.append(report(f"check: {side}×{side} mesh, {2 * side * (side - 1):,} resistors",
+                              ["check", str(path)], GOAL_SECONDS, (0, 1)))
+        path = ladder_netlist(here / "too_long.cir", MAX_CARDS + 1_000)
+        results.append(report(f"check refuses {MAX_CARDS + 1_004:,} cards (located, exit 2)",
+                              ["check", str(path)], REFUSAL_SECONDS, (2,)))
+        # VDD, M1 and the resistors: MAX_SWEEP_ELEMENTS elements exactly.
+        path = ladder_netlist(here / "sweep_ladder.cir", MAX_SWEEP_ELEMENTS - 2)
+        results.append(report(f"sweep: ladder of {MAX_SWEEP_ELEMENTS:,} elements, 201 points",
+                              ["sweep", str(path)], GOAL_SECONDS, (0, 1)))
+        path = ladder_netlist(here / "sweep_long.cir", 5_000)
+        results.append(report("sweep refuses a ladder of 5,000 resistors (located, exit 2)",
+                              ["sweep", str(path)], REFUSAL_SECONDS * 2, (2,)))
+    return 0 if all(results) else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())
