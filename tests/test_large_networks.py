@@ -185,3 +185,23 @@ def test_sweep_past_its_element_limit_is_refused_with_a_location(tmp_path, capsy
     last = MAX_SWEEP_ELEMENTS + 1 + 2  # title, VDD, RD, M1, .model, then the string from line 6
     assert err.startswith(f"{path}:{last}:1: `sweep` takes at most {MAX_SWEEP_ELEMENTS} elements")
     assert "Traceback" not in err
+
+
+@needs_ngspice
+def test_network_of_device_terminals_only_falls_back_to_the_dense_reduction(tmp_path):
+    """100 divider-biased stages and a MOSFET on the supply node: every node is a device
+    terminal (201 nodes, 202 unknowns, past linear.SPARSE_FROM), so the sparse elimination has
+    nothing to eliminate but the supply's branch current, whose row is empty there; the dense
+    reduction takes over. The level-1 answer against `ngspice -b` on the same file."""
+    lines = ["Dynamo light bank: a hundred dimmer stages", f"VDD vdd 0 DC {VDD}", MODEL,
+             f"MX vdd s0 0 0 NLED W={W} L={L}"]
+    for k in range(100):
+        lines += [f"RD{k} vdd d{k} 22k", f"RA{k} vdd s{k} {100 + k}k", f"RB{k} s{k} 0 100k",
+                  f"M{k} d{k} s{k} 0 0 NLED W={W} L={L}"]
+    path = tmp_path / "bank.cir"
+    path.write_text("\n".join(lines + [".op", ".end"]) + "\n")
+    circuit = read_netlist(path)
+    point = solve_operating_point(circuit)
+    printed = ngspice_batch_op(path)
+    for node in ("vdd", "s0", "d0", "s57", "d57", "d99"):
+        assert point.voltage(node) == pytest.approx(printed[node], abs=1e-6), node

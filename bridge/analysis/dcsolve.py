@@ -30,7 +30,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cached_property
 from typing import NamedTuple
 
@@ -868,9 +868,11 @@ def _reduce_large(net: _Network, diagonal_gmin: float, *, eliminate: bool = True
 
     The same Schur complement, with the eliminated block factored by a sparse LU instead of
     a dense solve, and its rank test a 1-norm condition estimate from that LU instead of an
-    SVD (``linear.condition_estimate``), against the same tolerance. What cannot be done here
-    is the last fallback, keeping every unknown: Newton's dense system would have thousands
-    of rows. Such a network is refused (DcSolveError) instead.
+    SVD (``linear.condition_estimate``), against the same tolerance. Where neither the device
+    terminals nor those and the branch currents can be kept alone, the network is handed to
+    the dense `_reduce` (SVD rank tests, keeping every unknown at worst) up to
+    _DENSE_FALLBACK unknowns, and refused (DcSolveError) beyond: Newton's dense system would
+    have thousands of rows.
     """
     size = net.size
     full = net.linear[1:, 1:].tocsr()
@@ -890,7 +892,7 @@ def _reduce_large(net: _Network, diagonal_gmin: float, *, eliminate: bool = True
         kept = sorted(kept_set)
         rest = [j for j in range(1, size) if j not in kept_set]
         if not rest:
-            break
+            break  # every unknown is a device terminal: nothing to eliminate
         kept_at, rest_at = np.array(kept, dtype=int) - 1, np.array(rest, dtype=int) - 1
         kept_rows, rest_rows = full[kept_at], full[rest_at]
         kk, kr = kept_rows[:, kept_at].toarray(), kept_rows[:, rest_at]
@@ -919,10 +921,19 @@ def _reduce_large(net: _Network, diagonal_gmin: float, *, eliminate: bool = True
             recover_sources=on_sources,
             recover_kept=tuple(tuple(row) for row in on_kept.tolist()),
         )
+    if size - 1 <= _DENSE_FALLBACK:
+        dense = replace(net, linear=net.linear.toarray())
+        return _reduce(dense, diagonal_gmin, eliminate=eliminate)
     raise DcSolveError(
-        f"the linear part of this {size - 1}-unknown network is singular or too close to it to be "
-        "eliminated, and a network this large is not solved without that elimination"
+        f"the {size - 1} unknowns of this network could not be reduced to the device terminals (the "
+        "linear rest is singular or too close to it, or there is no rest), and a Newton iteration on "
+        f"more than {_DENSE_FALLBACK} unknowns at once is not attempted"
     )
+
+
+# Unknowns up to which a large network whose linear part cannot be eliminated sparse is
+# reduced densely as a small one is (an SVD of 1,000 unknowns takes about a second).
+_DENSE_FALLBACK = 1_000
 
 
 # --- Newton ---------------------------------------------------------------------------------
