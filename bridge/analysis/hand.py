@@ -1503,7 +1503,8 @@ class _NodeEquations:
     index: dict[str, int]
     matrix: list[list[float]]
     rhs: list[float]
-    sparse: object = None  # a large system (linear.is_large): `matrix` in CSR, its rows being dicts
+    # A large system (linear.is_large): `matrix` in CSR here, its rows in `matrix` being dicts.
+    sparse: object = field(default=None, repr=False, compare=False)
 
 
 def _node_equations(dc: _DcCircuit) -> _NodeEquations:
