@@ -28,6 +28,18 @@ GOAL_SECONDS = 5.0
 REFUSAL_SECONDS = 1.0
 
 
+def star_netlist(path: Path, strings: int) -> Path:
+    """The gate at the hub of `strings` two-resistor strings to vdd or ground: one node joined
+    to thousands (2·strings + 1 resistors)."""
+    lines = ["Greenhouse sensor board: gate at the hub of a star of sensor strings", "VDD vdd 0 DC 5",
+             "RD vdd drain 10k", "M1 drain gate 0 0 NS W=20u L=2u",
+             ".model NS nmos (level=1 vto=0.7 kp=120u lambda=0.02 gamma=0.4 phi=0.65)"]
+    for k in range(strings):
+        lines += [f"RA{k} gate h{k} 10k", f"RB{k} h{k} {'vdd' if k % 3 else '0'} 22k"]
+    path.write_text("\n".join(lines + [".op", ".end"]) + "\n")
+    return path
+
+
 def measure(arguments: list[str]) -> tuple[int, float, float, float]:
     """Exit status, wall seconds, CPU seconds and max RSS (MB) of one `python -m bridge` run."""
     env = dict(os.environ, NO_COLOR="1")
@@ -62,6 +74,10 @@ def main() -> int:
         side = 70
         path = mesh_netlist(here / "mesh.cir", side)
         results.append(report(f"check: {side}×{side} mesh, {2 * side * (side - 1):,} resistors",
+                              ["check", str(path)], GOAL_SECONDS, (0, 1)))
+        strings = (MAX_CARDS - 5) // 2
+        path = star_netlist(here / "star.cir", strings)
+        results.append(report(f"check: star, one node joined to {strings:,} strings ({2 * strings + 1:,} R)",
                               ["check", str(path)], GOAL_SECONDS, (0, 1)))
         path = ladder_netlist(here / "too_long.cir", MAX_CARDS + 1_000)
         results.append(report(f"check refuses {MAX_CARDS + 1_004:,} cards (located, exit 2)",
