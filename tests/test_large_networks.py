@@ -188,11 +188,11 @@ def test_sweep_past_its_element_limit_is_refused_with_a_location(tmp_path, capsy
 
 
 @needs_ngspice
-def test_network_of_device_terminals_only_falls_back_to_the_dense_reduction(tmp_path):
+def test_network_of_device_terminals_only_is_solved_without_elimination(tmp_path):
     """100 divider-biased stages and a MOSFET on the supply node: every node is a device
-    terminal (201 nodes, 202 unknowns, past linear.SPARSE_FROM), so the sparse elimination has
-    nothing to eliminate but the supply's branch current, whose row is empty there; the dense
-    reduction takes over. The level-1 answer against `ngspice -b` on the same file."""
+    terminal (201 nodes, 202 unknowns, past linear.SPARSE_FROM), so there is nothing to
+    eliminate and Newton solves the whole system through a sparse LU. The level-1 answer
+    against `ngspice -b` on the same file."""
     lines = ["Dynamo light bank: a hundred dimmer stages", f"VDD vdd 0 DC {VDD}", MODEL,
              f"MX vdd s0 0 0 NLED W={W} L={L}"]
     for k in range(100):
@@ -205,3 +205,21 @@ def test_network_of_device_terminals_only_falls_back_to_the_dense_reduction(tmp_
     printed = ngspice_batch_op(path)
     for node in ("vdd", "s0", "d0", "s57", "d57", "d99"):
         assert point.voltage(node) == pytest.approx(printed[node], abs=1e-6), node
+
+
+def test_subcircuit_instances_past_the_element_limit_are_refused_at_the_instance(tmp_path):
+    """A 100-resistor tap cell instantiated 2,000 times: some 2,100 cards, 200,000 elements once
+    flattened. Refused at the instance that crosses the limit (the 100th, X99, passes 10,000)."""
+    lines = ["Dynamo light: a string of tap cells", f"VDD vdd 0 DC {VDD}", ".subckt cell a b"]
+    lines += [f"R{k} {'a' if k == 0 else f'i{k}'} {'b' if k == 99 else f'i{k + 1}'} 10" for k in range(100)]
+    lines += [".ends", f"RD vdd drain {RD}", f"M1 drain gate 0 0 NLED W={W} L={L}", MODEL]
+    taps = ["vdd"] + [f"t{k}" for k in range(1, 2000)] + ["0"]
+    taps[1000] = "gate"
+    first = len(lines) + 1
+    lines += [f"X{k} {taps[k]} {taps[k + 1]} cell" for k in range(2000)]
+    path = tmp_path / "cells.cir"
+    path.write_text("\n".join(lines + [".op", ".end"]) + "\n")
+    with pytest.raises(NetlistError) as info:
+        read_netlist(path)
+    assert f"with `X99` the flattened circuit has more than {MAX_CARDS} elements" in info.value.message
+    assert (info.value.location.file, info.value.location.line) == (str(path), first + 99)

@@ -30,13 +30,21 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from functools import cached_property
 from typing import NamedTuple
 
 import numpy as np
 
-from bridge.analysis.linear import condition_estimate, solve_dense, sparse_factor, stamp_rows, stamped
+from bridge.analysis.linear import (
+    SPARSE_FROM,
+    condition_estimate,
+    copy_rows,
+    solve_dense,
+    sparse_factor,
+    stamp_rows,
+    stamped,
+)
 from bridge.devices.level1 import (
     DEFAULT_L,
     DEFAULT_W,
@@ -199,6 +207,8 @@ class OperatingPoint:
 
 
 def _lookup(table: Mapping[str, object], name: str) -> str:
+    if name in table:  # as written: names are unique ignoring case (build refuses duplicates)
+        return name
     wanted = name.lower()
     for key in table:
         if key.lower() == wanted:
@@ -868,11 +878,10 @@ def _reduce_large(net: _Network, diagonal_gmin: float, *, eliminate: bool = True
 
     The same Schur complement, with the eliminated block factored by a sparse LU instead of
     a dense solve, and its rank test a 1-norm condition estimate from that LU instead of an
-    SVD (``linear.condition_estimate``), against the same tolerance. Where neither the device
-    terminals nor those and the branch currents can be kept alone, the network is handed to
-    the dense `_reduce` (SVD rank tests, keeping every unknown at worst) up to
-    _DENSE_FALLBACK unknowns, and refused (DcSolveError) beyond: Newton's dense system would
-    have thousands of rows.
+    SVD (``linear.condition_estimate``), against the same tolerance. Kept unknowns become
+    Newton's dense system, so that is tried only while they are fewer than SPARSE_FROM (many
+    devices make the eliminated rest couple all of them). Otherwise, or where the rest is not
+    regular, nothing is eliminated and Newton's system stays sparse (`_keep_all_sparse`).
     """
     size = net.size
     full = net.linear[1:, 1:].tocsr()
@@ -891,8 +900,8 @@ def _reduce_large(net: _Network, diagonal_gmin: float, *, eliminate: bool = True
     for kept_set in (touched, touched | branches) if eliminate else ():
         kept = sorted(kept_set)
         rest = [j for j in range(1, size) if j not in kept_set]
-        if not rest:
-            break  # every unknown is a device terminal: nothing to eliminate
+        if not rest or len(kept) >= SPARSE_FROM:
+            break  # nothing to eliminate, or a kept system too large to be dense
         kept_at, rest_at = np.array(kept, dtype=int) - 1, np.array(rest, dtype=int) - 1
         kept_rows, rest_rows = full[kept_at], full[rest_at]
         kk, kr = kept_rows[:, kept_at].toarray(), kept_rows[:, rest_at]
@@ -921,19 +930,27 @@ def _reduce_large(net: _Network, diagonal_gmin: float, *, eliminate: bool = True
             recover_sources=on_sources,
             recover_kept=tuple(tuple(row) for row in on_kept.tolist()),
         )
-    if size - 1 <= _DENSE_FALLBACK:
-        dense = replace(net, linear=net.linear.toarray())
-        return _reduce(dense, diagonal_gmin, eliminate=eliminate)
-    raise DcSolveError(
-        f"the {size - 1} unknowns of this network could not be reduced to the device terminals (the "
-        "linear rest is singular or too close to it, or there is no rest), and a Newton iteration on "
-        f"more than {_DENSE_FALLBACK} unknowns at once is not attempted"
+    return _keep_all_sparse(full, columns, size)
+
+
+def _keep_all_sparse(full, columns: np.ndarray, size: int) -> _Reduction:
+    """The reduction that eliminates nothing, its matrix as sparse rows (dicts, column → value):
+    Newton stamps the devices into copies of them and solves by a sparse LU (linear.solve_dense)."""
+    rows = full.tocsr()
+    matrix = tuple(
+        dict(zip(rows.indices[rows.indptr[k]:rows.indptr[k + 1]].tolist(),
+                 rows.data[rows.indptr[k]:rows.indptr[k + 1]].tolist()))
+        for k in range(size - 1)
+    )  # fmt: skip
+    return _Reduction(
+        kept=tuple(range(1, size)),
+        position=(-1, *range(size - 1)),
+        matrix=matrix,
+        source_map=columns,
+        eliminated=(),
+        recover_sources=np.zeros((0, columns.shape[1])),
+        recover_kept=(),
     )
-
-
-# Unknowns up to which a large network whose linear part cannot be eliminated sparse is
-# reduced densely as a small one is (an SVD of 1,000 unknowns takes about a second).
-_DENSE_FALLBACK = 1_000
 
 
 # --- Newton ---------------------------------------------------------------------------------
@@ -1010,7 +1027,7 @@ def _newton(
     ]  # fmt: skip
     loose_count = 0
     for iteration in range(1, max_iterations + 1):
-        matrix = [list(row) for row in reduction.matrix]
+        matrix = copy_rows(reduction.matrix)
         rhs = base_rhs[:]
         # As in ngspice, only a clipped junction step (pnjlim's icheck) forbids convergence;
         # fetlim/limvds steps are caught by the device current test instead. That matters for

@@ -18,6 +18,7 @@ __all__ = [
     "SPARSE_FROM",
     "as_array",
     "condition_estimate",
+    "copy_rows",
     "is_large",
     "solve_dense",
     "sparse_factor",
@@ -55,6 +56,8 @@ def solve_dense(matrix: list[list[float]], rhs: list[float]) -> list[float] | No
         y = (second - factor * first) / pivot
         return [(first - b * y) / a, y]
     if size > PLAIN_SOLVE_LIMIT:
+        if isinstance(matrix[0], dict):  # sparse rows (a large system): a sparse LU
+            return _solve_rows(matrix, rhs)
         try:
             return np.linalg.solve(as_array(matrix), np.array(rhs)).tolist()
         except np.linalg.LinAlgError:
@@ -118,6 +121,29 @@ def stamped(rows: list, size: int):
     """The matrix of `stamp_rows` rows: a dense array for a small system, CSR for a large one."""
     if not is_large(size):
         return np.array(rows, dtype=float).reshape(size, size)
+    return _csr(rows, size)
+
+
+def copy_rows(rows) -> list:
+    """Fresh rows to stamp into: lists of a dense system's rows, dicts (missing means 0) of
+    sparse ones."""
+    if rows and isinstance(rows[0], dict):
+        return [defaultdict(float, row) for row in rows]
+    return [list(row) for row in rows]
+
+
+def _solve_rows(rows: list, rhs: list[float]) -> list[float] | None:
+    """`solve_dense` for sparse rows: a sparse LU; None when a pivot is exactly zero."""
+    try:
+        factor = sparse_factor(_csr(rows, len(rows)))
+    except np.linalg.LinAlgError:
+        return None
+    with np.errstate(all="ignore"):
+        return factor.solve(np.array(rhs, dtype=float)).tolist()
+
+
+def _csr(rows: list, size: int):
+    """Dict rows (column → value) as a CSR matrix."""
     from scipy.sparse import csr_matrix
 
     indptr = np.zeros(size + 1, dtype=np.int64)
