@@ -48,7 +48,7 @@ from .parser import (
     Word,
     parse_card,
 )
-from .source import Deck, LogicalCard
+from .source import MAX_CARDS, Deck, LogicalCard
 
 MODEL_TYPES = {"nmos", "pmos", "d", "npn", "pnp"}
 MODEL_TYPES_FOR = {"m": {"nmos", "pmos"}, "d": {"d"}, "q": {"npn", "pnp"}}
@@ -70,6 +70,8 @@ INSTANCE_FLAGS: dict[str, frozenset[str]] = {
     "q": frozenset({"off"}),
 }
 MAX_SUBCKT_DEPTH = 10
+# Elements after flattening: the card limit's bound, which `X` instances could otherwise multiply.
+MAX_ELEMENTS = MAX_CARDS
 _IDENTIFIER = re.compile(r"^[a-z_][a-z0-9_]*$", re.IGNORECASE)
 
 
@@ -451,6 +453,12 @@ class _Builder:
         )
         inner.models = {}
         self.instantiate(definition.body, inner)
+        if len(self.elements) > MAX_ELEMENTS:
+            raise card.error(
+                f"with `{raw.name}` the flattened circuit has more than {MAX_ELEMENTS} elements: far beyond a "
+                "single-stage netlist, refused",
+                0,
+            )
 
     def find_definition(self, name: str, scope: _Scope) -> _Definition | None:
         return scope.definitions.get(name.lower())
