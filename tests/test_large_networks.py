@@ -23,6 +23,7 @@ from bridge.analysis.sweep import MAX_SWEEP_ELEMENTS
 from bridge.check import check_circuit
 from bridge.cli import main
 from bridge.netlist import NetlistError, read_netlist
+from bridge.netlist.build import MAX_DEVICES
 from bridge.netlist.source import MAX_CARDS
 
 VDD, VTO, KP, W, L = 6.0, 0.8, 110e-6, 40e-6, 2e-6
@@ -223,3 +224,17 @@ def test_subcircuit_instances_past_the_element_limit_are_refused_at_the_instance
         read_netlist(path)
     assert f"with `X99` the flattened circuit has more than {MAX_CARDS} elements" in info.value.message
     assert (info.value.location.file, info.value.location.line) == (str(path), first + 99)
+
+
+def test_more_transistors_than_the_device_limit_are_refused_at_the_first_too_many(tmp_path):
+    lines = ["Dynamo light bank: divider-biased dimmer stages", f"VDD vdd 0 DC {VDD}", MODEL]
+    for k in range(MAX_DEVICES + 1):
+        lines += [f"RD{k} vdd d{k} 22k", f"RA{k} vdd s{k} 100k", f"RB{k} s{k} 0 100k",
+                  f"M{k} d{k} s{k} 0 0 NLED W={W} L={L}"]
+    path = tmp_path / "bank.cir"
+    path.write_text("\n".join(lines + [".op", ".end"]) + "\n")
+    with pytest.raises(NetlistError) as info:
+        read_netlist(path)
+    assert f"more than {MAX_DEVICES} transistors and diodes (M{MAX_DEVICES} is number" in info.value.message
+    # Title, VDD, .model, then four cards a stage with the MOSFET last.
+    assert (info.value.location.file, info.value.location.line) == (str(path), 3 + 4 * (MAX_DEVICES + 1))

@@ -22,6 +22,7 @@ sys.path.insert(0, str(REPO / "tests"))
 from test_large_networks import ladder_netlist, mesh_netlist  # noqa: E402
 
 from bridge.analysis.sweep import MAX_SWEEP_ELEMENTS  # noqa: E402
+from bridge.netlist.build import MAX_DEVICES  # noqa: E402
 from bridge.netlist.source import MAX_CARDS  # noqa: E402
 
 GOAL_SECONDS = 5.0
@@ -36,6 +37,30 @@ def star_netlist(path: Path, strings: int) -> Path:
              ".model NS nmos (level=1 vto=0.7 kp=120u lambda=0.02 gamma=0.4 phi=0.65)"]
     for k in range(strings):
         lines += [f"RA{k} gate h{k} 10k", f"RB{k} h{k} {'vdd' if k % 3 else '0'} 22k"]
+    path.write_text("\n".join(lines + [".op", ".end"]) + "\n")
+    return path
+
+
+def bank_netlist(path: Path, stages: int) -> Path:
+    """`stages` divider-biased common-source stages on one supply: 4 cards and a MOSFET each."""
+    lines = ["Dynamo light bank: divider-biased dimmer stages", "VDD vdd 0 DC 6",
+             ".model NLED nmos (level=1 vto=0.8 kp=110u lambda=0.03 gamma=0.35 phi=0.7)"]
+    for k in range(stages):
+        lines += [f"RD{k} vdd d{k} 22k", f"RA{k} vdd s{k} {100 + k}k", f"RB{k} s{k} 0 100k",
+                  f"M{k} d{k} s{k} 0 0 NLED W=40u L=2u"]
+    path.write_text("\n".join(lines + [".op", ".end"]) + "\n")
+    return path
+
+
+def cell_string_netlist(path: Path, instances: int) -> Path:
+    """A 100-resistor cell instantiated `instances` times in a string: few cards, many elements."""
+    lines = ["Dynamo light: a string of tap cells", "VDD vdd 0 DC 6", ".subckt cell a b"]
+    lines += [f"R{k} {'a' if k == 0 else f'i{k}'} {'b' if k == 99 else f'i{k + 1}'} 10" for k in range(100)]
+    lines += [".ends", "RD vdd drain 560", "M1 drain gate 0 0 NLED W=40u L=2u",
+              ".model NLED nmos (level=1 vto=0.8 kp=110u lambda=0.03 gamma=0.35 phi=0.7)"]
+    taps = ["vdd"] + [f"t{k}" for k in range(1, instances)] + ["0"]
+    taps[instances // 2] = "gate"
+    lines += [f"X{k} {taps[k]} {taps[k + 1]} cell" for k in range(instances)]
     path.write_text("\n".join(lines + [".op", ".end"]) + "\n")
     return path
 
@@ -79,6 +104,16 @@ def main() -> int:
         path = star_netlist(here / "star.cir", strings)
         results.append(report(f"check: star, one node joined to {strings:,} strings ({2 * strings + 1:,} R)",
                               ["check", str(path)], GOAL_SECONDS, (0, 1)))
+        path = bank_netlist(here / "bank.cir", MAX_DEVICES)
+        results.append(report(f"check: {MAX_DEVICES:,} MOSFET stages on one supply ({4 * MAX_DEVICES + 4:,} cards)",
+                              ["check", str(path)], GOAL_SECONDS, (0, 1)))
+        stages = (MAX_CARDS - 4) // 4
+        path = bank_netlist(here / "big_bank.cir", stages)
+        results.append(report(f"check refuses {stages:,} MOSFET stages (located, exit 2)",
+                              ["check", str(path)], REFUSAL_SECONDS * 2, (2,)))
+        path = cell_string_netlist(here / "cells.cir", 2_000)
+        results.append(report("check refuses 2,000 × a 100-resistor cell (located, exit 2)",
+                              ["check", str(path)], REFUSAL_SECONDS, (2,)))
         path = ladder_netlist(here / "too_long.cir", MAX_CARDS + 1_000)
         results.append(report(f"check refuses {MAX_CARDS + 1_004:,} cards (located, exit 2)",
                               ["check", str(path)], REFUSAL_SECONDS, (2,)))
