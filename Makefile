@@ -34,7 +34,8 @@ test: install
 	$(BIN)/python -m pytest
 
 bench: install
-	$(BIN)/python tests/bench/run.py; a=$$?; $(BIN)/python tests/bench/sweep_bench.py; b=$$?; exit $$((a || b))
+	$(BIN)/python tests/bench/run.py; a=$$?; $(BIN)/python tests/bench/sweep_bench.py; b=$$?; \
+	$(BIN)/python tests/bench/large_bench.py; c=$$?; exit $$((a || b || c))
 
 lint: install
 	$(BIN)/ruff check bridge tests

@@ -262,6 +262,7 @@ def command_sweep(args: argparse.Namespace) -> int:
         gate_bias_source,
         independent_source,
         output_node,
+        refuse_large_sweep,
         sweep_values,
         transfer_curve,
     )
@@ -276,6 +277,7 @@ def command_sweep(args: argparse.Namespace) -> int:
 
     try:
         circuit = read_netlist(args.file)
+        refuse_large_sweep(circuit)
     except NetlistError as exc:
         print(exc.render(), file=sys.stderr)
         if args.json:

@@ -39,7 +39,15 @@ from typing import NamedTuple
 
 import numpy as np
 
-from bridge.analysis.linear import solve_dense
+from bridge.analysis.linear import (
+    SPARSE_FROM,
+    condition_estimate,
+    copy_rows,
+    solve_dense,
+    sparse_factor,
+    stamp_rows,
+    stamped,
+)
 from bridge.devices.level1 import (
     CELSIUS_TO_KELVIN,
     CIRCUIT_TEMPERATURE_C,
@@ -204,6 +212,8 @@ class OperatingPoint:
 
 
 def _lookup(table: Mapping[str, object], name: str) -> str:
+    if name in table:  # as written: names are unique ignoring case (build refuses duplicates)
+        return name
     wanted = name.lower()
     for key in table:
         if key.lower() == wanted:
@@ -376,7 +386,7 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
     branch_index = {e.name.lower(): 1 + len(nodes) + k for k, e in enumerate(branch_elements)}
     size = 1 + len(nodes) + len(branch_elements)
     # Stamped in plain floats (numpy's per-element indexing is slow), the same sums in the same order.
-    linear = [[0.0] * size for _ in range(size)]
+    linear = stamp_rows(size)  # dict rows from linear.SPARSE_FROM unknowns on
     sources = [e for e in circuit.elements if e.kind in ("vsource", "isource")]
     source_columns = [[0.0] * len(sources) for _ in range(size)]
     source_column = {e.name: k for k, e in enumerate(sources)}
@@ -451,7 +461,7 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
     return _Network(
         nodes=nodes,
         branch_names=tuple(e.name for e in branch_elements),
-        linear=np.array(linear, dtype=float).reshape(size, size),
+        linear=stamped(linear, size),
         source_columns=np.array(source_columns, dtype=float).reshape(size, len(sources)),
         source_names=tuple(e.name for e in sources),
         source_defaults=np.array([float(e.value or 0.0) for e in sources]),
@@ -886,6 +896,8 @@ def _reduce(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _
     (a voltage source straight across two device terminals leaves its branch row empty
     there), the branch currents are kept too, and failing that (or without `eliminate`)
     nothing is eliminated."""
+    if not isinstance(net.linear, np.ndarray):
+        return _reduce_large(net, diagonal_gmin, eliminate=eliminate)
     size = net.size
     full = net.linear[1:, 1:].copy()
     if diagonal_gmin:
@@ -932,6 +944,86 @@ def _reduce(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _
             recover_kept=tuple(tuple(row) for row in on_kept.tolist()),
         )
     raise AssertionError("keeping every unknown always gives a reduction")  # pragma: no cover
+
+
+def _reduce_large(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _Reduction:
+    """`_reduce` for a network stamped sparse (linear.SPARSE_FROM unknowns or more).
+
+    The same Schur complement, with the eliminated block factored by a sparse LU instead of
+    a dense solve, and its rank test a 1-norm condition estimate from that LU instead of an
+    SVD (``linear.condition_estimate``), against the same tolerance. Kept unknowns become
+    Newton's dense system, so that is tried only while they are fewer than SPARSE_FROM (many
+    devices make the eliminated rest couple all of them). Otherwise, or where the rest is not
+    regular, nothing is eliminated and Newton's system stays sparse (`_keep_all_sparse`).
+    """
+    size = net.size
+    full = net.linear[1:, 1:].tocsr()
+    if diagonal_gmin:
+        node_count = len(net.nodes)
+        diagonal = np.zeros(size - 1)
+        diagonal[:node_count] = diagonal_gmin
+        from scipy.sparse import diags
+
+        full = (full + diags(diagonal)).tocsr()
+    columns = net.source_columns[1:]
+    touched = {i for mos in net.mosfets for i in (mos.drain, mos.gate, mos.source, mos.bulk)}
+    touched |= {i for diode in net.diodes for i in (diode.anode, diode.cathode)}
+    touched.discard(0)
+    branches = set(range(1 + len(net.nodes), size))
+    for kept_set in (touched, touched | branches) if eliminate else ():
+        kept = sorted(kept_set)
+        rest = [j for j in range(1, size) if j not in kept_set]
+        if not rest or len(kept) >= SPARSE_FROM:
+            break  # nothing to eliminate, or a kept system too large to be dense
+        kept_at, rest_at = np.array(kept, dtype=int) - 1, np.array(rest, dtype=int) - 1
+        kept_rows, rest_rows = full[kept_at], full[rest_at]
+        kk, kr = kept_rows[:, kept_at].toarray(), kept_rows[:, rest_at]
+        rk, rr = rest_rows[:, kept_at].toarray(), rest_rows[:, rest_at].tocsc()
+        count = len(kept)
+        kept_sources, rest_sources = columns[kept_at], columns[rest_at]
+        try:
+            factor = sparse_factor(rr)
+        except np.linalg.LinAlgError:
+            continue
+        # numpy's matrix_rank tolerance, σmin ≤ σmax·n·ε, read as a condition number.
+        if not condition_estimate(rr, factor) < 1.0 / (len(rest) * _EPS):
+            continue
+        weights = factor.solve(np.concatenate((rk, rest_sources), axis=1))
+        on_kept, on_sources = weights[:, :count], weights[:, count:]
+        matrix, source_map = kk - kr @ on_kept, kept_sources - kr @ on_sources
+        position = [-1] * size
+        for place, index in enumerate(kept):
+            position[index] = place
+        return _Reduction(
+            kept=tuple(kept),
+            position=tuple(position),
+            matrix=tuple(tuple(row) for row in np.asarray(matrix).tolist()),
+            source_map=np.asarray(source_map),
+            eliminated=tuple(rest),
+            recover_sources=on_sources,
+            recover_kept=tuple(tuple(row) for row in on_kept.tolist()),
+        )
+    return _keep_all_sparse(full, columns, size)
+
+
+def _keep_all_sparse(full, columns: np.ndarray, size: int) -> _Reduction:
+    """The reduction that eliminates nothing, its matrix as sparse rows (dicts, column → value):
+    Newton stamps the devices into copies of them and solves by a sparse LU (linear.solve_dense)."""
+    rows = full.tocsr()
+    matrix = tuple(
+        dict(zip(rows.indices[rows.indptr[k]:rows.indptr[k + 1]].tolist(),
+                 rows.data[rows.indptr[k]:rows.indptr[k + 1]].tolist()))
+        for k in range(size - 1)
+    )  # fmt: skip
+    return _Reduction(
+        kept=tuple(range(1, size)),
+        position=(-1, *range(size - 1)),
+        matrix=matrix,
+        source_map=columns,
+        eliminated=(),
+        recover_sources=np.zeros((0, columns.shape[1])),
+        recover_kept=(),
+    )
 
 
 # --- Newton ---------------------------------------------------------------------------------
@@ -1008,7 +1100,7 @@ def _newton(
     ]  # fmt: skip
     loose_count = 0
     for iteration in range(1, max_iterations + 1):
-        matrix = [list(row) for row in reduction.matrix]
+        matrix = copy_rows(reduction.matrix)
         rhs = base_rhs[:]
         # As in ngspice, only a clipped junction step (pnjlim's icheck) forbids convergence;
         # fetlim/limvds steps are caught by the device current test instead. That matters for

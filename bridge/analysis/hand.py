@@ -47,7 +47,7 @@ from ..devices.level1 import (
 )
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
-from .linear import as_array, solve_dense
+from .linear import as_array, condition_estimate, is_large, solve_dense, sparse_factor, stamp_rows, stamped
 
 __all__ = [
     "EFFECTS",
@@ -213,6 +213,9 @@ class _DcCircuit:
     # the transistors, and the copies HandModel.solve makes with other transistor models share
     # this list, so the attribution's re-solves build them once.
     equations: list[_NodeEquations] = field(default_factory=list, repr=False, compare=False)
+    # Per node, the resistors touching it in `resistors` order, once built (_resistors_at); shared
+    # by the copies HandModel.solve makes like `equations`.
+    incidence: dict[str, list[_Resistor]] = field(default_factory=dict, repr=False, compare=False)
 
 
 def _number(value: object, what: str, element: Element) -> float:
@@ -423,6 +426,9 @@ class _Network:
     injection: np.ndarray
     device: np.ndarray
     rows: list[list[float]]  # the conductance matrix in plain floats, to cut blocks from
+    # A large network (linear.is_large) has `conductance` in CSR and `rows` as dicts; the sparse
+    # LU of the whole matrix is kept here once made.
+    factors: dict[str, object] = field(default_factory=dict, repr=False, compare=False)
 
     def block(self, rows: list[int], columns: list[int]) -> np.ndarray:
         """``conductance[np.ix_(rows, columns)]``: the same array, without np.ix_'s overhead."""
@@ -436,7 +442,7 @@ def _network(dc: _DcCircuit, transistor: _Transistor) -> _Network:
     index = {node: k for k, node in enumerate(free)}
     size = len(free)
     # Stamped in plain floats (numpy's per-element indexing is slow), the same sums in the same order.
-    conductance = [[0.0] * size for _ in range(size)]
+    conductance = stamp_rows(size)  # dict rows from linear.SPARSE_FROM unknowns on
     injection = [0.0] * size
     for resistor in dc.resistors:
         g = 1.0 / resistor.resistance
@@ -459,7 +465,7 @@ def _network(dc: _DcCircuit, transistor: _Transistor) -> _Network:
         device[index[transistor.drain]] -= p
     if transistor.source in index:
         device[index[transistor.source]] += p
-    matrix = np.array(conductance, dtype=float).reshape(size, size)
+    matrix = stamped(conductance, size)
     return _Network(free, index, matrix, np.array(injection, dtype=float), np.array(device, dtype=float), conductance)
 
 
@@ -491,6 +497,8 @@ def _unanchored_groups(dc: _DcCircuit, net: _Network) -> list[set[str]]:
 
 def _reduce(net: _Network, kept: list[str], ports: list[str]) -> tuple[np.ndarray, np.ndarray]:
     """Kron reduction onto `ports`: Y·v_ports = J_ports, the other kept nodes eliminated."""
+    if _large(net):
+        return _reduce_large(net, kept, ports)
     internal = [n for n in kept if n not in ports]
     pi = [net.index[n] for n in ports]
     ii = [net.index[n] for n in internal]
@@ -504,6 +512,73 @@ def _reduce(net: _Network, kept: list[str], ports: list[str]) -> tuple[np.ndarra
         y -= coupling @ solved[:, :-1]
         jt -= coupling @ solved[:, -1]
     return y, jt
+
+
+def _large(net: _Network) -> bool:
+    """Whether `net` was stamped sparse (linear.is_large): its solves go through a sparse LU."""
+    return not isinstance(net.conductance, np.ndarray)
+
+
+def _whole_factor(net: _Network):
+    """The sparse LU of a large network's whole conductance matrix, made once."""
+    if "whole" not in net.factors:
+        net.factors["whole"] = sparse_factor(net.conductance)
+    return net.factors["whole"]
+
+
+def _solve_whole(net: _Network, rhs: np.ndarray) -> np.ndarray:
+    """G⁻¹·rhs on all free nodes (raises np.linalg.LinAlgError when G is singular)."""
+    if not _large(net):
+        return np.linalg.solve(net.conductance, rhs)
+    return _whole_factor(net).solve(np.asarray(rhs, dtype=float))
+
+
+def _solve_block(net: _Network, rows: list[int], rhs: np.ndarray) -> np.ndarray:
+    """The block of G on `rows` (the same rows as columns) solved for `rhs`."""
+    if not _large(net):
+        return np.linalg.solve(net.block(rows, rows), rhs)
+    at = np.array(rows, dtype=int)
+    return sparse_factor(net.conductance[at][:, at]).solve(np.asarray(rhs, dtype=float))
+
+
+def _reduce_large(net: _Network, kept: list[str], ports: list[str]) -> tuple[np.ndarray, np.ndarray]:
+    """`_reduce` on a large network: the internal block factored by a sparse LU."""
+    port_set = set(ports)
+    internal = [n for n in kept if n not in port_set]
+    pi = np.array([net.index[n] for n in ports], dtype=int)
+    ii = np.array([net.index[n] for n in internal], dtype=int)
+    g, j = net.conductance, net.injection
+    port_rows = g[pi]
+    y = port_rows[:, pi].toarray()
+    jt = j[pi]
+    if len(ii):
+        internal_rows = g[ii]
+        rhs = np.column_stack([internal_rows[:, pi].toarray(), j[ii]])
+        solved = sparse_factor(internal_rows[:, ii]).solve(rhs)
+        coupling = port_rows[:, ii]
+        y -= coupling @ solved[:, :-1]
+        jt -= coupling @ solved[:, -1]
+    return y, jt
+
+
+def _solve_network_large(net: _Network, kept: list[str], drain_current: float) -> dict[str, float]:
+    """`_solve_network` on a large network (sparse LU)."""
+    if len(kept) == len(net.nodes):
+        solution = _solve_whole(net, net.injection + drain_current * net.device)
+    else:
+        idx = [net.index[n] for n in kept]
+        solution = _solve_block(net, idx, net.injection[idx] + drain_current * net.device[idx])
+    return dict(zip(kept, solution.tolist(), strict=True))
+
+
+def _resistors_at(dc: _DcCircuit, node: str) -> list[_Resistor]:
+    """The resistors touching `node`, in `dc.resistors` order (an index built on first use)."""
+    if not dc.incidence and dc.resistors:
+        for resistor in dc.resistors:
+            dc.incidence.setdefault(resistor.a, []).append(resistor)
+            if resistor.b != resistor.a:
+                dc.incidence.setdefault(resistor.b, []).append(resistor)
+    return dc.incidence.get(node, [])
 
 
 @dataclass(frozen=True)
@@ -550,9 +625,7 @@ def _group_resistors(dc: _DcCircuit, node: str, skip: str | None) -> tuple[str, 
     names: dict[str, None] = {}
     while frontier:
         here = frontier.pop()
-        for resistor in dc.resistors:
-            if here not in (resistor.a, resistor.b):
-                continue
+        for resistor in _resistors_at(dc, here):
             there = resistor.b if resistor.a == here else resistor.a
             names.setdefault(resistor.name, None)
             if there not in dc.fixed and there != skip and there not in seen:
@@ -738,10 +811,10 @@ def _recognise(dc: _DcCircuit) -> tuple[str, _Stage | None, str | None]:
         response = None
         if held is None:
             # The affine closed form's slopes; the solve doubles as the test that the network is regular.
-            response = np.linalg.solve(net.conductance, net.device)
+            response = _solve_whole(net, net.device)
         elif kept:
             rows = [net.index[n] for n in kept]
-            np.linalg.solve(net.block(rows, rows), np.ones(len(rows)))
+            _solve_block(net, rows, np.ones(len(rows)))
     except np.linalg.LinAlgError:
         return f"{pmos}single MOSFET, other bias network", None, "the resistive network is singular"
     stage = _Stage(transistor, net, gate, drain, source, held, held_current, held_by, response)
@@ -1057,6 +1130,8 @@ def _solve_network(net: _Network, kept: list[str], drain_current: float) -> dict
     """The voltages of the `kept` nodes (a subsequence of net.nodes) with the device drawing ID."""
     if not kept:
         return {}
+    if _large(net):
+        return _solve_network_large(net, kept, drain_current)
     if len(kept) == len(net.nodes):  # all of them: the arrays as they are
         matrix, injection, device = net.conductance, net.injection, net.device
     else:
@@ -1464,6 +1539,8 @@ class _NodeEquations:
     index: dict[str, int]
     matrix: list[list[float]]
     rhs: list[float]
+    # A large system (linear.is_large): `matrix` in CSR here, its rows in `matrix` being dicts.
+    sparse: object = field(default=None, repr=False, compare=False)
 
 
 def _node_equations(dc: _DcCircuit) -> _NodeEquations:
@@ -1477,7 +1554,7 @@ def _node_equations(dc: _DcCircuit) -> _NodeEquations:
     size = len(nodes) + len(branches)
     # The algebra in plain floats: a stage leaves a handful of unknowns, where numpy's per-call
     # overhead would be most of the time (bridge.analysis.linear).
-    matrix = [[0.0] * size for _ in range(size)]
+    matrix = stamp_rows(size)  # dict rows from linear.SPARSE_FROM unknowns on
     rhs = [0.0] * size
 
     def slot(node: str) -> int | None:
@@ -1532,7 +1609,7 @@ def _node_equations(dc: _DcCircuit) -> _NodeEquations:
             gain = _number(element.value, "gain", element)
             add(a, control(element), gain)
             add(b, control(element), -gain)
-    equations = _NodeEquations(nodes, index, matrix, rhs)
+    equations = _NodeEquations(nodes, index, matrix, rhs, stamped(matrix, size) if is_large(size) else None)
     dc.equations.append(equations)
     return equations
 
@@ -1544,6 +1621,8 @@ def _solve_numerically(dc: _DcCircuit, start: Mapping[str, float] | None = None)
     starts each one-effect re-solve from the plain hand point), from zero otherwise.
     """
     equations = _node_equations(dc)
+    if equations.sparse is not None:
+        return _solve_numerically_large(dc, equations, start)
     nodes, index, base, source_side = equations.nodes, equations.index, equations.matrix, equations.rhs
     size = len(source_side)
 
@@ -1614,6 +1693,109 @@ def _solve_numerically(dc: _DcCircuit, start: Mapping[str, float] | None = None)
         # A cut-off device can leave a node held by nothing at the start: lean on a shunt
         # conductance to ground, shrink it away, and finish without one.
         x = [0.0] * size
+        for gmin in _GMIN_LADDER:
+            attempt, used = newton(x, gmin)
+            spent += used
+            if attempt is None:
+                break
+            x = attempt
+        x, used = newton(x, 0.0)
+        spent += used
+    if x is None:
+        raise HandAnalysisError(
+            "the simplified model (square law, λ = γ = 0, no gate current) has no operating point Newton's "
+            "method could find: the circuit may have none, or several nodes the model leaves undetermined "
+            "(e.g. a saturated drain held only by a current source)"
+        )
+    voltages = {GROUND: 0.0}
+    voltages.update({node: float(x[k]) for node, k in index.items()})
+    return voltages, spent
+
+
+def _solve_numerically_large(
+    dc: _DcCircuit, equations: _NodeEquations, start: Mapping[str, float] | None
+) -> tuple[dict[str, float], int]:
+    """`_solve_numerically` for a large system (linear.is_large): the same damped Newton, gmin
+    ladder and stopping rule, with the jacobian kept sparse and solved by a sparse LU.
+
+    The condition test is the 1-norm estimate from that LU (``linear.condition_estimate``)
+    against the same 1e15, in place of the SVD: an SVD of thousands of unknowns costs minutes.
+    """
+    from scipy.sparse import coo_matrix, diags
+
+    nodes, index, base = equations.nodes, equations.index, equations.sparse
+    source_side = np.array(equations.rhs, dtype=float)
+    size = len(source_side)
+    node_count = len(nodes)
+    devices = []
+    for t in dc.transistors:
+        terminals = tuple(index.get(n) for n in (t.drain, t.gate, t.source, t.bulk))
+        rows = tuple((row, sign) for row, sign in ((terminals[0], 1.0), (terminals[2], -1.0)) if row is not None)
+        columns = tuple((col, k) for k, col in enumerate(terminals) if col is not None)
+        devices.append((t.model, t.geometry, terminals, rows, columns))
+    node_diagonal = np.zeros(size)
+    node_diagonal[:node_count] = 1.0
+
+    def system(x: np.ndarray, gmin: float):
+        residual = base @ x - source_side
+        at_rows: list[int] = []
+        at_columns: list[int] = []
+        values: list[float] = []
+        if gmin:
+            residual += gmin * node_diagonal * x
+        for model, geometry, (d, g, s, b), rows, columns in devices:
+            point = evaluate(
+                model,
+                geometry,
+                0.0 if d is None else float(x[d]),
+                0.0 if g is None else float(x[g]),
+                0.0 if s is None else float(x[s]),
+                0.0 if b is None else float(x[b]),
+            )
+            current, partials = point.drain_current, point.conductances
+            for row, sign in rows:
+                residual[row] += sign * current
+                for col, k in columns:
+                    at_rows.append(row)
+                    at_columns.append(col)
+                    values.append(sign * partials[k])
+        jacobian = base + coo_matrix((values, (at_rows, at_columns)), shape=(size, size))
+        if gmin:
+            jacobian = jacobian + diags(gmin * node_diagonal)
+        return residual, jacobian.tocsc()
+
+    def newton(x: np.ndarray, gmin: float) -> tuple[np.ndarray | None, int]:
+        for iteration in range(1, _NEWTON_ITERATIONS + 1):
+            residual, jacobian = system(x, gmin)
+            try:
+                factor = sparse_factor(jacobian)
+            except np.linalg.LinAlgError:
+                return None, iteration
+            with np.errstate(all="ignore"):
+                steps = factor.solve(-residual)
+            bad = not condition_estimate(jacobian, factor) <= _ILL_CONDITIONED
+            if not math.isfinite(float(steps.sum())) or bad:
+                return None, iteration
+            largest = float(np.abs(steps[:node_count]).max()) if nodes else 0.0
+            widest = float(np.abs(x[:node_count]).max()) if nodes else 0.0
+            limit = max(_NEWTON_STEP_LIMIT, 0.5 * widest)
+            if largest > limit:
+                steps = steps * (limit / largest)
+            x = x + steps
+            scale = 1.0 + (float(np.abs(x[:node_count]).max()) if nodes else 0.0)
+            if largest <= 1e-13 * scale:
+                return x, iteration
+        return None, _NEWTON_ITERATIONS
+
+    spent = 0
+    initial = np.zeros(size)
+    if start:
+        for node, k in index.items():
+            initial[k] = start.get(node, 0.0)
+    x, used = newton(initial, 0.0)
+    spent += used
+    if x is None:
+        x = np.zeros(size)
         for gmin in _GMIN_LADDER:
             attempt, used = newton(x, gmin)
             spent += used

@@ -1479,3 +1479,29 @@ def transfer_curve(
         findings=tuple(findings),
         gate_bias=gate_bias,
     )
+
+
+# --- size -----------------------------------------------------------------------------------
+
+# Elements a sweep takes. It solves the hand model anew at every grid point and at every step
+# of the edge search (some 240 solves for the default 201 points), each of them linear in the
+# size of the network: at 500 elements that is about 4 s (`make bench`; 1,000 took 6 s, 5,000
+# over half a minute of CPU). `check` solves each column once and takes up to the card limit.
+MAX_SWEEP_ELEMENTS = 500
+
+
+def refuse_large_sweep(circuit: Circuit) -> None:
+    """Raise NetlistError at the first element past MAX_SWEEP_ELEMENTS, if there is one."""
+    from ..netlist.errors import Location, NetlistError
+
+    if len(circuit.elements) <= MAX_SWEEP_ELEMENTS:
+        return
+    # Located by the element's origin; the text is not read again (nothing after Circuit does).
+    element = circuit.elements[MAX_SWEEP_ELEMENTS]
+    origin = element.origin
+    raise NetlistError(
+        f"`sweep` takes at most {MAX_SWEEP_ELEMENTS} elements and this netlist has {len(circuit.elements)} "
+        f"({element.name} is number {MAX_SWEEP_ELEMENTS + 1}): a sweep re-solves the whole network at every "
+        "point; `check` takes the whole netlist",
+        Location(origin.file, origin.line, 1),
+    )

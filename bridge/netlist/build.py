@@ -49,7 +49,7 @@ from .parser import (
     Word,
     parse_card,
 )
-from .source import Deck, LogicalCard
+from .source import MAX_CARDS, Deck, LogicalCard
 
 MODEL_TYPES = {"nmos", "pmos", "d", "npn", "pnp"}
 MODEL_TYPES_FOR = {"m": {"nmos", "pmos"}, "d": {"d"}, "q": {"npn", "pnp"}}
@@ -71,6 +71,12 @@ INSTANCE_FLAGS: dict[str, frozenset[str]] = {
     "q": frozenset({"off"}),
 }
 MAX_SUBCKT_DEPTH = 10
+# Elements after flattening: the card limit's bound, which `X` instances could otherwise multiply.
+MAX_ELEMENTS = MAX_CARDS
+# Semiconductor devices (MOSFETs, diodes, BJTs). Each costs Python work in every Newton iteration
+# of the own solvers: 1,000 MOSFET stages check in about 3 s, 2,400 took over 6 s (`make bench`).
+MAX_DEVICES = 1_000
+_DEVICE_KINDS = frozenset({"mosfet", "diode", "bjt"})
 _IDENTIFIER = re.compile(r"^[a-z_][a-z0-9_]*$", re.IGNORECASE)
 
 
@@ -147,6 +153,7 @@ class _Builder:
         scope = _Scope(params={})
         self.collect_globals(top)
         self.instantiate(top, scope)
+        self.check_device_count()
         analyses = tuple(self.analysis(raw) for raw in self.analyses)
         return Circuit(
             title=self.deck.title,
@@ -365,6 +372,17 @@ class _Builder:
         self.elements.append(element)
         self.element_cards[name.lower()] = card
 
+    def check_device_count(self) -> None:
+        """Refuse more than MAX_DEVICES semiconductor devices, at the card of the first too many."""
+        devices = [e for e in self.elements if e.kind in _DEVICE_KINDS]
+        if len(devices) > MAX_DEVICES:
+            extra = devices[MAX_DEVICES]
+            raise self.element_cards[extra.name.lower()].error(
+                f"more than {MAX_DEVICES} transistors and diodes ({extra.name} is number {MAX_DEVICES + 1}): far "
+                "beyond a single-stage netlist, refused",
+                0,
+            )
+
     def instance_item(
         self, raw: RawElement, item, scope: _Scope, params: dict[str, float | str], flags: list[str]
     ) -> None:
@@ -479,6 +497,12 @@ class _Builder:
         )
         inner.models = {}
         self.instantiate(definition.body, inner)
+        if len(self.elements) > MAX_ELEMENTS:
+            raise card.error(
+                f"with `{raw.name}` the flattened circuit has more than {MAX_ELEMENTS} elements: far beyond a "
+                "single-stage netlist, refused",
+                0,
+            )
 
     def find_definition(self, name: str, scope: _Scope) -> _Definition | None:
         return scope.definitions.get(name.lower())
