@@ -1,11 +1,12 @@
-"""Dump `check --json` and `check --steps` for every example and test netlist, to compare runs.
+"""Dump `check --json`, `check --steps` and `sweep --json` for every example and test netlist, to compare runs.
 
     python tests/bench/dump_results.py OUT_FOLDER
 
 The netlists: netlists/*.cir, and every plain string literal in tests/*.py that reads as a
 single-stage netlist (a `.model` card and a MOSFET card). Each is checked on its own (one
 `biasbridge` per file and mode), with NO_COLOR, and its stdout, stderr and exit status are
-written to OUT_FOLDER/<name>.json.txt and <name>.steps.txt. Run it before and after a change
+written to OUT_FOLDER/<name>.json.txt, <name>.steps.txt and <name>.sweep.txt (a test netlist's
+name is a digest of its text, so moving a test does not rename it). Run it before and after a change
 and `diff -r` the two folders: a change that must keep the results identical shows none.
 """
 
@@ -37,7 +38,7 @@ def test_netlists(folder: Path) -> list[Path]:
         for node in ast.walk(ast.parse(source.read_text())):
             if isinstance(node, ast.Constant) and isinstance(node.value, str) and _looks_like_netlist(node.value):
                 digest = hashlib.sha1(node.value.encode()).hexdigest()[:10]
-                path = folder / f"{source.stem}_{node.lineno}_{digest}.cir"
+                path = folder / f"t_{digest}.cir"
                 path.write_text(node.value)
                 paths.append(path)
     return paths
@@ -51,13 +52,15 @@ def main() -> int:
     paths = sorted(EXAMPLES.glob("*.cir")) + test_netlists(inputs)
     env = dict(os.environ, NO_COLOR="1", COLUMNS="100")
     env.pop("FORCE_COLOR", None)
+    paths = list(dict.fromkeys(paths))  # the same text in two tests: once
+    runs = {".json": ["check", "--json"], ".steps": ["check", "--steps"], ".sweep": ["sweep", "--json"]}
     for path in paths:
-        for mode in ("--json", "--steps"):
-            run = subprocess.run([str(BIASBRIDGE), "check", mode, path.name], capture_output=True, text=True,
+        for suffix, arguments in runs.items():
+            run = subprocess.run([str(BIASBRIDGE), *arguments, path.name], capture_output=True, text=True,
                                  cwd=path.parent, env=env, timeout=120)
             text = f"exit {run.returncode}\n--- stdout\n{run.stdout}--- stderr\n{run.stderr}"
-            (out / f"{path.stem}{mode.replace('--', '.')}.txt").write_text(text)
-    print(f"{len(paths)} netlists, {2 * len(paths)} outputs in {out}")
+            (out / f"{path.stem}{suffix}.txt").write_text(text)
+    print(f"{len(paths)} netlists, {len(runs) * len(paths)} outputs in {out}")
     return 0
 
 
