@@ -8,10 +8,14 @@ import sys
 import zipfile
 from pathlib import Path
 
+import pytest
 from conftest import REPO
 
 
+@pytest.mark.slow
 def test_plain_install_finds_grammar_and_examples(tmp_path):
+    """A real wheel built and installed by pip, then run from elsewhere: 5–10 s of pip on a
+    shared machine, which no shortcut replaces (an editable install would find the files anyway)."""
     wheels = tmp_path / "wheels"
     subprocess.run(
         [sys.executable, "-m", "pip", "wheel", "--quiet", "--no-deps",
