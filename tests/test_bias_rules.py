@@ -78,8 +78,9 @@ M1 d g 0 0 NG W=20u L=2u
 
 
 @pytest.fixture(scope="module")
-def session(ngspice_session):
-    return ngspice_session
+def session(required_ngspice_session):
+    """The module's ngspice worker: tests that take it skip where the library is absent."""
+    return required_ngspice_session
 
 
 def check(text: str, name: str, session):
@@ -108,8 +109,6 @@ def ngspice_prints(tmp_path, text: str, vectors: str) -> dict[str, float]:
 
 @needs_ngspice
 def test_forward_body_bias_lowers_the_threshold_and_the_junction_conducts(session, tmp_path):
-    if session is None:
-        pytest.skip("the ngspice shared library is not installed")
     result = check(SOIL_PROBE, "soil.cir", session)
     # reference: ngspice -b, @m1[von] with vbs = +5 V (ngspice linearises the body term there)
     reference = ngspice_prints(tmp_path, SOIL_PROBE, "@m1[von] @m1[vbs]")
@@ -127,8 +126,6 @@ def test_forward_body_bias_lowers_the_threshold_and_the_junction_conducts(sessio
 
 @needs_ngspice
 def test_pmos_bulk_at_ground_is_forward_biased_and_lowers_the_threshold(session, tmp_path):
-    if session is None:
-        pytest.skip("the ngspice shared library is not installed")
     result = check(VENT_MOTOR, "vent.cir", session)
     # reference: ngspice -b; von carries the PMOS sign, so the threshold is −von
     reference = ngspice_prints(tmp_path, VENT_MOTOR, "@m1[von] @m1[vbs] v(s)")
@@ -145,8 +142,6 @@ def test_pmos_bulk_at_ground_is_forward_biased_and_lowers_the_threshold(session,
 
 @needs_ngspice
 def test_reverse_body_bias_still_raises_the_threshold(session, tmp_path):
-    if session is None:
-        pytest.skip("the ngspice shared library is not installed")
     result = check(FAN, "fan.cir", session)
     # reference: ngspice -b; the PMOS runs swapped, its body bias is vbd = vbs − vds
     reference = ngspice_prints(tmp_path, FAN, "@m1[von] @m1[vbs] @m1[vds]")
@@ -180,8 +175,6 @@ def test_cause_line_lists_the_body_effect_where_it_acts():
 
 @needs_ngspice
 def test_backwards_current_source_is_a_circuit_finding_not_a_solver_defect(session, tmp_path):
-    if session is None:
-        pytest.skip("the ngspice shared library is not installed")
     result = check(HEATER, "heater.cir", session)
     # reference: ngspice -b puts the source node at 300 µA · 500 kΩ = 150 V, and its device
     # vectors are not its node voltages there
@@ -215,8 +208,6 @@ def test_current_source_the_right_way_round_is_no_finding():
 
 @needs_ngspice
 def test_supply_current_and_power_in_every_column(session, tmp_path):
-    if session is None:
-        pytest.skip("the ngspice shared library is not installed")
     text = LAMP
     result = check(text, "lamp.cir", session)
     # reference: ngspice -b, vdd#branch (into n+: the delivered current is its negative)
@@ -304,8 +295,6 @@ def test_rules_read_only_the_circuit_and_its_solutions():
 
 @needs_ngspice
 def test_upside_down_pmos_rows_add_up_or_are_empty_with_a_reason(session, tmp_path):
-    if session is None:
-        pytest.skip("the ngspice shared library is not installed")
     result = check(FAN, "fan.cir", session)
     # reference: ngspice -b reports the terminal vgs and vds (vds < 0: mode −1) and von, vdsat of
     # the swapped device: its overdrive is −vdsat (PMOS sign), not vgs − vth

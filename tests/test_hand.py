@@ -199,6 +199,32 @@ def test_cutoff_when_the_gate_sits_below_threshold():
     assert "cutoff" in working(solution)
 
 
+def test_parallel_devices_multiply_k_in_the_source_resistor_quadratic():
+    c = circuit("VDD vdd 0 5\nR1 vdd g 100k\nR2 g 0 50k\nRD vdd d 4.7k\nRS s 0 1k\nM1 d g s 0 nch w=20u l=2u m=4")
+    k, rs = 4 * K_N, 1e3  # M = 4 devices in parallel: four times K
+    drive = 5 * 50 / 150 - VT_N
+    low, _ = roots(k / 2 * rs**2, -(k * rs * drive + 1), k / 2 * drive**2)
+    device = only_device(hand_analysis(c))
+    assert device.region == "saturation"
+    assert close(device.id, low)
+    assert close(device.vov, drive - low * rs)
+
+
+def test_effective_length_and_kp_from_uo_and_tox():
+    # K = KP·W/Leff with Leff = L − 2·LD; without KP, KP = UO·Cox, Cox = 3.9·ε0/TOX, UO in cm²/V·s
+    # (textbook, from memory; ε0 recalled to 4 digits, hence the looser tolerance).
+    lateral = hand_analysis(parse_netlist(
+        "ld\nVDD vdd 0 5\nR1 vdd g 300k\nR2 g 0 100k\nRD vdd d 8k\nM1 d g 0 0 nch W=10u L=1.5u\n"
+        ".model nch nmos (vto=0.6 kp=100u ld=0.2u lambda=0.01)\n.end\n"))
+    leff = 1.5e-6 - 2 * 0.2e-6
+    assert close(only_device(lateral).id, 100e-6 * 10e-6 / leff / 2 * (1.25 - 0.6) ** 2)
+    derived = hand_analysis(parse_netlist(
+        "uo\nVDD vdd 0 5\nR1 vdd g 200k\nR2 g 0 100k\nRD vdd d 10k\nM1 d g 0 0 nch W=10u L=2u\n"
+        ".model nch nmos (vto=0.7 uo=450 tox=20n)\n.end\n"))
+    kp = 450e-4 * 3.9 * 8.854e-12 / 20e-9
+    assert only_device(derived).id == pytest.approx(kp * 10 / 2 / 2 * (5 / 3 - 0.7) ** 2, rel=1e-4)
+
+
 # --- current source in the source ---------------------------------------------------------
 
 

@@ -94,6 +94,26 @@ def reproducible(max_examples: int) -> settings:
     )
 
 
+def at_two_depths(quick: int, thorough: int, *strategies):
+    """The property below, checked on `quick` fixed examples in every run (a few hundred, a few
+    seconds at most) and again on `thorough` examples under the `slow` mark, which `make test`
+    and CI run and `pytest -m "not slow"` leaves out: those runs take 5–15 s each on a shared
+    2-core machine, the price of thousands of inputs."""
+
+    def decorate(body):
+        def test(examples: int) -> None:
+            reproducible(examples)(given(*strategies)(body))()
+
+        test.__name__, test.__qualname__ = body.__name__, body.__qualname__
+        test.__doc__ = ((body.__doc__ or "").strip() + f"\n\nAt {thorough} examples (the `slow` mark) this takes "
+                        "over 5 s: thousands of inputs are the point of a property test.").strip()
+        depths = [pytest.param(quick, id=f"{quick}-examples"),
+                  pytest.param(thorough, id=f"{thorough}-examples", marks=pytest.mark.slow)]
+        return pytest.mark.parametrize("examples", depths)(test)
+
+    return decorate
+
+
 # ---- strategies -----------------------------------------------------------------------------
 
 SPICE_CHARACTERS = (
@@ -310,15 +330,13 @@ def parse(text: str):
 # ---- (a) and (b): nothing but NetlistError ------------------------------------------------------
 
 
-@reproducible(2000)
-@given(random_text)
+@at_two_depths(300, 2000, random_text)
 def test_random_text_is_understood_or_refused_with_a_netlist_error(text):
     with contextlib.suppress(NetlistError):
         parse(text)
 
 
-@reproducible(2500)
-@given(mutated_netlists())
+@at_two_depths(300, 2500, mutated_netlists())
 def test_mistyped_netlist_is_understood_or_refused_with_a_netlist_error(text):
     with contextlib.suppress(NetlistError):
         parse(text)
@@ -327,8 +345,7 @@ def test_mistyped_netlist_is_understood_or_refused_with_a_netlist_error(text):
 # ---- (c): every error has a place in the file ---------------------------------------------------
 
 
-@reproducible(2000)
-@given(st.one_of(mutated_netlists(), random_text))
+@at_two_depths(300, 2000, st.one_of(mutated_netlists(), random_text))
 def test_every_netlist_error_renders_file_line_column_inside_the_file(text):
     try:
         parse(text)
@@ -350,8 +367,7 @@ def test_emit_parse_emit_is_a_fixed_point_for_every_seed_netlist(seed):
     assert_emit_is_a_fixed_point(parse(SEEDS[seed]))
 
 
-@reproducible(2000)
-@given(mutated_netlists())
+@at_two_depths(300, 2000, mutated_netlists())
 def test_emit_parse_emit_is_a_fixed_point_for_whatever_parses(text):
     try:
         circuit = parse(text)
@@ -360,8 +376,7 @@ def test_emit_parse_emit_is_a_fixed_point_for_whatever_parses(text):
     assert_emit_is_a_fixed_point(circuit)
 
 
-@reproducible(400)
-@given(generated_circuits())
+@at_two_depths(100, 400, generated_circuits())
 def test_emit_parse_emit_is_a_fixed_point_for_generated_circuits(text):
     try:
         circuit = parse(text)
@@ -371,8 +386,7 @@ def test_emit_parse_emit_is_a_fixed_point_for_generated_circuits(text):
     assert_emit_is_a_fixed_point(circuit)
 
 
-@reproducible(1000)
-@given(st.floats(allow_nan=False, allow_infinity=False))
+@at_two_depths(300, 3000, st.floats(allow_nan=False, allow_infinity=False))
 def test_emitted_number_reads_back_as_the_same_float(value):
     circuit = parse(f"title\nV1 a 0 dc {number(value)}\n.end\n")
     assert circuit.element("V1").value == value
@@ -384,8 +398,9 @@ def test_emitted_number_reads_back_as_the_same_float(value):
 @reproducible(50)
 @given(st.text(alphabet=st.characters(categories=["Cs"]), min_size=1, max_size=3))
 def test_text_with_lone_surrogates_is_refused_with_a_netlist_error(junk):
-    with contextlib.suppress(NetlistError):
+    with pytest.raises(NetlistError) as refused:
         parse(f"title\nR1 a 0 1{junk}\n.end\n")
+    assert refused.value.location.line == 2
 
 
 def test_number_overflowing_through_meg_is_refused_where_it_is_written():

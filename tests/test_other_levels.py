@@ -304,6 +304,7 @@ def test_sweep_finds_the_cutoff_edge_from_the_familys_own_threshold(name, card_f
                                                                      tmp_path):
     # Reference: ngspice -b's own .dc at 0.1 mV steps, the first point where @m1[vgs] − @m1[vth]
     # turns positive. The sweep reads BSIM's `vth` (it read `von`, which BSIM lacks, and found no edge).
+    # The fine .dc spans 0.1 V either side of the edge found (2,001 points, not 18,001 over 0–1.8 V).
     import numpy as np
 
     from bridge.analysis.sweep import transfer_curve
@@ -316,10 +317,13 @@ def test_sweep_finds_the_cutoff_edge_from_the_familys_own_threshold(name, card_f
     crossing = next(c for c in edge.crossings if c.boundary == "cutoff_saturation")
 
     deck = tmp_path / "fine.cir"
-    deck.write_text(CARDS[name].replace(".op\n", ".save v(vdd) @m1[vgs] @m1[vth]\n.control\ndc VDD 0 1.8 1e-4\n"
+    low = max(0.0, round(crossing.at - 0.1, 4))
+    deck.write_text(CARDS[name].replace(".op\n", ".save v(vdd) @m1[vgs] @m1[vth]\n.control\n"
+                                        f"dc VDD {low} {low + 0.2:.4f} 1e-4\n"
                                         f"print v(vdd) @m1[vgs] @m1[vth] > {tmp_path / 'fine.txt'}\n.endc\n"))
     subprocess.run([NGSPICE, "-b", str(deck)], capture_output=True, text=True, timeout=60, cwd=tmp_path)
     rows = [line.split() for line in (tmp_path / "fine.txt").read_text().splitlines()]
     numbers = [[float(v) for v in row[2:5]] for row in rows if len(row) == 5 and row[0].isdigit()]
+    assert numbers[0][1] - numbers[0][2] <= 0  # the fine window starts below the edge
     reference = next(vdd for vdd, vgs, vth in numbers if vgs - vth > 0)
     assert abs(crossing.at - reference) <= crossing.accuracy + 1e-4

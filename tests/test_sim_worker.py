@@ -12,6 +12,7 @@ import signal
 import subprocess
 import sys
 import threading
+import time
 from pathlib import Path
 
 import pytest
@@ -293,29 +294,64 @@ def test_library_that_will_not_load_reports_unavailable(tmp_path):
     session.close()
 
 
+def held_worker_answered(pending, pid: int) -> tuple[bool, float]:
+    """`pending.answered` asked while the worker `pid` is held with SIGSTOP (it can send nothing),
+    and how long the question took. A safety timer lets the worker go after 2 s, so an `answered`
+    that waited would come back late (and be caught by the caller) rather than hang."""
+    release = threading.Timer(2.0, os.kill, (pid, signal.SIGCONT))
+    release.start()
+    try:
+        asked = time.monotonic()
+        answered = pending.answered
+        return answered, time.monotonic() - asked
+    finally:
+        release.cancel()
+
+
+def wait_until_answered(pending, seconds: float = 10.0) -> None:
+    deadline = time.monotonic() + seconds
+    while not pending.answered and time.monotonic() < deadline:
+        time.sleep(0.01)
+
+
 @needs_ngspice
 def test_answered_says_whether_result_would_wait_and_never_waits_itself():
-    import time
-
+    """The worker is held with SIGSTOP for a time the test chooses: its answer cannot arrive, so
+    `answered` must say False at once; let go, the answer comes and `answered` turns True."""
     with NgspiceSession() as session:
         session.spawn()
-        pending = session.submit(deck(LONG_SWEEP), timeout=30.0)
-        # A worker still starting, then seconds of ngspice: had it waited, the answer would be in.
-        assert not pending.answered
-        while not pending.answered:
-            time.sleep(0.05)
-        assert len(pending.result()["v(b)"]) > 1
+        pid = session.worker_pid
+        os.kill(pid, signal.SIGSTOP)  # held while starting: neither the handshake nor an answer
+        try:
+            pending = session.submit(deck(STAGE_OP), timeout=30.0)
+            time.sleep(0.2)  # ample time for an answer, were the worker running
+            answered, took = held_worker_answered(pending, pid)
+            assert not answered
+            assert took < 0.5
+        finally:
+            os.kill(pid, signal.SIGCONT)
+        wait_until_answered(pending)
+        assert pending.answered
+        assert pending.result().scalar("v(d)") == pytest.approx(NGSPICE_B_V_D, abs=5e-6)
         assert pending.answered  # and stays so once read
-        quick = session.submit(deck(SMALL_OP))
-        while not quick.answered:
-            time.sleep(0.01)
+        # A worker that is up (handshake read) and busy: one answer is what it owes.
+        os.kill(pid, signal.SIGSTOP)
+        try:
+            quick = session.submit(deck(SMALL_OP))
+            time.sleep(0.2)
+            answered, took = held_worker_answered(quick, pid)
+            assert not answered
+            assert took < 0.5
+        finally:
+            os.kill(pid, signal.SIGCONT)
+        wait_until_answered(quick)
+        assert quick.answered
         assert quick.result().scalar("b") == pytest.approx(0.5)
+        assert session.worker_pid == pid
 
 
 @needs_ngspice
 def test_answered_is_true_for_a_worker_that_died_and_result_says_so():
-    import time
-
     with NgspiceSession() as session:
         session.run(deck(SMALL_OP))
         pending = session.submit(deck(LONG_SWEEP), timeout=30.0)

@@ -64,8 +64,9 @@ RS out 0 10k
 
 
 @pytest.fixture(scope="module")
-def session(ngspice_session):
-    return ngspice_session
+def session(required_ngspice_session):
+    """Tests that take it check the ngspice column too: they skip where ngspice is absent."""
+    return required_ngspice_session
 
 
 def divider_edges() -> tuple[float, float, float]:
@@ -93,12 +94,11 @@ def test_edges_of_the_divider_common_source_match_the_closed_form(session):
     assert closed.cutoff_saturation == pytest.approx(cutoff, abs=1e-12)
     assert closed.saturation_triode == pytest.approx(triode, abs=1e-12)
     assert closed.gate_ratio == pytest.approx(0.5, abs=1e-12)
-    if session is not None:
-        sim = result.curves["sim"].edges["M1"]
-        # VOV is linear in VIN: interpolation finds the cutoff edge exactly.
-        assert sim.cutoff_saturation == pytest.approx(cutoff, abs=1e-6)
-        # VDS − VOV bends at the triode edge: the interpolation is good to a fraction of the step.
-        assert sim.saturation_triode == pytest.approx(triode, abs=0.25 * 0.05)
+    sim = result.curves["sim"].edges["M1"]
+    # VOV is linear in VIN: interpolation finds the cutoff edge exactly.
+    assert sim.cutoff_saturation == pytest.approx(cutoff, abs=1e-6)
+    # VDS − VOV bends at the triode edge: the interpolation is good to a fraction of the step.
+    assert sim.saturation_triode == pytest.approx(triode, abs=0.25 * 0.05)
 
 
 def test_hand_and_level1_edges_do_not_depend_on_the_step():
@@ -120,8 +120,7 @@ def test_hand_gain_at_the_bias_point_is_minus_gm_rd_times_the_divider_ratio(sess
     assert result.hand_gain.value == pytest.approx(expected, rel=1e-12)
     assert result.curves["hand"].gain_at_bias == pytest.approx(expected, rel=1e-6)
     assert result.curves["level1"].gain_at_bias == pytest.approx(expected, rel=1e-4)
-    if session is not None:
-        assert result.curves["sim"].gain_at_bias == pytest.approx(expected, rel=1e-3)
+    assert result.curves["sim"].gain_at_bias == pytest.approx(expected, rel=1e-3)
     # The steepest point of the curve is the saturation edge: −K·VOV·RD·r there.
     _, triode, _ = divider_edges()
     largest = result.curves["hand"].largest_gain
@@ -137,8 +136,7 @@ def test_pmos_stage_turns_on_as_the_input_falls(session):
     triode, cutoff = vdd - vt - vov, vdd - vt  # VSG = VDD − VIN
     assert default_source(circuit) == "VIN" and default_output(circuit) == "d"
     result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, step=0.05), session)
-    columns = ("hand", "level1") + (("sim",) if session is not None else ())
-    for column in columns:
+    for column in ("hand", "level1", "sim"):
         curve = result.curves[column]
         assert curve.regions["M1"][0] == "triode" and curve.regions["M1"][-1] == "cutoff"
         assert curve.output[0] > 4.0 and abs(curve.output[-1]) < 1e-6
@@ -172,9 +170,8 @@ def test_sweeping_vdd_of_the_bundled_divider_stage(session):
     # λ = 0.02 moves the level-1 triode edge, a little.
     assert result.curves["level1"].edges["M1"].saturation_triode == pytest.approx(triode, abs=0.2)
     assert result.closed_form == {}  # the swept source moves the drain rail: no closed form in VIN terms
-    if session is not None:
-        assert result.curves["sim"].edges["M1"].cutoff_saturation == pytest.approx(cutoff, abs=1e-6)
-        assert result.deviation["level1"].volts < 2e-3
+    assert result.curves["sim"].edges["M1"].cutoff_saturation == pytest.approx(cutoff, abs=1e-6)
+    assert result.deviation["level1"].volts < 2e-3
 
 
 def test_a_follower_never_reaches_triode_and_the_edge_is_null(session):
@@ -184,7 +181,7 @@ def test_a_follower_never_reaches_triode_and_the_edge_is_null(session):
     from bridge.report.sweep_view import sweep_json
 
     document = sweep_json(result)
-    for column in ("hand", "level1") + (("sim",) if session is not None else ()):
+    for column in ("hand", "level1", "sim"):
         assert document["boundaries"]["M1"][column]["saturation_triode"] is None
         assert document["boundaries"]["M1"][column]["cutoff_saturation"] == pytest.approx(0.7, abs=1e-6)
     assert 0.0 < result.curves["level1"].gain_at_bias < 1.0
@@ -491,6 +488,7 @@ M1 d g 0 0 nch w=16u l=2u
 """
 
 
+@needs_ngspice_binary
 def test_a_capacitor_coupled_gate_sweeps_its_divider_bias_in_every_column(tmp_path, session):
     from bridge.analysis.dcsolve import solve_operating_point
     from bridge.analysis.hand import hand_analysis
@@ -514,9 +512,8 @@ def test_a_capacitor_coupled_gate_sweeps_its_divider_bias_in_every_column(tmp_pa
     # At the bias value every column is the netlist's own bias point.
     assert result.curves["level1"].output[1] == pytest.approx(solve_operating_point(circuit).voltage("d"), abs=1e-9)
     assert result.curves["hand"].output[1] == pytest.approx(hand_analysis(circuit).node_voltages["d"], abs=1e-9)
-    if session is not None and NGSPICE is not None:
-        # reference: ngspice run directly on the netlist as written (`.op`, 7 digits printed)
-        assert result.curves["sim"].output[1] == pytest.approx(ngspice_batch_op(path)["d"], rel=2e-6)
+    # reference: ngspice run directly on the netlist as written (`.op`, 7 digits printed)
+    assert result.curves["sim"].output[1] == pytest.approx(ngspice_batch_op(path)["d"], rel=2e-6)
 
 
 def test_the_command_says_which_source_it_created_and_why(tmp_path, capsys, monkeypatch):

@@ -2,8 +2,9 @@
 
     python tests/bench/dump_results.py OUT_FOLDER
 
-The netlists: netlists/*.cir, and every plain string literal in tests/*.py that reads as a
-single-stage netlist (a `.model` card and a MOSFET card). Each is checked on its own (one
+The netlists: netlists/*.cir, and every plain string literal in tests/*.py (the test modules and
+check_support.py, which holds the check tests' stages) that reads as a single-stage netlist (a
+`.model` card and a MOSFET card). Each is checked on its own (one
 `biasbridge` per file and mode), with NO_COLOR, and its stdout, stderr and exit status are
 written to OUT_FOLDER/<name>.json.txt, <name>.steps.txt and <name>.sweep.txt (a test netlist's
 name is a digest of its text, so moving a test does not rename it). Run it before and after a change
@@ -34,7 +35,7 @@ def test_netlists(folder: Path) -> list[Path]:
     """The string literals of tests/*.py that read as netlists, written to `folder`."""
     paths = []
     shutil.copytree(EXAMPLES / "models", folder / "models", dirs_exist_ok=True)
-    for source in sorted((REPO / "tests").glob("test_*.py")):
+    for source in sorted((REPO / "tests").glob("*.py")):  # test modules and what they share
         for node in ast.walk(ast.parse(source.read_text())):
             if isinstance(node, ast.Constant) and isinstance(node.value, str) and _looks_like_netlist(node.value):
                 digest = hashlib.sha1(node.value.encode()).hexdigest()[:10]
