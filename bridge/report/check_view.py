@@ -27,14 +27,14 @@ from rich.segment import Segment
 from rich.style import Style
 from rich.text import Text
 
-from ..compare import COLUMN_NAMES, COLUMNS, HAND_FLOOR, NOT_AMPLIFYING, SAT_MARGIN, UNITS, CheckResult, Columns
+from ..compare import HAND_FLOOR, NOT_AMPLIFYING, CheckResult, Columns
 from ..netlist.numbers import engineering
+from ..vocabulary import COLUMN_NAMES, COLUMN_TITLES, COLUMNS, SAT_MARGIN, UNITS
 
 if TYPE_CHECKING:
     from rich.table import Table
 
 SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "info": "dim"}
-COLUMN_TITLES = {"hand": "hand", "level1": "level-1", "sim": "ngspice", "expect": "expected"}
 QUANTITY_LABELS = {SAT_MARGIN: "vds − vov"}  # the saturation margin: negative is triode
 # Finding lines in no style although info: the causes are the most useful text of a check.
 PLAIN_INFO = {"cause"}
