@@ -70,6 +70,11 @@ class DeviceComparison:
     quantities: dict[str, Columns]
     attribution: dict[str, float]
     expect_region: str | None = None
+    # The region row as the quantities' rows: the columns whose region differs from the
+    # reference column's, and those compared with it (flagged or not); see ``_region_flags``.
+    region_flagged: tuple[str, ...] = ()
+    region_compared: tuple[str, ...] = ()
+    reference_column: str = "sim"  # the column the others are judged against: ngspice, else level-1
 
 
 @dataclass(frozen=True)
@@ -285,9 +290,10 @@ def compare(
         if hand_device and (sim_device or level1_device):
             _explain(element.name, element.origin.line, quantities["id"],
                      _acting(effects, element, model, reference_device), reference_column, found)
+        expect_region = str(expected_region.value) if expected_region else None
         devices[element.name] = DeviceComparison(
             element.name, mos_type, element.model or "", element.origin.line, region, quantities, effects,
-            str(expected_region.value) if expected_region else None,
+            expect_region, *_region_flags(region, expect_region, reference_column), reference_column,
         )
     return CheckResult(
         file=circuit.source_file,
@@ -302,6 +308,19 @@ def compare(
         has_expect=expect is not None,
         tolerance=tolerance,
     )
+
+
+def _region_flags(
+    region: Mapping[str, str | None], expect_region: str | None, reference_column: str,
+) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """The columns (and the designer's expected region) whose region differs from the reference
+    column's, and every one compared with it: as the region findings judge them."""
+    reference = region.get(reference_column)
+    if reference is None:
+        return (), ()
+    values = {**region, "expect": expect_region}
+    compared = tuple(column for column, value in values.items() if value is not None and column != reference_column)
+    return tuple(column for column in compared if values[column] != reference), compared
 
 
 def _expect_place(expected: Expectation) -> str:

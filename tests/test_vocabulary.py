@@ -6,11 +6,14 @@ import ast
 import sys
 from pathlib import Path
 
+import pytest
+
 from bridge import vocabulary
 from bridge.analysis.sweep import sweep_values, transfer_curve
 from bridge.check import check_circuit
-from bridge.netlist import parse_netlist
+from bridge.netlist import parse_netlist, read_netlist
 from bridge.sim.client import SimulationFailed, SimulatorCrashed, SimulatorTimeout, SimulatorUnavailable
+from tests.conftest import EXAMPLES
 
 BRIDGE = Path(vocabulary.__file__).parent
 
@@ -142,3 +145,19 @@ def test_check_and_sweep_word_a_failed_ngspice_run_alike(required_ngspice_sessio
     assert from_check.code == "sim-no-convergence"
     assert "singular matrix" in from_check.message  # ngspice's own message, quoted
     assert from_sweep == from_check
+
+
+@pytest.mark.parametrize("simulated", [False, True], ids=["against level-1", "against ngspice"])
+def test_the_comparison_flags_the_region_row_as_its_findings_do(simulated, ngspice_session):
+    """cs_degenerated: the hand model (no body effect) puts M1 in triode, level-1 and ngspice in
+    saturation. The region row's marks come from compare, the report only shows them."""
+    if simulated and ngspice_session is None:
+        pytest.skip("ngspice is not installed")
+    result = check_circuit(read_netlist(EXAMPLES / "cs_degenerated.cir"), ngspice_session if simulated else None,
+                           tolerance=0.05)
+    device = result.devices["M1"]
+    assert device.region["hand"] == "triode" and device.region["level1"] == "saturation"
+    assert device.reference_column == ("sim" if simulated else "level1")
+    assert device.region_flagged == ("hand",)
+    assert device.region_compared == (("hand", "level1") if simulated else ("hand",))
+    assert [f.subject for f in result.findings if f.code.endswith("region-mismatch")] == ["M1"]
