@@ -131,8 +131,16 @@ def solve_own_columns(circuit: Circuit) -> OwnColumns:
                 Finding("info", "solver-method", f"level-1 solver converged by {level1.method}", None, None)
             )
     except DcSolveError as exc:
-        findings.append(Finding("error", "solver-failed", f"level-1 solver: {exc}", None, None))
+        findings.append(_solver_failed(circuit, exc))
     return OwnColumns(hand, with_effect, level1, tuple(findings))
+
+
+def _solver_failed(circuit: Circuit, error: DcSolveError) -> Finding:
+    """The level-1 solver's failure, at the line of the element it names (a BJT, a MOSFET
+    without its model, ...) when it names one."""
+    element = circuit.element(getattr(error, "element", None) or "")
+    line, subject = (element.origin.line, element.name) if element is not None else (None, None)
+    return Finding("error", "solver-failed", f"level-1 solver: {error}", line, subject)
 
 
 def _without_own_columns(other_levels) -> OwnColumns:

@@ -147,6 +147,31 @@ def test_check_and_sweep_word_a_failed_ngspice_run_alike(required_ngspice_sessio
     assert from_sweep == from_check
 
 
+# A greenhouse soil-moisture probe: an NPN buffers the probe, the MOSFET switches the pump.
+BJT_BUFFER = """\
+Greenhouse moisture probe: NPN buffer beside the pump switch
+VCC vcc 0 12
+RB vcc b 220k
+QBUF vcc b e qprobe
+RE e 0 4.7k
+RP vcc pump 100
+MPUMP pump e 0 0 npump w=200u l=2u
+.model qprobe npn(bf=150)
+.model npump nmos vto=1.5 kp=80u
+.end
+"""
+
+
+def test_solver_failure_at_an_element_carries_its_line():
+    """The level-1 solver names the BJT it does not model: the finding is at QBUF's line (4), not
+    at no line."""
+    circuit = parse_netlist(BJT_BUFFER, "probe.cir")
+    result = check_circuit(circuit, None, tolerance=0.05)
+    (failed,) = [f for f in result.findings if f.code == "solver-failed"]
+    assert "QBUF" in failed.message
+    assert (failed.line, failed.subject) == (4, "QBUF")
+
+
 @pytest.mark.parametrize("simulated", [False, True], ids=["against level-1", "against ngspice"])
 def test_the_comparison_flags_the_region_row_as_its_findings_do(simulated, ngspice_session):
     """cs_degenerated: the hand model (no body effect) puts M1 in triode, level-1 and ngspice in
