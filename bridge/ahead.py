@@ -22,11 +22,11 @@ from multiprocessing.connection import Connection
 from typing import TypeVar
 
 from .check import NotASingleStage, OwnColumns, solve_own_columns
-from .compare import Expectations
 from .expect import check_against_circuit
 from .netlist import Location, NetlistError, read_netlist
 from .netlist.circuit import Circuit
 from .netlist.parser import load_grammar
+from .vocabulary import Expectations
 
 # Below this many files the fork (a few ms) and the pickling cost more than they save.
 AHEAD_FROM = 4

@@ -23,10 +23,11 @@ from dataclasses import dataclass
 
 from .analysis.dcsolve import OperatingPoint
 from .analysis.hand import HandSolution
-from .compare import COLUMNS, Columns, Finding
+from .compare import Columns
 from .netlist.circuit import GROUND, Circuit, Element
 from .netlist.numbers import engineering
 from .sim.operating_point import SimOperatingPoint
+from .vocabulary import COLUMN_SOLUTIONS, COLUMNS, Finding
 
 # Thresholds that are rules of thumb (common practice, no source): a single-MOSFET bias stage
 # draws milliamps from its supplies, so an ampere is a mistake, not a design; a resistor under
@@ -36,7 +37,6 @@ SMALL_RESISTANCE = 1.0  # Ω
 # A node this far beyond every voltage supply (common practice, no source): millivolts can be
 # solver tolerance, half a volt is a circuit that forces it there.
 BEYOND_MARGIN = 0.5  # V
-COLUMN_TITLES = {"hand": "hand analysis", "level1": "level-1 solution", "sim": "ngspice's solution"}
 
 
 @dataclass(frozen=True)
@@ -258,7 +258,7 @@ def _beyond_supplies(circuit: Circuit, solved: _Solved) -> list[Finding]:
 
 
 def _in(column: str) -> str:
-    return f"in {'' if column == 'sim' else 'the '}{COLUMN_TITLES[column]}"
+    return f"in {'' if column == 'sim' else 'the '}{COLUMN_SOLUTIONS[column]}"
 
 
 def _names(names: list[str]) -> str:

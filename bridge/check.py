@@ -16,16 +16,17 @@ from dataclasses import dataclass, replace
 from .analysis.dcsolve import DcSolveError, OperatingPoint, solve_operating_point
 from .analysis.hand import HandAnalysisError, HandModel, HandSolution
 from .bias_rules import bias_findings, device_vector_findings, inconsistent_device_vectors, supplies
-from .compare import EFFECTS, CheckResult, Expectations, Finding, compare, not_level1_finding, other_level_cards
+from .compare import CheckResult, compare
 from .netlist.circuit import Circuit, Directive
 from .netlist.source import NOTICE_SEVERITY, notice_in
-from .sim.client import NgspiceSession, SimulationFailed, SimulatorError, SimulatorTimeout
+from .sim.client import NgspiceSession, SimulatorError
 from .sim.operating_point import (
     PendingOperatingPoint,
     SimOperatingPoint,
     simulate_operating_point,
     submit_operating_point,
 )
+from .vocabulary import EFFECTS, Expectations, Finding, not_level1_finding, other_level_cards, simulator_failure
 
 
 class NotASingleStage(ValueError):
@@ -79,7 +80,7 @@ NO_MOSFET = "the netlist has no MOSFET: biasbridge checks MOSFET bias points"
 @dataclass(frozen=True)
 class OwnColumns:
     """What a check computes without ngspice: the hand solution, its re-solves with one effect
-    switched on (``compare.EFFECTS``; None when the hand model does not cover the circuit), the
+    switched on (``vocabulary.EFFECTS``; None when the hand model does not cover the circuit), the
     level-1 operating point (None when the solver failed), and the findings these raised."""
 
     hand: HandSolution
@@ -130,8 +131,16 @@ def solve_own_columns(circuit: Circuit) -> OwnColumns:
                 Finding("info", "solver-method", f"level-1 solver converged by {level1.method}", None, None)
             )
     except DcSolveError as exc:
-        findings.append(Finding("error", "solver-failed", f"level-1 solver: {exc}", None, None))
+        findings.append(_solver_failed(circuit, exc))
     return OwnColumns(hand, with_effect, level1, tuple(findings))
+
+
+def _solver_failed(circuit: Circuit, error: DcSolveError) -> Finding:
+    """The level-1 solver's failure, at the line of the element it names (a BJT, a MOSFET
+    without its model, ...) when it names one."""
+    element = circuit.element(getattr(error, "element", None) or "")
+    line, subject = (element.origin.line, element.name) if element is not None else (None, None)
+    return Finding("error", "solver-failed", f"level-1 solver: {error}", line, subject)
 
 
 def _without_own_columns(other_levels) -> OwnColumns:
@@ -195,7 +204,7 @@ class PendingCheck:
             return
         self.submit()
         self._collected = True
-        session, findings, sim_timeout = self.session, self.findings, self.sim_timeout
+        session, findings = self.session, self.findings
         if session is None:
             findings.append(Finding("info", "no-simulator", self.unavailable_hint or "ngspice not available",
                                     None, None))
@@ -214,16 +223,8 @@ class PendingCheck:
                                             "point is not trustworthy (a node with no DC path?)", None, None))
                 else:
                     findings.append(Finding("info", "ngspice-says", message, None, None))
-        except SimulatorTimeout:
-            findings.append(Finding("error", "sim-timeout", f"ngspice did not answer within {sim_timeout:g} s; "
-                                    "the worker was restarted", None, None))
-        except SimulationFailed as exc:
-            code = "sim-no-convergence" if exc.kind == "no_convergence" else "sim-failed"
-            detail = "; ".join(exc.messages[:3]) if getattr(exc, "messages", None) else ""
-            findings.append(Finding("error", code, f"ngspice: {exc}" + (f" ({detail})" if detail else ""), None, None))
         except SimulatorError as exc:
-            findings.append(Finding("error", "sim-crashed", f"ngspice worker failed: {exc}; restarted for the "
-                                    "next netlist", None, None))
+            findings.append(simulator_failure(exc))
 
     def finish(self) -> CheckResult:
         """The check's result: ngspice's answer collected (see ``collect``), the columns compared."""

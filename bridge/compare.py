@@ -18,11 +18,19 @@ from .analysis.hand import HandSolution
 from .netlist.circuit import Circuit
 from .netlist.numbers import ABSTOL, GMIN, VNTOL, engineering
 from .sim.operating_point import SimOperatingPoint
+from .vocabulary import (
+    COLUMN_NAMES,
+    COLUMN_TITLES,
+    COLUMNS,
+    DEVICE_QUANTITIES,
+    EFFECT_NAMES,
+    SAT_MARGIN,
+    UNITS,
+    Expectation,
+    Expectations,
+    Finding,
+)
 
-DEVICE_QUANTITIES = ("id", "vgs", "vds", "vth", "vov", "gm", "gds")
-UNITS = {"id": "A", "vgs": "V", "vds": "V", "vth": "V", "vov": "V", "gm": "S", "gds": "S", "sat_margin": "V"}
-# The saturation margin vds − vov per device (the table's `vds − vov` row): negative is triode.
-SAT_MARGIN = "sat_margin"
 # Absolute floors beside the relative tolerance: a value passes when within the relative
 # tolerance of the reference OR within the floor, so near-zero values are not flagged for
 # picoamp or microvolt noise (common practice, no source): voltages, currents, conductances.
@@ -32,41 +40,8 @@ HAND_FLOOR = {"V": 5e-3, "A": 1e-9, "S": 1e-8}
 SOLVER_RELATIVE = 2e-3
 SOLVER_FLOOR = {"V": 1e-3, "A": 1e-12, "S": 1e-12}
 DEFAULT_TOLERANCE = 0.05
-EFFECTS = ("lambda", "gamma")
-EFFECT_NAMES = {"lambda": "channel-length modulation (LAMBDA)", "gamma": "body effect (GAMMA)"}
-COLUMNS = ("hand", "level1", "sim")
-COLUMN_NAMES = {"hand": "hand analysis", "level1": "level-1 solver", "sim": "ngspice"}
 # A device outside saturation: the columns may agree, but the stage does not amplify.
 NOT_AMPLIFYING = "not-amplifying"
-
-
-@dataclass(frozen=True)
-class Finding:
-    severity: str  # "error" | "warning" | "info"
-    code: str
-    message: str
-    line: int | None = None
-    subject: str | None = None
-
-
-def not_level1_finding(other_levels) -> Finding:
-    """Hand and level-1 columns left empty: both read level-1 cards only (KP, VTO, LAMBDA, GAMMA),
-    and a card of another level has none of them to read; its defaults would be numbers of a
-    device the netlist does not hold. ngspice still solves the circuit as written.
-    `other_levels`: ``Circuit.other_level_mosfets()``, not empty."""
-    cards = other_level_cards(other_levels)
-    first = other_levels[0][0]
-    one = len(other_levels) == 1
-    message = (
-        f"{cards}: the hand and level-1 columns need level-1 model cards and are left empty; "
-        "ngspice solves the card as written"
-    )
-    return Finding("info", "not-level-1", message, first.origin.line if one else None, first.name if one else None)
-
-
-def other_level_cards(other_levels) -> str:
-    """`model NB3 of M1 is LEVEL=49`, for each MOSFET of ``Circuit.other_level_mosfets()``."""
-    return ", ".join(f"model {card.name} of {element.name} is LEVEL={card.level}" for element, card in other_levels)
 
 
 @dataclass(frozen=True)
@@ -95,22 +70,11 @@ class DeviceComparison:
     quantities: dict[str, Columns]
     attribution: dict[str, float]
     expect_region: str | None = None
-
-
-@dataclass(frozen=True)
-class Expectation:
-    """The designer's own target for one quantity, with its tolerance (relative)."""
-
-    value: float | str
-    tolerance: float
-    line: int | None = None
-
-
-@dataclass(frozen=True)
-class Expectations:
-    nodes: dict[str, Expectation] = field(default_factory=dict)
-    devices: dict[str, dict[str, Expectation]] = field(default_factory=dict)
-    file: str | None = None
+    # The region row as the quantities' rows: the columns whose region differs from the
+    # reference column's, and those compared with it (flagged or not); see ``_region_flags``.
+    region_flagged: tuple[str, ...] = ()
+    region_compared: tuple[str, ...] = ()
+    reference_column: str = "sim"  # the column the others are judged against: ngspice, else level-1
 
 
 @dataclass(frozen=True)
@@ -326,9 +290,10 @@ def compare(
         if hand_device and (sim_device or level1_device):
             _explain(element.name, element.origin.line, quantities["id"],
                      _acting(effects, element, model, reference_device), reference_column, found)
+        expect_region = str(expected_region.value) if expected_region else None
         devices[element.name] = DeviceComparison(
             element.name, mos_type, element.model or "", element.origin.line, region, quantities, effects,
-            str(expected_region.value) if expected_region else None,
+            expect_region, *_region_flags(region, expect_region, reference_column), reference_column,
         )
     return CheckResult(
         file=circuit.source_file,
@@ -343,6 +308,19 @@ def compare(
         has_expect=expect is not None,
         tolerance=tolerance,
     )
+
+
+def _region_flags(
+    region: Mapping[str, str | None], expect_region: str | None, reference_column: str,
+) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """The columns (and the designer's expected region) whose region differs from the reference
+    column's, and every one compared with it: as the region findings judge them."""
+    reference = region.get(reference_column)
+    if reference is None:
+        return (), ()
+    values = {**region, "expect": expect_region}
+    compared = tuple(column for column, value in values.items() if value is not None and column != reference_column)
+    return tuple(column for column in compared if values[column] != reference), compared
 
 
 def _expect_place(expected: Expectation) -> str:
@@ -592,7 +570,7 @@ def _swapped_finding(element, mos_type: str, devices: Mapping[str, object], refe
     device = devices.get(reference_column) if reference_column in swapped else devices[swapped[0]]
     column = reference_column if reference_column in swapped else swapped[0]
     drain, _, source, _ = element.nodes
-    titles = {"hand": "hand", "level1": "level-1", "sim": "ngspice"}
+    titles = COLUMN_TITLES
     higher = "above" if mos_type == "pmos" else "below"
     message = (
         f"{element.name}: drain and source work swapped — its drain node {drain} is {higher} its source node "

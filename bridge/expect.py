@@ -16,9 +16,9 @@ import re
 import sys
 from pathlib import Path
 
-from .compare import DEVICE_QUANTITIES, Expectation, Expectations
 from .netlist.errors import Location, NetlistError
 from .netlist.numbers import NumberError, parse_number
+from .vocabulary import DEVICE_QUANTITIES, Expectation, Expectations
 
 if sys.version_info >= (3, 11):
     import tomllib

@@ -47,6 +47,8 @@ from ..devices.level1 import (
 )
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
+from ..vocabulary import EFFECTS as _EFFECT_ORDER
+from ..vocabulary import Step
 from .linear import as_array, condition_estimate, is_large, solve_dense, sparse_factor, stamp_rows, stamped
 
 __all__ = [
@@ -61,7 +63,7 @@ __all__ = [
 ]
 
 # Second-order effects the hand model leaves out and `effects` may switch back on.
-EFFECTS: frozenset[str] = frozenset({"lambda", "gamma"})
+EFFECTS: frozenset[str] = frozenset(_EFFECT_ORDER)
 
 _LINEAR_KINDS = frozenset({"resistor", "capacitor", "inductor", "vsource", "isource"})
 _CONTROLLED_KINDS = frozenset({"vcvs", "vccs", "cccs", "ccvs"})
@@ -76,19 +78,6 @@ _GMIN_LADDER = tuple(10.0**-k for k in range(2, 13))  # S, a crutch only: the an
 
 class HandAnalysisError(ValueError):
     """The circuit has no bias point under the hand model, or holds what the model excludes."""
-
-
-@dataclass(frozen=True)
-class Step:
-    """One line of the working: what is done, the equation with its numbers, and the result."""
-
-    text: str
-    equation: str | None = None
-    value: float | None = None
-    unit: str = ""
-
-    def __str__(self) -> str:
-        return f"{self.text}: {self.equation}" if self.equation else self.text
 
 
 @dataclass(frozen=True)

@@ -35,7 +35,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 from scipy.optimize import brentq
 
-from ..compare import SOLVER_FLOOR, SOLVER_RELATIVE, Finding, not_level1_finding
+from ..compare import SOLVER_FLOOR, SOLVER_RELATIVE
 from ..devices.level1 import (
     DEFAULT_L,
     DEFAULT_W,
@@ -49,8 +49,9 @@ from ..netlist.circuit import GROUND, Analysis, Circuit, DcSweep, Element, Origi
 from ..netlist.emit import SpiceDeck, emit
 from ..netlist.numbers import engineering
 from ..netlist.source import NOTICE_SEVERITY, notice_in
-from ..sim.client import NgspiceSession, SimulationFailed, SimulatorError, SimulatorTimeout
+from ..sim.client import NgspiceSession, SimulationFailed, SimulatorError
 from ..sim.operating_point import threshold_vector
+from ..vocabulary import Finding, Step, not_level1_finding, simulator_failure
 from .dcsolve import (
     DcSolveError,
     InvalidElement,
@@ -61,11 +62,10 @@ from .dcsolve import (
     solve_dc_sweep,
     solve_operating_point,
 )
-from .hand import HandAnalysisError, HandSolution, Step, hand_analysis, hand_model
+from .hand import HandAnalysisError, HandSolution, hand_analysis, hand_model
 
 __all__ = [
     "BOUNDARIES",
-    "COLUMNS",
     "MAX_POINTS",
     "ClosedFormEdges",
     "Crossing",
@@ -85,7 +85,6 @@ __all__ = [
     "with_source_value",
 ]
 
-COLUMNS = ("hand", "level1", "sim")
 BOUNDARIES = ("cutoff_saturation", "saturation_triode")
 MAX_POINTS = 100_000
 DEFAULT_POINTS = 201
@@ -932,16 +931,8 @@ def sim_curve(
                 raise
             # A device vector ngspice does not know: take what the plot has.
             result = session.run(deck, timeout=timeout)
-    except SimulatorTimeout:
-        findings.append(Finding("error", "sim-timeout", f"ngspice did not answer within {timeout:g} s; "
-                                "the worker was restarted"))
-        return None, findings
-    except SimulationFailed as exc:
-        code = "sim-no-convergence" if exc.kind == "no_convergence" else "sim-failed"
-        findings.append(Finding("error", code, f"ngspice: {exc}"))
-        return None, findings
     except SimulatorError as exc:
-        findings.append(Finding("error", "sim-crashed", f"ngspice worker failed: {exc}"))
+        findings.append(simulator_failure(exc))
         return None, findings
     findings.extend(Finding("info", "ngspice-says", message) for message in result.messages)
     if output not in result:
@@ -1424,7 +1415,7 @@ def transfer_curve(
         try:
             simulator = ("ngspice", session.version)
         except SimulatorError as exc:
-            findings.append(Finding("error", "sim-crashed", f"ngspice worker failed: {exc}"))
+            findings.append(simulator_failure(exc))
         else:
             sim, sim_findings = sim_curve(circuit, session, element.name, output, x, bias, devices, sim_timeout)
             findings += sim_findings

@@ -27,14 +27,14 @@ from rich.segment import Segment
 from rich.style import Style
 from rich.text import Text
 
-from ..compare import COLUMN_NAMES, COLUMNS, HAND_FLOOR, NOT_AMPLIFYING, SAT_MARGIN, UNITS, CheckResult, Columns
+from ..compare import HAND_FLOOR, NOT_AMPLIFYING, CheckResult, Columns
 from ..netlist.numbers import engineering
+from ..vocabulary import COLUMN_NAMES, COLUMN_TITLES, COLUMNS, SAT_MARGIN, UNITS
 
 if TYPE_CHECKING:
     from rich.table import Table
 
 SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "info": "dim"}
-COLUMN_TITLES = {"hand": "hand", "level1": "level-1", "sim": "ngspice", "expect": "expected"}
 QUANTITY_LABELS = {SAT_MARGIN: "vds − vov"}  # the saturation margin: negative is triode
 # Finding lines in no style although info: the causes are the most useful text of a check.
 PLAIN_INFO = {"cause"}
@@ -448,7 +448,7 @@ def _verdict(result: CheckResult, allow_region: bool) -> tuple[str, str]:
 
 def _region_of(result: CheckResult, name: str | None) -> str:
     device = result.devices.get(name or "")
-    region = device.region.get("sim") or device.region.get("level1") if device else None
+    region = device.region.get(device.reference_column) if device else None
     return region or "another region"
 
 
@@ -469,12 +469,10 @@ def check_renderable(result: CheckResult, steps: bool = False, *, allow_region: 
     for device in result.devices.values():
         table.add_section()
         region_cells = [(f"{device.name} region ({device.type})", "")]
-        reference_column = "sim" if device.region.get("sim") else "level1"
-        reference = device.region.get(reference_column)
         for column in shown:
             value = device.expect_region if column == "expect" else device.region.get(column)
-            differs = value is not None and reference is not None and value != reference
-            compared = value is not None and reference is not None and column != reference_column
+            differs = column in device.region_flagged
+            compared = column in device.region_compared
             region_cells.append(((value or "—") + (" !" if differs else "  "),
                                  "red" if differs else "green" if compared else "dim" if value is None else ""))
         table.add_row(region_cells)

@@ -14,7 +14,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ..analysis.sweep import COLUMNS, Curve, TransferCurve
+from ..analysis.sweep import Curve, TransferCurve
+from ..vocabulary import COLUMNS
 from .files import write_atomically
 
 FORMATS = {".png": "png", ".svg": "svg"}

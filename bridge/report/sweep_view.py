@@ -16,11 +16,10 @@ from rich.console import Group
 from rich.table import Table
 from rich.text import Text
 
-from ..analysis.hand import Step
-from ..analysis.sweep import BOUNDARIES, COLUMNS, GAIN_METHODS, TransferCurve
+from ..analysis.sweep import BOUNDARIES, GAIN_METHODS, TransferCurve
 from ..netlist.numbers import engineering
+from ..vocabulary import COLUMN_TITLES, COLUMNS, Step
 
-COLUMN_TITLES = {"hand": "hand", "level1": "level-1", "sim": "ngspice"}
 BOUNDARY_TITLES = {"cutoff_saturation": "cutoff ↔ saturation", "saturation_triode": "saturation ↔ triode"}
 SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "info": "dim"}
 # The summary table shows every number of a column with one number of decimals: DECIMALS, or

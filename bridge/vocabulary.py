@@ -1,0 +1,117 @@
+"""The words every layer shares: findings and their severities, derivation steps, the effects
+the hand model leaves out, the columns of a check, the device quantities, the designer's
+expectations, and the findings said the same way wherever they arise.
+
+A leaf: it imports nothing of biasbridge's (only the standard library), so the analyses, the
+comparison, the rules and the reports all import these names from here and none from a module
+above it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+# Severities, most serious first: an error or a warning is a disagreement (exit status 1).
+SEVERITIES = ("error", "warning", "info")
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One thing a check or a sweep tells the designer, at the element's source line when an
+    element is its subject."""
+
+    severity: str  # one of SEVERITIES
+    code: str
+    message: str
+    line: int | None = None
+    subject: str | None = None
+
+
+@dataclass(frozen=True)
+class Step:
+    """One line of the working: what is done, the equation with its numbers, and the result."""
+
+    text: str
+    equation: str | None = None
+    value: float | None = None
+    unit: str = ""
+
+    def __str__(self) -> str:
+        return f"{self.text}: {self.equation}" if self.equation else self.text
+
+
+# Second-order effects the hand model leaves out; the attribution switches each on alone.
+EFFECTS = ("lambda", "gamma")
+EFFECT_NAMES = {"lambda": "channel-length modulation (LAMBDA)", "gamma": "body effect (GAMMA)"}
+
+# The three columns of every result: the designer's square law, our level-1 solver, ngspice.
+COLUMNS = ("hand", "level1", "sim")
+# In the text of a finding ("the level-1 solver puts it in triode") ...
+COLUMN_NAMES = {"hand": "hand analysis", "level1": "level-1 solver", "sim": "ngspice"}
+# ... and as a table's column heading (with the designer's own targets beside them).
+COLUMN_TITLES = {"hand": "hand", "level1": "level-1", "sim": "ngspice", "expect": "expected"}
+# ... and as the solution a value was found in ("in the level-1 solution", "in ngspice's solution").
+COLUMN_SOLUTIONS = {"hand": "hand analysis", "level1": "level-1 solution", "sim": "ngspice's solution"}
+
+# What each column gives per transistor, in device polarity, and their units.
+DEVICE_QUANTITIES = ("id", "vgs", "vds", "vth", "vov", "gm", "gds")
+UNITS = {"id": "A", "vgs": "V", "vds": "V", "vth": "V", "vov": "V", "gm": "S", "gds": "S", "sat_margin": "V"}
+# The saturation margin vds − vov per device (the table's `vds − vov` row): negative is triode.
+SAT_MARGIN = "sat_margin"
+
+
+@dataclass(frozen=True)
+class Expectation:
+    """The designer's own target for one quantity, with its tolerance (relative)."""
+
+    value: float | str
+    tolerance: float
+    line: int | None = None
+
+
+@dataclass(frozen=True)
+class Expectations:
+    nodes: dict[str, Expectation] = field(default_factory=dict)
+    devices: dict[str, dict[str, Expectation]] = field(default_factory=dict)
+    file: str | None = None
+
+
+def not_level1_finding(other_levels) -> Finding:
+    """Hand and level-1 columns left empty: both read level-1 cards only (KP, VTO, LAMBDA, GAMMA),
+    and a card of another level has none of them to read; its defaults would be numbers of a
+    device the netlist does not hold. ngspice still solves the circuit as written.
+    `other_levels`: ``Circuit.other_level_mosfets()``, not empty."""
+    cards = other_level_cards(other_levels)
+    first = other_levels[0][0]
+    one = len(other_levels) == 1
+    message = (
+        f"{cards}: the hand and level-1 columns need level-1 model cards and are left empty; "
+        "ngspice solves the card as written"
+    )
+    return Finding("info", "not-level-1", message, first.origin.line if one else None, first.name if one else None)
+
+
+def other_level_cards(other_levels) -> str:
+    """`model NB3 of M1 is LEVEL=49`, for each MOSFET of ``Circuit.other_level_mosfets()``."""
+    return ", ".join(f"model {card.name} of {element.name} is LEVEL={card.level}" for element, card in other_levels)
+
+
+def simulator_failure(error: Exception) -> Finding:
+    """ngspice gave no answer: the error (``bridge.sim.client.SimulatorError`` or a subclass) as
+    the finding `check` and `sweep` both report.
+
+    Told apart by what the errors carry, so that this module needs none of ours: a timeout is a
+    ``TimeoutError`` with the ``timeout`` it waited (the worker is then killed); a failed
+    simulation has the ``kind`` of failure and ngspice's own ``messages`` (the first three are
+    quoted); anything else is the worker's failure as the error states it.
+    """
+    if isinstance(error, TimeoutError):
+        waited = getattr(error, "timeout", None)
+        within = f" within {waited:g} s" if isinstance(waited, (int, float)) else ""
+        return Finding("error", "sim-timeout", f"ngspice did not answer{within}; the worker was stopped")
+    kind = getattr(error, "kind", None)
+    if kind is not None:
+        code = "sim-no-convergence" if kind == "no_convergence" else "sim-failed"
+        said = "; ".join(getattr(error, "messages", ())[:3])
+        return Finding("error", code, f"ngspice: {error}" + (f" ({said})" if said else ""))
+    return Finding("error", "sim-crashed", f"ngspice worker failed: {error}")
