@@ -32,8 +32,8 @@ Nothing here reads files: the Circuit is the only input.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field, replace
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
 from functools import cached_property
 from typing import NamedTuple
 
@@ -48,18 +48,20 @@ from bridge.analysis.linear import (
     stamp_rows,
     stamped,
 )
-from bridge.devices.level1 import (
-    CELSIUS_TO_KELVIN,
-    CIRCUIT_TEMPERATURE_C,
-    DEFAULT_L,
-    DEFAULT_W,
-    K_OVER_Q,
-    Level1Geometry,
-    Level1Model,
-    Level1Point,
-    beta,
-    evaluate,
+from bridge.devices.mos1.convergence import pnjlim as _pnjlim
+from bridge.devices.mos1.convergence import vcrit as _vcrit
+from bridge.devices.mos1.instance import (
+    InstanceError,
+    ModelChoice,
+    ModelValueError,
+    Mos1Instance,
+    NotLevel1,
+    default_size,
+    mosfet_instance,
 )
+from bridge.devices.mos1.load import Level1Geometry, Level1Point, junction_current
+from bridge.devices.mos1.model import Level1Model
+from bridge.devices.mos1.params import CELSIUS_TO_KELVIN, CIRCUIT_TEMPERATURE_C, K_OVER_Q
 from bridge.netlist.circuit import GROUND, Circuit, Element, ModelCard
 
 __all__ = [
@@ -99,7 +101,6 @@ ZERO_RESISTANCE = 1e-3  # Ω: what ngspice's resistor makes of R = 0
 MAX_EXP_ARG = 709.0  # ngspice's clamp on junction exponents (exp overflows past it)
 CIRCUIT_TEMPERATURE_K = 300.15
 THERMAL_VOLTAGE = K_OVER_Q * CIRCUIT_TEMPERATURE_K  # kT/q at 27 °C, as ngspice computes it
-ROOT2 = math.sqrt(2.0)
 _EPS = float(np.finfo(float).eps)  # machine epsilon, 2.2e-16
 
 NEWTON = "newton"
@@ -226,14 +227,14 @@ def level1_model(card: ModelCard) -> Level1Model:
     return Level1Model.from_card(card.type, card.params)
 
 
-ModelChoice = Callable[[ModelCard], Level1Model]
-
 
 # --- the compiled network -----------------------------------------------------------------
 
 
 @dataclass(frozen=True)
 class _Mosfet:
+    """A MOSFET instance (``Mos1Instance``) placed in the network: its terminals' unknowns."""
+
     name: str
     drain: int
     gate: int
@@ -246,6 +247,7 @@ class _Mosfet:
     drain_vcrit: float
     source_vcrit: float
     thermal_voltage: float  # kT/q at the device temperature, for its bulk junctions
+    device: Mos1Instance
     # The last (voltages, Level1Point) evaluated: a converged point is asked for again by the
     # convergence test, the settling, the report and the next sweep point's first iteration.
     last_point: list = field(default_factory=list, compare=False, repr=False)
@@ -255,14 +257,30 @@ class _Mosfet:
         last = self.last_point
         if last and last[0] == (vd, vg, vs, vb):
             return last[1]
-        point = evaluate(self.model, self.geometry, vd, vg, vs, vb)
+        point = self.device.evaluate(vd, vg, vs, vb)
         last[:] = ((vd, vg, vs, vb), point)
         return point
 
     def junction_start(self) -> list[float]:
         """ngspice's MODEINITJCT guess: vgs = type·VTO, vds = 0, vbs = −1 (and von = vgs)."""
-        vgs = self.model.polarity * self.model.vto
-        return [vgs, 0.0, -1.0, -1.0, vgs]
+        return self.device.junction_start()
+
+    def convergence_pairs(self, entry: tuple, x: Sequence[float], gmin: float) -> tuple[tuple[float, float], ...]:
+        """MOS1convTest: the channel current and both bulk junction currents, linearised (`entry`,
+        recorded by Newton's load) and carried to `x`, beside their values at `x`."""
+        point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs = entry
+        xd, xg, xs, xb = x[self.drain], x[self.gate], x[self.source], x[self.bulk]
+        gd, gg, gs, gb = point.conductances
+        polarity = self.model.polarity
+        new_vbd, new_vbs = polarity * (xb - xd), polarity * (xb - xs)
+        return (
+            (point.drain_current + gd * (xd - vd) + gg * (xg - vg) + gs * (xs - vs) + gb * (xb - vb),
+             self.point(xd, xg, xs, xb).drain_current),
+            (cbd + gbd * (new_vbd - vbd),
+             _mos_junction(new_vbd, self.drain_saturation_current, gmin, self.thermal_voltage)[0]),
+            (cbs + gbs * (new_vbs - vbs),
+             _mos_junction(new_vbs, self.source_saturation_current, gmin, self.thermal_voltage)[0]),
+        )  # fmt: skip
 
 
 @dataclass(frozen=True)
@@ -273,6 +291,12 @@ class _Diode:
     saturation_current: float
     emission_voltage: float  # N·Vt
     vcrit: float
+
+    def convergence_pairs(self, entry: tuple, x: Sequence[float], gmin: float) -> tuple[tuple[float, float], ...]:
+        """DIOconvTest: the linearised current (`entry`) carried to `x`, beside the current there."""
+        current, conductance, vd = entry
+        new_vd = x[self.anode] - x[self.cathode]
+        return ((current + conductance * (new_vd - vd), _diode_current(new_vd, self, gmin)[0]),)
 
 
 @dataclass(frozen=True)
@@ -343,20 +367,12 @@ def _number(value: object, what: str, element: Element) -> float:
     return float(value)
 
 
-def _vcrit(thermal: float, saturation_current: float) -> float:
-    """ngspice's critical voltage for pnjlim: where the junction current bends up fastest."""
-    if saturation_current <= 0.0:
-        return math.inf
-    return thermal * math.log(thermal / (ROOT2 * saturation_current))
-
-
 def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
     """Compile the circuit once: linear stamps, source columns and the nonlinear devices."""
     caveats: list[str] = []
     options = circuit.options()
     gmin = float(options["gmin"]) if isinstance(options.get("gmin"), (int, float)) else GMIN
-    default_w = float(options["defw"]) if isinstance(options.get("defw"), (int, float)) else DEFAULT_W
-    default_l = float(options["defl"]) if isinstance(options.get("defl"), (int, float)) else DEFAULT_L
+    default_w, default_l = default_size(circuit)
     caveats.extend(_temperature_notes(circuit))
     nodeset: dict[str, float] = {}
     for directive in circuit.directives:
@@ -524,56 +540,29 @@ def _mosfet(
     default_w: float,
     default_l: float,
 ) -> _Mosfet:
-    if len(at) != 4:
-        raise InvalidElement(element.name, f"{element.name}: a MOSFET needs 4 nodes (d g s b)")
-    card = circuit.model(element.model or "")
-    if card is None or card.type.lower() not in ("nmos", "pmos"):
-        raise InvalidElement(element.name, f"{element.name}: no MOSFET model `{element.model}`")
-    if card.level != 1:
+    # One model per card and device temperature (instances with TEMP/DTEMP may differ).
+    known = set(models)
+    try:
+        device = mosfet_instance(
+            circuit, element, model_choice=model_choice, defaults=(default_w, default_l), models=models
+        )
+    except NotLevel1 as exc:
         raise UnsupportedElement(
             element.name,
-            f"{element.name}: model {card.name} is LEVEL={card.level}; this solver has level 1 only",
-        )
-    # One model per card and device temperature (instances with TEMP/DTEMP may differ).
-    temperature = circuit.device_temperature(element)
-    key = (card.name.lower(), temperature)
-    if key not in models:
-        try:
-            models[key] = _model_at_temperature(_card_with_tnom(card, circuit), model_choice, temperature)
-        except ValueError as exc:
-            raise InvalidElement(element.name, f"{element.name}: model {card.name}: {exc}") from None
-        model = models[key]
+            f"{element.name}: model {exc.card.name} is LEVEL={exc.card.level}; this solver has level 1 only",
+        ) from None
+    except ModelValueError as exc:
+        raise InvalidElement(element.name, f"{element.name}: model {exc.card.name}: {exc}") from None
+    except InstanceError as exc:
+        raise InvalidElement(element.name, f"{element.name}: {exc}") from None
+    model, card = device.model, device.card
+    if set(models) != known:
         caveats.extend(f"model {card.name}: {caveat}" for caveat in model.caveats)
         if model.unrecognised:
             names = ", ".join(n.upper() for n in model.unrecognised)
             caveats.append(f"model {card.name}: parameters not known to level 1 ignored: {names}")
-    model = models[key]
-    params = element.params
-    multiplier = _number(params.get("m", 1.0), "M", element)
-    try:
-        geometry = Level1Geometry(
-            w=_number(params.get("w", default_w), "W", element),
-            l=_number(params.get("l", default_l), "L", element),
-            m=multiplier,
-        )
-        beta(model, geometry)  # checks Leff > 0 once, not at every Newton iteration
-    except ValueError as exc:
-        raise InvalidElement(element.name, f"{element.name}: {exc}") from None
     if "off" in element.flags:
         caveats.append(f"{element.name}: OFF ignored (it only picks the starting point)")
-    # Junction saturation currents as mos1load.c: JS·area when JS and both areas are given,
-    # IS otherwise; both times M, and both at the device temperature (mos1temp.c's tSatCur,
-    # tSatCurDens: the card's value times exp(−EG(T)/Vt(T) + EG(TNOM)/Vt(TNOM))).
-    scale = model.saturation_current_factor
-    density = card.params.get("js", 0.0) * scale
-    drain_area = _number(params.get("ad", 0.0), "AD", element)
-    source_area = _number(params.get("as", 0.0), "AS", element)
-    if density == 0.0 or drain_area == 0.0 or source_area == 0.0:
-        drain_current = source_current = card.params.get("is", 1e-14) * scale * multiplier
-    else:
-        drain_current = density * drain_area * multiplier
-        source_current = density * source_area * multiplier
-    thermal = model.thermal_voltage
     return _Mosfet(
         name=element.name,
         drain=at[0],
@@ -581,27 +570,14 @@ def _mosfet(
         source=at[2],
         bulk=at[3],
         model=model,
-        geometry=geometry,
-        drain_saturation_current=drain_current,
-        source_saturation_current=source_current,
-        drain_vcrit=_vcrit(thermal, drain_current),
-        source_vcrit=_vcrit(thermal, source_current),
-        thermal_voltage=thermal,
+        geometry=device.geometry,
+        drain_saturation_current=device.drain_saturation_current,
+        source_saturation_current=device.source_saturation_current,
+        drain_vcrit=device.drain_vcrit,
+        source_vcrit=device.source_vcrit,
+        thermal_voltage=device.thermal_voltage,
+        device=device,
     )
-
-
-def _card_with_tnom(card: ModelCard, circuit: Circuit) -> ModelCard:
-    """The card with ngspice's TNOM default made explicit: a card without TNOM takes the
-    circuit's nominal temperature (`.options tnom`, mos1temp.c: `MOS1tnom = CKTnomTemp`)."""
-    nominal = circuit.nominal_temperature()
-    if "tnom" in card.params or nominal == CIRCUIT_TEMPERATURE_C:
-        return card
-    return replace(card, params={**card.params, "tnom": nominal})
-
-
-def _model_at_temperature(card: ModelCard, model_choice: ModelChoice, celsius: float) -> Level1Model:
-    """The chosen model of a card at a device temperature (°C), ngspice's temperature phase."""
-    return model_choice(card).at_temperature(celsius)
 
 
 def _diode_at_temperature(params: Mapping[str, float], celsius: float, nominal_celsius: float) -> tuple[float, float]:
@@ -715,15 +691,8 @@ def _check_structure(circuit: Circuit, nodes: tuple[str, ...]) -> None:
 def _mos_junction(
     voltage: float, saturation_current: float, gmin: float, thermal: float = THERMAL_VOLTAGE
 ) -> tuple[float, float]:
-    """mos1load.c's bulk junction: current and conductance, GMIN included; `thermal` is kT/q
-    at the device temperature."""
-    if voltage <= -3.0 * thermal:
-        return gmin * voltage - saturation_current, gmin
-    growth = math.exp(min(MAX_EXP_ARG, voltage / thermal))
-    return (
-        saturation_current * (growth - 1.0) + gmin * voltage,
-        saturation_current * growth / thermal + gmin,
-    )
+    """mos1load.c's bulk junction (``devices.mos1.load.junction_current``)."""
+    return junction_current(voltage, saturation_current, gmin, thermal)
 
 
 def _diode_current(voltage: float, diode: _Diode, gmin: float) -> tuple[float, float]:
@@ -738,95 +707,6 @@ def _diode_current(voltage: float, diode: _Diode, gmin: float) -> tuple[float, f
         current = -saturation_current * (1.0 + ratio)
         conductance = saturation_current * 3.0 * ratio / voltage
     return current + gmin * voltage, conductance + gmin
-
-
-def _pnjlim(new: float, old: float, thermal: float, vcrit: float) -> tuple[float, bool]:
-    """ngspice's DEVpnjlim: steps of a junction voltage above vcrit grow only logarithmically.
-
-    Returns the voltage to use and whether it was clipped (ngspice's icheck).
-    """
-    if new > vcrit and abs(new - old) > 2.0 * thermal:
-        if old > 0.0:
-            arg = 1.0 + (new - old) / thermal
-            return (old + thermal * math.log(arg) if arg > 0.0 else vcrit), True
-        return thermal * math.log(new / thermal), True
-    if new < 0.0:
-        # Reverse steps are limited too (ngspice's addition to the SPICE3 routine).
-        floor = -old - 1.0 if old > 0.0 else 2.0 * old - 1.0
-        if new < floor:
-            return floor, True
-    return new, False
-
-
-def _fetlim(new: float, old: float, vto: float) -> float:
-    """ngspice's DEVfetlim: keep a gate-voltage step from jumping across the threshold."""
-    high = abs(2.0 * (old - vto)) + 2.0
-    low = abs(old - vto) + 1.0
-    vtox = vto + 3.5
-    step = new - old
-    if old >= vto:
-        if old >= vtox:
-            if step <= 0.0:
-                if new >= vtox:
-                    if -step > low:
-                        new = old - low
-                else:
-                    new = max(new, vto + 2.0)
-            elif step >= high:
-                new = old + high
-        elif step <= 0.0:
-            new = max(new, vto - 0.5)
-        else:
-            new = min(new, vto + 4.0)
-    elif step <= 0.0:
-        if -step > high:
-            new = old - high
-    else:
-        vtemp = vto + 0.5
-        if new <= vtemp:
-            if step > low:
-                new = old + low
-        else:
-            new = vtemp
-    return new
-
-
-def _limvds(new: float, old: float) -> float:
-    """ngspice's DEVlimvds: bound a drain–source step."""
-    if old >= 3.5:
-        if new > old:
-            return min(new, 3.0 * old + 2.0)
-        if new < 3.5:
-            return max(new, 2.0)
-        return new
-    if new > old:
-        return min(new, 4.0)
-    return max(new, -0.5)
-
-
-def _limit_mosfet(
-    mos: _Mosfet, state: list[float], vgs: float, vds: float, vbs: float
-) -> tuple[float, float, float, float, bool]:
-    """mos1load.c's limiting of new device-polarity voltages against the last ones.
-
-    Returns vgs, vds, vbs, vbd to evaluate at and whether a junction step was clipped.
-    """
-    old_vgs, old_vds, old_vbs, old_vbd, von = state
-    vgd = vgs - vds
-    if old_vds >= 0.0:
-        vgs = _fetlim(vgs, old_vgs, von)
-        vds = _limvds(vgs - vgd, old_vds)
-    else:
-        vgd = _fetlim(vgd, old_vgs - old_vds, von)
-        vds = -_limvds(-(vgs - vgd), -old_vds)
-        vgs = vgd + vds
-    if vds >= 0.0:
-        vbs, clipped = _pnjlim(vbs, old_vbs, mos.thermal_voltage, mos.source_vcrit)
-        vbd = vbs - vds
-    else:
-        vbd, clipped = _pnjlim(vbs - vds, old_vbd, mos.thermal_voltage, mos.drain_vcrit)
-        vbs = vbd + vds
-    return vgs, vds, vbs, vbd, clipped
 
 
 def _stamp_pair(matrix: list[list[float]], rhs: list[float], a: int, c: int, g: float, offset: float) -> None:
@@ -1113,8 +993,8 @@ def _newton(
             if iteration == 1:
                 vgs, vds, vbs, vbd = device_state[:4]
             else:
-                vgs, vds, vbs, vbd, junction_clipped = _limit_mosfet(
-                    mos, device_state, polarity * (x[mos.gate] - vs), polarity * (x[mos.drain] - vs),
+                vgs, vds, vbs, vbd, junction_clipped = mos.device.limit(
+                    device_state, polarity * (x[mos.gate] - vs), polarity * (x[mos.drain] - vs),
                     polarity * (x[mos.bulk] - vs),
                 )  # fmt: skip
                 clipped = clipped or junction_clipped
@@ -1144,7 +1024,7 @@ def _newton(
             _stamp_pair(matrix, rhs, b, d, gbd, polarity * (cbd - gbd * vbd))
             cbs, gbs = _mos_junction(vbs, mos.source_saturation_current, gmin, mos.thermal_voltage)
             _stamp_pair(matrix, rhs, b, s, gbs, polarity * (cbs - gbs * vbs))
-            linearised.append((mos, point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs))
+            linearised.append((mos, (point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs)))
         for k, diode in enumerate(net.diodes):
             vd = state.diode[k]
             if iteration > 1:
@@ -1155,7 +1035,7 @@ def _newton(
             current, conductance = _diode_current(vd, diode, gmin)
             _stamp_pair(matrix, rhs, position[diode.anode], position[diode.cathode],
                         conductance, current - conductance * vd)  # fmt: skip
-            linearised.append((diode, current, conductance, vd))
+            linearised.append((diode, (current, conductance, vd)))
         solution = solve_dense(matrix, rhs)
         if solution is None:
             return _Attempt(None, iteration, singular=True)
@@ -1203,25 +1083,8 @@ def _devices_settled(linearised: list[tuple], x: list[float], gmin: float) -> tu
     """ngspice's device convergence test (MOS1convTest, DIOconvTest), to both tolerances:
     does each linearised current, carried to the new voltages, match the current there?"""
     tight = True
-    for entry in linearised:
-        if len(entry) == 12:  # a MOSFET: channel, then its two bulk junctions
-            mos, point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs = entry
-            xd, xg, xs, xb = x[mos.drain], x[mos.gate], x[mos.source], x[mos.bulk]
-            gd, gg, gs, gb = point.conductances
-            polarity = mos.model.polarity
-            new_vbd, new_vbs = polarity * (xb - xd), polarity * (xb - xs)
-            pairs = (
-                (point.drain_current + gd * (xd - vd) + gg * (xg - vg) + gs * (xs - vs) + gb * (xb - vb),
-                 mos.point(xd, xg, xs, xb).drain_current),
-                (cbd + gbd * (new_vbd - vbd),
-                 _mos_junction(new_vbd, mos.drain_saturation_current, gmin, mos.thermal_voltage)[0]),
-                (cbs + gbs * (new_vbs - vbs),
-                 _mos_junction(new_vbs, mos.source_saturation_current, gmin, mos.thermal_voltage)[0]),
-            )  # fmt: skip
-        else:
-            diode, current, conductance, vd = entry
-            new_vd = x[diode.anode] - x[diode.cathode]
-            pairs = ((current + conductance * (new_vd - vd), _diode_current(new_vd, diode, gmin)[0]),)
+    for device, entry in linearised:
+        pairs = device.convergence_pairs(entry, x, gmin)
         for predicted, actual in pairs:
             error, size_p, size_a = abs(predicted - actual), abs(predicted), abs(actual)
             size = size_p if size_p > size_a else size_a

@@ -35,8 +35,6 @@ import numpy as np
 from ..devices.level1 import (
     CELSIUS_TO_KELVIN,
     CIRCUIT_TEMPERATURE_C,
-    DEFAULT_L,
-    DEFAULT_W,
     Level1Geometry,
     Level1Model,
     Level1Point,
@@ -45,6 +43,7 @@ from ..devices.level1 import (
     leff,
     threshold,
 )
+from ..devices.mos1.instance import InstanceError, NotLevel1, default_size, mosfet_instance
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
 from .linear import as_array, condition_estimate, is_large, solve_dense, sparse_factor, stamp_rows, stamped
@@ -249,35 +248,17 @@ def _transistor(
     effects: frozenset[str],
     defaults: tuple[float, float],
 ) -> _Transistor:
-    if len(element.nodes) != 4:
-        raise HandAnalysisError(f"{element.name}: a MOSFET needs 4 nodes (d g s b)")
-    card = circuit.model(element.model or "")
-    if card is None or card.type.lower() not in ("nmos", "pmos"):
-        raise HandAnalysisError(f"{element.name}: no MOSFET model `{element.model}`")
-    if card.level != 1:
-        raise HandAnalysisError(
-            f"{element.name}: model {card.name} is LEVEL={card.level}; the hand model reads level-1 cards"
-        )
     try:
-        card_model = _card_at_temperature(circuit, element, card.type, card.params)
-        geometry = Level1Geometry(
-            w=_number(element.params.get("w", defaults[0]), "W", element),
-            l=_number(element.params.get("l", defaults[1]), "L", element),
-            m=_number(element.params.get("m", 1.0), "M", element),
-        )
-        beta(card_model, geometry)  # Leff > 0
-    except ValueError as exc:
+        device = mosfet_instance(circuit, element, defaults=defaults)
+    except NotLevel1 as exc:
+        raise HandAnalysisError(
+            f"{element.name}: model {exc.card.name} is LEVEL={exc.card.level}; the hand model reads level-1 cards"
+        ) from None
+    except InstanceError as exc:
         raise HandAnalysisError(f"{element.name}: {exc}") from None
+    card_model, geometry = device.model, device.geometry
     d, g, s, b = (merged[node] for node in element.nodes)
     return _Transistor(element, hand_model(card_model, effects), card_model, geometry, d, g, s, b)
-
-
-def _card_at_temperature(circuit: Circuit, element: Element, mos_type: str, params: Mapping[str, float]) -> Level1Model:
-    """A card's level-1 model at the device's temperature (``.temp``, ``.options temp``, TEMP/DTEMP),
-    its TNOM defaulting to ``.options tnom``: ngspice's temperature phase, before the hand model
-    zeroes LAMBDA and GAMMA (VTO at temperature is ngspice's, which involves the card's GAMMA)."""
-    card = Level1Model.from_card(mos_type, params, circuit.nominal_temperature())
-    return card.at_temperature(circuit.device_temperature(element))
 
 
 def _temperature_moved(model: Level1Model) -> bool:
@@ -311,11 +292,7 @@ def _dc_circuit(circuit: Circuit, effects: frozenset[str]) -> _DcCircuit:
                 f"{element.name}: the hand model covers MOSFETs, resistors, capacitors, inductors and "
                 f"sources; a {element.kind} is outside it"
             )
-    options = circuit.options()
-    default_w, default_l = (
-        float(value) if isinstance(value := options.get(key), (int, float)) else fallback
-        for key, fallback in (("defw", DEFAULT_W), ("defl", DEFAULT_L))
-    )
+    default_w, default_l = default_size(circuit)
     notes: list[str] = []
     circuit_nodes = circuit.nodes()
     order = {node: k for k, node in enumerate(circuit_nodes)}

@@ -37,14 +37,12 @@ from scipy.optimize import brentq
 
 from ..compare import SOLVER_FLOOR, SOLVER_RELATIVE, Finding, not_level1_finding
 from ..devices.level1 import (
-    DEFAULT_L,
-    DEFAULT_W,
-    Level1Geometry,
-    Level1Model,
     beta,
     classify_region,
+    overdrive,
     threshold,
 )
+from ..devices.mos1.instance import InstanceError, mosfet_instance
 from ..netlist.circuit import GROUND, Analysis, Circuit, DcSweep, Element, Origin
 from ..netlist.emit import SpiceDeck, emit
 from ..netlist.numbers import engineering
@@ -1008,8 +1006,7 @@ def _sim_device_drive(
     found = threshold_vector(circuit, element)
     vth = (found[1] if found is not None else 1.0) * np.asarray(threshold, dtype=float)
     vgs, vds = np.asarray(vgs, dtype=float), np.asarray(vds, dtype=float)
-    vov = np.where(vds < 0.0, vgs - vds - vth, vgs - vth)
-    return vov, np.abs(vds)
+    return overdrive(vgs, vds, vth), np.abs(vds)
 
 
 def _sim_window(
@@ -1140,23 +1137,13 @@ def _refined_sim_gain(
 
 def _hand_constants(circuit: Circuit, mosfet: Element) -> tuple[float, float, int] | None:
     """K = KP·W·M/Leff and Vt = VTO (device polarity) of the hand model, and the polarity."""
-    card = circuit.model(mosfet.model or "")
-    if card is None or card.type.lower() not in ("nmos", "pmos") or card.level != 1:
-        return None
-    options = circuit.options()
-
-    def size(key: str, option: str, fallback: float) -> float:
-        value = mosfet.params.get(key, options.get(option, fallback))
-        return float(value) if isinstance(value, (int, float)) else fallback
-
     try:
         # The card at the device temperature (ngspice's level-1 rules), as the hand column takes it.
-        card_model = Level1Model.from_card(card.type, card.params, circuit.nominal_temperature())
-        model = hand_model(card_model.at_temperature(circuit.device_temperature(mosfet)))
-        geometry = Level1Geometry(size("w", "defw", DEFAULT_W), size("l", "defl", DEFAULT_L), size("m", "", 1.0))
-        return beta(model, geometry), threshold(model, 0.0), model.polarity
-    except ValueError:
+        device = mosfet_instance(circuit, mosfet)
+    except InstanceError:
         return None
+    model = hand_model(device.model)
+    return beta(model, device.geometry), threshold(model, 0.0), model.polarity
 
 
 def _temperature_note(circuit: Circuit, mosfet: Element) -> list[Step]:
