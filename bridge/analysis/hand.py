@@ -38,12 +38,14 @@ from ..devices.level1 import (
     Level1Geometry,
     Level1Model,
     Level1Point,
+    Region,
     beta,
     evaluate,
     leff,
     threshold,
 )
 from ..devices.mos1.instance import InstanceError, NotLevel1, default_size, mosfet_instance
+from ..devices.mos1.load import saturation_overdrive, square_law, triode_channel_bias
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
 from .linear import as_array, condition_estimate, is_large, solve_dense, sparse_factor, stamp_rows, stamped
@@ -1236,7 +1238,7 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
                 "V",
             )
         )
-    current = 0.5 * k * vov * vov
+    current = square_law(t.model, t.geometry, vov, vov, "saturation")[0]
     steps.append(
         Step(
             "Drain current",
@@ -1254,7 +1256,7 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
                 f"{names.vds} = {_q(vds, 'V')} ≥ VOV = {_q(vov, 'V')} → saturation holds",
             )
         )
-        steps.append(_gm_step(k, vov, current, "saturation"))
+        steps.append(_gm_step(t, vov, current, "saturation"))
         return _ClosedForm({n: at(n, current) for n in net.nodes}, current, steps)
 
     steps.append(
@@ -1304,7 +1306,7 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
     voltages = {n: at(n, current) for n in net.nodes}
     steps.extend(_node_steps(dc, stage, current, voltages))
     steps.append(Step("Check", f"{names.vds} = {_q(vds, 'V')} < VOV = {_q(vov, 'V')} → triode holds"))
-    steps.append(_gm_step(k, vds, current, "triode", vov))
+    steps.append(_gm_step(t, vds, current, "triode", vov))
     return _ClosedForm(voltages, current, steps)
 
 
@@ -1328,7 +1330,7 @@ def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Clos
     )
     kept = [n for n in net.nodes if n != held]
     free = _solve_network(net, kept, current)
-    vov_sat = math.sqrt(2.0 * current / k)
+    vov_sat = saturation_overdrive(t.model, t.geometry, current)
     d, g, s = t.drain, t.gate, t.source
 
     if held == s:
@@ -1357,7 +1359,7 @@ def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Clos
                     f"{names.vds} = {_q(vds, 'V')} ≥ VOV = {_q(vov_sat, 'V')} → saturation holds",
                 )
             )
-            steps.append(_gm_step(k, vov_sat, current, "saturation"))
+            steps.append(_gm_step(t, vov_sat, current, "saturation"))
             free[s] = vs
             return _ClosedForm(free, current, steps)
         steps.append(
@@ -1368,7 +1370,7 @@ def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Clos
         )
         # Triode with ID fixed: VOV = VDS + δ, δ = VGD − Vt, so ID = K·(VDS²/2 + δ·VDS).
         delta = p * (vg - vd) - vt
-        vds = math.sqrt(delta * delta + 2.0 * current / k) - delta
+        vds = triode_channel_bias(t.model, t.geometry, delta, current)
         vs = vd - p * vds
         steps.append(
             Step(
@@ -1382,7 +1384,7 @@ def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Clos
         )
         steps.append(Step("Source voltage", f"VS = {_q(vs, 'V')}", vs, "V"))
         steps.append(Step("Check", f"{names.vds} = {_q(vds, 'V')} < VOV = {_q(vds + delta, 'V')} → triode holds"))
-        steps.append(_gm_step(k, vds, current, "triode", vds + delta))
+        steps.append(_gm_step(t, vds, current, "triode", vds + delta))
         free[s] = vs
         return _ClosedForm(free, current, steps)
 
@@ -1405,7 +1407,7 @@ def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Clos
         region, vov = "saturation", vov_sat
     else:
         # Depletion device: VDS = VGS < VOV, so triode: ID = K·(VGS²/2 − Vt·VGS).
-        vgs = vt + math.sqrt(vt * vt + 2.0 * current / k)
+        vgs = triode_channel_bias(t.model, t.geometry, -vt, current)  # VDS = VGS, VOV = VGS − Vt
         steps.append(
             Step(
                 f"Vt ≤ 0, so {names.vds} = {names.vgs} < VOV: triode, ID = K·({names.vgs}²/2 − "
@@ -1425,7 +1427,7 @@ def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Clos
             "V",
         )
     )
-    steps.append(_gm_step(k, vov if region == "saturation" else vgs, current, region, vov))
+    steps.append(_gm_step(t, vov if region == "saturation" else vgs, current, region, vov))
     free[d] = vd
     return _ClosedForm(free, current, steps)
 
@@ -1443,15 +1445,17 @@ def _node_steps(dc: _DcCircuit, stage: _Stage, current: float, voltages: dict[st
     return steps
 
 
-def _gm_step(k: float, drive: float, current: float, region: str, vov: float | None = None) -> Step:
+def _gm_step(t: _Transistor, drive: float, current: float, region: Region, vov: float | None = None) -> Step:
+    """gm (and gds in triode) of the hand model, asked of the device at the closed form's point:
+    `drive` is VOV in saturation, VDS in triode."""
     if region == "saturation":
-        gm = k * drive
+        gm = square_law(t.model, t.geometry, drive, drive, region)[1]
         return Step("Transconductance (λ = 0: gds = 0)", f"gm = K·VOV = 2·ID/VOV = {_q(gm, 'S')}", gm, "S")
-    gm = k * drive
     assert vov is not None
+    _, gm, gds = square_law(t.model, t.geometry, vov, drive, region)
     return Step(
         "Small-signal values in triode",
-        f"gm = K·VDS = {_q(gm, 'S')}, gds = K·(VOV − VDS) = {_q(k * (vov - drive), 'S')}",
+        f"gm = K·VDS = {_q(gm, 'S')}, gds = K·(VOV − VDS) = {_q(gds, 'S')}",
         gm,
         "S",
     )

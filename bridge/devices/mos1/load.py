@@ -158,21 +158,8 @@ def evaluate(
     body_factor = model.gamma / (2.0 * root) if root > 0.0 else 0.0
     exact_body_factor = model.gamma * root_decline  # = −∂vth/∂vbs
 
-    gain = beta(model, geometry)
-    clm = 1.0 + model.lambda_ * channel_bias  # channel-length modulation
     region = classify_region(vov, channel_bias)
-    if region == "cutoff":
-        current = gm = gds = 0.0
-    elif region == "saturation":
-        current = 0.5 * gain * clm * vov * vov
-        gm = gain * clm * vov
-        gds = 0.5 * model.lambda_ * gain * vov * vov
-    else:
-        current = gain * clm * channel_bias * (vov - 0.5 * channel_bias)
-        gm = gain * clm * channel_bias
-        gds = gain * clm * (vov - channel_bias) + model.lambda_ * gain * channel_bias * (
-            vov - 0.5 * channel_bias
-        )
+    current, gm, gds = channel(beta(model, geometry), model.lambda_, vov, channel_bias, region)
     gmbs = gm * body_factor
     gmbs_exact = gm * exact_body_factor
 
@@ -191,6 +178,43 @@ def evaluate(
         -current if swapped else current, vgs, vds, vbs, vth, vov, vdsat, gm, gds, gmbs, region, swapped,
         drain_current, conductances,
     ))  # fmt: skip
+
+
+def channel(gain: float, lambda_: float, vov: float, vds: float, region: Region) -> tuple[float, float, float]:
+    """The square law: channel current, gm and gds at overdrive `vov` and channel bias `vds` ≥ 0
+    (device polarity, the acting source's view) in `region`, for β = `gain` and LAMBDA = `lambda_`.
+
+    Saturation: ID = (β/2)·(1 + λ·VDS)·VOV²; triode: ID = β·(1 + λ·VDS)·VDS·(VOV − VDS/2).
+    """
+    clm = 1.0 + lambda_ * vds  # channel-length modulation
+    if region == "cutoff":
+        return 0.0, 0.0, 0.0
+    if region == "saturation":
+        return 0.5 * gain * clm * vov * vov, gain * clm * vov, 0.5 * lambda_ * gain * vov * vov
+    return (
+        gain * clm * vds * (vov - 0.5 * vds),
+        gain * clm * vds,
+        gain * clm * (vov - vds) + lambda_ * gain * vds * (vov - 0.5 * vds),
+    )
+
+
+def square_law(
+    model: Level1Model, geometry: Level1Geometry, vov: float, vds: float, region: Region
+) -> tuple[float, float, float]:
+    """ID, gm and gds of a sized device at a given overdrive and VDS, in the region assumed
+    (``channel`` with β = KP·W·M/Leff and the model's LAMBDA): what a closed form asks for."""
+    return channel(beta(model, geometry), model.lambda_, vov, vds, region)
+
+
+def saturation_overdrive(model: Level1Model, geometry: Level1Geometry, current: float) -> float:
+    """The overdrive at which the device carries `current` in saturation, λ = 0: √(2·ID/β)."""
+    return math.sqrt(2.0 * current / beta(model, geometry))
+
+
+def triode_channel_bias(model: Level1Model, geometry: Level1Geometry, excess: float, current: float) -> float:
+    """VDS at which the device carries `current` in triode (λ = 0) when VOV = VDS + `excess`:
+    ID = β·(VDS²/2 + excess·VDS), the positive root √(excess² + 2·ID/β) − excess."""
+    return math.sqrt(excess * excess + 2.0 * current / beta(model, geometry)) - excess
 
 
 def junction_current(voltage: float, saturation_current: float, gmin: float, thermal: float) -> tuple[float, float]:
