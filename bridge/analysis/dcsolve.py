@@ -39,6 +39,7 @@ from typing import NamedTuple
 
 import numpy as np
 
+from bridge.analysis.connectivity import NodeSets
 from bridge.analysis.linear import (
     SPARSE_FROM,
     condition_estimate,
@@ -633,20 +634,8 @@ def _check_structure(circuit: Circuit, nodes: tuple[str, ...]) -> None:
     MOSFET gates) has no defined voltage; a loop of voltage sources and shorts has no
     defined current. ngspice meets both as a singular matrix.
     """
-    parent: dict[str, str] = {node: node for node in (GROUND, *nodes)}
-
-    def root(node: str) -> str:
-        while parent[node] != node:
-            parent[node] = parent[parent[node]]
-            node = parent[node]
-        return node
-
-    def join(a: str, b: str) -> bool:
-        ra, rb = root(a), root(b)
-        if ra == rb:
-            return False
-        parent[ra] = rb
-        return True
+    sets = NodeSets((GROUND, *nodes))
+    root, join = sets.root, sets.join
 
     # Loops of fixed-voltage branches first: independent V sources and inductors.
     fixed = [e for e in circuit.elements if e.kind in ("vsource", "inductor")]

@@ -48,6 +48,7 @@ from ..devices.mos1.instance import InstanceError, NotLevel1, default_size, mosf
 from ..devices.mos1.load import saturation_overdrive, square_law, triode_channel_bias
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
+from .connectivity import NodeSets
 from .linear import as_array, condition_estimate, is_large, solve_dense, sparse_factor, stamp_rows, stamped
 
 __all__ = [
@@ -300,29 +301,20 @@ def _dc_circuit(circuit: Circuit, effects: frozenset[str]) -> _DcCircuit:
     order = {node: k for k, node in enumerate(circuit_nodes)}
 
     # Shorts (inductors, 0 Ω resistors) merge their nodes; ground stays its class's name.
-    parent: dict[str, str] = {GROUND: GROUND}
-    for node in circuit_nodes:
-        parent[node] = node
+    def first_written(a: str, b: str) -> str:
+        return b if b == GROUND or (a != GROUND and order[b] < order[a]) else a
 
-    def root(node: str) -> str:
-        while parent[node] != node:
-            parent[node] = parent[parent[node]]
-            node = parent[node]
-        return node
+    shorts = NodeSets((GROUND, *circuit_nodes), first_written)
 
     # Each resistor's value, read once (in element order, so the first bad one is reported).
     resistances = [_resistance(e) if e.kind == "resistor" else None for e in circuit.elements]
     for element, resistance in zip(circuit.elements, resistances):
         shorted = element.kind == "inductor" or resistance == 0.0
         if shorted:
-            a, b = root(element.nodes[0]), root(element.nodes[1])
-            if a != b:
-                if b == GROUND or (a != GROUND and order[b] < order[a]):
-                    a, b = b, a
-                parent[b] = a
+            shorts.join(element.nodes[0], element.nodes[1])
             what = "inductor" if element.kind == "inductor" else "0 Ω resistor"
             notes.append(f"{element.name} ({what}) is a short at DC")
-    merged = {node: root(node) for node in parent}
+    merged = {node: shorts.root(node) for node in shorts.parent}
 
     # Voltage sources referred to ground fix their nodes; the rest float.
     fixed: dict[str, float] = {GROUND: 0.0}
@@ -450,27 +442,19 @@ def _network(dc: _DcCircuit, transistor: _Transistor) -> _Network:
 
 def _unanchored_groups(dc: _DcCircuit, net: _Network) -> list[set[str]]:
     """Groups of free nodes joined by resistors that reach no fixed node through one."""
-    parent = {node: node for node in net.nodes}
-
-    def root(node: str) -> str:
-        while parent[node] != node:
-            parent[node] = parent[parent[node]]
-            node = parent[node]
-        return node
-
+    free = NodeSets(net.nodes)
     anchored: set[str] = set()
     for resistor in dc.resistors:
-        a_free, b_free = resistor.a in parent, resistor.b in parent
-        if a_free and b_free:
-            parent[root(resistor.a)] = root(resistor.b)
+        if resistor.a in free and resistor.b in free:
+            free.join(resistor.a, resistor.b)
     for resistor in dc.resistors:
         for here, there in ((resistor.a, resistor.b), (resistor.b, resistor.a)):
-            if here in parent and there in dc.fixed:
-                anchored.add(root(here))
+            if here in free and there in dc.fixed:
+                anchored.add(free.root(here))
     groups: dict[str, set[str]] = {}
     for node in net.nodes:
-        if root(node) not in anchored:
-            groups.setdefault(root(node), set()).add(node)
+        if free.root(node) not in anchored:
+            groups.setdefault(free.root(node), set()).add(node)
     return list(groups.values())
 
 
