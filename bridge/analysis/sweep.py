@@ -37,6 +37,7 @@ from scipy.optimize import brentq
 
 from ..compare import SOLVER_FLOOR, SOLVER_RELATIVE, Finding, not_level1_finding
 from ..devices.level1 import (
+    REGIONS,
     beta,
     classify_region,
     overdrive,
@@ -51,12 +52,9 @@ from ..sim.client import NgspiceSession, SimulationFailed, SimulatorError, Simul
 from ..sim.operating_point import threshold_vector
 from .dcsolve import (
     DcSolveError,
-    InvalidElement,
-    NoConvergence,
     OperatingPoint,
-    SingularCircuit,
-    UnsupportedElement,
-    solve_dc_sweep,
+    SweepArrays,
+    solve_dc_sweep_arrays,
     solve_operating_point,
 )
 from .hand import HandAnalysisError, HandSolution, Step, hand_analysis, hand_model
@@ -756,31 +754,13 @@ def _hand_curve(
 # --- the level-1 column ---------------------------------------------------------------------
 
 
-def _level1_points(circuit: Circuit, source: str, x: np.ndarray) -> list[OperatingPoint | None]:
-    """The continuation sweep; if it stops at a point, each point on its own from the last.
+def _level1_points(circuit: Circuit, source: str, x: np.ndarray) -> SweepArrays:
+    """Every point of the sweep solved at once (``solve_dc_sweep_arrays``: a vectorised Newton,
+    each point from a solved neighbour, stragglers by the scalar solver from a neighbour).
 
     Raises UnsupportedElement, InvalidElement or SingularCircuit: those hold at every point.
     """
-    try:
-        return list(solve_dc_sweep(circuit, source, x))
-    except (UnsupportedElement, InvalidElement, SingularCircuit):
-        raise
-    except NoConvergence:
-        pass
-    solved: list[OperatingPoint | None] = []
-    guess: dict[str, float] | None = None
-    for value in x:
-        point: OperatingPoint | None = None
-        for start in (guess, None) if guess is not None else (None,):
-            try:
-                point = solve_operating_point(circuit, source_values={source: float(value)}, initial=start)
-                break
-            except NoConvergence:
-                continue
-        solved.append(point)
-        if point is not None:
-            guess = point.node_voltages
-    return solved
+    return solve_dc_sweep_arrays(circuit, source, x)
 
 
 def _level1_curve(
@@ -792,16 +772,16 @@ def _level1_curve(
     except DcSolveError as exc:
         findings.append(Finding("error", "solver-failed", f"level-1 solver: {exc}"))
         return None, findings
-    failed = sum(p is None for p in points)
-    if failed == len(points):
+    solved = points.solved.tolist()
+    failed = solved.count(False)
+    if failed == len(solved):
         findings.append(Finding("error", "solver-failed", "level-1 solver: no point of the sweep converged"))
         return None, findings
     if failed:
         findings.append(Finding("error", "solver-failed", f"level-1 solver: no solution at {failed} of "
-                                f"{len(points)} points"))
-    caveats = next((p.caveats for p in points if p is not None), ())
-    findings.extend(Finding("info", "solver-caveat", caveat) for caveat in caveats)
-    output_values = np.array([p.voltage(output) if p is not None else math.nan for p in points])
+                                f"{len(solved)} points"))
+    findings.extend(Finding("info", "solver-caveat", caveat) for caveat in points.caveats)
+    output_values = points.voltage(output).copy()
     regions: dict[str, tuple[str | None, ...]] = {}
     edges: dict[str, RegionEdges] = {}
 
@@ -809,14 +789,21 @@ def _level1_curve(
         d = point.device(name)
         return _DevicePoint(d.vov, abs(d.vds), d.region)
 
+    def guess_at(k: int) -> dict[str, float] | None:
+        return points.node_voltages(k) if solved[k] else None
+
     for name in devices:
-        device_points = [device_point(p, name) if p is not None else None for p in points]
+        arrays = points.device(name)
+        device_points = [
+            _DevicePoint(vov, abs(vds), REGIONS[code]) if ok else None
+            for vov, vds, code, ok in zip(arrays.vov.tolist(), arrays.vds.tolist(), arrays.region.tolist(), solved)
+        ]
         regions[name] = tuple(p.region if p is not None else None for p in device_points)
 
         def refine(boundary: str, k: int, name: str = name, device_points: list = device_points) -> float:
             values = [_indicator(boundary, p) if p is not None else math.nan for p in device_points]
             fallback = _interpolated_edge(x, values, k)
-            guess = points[k].node_voltages if points[k] is not None else None
+            guess = guess_at(k)
 
             def indicator(value: float) -> float:
                 solved = solve_operating_point(circuit, source_values={source: value}, initial=guess)
@@ -828,8 +815,7 @@ def _level1_curve(
 
     gain: float | None = None
     h = _half_width(x, bias)
-    nearest = points[int(np.argmin(np.abs(x - bias)))]
-    guess = nearest.node_voltages if nearest is not None else None
+    guess = guess_at(int(np.argmin(np.abs(x - bias))))
     try:
         above = solve_operating_point(circuit, source_values={source: bias + h}, initial=guess)
         below = solve_operating_point(circuit, source_values={source: bias - h}, initial=guess)

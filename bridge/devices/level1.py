@@ -1,7 +1,7 @@
 """The level-1 MOSFET's names as the rest of biasbridge has imported them: a re-export of
 ``bridge.devices.mos1`` (one file per phase there)."""
 
-from .mos1.ask import Region, classify_region, overdrive, region_codes
+from .mos1.ask import REGIONS, Region, classify_region, overdrive, region_codes
 from .mos1.load import (
     ArrayPoint,
     Level1Geometry,
@@ -40,7 +40,7 @@ from .mos1.temperature import _potential_shift, band_gap
 __all__ = [
     "BAND_GAP_AT_REFERENCE", "BOLTZMANN", "CELSIUS_TO_KELVIN", "CHARGE", "CIRCUIT_TEMPERATURE_C",
     "DEFAULT_L", "DEFAULT_W", "DERIVATION_RULES", "EPS0_MOS1", "EPS_OX", "EPS_SI", "K_OVER_Q",
-    "MODEL_DEFAULTS", "NI_SILICON", "REFERENCE_TEMPERATURE_K", "ArrayPoint", "Level1Geometry",
+    "MODEL_DEFAULTS", "NI_SILICON", "REFERENCE_TEMPERATURE_K", "REGIONS", "ArrayPoint", "Level1Geometry",
     "Level1Model", "Level1Point", "MosType", "Region", "TerminalConductances", "_ALIASES",
     "_KNOWN_PARAMETERS", "_body_root", "_potential_shift", "band_gap", "beta", "classify_region",
     "evaluate", "evaluate_arrays", "junction_current", "leff", "overdrive", "region_codes", "threshold",

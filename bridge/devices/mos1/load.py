@@ -304,3 +304,15 @@ def evaluate_arrays(
         np.where(swapped, -current, current), vgs, vds, vbs, vth, vov, vdsat, gm, gds, gmbs, region, swapped,
         drain_current, conductances,
     )  # fmt: skip
+
+
+def junction_current_arrays(
+    voltage: np.ndarray, saturation_current: float, gmin: float, thermal: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """``junction_current`` over an array of junction voltages."""
+    reverse = voltage <= -3.0 * thermal
+    growth = np.exp(np.minimum(MAX_EXP_ARG, np.where(reverse, 0.0, voltage) / thermal))
+    current = np.where(reverse, gmin * voltage - saturation_current,
+                       saturation_current * (growth - 1.0) + gmin * voltage)  # fmt: skip
+    conductance = np.where(reverse, gmin, saturation_current * growth / thermal + gmin)
+    return current, conductance
