@@ -35,20 +35,22 @@ import numpy as np
 from ..devices.level1 import (
     CELSIUS_TO_KELVIN,
     CIRCUIT_TEMPERATURE_C,
-    DEFAULT_L,
-    DEFAULT_W,
     Level1Geometry,
     Level1Model,
     Level1Point,
+    Region,
     beta,
     evaluate,
     leff,
     threshold,
 )
+from ..devices.mos1.instance import InstanceError, NotLevel1, default_size, mosfet_instance
+from ..devices.mos1.load import saturation_overdrive, square_law, triode_channel_bias
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
 from ..vocabulary import EFFECTS as _EFFECT_ORDER
 from ..vocabulary import Step
+from .connectivity import NodeSets
 from .linear import as_array, condition_estimate, is_large, solve_dense, sparse_factor, stamp_rows, stamped
 
 __all__ = [
@@ -238,35 +240,17 @@ def _transistor(
     effects: frozenset[str],
     defaults: tuple[float, float],
 ) -> _Transistor:
-    if len(element.nodes) != 4:
-        raise HandAnalysisError(f"{element.name}: a MOSFET needs 4 nodes (d g s b)")
-    card = circuit.model(element.model or "")
-    if card is None or card.type.lower() not in ("nmos", "pmos"):
-        raise HandAnalysisError(f"{element.name}: no MOSFET model `{element.model}`")
-    if card.level != 1:
-        raise HandAnalysisError(
-            f"{element.name}: model {card.name} is LEVEL={card.level}; the hand model reads level-1 cards"
-        )
     try:
-        card_model = _card_at_temperature(circuit, element, card.type, card.params)
-        geometry = Level1Geometry(
-            w=_number(element.params.get("w", defaults[0]), "W", element),
-            l=_number(element.params.get("l", defaults[1]), "L", element),
-            m=_number(element.params.get("m", 1.0), "M", element),
-        )
-        beta(card_model, geometry)  # Leff > 0
-    except ValueError as exc:
+        device = mosfet_instance(circuit, element, defaults=defaults)
+    except NotLevel1 as exc:
+        raise HandAnalysisError(
+            f"{element.name}: model {exc.card.name} is LEVEL={exc.card.level}; the hand model reads level-1 cards"
+        ) from None
+    except InstanceError as exc:
         raise HandAnalysisError(f"{element.name}: {exc}") from None
+    card_model, geometry = device.model, device.geometry
     d, g, s, b = (merged[node] for node in element.nodes)
     return _Transistor(element, hand_model(card_model, effects), card_model, geometry, d, g, s, b)
-
-
-def _card_at_temperature(circuit: Circuit, element: Element, mos_type: str, params: Mapping[str, float]) -> Level1Model:
-    """A card's level-1 model at the device's temperature (``.temp``, ``.options temp``, TEMP/DTEMP),
-    its TNOM defaulting to ``.options tnom``: ngspice's temperature phase, before the hand model
-    zeroes LAMBDA and GAMMA (VTO at temperature is ngspice's, which involves the card's GAMMA)."""
-    card = Level1Model.from_card(mos_type, params, circuit.nominal_temperature())
-    return card.at_temperature(circuit.device_temperature(element))
 
 
 def _temperature_moved(model: Level1Model) -> bool:
@@ -300,39 +284,26 @@ def _dc_circuit(circuit: Circuit, effects: frozenset[str]) -> _DcCircuit:
                 f"{element.name}: the hand model covers MOSFETs, resistors, capacitors, inductors and "
                 f"sources; a {element.kind} is outside it"
             )
-    options = circuit.options()
-    default_w, default_l = (
-        float(value) if isinstance(value := options.get(key), (int, float)) else fallback
-        for key, fallback in (("defw", DEFAULT_W), ("defl", DEFAULT_L))
-    )
+    default_w, default_l = default_size(circuit)
     notes: list[str] = []
     circuit_nodes = circuit.nodes()
     order = {node: k for k, node in enumerate(circuit_nodes)}
 
     # Shorts (inductors, 0 Ω resistors) merge their nodes; ground stays its class's name.
-    parent: dict[str, str] = {GROUND: GROUND}
-    for node in circuit_nodes:
-        parent[node] = node
+    def first_written(a: str, b: str) -> str:
+        return b if b == GROUND or (a != GROUND and order[b] < order[a]) else a
 
-    def root(node: str) -> str:
-        while parent[node] != node:
-            parent[node] = parent[parent[node]]
-            node = parent[node]
-        return node
+    shorts = NodeSets((GROUND, *circuit_nodes), first_written)
 
     # Each resistor's value, read once (in element order, so the first bad one is reported).
     resistances = [_resistance(e) if e.kind == "resistor" else None for e in circuit.elements]
     for element, resistance in zip(circuit.elements, resistances):
         shorted = element.kind == "inductor" or resistance == 0.0
         if shorted:
-            a, b = root(element.nodes[0]), root(element.nodes[1])
-            if a != b:
-                if b == GROUND or (a != GROUND and order[b] < order[a]):
-                    a, b = b, a
-                parent[b] = a
+            shorts.join(element.nodes[0], element.nodes[1])
             what = "inductor" if element.kind == "inductor" else "0 Ω resistor"
             notes.append(f"{element.name} ({what}) is a short at DC")
-    merged = {node: root(node) for node in parent}
+    merged = {node: shorts.root(node) for node in shorts.parent}
 
     # Voltage sources referred to ground fix their nodes; the rest float.
     fixed: dict[str, float] = {GROUND: 0.0}
@@ -460,27 +431,19 @@ def _network(dc: _DcCircuit, transistor: _Transistor) -> _Network:
 
 def _unanchored_groups(dc: _DcCircuit, net: _Network) -> list[set[str]]:
     """Groups of free nodes joined by resistors that reach no fixed node through one."""
-    parent = {node: node for node in net.nodes}
-
-    def root(node: str) -> str:
-        while parent[node] != node:
-            parent[node] = parent[parent[node]]
-            node = parent[node]
-        return node
-
+    free = NodeSets(net.nodes)
     anchored: set[str] = set()
     for resistor in dc.resistors:
-        a_free, b_free = resistor.a in parent, resistor.b in parent
-        if a_free and b_free:
-            parent[root(resistor.a)] = root(resistor.b)
+        if resistor.a in free and resistor.b in free:
+            free.join(resistor.a, resistor.b)
     for resistor in dc.resistors:
         for here, there in ((resistor.a, resistor.b), (resistor.b, resistor.a)):
-            if here in parent and there in dc.fixed:
-                anchored.add(root(here))
+            if here in free and there in dc.fixed:
+                anchored.add(free.root(here))
     groups: dict[str, set[str]] = {}
     for node in net.nodes:
-        if root(node) not in anchored:
-            groups.setdefault(root(node), set()).add(node)
+        if free.root(node) not in anchored:
+            groups.setdefault(free.root(node), set()).add(node)
     return list(groups.values())
 
 
@@ -1248,7 +1211,7 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
                 "V",
             )
         )
-    current = 0.5 * k * vov * vov
+    current = square_law(t.model, t.geometry, vov, vov, "saturation")[0]
     steps.append(
         Step(
             "Drain current",
@@ -1266,7 +1229,7 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
                 f"{names.vds} = {_q(vds, 'V')} ≥ VOV = {_q(vov, 'V')} → saturation holds",
             )
         )
-        steps.append(_gm_step(k, vov, current, "saturation"))
+        steps.append(_gm_step(t, vov, current, "saturation"))
         return _ClosedForm({n: at(n, current) for n in net.nodes}, current, steps)
 
     steps.append(
@@ -1316,7 +1279,7 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
     voltages = {n: at(n, current) for n in net.nodes}
     steps.extend(_node_steps(dc, stage, current, voltages))
     steps.append(Step("Check", f"{names.vds} = {_q(vds, 'V')} < VOV = {_q(vov, 'V')} → triode holds"))
-    steps.append(_gm_step(k, vds, current, "triode", vov))
+    steps.append(_gm_step(t, vds, current, "triode", vov))
     return _ClosedForm(voltages, current, steps)
 
 
@@ -1340,7 +1303,7 @@ def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Clos
     )
     kept = [n for n in net.nodes if n != held]
     free = _solve_network(net, kept, current)
-    vov_sat = math.sqrt(2.0 * current / k)
+    vov_sat = saturation_overdrive(t.model, t.geometry, current)
     d, g, s = t.drain, t.gate, t.source
 
     if held == s:
@@ -1369,7 +1332,7 @@ def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Clos
                     f"{names.vds} = {_q(vds, 'V')} ≥ VOV = {_q(vov_sat, 'V')} → saturation holds",
                 )
             )
-            steps.append(_gm_step(k, vov_sat, current, "saturation"))
+            steps.append(_gm_step(t, vov_sat, current, "saturation"))
             free[s] = vs
             return _ClosedForm(free, current, steps)
         steps.append(
@@ -1380,7 +1343,7 @@ def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Clos
         )
         # Triode with ID fixed: VOV = VDS + δ, δ = VGD − Vt, so ID = K·(VDS²/2 + δ·VDS).
         delta = p * (vg - vd) - vt
-        vds = math.sqrt(delta * delta + 2.0 * current / k) - delta
+        vds = triode_channel_bias(t.model, t.geometry, delta, current)
         vs = vd - p * vds
         steps.append(
             Step(
@@ -1394,7 +1357,7 @@ def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Clos
         )
         steps.append(Step("Source voltage", f"VS = {_q(vs, 'V')}", vs, "V"))
         steps.append(Step("Check", f"{names.vds} = {_q(vds, 'V')} < VOV = {_q(vds + delta, 'V')} → triode holds"))
-        steps.append(_gm_step(k, vds, current, "triode", vds + delta))
+        steps.append(_gm_step(t, vds, current, "triode", vds + delta))
         free[s] = vs
         return _ClosedForm(free, current, steps)
 
@@ -1417,7 +1380,7 @@ def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Clos
         region, vov = "saturation", vov_sat
     else:
         # Depletion device: VDS = VGS < VOV, so triode: ID = K·(VGS²/2 − Vt·VGS).
-        vgs = vt + math.sqrt(vt * vt + 2.0 * current / k)
+        vgs = triode_channel_bias(t.model, t.geometry, -vt, current)  # VDS = VGS, VOV = VGS − Vt
         steps.append(
             Step(
                 f"Vt ≤ 0, so {names.vds} = {names.vgs} < VOV: triode, ID = K·({names.vgs}²/2 − "
@@ -1437,7 +1400,7 @@ def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Clos
             "V",
         )
     )
-    steps.append(_gm_step(k, vov if region == "saturation" else vgs, current, region, vov))
+    steps.append(_gm_step(t, vov if region == "saturation" else vgs, current, region, vov))
     free[d] = vd
     return _ClosedForm(free, current, steps)
 
@@ -1455,15 +1418,17 @@ def _node_steps(dc: _DcCircuit, stage: _Stage, current: float, voltages: dict[st
     return steps
 
 
-def _gm_step(k: float, drive: float, current: float, region: str, vov: float | None = None) -> Step:
+def _gm_step(t: _Transistor, drive: float, current: float, region: Region, vov: float | None = None) -> Step:
+    """gm (and gds in triode) of the hand model, asked of the device at the closed form's point:
+    `drive` is VOV in saturation, VDS in triode."""
     if region == "saturation":
-        gm = k * drive
+        gm = square_law(t.model, t.geometry, drive, drive, region)[1]
         return Step("Transconductance (λ = 0: gds = 0)", f"gm = K·VOV = 2·ID/VOV = {_q(gm, 'S')}", gm, "S")
-    gm = k * drive
     assert vov is not None
+    _, gm, gds = square_law(t.model, t.geometry, vov, drive, region)
     return Step(
         "Small-signal values in triode",
-        f"gm = K·VDS = {_q(gm, 'S')}, gds = K·(VOV − VDS) = {_q(k * (vov - drive), 'S')}",
+        f"gm = K·VDS = {_q(gm, 'S')}, gds = K·(VOV − VDS) = {_q(gds, 'S')}",
         gm,
         "S",
     )

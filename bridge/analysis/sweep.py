@@ -37,14 +37,13 @@ from scipy.optimize import brentq
 
 from ..compare import SOLVER_FLOOR, SOLVER_RELATIVE
 from ..devices.level1 import (
-    DEFAULT_L,
-    DEFAULT_W,
-    Level1Geometry,
-    Level1Model,
+    REGIONS,
     beta,
     classify_region,
+    overdrive,
     threshold,
 )
+from ..devices.mos1.instance import InstanceError, mosfet_instance
 from ..netlist.circuit import GROUND, Analysis, Circuit, DcSweep, Element, Origin
 from ..netlist.emit import SpiceDeck, emit
 from ..netlist.numbers import engineering
@@ -54,12 +53,9 @@ from ..sim.operating_point import threshold_vector
 from ..vocabulary import Finding, Step, not_level1_finding, simulator_failure
 from .dcsolve import (
     DcSolveError,
-    InvalidElement,
-    NoConvergence,
     OperatingPoint,
-    SingularCircuit,
-    UnsupportedElement,
-    solve_dc_sweep,
+    SweepArrays,
+    solve_dc_sweep_arrays,
     solve_operating_point,
 )
 from .hand import HandAnalysisError, HandSolution, hand_analysis, hand_model
@@ -757,31 +753,13 @@ def _hand_curve(
 # --- the level-1 column ---------------------------------------------------------------------
 
 
-def _level1_points(circuit: Circuit, source: str, x: np.ndarray) -> list[OperatingPoint | None]:
-    """The continuation sweep; if it stops at a point, each point on its own from the last.
+def _level1_points(circuit: Circuit, source: str, x: np.ndarray) -> SweepArrays:
+    """Every point of the sweep solved at once (``solve_dc_sweep_arrays``: a vectorised Newton,
+    each point from a solved neighbour, stragglers by the scalar solver from a neighbour).
 
     Raises UnsupportedElement, InvalidElement or SingularCircuit: those hold at every point.
     """
-    try:
-        return list(solve_dc_sweep(circuit, source, x))
-    except (UnsupportedElement, InvalidElement, SingularCircuit):
-        raise
-    except NoConvergence:
-        pass
-    solved: list[OperatingPoint | None] = []
-    guess: dict[str, float] | None = None
-    for value in x:
-        point: OperatingPoint | None = None
-        for start in (guess, None) if guess is not None else (None,):
-            try:
-                point = solve_operating_point(circuit, source_values={source: float(value)}, initial=start)
-                break
-            except NoConvergence:
-                continue
-        solved.append(point)
-        if point is not None:
-            guess = point.node_voltages
-    return solved
+    return solve_dc_sweep_arrays(circuit, source, x)
 
 
 def _level1_curve(
@@ -793,16 +771,16 @@ def _level1_curve(
     except DcSolveError as exc:
         findings.append(Finding("error", "solver-failed", f"level-1 solver: {exc}"))
         return None, findings
-    failed = sum(p is None for p in points)
-    if failed == len(points):
+    solved = points.solved.tolist()
+    failed = solved.count(False)
+    if failed == len(solved):
         findings.append(Finding("error", "solver-failed", "level-1 solver: no point of the sweep converged"))
         return None, findings
     if failed:
         findings.append(Finding("error", "solver-failed", f"level-1 solver: no solution at {failed} of "
-                                f"{len(points)} points"))
-    caveats = next((p.caveats for p in points if p is not None), ())
-    findings.extend(Finding("info", "solver-caveat", caveat) for caveat in caveats)
-    output_values = np.array([p.voltage(output) if p is not None else math.nan for p in points])
+                                f"{len(solved)} points"))
+    findings.extend(Finding("info", "solver-caveat", caveat) for caveat in points.caveats)
+    output_values = points.voltage(output).copy()
     regions: dict[str, tuple[str | None, ...]] = {}
     edges: dict[str, RegionEdges] = {}
 
@@ -810,14 +788,21 @@ def _level1_curve(
         d = point.device(name)
         return _DevicePoint(d.vov, abs(d.vds), d.region)
 
+    def guess_at(k: int) -> dict[str, float] | None:
+        return points.node_voltages(k) if solved[k] else None
+
     for name in devices:
-        device_points = [device_point(p, name) if p is not None else None for p in points]
+        arrays = points.device(name)
+        device_points = [
+            _DevicePoint(vov, abs(vds), REGIONS[code]) if ok else None
+            for vov, vds, code, ok in zip(arrays.vov.tolist(), arrays.vds.tolist(), arrays.region.tolist(), solved)
+        ]
         regions[name] = tuple(p.region if p is not None else None for p in device_points)
 
         def refine(boundary: str, k: int, name: str = name, device_points: list = device_points) -> float:
             values = [_indicator(boundary, p) if p is not None else math.nan for p in device_points]
             fallback = _interpolated_edge(x, values, k)
-            guess = points[k].node_voltages if points[k] is not None else None
+            guess = guess_at(k)
 
             def indicator(value: float) -> float:
                 solved = solve_operating_point(circuit, source_values={source: value}, initial=guess)
@@ -829,8 +814,7 @@ def _level1_curve(
 
     gain: float | None = None
     h = _half_width(x, bias)
-    nearest = points[int(np.argmin(np.abs(x - bias)))]
-    guess = nearest.node_voltages if nearest is not None else None
+    guess = guess_at(int(np.argmin(np.abs(x - bias))))
     try:
         above = solve_operating_point(circuit, source_values={source: bias + h}, initial=guess)
         below = solve_operating_point(circuit, source_values={source: bias - h}, initial=guess)
@@ -999,8 +983,7 @@ def _sim_device_drive(
     found = threshold_vector(circuit, element)
     vth = (found[1] if found is not None else 1.0) * np.asarray(threshold, dtype=float)
     vgs, vds = np.asarray(vgs, dtype=float), np.asarray(vds, dtype=float)
-    vov = np.where(vds < 0.0, vgs - vds - vth, vgs - vth)
-    return vov, np.abs(vds)
+    return overdrive(vgs, vds, vth), np.abs(vds)
 
 
 def _sim_window(
@@ -1131,23 +1114,13 @@ def _refined_sim_gain(
 
 def _hand_constants(circuit: Circuit, mosfet: Element) -> tuple[float, float, int] | None:
     """K = KP·W·M/Leff and Vt = VTO (device polarity) of the hand model, and the polarity."""
-    card = circuit.model(mosfet.model or "")
-    if card is None or card.type.lower() not in ("nmos", "pmos") or card.level != 1:
-        return None
-    options = circuit.options()
-
-    def size(key: str, option: str, fallback: float) -> float:
-        value = mosfet.params.get(key, options.get(option, fallback))
-        return float(value) if isinstance(value, (int, float)) else fallback
-
     try:
         # The card at the device temperature (ngspice's level-1 rules), as the hand column takes it.
-        card_model = Level1Model.from_card(card.type, card.params, circuit.nominal_temperature())
-        model = hand_model(card_model.at_temperature(circuit.device_temperature(mosfet)))
-        geometry = Level1Geometry(size("w", "defw", DEFAULT_W), size("l", "defl", DEFAULT_L), size("m", "", 1.0))
-        return beta(model, geometry), threshold(model, 0.0), model.polarity
-    except ValueError:
+        device = mosfet_instance(circuit, mosfet)
+    except InstanceError:
         return None
+    model = hand_model(device.model)
+    return beta(model, device.geometry), threshold(model, 0.0), model.polarity
 
 
 def _temperature_note(circuit: Circuit, mosfet: Element) -> list[Step]:

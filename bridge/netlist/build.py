@@ -11,6 +11,7 @@ import re
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 
+from ..devices.mos1.params import canonical_name as level1_parameter_name
 from .circuit import (
     GROUND,
     KIND_BY_LETTER,
@@ -53,7 +54,6 @@ from .source import MAX_CARDS, Deck, LogicalCard
 
 MODEL_TYPES = {"nmos", "pmos", "d", "npn", "pnp"}
 MODEL_TYPES_FOR = {"m": {"nmos", "pmos"}, "d": {"d"}, "q": {"npn", "pnp"}}
-MODEL_ALIASES = {"vt0": "vto", "u0": "uo"}
 
 # Instance parameters each element accepts (ngspice's instance tables, those a
 # bias circuit uses); anything else is an error rather than a silent drop.
@@ -308,7 +308,7 @@ class _Builder:
             if isinstance(item.value, ModelText) and text_allowed:
                 params[key] = item.value.text
             else:
-                params[MODEL_ALIASES.get(key, key) if level1 else key] = self.model_value(item.value, raw.card, scope)
+                params[level1_parameter_name(key) if level1 else key] = self.model_value(item.value, raw.card, scope)
         return params, level_value
 
     def model_value(self, value: Expr | ModelText, card: LogicalCard, scope: _Scope) -> float:

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from ..devices.level1 import Region, classify_region
+from ..devices.level1 import Region, classify_region, overdrive
 from ..netlist.circuit import GROUND, Analysis, Circuit, Element, Origin
 from ..netlist.emit import emit
 from .client import NgspiceSession, PendingRun, SimResult
@@ -142,10 +142,8 @@ def _read_device(circuit: Circuit, mosfet: Element, result: SimResult) -> SimDev
     vgs, vds = values["vgs"], values["vds"]
     vov = None
     if vth is not None and vgs is not None and vds is not None:
-        vov = vgs - vth
-        if vds < 0:
-            # ngspice reports the terminal vds; the device itself runs with drain and source swapped.
-            vov = vgs - vds - vth
+        # ngspice reports the terminal vds; with vds < 0 the device runs with drain and source swapped.
+        vov = overdrive(vgs, vds, vth)
     return SimDevice(
         id=values["id"],
         vgs=vgs,

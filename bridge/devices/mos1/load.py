@@ -1,0 +1,318 @@
+"""The level-1 MOSFET's load: drain current and conductances (mos1load.c), and its bulk junctions.
+
+Only the channel current and the two bulk junction diodes are modelled. ngspice places the
+bulk–source and bulk–drain diodes (IS = 1e-14 A by default) plus GMIN (1e-12 S) across them;
+with reverse-biased junctions they add picoamps, which is why ngspice reports a few pA of drain
+current in cutoff. Voltages in the device's own polarity follow ngspice: for a PMOS every
+terminal voltage difference is multiplied by −1, so an enhancement PMOS has a positive
+threshold, overdrive and drain current when on.
+
+``evaluate`` works on plain floats (one Newton iteration of one device); ``evaluate_arrays``
+is its numpy twin over many bias points at once (sweeps, batches), equal to it to rounding.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import NamedTuple
+
+import numpy as np
+
+from .ask import Region, classify_region, region_codes
+from .model import Level1Model
+from .params import DEFAULT_L, DEFAULT_W
+
+MAX_EXP_ARG = 709.0  # ngspice's clamp on junction exponents (exp overflows past it)
+
+
+@dataclass(frozen=True)
+class Level1Geometry:
+    """Instance size: drawn width and length in metres, and the parallel multiplier M."""
+
+    w: float = DEFAULT_W
+    l: float = DEFAULT_L  # noqa: E741 - the trade's name for channel length
+    m: float = 1.0
+
+    def __post_init__(self) -> None:
+        for name in ("w", "l", "m"):
+            if not getattr(self, name) > 0.0:
+                raise ValueError(f"MOSFET {name.upper()} must be positive, got {getattr(self, name)!r}")
+
+
+def leff(model: Level1Model, geometry: Level1Geometry) -> float:
+    """Effective channel length: Leff = L − 2·LD."""
+    length = geometry.l - 2.0 * model.ld
+    if length <= 0.0:
+        raise ValueError(
+            f"effective channel length L − 2·LD = {geometry.l:g} − 2·{model.ld:g} = "
+            f"{length:g} m is not positive"
+        )
+    return length
+
+
+def beta(model: Level1Model, geometry: Level1Geometry) -> float:
+    """Gain factor β = KP·W·M/Leff in A/V²."""
+    return model.kp * geometry.w * geometry.m / leff(model, geometry)
+
+
+def body_root(phi: float, vbs: float) -> tuple[float, float]:
+    """The body-effect root s(vbs) of mos1load.c and its decline −ds/dvbs (never negative)."""
+    if vbs <= 0.0:
+        root = math.sqrt(phi - vbs)
+        return root, 0.5 / root
+    # Forward body bias: ngspice replaces the root by its tangent at vbs = 0 and
+    # clamps it at zero, which keeps it real and the threshold bounded.
+    sqrt_phi = math.sqrt(phi)
+    root = sqrt_phi - vbs / (2.0 * sqrt_phi)
+    if root <= 0.0:
+        return 0.0, 0.0
+    return root, 0.5 / sqrt_phi
+
+
+def threshold(model: Level1Model, vbs: float) -> float:
+    """Threshold in device polarity: Vth = type·VTO + GAMMA·(s(vbs) − √PHI)."""
+    root, _ = body_root(model.phi, vbs)
+    return model.polarity * model.vto + model.gamma * (root - math.sqrt(model.phi))
+
+
+class TerminalConductances(NamedTuple):
+    """Partial derivatives of the drain-node current with respect to each terminal voltage.
+
+    They sum to zero (only voltage differences matter), so a Newton solver can stamp
+    them directly: drain row gets +g, source row −g, in each terminal's column.
+    """
+
+    wrt_drain: float
+    wrt_gate: float
+    wrt_source: float
+    wrt_bulk: float
+
+
+class Level1Point(NamedTuple):
+    """Operating point of one level-1 device, normalised the way ngspice reports it.
+
+    A named tuple rather than a dataclass: the solver makes one at every Newton iteration,
+    and a tuple costs a fraction of a frozen dataclass to create.
+
+    ``vgs``, ``vds``, ``vbs`` are the terminal differences in device polarity (×−1 for a
+    PMOS), before any source/drain swap. When ``vds < 0`` the device conducts with its
+    roles swapped (ngspice's mode = −1, ``swapped`` is True): ``vth``, ``vov``, ``vdsat``,
+    ``gm``, ``gds``, ``gmbs`` and ``region`` then describe the device seen from the
+    swapped source, and ``id`` is negative. ``id`` is ngspice's drain current without
+    junction-diode and GMIN terms: positive into the drain of an on NMOS, positive out
+    of the drain of an on PMOS. ``drain_current`` is the signed current into the drain
+    node and ``conductances`` its partial derivatives — what an MNA solver stamps.
+
+    ``gmbs`` is ngspice's value, GAMMA/(2s)·gm with the linearised s under forward body
+    bias; the exact derivative used in ``conductances.wrt_bulk`` differs from it there
+    (GAMMA/(2√PHI)·gm), and agrees everywhere else.
+    """
+
+    id: float
+    vgs: float
+    vds: float
+    vbs: float
+    vth: float
+    vov: float
+    vdsat: float
+    gm: float
+    gds: float
+    gmbs: float
+    region: Region
+    swapped: bool
+    drain_current: float
+    conductances: TerminalConductances
+
+    @property
+    def mode(self) -> int:
+        """ngspice's mode: +1 normal, −1 with source and drain swapped."""
+        return -1 if self.swapped else 1
+
+
+
+_new = tuple.__new__  # evaluate's way to make its named tuples (see there)
+
+
+def evaluate(
+    model: Level1Model, geometry: Level1Geometry, vd: float, vg: float, vs: float, vb: float
+) -> Level1Point:
+    """Square-law drain current and conductances at absolute terminal voltages (V)."""
+    polarity = model.polarity
+    vgs = polarity * (vg - vs)
+    vds = polarity * (vd - vs)
+    vbs = polarity * (vb - vs)
+    swapped = vds < 0.0
+    if swapped:
+        # mos1load.c mode = −1: the terminal at the lower potential (in device
+        # polarity) acts as source, so the equations see vgd, vsd and vbd.
+        gate_drive, channel_bias, body_bias = vgs - vds, -vds, vbs - vds
+    else:
+        gate_drive, channel_bias, body_bias = vgs, vds, vbs
+
+    root, root_decline = body_root(model.phi, body_bias)
+    vth = polarity * model.vto + model.gamma * (root - math.sqrt(model.phi))
+    vov = gate_drive - vth
+    vdsat = max(vov, 0.0)
+    # ngspice's body factor: zero when the linearised root has been clamped.
+    body_factor = model.gamma / (2.0 * root) if root > 0.0 else 0.0
+    exact_body_factor = model.gamma * root_decline  # = −∂vth/∂vbs
+
+    region = classify_region(vov, channel_bias)
+    current, gm, gds = channel(beta(model, geometry), model.lambda_, vov, channel_bias, region)
+    gmbs = gm * body_factor
+    gmbs_exact = gm * exact_body_factor
+
+    # The named tuples are made by tuple.__new__ from their fields in order: their own __new__
+    # is a Python function taking keywords, and the solvers evaluate at every Newton iteration.
+    if swapped:
+        # Current runs source→drain; the device's "source" is the drain terminal.
+        # The polarity factors cancel in each derivative, so these hold for both types.
+        drain_current = -polarity * current
+        # (wrt_drain, wrt_gate, wrt_source, wrt_bulk)
+        conductances = _new(TerminalConductances, (gm + gds + gmbs_exact, -gm, -gds, -gmbs_exact))
+    else:
+        drain_current = polarity * current
+        conductances = _new(TerminalConductances, (gds, gm, -(gm + gds + gmbs_exact), gmbs_exact))
+    return _new(Level1Point, (  # the fields, named alike but for id
+        -current if swapped else current, vgs, vds, vbs, vth, vov, vdsat, gm, gds, gmbs, region, swapped,
+        drain_current, conductances,
+    ))  # fmt: skip
+
+
+def channel(gain: float, lambda_: float, vov: float, vds: float, region: Region) -> tuple[float, float, float]:
+    """The square law: channel current, gm and gds at overdrive `vov` and channel bias `vds` ≥ 0
+    (device polarity, the acting source's view) in `region`, for β = `gain` and LAMBDA = `lambda_`.
+
+    Saturation: ID = (β/2)·(1 + λ·VDS)·VOV²; triode: ID = β·(1 + λ·VDS)·VDS·(VOV − VDS/2).
+    """
+    clm = 1.0 + lambda_ * vds  # channel-length modulation
+    if region == "cutoff":
+        return 0.0, 0.0, 0.0
+    if region == "saturation":
+        return 0.5 * gain * clm * vov * vov, gain * clm * vov, 0.5 * lambda_ * gain * vov * vov
+    return (
+        gain * clm * vds * (vov - 0.5 * vds),
+        gain * clm * vds,
+        gain * clm * (vov - vds) + lambda_ * gain * vds * (vov - 0.5 * vds),
+    )
+
+
+def square_law(
+    model: Level1Model, geometry: Level1Geometry, vov: float, vds: float, region: Region
+) -> tuple[float, float, float]:
+    """ID, gm and gds of a sized device at a given overdrive and VDS, in the region assumed
+    (``channel`` with β = KP·W·M/Leff and the model's LAMBDA): what a closed form asks for."""
+    return channel(beta(model, geometry), model.lambda_, vov, vds, region)
+
+
+def saturation_overdrive(model: Level1Model, geometry: Level1Geometry, current: float) -> float:
+    """The overdrive at which the device carries `current` in saturation, λ = 0: √(2·ID/β)."""
+    return math.sqrt(2.0 * current / beta(model, geometry))
+
+
+def triode_channel_bias(model: Level1Model, geometry: Level1Geometry, excess: float, current: float) -> float:
+    """VDS at which the device carries `current` in triode (λ = 0) when VOV = VDS + `excess`:
+    ID = β·(VDS²/2 + excess·VDS), the positive root √(excess² + 2·ID/β) − excess."""
+    return math.sqrt(excess * excess + 2.0 * current / beta(model, geometry)) - excess
+
+
+def junction_current(voltage: float, saturation_current: float, gmin: float, thermal: float) -> tuple[float, float]:
+    """mos1load.c's bulk junction: current and conductance, GMIN included; `thermal` is kT/q
+    at the device temperature."""
+    if voltage <= -3.0 * thermal:
+        return gmin * voltage - saturation_current, gmin
+    growth = math.exp(min(MAX_EXP_ARG, voltage / thermal))
+    return (
+        saturation_current * (growth - 1.0) + gmin * voltage,
+        saturation_current * growth / thermal + gmin,
+    )
+
+
+@dataclass(frozen=True)
+class ArrayPoint:
+    """``Level1Point`` over many bias points: each field an array (``region`` as codes of
+    ``ask.REGIONS``); ``conductances`` are the four terminal derivatives, in order."""
+
+    id: np.ndarray
+    vgs: np.ndarray
+    vds: np.ndarray
+    vbs: np.ndarray
+    vth: np.ndarray
+    vov: np.ndarray
+    vdsat: np.ndarray
+    gm: np.ndarray
+    gds: np.ndarray
+    gmbs: np.ndarray
+    region: np.ndarray
+    swapped: np.ndarray
+    drain_current: np.ndarray
+    conductances: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]
+
+
+def evaluate_arrays(
+    model: Level1Model, geometry: Level1Geometry, vd: np.ndarray, vg: np.ndarray, vs: np.ndarray, vb: np.ndarray
+) -> ArrayPoint:
+    """``evaluate`` over arrays of absolute terminal voltages: the same equations, branch by
+    branch with ``np.where``, in the same order of operations."""
+    polarity = model.polarity
+    vd, vg, vs, vb = (np.asarray(v, dtype=float) for v in (vd, vg, vs, vb))
+    vgs = polarity * (vg - vs)
+    vds = polarity * (vd - vs)
+    vbs = polarity * (vb - vs)
+    swapped = vds < 0.0
+    gate_drive = np.where(swapped, vgs - vds, vgs)
+    channel_bias = np.where(swapped, -vds, vds)
+    body_bias = np.where(swapped, vbs - vds, vbs)
+
+    sqrt_phi = math.sqrt(model.phi)
+    reverse = body_bias <= 0.0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        reverse_root = np.sqrt(np.where(reverse, model.phi - body_bias, model.phi))
+        tangent = sqrt_phi - body_bias / (2.0 * sqrt_phi)
+        root = np.where(reverse, reverse_root, np.where(tangent <= 0.0, 0.0, tangent))
+        root_decline = np.where(reverse, 0.5 / reverse_root, np.where(tangent <= 0.0, 0.0, 0.5 / sqrt_phi))
+        body_factor = np.where(root > 0.0, model.gamma / (2.0 * np.where(root > 0.0, root, 1.0)), 0.0)
+    vth = polarity * model.vto + model.gamma * (root - sqrt_phi)
+    vov = gate_drive - vth
+    vdsat = np.maximum(vov, 0.0)
+    exact_body_factor = model.gamma * root_decline
+
+    gain = beta(model, geometry)
+    clm = 1.0 + model.lambda_ * channel_bias
+    region = region_codes(vov, channel_bias)
+    saturated, triode = region == 2, region == 1
+    current = np.where(saturated, 0.5 * gain * clm * vov * vov,
+                       np.where(triode, gain * clm * channel_bias * (vov - 0.5 * channel_bias), 0.0))
+    gm = np.where(saturated, gain * clm * vov, np.where(triode, gain * clm * channel_bias, 0.0))
+    gds = np.where(
+        saturated,
+        0.5 * model.lambda_ * gain * vov * vov,
+        np.where(triode, gain * clm * (vov - channel_bias)
+                 + model.lambda_ * gain * channel_bias * (vov - 0.5 * channel_bias), 0.0),
+    )  # fmt: skip
+    gmbs = gm * body_factor
+    gmbs_exact = gm * exact_body_factor
+    drain_current = np.where(swapped, -polarity * current, polarity * current)
+    conductances = (
+        np.where(swapped, gm + gds + gmbs_exact, gds),
+        np.where(swapped, -gm, gm),
+        np.where(swapped, -gds, -(gm + gds + gmbs_exact)),
+        np.where(swapped, -gmbs_exact, gmbs_exact),
+    )
+    return ArrayPoint(
+        np.where(swapped, -current, current), vgs, vds, vbs, vth, vov, vdsat, gm, gds, gmbs, region, swapped,
+        drain_current, conductances,
+    )  # fmt: skip
+
+
+def junction_current_arrays(
+    voltage: np.ndarray, saturation_current: float, gmin: float, thermal: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """``junction_current`` over an array of junction voltages."""
+    reverse = voltage <= -3.0 * thermal
+    growth = np.exp(np.minimum(MAX_EXP_ARG, np.where(reverse, 0.0, voltage) / thermal))
+    current = np.where(reverse, gmin * voltage - saturation_current,
+                       saturation_current * (growth - 1.0) + gmin * voltage)  # fmt: skip
+    conductance = np.where(reverse, gmin, saturation_current * growth / thermal + gmin)
+    return current, conductance

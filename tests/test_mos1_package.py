@@ -1,0 +1,164 @@
+"""The level-1 device package: one instance function, one parameter table, floats and arrays alike.
+
+The array form is checked against the scalar form (the reference, itself checked against ngspice
+in test_level1_device.py) to 1e-12 relative; the instance against what each analysis read
+before it (the same card, size and junction rules).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from bridge.analysis import dcsolve
+from bridge.analysis.hand import HandAnalysisError, hand_analysis
+from bridge.devices.mos1 import REGIONS, Level1Geometry, Level1Model, evaluate, evaluate_arrays, overdrive
+from bridge.devices.mos1.instance import NotLevel1, SizeValueError, mosfet_instance
+from bridge.devices.mos1.params import ALIASES, KNOWN_PARAMETERS, canonical_name
+from bridge.netlist import parse_netlist
+
+# A greenhouse soil-moisture probe: a PMOS heater switch and an NMOS sense stage, run warm.
+GREENHOUSE = """greenhouse probe driver
+.model nsense nmos (vt0=0.55 kp=90u gamma=0.45 phi=0.7 lambda=0.03 is=2e-15 js=1e-4)
+.model pheat pmos (vto=-0.7 u0=230 tox=20n lambda=0.05)
+.options defw=20u defl=3u tnom=30
+.temp 45
+vdd vdd 0 5
+vg g 0 1.6
+rd vdd d 12k
+rs s 0 1k
+m1 d g s 0 nsense w=40u ad=80p as=80p m=2
+vgp gp 0 3.1
+rh vh 0 2.2k
+m2 vh gp vdd vdd pheat l=2u temp=60
+.end
+"""
+
+
+def _circuit(text: str = GREENHOUSE):
+    return parse_netlist(text, "greenhouse.cir")
+
+
+def _close(a: float, b: float, rel: float = 1e-12) -> bool:
+    return abs(a - b) <= rel * max(abs(a), abs(b)) + 1e-300
+
+
+@pytest.mark.parametrize("mos_type, card", [
+    ("nmos", {"vto": 0.6, "kp": 120e-6, "gamma": 0.5, "phi": 0.65, "lambda": 0.04}),
+    ("pmos", {"vto": -0.8, "kp": 40e-6, "gamma": 0.3, "phi": 0.7, "lambda": 0.02}),
+    ("nmos", {"vto": -1.2, "kp": 60e-6}),  # depletion, no body effect
+])  # fmt: skip
+def test_array_evaluation_equals_scalar_evaluation_in_every_region(mos_type: str, card: dict) -> None:
+    model = Level1Model.from_card(mos_type, card)
+    geometry = Level1Geometry(w=15e-6, l=2e-6, m=3.0)
+    rng = np.random.default_rng(13)
+    # Both signs of vds (swapped mode), forward body bias past the tangent's zero, cutoff.
+    vd, vg, vs, vb = (rng.uniform(-4.0, 4.0, 600) for _ in range(4))
+    arrays = evaluate_arrays(model, geometry, vd, vg, vs, vb)
+    regions_seen = set()
+    for k in range(vd.size):
+        point = evaluate(model, geometry, vd[k], vg[k], vs[k], vb[k])
+        regions_seen.add(point.region)
+        assert REGIONS[arrays.region[k]] == point.region
+        assert bool(arrays.swapped[k]) == point.swapped
+        for name in ("id", "vth", "vov", "vdsat", "gm", "gds", "gmbs", "drain_current"):
+            assert _close(float(getattr(arrays, name)[k]), getattr(point, name)), (name, k)
+        for got, want in zip(arrays.conductances, point.conductances, strict=True):
+            assert _close(float(got[k]), want)
+    assert regions_seen == {"cutoff", "triode", "saturation"}
+
+
+def test_overdrive_of_a_swapped_device_is_taken_from_the_drain_for_floats_and_arrays() -> None:
+    assert overdrive(2.0, 1.0, 0.5) == 1.5
+    assert overdrive(2.0, -1.0, 0.5) == 2.5  # vgd − vth with vgd = vgs − vds
+    vector = overdrive(np.array([2.0, 2.0]), np.array([1.0, -1.0]), np.array([0.5, 0.5]))
+    assert vector.tolist() == [1.5, 2.5]
+
+
+def test_one_instance_gives_card_size_temperature_and_junctions() -> None:
+    circuit = _circuit()
+    sense = mosfet_instance(circuit, circuit.element("m1"))
+    # The card read through the alias table (VT0), at 45 °C from TNOM 30 °C (.options tnom).
+    card = Level1Model.from_card("nmos", {"vto": 0.55, "kp": 90e-6, "gamma": 0.45, "phi": 0.7,
+                                          "lambda": 0.03, "is": 2e-15, "js": 1e-4}, 30.0)  # fmt: skip
+    expected = card.at_temperature(45.0)
+    assert sense.model.vto == expected.vto and sense.model.kp == expected.kp
+    # W from the instance, L from .options defl, M = 2.
+    assert (sense.geometry.w, sense.geometry.l, sense.geometry.m) == (40e-6, 3e-6, 2.0)
+    # JS·area·M with both areas given, scaled to 45 °C (mos1temp.c's tSatCurDens).
+    factor = expected.saturation_current_factor
+    assert factor > 1.0
+    assert _close(sense.drain_saturation_current, 1e-4 * factor * 80e-12 * 2.0)
+    heater = mosfet_instance(circuit, circuit.element("m2"))
+    assert heater.model.temperature_celsius == 60.0  # instance TEMP
+    assert heater.geometry.w == 20e-6 and heater.geometry.l == 2e-6  # .options defw
+    assert "kp" in heater.model.derived  # KP from U0 (alias) and TOX
+    assert math.isclose(heater.drain_saturation_current, 1e-14 * heater.model.saturation_current_factor)
+
+
+def test_the_solver_places_the_instance_the_device_package_gives() -> None:
+    circuit = _circuit()
+    network = dcsolve._build_network(circuit, dcsolve.level1_model)
+    for placed in network.mosfets:
+        device = mosfet_instance(circuit, circuit.element(placed.name))
+        assert placed.model.kp == device.model.kp and placed.model.vto == device.model.vto
+        assert placed.geometry == device.geometry
+        assert placed.drain_saturation_current == device.drain_saturation_current
+
+
+def test_instance_refusals_name_their_reason() -> None:
+    other_level = GREENHOUSE.replace("nmos (vt0", "nmos (level=3 vt0")
+    circuit = _circuit(other_level)
+    with pytest.raises(NotLevel1):
+        mosfet_instance(circuit, circuit.element("m1"))
+    with pytest.raises(HandAnalysisError, match="LEVEL=3; the hand model reads level-1 cards"):
+        hand_analysis(circuit)
+    short = _circuit(GREENHOUSE.replace("w=40u", "w=40u l=0.2u").replace("vt0=0.55", "vt0=0.55 ld=0.1u"))
+    with pytest.raises(SizeValueError, match="effective channel length"):
+        mosfet_instance(short, short.element("m1"))
+
+
+def test_front_end_reads_aliases_from_the_device_parameter_table() -> None:
+    assert all(canonical_name(alias.upper()) == name for alias, name in ALIASES.items())
+    assert set(ALIASES.values()) <= KNOWN_PARAMETERS
+    card = _circuit().model("nsense")
+    assert card.params["vto"] == 0.55 and "vt0" not in card.params
+    assert _circuit().model("pheat").params["uo"] == 230.0
+
+
+def test_no_module_outside_the_device_package_writes_the_square_law() -> None:
+    """The patterns issue 13 names (½·K·VOV², gm = K·VOV, the inverse √(2·ID/K)) appear in
+    bridge/devices/ only; the hand closed forms ask ``load.square_law`` and its inverses."""
+    import re
+    from pathlib import Path
+
+    import bridge
+
+    square_law = re.compile(
+        r"0\.5 \* (k|gain|beta)\w* \* vov|\b(k|gain) \* vov \* vov|2\.0 \* current / (k|gain)\b|gm = k \* "
+    )
+    root = Path(bridge.__file__).parent
+    writers = [
+        f"{path.relative_to(root)}:{number}"
+        for path in root.rglob("*.py")
+        if "devices" not in path.relative_to(root).parts
+        for number, line in enumerate(path.read_text(encoding="utf-8").splitlines(), 1)
+        if square_law.search(line)
+    ]
+    assert writers == []
+
+
+def test_square_law_and_its_inverses_agree_with_the_device_evaluation() -> None:
+    from bridge.devices.mos1.load import saturation_overdrive, square_law, triode_channel_bias
+
+    model = Level1Model.from_card("nmos", {"vto": 0.5, "kp": 100e-6})
+    geometry = Level1Geometry(w=20e-6, l=1e-6)
+    point = evaluate(model, geometry, 3.0, 1.3, 0.0, 0.0)  # saturation, VOV = 0.8 V
+    current, gm, gds = square_law(model, geometry, point.vov, point.vds, "saturation")
+    assert (current, gm, gds) == (point.id, point.gm, point.gds)
+    assert _close(saturation_overdrive(model, geometry, current), point.vov, 1e-15)
+    triode = evaluate(model, geometry, 0.2, 1.5, 0.0, 0.0)  # VOV = 1.0 V, VDS = 0.2 V
+    assert square_law(model, geometry, triode.vov, triode.vds, "triode") == (triode.id, triode.gm, triode.gds)
+    assert _close(triode_channel_bias(model, geometry, triode.vov - triode.vds, triode.id), 0.2, 1e-13)
