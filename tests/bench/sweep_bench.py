@@ -25,9 +25,10 @@ from run import median_seconds, note  # the shared helpers of tests/bench/run.py
 from run import report as report_goal
 
 from bridge.analysis.dcsolve import solve_dc_sweep
-from bridge.analysis.sweep import sim_curve, sim_sweep_deck, sweep_values
+from bridge.analysis.sweep import sweep_values
 from bridge.netlist import parse_netlist
 from bridge.sim.client import NgspiceSession, ngspice_available
+from bridge.sim.transfer import sim_curve, sim_sweep_deck
 
 # A divider-biased common source with LAMBDA and GAMMA, swept at the gate through all three regions.
 STAGE = """\
