@@ -5,8 +5,9 @@
 
 The columns, stated once:
 
-* hand — the hand model (square law, λ = γ = 0, no gate current) solved by ``hand_analysis``
-  at every point, on a copy of the circuit with the swept source's value replaced.
+* hand — the hand model (square law, λ = γ = 0, no gate current) at every point, numbers only:
+  ``HandSweep`` (the circuit reduced once, the affine closed form per point) where it applies,
+  else ``hand_analysis(..., working=False)`` on a copy with the swept source's value replaced.
 * level1 — ``solve_dc_sweep``: the full level-1 model, each point started from the last, as
   ngspice's ``.dc`` does.
 * sim — ngspice's own ``.dc`` through the worker, on SPICE emitted from the Circuit.
@@ -65,7 +66,7 @@ from .dcsolve import (
     solve_dc_sweep,
     solve_operating_point,
 )
-from .hand import HandAnalysisError, HandSolution, hand_analysis
+from .hand import HandAnalysisError, HandSolution, HandSweep, hand_analysis
 from .hand_edges import (
     ClosedFormEdges,
     HandGainFormula,
@@ -278,16 +279,25 @@ def _side(boundary: str, point: _DevicePoint) -> bool:
 
 
 class _HandModel:
-    """The hand model at any value of the swept source; `failure` keeps the last reason it gave none."""
+    """The hand model at any value of the swept source, numbers only (no working is written);
+    `failure` keeps the last reason it gave none.
+
+    The affine closed form is solved by HandSweep on the circuit reduced once; every other point
+    (another topology, or one where that form does not hold) by the whole hand analysis."""
 
     def __init__(self, circuit: Circuit, source: str) -> None:
         self.circuit = circuit
         self.source = source
         self.failure: str | None = None
+        self.closed_form = HandSweep(circuit, source)
 
     def solve(self, value: float) -> HandSolution | None:
         try:
-            return hand_analysis(with_source_value(self.circuit, self.source, value))
+            solution = self.closed_form.solve(value)
+            if solution is not None:
+                return solution
+            copy = with_source_value(self.circuit, self.source, value)
+            return hand_analysis(copy, closed_form=not self.closed_form.covered, working=False)
         except (HandAnalysisError, np.linalg.LinAlgError) as exc:
             self.failure = str(exc)
             return None

@@ -4,6 +4,9 @@ Each goal line prints the measurement, the goal and whether it is met; lines wit
 are context. Exit status 1 when a goal is missed.
 
 * a 1001-point level-1 sweep (solve_dc_sweep, each point started from the last) in under 50 ms;
+* the hand column's solves of a 201-point sweep (HandSweep: the circuit reduced once, the closed
+  form per point, no working written) in under 5 ms; beside it, for context, the same points by
+  hand_analysis with its working on a copy of the circuit per point (what the column did before);
 * the ngspice column costs no more than the same `.dc` runs in the worker plus 20 %: "the same
   runs" are the decks the sweep emits (the grid's `.dc` and the finer ones around each edge and
   the bias point, same `.save` vectors) run through the same worker with nothing done to their
@@ -25,7 +28,8 @@ from run import median_seconds, note  # the shared helpers of tests/bench/run.py
 from run import report as report_goal
 
 from bridge.analysis.dcsolve import solve_dc_sweep
-from bridge.analysis.sweep import sweep_values
+from bridge.analysis.hand import HandSweep, hand_analysis
+from bridge.analysis.sweep import sweep_values, with_source_value
 from bridge.netlist import parse_netlist
 from bridge.sim.client import NgspiceSession, ngspice_available
 from bridge.sim.transfer import sim_curve, sim_sweep_deck
@@ -58,6 +62,30 @@ def level1_goal() -> bool:
     solve_dc_sweep(circuit, "VIN", values)  # warm-up: imports, first-call costs
     seconds = median_seconds(lambda: solve_dc_sweep(circuit, "VIN", values), 7)
     return report(f"level-1 sweep, {POINTS} points (median of 7)", seconds * 1e3, 50.0)
+
+
+HAND_POINTS = 201
+
+
+def hand_goal() -> bool:
+    circuit = parse_netlist(STAGE, "bench.cir")
+    values = [float(v) for v in sweep_values(0.0, 5.0, points=HAND_POINTS)]
+
+    def column() -> None:
+        model = HandSweep(circuit, "VIN")
+        for value in values:
+            if model.solve(value) is None:
+                raise AssertionError(f"VIN = {value}: not on the closed-form path")
+
+    def with_working() -> None:
+        for value in values:
+            hand_analysis(with_source_value(circuit, "VIN", value))
+
+    column()  # warm-up
+    before = median_seconds(with_working, 3)
+    report(f"  context: hand_analysis with its working, {HAND_POINTS} copies of the circuit", before * 1e3, None)
+    seconds = median_seconds(column, 11)
+    return report(f"hand column, {HAND_POINTS} points, numbers only (median of 11)", seconds * 1e3, 5.0)
 
 
 def ngspice_batch_seconds(folder: Path, deck_text: str, repeat: int) -> float:
@@ -135,7 +163,7 @@ def sim_goal() -> bool:
 
 
 def main() -> int:
-    results = [level1_goal(), sim_goal()]
+    results = [level1_goal(), hand_goal(), sim_goal()]
     return 0 if all(results) else 1
 
 
