@@ -73,7 +73,7 @@ def test_hand_sweep_gives_hand_analysis_numbers_to_the_bit(name):
     text, source, start, stop = SCENARIOS[name]
     circuit = parse_netlist(text, "scenario.cir")
     model = HandSweep(circuit, source)
-    covered = regions = 0
+    covered = 0
     seen = set()
     for value in sweep_values(start, stop, points=61):
         fast = model.solve(float(value))
@@ -87,6 +87,9 @@ def test_hand_sweep_gives_hand_analysis_numbers_to_the_bit(name):
         assert fast.closed_form and fast.steps == () and fast.assumptions == ()
         seen.add(fast.devices["M1"].region)
     regions = len(seen)
+    values = [float(v) for v in sweep_values(start, stop, points=61)]
+    # The whole grid at once (one batched linear solve): the same solutions as point by point.
+    assert model.solve_all(values) == [model.solve(value) for value in values]
     assert covered >= 40, f"only {covered} of 61 points on the closed-form path"
     assert regions >= 2, f"the sweep saw only {seen}"
 

@@ -27,7 +27,7 @@ from __future__ import annotations
 
 import copy
 import math
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from operator import mul
 
@@ -1229,12 +1229,14 @@ class _AffineNumbers:
     failure: str | None = None
 
 
-def _affine_numbers(dc: _DcCircuit, stage: _Stage) -> _AffineNumbers | str:
-    """The affine closed form's numbers, no text; a reason (str) where it does not apply."""
+def _affine_numbers(dc: _DcCircuit, stage: _Stage, base: dict[str, float] | None = None) -> _AffineNumbers | str:
+    """The affine closed form's numbers, no text; a reason (str) where it does not apply.
+    `base`: the network's node voltages with ID = 0, when already solved."""
     t, net = stage.transistor, stage.network
     p, names = t.polarity, _names(t.polarity)
     k, vt = beta(t.model, t.geometry), threshold(t.model, 0.0)
-    base = _solve_network(net, net.nodes, 0.0)
+    if base is None:
+        base = _solve_network(net, net.nodes, 0.0)
     # Each node's response to the device current alone: V = base + ID·response.
     assert stage.response is not None
     response = dict(zip(net.nodes, stage.response.tolist(), strict=True))
@@ -2148,8 +2150,35 @@ class HandSweep:
         """The hand bias point with the swept source at `value`; None where this path does not cover it."""
         if not self.covered:
             return None
-        dc, stage, net, element = self._dc, self._stage, self._network, self._element
-        value = float(value)
+        self._set(float(value))
+        return self._point(None)
+
+    def solve_all(self, values: Sequence[float]) -> list[HandSolution | None]:
+        """``solve`` at every value; the network's linear solves of all of them in one call (one
+        LAPACK solve per value, as ``solve`` makes it, so the numbers are the same)."""
+        if not self.covered:
+            return [None] * len(values)
+        dc, net = self._dc, self._network
+        injections, held = [], []
+        for value in values:
+            self._set(float(value))
+            injections.append(net.injection)
+            held.append((dc.fixed, dc.current_sources))
+        if not injections:
+            return []
+        # G·v = J + 0·e at each value, as _solve_network states it for ID = 0.
+        rhs = np.array(injections) + 0.0 * net.device
+        count, size = rhs.shape
+        solved = np.linalg.solve(np.broadcast_to(net.conductance, (count, size, size)), rhs[:, :, None])[:, :, 0]
+        points = []
+        for (fixed, current_sources), base in zip(held, solved.tolist(), strict=True):
+            dc.fixed, dc.current_sources = fixed, current_sources
+            points.append(self._point(dict(zip(net.nodes, base, strict=True))))
+        return points
+
+    def _set(self, value: float) -> None:
+        """The working copies at `value`: the held nodes or the swept current, and the injection."""
+        dc, net, element = self._dc, self._network, self._element
         if element.kind == "vsource":
             fixed: dict[str, float] = {GROUND: 0.0}
             for swept, netlist_value, target, origin, plus in self._chain:
@@ -2161,7 +2190,11 @@ class HandSweep:
                 replace(c, current=value) if c.name == element.name else c for c in self._current_sources
             ]
         net.injection = np.array(_injection(dc, net.index), dtype=float)
-        numbers = _affine_numbers(dc, stage)
+
+    def _point(self, base: dict[str, float] | None) -> HandSolution | None:
+        """The closed form at the value last set (`base`: the network with ID = 0, when solved already)."""
+        dc, stage = self._dc, self._stage
+        numbers = _affine_numbers(dc, stage, base)
         if isinstance(numbers, str) or numbers.failure is not None:
             return None
         voltages = {**dc.fixed, **numbers.voltages}

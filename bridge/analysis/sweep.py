@@ -302,6 +302,14 @@ class _HandModel:
             self.failure = str(exc)
             return None
 
+    def solve_all(self, values: Sequence[float]) -> list[HandSolution | None]:
+        """``solve`` at every value, the closed-form points together."""
+        try:
+            solutions = self.closed_form.solve_all(values)
+        except (HandAnalysisError, np.linalg.LinAlgError):
+            solutions = [None] * len(values)  # each point on its own, its failure kept
+        return [self.solve(value) if solution is None else solution for value, solution in zip(values, solutions)]
+
     @staticmethod
     def device(solution: HandSolution, name: str) -> _DevicePoint:
         d = solution.devices[name]
@@ -354,7 +362,7 @@ def _hand_curve(
     circuit: Circuit, source: str, output: str, x: np.ndarray, bias: float, devices: Sequence[str]
 ) -> tuple[Curve | None, list[Finding], _HandModel]:
     model = _HandModel(circuit, source)
-    solutions = [model.solve(float(value)) for value in x]
+    solutions = model.solve_all([float(value) for value in x])
     findings: list[Finding] = []
     failed = sum(s is None for s in solutions)
     if failed == len(solutions):
