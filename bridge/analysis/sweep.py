@@ -51,6 +51,9 @@ from ..curves import (
     largest_gain,
     region_edges,
 )
+from ..curves import interpolated_edge as _interpolated_edge
+from ..curves import largest_gain as _largest_gain
+from ..curves import region_edges as _edges
 from ..netlist.circuit import GROUND, Circuit
 from ..netlist.numbers import engineering
 from ..netlist.source import NOTICE_SEVERITY, notice_in
@@ -476,7 +479,7 @@ def _level1_curve(
 
         def refine(boundary: str, k: int, name: str = name, device_points: list = device_points) -> float:
             values = [_indicator(boundary, p) if p is not None else math.nan for p in device_points]
-            fallback = interpolated_edge(x, values, k)
+            fallback = _interpolated_edge(x, values, k)
             guess = points[k].node_voltages if points[k] is not None else None
 
             def indicator(value: float) -> float:
@@ -485,7 +488,7 @@ def _level1_curve(
 
             return _root(indicator, float(x[k]), float(x[k + 1]), fallback)
 
-        edges[name] = region_edges(_crossings(x, device_points, refine))
+        edges[name] = _edges(_crossings(x, device_points, refine))
 
     gain: float | None = None
     h = _half_width(x, bias)
@@ -499,7 +502,7 @@ def _level1_curve(
         findings.append(Finding("warning", "solver-failed", "level-1 solver: no solution beside the bias point"))
     curve = Curve(
         "level1", output_values, regions, edges, EDGE_METHODS["level1"], gain,
-        largest_gain(x, output_values), failed,
+        _largest_gain(x, output_values), failed,
     )  # fmt: skip
     return curve, findings
 
