@@ -256,16 +256,13 @@ def command_sweep(args: argparse.Namespace) -> int:
     """`biasbridge sweep`: the DC transfer curve in three columns, with region edges and gain."""
     from .analysis.sweep import (
         SweepInputError,
-        default_output,
-        default_range,
-        default_source,
-        gate_bias_source,
         independent_source,
         output_node,
         refuse_large_sweep,
         sweep_values,
         transfer_curve,
     )
+    from .commands.sweep_defaults import default_output, default_range, default_source, gate_bias_source
     from .netlist import NetlistError, read_netlist
     from .report.files import write_text_atomically
     from .report.sweep_view import sweep_csv, sweep_json, sweep_renderable

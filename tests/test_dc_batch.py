@@ -12,7 +12,8 @@ import numpy as np
 import pytest
 
 from bridge.analysis.dcsolve import solve_dc_sweep, solve_dc_sweep_arrays
-from bridge.analysis.sweep import SweepInputError, default_source, sweep_values
+from bridge.analysis.sweep import SweepInputError, sweep_values
+from bridge.commands.sweep_defaults import default_source
 from bridge.devices.mos1 import REGIONS
 from bridge.netlist import parse_netlist, read_netlist
 

@@ -18,11 +18,10 @@ import pytest
 
 from bridge import cli
 from bridge.analysis.sweep import (
-    default_output,
-    default_source,
     sweep_values,
     transfer_curve,
 )
+from bridge.commands.sweep_defaults import default_output, default_source
 from bridge.netlist import parse_netlist, read_netlist
 from bridge.sim.client import ngspice_available
 from tests.conftest import EXAMPLES, NGSPICE, ngspice_batch_op
@@ -419,7 +418,7 @@ def test_table_shows_edges_and_the_closed_form_steps(divider_file, capsys, monke
 
 def test_defaults_sweep_the_gate_source_from_zero_to_the_supply():
     circuit = parse_netlist(DIVIDER_CS, "divider.cir")
-    from bridge.analysis.sweep import default_range
+    from bridge.commands.sweep_defaults import default_range
 
     assert default_source(circuit) == "VIN"
     assert default_output(circuit) == "d"
@@ -492,7 +491,8 @@ M1 d g 0 0 nch w=16u l=2u
 def test_a_capacitor_coupled_gate_sweeps_its_divider_bias_in_every_column(tmp_path, session):
     from bridge.analysis.dcsolve import solve_operating_point
     from bridge.analysis.hand import hand_analysis
-    from bridge.analysis.sweep import gate_bias_source, sim_sweep_deck
+    from bridge.commands.sweep_defaults import gate_bias_source
+    from bridge.sim.transfer import sim_sweep_deck
 
     path = tmp_path / "dynamo.cir"
     path.write_text(DYNAMO_CS)
@@ -535,7 +535,7 @@ def test_the_command_says_which_source_it_created_and_why(tmp_path, capsys, monk
 
 
 def test_gates_driven_at_dc_keep_their_own_source():
-    from bridge.analysis.sweep import gate_bias_source
+    from bridge.commands.sweep_defaults import gate_bias_source
 
     assert gate_bias_source(parse_netlist(DIVIDER_CS, "divider.cir")) is None  # VIN reaches it through R1
     no_coupling = DYNAMO_CS.replace("CIN sig g 100n\n", "")
@@ -573,7 +573,7 @@ def test_plot_keeps_an_end_bias_point_inside_the_frame_and_labels_hand_and_level
 
 
 def test_plot_enlarges_a_small_active_region_in_a_second_panel(tmp_path):
-    from bridge.analysis.sweep import gate_bias_source
+    from bridge.commands.sweep_defaults import gate_bias_source
     from bridge.report.plot import active_window, plot_figure, write_plot
 
     bias = gate_bias_source(parse_netlist(DYNAMO_CS, "dynamo.cir"))

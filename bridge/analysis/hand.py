@@ -25,8 +25,9 @@ Nothing here reads files or prints: the Circuit is the only input.
 
 from __future__ import annotations
 
+import copy
 import math
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from operator import mul
 
@@ -314,26 +315,7 @@ def _dc_circuit(circuit: Circuit, effects: frozenset[str]) -> _DcCircuit:
             raise HandAnalysisError(
                 f"{element.name} is shorted (by an inductor or a 0 Ω resistor): its current is undefined"
             )
-    progress = True
-    while progress:
-        progress = False
-        for element in list(pending):
-            plus, minus = merged[element.nodes[0]], merged[element.nodes[1]]
-            value = _number(element.value if element.value is not None else 0.0, "value", element)
-            if plus in fixed and minus in fixed:
-                raise HandAnalysisError(
-                    f"{element.name} closes a loop of voltage sources and shorts: its current is undefined"
-                )
-            if minus in fixed:
-                fixed[plus] = fixed[minus] + value
-                rail_label[plus] = element.name if minus == GROUND else f"V({plus})"
-            elif plus in fixed:
-                fixed[minus] = fixed[plus] - value
-                rail_label[minus] = f"V({minus})"
-            else:
-                continue
-            pending.remove(element)
-            progress = True
+    _hold_nodes(pending, merged, fixed, rail_label)
 
     resistors = []
     current_sources = []
@@ -367,6 +349,39 @@ def _dc_circuit(circuit: Circuit, effects: frozenset[str]) -> _DcCircuit:
         controlled=controlled,
         notes=notes,
     )
+
+
+def _hold_nodes(
+    pending: list[Element], merged: dict[str, str], fixed: dict[str, float], rail_label: dict[str, str],
+    chain: list[tuple[Element, str, str, bool]] | None = None,
+) -> None:
+    """Fix the nodes the voltage sources in `pending` hold from the `fixed` ones, in chains from
+    ground; the sources used are taken out of `pending` (the rest float). `chain`, when given,
+    receives each step in order: (source, node fixed, node it is fixed from, added or subtracted)."""
+    progress = True
+    while progress:
+        progress = False
+        for element in list(pending):
+            plus, minus = merged[element.nodes[0]], merged[element.nodes[1]]
+            value = _number(element.value if element.value is not None else 0.0, "value", element)
+            if plus in fixed and minus in fixed:
+                raise HandAnalysisError(
+                    f"{element.name} closes a loop of voltage sources and shorts: its current is undefined"
+                )
+            if minus in fixed:
+                fixed[plus] = fixed[minus] + value
+                rail_label[plus] = element.name if minus == GROUND else f"V({plus})"
+                if chain is not None:
+                    chain.append((element, plus, minus, True))
+            elif plus in fixed:
+                fixed[minus] = fixed[plus] - value
+                rail_label[minus] = f"V({minus})"
+                if chain is not None:
+                    chain.append((element, minus, plus, False))
+            else:
+                continue
+            pending.remove(element)
+            progress = True
 
 
 # --- the linear network seen by one transistor ----------------------------------------------
@@ -403,7 +418,6 @@ def _network(dc: _DcCircuit, transistor: _Transistor) -> _Network:
     size = len(free)
     # Stamped in plain floats (numpy's per-element indexing is slow), the same sums in the same order.
     conductance = stamp_rows(size)  # dict rows from linear.SPARSE_FROM unknowns on
-    injection = [0.0] * size
     for resistor in dc.resistors:
         g = 1.0 / resistor.resistance
         for here, there in ((resistor.a, resistor.b), (resistor.b, resistor.a)):
@@ -412,13 +426,7 @@ def _network(dc: _DcCircuit, transistor: _Transistor) -> _Network:
                 row[index[here]] += g
                 if there in index:
                     row[index[there]] -= g
-                else:
-                    injection[index[here]] += g * dc.fixed[there]
-    for source in dc.current_sources:
-        if source.leaves in index:
-            injection[index[source.leaves]] -= source.current
-        if source.enters in index:
-            injection[index[source.enters]] += source.current
+    injection = _injection(dc, index)
     device = [0.0] * size
     p = transistor.polarity
     if transistor.drain in index:
@@ -427,6 +435,23 @@ def _network(dc: _DcCircuit, transistor: _Transistor) -> _Network:
         device[index[transistor.source]] += p
     matrix = stamped(conductance, size)
     return _Network(free, index, matrix, np.array(injection, dtype=float), np.array(device, dtype=float), conductance)
+
+
+def _injection(dc: _DcCircuit, index: Mapping[str, int]) -> list[float]:
+    """J of G·v = J + ID·e: the current the fixed nodes (through resistors) and the current
+    sources push into each free node, summed in element order."""
+    injection = [0.0] * len(index)
+    for resistor in dc.resistors:
+        g = 1.0 / resistor.resistance
+        for here, there in ((resistor.a, resistor.b), (resistor.b, resistor.a)):
+            if here in index and there not in index:
+                injection[index[here]] += g * dc.fixed[there]
+    for source in dc.current_sources:
+        if source.leaves in index:
+            injection[index[source.leaves]] -= source.current
+        if source.enters in index:
+            injection[index[source.enters]] += source.current
+    return injection
 
 
 def _unanchored_groups(dc: _DcCircuit, net: _Network) -> list[set[str]]:
@@ -1124,12 +1149,46 @@ def _quadratic(a: float, b: float, c: float) -> tuple[float, ...]:
     return tuple(sorted(roots))
 
 
-def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _ClosedForm | str:
-    """Every node voltage affine in ID: VOV = u − Rg·ID, VDS = w − Rd·ID; a quadratic each region."""
+@dataclass(frozen=True)
+class _AffineNumbers:
+    """The numbers of the affine closed form: VOV = u − rg·ID, VDS = vds0 − rd·ID.
+
+    region is "cutoff", "saturation" or "triode"; `trial_*` are the saturation attempt's numbers
+    (VOV, its rejected root, ID, VDS) when the device conducts; `roots` the triode quadratic's
+    (qa·ID² + qb·ID + qc = 0) when saturation failed; `failure` says why no triode root fits.
+    """
+
+    k: float
+    vt: float
+    vgs0: float
+    vds0: float
+    rg: float
+    rd: float
+    u: float
+    base: dict[str, float]
+    voltages: dict[str, float]  # every free node at the solution
+    current: float
+    region: str
+    vov: float = 0.0
+    vds: float = 0.0
+    trial_vov: float = 0.0
+    trial_other: float = 0.0
+    trial_current: float = 0.0
+    trial_vds: float = 0.0
+    trial_voltages: dict[str, float] = field(default_factory=dict)
+    quadratic: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    roots: tuple[float, ...] = ()
+    failure: str | None = None
+
+
+def _affine_numbers(dc: _DcCircuit, stage: _Stage, base: dict[str, float] | None = None) -> _AffineNumbers | str:
+    """The affine closed form's numbers, no text; a reason (str) where it does not apply.
+    `base`: the network's node voltages with ID = 0, when already solved."""
     t, net = stage.transistor, stage.network
     p, names = t.polarity, _names(t.polarity)
     k, vt = beta(t.model, t.geometry), threshold(t.model, 0.0)
-    base = _solve_network(net, net.nodes, 0.0)
+    if base is None:
+        base = _solve_network(net, net.nodes, 0.0)
     # Each node's response to the device current alone: V = base + ID·response.
     assert stage.response is not None
     response = dict(zip(net.nodes, stage.response.tolist(), strict=True))
@@ -1153,21 +1212,78 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
     rg = max(rg, 0.0)
     if vds0 < 0.0:
         return f"with ID = 0 the drain sits below the source ({names.vds} = {_q(vds0, 'V')}): roles swapped"
+    if u <= 0.0:
+        return _AffineNumbers(k, vt, vgs0, vds0, rg, rd, u, base, dict(base), 0.0, "cutoff")
+
+    if rg == 0.0:
+        vov, other = u, 0.0
+    else:
+        roots = _quadratic(0.5 * k * rg, 1.0, -u)
+        vov, other = roots[1], roots[0]
+    current = square_law(t.model, t.geometry, vov, vov, "saturation")[0]
+    vds = vds0 - rd * current
+    voltages = {n: at(n, current) for n in net.nodes}
+    trial = {"trial_vov": vov, "trial_other": other, "trial_current": current, "trial_vds": vds,
+             "trial_voltages": voltages}  # fmt: skip
+    if vds >= vov:
+        return _AffineNumbers(k, vt, vgs0, vds0, rg, rd, u, base, voltages, current, "saturation", vov, vds, **trial)
+
+    # Triode: ID = K·(VOV·VDS − VDS²/2) with both affine in ID → a·ID² + b·ID + c = 0.
+    w = vds0
+    qa = k * (rg * rd - 0.5 * rd * rd)
+    qb = k * (w * rd - u * rd - rg * w) - 1.0
+    qc = k * (u * w - 0.5 * w * w)
+    roots = _quadratic(qa, qb, qc)
+
+    def fits(root: float) -> bool:
+        vov_t, vds_t = u - rg * root, w - rd * root
+        slack = 1e-12 * max(1.0, abs(vov_t))
+        return root >= -1e-18 and vov_t > 0.0 and -slack <= vds_t <= vov_t + slack
+
+    chosen = [r for r in roots if fits(r)]
+    if not chosen:
+        return _AffineNumbers(
+            k, vt, vgs0, vds0, rg, rd, u, base, {}, 0.0, "none", **trial, quadratic=(qa, qb, qc), roots=roots,
+            failure="no root of the triode quadratic is consistent with triode",
+        )  # fmt: skip
+    current = chosen[0]
+    vov, vds = u - rg * current, w - rd * current
+    voltages = {n: at(n, current) for n in net.nodes}
+    return _AffineNumbers(
+        k, vt, vgs0, vds0, rg, rd, u, base, voltages, current, "triode", vov, vds, **trial,
+        quadratic=(qa, qb, qc), roots=roots,
+    )  # fmt: skip
+
+
+def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _ClosedForm | str:
+    """Every node voltage affine in ID: VOV = u − Rg·ID, VDS = w − Rd·ID; a quadratic each region."""
+    numbers = _affine_numbers(dc, stage)
+    if isinstance(numbers, str):
+        return numbers
+    steps.extend(_affine_working(dc, stage, numbers))
+    if numbers.failure is not None:
+        return numbers.failure
+    return _ClosedForm(numbers.voltages, numbers.current, steps)
+
+
+def _affine_working(dc: _DcCircuit, stage: _Stage, numbers: _AffineNumbers) -> list[Step]:
+    """The steps of the affine closed form, written from its numbers."""
+    t = stage.transistor
+    names = _names(t.polarity)
+    k, vt, vgs0, vds0, u = numbers.k, numbers.vt, numbers.vgs0, numbers.vds0, numbers.u
+    rg, rd = numbers.rg, numbers.rd
     symbol = _overdrive_symbol(stage, rg)
-    steps.append(
+    steps = [
         Step(
             f"Overdrive in terms of ID (substituting the gate and source relations; VOV = {names.vgs} − Vt)",
             f"VOV = {_q(u, 'V')}" + (f" − ID·{_q(rg, 'Ω')}" if rg > 0.0 else ""),
-        )
-    )
-    steps.append(
+        ),
         Step(
             f"{names.vds} in terms of ID",
             f"{names.vds} = {_q(vds0, 'V')}" + (f" − ID·{_q(rd, 'Ω')}" if rd else ""),
-        )
-    )
-
-    if u <= 0.0:
+        ),
+    ]
+    if numbers.region == "cutoff":
         steps.append(
             Step(
                 f"With ID = 0, {names.vgs} = {_q(vgs0, 'V')} is not above Vt = {_q(vt, 'V')}: VOV ≤ 0, cutoff",
@@ -1176,11 +1292,11 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
                 "A",
             )
         )
-        return _ClosedForm(dict(base), 0.0, steps)  # the network with ID = 0
+        return steps
 
     steps.append(Step("Assume saturation", "ID = (K/2)·VOV²"))
+    vov, other = numbers.trial_vov, numbers.trial_other
     if rg == 0.0:
-        vov = u
         steps.append(
             Step(
                 "Nothing between the source and a rail drops voltage: VOV is set directly",
@@ -1191,8 +1307,6 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
         )
     else:
         a = 0.5 * k * rg
-        roots = _quadratic(a, 1.0, -u)
-        vov, other = roots[1], roots[0]
         steps.append(
             Step(
                 f"Quadratic in VOV from ID = (K/2)·VOV² and VOV = {_q(u, 'V')} − ID·{symbol}",
@@ -1211,7 +1325,7 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
                 "V",
             )
         )
-    current = square_law(t.model, t.geometry, vov, vov, "saturation")[0]
+    current = numbers.trial_current
     steps.append(
         Step(
             "Drain current",
@@ -1220,9 +1334,9 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
             "A",
         )
     )
-    vds = vds0 - rd * current
-    steps.extend(_node_steps(dc, stage, current, {n: at(n, current) for n in net.nodes}))
-    if vds >= vov:
+    vds = numbers.trial_vds
+    steps.extend(_node_steps(dc, stage, current, numbers.trial_voltages))
+    if numbers.region == "saturation":
         steps.append(
             Step(
                 "Check the saturation assumption",
@@ -1230,7 +1344,7 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
             )
         )
         steps.append(_gm_step(t, vov, current, "saturation"))
-        return _ClosedForm({n: at(n, current) for n in net.nodes}, current, steps)
+        return steps
 
     steps.append(
         Step(
@@ -1238,12 +1352,9 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
             f"{names.vds} = {_q(vds, 'V')} < VOV = {_q(vov, 'V')} → saturation fails: re-solve in triode",
         )
     )
-    # Triode: ID = K·(VOV·VDS − VDS²/2) with both affine in ID → a·ID² + b·ID + c = 0.
     w = vds0
-    qa = k * (rg * rd - 0.5 * rd * rd)
-    qb = k * (w * rd - u * rd - rg * w) - 1.0
-    qc = k * (u * w - 0.5 * w * w)
-    roots = _quadratic(qa, qb, qc)
+    qa, qb, qc = numbers.quadratic
+    roots = numbers.roots
     steps.append(
         Step(
             f"Triode: ID = K·(VOV·{names.vds} − {names.vds}²/2) with "
@@ -1252,17 +1363,9 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
             f"{qa:.4g} /A·ID² {_signed(qb)}·ID {_minus(qc, 'A')} = 0 → ID = " + " or ".join(_q(r, "A") for r in roots),
         )
     )
-
-    def fits(root: float) -> bool:
-        vov_t, vds_t = u - rg * root, w - rd * root
-        slack = 1e-12 * max(1.0, abs(vov_t))
-        return root >= -1e-18 and vov_t > 0.0 and -slack <= vds_t <= vov_t + slack
-
-    chosen = [r for r in roots if fits(r)]
-    if not chosen:
-        return "no root of the triode quadratic is consistent with triode"
-    current = chosen[0]
-    vov, vds = u - rg * current, w - rd * current
+    if numbers.failure is not None:
+        return steps
+    current, vov, vds = numbers.current, numbers.vov, numbers.vds
     rejected = [r for r in roots if r != current]
     why = ""
     if rejected:
@@ -1276,11 +1379,10 @@ def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _Cl
             "A",
         )
     )
-    voltages = {n: at(n, current) for n in net.nodes}
-    steps.extend(_node_steps(dc, stage, current, voltages))
+    steps.extend(_node_steps(dc, stage, current, numbers.voltages))
     steps.append(Step("Check", f"{names.vds} = {_q(vds, 'V')} < VOV = {_q(vov, 'V')} → triode holds"))
     steps.append(_gm_step(t, vds, current, "triode", vov))
-    return _ClosedForm(voltages, current, steps)
+    return steps
 
 
 def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _ClosedForm | str:
@@ -1952,6 +2054,112 @@ class HandModel:
             # The same reduction with each transistor's hand model rebuilt from its card.
             dc = replace(dc, transistors=[replace(t, model=hand_model(t.card, chosen)) for t in dc.transistors])
         return _solve(self.circuit, dc, chosen, self._recognised, closed_form, working, start)
+
+
+class HandSweep:
+    """The hand bias point of one circuit at any value of one of its independent sources, numbers
+    only: no steps, no assumptions (a sweep solves hundreds of points and reads none of them).
+
+    The circuit is reduced and its topology recognised once, at the netlist's value; at each
+    value only the nodes the voltage sources hold and the current the sources push into the
+    network are recomputed (the same sums in the same order), and the affine closed form is
+    solved with the same arithmetic as ``hand_analysis``, so the numbers are the same to the last
+    bit. ``solve`` gives None where that path does not cover the point (no affine closed form
+    here, or none at this value): the caller then asks ``hand_analysis`` with ``working=False``
+    (and ``closed_form=False`` where ``covered``: the affine form holds for this circuit but not
+    at that value, so the numerical path is what hand_analysis would take there too).
+    """
+
+    def __init__(self, circuit: Circuit, source: str) -> None:
+        wanted = source.lower()
+        self._element = next(
+            e for e in circuit.elements if e.name.lower() == wanted and e.kind in ("vsource", "isource")
+        )
+        self.covered = False
+        try:
+            dc = _dc_circuit(circuit, frozenset())
+            self._topology, stage, reason = _recognise(dc)
+            # The chain from ground the voltage sources fix their nodes along (it depends on the
+            # circuit's shape only), followed again at every value.
+            chain: list[tuple[Element, str, str, bool]] = []
+            pending = [e for e in circuit.elements if e.kind == "vsource"]
+            _hold_nodes(pending, dc.merged, {GROUND: 0.0}, {GROUND: "0"}, chain)
+        except (HandAnalysisError, np.linalg.LinAlgError):
+            return
+        if stage is None or reason is not None or stage.held_node is not None or _large(stage.network):
+            return
+        self._chain = [
+            (element is self._element, _number(element.value if element.value is not None else 0.0, "value", element),
+             target, origin, plus)
+            for element, target, origin, plus in chain
+        ]  # fmt: skip
+        # Working copies, their source-dependent parts (fixed nodes, injection) set at each value.
+        self._dc = copy.copy(dc)
+        self._current_sources = list(dc.current_sources)
+        self._network = copy.copy(stage.network)
+        self._stage = replace(stage, network=self._network)
+        self.covered = True
+
+    def solve(self, value: float) -> HandSolution | None:
+        """The hand bias point with the swept source at `value`; None where this path does not cover it."""
+        if not self.covered:
+            return None
+        self._set(float(value))
+        return self._point(None)
+
+    def solve_all(self, values: Sequence[float]) -> list[HandSolution | None]:
+        """``solve`` at every value; the network's linear solves of all of them in one call (one
+        LAPACK solve per value, as ``solve`` makes it, so the numbers are the same)."""
+        if not self.covered:
+            return [None] * len(values)
+        dc, net = self._dc, self._network
+        injections, held = [], []
+        for value in values:
+            self._set(float(value))
+            injections.append(net.injection)
+            held.append((dc.fixed, dc.current_sources))
+        if not injections:
+            return []
+        # G·v = J + 0·e at each value, as _solve_network states it for ID = 0.
+        rhs = np.array(injections) + 0.0 * net.device
+        count, size = rhs.shape
+        solved = np.linalg.solve(np.broadcast_to(net.conductance, (count, size, size)), rhs[:, :, None])[:, :, 0]
+        points = []
+        for (fixed, current_sources), base in zip(held, solved.tolist(), strict=True):
+            dc.fixed, dc.current_sources = fixed, current_sources
+            points.append(self._point(dict(zip(net.nodes, base, strict=True))))
+        return points
+
+    def _set(self, value: float) -> None:
+        """The working copies at `value`: the held nodes or the swept current, and the injection."""
+        dc, net, element = self._dc, self._network, self._element
+        if element.kind == "vsource":
+            fixed: dict[str, float] = {GROUND: 0.0}
+            for swept, netlist_value, target, origin, plus in self._chain:
+                step = value if swept else netlist_value
+                fixed[target] = fixed[origin] + step if plus else fixed[origin] - step
+            dc.fixed = fixed
+        else:
+            dc.current_sources = [
+                replace(c, current=value) if c.name == element.name else c for c in self._current_sources
+            ]
+        net.injection = np.array(_injection(dc, net.index), dtype=float)
+
+    def _point(self, base: dict[str, float] | None) -> HandSolution | None:
+        """The closed form at the value last set (`base`: the network with ID = 0, when solved already)."""
+        dc, stage = self._dc, self._stage
+        numbers = _affine_numbers(dc, stage, base)
+        if isinstance(numbers, str) or numbers.failure is not None:
+            return None
+        voltages = {**dc.fixed, **numbers.voltages}
+        t = stage.transistor
+        point = _device_points(dc, voltages)[t.name]
+        if not math.isclose(point.id, numbers.current, rel_tol=1e-9, abs_tol=1e-15):
+            raise RuntimeError(
+                f"hand closed form and the level-1 equations disagree for {t.name}: "
+                f"ID {numbers.current!r} vs {point.id!r}"
+            )
+        return HandSolution(self._topology, True, _all_nodes(dc, voltages), {t.name: _hand_device(point)}, (), ())
 
 
 def _solve(

@@ -6,6 +6,10 @@ are context. Exit status 1 when a goal is missed.
 * a 1001-point level-1 sweep (solve_dc_sweep, each point started from the last) in under 50 ms;
 * the same sweep solved at once (solve_dc_sweep_arrays, the sweep command's level-1 column:
   a vectorised Newton over all points) in under 5 ms (issue 13);
+* the hand column's solves of a 201-point sweep (HandSweep.solve_all: the circuit reduced once,
+  the network's solves in one batched call, the closed form per point, no working) in under 5 ms;
+  beside it, for context, the same points by hand_analysis with its working on a copy of the
+  circuit per point (what the column did before);
 * the ngspice column costs no more than the same `.dc` runs in the worker plus 20 %: "the same
   runs" are the decks the sweep emits (the grid's `.dc` and the finer ones around each edge and
   the bias point, same `.save` vectors) run through the same worker with nothing done to their
@@ -27,9 +31,11 @@ from run import median_seconds, note  # the shared helpers of tests/bench/run.py
 from run import report as report_goal
 
 from bridge.analysis.dcsolve import solve_dc_sweep, solve_dc_sweep_arrays
-from bridge.analysis.sweep import sim_curve, sim_sweep_deck, sweep_values
+from bridge.analysis.hand import HandSweep, hand_analysis
+from bridge.analysis.sweep import sweep_values, with_source_value
 from bridge.netlist import parse_netlist
 from bridge.sim.client import NgspiceSession, ngspice_available
+from bridge.sim.transfer import sim_curve, sim_sweep_deck
 
 # A divider-biased common source with LAMBDA and GAMMA, swept at the gate through all three regions.
 STAGE = """\
@@ -63,6 +69,29 @@ def level1_goal() -> bool:
     seconds = median_seconds(lambda: solve_dc_sweep_arrays(circuit, "VIN", values), 21)
     vectorised = report(f"level-1 sweep at once, {POINTS} points (median of 21)", seconds * 1e3, 5.0)
     return scalar and vectorised
+
+
+HAND_POINTS = 201
+
+
+def hand_goal() -> bool:
+    circuit = parse_netlist(STAGE, "bench.cir")
+    values = [float(v) for v in sweep_values(0.0, 5.0, points=HAND_POINTS)]
+
+    def column() -> None:
+        model = HandSweep(circuit, "VIN")
+        if any(solution is None for solution in model.solve_all(values)):
+            raise AssertionError("a point off the closed-form path")
+
+    def with_working() -> None:
+        for value in values:
+            hand_analysis(with_source_value(circuit, "VIN", value))
+
+    column()  # warm-up
+    before = median_seconds(with_working, 3)
+    report(f"  context: hand_analysis with its working, {HAND_POINTS} copies of the circuit", before * 1e3, None)
+    seconds = median_seconds(column, 11)
+    return report(f"hand column, {HAND_POINTS} points, numbers only (median of 11)", seconds * 1e3, 5.0)
 
 
 def ngspice_batch_seconds(folder: Path, deck_text: str, repeat: int) -> float:
@@ -140,7 +169,7 @@ def sim_goal() -> bool:
 
 
 def main() -> int:
-    results = [level1_goal(), sim_goal()]
+    results = [level1_goal(), hand_goal(), sim_goal()]
     return 0 if all(results) else 1
 
 

@@ -1,0 +1,1 @@
+"""The command layer's choices: defaults the command line leaves open."""
