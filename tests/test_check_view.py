@@ -14,18 +14,8 @@ from rich.console import Console, Group
 
 from bridge.check import check_circuit
 from bridge.netlist import parse_netlist, read_netlist
-from bridge.report.check_view import (
-    _breaks,
-    _CheckTable,
-    _Header,
-    _Line,
-    _one_cell_each,
-    _simple,
-    _single_cells,
-    check_renderable,
-    plain_text,
-    print_check,
-)
+from bridge.report.check_view import check_renderable, print_check
+from bridge.report.table_layout import Header, Line, Table, _breaks, _one_cell_each, _simple, _single_cells, plain_text
 
 # Plain words, the symbols the reports use, long words that must fold, odd spaces, and characters
 # rich measures as wide or as zero width (those go to rich's own Text and Table).
@@ -66,7 +56,7 @@ def test_breaks_are_where_rich_breaks_a_line():
 def test_a_line_prints_as_rich_text_prints_it_at_any_width():
     rng = random.Random(1)
     for _ in range(600):
-        line = _Line(words(rng, 40), rng.choice(["", "dim", "bold red", "cyan"]))
+        line = Line(words(rng, 40), rng.choice(["", "dim", "bold red", "cyan"]))
         width = rng.randint(1, 60)
         for color_system, terminal in CONSOLES:
             assert printed(line, width, color_system, terminal) == printed(line.fallback(), width, color_system,
@@ -76,7 +66,7 @@ def test_a_line_prints_as_rich_text_prints_it_at_any_width():
 def test_the_header_prints_as_rich_text_with_the_file_in_bold():
     rng = random.Random(2)
     for _ in range(300):
-        header = _Header(words(rng, 12), words(rng, 20), words(rng, 30))
+        header = Header(words(rng, 12), ": " + words(rng, 20), words(rng, 30))
         width = rng.randint(1, 70)
         for color_system, terminal in CONSOLES:
             assert printed(header, width, color_system, terminal) == printed(header.fallback(), width,
@@ -88,7 +78,7 @@ def test_the_table_prints_as_rich_table_prints_it_or_is_that_table():
     pieces = ["a", "b ", "µ", "—", "x" * 9, "1.5 V !", "  ", "\u00a0", "漢", "e\u0301"]
     for _ in range(300):
         columns = rng.randint(2, 5)
-        table = _CheckTable(("quantity", *rng.sample(["hand", "level-1", "ngspice", "expected"], columns - 1)))
+        table = Table(("quantity", *rng.sample(["hand", "level-1", "ngspice", "expected"], columns - 1)))
         for _ in range(rng.randint(0, 6)):
             if rng.random() < 0.3:
                 table.add_section()
@@ -154,7 +144,7 @@ def test_plain_text_only_for_a_plain_console_and_a_view_laid_out_here():
 # What the colours say. reference: README, `check` (the legend under the table).
 
 def _table_cells(view) -> dict[str, list[tuple[str, str]]]:
-    (table,) = [part for part in view.parts if isinstance(part, _CheckTable)]
+    (table,) = [part for part in view.parts if isinstance(part, Table)]
     return {cells[0][0]: cells[1:] for cells in table.rows}
 
 
@@ -190,6 +180,6 @@ def test_one_legend_line_says_what_colour_bang_zero_and_percent_mean():
 
 def test_cause_lines_are_not_dim():
     result = check_circuit(read_netlist(EXAMPLES / "cs_degenerated.cir"), None, tolerance=0.05)
-    lines = [part for part in check_renderable(result).parts if isinstance(part, _Line)]
+    lines = [part for part in check_renderable(result).parts if isinstance(part, Line)]
     causes = [line for line in lines if line.text.endswith("[cause]")]
     assert causes and all(line.style == "" for line in causes)
