@@ -41,8 +41,8 @@ def _simple(text: str) -> bool:
 
 
 def _single_cells(text: str) -> bool:
-    """Every character one cell wide (no wide, combining or zero-width ones)."""
-    if text.isascii():
+    """Every character one cell wide (no wide, combining or zero-width ones, no control codes)."""
+    if text.isascii() and text.isprintable():
         return True
     characters = set(text)
     if all(cell_len(character) == 1 for character in characters):
