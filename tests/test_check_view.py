@@ -1,127 +1,105 @@
-"""The check view lays out its table and lines itself: it must print exactly what rich's own
-Table and Text print for the same content (the reference is rich, installed with the project),
-in a pipe and in a colour terminal, at any width."""
+"""The check view: what its table, colours and lines say, and that a whole check, laid out by
+the table layout engine, prints exactly what rich's own Table and Text print for the same content
+(built by tests/test_table_layout.py's `rich_equivalent`, not by the engine), in a pipe, in a
+colour terminal and with NO_COLOR. The engine's own cases are in tests/test_table_layout.py."""
 
 from __future__ import annotations
 
 import io
-import random
 
 import pytest
 from conftest import EXAMPLES
-from rich._wrap import divide_line
-from rich.console import Console, Group
+from rich.console import Console
+from test_table_layout import natural_width, rich_equivalent
 
 from bridge.check import check_circuit
 from bridge.netlist import parse_netlist, read_netlist
-from bridge.report.check_view import (
-    _breaks,
-    _CheckTable,
-    _Header,
-    _Line,
-    _one_cell_each,
-    _simple,
-    _single_cells,
-    check_renderable,
-    plain_text,
-    print_check,
+from bridge.report.check_view import check_renderable, print_check
+from bridge.report.table_layout import Header, Line, Table, lays_out, plain_text
+
+CONSOLES = [(None, False, False), ("standard", True, False), ("truecolor", True, False), ("truecolor", True, True)]
+# A greenhouse sensor board's input stage, its title holding a control code (kept by rich, 0 cells).
+SENSOR = (
+    "greenhouse \x01 sensor input\nVDD vdd 0 3.3\nR1 vdd g 220k\nR2 g 0 100k\nRD vdd d 15k\n"
+    "M1 d g 0 0 nch W=10u L=1u\n.model nch nmos (vto=0.6 kp=100u lambda=0.01)\n.op\n"
 )
 
-# Plain words, the symbols the reports use, long words that must fold, odd spaces, and characters
-# rich measures as wide or as zero width (those go to rich's own Text and Table).
-PIECES = ["a", "bc", " ", "  ", "µ", "—", "Ω", "√", "λ", "−", "·", "→", "é", "!", "1.5 V", "x" * 9,
-          "y" * 31, "\u00a0", "\u2003", "\u3000", "漢", "ﾐ", "e\u0301", "\u200d", "\ufe0f", "👍"]
-CONSOLES = [(None, False), ("standard", True), ("truecolor", True)]
 
-
-def printed(renderable, width: int, color_system: str | None, terminal: bool) -> str:
+def printed(renderable, width: int, color_system: str | None, terminal: bool, no_color: bool = False) -> str:
     console = Console(file=io.StringIO(), width=width, color_system=color_system, force_terminal=terminal,
-                      highlight=False, soft_wrap=False)
+                      no_color=no_color, highlight=False, soft_wrap=False)
     console.print(renderable)
     return console.file.getvalue()
 
 
-def words(rng: random.Random, most: int) -> str:
-    return "".join(rng.choice(PIECES) for _ in range(rng.randint(0, most)))
+def laid_out(view, width: int) -> list[bool]:
+    """Which of the view's parts the table layout lays out itself at `width`."""
+    console = Console(file=io.StringIO(), width=width, color_system=None, highlight=False, soft_wrap=False)
+    return [lays_out(part, console) for part in view.parts]
 
 
-def test_one_cell_each_is_simple_and_single_cells():
-    rng = random.Random(4)
-    for _ in range(3000):
-        text = words(rng, 8) + rng.choice(["", "\t", "\n", "\r", "\x01", "\x7f", "\u0085", "\u2028", "ä"])
-        assert _one_cell_each(text) == (_simple(text) and _single_cells(text)), repr(text)
-
-
-def test_breaks_are_where_rich_breaks_a_line():
-    rng = random.Random(5)
-    spaces = [" ", "  ", "\u00a0", "\u2003", "     "]
-    for _ in range(3000):
-        text = "".join(rng.choice(PIECES + spaces) for _ in range(rng.randint(0, 30)))
-        if not _one_cell_each(text):
-            continue
-        for width in (1, 2, 3, 7, 10, 31, 32, 80):
-            assert _breaks(text, width) == divide_line(text, width), (text, width)
-
-
-def test_a_line_prints_as_rich_text_prints_it_at_any_width():
-    rng = random.Random(1)
-    for _ in range(600):
-        line = _Line(words(rng, 40), rng.choice(["", "dim", "bold red", "cyan"]))
-        width = rng.randint(1, 60)
-        for color_system, terminal in CONSOLES:
-            assert printed(line, width, color_system, terminal) == printed(line.fallback(), width, color_system,
-                                                                           terminal), (line.text, width)
-
-
-def test_the_header_prints_as_rich_text_with_the_file_in_bold():
-    rng = random.Random(2)
-    for _ in range(300):
-        header = _Header(words(rng, 12), words(rng, 20), words(rng, 30))
-        width = rng.randint(1, 70)
-        for color_system, terminal in CONSOLES:
-            assert printed(header, width, color_system, terminal) == printed(header.fallback(), width,
-                                                                             color_system, terminal)
-
-
-def test_the_table_prints_as_rich_table_prints_it_or_is_that_table():
-    rng = random.Random(3)
-    pieces = ["a", "b ", "µ", "—", "x" * 9, "1.5 V !", "  ", "\u00a0", "漢", "e\u0301"]
-    for _ in range(300):
-        columns = rng.randint(2, 5)
-        table = _CheckTable(("quantity", *rng.sample(["hand", "level-1", "ngspice", "expected"], columns - 1)))
-        for _ in range(rng.randint(0, 6)):
-            if rng.random() < 0.3:
-                table.add_section()
-            table.add_row([("".join(rng.choice(pieces) for _ in range(rng.randint(1, 4))),
-                            rng.choice(["", "red", "green", "dim"])) for _ in range(columns)])
-        width = rng.randint(12, 90)
-        for color_system, terminal in CONSOLES:
-            assert printed(table, width, color_system, terminal) == printed(table.fallback(), width,
-                                                                            color_system, terminal)
+def assert_prints_as_rich(view, width: int) -> None:
+    """The view prints what rich's own Table and Text of the same content print, in every console."""
+    reference = rich_equivalent(view)
+    for color_system, terminal, no_color in CONSOLES:
+        assert printed(view, width, color_system, terminal, no_color) == printed(
+            reference, width, color_system, terminal, no_color), (width, color_system, no_color)
 
 
 @pytest.mark.parametrize("name", ["cs_divider.cir", "source_follower.cir", "pmos_cs.cir"])
 @pytest.mark.parametrize("steps", [False, True])
-def test_a_whole_check_prints_as_the_rich_group_of_its_parts(name, steps):
+def test_a_whole_check_is_laid_out_here_and_prints_as_rich_would(name, steps):
     result = check_circuit(read_netlist(EXAMPLES / name), None, tolerance=0.05)
     view = check_renderable(result, steps=steps)
-    group = Group(*(part.fallback() for part in view.parts))
-    for width in (30, 60, 80, 132):
-        for color_system, terminal in CONSOLES:
-            assert printed(view, width, color_system, terminal) == printed(group, width, color_system, terminal)
+    (table,) = [part for part in view.parts if isinstance(part, Table)]
+    fits = natural_width(table)
+    for width in (fits, fits + 1, 132):
+        assert all(laid_out(view, width)), width
+        assert_prints_as_rich(view, width)
+    # Narrower than the table: the table is rich's own, the lines are still laid out here.
+    for width in (30, fits - 1):
+        assert laid_out(view, width) == [not isinstance(part, Table) for part in view.parts], width
+        assert_prints_as_rich(view, width)
 
 
-def test_a_check_of_two_transistors_prints_as_the_rich_group_of_its_parts():
+def test_a_check_of_two_transistors_is_laid_out_here_and_prints_as_rich_would():
     circuit = parse_netlist(
         "cascode\nVDD vdd 0 5\nVB b 0 2.5\nR1 vdd g 300k\nR2 g 0 100k\nRD vdd d 10k\nM2 d b x 0 nch W=20u L=2u\n"
         "M1 x g 0 0 nch W=20u L=2u\n.model nch nmos (vto=0.7 kp=120u lambda=0.02 gamma=0.4 phi=0.65)\n.op\n",
         "cascode.cir",
     )
     view = check_renderable(check_circuit(circuit, None, tolerance=0.05), steps=True)
-    group = Group(*(part.fallback() for part in view.parts))
-    for width in (40, 80):
-        for color_system, terminal in CONSOLES:
-            assert printed(view, width, color_system, terminal) == printed(group, width, color_system, terminal)
+    for width in (80, 100):
+        assert all(laid_out(view, width)), width
+        assert_prints_as_rich(view, width)
+    assert_prints_as_rich(view, 40)
+
+
+def test_a_title_with_a_control_code_prints_as_rich_would():
+    view = check_renderable(check_circuit(parse_netlist(SENSOR, "sensor.cir"), None, tolerance=0.05))
+    header = view.parts[0]
+    assert isinstance(header, Header) and "\x01" in header.rest
+    for width in range(20, 45):
+        assert laid_out(view, width)[0] is False, width  # handed to rich's Text
+        for color_system, terminal, no_color in CONSOLES:
+            assert printed(header, width, color_system, terminal, no_color) == printed(
+                rich_equivalent(header), width, color_system, terminal, no_color), width
+    assert_prints_as_rich(view, 80)
+
+
+def test_no_color_prints_the_bangs_and_no_colour(monkeypatch):
+    # NO_COLOR (no-color.org): rich's Console reads it; the table's `!` says what red said.
+    monkeypatch.setenv("NO_COLOR", "1")
+    result = check_circuit(read_netlist(EXAMPLES / "cs_degenerated.cir"), None, tolerance=0.05)
+    view = check_renderable(result)
+    console = Console(file=io.StringIO(), width=120, force_terminal=True, color_system="truecolor", highlight=False)
+    assert console.no_color and all(laid_out(view, 120))
+    console.print(view)
+    text = console.file.getvalue()
+    reference = Console(file=io.StringIO(), width=120, force_terminal=True, color_system="truecolor", highlight=False)
+    reference.print(rich_equivalent(view))
+    assert text == reference.file.getvalue()
+    assert " !" in text and "\x1b[31m" not in text and "\x1b[32m" not in text
 
 
 @pytest.mark.parametrize("name", ["cs_divider.cir", "source_follower.cir", "pmos_cs.cir"])
@@ -131,8 +109,8 @@ def test_print_check_writes_what_two_console_prints_write(name, steps):
     same characters either way, at widths where the table fits and where it does not."""
     view = check_renderable(check_circuit(read_netlist(EXAMPLES / name), None, tolerance=0.05), steps=steps)
     for width in (20, 30, 60, 80, 132):
-        for color_system, terminal in CONSOLES:
-            consoles = [Console(file=io.StringIO(), width=width, color_system=color_system,
+        for color_system, terminal, no_color in CONSOLES:
+            consoles = [Console(file=io.StringIO(), width=width, color_system=color_system, no_color=no_color,
                                 force_terminal=terminal, highlight=False, soft_wrap=False) for _ in range(2)]
             consoles[0].print(view)
             consoles[0].print()
@@ -143,7 +121,7 @@ def test_print_check_writes_what_two_console_prints_write(name, steps):
 def test_plain_text_only_for_a_plain_console_and_a_view_laid_out_here():
     view = check_renderable(check_circuit(read_netlist(EXAMPLES / "cs_divider.cir"), None, tolerance=0.05))
     plain = Console(file=io.StringIO(), width=100, color_system=None, highlight=False, soft_wrap=False)
-    assert plain_text(view, plain) == printed(view, 100, None, False)
+    assert plain_text(view, plain) == printed(rich_equivalent(view), 100, None, False)
     assert plain_text(view, Console(file=io.StringIO(), width=100, color_system="standard", force_terminal=True,
                                     highlight=False)) is None
     assert plain_text(view, Console(file=io.StringIO(), width=100, color_system=None, record=True)) is None
@@ -154,7 +132,7 @@ def test_plain_text_only_for_a_plain_console_and_a_view_laid_out_here():
 # What the colours say. reference: README, `check` (the legend under the table).
 
 def _table_cells(view) -> dict[str, list[tuple[str, str]]]:
-    (table,) = [part for part in view.parts if isinstance(part, _CheckTable)]
+    (table,) = [part for part in view.parts if isinstance(part, Table)]
     return {cells[0][0]: cells[1:] for cells in table.rows}
 
 
@@ -190,6 +168,6 @@ def test_one_legend_line_says_what_colour_bang_zero_and_percent_mean():
 
 def test_cause_lines_are_not_dim():
     result = check_circuit(read_netlist(EXAMPLES / "cs_degenerated.cir"), None, tolerance=0.05)
-    lines = [part for part in check_renderable(result).parts if isinstance(part, _Line)]
+    lines = [part for part in check_renderable(result).parts if isinstance(part, Line)]
     causes = [line for line in lines if line.text.endswith("[cause]")]
     assert causes and all(line.style == "" for line in causes)
