@@ -3,9 +3,9 @@
 Each goal line prints the measurement, the goal and whether it is met; lines without a goal
 are context. Exit status 1 when a goal is missed.
 
-* a 1001-point level-1 sweep (solve_dc_sweep, each point started from the last) in under 50 ms;
-* the same sweep solved at once (solve_dc_sweep_arrays, the sweep command's level-1 column:
-  a vectorised Newton over all points) in under 5 ms (issue 13);
+* a 1001-point level-1 sweep solved at once (solve_dc_sweep_arrays, the sweep command's level-1
+  column: a vectorised Newton over all points) in under 5 ms; beside it, for context, the same
+  sweep point by point (solve_dc_sweep, each point started from the last);
 * the hand column's solves of a 201-point sweep (HandSweep.solve_all: the circuit reduced once,
   the network's solves in one batched call, the closed form per point, no working) in under 5 ms;
   beside it, for context, the same points by hand_analysis with its working on a copy of the
@@ -64,11 +64,13 @@ def level1_goal() -> bool:
     values = sweep_values(0.0, 5.0, points=POINTS)
     solve_dc_sweep(circuit, "VIN", values)  # warm-up: imports, first-call costs
     seconds = median_seconds(lambda: solve_dc_sweep(circuit, "VIN", values), 7)
-    scalar = report(f"level-1 sweep, {POINTS} points (median of 7)", seconds * 1e3, 50.0)
+    # Context since the sweep command solves its level-1 column at once (below); the point-by-point
+    # continuation remains the fallback for stragglers and circuits with diodes.
+    report(f"  context: level-1 sweep point by point, {POINTS} points (median of 7)", seconds * 1e3, None)
     solve_dc_sweep_arrays(circuit, "VIN", values)
     seconds = median_seconds(lambda: solve_dc_sweep_arrays(circuit, "VIN", values), 21)
     vectorised = report(f"level-1 sweep at once, {POINTS} points (median of 21)", seconds * 1e3, 5.0)
-    return scalar and vectorised
+    return vectorised
 
 
 HAND_POINTS = 201
