@@ -34,7 +34,6 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field, replace
 
 import numpy as np
-from scipy.optimize import brentq
 
 from ..curve_compare import Deviation, curve_deviations, several_crossings_findings, solver_differs_finding
 from ..curves import (
@@ -77,6 +76,7 @@ from .hand_edges import (
     common_source_working,
     resistor_loaded_common_source,
 )
+from .roots import brent_root
 
 __all__ = [
     "BOUNDARIES",
@@ -343,7 +343,7 @@ def _root(function: Callable[[float], float], a: float, b: float, fallback: floa
         if fa * fb > 0.0:
             return fallback
         lo, hi = (a, b) if a < b else (b, a)
-        return float(brentq(function, lo, hi, xtol=EDGE_XTOL, rtol=4 * np.finfo(float).eps, maxiter=200))
+        return brent_root(function, lo, hi, xtol=EDGE_XTOL, rtol=4 * np.finfo(float).eps, maxiter=200)
     except (ValueError, RuntimeError, DcSolveError, KeyError):
         return fallback
 
