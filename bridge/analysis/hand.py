@@ -1738,34 +1738,7 @@ def _solve_numerically(dc: _DcCircuit, start: Mapping[str, float] | None = None)
                 return x, iteration
         return None, _NEWTON_ITERATIONS
 
-    spent = 0
-    initial = [0.0] * size
-    if start:
-        for node, k in index.items():
-            initial[k] = start.get(node, 0.0)
-    x, used = newton(initial, 0.0)
-    spent += used
-    if x is None:
-        # A cut-off device can leave a node held by nothing at the start: lean on a shunt
-        # conductance to ground, shrink it away, and finish without one.
-        x = [0.0] * size
-        for gmin in _GMIN_LADDER:
-            attempt, used = newton(x, gmin)
-            spent += used
-            if attempt is None:
-                break
-            x = attempt
-        x, used = newton(x, 0.0)
-        spent += used
-    if x is None:
-        raise HandAnalysisError(
-            "the simplified model (square law, λ = γ = 0, no gate current) has no operating point Newton's "
-            "method could find: the circuit may have none, or several nodes the model leaves undetermined "
-            "(e.g. a saturated drain held only by a current source)"
-        )
-    voltages = {GROUND: 0.0}
-    voltages.update({node: float(x[k]) for node, k in index.items()})
-    return voltages, spent
+    return _newton_from_start(newton, index, start, lambda: [0.0] * size)
 
 
 def _solve_numerically_large(
@@ -1843,15 +1816,26 @@ def _solve_numerically_large(
                 return x, iteration
         return None, _NEWTON_ITERATIONS
 
+    return _newton_from_start(newton, index, start, lambda: np.zeros(size))
+
+
+def _newton_from_start(
+    newton, index: Mapping[str, int], start: Mapping[str, float] | None, zeros
+) -> tuple[dict[str, float], int]:
+    """The numerical path's schedule, dense or sparse alike: Newton from `start` (else zero); failing
+    that, from zero along the gmin ladder and once more without gmin. `newton(x, gmin)` gives the
+    solution or None and the iterations it used; `zeros()` a zero vector of its kind."""
     spent = 0
-    initial = np.zeros(size)
+    initial = zeros()
     if start:
         for node, k in index.items():
             initial[k] = start.get(node, 0.0)
     x, used = newton(initial, 0.0)
     spent += used
     if x is None:
-        x = np.zeros(size)
+        # A cut-off device can leave a node held by nothing at the start: lean on a shunt
+        # conductance to ground, shrink it away, and finish without one.
+        x = zeros()
         for gmin in _GMIN_LADDER:
             attempt, used = newton(x, gmin)
             spent += used
