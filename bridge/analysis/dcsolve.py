@@ -810,19 +810,28 @@ def _reduce(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _
         else:
             matrix, source_map = kk, kept_sources
             on_kept, on_sources = np.zeros((0, count)), np.zeros((0, columns.shape[1]))
-        position = [-1] * size
-        for place, index in enumerate(kept):
-            position[index] = place
-        return _Reduction(
-            kept=tuple(kept),
-            position=tuple(position),
-            matrix=tuple(tuple(row) for row in matrix.tolist()),
-            source_map=source_map,
-            eliminated=tuple(rest),
-            recover_sources=on_sources,
-            recover_kept=tuple(tuple(row) for row in on_kept.tolist()),
-        )
+        return _schur_reduction(size, kept, rest, matrix, source_map, on_kept, on_sources)
     raise AssertionError("keeping every unknown always gives a reduction")  # pragma: no cover
+
+
+def _schur_reduction(
+    size: int, kept: list[int], rest: list[int], matrix: np.ndarray, source_map: np.ndarray,
+    on_kept: np.ndarray, on_sources: np.ndarray,
+) -> _Reduction:
+    """The reduction that keeps `kept` (matrix and sources their Schur complement) and recovers
+    `rest` from them (rest = on_sources·sources − on_kept·kept), dense or sparse path alike."""
+    position = [-1] * size
+    for place, index in enumerate(kept):
+        position[index] = place
+    return _Reduction(
+        kept=tuple(kept),
+        position=tuple(position),
+        matrix=tuple(tuple(row) for row in matrix.tolist()),
+        source_map=source_map,
+        eliminated=tuple(rest),
+        recover_sources=on_sources,
+        recover_kept=tuple(tuple(row) for row in on_kept.tolist()),
+    )
 
 
 def _reduce_large(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _Reduction:
@@ -870,18 +879,7 @@ def _reduce_large(net: _Network, diagonal_gmin: float, *, eliminate: bool = True
         weights = factor.solve(np.concatenate((rk, rest_sources), axis=1))
         on_kept, on_sources = weights[:, :count], weights[:, count:]
         matrix, source_map = kk - kr @ on_kept, kept_sources - kr @ on_sources
-        position = [-1] * size
-        for place, index in enumerate(kept):
-            position[index] = place
-        return _Reduction(
-            kept=tuple(kept),
-            position=tuple(position),
-            matrix=tuple(tuple(row) for row in np.asarray(matrix).tolist()),
-            source_map=np.asarray(source_map),
-            eliminated=tuple(rest),
-            recover_sources=on_sources,
-            recover_kept=tuple(tuple(row) for row in on_kept.tolist()),
-        )
+        return _schur_reduction(size, kept, rest, np.asarray(matrix), np.asarray(source_map), on_kept, on_sources)
     return _keep_all_sparse(full, columns, size)
 
 

@@ -1682,15 +1682,7 @@ def _solve_numerically(dc: _DcCircuit, start: Mapping[str, float] | None = None)
     nodes, index, base, source_side = equations.nodes, equations.index, equations.matrix, equations.rhs
     size = len(source_side)
 
-    # Per transistor: its terminals' unknowns (None for ground), the rows its drain current
-    # enters (+) and leaves (−), and the unknowns whose columns its partials go to (in the
-    # order d, g, s, b: with several devices on one node the sums keep that order).
-    devices = []
-    for t in dc.transistors:
-        terminals = tuple(index.get(n) for n in (t.drain, t.gate, t.source, t.bulk))
-        rows = tuple((row, sign) for row, sign in ((terminals[0], 1.0), (terminals[2], -1.0)) if row is not None)
-        columns = tuple((col, k) for k, col in enumerate(terminals) if col is not None)
-        devices.append((t.model, t.geometry, terminals, rows, columns))
+    devices = _device_stamps(dc, index)
     node_count = len(nodes)
 
     def system(x: list[float], gmin: float) -> tuple[list[float], list[list[float]]]:
@@ -1756,12 +1748,7 @@ def _solve_numerically_large(
     source_side = np.array(equations.rhs, dtype=float)
     size = len(source_side)
     node_count = len(nodes)
-    devices = []
-    for t in dc.transistors:
-        terminals = tuple(index.get(n) for n in (t.drain, t.gate, t.source, t.bulk))
-        rows = tuple((row, sign) for row, sign in ((terminals[0], 1.0), (terminals[2], -1.0)) if row is not None)
-        columns = tuple((col, k) for k, col in enumerate(terminals) if col is not None)
-        devices.append((t.model, t.geometry, terminals, rows, columns))
+    devices = _device_stamps(dc, index)
     node_diagonal = np.zeros(size)
     node_diagonal[:node_count] = 1.0
 
@@ -1817,6 +1804,19 @@ def _solve_numerically_large(
         return None, _NEWTON_ITERATIONS
 
     return _newton_from_start(newton, index, start, lambda: np.zeros(size))
+
+
+def _device_stamps(dc: _DcCircuit, index: Mapping[str, int]) -> list[tuple]:
+    """Per transistor: its terminals' unknowns (None for ground), the rows its drain current
+    enters (+) and leaves (−), and the unknowns whose columns its partials go to (in the
+    order d, g, s, b: with several devices on one node the sums keep that order)."""
+    devices = []
+    for t in dc.transistors:
+        terminals = tuple(index.get(n) for n in (t.drain, t.gate, t.source, t.bulk))
+        rows = tuple((row, sign) for row, sign in ((terminals[0], 1.0), (terminals[2], -1.0)) if row is not None)
+        columns = tuple((col, k) for k, col in enumerate(terminals) if col is not None)
+        devices.append((t.model, t.geometry, terminals, rows, columns))
+    return devices
 
 
 def _newton_from_start(
