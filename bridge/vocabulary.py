@@ -25,6 +25,8 @@ class Finding:
     message: str
     line: int | None = None
     subject: str | None = None
+    column: int | None = None  # 1-based, where the finding points inside its line (lint)
+    fix: str | None = None  # one line on what to change (lint)
 
 
 @dataclass(frozen=True)
