@@ -1,0 +1,8 @@
+"""Lint rules: the bias family (being written)."""
+
+from __future__ import annotations
+
+from .rule import Rule
+
+RULES: tuple[Rule, ...] = ()
+CODES: dict[str, str] = {}
