@@ -309,11 +309,8 @@ def _without_disproved(
         for quantity, (_, from_nodes) in wrong.items():
             value = getattr(device, quantity, None) if device is not None else None
             if value is not None and abs(value - from_nodes) <= 1e-3 + 2e-3 * abs(from_nodes):
-                disproved.add(f"{name} {quantity}:")
-    return tuple(
-        f for f in findings
-        if not (f.code == "solver-differs" and any(f.message.startswith(prefix) for prefix in disproved))
-    )
+                disproved.add(f"{name} {quantity}")
+    return tuple(f for f in findings if not (f.code == SOLVER_DIFFERS and f.quantity in disproved))
 
 
 SOLVER_DIFFERS = "solver-differs"
@@ -327,8 +324,8 @@ def _reltol(circuit: Circuit) -> float:
 
 
 def _differing_quantity(finding: Finding) -> str:
-    """The quantity a level-1/ngspice difference is about (`M1 id`, `V(d)`): its message's lead."""
-    return finding.message.split(":", 1)[0]
+    """The quantity a level-1/ngspice difference is about (`M1 id`, `V(d)`)."""
+    return finding.quantity or ""
 
 
 class CheckQueue:

@@ -361,7 +361,7 @@ def _flag_columns(
                 f"{COLUMN_NAMES[reference_column]} {engineering(reference, unit, resolution=resolution)} "
                 f"({_difference(hand_v, reference, resolution, unit)}; tolerance {tolerance * 100:g} % or "
                 f"{engineering(HAND_FLOOR[unit], unit)})",
-                line, name,
+                line, name, quantity=subject,
             )
         )
     if reference_column == "sim" and _differs(
@@ -374,7 +374,7 @@ def _flag_columns(
                 f"{subject}: level-1 solver {engineering(level1_v, unit, resolution=resolution)} vs ngspice "
                 f"{engineering(sim_v, unit, resolution=resolution)} "
                 "beyond 0.2 %: a defect of biasbridge's solver or a model feature it does not cover",
-                line, name,
+                line, name, quantity=subject,
             )
         )
     if (
@@ -389,7 +389,7 @@ def _flag_columns(
                 f"{subject}: expected {engineering(expected.value, unit)} ± {expected.tolerance * 100:g} %, "
                 f"{COLUMN_NAMES[reference_column]} gives {engineering(reference, unit, resolution=resolution)}"
                 f"{_expect_place(expected)}",
-                element.origin.line if element is not None else None, name,
+                element.origin.line if element is not None else None, name, quantity=subject,
             )
         )
     return tuple(flagged)

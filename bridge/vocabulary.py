@@ -27,6 +27,7 @@ class Finding:
     subject: str | None = None
     column: int | None = None  # 1-based, where the finding points inside its line (lint)
     fix: str | None = None  # one line on what to change (lint)
+    quantity: str | None = None  # the compared quantity (`M1 id`, `V(d)`) of a column comparison
 
 
 @dataclass(frozen=True)
