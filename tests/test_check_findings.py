@@ -32,30 +32,6 @@ def session(required_ngspice_session):
 
 
 VERDICT_NETLISTS = {
-    # Greenhouse soil-moisture board: the probe driver's gate is held below threshold.
-    "probe_off.cir": """\
-Greenhouse soil-moisture board: probe driver held off by its divider
-VDD vdd 0 5
-R1 vdd g 1meg
-R2 g 0 100k
-RD vdd d 10k
-M1 d g 0 0 nch W=10u L=1u
-.model nch nmos (vto=0.7 kp=100u)
-.op
-.end
-""",
-    # Greenhouse fan-speed preamp: a drain resistor far too large pulls it into triode.
-    "fan_preamp.cir": """\
-Greenhouse fan-speed preamp: 47k drain resistor
-VDD vdd 0 5
-R1 vdd g 100k
-R2 g 0 100k
-RD vdd d 47k
-M1 d g 0 0 nch W=20u L=1u
-.model nch nmos (vto=0.7 kp=100u lambda=0.02)
-.op
-.end
-""",
     # Bicycle dynamo light: a lamp-current sense follower whose bulk sits on the negative rail;
     # the body effect lifts the threshold above the gate, so ngspice has it in cutoff, while the
     # hand model (GAMMA = 0) has it conducting.
@@ -113,8 +89,8 @@ def test_a_reference_at_the_solver_resolution_is_zero_and_compared_absolutely(ve
 
 
 @needs_library
-def test_a_stage_in_cutoff_that_all_three_agree_on_does_not_amplify(verdict_dir):
-    path = verdict_dir / "probe_off.cir"
+def test_a_stage_in_cutoff_that_all_three_agree_on_does_not_amplify(own_dir):
+    path = own_dir / "cutoff.cir"  # the divider holds the gate below threshold
     completed = check_text(path)
     assert completed.returncode == 1, completed.stdout + completed.stderr
     lines = completed.stdout.splitlines()
@@ -135,8 +111,8 @@ def test_a_stage_in_cutoff_that_all_three_agree_on_does_not_amplify(verdict_dir)
 
 
 @needs_library
-def test_a_stage_in_triode_shows_a_negative_saturation_margin_and_does_not_amplify(verdict_dir):
-    path = verdict_dir / "fan_preamp.cir"
+def test_a_stage_in_triode_shows_a_negative_saturation_margin_and_does_not_amplify(own_dir):
+    path = own_dir / "triode.cir"  # a 47k drain resistor pulls it into triode
     completed = check_text(path)
     assert completed.returncode == 1
     as_json = json.loads(cli_subprocess(["check", "--json", str(path)]).stdout)
