@@ -238,3 +238,10 @@ def test_config_bad_value_is_a_located_error(tmp_path, test_rules, line, wanted)
         ConfigCache().for_netlist(write(tmp_path, "m.cir", MILLI))
     assert wanted in caught.value.message
     assert caught.value.location.file == str(config) and caught.value.location.line in (2, 3)
+
+
+def test_stray_endc_and_lines_after_end_are_infos_at_their_lines(tmp_path, test_rules):
+    text = DYNAMO.replace(".op\n", ".op\n.endc\n") + "R9 rail 0 1m\n"
+    report = lint_files([write(tmp_path, "s.cir", text)])
+    assert [(e.finding.code, e.finding.severity, e.finding.line) for e in report.entries] == [
+        ("control-stray-endc", "info", 10), ("read-after-end", "info", 11)]

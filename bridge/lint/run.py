@@ -159,9 +159,12 @@ def find_config(netlist: str | Path) -> Path | None:
     folder = Path(netlist).resolve().parent
     while True:
         candidate = folder / CONFIG_FILE
-        if candidate.is_file():
-            return candidate
-        if (folder / ".git").exists() or folder.parent == folder:
+        try:
+            if candidate.is_file():
+                return candidate
+            if (folder / ".git").exists() or folder.parent == folder:
+                return None
+        except OSError:  # a folder we may not look into: the search ends there, as at a root
             return None
         folder = folder.parent
 
