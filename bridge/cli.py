@@ -363,7 +363,7 @@ def _codes(text: str) -> tuple[str, ...]:
     """`--select`/`--ignore` values: codes or code prefixes, comma-separated."""
     codes = tuple(part.strip().lower() for part in text.split(",") if part.strip())
     if not codes:
-        raise argparse.ArgumentTypeError("give one or more codes or code prefixes, e.g. scale,path-no-dc")
+        raise argparse.ArgumentTypeError("give one or more codes or code prefixes, e.g. scale,path")
     return codes
 
 
@@ -472,7 +472,7 @@ def build_parser() -> argparse.ArgumentParser:
                       help="text: FILE:LINE:COL: SEVERITY CODE message lines (the default in a pipe); json: one "
                            "object (default on a terminal: a grouped view with each card shown)")
     lint.add_argument("--select", type=_codes, action="append", metavar="CODE[,CODE]",
-                      help="report only these codes or code prefixes (e.g. scale, op-weak-inversion)")
+                      help="report only these codes or code prefixes (e.g. scale,path: every scale-… and path-… code)")
     lint.add_argument("--ignore", type=_codes, action="append", metavar="CODE[,CODE]",
                       help="leave out these codes or code prefixes")
     lint.add_argument("--strict", action="store_true", help="warnings, too, make the exit status 1")
