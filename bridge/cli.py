@@ -359,6 +359,63 @@ def command_sweep(args: argparse.Namespace) -> int:
     return EXIT_OK if result.agree else EXIT_FINDINGS
 
 
+def _codes(text: str) -> tuple[str, ...]:
+    """`--select`/`--ignore` values: codes or code prefixes, comma-separated."""
+    codes = tuple(part.strip().lower() for part in text.split(",") if part.strip())
+    if not codes:
+        raise argparse.ArgumentTypeError("give one or more codes or code prefixes, e.g. scale,path")
+    return codes
+
+
+def command_lint(args: argparse.Namespace) -> int:
+    """`biasbridge lint`: the classic bias mistakes, each at its card's line."""
+    from .sim.client import NgspiceSession, ngspice_available
+
+    available, _ = ngspice_available()
+    session = NgspiceSession() if available else None
+    if session is not None:
+        session.spawn()  # starts while the front end and the rules are imported
+    try:
+        from .lint.run import ConfigCache, Selection, lint_files, unknown_patterns
+        from .netlist import NetlistError
+
+        select = tuple(code for group in args.select for code in group) if args.select else None
+        ignore = tuple(code for group in args.ignore for code in group) if args.ignore else ()
+        unknown = unknown_patterns((*(select or ()), *ignore))
+        if unknown:
+            print(f"biasbridge: error: `{unknown[0]}` names no lint code or family (see the README's lint rules)",
+                  file=sys.stderr)
+            return EXIT_INPUT
+        configs = ConfigCache()
+        try:
+            for path in args.files:
+                configs.for_netlist(path)
+        except NetlistError as exc:
+            print(exc.render(), file=sys.stderr)
+            return EXIT_INPUT
+        report = lint_files(args.files, Selection(select, ignore), configs, session, args.sim_timeout)
+    finally:
+        if session is not None:
+            session.close()
+    from .report.lint_view import lint_json_text, lint_lines, lint_renderable
+
+    if args.format == "json":
+        sys.stdout.write(lint_json_text(report))
+    elif args.format == "text":
+        sys.stdout.write(lint_lines(report))
+    else:
+        console = _console()
+        if console.is_terminal:
+            console.print(lint_renderable(report))
+        else:
+            sys.stdout.write(lint_lines(report))
+    if report.unreadable:
+        return EXIT_INPUT
+    if report.count("error") or (args.strict and report.count("warning")):
+        return EXIT_FINDINGS
+    return EXIT_OK
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="biasbridge",
@@ -409,6 +466,19 @@ def build_parser() -> argparse.ArgumentParser:
     sweep.add_argument("--sim-timeout", default="30", metavar="SECONDS",
                        help="give up on ngspice after this long (default 30)")
     sweep.set_defaults(run=command_sweep)
+    lint = verbs.add_parser("lint", help="the classic bias mistakes, each at its card's line, with a fix")
+    lint.add_argument("files", nargs="+", metavar="FILE", help="SPICE netlist(s)")
+    lint.add_argument("--format", choices=("text", "json"),
+                      help="text: FILE:LINE:COL: SEVERITY CODE message lines (the default in a pipe); json: one "
+                           "object (default on a terminal: a grouped view with each card shown)")
+    lint.add_argument("--select", type=_codes, action="append", metavar="CODE[,CODE]",
+                      help="report only these codes or code prefixes (e.g. scale,path: every scale-… and path-… code)")
+    lint.add_argument("--ignore", type=_codes, action="append", metavar="CODE[,CODE]",
+                      help="leave out these codes or code prefixes")
+    lint.add_argument("--strict", action="store_true", help="warnings, too, make the exit status 1")
+    lint.add_argument("--sim-timeout", type=_positive_seconds, default=10.0, metavar="SECONDS",
+                      help="give up on ngspice's operating point of one netlist after this long (default 10)")
+    lint.set_defaults(run=command_lint)
     demo = verbs.add_parser("demo", help="run the main job on a bundled example")
     demo.set_defaults(run=command_demo)
     return parser

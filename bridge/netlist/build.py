@@ -164,6 +164,7 @@ class _Builder:
             analyses=analyses,
             directives=tuple(self.directives),
             notices=tuple(self.notices),
+            allowances=tuple(self.deck.allowances),
         )
 
     def split_subcircuits(self, cards: list[RawCard]) -> list[RawCard]:

@@ -164,6 +164,19 @@ class Notice:
 
 
 @dataclass(frozen=True)
+class Allowance:
+    """A `lint: allow CODE` marker in a card's inline comment: the designer accepts the lint
+    finding CODE on that card. `line` is the card's first line (where its findings are);
+    `marker_line` and `column` place the code as written (a continuation line's, say)."""
+
+    code: str
+    file: str
+    line: int
+    marker_line: int
+    column: int
+
+
+@dataclass(frozen=True)
 class Circuit:
     """A whole netlist as understood: the only thing the analyses see."""
 
@@ -175,6 +188,7 @@ class Circuit:
     analyses: tuple[Analysis, ...] = ()
     directives: tuple[Directive, ...] = ()
     notices: tuple[Notice, ...] = ()
+    allowances: tuple[Allowance, ...] = ()  # `lint: allow` markers, in file order
 
     def element(self, name: str) -> Element | None:
         wanted = name.lower()

@@ -5,7 +5,9 @@ title; `*` (and `#`) comment lines; inline `;`, ` $ ` and ` //` comments; `+`
 continuation lines (comment and blank lines may stand between); `.control`
 blocks dropped; `.include` and `.lib FILE SECTION` expanded; reading stops at
 `.end`. Each logical card remembers, for every stretch of its text, the file,
-line and column it came from, so errors point at the user's own text.
+line and column it came from, so errors point at the user's own text. A
+`lint: allow CODE[, CODE]` marker in a card's inline comment is kept as data
+(`Allowance`, at the card's first line) for `biasbridge lint`.
 """
 
 from __future__ import annotations
@@ -15,7 +17,7 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .circuit import Notice
+from .circuit import Allowance, Notice
 from .errors import Location, NetlistError
 
 # A single-stage netlist has tens of cards; refuse early what is far beyond that. 10,000 and
@@ -33,6 +35,11 @@ _ENDC = re.compile(r"\.endc(?=\s|$)", re.IGNORECASE)
 _END = re.compile(r"\.end(?=\s|$)", re.IGNORECASE)
 # Inline comments: `;` anywhere, `$` or `//` after a blank (a `$` inside a name is not one).
 _INLINE_COMMENT = re.compile(r";|(?<=\s)\$(?=\s|$)|(?<=\s)//")
+# `; lint: allow CODE[, CODE ...]` in an inline comment: the codes are a comma-separated list of
+# kebab-case words; the list ends at the first word not after a comma (free text may follow).
+_ALLOW_MARKER = re.compile(r"lint:\s*allow\s+", re.IGNORECASE)
+_ALLOW_CODE = re.compile(r"[A-Za-z0-9]+(?:-[A-Za-z0-9]+)*")
+_ALLOW_COMMA = re.compile(r"\s*,\s*")
 # Control characters other than the blanks \t \n \v \f \r: a sign of binary data.
 _CONTROL_CHARACTERS = re.compile(r"[\x00-\x08\x0e-\x1f]")
 
@@ -87,6 +94,7 @@ class Deck:
     source: SourceFile
     cards: list[LogicalCard] = field(default_factory=list)
     notices: list[Notice] = field(default_factory=list)
+    allowances: list[Allowance] = field(default_factory=list)
 
 
 def read_source(path: str | os.PathLike[str], display_name: str | None = None) -> SourceFile:
@@ -133,6 +141,28 @@ def _strip_inline_comment(text: str) -> str:
     return text[: match.start()] if match else text
 
 
+def allow_markers(raw: str) -> list[tuple[str, int]]:
+    """The codes of a `lint: allow` marker in the inline comment of physical line `raw`, each with
+    its 1-based column; none when the line has no such comment."""
+    if (";" not in raw and "$" not in raw and "//" not in raw) or "lint" not in raw.lower():
+        return []
+    comment = _INLINE_COMMENT.search(raw)
+    if comment is None:
+        return []
+    marker = _ALLOW_MARKER.search(raw, comment.end())
+    if marker is None:
+        return []
+    found: list[tuple[str, int]] = []
+    position = marker.end()
+    while (code := _ALLOW_CODE.match(raw, position)) is not None:
+        found.append((code.group().lower(), code.start() + 1))
+        comma = _ALLOW_COMMA.match(raw, code.end())
+        if comma is None or comma.end() == code.end():
+            break
+        position = comma.end()
+    return found
+
+
 def _first_word(text: str) -> str:
     return text.split(None, 1)[0] if text.split() else ""
 
@@ -157,12 +187,18 @@ class _Reader:
         control_start: int | None = None
         ended_at: int | None = None
         after_end = False
+        allowed: list[tuple[str, int, int]] = []  # the current card's markers: code, line, column
 
         def flush() -> None:
             if text_parts:
                 cards.append(LogicalCard("".join(text_parts), source, tuple(segments)))
+                first = segments[0].line
+                self.deck.allowances.extend(
+                    Allowance(code, source.name, first, line, column) for code, line, column in allowed
+                )
                 text_parts.clear()
                 segments.clear()
+            allowed.clear()
 
         for number in range(first_line, len(source.lines) + 1):
             raw = source.lines[number - 1]
@@ -202,6 +238,7 @@ class _Reader:
                 text_parts.append(" ")
                 segments.append(Segment(sum(map(len, text_parts)), number, indent + 2 + lead))
                 text_parts.append(continued.strip())
+                allowed.extend((code, number, column) for code, column in allow_markers(raw))
                 continue
             flush()
             if dot and _END.match(stripped):
@@ -211,6 +248,7 @@ class _Reader:
                 continue
             segments.append(Segment(0, number, indent + 1))
             text_parts.append(body)
+            allowed.extend((code, number, column) for code, column in allow_markers(raw))
             if len(self.deck.cards) + len(cards) >= MAX_CARDS:
                 raise NetlistError(
                     f"more than {MAX_CARDS} cards: far beyond a single-stage netlist, refused",

@@ -180,6 +180,9 @@ def main() -> int:
             refused = "not refused"
         results.append(report(f"refuse a 300,000-card netlist ({refused})", time.perf_counter() - start, 1.0, "s"))
     results.extend(check_goals())
+    from lint_bench import lint_goal  # tests/bench/lint_bench.py, beside this file
+
+    results.append(lint_goal())
     return 0 if all(results) else 1
 
 
