@@ -82,16 +82,21 @@ def floating_nodes(context: LintContext) -> list[Finding]:
         root = sets.root(node)
         if root != ground:
             groups.setdefault(root, []).append(node)
+    if not groups:
+        return []
     names = node_names(circuit)
+    touching_node: dict[str, list[tuple[int, int, Element]]] = {}
+    for position, element in enumerate(circuit.elements):
+        for index, node in enumerate(element.nodes):
+            touching_node.setdefault(node, []).append((position, index, element))
     findings: list[Finding] = []
     for members in groups.values():
         if loose_ends & set(members):
             continue
-        inside = set(members)
-        touching = [
-            (element, index) for element in circuit.elements
-            for index, node in enumerate(element.nodes) if node in inside
-        ]
+        # In card order, as the user reads the netlist.
+        touching = [(element, index) for _, index, element in sorted(
+            (entry for node in members for entry in touching_node[node]), key=lambda entry: entry[:2]
+        )]
         findings += _floating_group(circuit, members, touching, names)
     return sorted(findings, key=lambda f: (f.line or 0, f.column or 0))
 
