@@ -1,8 +1,206 @@
-"""Lint rules: the suffixes family (being written)."""
+"""Lint rules: scale suffixes and implausible values (`scale-…`), judged on the value as the
+user wrote it (carried in `Element.written`) and where the element sits in the circuit.
+
+SPICE reads the first letter after a number as a scale factor (ngspice manual, section
+2.1.4.2, Table 2.2): `M` is milli, mega is `MEG`, `F` is femto; any letters after the scale
+are ignored. ngspice 39 has no atto scale: `1A`, `1H` and `1V` are 1 A, 1 H and 1 V there
+(checked with `ngspice -b`, tests/test_lint_static_suffixes.py), so a unit letter is a trap
+only where it is itself a scale: `F` on a capacitor, `M` (`1MOhm`) on a resistor.
+"""
 
 from __future__ import annotations
 
-from .rule import Rule
+import re
 
-RULES: tuple[Rule, ...] = ()
-CODES: dict[str, str] = {}
+from ..netlist.circuit import Circuit, Element
+from ..netlist.numbers import engineering
+from ..vocabulary import Finding
+from .rule import LintContext, Rule
+from .static_fields import column, field, fixed_voltages
+
+# A plain SPICE number as written: mantissa, exponent, letters (the first may be a scale).
+_NUMBER = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?([A-Za-z\u00b5]*)")
+
+# Plausible values, rules of thumb (common practice, no source): a bias network's resistors
+# run from milliohm current shunts to the teraohm a netlist adds as a DC path of its own; a
+# MOSFET's drawn channel length from 10 nm to 1 mm, its width from 10 nm to 10 cm.
+RESISTOR_RANGE = (1e-3, 1e12)  # Ω
+LENGTH_RANGE = (10e-9, 1e-3)  # m
+WIDTH_RANGE = (10e-9, 0.1)  # m
+
+# Elements a bias network's gate side may hold besides resistors: nothing there carries DC current.
+_GATE_SIDE_KINDS = frozenset({"resistor", "capacitor"})
+
+
+def _letters(element: Element, key: str) -> str | None:
+    """The letters after the number of a plain-number field (`1MOhm` → `MOhm`); None when the
+    field is an expression or was not written."""
+    written = field(element, key)
+    if written is None:
+        return None
+    match = _NUMBER.fullmatch(written.text)
+    return match.group(1) if match else None
+
+
+def _is_milli(letters: str | None) -> bool:
+    """Letters whose scale is milli: `M`, `m`, `MOhm`, but not `MEG` or `MIL`."""
+    return bool(letters) and letters[0] in "mM" and letters[:3].lower() not in ("meg", "mil")
+
+
+def gate_side_resistors(circuit: Circuit) -> set[str]:
+    """Resistors on a MOSFET gate's side of the bias network (gate resistor, divider, drain-to-gate
+    feedback): those reached from a gate node through resistors over nodes that hold only
+    resistors, capacitors and gates. No DC current flows there but the divider's own, so a
+    resistor's value only sets the bias impedance: kilohms to megohms, never milliohms."""
+    fixed = fixed_voltages(circuit)
+    touching: dict[str, list[tuple[Element, int]]] = {}
+    for element in circuit.elements:
+        for index, node in enumerate(element.nodes):
+            touching.setdefault(node, []).append((element, index))
+
+    def gate_only(node: str) -> bool:
+        if node in fixed:
+            return False
+        return all(
+            element.kind in _GATE_SIDE_KINDS or (element.kind == "mosfet" and index == 1)
+            for element, index in touching.get(node, ())
+        )
+
+    gates = {m.nodes[1] for m in circuit.elements_of("mosfet") if gate_only(m.nodes[1])}
+    seen, found, pending = set(gates), set(), list(gates)
+    while pending:
+        node = pending.pop()
+        for element, _ in touching.get(node, ()):
+            if element.kind != "resistor":
+                continue
+            found.add(element.name)
+            for other in element.nodes:
+                if other not in seen and gate_only(other):
+                    seen.add(other)
+                    pending.append(other)
+    return found
+
+
+def milli_meant_meg(context: LintContext) -> list[Finding]:
+    """`M` (milli) on a gate-side resistor: `1M` is 1 mΩ, where `1MEG` was meant."""
+    circuit = context.circuit
+    findings = []
+    gate_side = gate_side_resistors(circuit)
+    for resistor in circuit.elements_of("resistor"):
+        value = resistor.value
+        if resistor.name not in gate_side or value is None or not 0 < value < 1.0:
+            continue
+        letters = _letters(resistor, "value")
+        if not _is_milli(letters):
+            continue
+        text = field(resistor, "value").text
+        mantissa = text[: len(text) - len(letters)]
+        message = (
+            f"`{text}` is {engineering(value, 'Ω')} in SPICE (`M` is milli): {resistor.name} is in a gate's "
+            "bias network, where no DC current flows and milliohms set nothing; mega is `MEG`"
+        )
+        fix = f"write `{mantissa}MEG` for {engineering(value * 1e9, 'Ω')}"
+        findings.append(
+            Finding("warning", "scale-milli-meant-meg", message, resistor.origin.line, resistor.name,
+                    column(resistor, "value"), fix)
+        )
+    return findings
+
+
+def farad_read_as_femto(context: LintContext) -> list[Finding]:
+    """A capacitor written with the farad unit alone (`10F`, `1Farad`): `F` is femto."""
+    findings = []
+    for capacitor in context.circuit.elements_of("capacitor"):
+        letters = _letters(capacitor, "value")
+        if letters is None or not (letters == "F" or letters.lower() in ("farad", "farads")):
+            continue
+        text = field(capacitor, "value").text
+        mantissa = text[: len(text) - len(letters)]
+        message = (
+            f"`{text}` is {engineering(capacitor.value, 'F')} in SPICE: the `F` is read as the femto scale, "
+            f"not as farads (ngspice 39 reads {capacitor.value:g})"
+        )
+        fix = (
+            f"write the scale before the unit: `{mantissa}uF` for {mantissa} µF, `{mantissa}fF` if femtofarads "
+            "are meant"
+        )
+        findings.append(
+            Finding("warning", "scale-farad-read-as-femto", message, capacitor.origin.line, capacitor.name,
+                    column(capacitor, "value"), fix)
+        )
+    return findings
+
+
+def mosfet_size(context: LintContext) -> list[Finding]:
+    """A MOSFET W or L outside plausible sizes; written with no scale (`w=10`), it is metres."""
+    findings = []
+    if context.circuit.options().get("scale") is not None:
+        return findings  # `.options scale` multiplies every W and L: the written numbers are not metres
+    for mosfet in context.circuit.elements_of("mosfet"):
+        for key, name, (low, high), what in (
+            ("w", "W", WIDTH_RANGE, "width"),
+            ("l", "L", LENGTH_RANGE, "channel length"),
+        ):
+            value = mosfet.params.get(key)
+            if not isinstance(value, (int, float)) or low <= value <= high:
+                continue
+            written = field(mosfet, key)
+            letters = _letters(mosfet, key)
+            bare = letters == "" and written is not None and "e" not in written.text.lower()
+            plausible = f"{engineering(low, 'm')} to {engineering(high, 'm')} (common practice, no source)"
+            if bare:
+                message = (
+                    f"`{key}={written.text}` has no scale suffix: SPICE lengths are in metres, so {name} of "
+                    f"{mosfet.name} is {engineering(value, 'm')}; a plausible {what} is {plausible}"
+                )
+                fix = f"write `{key}={written.text}u` for {written.text} µm"
+            else:
+                message = (
+                    f"{name} of {mosfet.name} is {engineering(value, 'm')}, outside the plausible {what} of "
+                    f"{plausible}"
+                )
+                fix = f"check the scale suffix of {name} (`u` is µm, `n` is nm)"
+            findings.append(
+                Finding("warning", "scale-mosfet-size", message, mosfet.origin.line, mosfet.name,
+                        column(mosfet, key), fix)
+            )
+    return findings
+
+
+def resistor_range(context: LintContext) -> list[Finding]:
+    """A resistor outside any plausible range for a bias network (common practice, no source);
+    one already reported as `scale-milli-meant-meg` is not reported again."""
+    circuit = context.circuit
+    low, high = RESISTOR_RANGE
+    gate_side = None
+    findings = []
+    for resistor in circuit.elements_of("resistor"):
+        value = resistor.value
+        if value is None or low <= value <= high:
+            continue
+        if 0 < value < 1.0 and _is_milli(_letters(resistor, "value")):
+            gate_side = gate_side_resistors(circuit) if gate_side is None else gate_side
+            if resistor.name in gate_side:
+                continue
+        written = field(resistor, "value")
+        as_written = f" (`{written.text}`)" if written is not None else ""
+        message = (
+            f"{resistor.name} is {engineering(value, 'Ω')}{as_written}, outside the "
+            f"{engineering(low, 'Ω')} to {engineering(high, 'Ω')} a bias network's resistors span "
+            "(common practice, no source)"
+        )
+        fix = "check the value and its scale suffix (`k` kilo, `MEG` mega, `m` milli, `u` micro)"
+        findings.append(
+            Finding("warning", "scale-resistor-range", message, resistor.origin.line, resistor.name,
+                    column(resistor, "value"), fix)
+        )
+    return findings
+
+
+RULES: tuple[Rule, ...] = (milli_meant_meg, farad_read_as_femto, mosfet_size, resistor_range)
+CODES: dict[str, str] = {
+    "scale-milli-meant-meg": "`M` (milli) on a gate-side bias resistor: `1M` is 1 mΩ, mega is `MEG`",
+    "scale-farad-read-as-femto": "a capacitor written `10F`: the `F` is femto, not farads",
+    "scale-mosfet-size": "a MOSFET W or L outside plausible sizes (no suffix: metres)",
+    "scale-resistor-range": "a resistor outside any plausible bias-network range (1 mΩ to 1 TΩ)",
+}

@@ -25,6 +25,7 @@ from .circuit import (
     Origin,
     Parameter,
     Waveform,
+    Written,
 )
 from .errors import NetlistError
 from .expressions import Expr, ExpressionError, UserFunction, evaluate
@@ -321,13 +322,17 @@ class _Builder:
         key = scope.models.get(word.text.lower(), word.text.lower())
         model = self.models.get(key)
         if model is None:
-            raise card.error(f"model `{word.text}` is not defined (no `.model {word.text} ...` card)", word.offset)
+            error = card.error(f"model `{word.text}` is not defined (no `.model {word.text} ...` card)", word.offset)
+            error.code = "card-missing"
+            raise error
         if model.type not in MODEL_TYPES_FOR[letter]:
             wanted = " or ".join(sorted(MODEL_TYPES_FOR[letter]))
-            raise card.error(
+            error = card.error(
                 f"model `{word.text}` is of type {model.type}, but `{card.text.split()[0]}` needs {wanted}",
                 word.offset,
             )
+            error.code = "card-wrong-type"
+            raise error
         return model.name
 
     # -- elements ------------------------------------------------------------
@@ -369,6 +374,7 @@ class _Builder:
             controlling_source=control,
             waveform=waveform,
             flags=tuple(flags),
+            written=written_fields(raw),
         )
         self.elements.append(element)
         self.element_cards[name.lower()] = card
@@ -542,6 +548,49 @@ class _Builder:
                 )
             sweeps.append(DcSweep(element.name, start, stop, step))
         return Analysis(raw.kind, _origin(raw.card), tuple(sweeps))
+
+
+# A plain SPICE number as written (`1M`, `2.2k`, `10uF`, `1e-6`): the field a scale rule judges.
+_NUMBER_FIELD = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?[A-Za-z\u00b5]*")
+# Any other field: up to the next separator.
+_OTHER_FIELD = re.compile(r"[^\s=(),]+")
+
+
+def written_fields(raw: RawElement) -> dict[str, Written]:
+    """The fields of an element card as written, with their places: `node1`, `node2`, ...,
+    `value` (a source's DC value), `model` and each `name=value` instance parameter's value.
+    A value given as `{expr}` or `'expr'` is kept from its opening brace or quote."""
+    card = raw.card
+    fields: dict[str, Written] = {}
+
+    def keep(key: str, offset: int) -> None:
+        text = card.text
+        if offset > 0 and text[offset - 1] in "{'":
+            opening = offset - 1
+            closing = text.find("}" if text[opening] == "{" else "'", offset)
+            end = closing + 1 if closing >= 0 else len(text)
+            field_text = text[opening:end]
+            offset = opening
+        else:
+            match = _NUMBER_FIELD.match(text, offset) or _OTHER_FIELD.match(text, offset)
+            field_text = match.group(0) if match else ""
+        place = card.locate(offset)
+        fields[key] = Written(field_text, place.line, place.column)
+
+    for index, (_, offset) in enumerate(raw.nodes, start=1):
+        keep(f"node{index}", offset)
+    value = raw.value
+    for part in raw.source_parts:
+        if isinstance(part, DcPart):
+            value = part.value
+    if value is not None:
+        keep("value", value.offset)
+    if raw.model is not None:
+        keep("model", raw.model.offset)
+    for item in raw.items:
+        if isinstance(item, Assignment) and not isinstance(item.value, ModelText):
+            keep(item.name.lower(), item.value.offset)
+    return fields
 
 
 def _usage(key: str) -> str:

@@ -76,9 +76,23 @@ class Waveform:
 
 
 @dataclass(frozen=True)
+class Written:
+    """One field of a card as the user wrote it (`1M`, `w=10`'s `10`, a node name before case
+    folding): its text and where it starts, 1-based line and column in the card's file."""
+
+    text: str
+    line: int
+    column: int
+
+
+@dataclass(frozen=True)
 class Element:
     """One circuit element. `value` is in SI: Ω, F, H, V or A (a source's DC value),
-    a controlled source's gain; None for devices that take a model instead."""
+    a controlled source's gain; None for devices that take a model instead.
+
+    `written` keeps fields as written, for rules that judge the writing (a scale suffix, a
+    node name's case) and point at it: `node1`, `node2`, ... (the nodes in order), `value`,
+    `model`, and instance parameters by lower-case name (`w`, `l`). Not part of equality."""
 
     name: str
     kind: str
@@ -90,6 +104,7 @@ class Element:
     controlling_source: str | None = None
     waveform: Waveform | None = None
     flags: tuple[str, ...] = ()
+    written: dict[str, Written] = field(default_factory=dict, compare=False, repr=False)
 
     @property
     def letter(self) -> str:

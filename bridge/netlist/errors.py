@@ -21,8 +21,11 @@ class NetlistError(Exception):
     """Input the program cannot use, with the place it was found.
 
     `source_line` is the offending physical line (shown under the message with a
-    caret when `caret` is true).
+    caret when `caret` is true). `code`, when set, names the mistake for `lint` (a kebab-case
+    finding code such as `card-missing`); without one, lint reports it as `parse-error`.
     """
+
+    code: str | None = None
 
     def __init__(
         self,
@@ -30,12 +33,14 @@ class NetlistError(Exception):
         location: Location,
         source_line: str | None = None,
         caret: bool = True,
+        code: str | None = None,
     ) -> None:
         super().__init__(message)
         self.message = message
         self.location = location
         self.source_line = source_line
         self.caret = caret and source_line is not None
+        self.code = code
 
     def render(self) -> str:
         """`FILE:LINE:COL: message`, then the line and a caret where that helps."""
