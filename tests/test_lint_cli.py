@@ -91,6 +91,14 @@ def test_parse_error_exits_1_and_the_run_goes_on(tmp_path, capsys):
     assert out.startswith(f"{broken}:5:10: error parse-error ")
 
 
+def test_a_model_no_card_defines_is_card_missing_at_the_model_field_even_when_ignored(tmp_path, capsys):
+    path = write(tmp_path, "m.cir", PROBE.replace("M1 d g 0 0 nch", "M1 d g 0 0 nfast"))
+    status, out, _ = run_cli(["lint", "--ignore", "card", path], capsys)
+    assert status == 1
+    assert out.startswith(f"{path}:6:12: error card-missing model `nfast` is not defined")
+    assert "fix: add the `.model` card the element names" in out
+
+
 def test_strict_makes_warnings_fail(tmp_path, capsys):
     path = write(tmp_path, "w.cir", PROBE.replace("RD vdd d 10k", "RD vdd d 10k ; lint: allow scale-milli"))
     assert run_cli(["lint", path], capsys)[0] == 0

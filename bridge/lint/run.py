@@ -68,8 +68,14 @@ FAMILIES = ("scale", "card", "path", "bulk", "orient", "op", "control", "parse",
 # Findings that `--select`/`--ignore`, the config and the markers never hide: without them the
 # rest of the report means nothing (a file not linted at all), or the netlist itself would be
 # silencing its own security finding.
-ALWAYS_REPORTED = frozenset({PARSE_ERROR, FILE_UNREADABLE})
-NOT_SILENCED_BY_MARKER = frozenset({PARSE_ERROR, FILE_UNREADABLE, CONTROL_BLOCK})
+# The reader's own refusals (a model no card defines, a card of the wrong kind) are findings of
+# the card family, but like a parse error they mean the file was not linted: always reported.
+BUILD_REFUSALS = {
+    "card-missing": "add the `.model` card the element names, or correct the name it gives",
+    "card-wrong-type": "give the element a `.model` card of its own kind (nmos/pmos for a MOSFET)",
+}
+ALWAYS_REPORTED = frozenset({PARSE_ERROR, FILE_UNREADABLE, *BUILD_REFUSALS})
+NOT_SILENCED_BY_MARKER = frozenset({*ALWAYS_REPORTED, CONTROL_BLOCK})
 
 CONFIG_FILE = "pyproject.toml"
 CONFIG_TABLE = ("tool", "biasbridge", "lint")
@@ -344,8 +350,10 @@ def _read(path: str) -> _Read:
         circuit = build_circuit(read_deck(source, path))
     except NetlistError as exc:
         location = exc.location
-        finding = Finding("error", PARSE_ERROR, exc.message, location.line, None, location.column,
-                          "correct the card; no other rule runs on a netlist that does not parse")
+        code = exc.code if exc.code in BUILD_REFUSALS else PARSE_ERROR
+        fix = BUILD_REFUSALS.get(code, "correct the card")
+        finding = Finding("error", code, exc.message, location.line, None, location.column,
+                          f"{fix}; no other rule runs on a netlist that does not build")
         return _Read(path, source, entries=[LintEntry(location.file or path, finding, exc.source_line)])
     return _Read(path, source, circuit)
 
