@@ -260,6 +260,20 @@ def test_the_level1_verdict_is_named_only_when_it_differs(required_ngspice_sessi
     assert "(the level-1 solver differs: saturation" in triode.message
 
 
+def test_a_finding_the_level1_solution_lacks_says_so(required_ngspice_session):
+    """ngspice's solution decides; a finding there that the level-1 solution (here of the same
+    stage with a 20 kΩ drain resistor) does not give is marked, one it does give is not."""
+    circuit = stage("drain_at_ground")
+    sim = simulate_operating_point(required_ngspice_session, circuit)
+    alike = [f for f in findings(LintContext(circuit, LintSettings(), solve_operating_point(circuit), sim))
+             if f.code == "op-node-at-rail"]
+    assert len(alike) == 1 and "does not show it" not in alike[0].message
+    other = parse_netlist(FIRING["drain_at_ground"][0].replace("RD vdd d 1meg", "RD vdd d 20k"), "other.cir")
+    marked = [f for f in findings(LintContext(circuit, LintSettings(), solve_operating_point(other), sim))
+              if f.code == "op-node-at-rail"]
+    assert len(marked) == 1 and marked[0].message.endswith("(the level-1 solution does not show it)")
+
+
 def test_thresholds_set_in_lint_settings_move_the_verdict():
     circuit = read_netlist(CORPUS / "nmos_cs_current_source.cir")  # vds − vov 1.3 V, vov 0.44 V
     assert not findings(context(circuit))

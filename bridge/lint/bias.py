@@ -22,7 +22,7 @@ and body effect from the level-1 device (``devices/mos1``), never re-derived her
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from ..bias_rules import rail_name, rail_voltages, solution_phrase, wrong_rail_bulks
 from ..devices.mos1.instance import InstanceError, Mos1Instance, mosfet_instance
@@ -177,6 +177,22 @@ def _level1_differs(points: list[_Point], name: str, fires: Callable[[_Bias], bo
     return f" (the level-1 solver differs: {other.region}, {vov}{margin})"
 
 
+def _judged(ctx: LintContext, judge: Callable[[LintContext, _Point], list[Finding]]) -> list[Finding]:
+    """`judge`'s findings at the reference solution; when ngspice's is the reference and the
+    level-1 solution would not give a finding, the finding says so."""
+    points = _points(ctx)
+    if not points:
+        return []
+    found = judge(ctx, points[0])
+    if len(points) < 2 or not found:
+        return found
+    also = {(f.code, f.subject) for f in judge(ctx, points[1])}
+    return [
+        f if (f.code, f.subject) in also else replace(f, message=f"{f.message} (the level-1 solution does not show it)")
+        for f in found
+    ]
+
+
 # --- bulk ---------------------------------------------------------------------------------------
 
 
@@ -191,13 +207,9 @@ def _forward_junction(element: Element, polarity: float, voltages: Mapping[str, 
     return terminal, forward[terminal]
 
 
-def bulk_forward(ctx: LintContext) -> list[Finding]:
+def _bulk_forward_at(ctx: LintContext, reference: _Point) -> list[Finding]:
     """An NMOS bulk above its source or drain (PMOS below) at the operating point: a forward-biased
     body junction. An error when it conducts, a warning below that."""
-    points = _points(ctx)
-    if not points:
-        return []
-    reference = points[0]
     circuit = ctx.circuit
     rails = rail_voltages(circuit, reference.voltages)
     wrong_rail = wrong_rail_bulks(circuit, reference.voltages, reference.column, ctx.level1)
@@ -242,13 +254,9 @@ def bulk_forward(ctx: LintContext) -> list[Finding]:
     return found
 
 
-def bulk_body_effect(ctx: LintContext) -> list[Finding]:
+def _bulk_body_effect_at(ctx: LintContext, reference: _Point) -> list[Finding]:
     """A bulk neither at a rail nor at its source (info): the threshold the level-1 device has at
     the operating point's body bias against the one it has with none."""
-    points = _points(ctx)
-    if not points:
-        return []
-    reference = points[0]
     circuit = ctx.circuit
     rails = rail_voltages(circuit, reference.voltages)
     found = []
@@ -279,12 +287,8 @@ def bulk_body_effect(ctx: LintContext) -> list[Finding]:
 # --- orientation --------------------------------------------------------------------------------
 
 
-def drain_source_orientation(ctx: LintContext) -> list[Finding]:
+def _drain_source_orientation_at(ctx: LintContext, reference: _Point) -> list[Finding]:
     """An NMOS whose drain sits below its source (a PMOS above) at the operating point."""
-    points = _points(ctx)
-    if not points:
-        return []
-    reference = points[0]
     found = []
     for element, polarity in _mosfets(ctx.circuit):
         drain, gate, source, bulk = element.nodes
@@ -488,15 +492,12 @@ def op_weak_inversion(ctx: LintContext) -> list[Finding]:
     return found
 
 
-def op_node_at_rail(ctx: LintContext) -> list[Finding]:
+def _op_node_at_rail_at(ctx: LintContext, reference: _Point) -> list[Finding]:
     """A MOSFET's drain or source node (not itself a rail) pinned at a rail: at the rail its own
-    resistor goes to (no current through it, so none through the device), or at the voltage of the
-    device's other channel terminal (no voltage across the device). A node at some other rail's
+    resistor goes to while the device is all but off (cutoff, or an overdrive under
+    ``settings.weak_overdrive``: next to no current), or at the voltage of the device's other
+    channel terminal (no voltage across the device). A node at some other rail's
     voltage is a design choice (a drain at 0 V on split supplies) and is not reported."""
-    points = _points(ctx)
-    if not points:
-        return []
-    reference = points[0]
     circuit = ctx.circuit
     voltages = reference.voltages
     rails = rail_voltages(circuit, voltages)
@@ -504,8 +505,12 @@ def op_node_at_rail(ctx: LintContext) -> list[Finding]:
     found = []
     for element, _ in _mosfets(circuit):
         drain, gate, source, _ = element.nodes
-        if drain == gate:
+        bias = _device(reference, element.name)
+        if drain == gate or bias is None:
             continue
+        # A small resistor drops little at a healthy current (a sense resistor): a node by its
+        # rail says "no current" only when the device is all but off.
+        all_but_off = bias.region == "cutoff" or (bias.vov is not None and bias.vov < ctx.settings.weak_overdrive)
         for role, node, other in (("drain", drain, source), ("source", source, drain)):
             if node in rails:
                 continue
@@ -514,14 +519,13 @@ def op_node_at_rail(ctx: LintContext) -> list[Finding]:
                 if (far := r.nodes[1] if r.nodes[0] == node else r.nodes[0]) in rails
                 and abs(voltages[node] - rails[far]) <= RAIL_TOLERANCE
             ]
-            if idle:
+            if idle and all_but_off:
                 resistor = idle[0]
                 far = resistor.nodes[1] if resistor.nodes[0] == node else resistor.nodes[0]
                 drop = abs(voltages[node] - rails[far])
-                bias = _device(reference, element.name)
                 carried = (
                     f"no current flows through it: {element.name} is in cutoff"
-                    if bias is not None and bias.region == "cutoff"
+                    if bias.region == "cutoff"
                     else f"it and {element.name} carry only {_amperes(drop / resistor.value)}"
                 )
                 message = (
@@ -534,8 +538,7 @@ def op_node_at_rail(ctx: LintContext) -> list[Finding]:
                 found.append(_at(element, "op-node-at-rail", message, fix))
                 break
             if role == "drain" and other in rails and abs(voltages[node] - voltages[other]) <= RAIL_TOLERANCE:
-                bias = _device(reference, element.name)
-                if bias is None or bias.region == "cutoff":
+                if bias.region == "cutoff":
                     continue
                 message = (
                     f"{element.name}'s drain {node} is pulled to its source's rail, "
@@ -547,13 +550,9 @@ def op_node_at_rail(ctx: LintContext) -> list[Finding]:
     return found
 
 
-def op_resistor_power(ctx: LintContext) -> list[Finding]:
+def _op_resistor_power_at(ctx: LintContext, reference: _Point) -> list[Finding]:
     """A resistor dissipating more than ``settings.resistor_rating`` at the operating point (V²/R
     from the solution's node voltages)."""
-    points = _points(ctx)
-    if not points:
-        return []
-    reference = points[0]
     rating = ctx.settings.resistor_rating
     found = []
     for resistor in ctx.circuit.elements_of("resistor"):
@@ -574,6 +573,41 @@ def op_resistor_power(ctx: LintContext) -> list[Finding]:
                f"lower the current through {resistor.name}")
         found.append(Finding("warning", "op-resistor-power", message, resistor.origin.line, resistor.name, None, fix))
     return found
+
+
+# --- the rules, each judged at the reference solution -------------------------------------------
+
+
+def bulk_forward(ctx: LintContext) -> list[Finding]:
+    """An NMOS bulk above its source or drain (PMOS below) at the operating point: a forward-biased
+    body junction. An error when it conducts, a warning below that."""
+    return _judged(ctx, _bulk_forward_at)
+
+
+def bulk_body_effect(ctx: LintContext) -> list[Finding]:
+    """A bulk neither at a rail nor at its source (info): the threshold the level-1 device has at
+    the operating point's body bias against the one it has with none."""
+    return _judged(ctx, _bulk_body_effect_at)
+
+
+def drain_source_orientation(ctx: LintContext) -> list[Finding]:
+    """An NMOS whose drain sits below its source (a PMOS above) at the operating point."""
+    return _judged(ctx, _drain_source_orientation_at)
+
+
+def op_node_at_rail(ctx: LintContext) -> list[Finding]:
+    """A MOSFET's drain or source node (not itself a rail) pinned at a rail: at the rail its own
+    resistor goes to while the device is all but off (cutoff, or an overdrive under
+    ``settings.weak_overdrive``: next to no current), or at the voltage of the device's other
+    channel terminal (no voltage across the device). A node at some other rail's
+    voltage is a design choice (a drain at 0 V on split supplies) and is not reported."""
+    return _judged(ctx, _op_node_at_rail_at)
+
+
+def op_resistor_power(ctx: LintContext) -> list[Finding]:
+    """A resistor dissipating more than ``settings.resistor_rating`` at the operating point (V²/R
+    from the solution's node voltages)."""
+    return _judged(ctx, _op_resistor_power_at)
 
 
 RULES: tuple[Rule, ...] = (
