@@ -233,7 +233,26 @@ def test_bulk_forward_error_only_when_the_junction_conducts():
     conducting = next(f for f in findings(context(stage("bulk_on_gate"))) if f.code == "bulk-forward")
     assert "it conducts" in conducting.message
     slight = next(f for f in findings(context(stage("bulk_slightly_forward"))) if f.code == "bulk-forward")
-    assert "does not conduct yet" in slight.message and "forward biased by 200 mV" in slight.message
+    assert "does not move the bias yet" in slight.message and "forward biased by 200 mV" in slight.message
+
+
+def test_a_device_off_either_way_round_is_not_called_swapped(session):
+    """A current source wired backwards drives the source node far above the drain: the device
+    is off whichever terminal acts as source, so nothing says the card's nodes are swapped."""
+    circuit = parse_netlist("""\
+Hotbed thermistor buffer: source current sink wired backwards
+VDD vdd 0 5
+R1 vdd g 300k
+R2 g 0 200k
+RD vdd d 4.7k
+M1 d g s 0 NBED W=20u L=2u
+ISINK 0 s 300u
+RS s 0 500k
+""" + ending("NBED"), "backwards.cir")
+    ctx = context(circuit, session)
+    reference = ctx.sim or ctx.level1
+    assert reference.node_voltages["s"] > 100  # the source node is far above the drain
+    assert not [f for f in findings(ctx) if f.code == "orient-drain-source"]
 
 
 def test_a_wrong_rail_bulk_says_what_check_says():

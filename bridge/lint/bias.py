@@ -236,10 +236,14 @@ def _bulk_forward_at(ctx: LintContext, reference: _Point) -> list[Finding]:
             message += f"; {engineering(channel, 'A')} in the channel)" if channel > CONDUCTING_FLOOR else ")"
         else:
             conducts = forward >= CONDUCTING_VOLTAGE
-        message += (
-            ": it conducts, and the current leaks into the bulk instead of the channel"
-            if conducts else ": it does not conduct yet, but a little more bias makes it"
-        )
+        if instance is not None:
+            message += (
+                ": it conducts, a current the bias design does not count on" if conducts
+                else ": under 1 % of the channel current, it does not move the bias yet, but it grows tenfold "
+                "with each ~60 mV more forward bias (kT/q·ln 10)"
+            )
+        else:
+            message += ": it conducts (a silicon junction does from about 0.5 V)" if conducts else ""
         if element.name in wrong_rail:
             message += (f"; its bulk is on a rail {_a(polarity)} bulk does not belong to "
                         "(as check's `bulk-rail` says)")
@@ -288,12 +292,18 @@ def _bulk_body_effect_at(ctx: LintContext, reference: _Point) -> list[Finding]:
 
 
 def _drain_source_orientation_at(ctx: LintContext, reference: _Point) -> list[Finding]:
-    """An NMOS whose drain sits below its source (a PMOS above) at the operating point."""
+    """An NMOS whose drain sits below its source (a PMOS above) at the operating point, conducting
+    with the roles swapped."""
     found = []
     for element, polarity in _mosfets(ctx.circuit):
         drain, gate, source, bulk = element.nodes
         vds = polarity * (reference.voltages[drain] - reference.voltages[source])
         if vds >= -ORIENTATION_FLOOR:
+            continue
+        bias = _device(reference, element.name)
+        if bias is None or bias.region in (None, "cutoff"):
+            # Off either way round: the wiring of the channel is not what the solution shows (a
+            # current source forcing the node, say: check's current-source-backwards).
             continue
         message = (
             f"{element.name}'s drain {drain} ({_v(reference.voltages[drain])}) is "
@@ -591,7 +601,8 @@ def bulk_body_effect(ctx: LintContext) -> list[Finding]:
 
 
 def drain_source_orientation(ctx: LintContext) -> list[Finding]:
-    """An NMOS whose drain sits below its source (a PMOS above) at the operating point."""
+    """An NMOS whose drain sits below its source (a PMOS above) at the operating point, conducting
+    with the roles swapped."""
     return _judged(ctx, _drain_source_orientation_at)
 
 
