@@ -260,6 +260,18 @@ def test_a_wrong_rail_bulk_says_what_check_says():
     assert "as check's `bulk-rail` says" in finding.message
 
 
+def test_findings_point_at_the_node_field_where_the_reader_keeps_it():
+    """The bulk rules point at the bulk field, the orientation and rail rules at the drain field,
+    once the reader records where each field was written (`Element.written`)."""
+    if not hasattr(stage("bulk_on_gate").element("M1"), "written"):
+        pytest.skip("this reader keeps no field places (Element.written comes with the static lint rules)")
+    cases = {"bulk_on_gate": ("bulk-forward", 10), "drain_source_swapped": ("orient-drain-source", 4),
+             "drain_at_ground": ("op-node-at-rail", 4), "triode": ("op-triode", None)}
+    for name, (code, column) in cases.items():
+        finding = next(f for f in findings(context(stage(name))) if f.code == code)
+        assert finding.column == column, name
+
+
 def test_without_any_solution_the_family_says_nothing():
     for name in FIRING:
         assert findings(LintContext(stage(name), LintSettings())) == []

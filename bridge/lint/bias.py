@@ -135,9 +135,24 @@ def _instance(circuit: Circuit, element: Element) -> Mos1Instance | None:
         return None
 
 
-def _at(element: Element, code: str, message: str, fix: str, severity: str = "warning") -> Finding:
-    """A finding at `element`'s card (its first line; no column: the Circuit model keeps none)."""
-    return Finding(severity, code, message, element.origin.line, element.name, None, fix)
+def _at(
+    element: Element, code: str, message: str, fix: str, severity: str = "warning", node: int | None = None,
+) -> Finding:
+    """A finding at `element`'s card (its first line), pointing at its `node`-th node field (1-based)
+    when given and the front end keeps where that field was written."""
+    return Finding(severity, code, message, element.origin.line, element.name, _node_column(element, node), fix)
+
+
+def _node_column(element: Element, node: int | None) -> int | None:
+    """The 1-based column of the element's `node`-th node field on the card's first line, from the
+    fields as written (`Element.written`, `node1`…, where the front end records them); None (the
+    card's start) where it does not, or when the field is on a continuation line."""
+    if node is None:
+        return None
+    written = getattr(element, "written", None) or {}
+    field = written.get(f"node{node}")
+    line, column = getattr(field, "line", None), getattr(field, "column", None)
+    return column if line == element.origin.line and isinstance(column, int) else None
 
 
 def _v(value: float) -> str:
@@ -253,8 +268,7 @@ def _bulk_forward_at(ctx: LintContext, reference: _Point) -> list[Finding]:
             f"tie {element.name}'s bulk to its source {source} or to the "
             f"{'most negative' if polarity > 0 else 'most positive'} rail, {rail_name(circuit, rail, low_or_high)}"
         )
-        found.append(Finding("error" if conducts else "warning", "bulk-forward", message, element.origin.line,
-                             element.name, None, fix))
+        found.append(_at(element, "bulk-forward", message, fix, "error" if conducts else "warning", node=4))
     return found
 
 
@@ -284,7 +298,7 @@ def _bulk_body_effect_at(ctx: LintContext, reference: _Point) -> list[Finding]:
             f"({'+' if shift >= 0 else '−'}{_v(abs(shift))}); it moves with V({bulk})"
         )
         fix = f"tie the bulk to the source {source} (no body effect) or to a rail (a fixed one), unless this is meant"
-        found.append(Finding("info", "bulk-body-effect", message, element.origin.line, element.name, None, fix))
+        found.append(_at(element, "bulk-body-effect", message, fix, "info", node=4))
     return found
 
 
@@ -313,7 +327,7 @@ def _drain_source_orientation_at(ctx: LintContext, reference: _Point) -> list[Fi
             "drain and source are probably swapped on the card"
         )
         fix = f"exchange the drain and source nodes: `{element.name} {source} {gate} {drain} {bulk} …`"
-        found.append(Finding("warning", "orient-drain-source", message, element.origin.line, element.name, None, fix))
+        found.append(_at(element, "orient-drain-source", message, fix, node=1))
     return found
 
 
@@ -418,7 +432,7 @@ def op_region(ctx: LintContext) -> list[Finding]:
                 f"({vds} − vov = {_v(margin)}), in a stage built to amplify ({built}){other}"
             )
             fix = _margin_fix(ctx, element, polarity, reference.voltages, rails)
-        found.append(Finding("warning", f"op-{bias.region}", message, element.origin.line, element.name, None, fix))
+        found.append(_at(element, f"op-{bias.region}", message, fix))
     return found
 
 
@@ -465,7 +479,7 @@ def op_saturation_margin(ctx: LintContext) -> list[Finding]:
             f"part spread puts it in triode{other}"
         )
         fix = _margin_fix(ctx, element, polarity, reference.voltages, rails)
-        found.append(Finding("warning", "op-saturation-margin", message, element.origin.line, element.name, None, fix))
+        found.append(_at(element, "op-saturation-margin", message, fix))
     return found
 
 
@@ -498,7 +512,7 @@ def op_weak_inversion(ctx: LintContext) -> list[Finding]:
         )
         fix = f"bias {element.name} with more overdrive (over {_v(limit)}): a higher gate–source voltage or, where a " \
               "current sets the bias, a smaller W/L"
-        found.append(Finding("warning", "op-weak-inversion", message, element.origin.line, element.name, None, fix))
+        found.append(_at(element, "op-weak-inversion", message, fix))
     return found
 
 
@@ -545,7 +559,7 @@ def _op_node_at_rail_at(ctx: LintContext, reference: _Point) -> list[Finding]:
                 )
                 fix = (f"bias {element.name} on: more gate–source voltage over its threshold, for a current through "
                        f"{resistor.name} that sets V({node}) away from the rail")
-                found.append(_at(element, "op-node-at-rail", message, fix))
+                found.append(_at(element, "op-node-at-rail", message, fix, node=1 if role == "drain" else 3))
                 break
             if role == "drain" and other in rails and abs(voltages[node] - voltages[other]) <= RAIL_TOLERANCE:
                 if bias.region == "cutoff":
@@ -556,7 +570,7 @@ def _op_node_at_rail_at(ctx: LintContext, reference: _Point) -> list[Finding]:
                     "closed switch (deep triode), not an amplifier"
                 )
                 fix = f"let {node} rise from the rail: a smaller drain resistor or less gate drive on {element.name}"
-                found.append(_at(element, "op-node-at-rail", message, fix))
+                found.append(_at(element, "op-node-at-rail", message, fix, node=1))
     return found
 
 
@@ -581,7 +595,7 @@ def _op_resistor_power_at(ctx: LintContext, reference: _Point) -> list[Finding]:
         )
         fix = (f"use a part rated for at least {engineering(DERATING * power, 'W')} (twice the dissipation), or "
                f"lower the current through {resistor.name}")
-        found.append(Finding("warning", "op-resistor-power", message, resistor.origin.line, resistor.name, None, fix))
+        found.append(_at(resistor, "op-resistor-power", message, fix))
     return found
 
 
