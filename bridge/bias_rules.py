@@ -442,3 +442,31 @@ def device_vector_findings(circuit: Circuit, sim: SimOperatingPoint | None) -> l
             element.origin.line if element else None, name,
         ))
     return found
+
+
+# --- public views of the judgements above, for the lint rules (bridge/lint/bias.py) ------------
+
+
+def solution_phrase(column: str) -> str:
+    """`in ngspice's solution`, `in the level-1 solution`: where a judged value comes from."""
+    return _in(column)
+
+
+def rail_voltages(circuit: Circuit, voltages: Mapping[str, float]) -> dict[str, float]:
+    """Ground and every node an independent voltage source ties to ground, with its voltage in
+    `voltages` (a solution's node voltages, ground included)."""
+    return _rails(circuit, _Solved("", voltages, {}, {}))
+
+
+def rail_name(circuit: Circuit, node: str, voltage: float) -> str:
+    """A rail as the findings name it: `ground (0 V)`, `VDD's rail, node vdd (5 V)`."""
+    return _rail_name(circuit, node, voltage)
+
+
+def wrong_rail_bulks(
+    circuit: Circuit, voltages: Mapping[str, float], column: str, level1: OperatingPoint | None,
+) -> dict[str, Finding]:
+    """The `bulk-rail` judgement at a solution (`column`'s node voltages): per MOSFET whose bulk sits
+    on a rail it does not belong to with a bulk junction forward biased, check's finding."""
+    solved = _Solved(column, voltages, {}, {})
+    return {finding.subject or "": finding for finding in _bulk_rails(circuit, solved, level1)}
