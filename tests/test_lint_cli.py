@@ -156,3 +156,12 @@ def test_frame_findings_are_quiet_on_the_check_stages(tmp_path, monkeypatch):
     folder = write_own_netlists(tmp_path)
     report = lint_files(sorted(str(folder / name) for name in OWN_NETLISTS))
     assert [e for e in report.entries if e.finding.severity != "info"] == []
+
+
+def test_no_operating_point_rule_speaks_where_the_path_rules_say_none_exists(tmp_path, capsys):
+    """The gate reached only through CIN: ngspice falls back to an answer of its own (a gmin or
+    transient operating point) that is no bias; only the path finding is reported."""
+    text = PROBE.replace("R1 vdd g 330k\nR2 g 0 150k\n", "VSIG sig 0 dc 0 ac 10m\nCIN sig g 1u\n")
+    status, out, _ = run_cli(["lint", "--format", "json", write(tmp_path, "f.cir", text)], capsys)
+    codes = [finding["code"] for finding in json.loads(out)["findings"]]
+    assert status == 1 and codes == ["path-gate-through-capacitor"]

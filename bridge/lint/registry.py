@@ -9,4 +9,8 @@ from .rule import Rule
 # rule finds, for `--select`/`--ignore` and the README's table).
 FAMILIES = (suffixes, cards, paths, bias)
 RULES: tuple[Rule, ...] = tuple(rule for family in FAMILIES for rule in family.RULES)
+# The rules that judge the operating point: they run only where the path rules found one can
+# exist (a simulator's answer for a circuit with no DC operating point is a fallback, not a bias).
+AT_OPERATING_POINT: tuple[Rule, ...] = bias.RULES
+NO_OPERATING_POINT = paths.CODES.keys()
 CODES: dict[str, str] = {code: text for family in FAMILIES for code, text in family.CODES.items()}

@@ -318,8 +318,11 @@ def lint_circuit(circuit: Circuit, settings: LintSettings, level1=None, sim=None
     findings = [notice_finding(notice, circuit.source_file) for notice in circuit.notices]
     findings.extend(allowance_findings(circuit))
     context = LintContext(circuit, settings, level1, sim)
-    for rule in registry.RULES:
-        findings.extend(rule(context))
+    at_point = [rule for rule in registry.RULES if rule in registry.AT_OPERATING_POINT]
+    static = [finding for rule in registry.RULES if rule not in at_point for finding in rule(context)]
+    findings.extend(static)
+    if not any(f.severity == "error" and f.code in registry.NO_OPERATING_POINT for f in static):
+        findings.extend(finding for rule in at_point for finding in rule(context))
     return findings
 
 
