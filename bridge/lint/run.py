@@ -378,20 +378,29 @@ def lint_files(
     per_file = [configs.for_netlist(path) for path in paths]
     entries: list[LintEntry] = []
     unreadable = False
-    for path, config in zip(paths, per_file):
+
+    def started(path: str):
+        """The file read and its deck sent to ngspice: ngspice works on it while the previous
+        file's level-1 solution and rules run."""
         read = _read(path)
+        pending = None
+        if session is not None and read.circuit is not None and read.circuit.elements:
+            try:
+                pending = submit_operating_point(session, read.circuit, sim_timeout)
+            except SimulatorError:
+                pending = None
+        return read, pending
+
+    following = started(paths[0]) if paths else None
+    for index, (path, config) in enumerate(zip(paths, per_file)):
+        read, pending = following
+        following = started(paths[index + 1]) if index + 1 < len(paths) else None
         unreadable |= read.unreadable
         wanted = _effective(selection, config)
         entries.extend(entry for entry in read.entries if wanted.reports(entry.finding.code))
         circuit = read.circuit
         if circuit is None:
             continue
-        pending = None
-        if session is not None and circuit.elements:
-            try:
-                pending = submit_operating_point(session, circuit, sim_timeout)  # ngspice works meanwhile
-            except SimulatorError:
-                pending = None
         level1 = level1_solution(circuit)
         sim = None
         if pending is not None:
