@@ -254,19 +254,14 @@ def _unusable_folder(folder: str) -> str:
 
 def command_sweep(args: argparse.Namespace) -> int:
     """`biasbridge sweep`: the DC transfer curve in three columns, with region edges and gain."""
-    from .analysis.sweep import (
-        SweepInputError,
-        independent_source,
-        output_node,
-        refuse_large_sweep,
-        sweep_values,
-        transfer_curve,
-    )
+    from .analysis.sweep import output_node, refuse_large_sweep, sweep_values
     from .commands.sweep_defaults import default_output, default_range, default_source, gate_bias_source
+    from .curves import SweepInputError, independent_source
     from .netlist import NetlistError, read_netlist
     from .report.files import write_text_atomically
     from .report.sweep_view import sweep_csv, sweep_json, sweep_renderable
     from .sim.client import NgspiceSession, ngspice_available
+    from .sweep_run import transfer_curve
 
     def refuse(message: str) -> int:
         print(f"biasbridge: error: {message}", file=sys.stderr)

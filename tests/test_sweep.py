@@ -6,6 +6,7 @@ ngspice run directly, and the files against what was asked of them.
 
 from __future__ import annotations
 
+import ast
 import json
 import math
 import re
@@ -17,15 +18,14 @@ import numpy as np
 import pytest
 
 from bridge import cli
-from bridge.analysis.sweep import (
-    sweep_values,
-    transfer_curve,
-)
+from bridge.analysis.sweep import sweep_values
 from bridge.commands.sweep_defaults import default_output, default_source
 from bridge.netlist import parse_netlist, read_netlist
 from bridge.sim.client import ngspice_available
+from bridge.sweep_run import transfer_curve
 from tests.conftest import EXAMPLES, NGSPICE, ngspice_batch_op
 
+BRIDGE = Path(cli.__file__).parent
 AVAILABLE, HINT = ngspice_available()
 needs_library = pytest.mark.skipif(not AVAILABLE, reason=HINT)
 needs_ngspice_binary = pytest.mark.skipif(NGSPICE is None or not AVAILABLE, reason="ngspice is not installed")
@@ -591,3 +591,49 @@ def test_plot_enlarges_a_small_active_region_in_a_second_panel(tmp_path):
     # A sweep whose active region is a large part of it keeps one panel.
     wide = transfer_curve(parse_netlist(DIVIDER_CS, "divider.cir"), "VIN", "d", sweep_values(0.0, 5.0, points=51))
     assert active_window(wide) is None and len(_panels(plot_figure(wide))) == 1
+
+
+# The layers an analysis may not import (DEVELOPERS.md, "data flows one way"): comparisons,
+# the simulator, reports, the drivers and the command layer all sit above it.
+ABOVE_THE_ANALYSES = ("bridge.compare", "bridge.curve_compare", "bridge.sim", "bridge.report", "bridge.check",
+                      "bridge.sweep_run", "bridge.cli", "bridge.commands", "bridge.expect", "bridge.ahead")
+
+
+def _imports_of(path: Path) -> set[str]:
+    """Every module `path` imports (at its top or inside a function), as absolute names."""
+    package = "bridge." + ".".join(path.relative_to(BRIDGE).with_suffix("").parts[:-1])
+    found: set[str] = set()
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        if isinstance(node, ast.Import):
+            found.update(alias.name for alias in node.names)
+        elif isinstance(node, ast.ImportFrom):
+            base = package.rstrip(".").split(".")
+            if node.level:
+                base = base[: len(base) - node.level + 1]
+                name = ".".join(base + ([node.module] if node.module else []))
+            else:
+                name = node.module or ""
+            found.add(name)
+            found.update(f"{name}.{alias.name}" for alias in node.names)
+    return found
+
+
+def test_the_analyses_import_nothing_above_them():
+    """analysis/ (the sweep's own columns among them) reaches no compare, simulator, report or
+    driver: the sweep is driven from bridge.sweep_run, beside check.py."""
+    wrong = sorted(
+        f"{path.relative_to(BRIDGE)} imports {name}"
+        for path in (BRIDGE / "analysis").glob("*.py")
+        for name in _imports_of(path)
+        if any(name == layer or name.startswith(layer + ".") for layer in ABOVE_THE_ANALYSES)
+    )
+    assert wrong == []
+
+
+def test_the_sweep_command_is_driven_from_beside_check():
+    """cli's sweep command calls the driver, and the driver is what runs the columns."""
+    cli_imports = _imports_of(BRIDGE / "cli.py")
+    assert "bridge.sweep_run.transfer_curve" in cli_imports
+    assert "bridge.analysis.sweep.transfer_curve" not in cli_imports
+    driver = _imports_of(BRIDGE / "sweep_run.py")
+    assert {"bridge.curve_compare", "bridge.sim.transfer", "bridge.analysis"} <= driver

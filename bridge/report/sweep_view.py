@@ -1,6 +1,6 @@
 """How `biasbridge sweep` shows its result: a rich summary table, one JSON object, or CSV rows.
 
-Formatting only: every number here was computed by bridge.analysis.sweep.
+Formatting only: every number here was computed by the sweep (bridge.sweep_run).
 """
 
 from __future__ import annotations
@@ -16,8 +16,8 @@ from rich.console import Group
 from rich.table import Table
 from rich.text import Text
 
-from ..analysis.sweep import BOUNDARIES, GAIN_METHODS, TransferCurve
 from ..netlist.numbers import engineering
+from ..sweep_run import BOUNDARIES, GAIN_METHODS, TransferCurve
 from ..vocabulary import COLUMN_TITLES, COLUMNS, Step
 
 BOUNDARY_TITLES = {"cutoff_saturation": "cutoff ↔ saturation", "saturation_triode": "saturation ↔ triode"}
