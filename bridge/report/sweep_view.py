@@ -9,16 +9,17 @@ import csv
 import io
 import math
 from collections.abc import Sequence
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-from rich.console import Group
-from rich.table import Table
-from rich.text import Text
 
 from ..netlist.numbers import engineering
 from ..sweep_run import BOUNDARIES, GAIN_METHODS, TransferCurve
 from ..vocabulary import COLUMN_TITLES, COLUMNS, Step
+
+if TYPE_CHECKING:  # rich is imported where a table is drawn: `sweep --json` and `--csv` do not load it
+    from rich.console import Group
+    from rich.text import Text
 
 BOUNDARY_TITLES = {"cutoff_saturation": "cutoff ↔ saturation", "saturation_triode": "saturation ↔ triode"}
 SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "info": "dim"}
@@ -63,12 +64,16 @@ def _numbers(values: np.ndarray | None) -> list[float | None] | None:
 
 
 def _quantity(value: float | None, unit: str) -> Text:
+    from rich.text import Text
+
     if value is None or not math.isfinite(value):
         return Text("—", style="dim")
     return Text(engineering(value, unit, digits=6))
 
 
 def _gain(value: float | None) -> Text:
+    from rich.text import Text
+
     if value is None or not math.isfinite(value):
         return Text("—", style="dim")
     return Text(f"{value:.5g}")
@@ -85,10 +90,14 @@ def _sweep_line(result: TransferCurve) -> str:
 
 
 def _dim(text: str = "—") -> Text:
+    from rich.text import Text
+
     return Text(text, style="dim")
 
 
 def _steps(title: str, steps: Sequence[Step]) -> list[Text]:
+    from rich.text import Text
+
     lines = [Text(title, style="bold")]
     for number, step in enumerate(steps, start=1):
         lines.append(Text(f"  {number:>2}. {step.text}"))
@@ -99,6 +108,10 @@ def _steps(title: str, steps: Sequence[Step]) -> list[Text]:
 
 def sweep_renderable(result: TransferCurve, steps: bool = False) -> Group:
     """The summary: deviations, region edges, gains; with `steps` the closed-form working."""
+    from rich.console import Group
+    from rich.table import Table
+    from rich.text import Text
+
     simulator = f"{result.simulator[0]} {result.simulator[1]}" if result.simulator else "no simulator"
     header = Text.assemble((f"{result.file}", "bold"), f": {result.title}\n", _sweep_line(result),
                            f"\nsimulator: {simulator}")  # fmt: skip
