@@ -9,9 +9,11 @@ from __future__ import annotations
 import ast
 import json
 import math
+import os
 import re
 import struct
 import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -637,3 +639,48 @@ def test_the_sweep_command_is_driven_from_beside_check():
     assert "bridge.analysis.sweep.transfer_curve" not in cli_imports
     driver = _imports_of(BRIDGE / "sweep_run.py")
     assert {"bridge.curve_compare", "bridge.sim.transfer", "bridge.analysis"} <= driver
+
+
+# Run in a fresh interpreter (this process has imported everything already): the sweep command on
+# `sys.argv[1]`, noting at the worker's spawn whether the analyses or rich had been imported yet,
+# and after the run which of rich and matplotlib were imported at all.
+_IMPORT_ORDER_PROBE = """
+import json, sys
+from bridge.sim import client
+
+seen = {}
+spawn = client.NgspiceSession.spawn
+
+def noting_spawn(self):
+    seen["spawned_before"] = [m for m in ("bridge.analysis.sweep", "bridge.netlist", "rich") if m in sys.modules]
+    return spawn(self)
+
+client.NgspiceSession.spawn = noting_spawn
+from bridge.cli import main
+status = main(["sweep", *sys.argv[1:]])
+seen["status"] = status
+seen["loaded"] = sorted(m for m in ("rich", "matplotlib") if m in sys.modules)
+print(json.dumps(seen), file=sys.stderr)
+"""
+
+
+def _probe_sweep(*argv: str) -> dict:
+    completed = subprocess.run([sys.executable, "-c", _IMPORT_ORDER_PROBE, *argv], capture_output=True, text=True,
+                               timeout=60, env={**os.environ, "NO_COLOR": "1"})  # fmt: skip
+    return json.loads(completed.stderr.strip().splitlines()[-1])
+
+
+@needs_library
+def test_the_sweep_command_starts_ngspice_before_loading_the_analyses(divider_file):
+    """The worker's start-up overlaps the sweep's own imports and the reading of the netlist (as
+    check does): it is spawned before either is loaded."""
+    seen = _probe_sweep(str(divider_file), "--points", "21", "--json")
+    assert seen["status"] == 0
+    assert seen.get("spawned_before") == []
+
+
+@needs_library
+def test_sweep_json_loads_neither_rich_nor_matplotlib(divider_file):
+    """rich is for the table, matplotlib for --plot: a --json sweep imports neither; the table does use rich."""
+    assert _probe_sweep(str(divider_file), "--points", "21", "--json")["loaded"] == []
+    assert _probe_sweep(str(divider_file), "--points", "21")["loaded"] == ["rich"]
