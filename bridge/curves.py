@@ -2,7 +2,8 @@
 arithmetic they share (edges from crossings, interpolation, slopes).
 
 The solvers' columns (bridge.analysis.sweep) and the simulator's (bridge.sim.transfer) build
-these; compare measures them; the report formats them.
+these; compare measures them; the report formats them. ``GateBias`` records the source a sweep
+created at a capacitor-coupled gate (chosen by bridge.commands.sweep_defaults).
 """
 
 from __future__ import annotations
