@@ -684,3 +684,25 @@ def test_sweep_json_loads_neither_rich_nor_matplotlib(divider_file):
     """rich is for the table, matplotlib for --plot: a --json sweep imports neither; the table does use rich."""
     assert _probe_sweep(str(divider_file), "--points", "21", "--json")["loaded"] == []
     assert _probe_sweep(str(divider_file), "--points", "21")["loaded"] == ["rich"]
+
+
+def test_the_summary_table_is_laid_out_by_the_table_engine():
+    """The sweep's table goes through table_layout (rich's Table byte for byte, tests/test_table_layout.py)
+    where it fits the console, and is handed to rich's own Table where it does not."""
+    import io
+
+    from rich.console import Console
+
+    from bridge.report import table_layout
+    from bridge.report.sweep_view import sweep_renderable
+
+    circuit = parse_netlist(DIVIDER_CS, "divider.cir")
+    result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, points=21), None)
+    tables = [part for part in sweep_renderable(result).renderables if isinstance(part, table_layout.Table)]
+    assert len(tables) == 1
+    wide, narrow = (Console(file=io.StringIO(), width=width, color_system=None) for width in (100, 40))
+    assert table_layout.lays_out(tables[0], wide)
+    assert not table_layout.lays_out(tables[0], narrow)
+    narrow.print(tables[0])
+    shown = narrow.file.getvalue()  # rich's Table wraps (and cuts) the labels
+    assert all(word in shown for word in ("cutoff", "triode", "gain", "largest"))
