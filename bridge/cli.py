@@ -254,19 +254,28 @@ def _unusable_folder(folder: str) -> str:
 
 def command_sweep(args: argparse.Namespace) -> int:
     """`biasbridge sweep`: the DC transfer curve in three columns, with region edges and gain."""
-    from .analysis.sweep import (
-        SweepInputError,
-        independent_source,
-        output_node,
-        refuse_large_sweep,
-        sweep_values,
-        transfer_curve,
-    )
+    from .sim.client import NgspiceSession, ngspice_available
+
+    available, hint = ngspice_available()
+    session = NgspiceSession() if available else None
+    if session is not None:
+        session.spawn()  # ngspice starts up while the sweep's modules load and the netlist is read
+    try:
+        return _sweep_with(args, session, hint)
+    finally:
+        if session is not None:
+            session.close()
+
+
+def _sweep_with(args: argparse.Namespace, session: object, hint: str) -> int:
+    """The sweep command once the worker is started (`session`: an NgspiceSession, None without ngspice)."""
+    from .analysis.sweep import output_node, refuse_large_sweep, sweep_values
     from .commands.sweep_defaults import default_output, default_range, default_source, gate_bias_source
+    from .curves import SweepInputError, independent_source
     from .netlist import NetlistError, read_netlist
     from .report.files import write_text_atomically
     from .report.sweep_view import sweep_csv, sweep_json, sweep_renderable
-    from .sim.client import NgspiceSession, ngspice_available
+    from .sweep_run import transfer_curve
 
     def refuse(message: str) -> int:
         print(f"biasbridge: error: {message}", file=sys.stderr)
@@ -325,18 +334,16 @@ def command_sweep(args: argparse.Namespace) -> int:
     except (SweepInputError, ValueError) as exc:
         return refuse(f"{args.file}: {exc}")
 
-    available, hint = ngspice_available()
+    available = session is not None
     if not available:
         print(f"biasbridge: {hint} (the ngspice column stays empty)", file=sys.stderr)
-    session = NgspiceSession() if available else None
-    try:
-        result = transfer_curve(
-            circuit, source, output, values, session,
-            sim_timeout=sim_timeout, unavailable_hint=None if available else hint, gate_bias=gate_bias,
-        )  # fmt: skip
-    finally:
-        if session is not None:
-            session.close()
+    result = transfer_curve(
+        circuit, source, output, values, session,  # type: ignore[arg-type]
+        sim_timeout=sim_timeout, unavailable_hint=None if available else hint, gate_bias=gate_bias,
+    )  # fmt: skip
+    if session is not None:
+        session.close()  # the worker is not needed for writing the output
+
     def write_plot_file(path: str) -> None:
         from .report.plot import write_plot
 

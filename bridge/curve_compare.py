@@ -2,7 +2,8 @@
 findings that judging them gives (level-1 beyond tolerance of ngspice, a boundary crossed more
 than once).
 
-Measures and judges only: the curves come from bridge.analysis.sweep and bridge.sim.transfer.
+Measures and judges only: the curves come from bridge.analysis.sweep and bridge.sim.transfer,
+bridge.sweep_run puts them side by side.
 """
 
 from __future__ import annotations

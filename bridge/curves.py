@@ -2,7 +2,8 @@
 arithmetic they share (edges from crossings, interpolation, slopes).
 
 The solvers' columns (bridge.analysis.sweep) and the simulator's (bridge.sim.transfer) build
-these; compare measures them; the report formats them.
+these; compare measures them; the report formats them. ``GateBias`` records the source a sweep
+created at a capacitor-coupled gate (chosen by bridge.commands.sweep_defaults).
 """
 
 from __future__ import annotations
@@ -14,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .netlist.circuit import Circuit, Element
+from .netlist.numbers import engineering
 
 BOUNDARIES = ("cutoff_saturation", "saturation_triode")
 
@@ -138,3 +140,34 @@ def slope_from_curve(x: np.ndarray, y: np.ndarray, at: float) -> float | None:
         + y2 * ((at - x0) + (at - x1)) / ((x2 - x0) * (x2 - x1))
     )
     return value if math.isfinite(value) else None
+
+
+@dataclass(frozen=True)
+class GateBias:
+    """A capacitor-coupled gate's divider replaced by one swept source at the gate.
+
+    `circuit` is the netlist's circuit with the divider resistors removed and `source` (a voltage
+    source from the gate to ground at the divider's Thevenin voltage) added; the three columns
+    all sweep that circuit.
+    """
+
+    circuit: Circuit
+    source: str
+    gate: str
+    device: str
+    thevenin_voltage: float
+    thevenin_resistance: float
+    divider: tuple[str, ...]  # the resistors replaced
+    rails: tuple[str, ...]  # the voltage sources that fed them
+    coupling: tuple[str, ...]  # the capacitors through which the gate's signal arrives
+
+    def explanation(self) -> str:
+        divider = "–".join(self.divider)
+        coupled = ", ".join(self.coupling)
+        return (
+            f"{self.source} is a source biasbridge created at {self.device}'s gate (node {self.gate}) in place of "
+            f"the divider {divider} (Thevenin {self.thevenin_voltage:.6g} V from {', '.join(self.rails)}, "
+            f"{engineering(self.thevenin_resistance, 'Ω')}): only the divider sets the gate at DC and {coupled} "
+            f"couples the input to it, so the gate bias is swept, not the supply; its bias value is the divider's "
+            f"voltage (--source names any other source to sweep)"
+        )

@@ -13,8 +13,9 @@ import pytest
 
 from bridge.analysis import hand
 from bridge.analysis.hand import HandAnalysisError, HandSweep, hand_analysis
-from bridge.analysis.sweep import sweep_values, transfer_curve, with_source_value
+from bridge.analysis.sweep import sweep_values, with_source_value
 from bridge.netlist import parse_netlist
+from bridge.sweep_run import transfer_curve
 
 # Bicycle dynamo light: the rectified dynamo voltage, divided down, drives an NMOS with a source
 # resistor that sinks the lamp driver's current through RD; swept through cutoff, saturation

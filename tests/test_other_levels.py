@@ -307,7 +307,7 @@ def test_sweep_finds_the_cutoff_edge_from_the_familys_own_threshold(name, card_f
     # The fine .dc spans 0.1 V either side of the edge found (2,001 points, not 18,001 over 0–1.8 V).
     import numpy as np
 
-    from bridge.analysis.sweep import transfer_curve
+    from bridge.sweep_run import transfer_curve
 
     result = transfer_curve(read_netlist(card_files[name]), "VDD", "drain", np.linspace(0.0, 1.8, 37),
                             required_ngspice_session)

@@ -6,26 +6,28 @@ ngspice run directly, and the files against what was asked of them.
 
 from __future__ import annotations
 
+import ast
 import json
 import math
+import os
 import re
 import struct
 import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
 
 from bridge import cli
-from bridge.analysis.sweep import (
-    sweep_values,
-    transfer_curve,
-)
+from bridge.analysis.sweep import sweep_values
 from bridge.commands.sweep_defaults import default_output, default_source
 from bridge.netlist import parse_netlist, read_netlist
 from bridge.sim.client import ngspice_available
+from bridge.sweep_run import transfer_curve
 from tests.conftest import EXAMPLES, NGSPICE, ngspice_batch_op
 
+BRIDGE = Path(cli.__file__).parent
 AVAILABLE, HINT = ngspice_available()
 needs_library = pytest.mark.skipif(not AVAILABLE, reason=HINT)
 needs_ngspice_binary = pytest.mark.skipif(NGSPICE is None or not AVAILABLE, reason="ngspice is not installed")
@@ -591,3 +593,116 @@ def test_plot_enlarges_a_small_active_region_in_a_second_panel(tmp_path):
     # A sweep whose active region is a large part of it keeps one panel.
     wide = transfer_curve(parse_netlist(DIVIDER_CS, "divider.cir"), "VIN", "d", sweep_values(0.0, 5.0, points=51))
     assert active_window(wide) is None and len(_panels(plot_figure(wide))) == 1
+
+
+# The layers an analysis may not import (DEVELOPERS.md, "data flows one way"): comparisons,
+# the simulator, reports, the drivers and the command layer all sit above it.
+ABOVE_THE_ANALYSES = ("bridge.compare", "bridge.curve_compare", "bridge.sim", "bridge.report", "bridge.check",
+                      "bridge.sweep_run", "bridge.cli", "bridge.commands", "bridge.expect", "bridge.ahead")
+
+
+def _imports_of(path: Path) -> set[str]:
+    """Every module `path` imports (at its top or inside a function), as absolute names."""
+    package = "bridge." + ".".join(path.relative_to(BRIDGE).with_suffix("").parts[:-1])
+    found: set[str] = set()
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        if isinstance(node, ast.Import):
+            found.update(alias.name for alias in node.names)
+        elif isinstance(node, ast.ImportFrom):
+            base = package.rstrip(".").split(".")
+            if node.level:
+                base = base[: len(base) - node.level + 1]
+                name = ".".join(base + ([node.module] if node.module else []))
+            else:
+                name = node.module or ""
+            found.add(name)
+            found.update(f"{name}.{alias.name}" for alias in node.names)
+    return found
+
+
+def test_the_analyses_import_nothing_above_them():
+    """analysis/ (the sweep's own columns among them) reaches no compare, simulator, report or
+    driver: the sweep is driven from bridge.sweep_run, beside check.py."""
+    wrong = sorted(
+        f"{path.relative_to(BRIDGE)} imports {name}"
+        for path in (BRIDGE / "analysis").glob("*.py")
+        for name in _imports_of(path)
+        if any(name == layer or name.startswith(layer + ".") for layer in ABOVE_THE_ANALYSES)
+    )
+    assert wrong == []
+
+
+def test_the_sweep_command_is_driven_from_beside_check():
+    """cli's sweep command calls the driver, and the driver is what runs the columns."""
+    cli_imports = _imports_of(BRIDGE / "cli.py")
+    assert "bridge.sweep_run.transfer_curve" in cli_imports
+    assert "bridge.analysis.sweep.transfer_curve" not in cli_imports
+    driver = _imports_of(BRIDGE / "sweep_run.py")
+    assert {"bridge.curve_compare", "bridge.sim.transfer", "bridge.analysis"} <= driver
+
+
+# Run in a fresh interpreter (this process has imported everything already): the sweep command on
+# `sys.argv[1]`, noting at the worker's spawn whether the analyses or rich had been imported yet,
+# and after the run which of rich and matplotlib were imported at all.
+_IMPORT_ORDER_PROBE = """
+import json, sys
+from bridge.sim import client
+
+seen = {}
+spawn = client.NgspiceSession.spawn
+
+def noting_spawn(self):
+    seen["spawned_before"] = [m for m in ("bridge.analysis.sweep", "bridge.netlist", "rich") if m in sys.modules]
+    return spawn(self)
+
+client.NgspiceSession.spawn = noting_spawn
+from bridge.cli import main
+status = main(["sweep", *sys.argv[1:]])
+seen["status"] = status
+seen["loaded"] = sorted(m for m in ("rich", "matplotlib") if m in sys.modules)
+print(json.dumps(seen), file=sys.stderr)
+"""
+
+
+def _probe_sweep(*argv: str) -> dict:
+    completed = subprocess.run([sys.executable, "-c", _IMPORT_ORDER_PROBE, *argv], capture_output=True, text=True,
+                               timeout=60, env={**os.environ, "NO_COLOR": "1"})  # fmt: skip
+    return json.loads(completed.stderr.strip().splitlines()[-1])
+
+
+@needs_library
+def test_the_sweep_command_starts_ngspice_before_loading_the_analyses(divider_file):
+    """The worker's start-up overlaps the sweep's own imports and the reading of the netlist (as
+    check does): it is spawned before either is loaded."""
+    seen = _probe_sweep(str(divider_file), "--points", "21", "--json")
+    assert seen["status"] == 0
+    assert seen.get("spawned_before") == []
+
+
+@needs_library
+def test_sweep_json_loads_neither_rich_nor_matplotlib(divider_file):
+    """rich is for the table, matplotlib for --plot: a --json sweep imports neither; the table does use rich."""
+    assert _probe_sweep(str(divider_file), "--points", "21", "--json")["loaded"] == []
+    assert _probe_sweep(str(divider_file), "--points", "21")["loaded"] == ["rich"]
+
+
+def test_the_summary_table_is_laid_out_by_the_table_engine():
+    """The sweep's table goes through table_layout (rich's Table byte for byte, tests/test_table_layout.py)
+    where it fits the console, and is handed to rich's own Table where it does not."""
+    import io
+
+    from rich.console import Console
+
+    from bridge.report import table_layout
+    from bridge.report.sweep_view import sweep_renderable
+
+    circuit = parse_netlist(DIVIDER_CS, "divider.cir")
+    result = transfer_curve(circuit, "VIN", "d", sweep_values(0.0, 5.0, points=21), None)
+    tables = [part for part in sweep_renderable(result).renderables if isinstance(part, table_layout.Table)]
+    assert len(tables) == 1
+    wide, narrow = (Console(file=io.StringIO(), width=width, color_system=None) for width in (100, 40))
+    assert table_layout.lays_out(tables[0], wide)
+    assert not table_layout.lays_out(tables[0], narrow)
+    narrow.print(tables[0])
+    shown = narrow.file.getvalue()  # rich's Table wraps (and cuts) the labels
+    assert all(word in shown for word in ("cutoff", "triode", "gain", "largest"))

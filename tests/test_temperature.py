@@ -21,11 +21,12 @@ from conftest import NGSPICE, needs_ngspice, ngspice_batch_op
 
 from bridge.analysis.dcsolve import solve_operating_point
 from bridge.analysis.hand import hand_analysis
-from bridge.analysis.sweep import sweep_values, transfer_curve
+from bridge.analysis.sweep import sweep_values
 from bridge.check import check_circuit
 from bridge.cli import main
 from bridge.devices.level1 import Level1Geometry, Level1Model, evaluate
 from bridge.netlist import parse_netlist, read_netlist
+from bridge.sweep_run import transfer_curve
 
 TEMPERATURES = (-40.0, 0.0, 27.0, 85.0, 125.0)
 # The project's solver bar against ngspice (README, `check`): 0.2 % on currents, 1 mV on voltages.

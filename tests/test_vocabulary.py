@@ -9,10 +9,11 @@ from pathlib import Path
 import pytest
 
 from bridge import vocabulary
-from bridge.analysis.sweep import sweep_values, transfer_curve
+from bridge.analysis.sweep import sweep_values
 from bridge.check import check_circuit
 from bridge.netlist import parse_netlist, read_netlist
 from bridge.sim.client import SimulationFailed, SimulatorCrashed, SimulatorTimeout, SimulatorUnavailable
+from bridge.sweep_run import transfer_curve
 from tests.conftest import EXAMPLES
 
 BRIDGE = Path(vocabulary.__file__).parent

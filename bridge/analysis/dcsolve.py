@@ -1388,25 +1388,29 @@ def _batch_newton_rows(
     active = np.arange(count)
     x = start.copy()
     gmin = net.gmin
+    stamps = [_batch_stamps(mos, position) for mos in net.mosfets]
     for _ in range(iterations):
         rows = active.size
         matrix = np.broadcast_to(base_matrix, (rows, size, size)).copy()
         rhs = base_rhs[active]
-        for mos in net.mosfets:
+        for mos, (channel_rows, channel_columns, junctions) in zip(net.mosfets, stamps, strict=True):
             vd, vg, vs, vb = x[:, mos.drain], x[:, mos.gate], x[:, mos.source], x[:, mos.bulk]
             point = evaluate_arrays(mos.model, mos.geometry, vd, vg, vs, vb)
             g = point.conductances
             offset = point.drain_current - (g[0] * vd + g[1] * vg + g[2] * vs + g[3] * vb)
-            terminals = (position[mos.drain], position[mos.gate], position[mos.source], position[mos.bulk])
-            for row, sign in ((terminals[0], 1.0), (terminals[2], -1.0)):
-                if row >= 0:
-                    for column, conductance in zip(terminals, g, strict=True):
-                        if column >= 0:
-                            matrix[:, row, column] += sign * conductance
-                    rhs[:, row] -= sign * offset
+            # The drain row gains +g, the source row −g (a − g is a + (−1.0·g) to the bit).
+            for row, positive in channel_rows:
+                for column, terminal in channel_columns:
+                    if positive:
+                        matrix[:, row, column] += g[terminal]
+                    else:
+                        matrix[:, row, column] -= g[terminal]
+                if positive:
+                    rhs[:, row] -= offset
+                else:
+                    rhs[:, row] += offset
             polarity = mos.model.polarity
-            for far, saturation in ((mos.drain, mos.drain_saturation_current),
-                                    (mos.source, mos.source_saturation_current)):  # fmt: skip
+            for far, saturation in junctions:  # only junctions with a terminal among the kept unknowns
                 junction_voltage = polarity * (vb - x[:, far])
                 current, conductance = junction_current_arrays(junction_voltage, saturation, gmin, mos.thermal_voltage)
                 _stamp_pair_arrays(matrix, rhs, position[mos.bulk], position[far], conductance,
@@ -1446,6 +1450,24 @@ def _stamp_pair_arrays(
     if c >= 0:
         matrix[:, c, c] += g
         rhs[:, c] += offset
+
+
+def _batch_stamps(
+    mos: _Mosfet, position: Sequence[int]
+) -> tuple[list[tuple[int, bool]], list[tuple[int, int]], list[tuple[int, float]]]:
+    """Where one MOSFET lands in the reduced system, worked out once per batch: the channel's
+    rows (drain +, source −) and columns among the kept unknowns with the terminal (0–3) whose
+    conductance goes there, and the bulk junctions (far terminal, saturation current) that stamp
+    anything (a junction between two eliminated or grounded nodes stamps nothing)."""
+    terminals = (position[mos.drain], position[mos.gate], position[mos.source], position[mos.bulk])
+    rows = [(row, positive) for row, positive in ((terminals[0], True), (terminals[2], False)) if row >= 0]
+    columns = [(column, terminal) for terminal, column in enumerate(terminals) if column >= 0]
+    junctions = [
+        (far, saturation)
+        for far, saturation in ((mos.drain, mos.drain_saturation_current), (mos.source, mos.source_saturation_current))
+        if position[mos.bulk] >= 0 or position[far] >= 0
+    ]
+    return rows, columns, junctions
 
 
 def solve_dc_sweep_arrays(

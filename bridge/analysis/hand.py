@@ -2099,8 +2099,8 @@ class HandSweep:
         dc, net = self._dc, self._network
         injections, held = [], []
         for value in values:
-            self._set(float(value))
-            injections.append(net.injection)
+            self._set_sources(float(value))
+            injections.append(_injection(dc, net.index))  # the same sums as _set's, one array for all
             held.append((dc.fixed, dc.current_sources))
         if not injections:
             return []
@@ -2116,7 +2116,12 @@ class HandSweep:
 
     def _set(self, value: float) -> None:
         """The working copies at `value`: the held nodes or the swept current, and the injection."""
-        dc, net, element = self._dc, self._network, self._element
+        self._set_sources(value)
+        self._network.injection = np.array(_injection(self._dc, self._network.index), dtype=float)
+
+    def _set_sources(self, value: float) -> None:
+        """The held nodes or the swept current at `value` (the injection left as it was)."""
+        dc, element = self._dc, self._element
         if element.kind == "vsource":
             fixed: dict[str, float] = {GROUND: 0.0}
             for swept, netlist_value, target, origin, plus in self._chain:
@@ -2127,7 +2132,6 @@ class HandSweep:
             dc.current_sources = [
                 replace(c, current=value) if c.name == element.name else c for c in self._current_sources
             ]
-        net.injection = np.array(_injection(dc, net.index), dtype=float)
 
     def _point(self, base: dict[str, float] | None) -> HandSolution | None:
         """The closed form at the value last set (`base`: the network with ID = 0, when solved already)."""

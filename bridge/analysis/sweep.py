@@ -1,28 +1,29 @@
-"""The DC transfer curve of a stage: one source stepped, one node watched, three ways.
+"""The DC transfer curve's own columns, numbers only: one source stepped, one node watched.
 
     sweep_values(start, stop, step=..., points=...) -> np.ndarray    the grid, arguments checked
-    transfer_curve(circuit, source, output, values, session) -> TransferCurve
+    hand_curve(circuit, source, output, x, bias, devices) -> (Curve | None, findings, model)
+    level1_curve(circuit, source, output, x, bias, devices) -> (Curve | None, findings)
+    hand_closed_forms(circuit, source, model, x, output, bias) -> the closed-form edges and gain
 
 The columns, stated once:
 
 * hand — the hand model (square law, λ = γ = 0, no gate current) at every point, numbers only:
   ``HandSweep`` (the circuit reduced once, the affine closed form per point) where it applies,
   else ``hand_analysis(..., working=False)`` on a copy with the swept source's value replaced.
-* level1 — ``solve_dc_sweep``: the full level-1 model, each point started from the last, as
-  ngspice's ``.dc`` does.
-* sim — ngspice's own ``.dc`` through the worker, on SPICE emitted from the Circuit.
+* level1 — ``solve_dc_sweep_arrays``: the full level-1 model, every point at once, each from a
+  solved neighbour.
+
+The ngspice column is ``bridge.sim.transfer``'s; ``bridge.sweep_run`` drives the three and
+compares them (``bridge.curve_compare``). Nothing here imports compare, sim or report.
 
 Region edges are input values where a transistor changes region: ``cutoff_saturation`` where
 VOV crosses 0, ``saturation_triode`` where VDS − VOV does (device polarity). For hand and
 level1 each edge is found by Brent's method on the solved model between the two grid points
-where the region changes, so its accuracy does not depend on the step; ngspice's edges are
-linear interpolations of its @m[vgs], @m[vds] and threshold (@m[von] or @m[vth]) between
-sweep points. For the
+where the region changes, so its accuracy does not depend on the step. For the
 resistor-loaded common source the hand edges also have a closed form, worked out in steps.
 
 Gains are dVout/dVin: at the bias point (the swept source's own value in the netlist) by a
-central difference on the solved model for hand and level1 and from the curve for ngspice;
-the largest |gain| from each curve.
+central difference on the solved model; the largest |gain| from each curve.
 
 Nothing here reads files or prints: the Circuit is the only input.
 """
@@ -31,11 +32,10 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 
 import numpy as np
 
-from ..curve_compare import Deviation, curve_deviations, several_crossings_findings, solver_differs_finding
 from ..curves import (
     BOUNDARIES,
     Crossing,
@@ -43,7 +43,6 @@ from ..curves import (
     GainPeak,
     RegionEdges,
     SweepInputError,
-    grid_step,
     independent_source,
     interpolated_edge,
     largest_gain,
@@ -54,11 +53,7 @@ from ..curves import largest_gain as _largest_gain
 from ..curves import region_edges as _edges
 from ..devices.mos1.ask import REGIONS
 from ..netlist.circuit import GROUND, Circuit
-from ..netlist.numbers import engineering
-from ..netlist.source import NOTICE_SEVERITY, notice_in
-from ..sim.client import NgspiceSession, SimulatorError
-from ..sim.transfer import SIM_EDGE_METHOD, SIM_GAIN_METHOD, sim_curve, sim_sweep_deck, sim_vectors
-from ..vocabulary import Finding, not_level1_finding, simulator_failure
+from ..vocabulary import Finding
 from .dcsolve import (
     DcSolveError,
     OperatingPoint,
@@ -80,23 +75,24 @@ from .roots import brent_root
 
 __all__ = [
     "BOUNDARIES",
+    "EDGE_METHODS",
+    "GAIN_METHODS",
     "MAX_POINTS",
+    "MAX_SWEEP_ELEMENTS",
     "ClosedFormEdges",
     "Crossing",
     "Curve",
-    "Deviation",
     "GainPeak",
     "HandGainFormula",
     "RegionEdges",
     "SweepInputError",
-    "TransferCurve",
-    "GateBias",
+    "hand_closed_forms",
+    "hand_curve",
     "independent_source",
-    "sim_curve",
-    "sim_sweep_deck",
-    "sim_vectors",
+    "level1_curve",
+    "output_node",
+    "refuse_large_sweep",
     "sweep_values",
-    "transfer_curve",
     "with_source_value",
 ]
 
@@ -110,45 +106,16 @@ EDGE_XTOL = 1e-12
 GAIN_STEP = 1e-4
 
 
+# How the hand and level-1 columns find their edges and gains (the ngspice column's are
+# bridge.sim.transfer's; bridge.sweep_run names all three).
 EDGE_METHODS = {
     "hand": "Brent's method on the hand model between the grid points where the region changes",
     "level1": "Brent's method on the level-1 solution between the grid points where the region changes",
-    "sim": SIM_EDGE_METHOD,
 }
 GAIN_METHODS = {
     "hand": "centred difference on the hand model",
     "level1": "centred difference on the level-1 solution",
-    "sim": SIM_GAIN_METHOD,
 }
-
-
-# --- the results ----------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class TransferCurve:
-    file: str
-    title: str
-    source: str
-    source_unit: str
-    output: str
-    x: np.ndarray
-    step: float
-    bias: float
-    devices: tuple[str, ...]
-    curves: dict[str, Curve | None]
-    simulator: tuple[str, str] | None
-    deviation: dict[str, Deviation | None]
-    deviation_reference: str | None
-    closed_form: dict[str, ClosedFormEdges] = field(default_factory=dict)
-    hand_gain: HandGainFormula | None = None
-    findings: tuple[Finding, ...] = ()
-    gate_bias: GateBias | None = None  # the source created at the gate, when the sweep swept one
-
-    @property
-    def agree(self) -> bool:
-        """No error or warning: every column solved and level-1 matches ngspice."""
-        return not any(f.severity in {"error", "warning"} for f in self.findings)
 
 
 # --- arguments ------------------------------------------------------------------------------
@@ -166,37 +133,6 @@ def output_node(circuit: Circuit, name: str) -> str:
         nodes = ", ".join(circuit.nodes())
         raise SweepInputError(f"no node named `{name}` in the netlist (nodes: {nodes})")
     return key
-
-
-@dataclass(frozen=True)
-class GateBias:
-    """A capacitor-coupled gate's divider replaced by one swept source at the gate.
-
-    `circuit` is the netlist's circuit with the divider resistors removed and `source` (a voltage
-    source from the gate to ground at the divider's Thevenin voltage) added; the three columns
-    all sweep that circuit.
-    """
-
-    circuit: Circuit
-    source: str
-    gate: str
-    device: str
-    thevenin_voltage: float
-    thevenin_resistance: float
-    divider: tuple[str, ...]  # the resistors replaced
-    rails: tuple[str, ...]  # the voltage sources that fed them
-    coupling: tuple[str, ...]  # the capacitors through which the gate's signal arrives
-
-    def explanation(self) -> str:
-        divider = "–".join(self.divider)
-        coupled = ", ".join(self.coupling)
-        return (
-            f"{self.source} is a source biasbridge created at {self.device}'s gate (node {self.gate}) in place of "
-            f"the divider {divider} (Thevenin {self.thevenin_voltage:.6g} V from {', '.join(self.rails)}, "
-            f"{engineering(self.thevenin_resistance, 'Ω')}): only the divider sets the gate at DC and {coupled} "
-            f"couples the input to it, so the gate bias is swept, not the supply; its bias value is the divider's "
-            f"voltage (--source names any other source to sweep)"
-        )
 
 
 def sweep_values(start: float, stop: float, *, step: float | None = None, points: int | None = None) -> np.ndarray:
@@ -277,7 +213,7 @@ def _side(boundary: str, point: _DevicePoint) -> bool:
     return point.vov > 0.0 and point.triode_margin < 0.0
 
 
-class _HandModel:
+class HandColumn:
     """The hand model at any value of the swept source, numbers only (no working is written);
     `failure` keeps the last reason it gave none.
 
@@ -357,10 +293,12 @@ def _half_width(x: np.ndarray, bias: float) -> float:
 # --- the hand column ------------------------------------------------------------------------
 
 
-def _hand_curve(
+def hand_curve(
     circuit: Circuit, source: str, output: str, x: np.ndarray, bias: float, devices: Sequence[str]
-) -> tuple[Curve | None, list[Finding], _HandModel]:
-    model = _HandModel(circuit, source)
+) -> tuple[Curve | None, list[Finding], HandColumn]:
+    """The hand column over the grid `x`: V(`output`), regions, edges and gains; the findings of
+    points without a hand solution; the model, for the closed forms (``hand_closed_forms``)."""
+    model = HandColumn(circuit, source)
     solutions = model.solve_all([float(value) for value in x])
     findings: list[Finding] = []
     failed = sum(s is None for s in solutions)
@@ -425,9 +363,11 @@ def _level1_points(circuit: Circuit, source: str, x: np.ndarray) -> SweepArrays:
     return solve_dc_sweep_arrays(circuit, source, x)
 
 
-def _level1_curve(
+def level1_curve(
     circuit: Circuit, source: str, output: str, x: np.ndarray, bias: float, devices: Sequence[str]
 ) -> tuple[Curve | None, list[Finding]]:
+    """The level-1 column over the grid `x`: V(`output`), regions, edges and gains; None with an
+    error finding where the solver gives no point."""
     findings: list[Finding] = []
     try:
         points = _level1_points(circuit, source, x)
@@ -491,17 +431,11 @@ def _level1_curve(
     return curve, findings
 
 
-# --- the simulator column -------------------------------------------------------------------
-
-
-# --- the closed form of the resistor-loaded common source -----------------------------------
-
-
 # --- the closed forms of the resistor-loaded common source -----------------------------------
 
 
-def _hand_closed_forms(
-    circuit: Circuit, source: str, hand: _HandModel, x: np.ndarray, output: str, bias: float
+def hand_closed_forms(
+    circuit: Circuit, source: str, hand: HandColumn, x: np.ndarray, output: str, bias: float
 ) -> tuple[ClosedFormEdges | None, HandGainFormula | None]:
     """The hand edges in closed form with their working, and the hand gain formula at the bias
     point when the output is the drain; (None, None) where the closed form does not apply."""
@@ -531,94 +465,6 @@ def _hand_closed_forms(
         return closed, None
     gain = common_source_gain(stage, solution.devices[stage.mosfet.name], edges.gate_ratio)
     return closed, common_source_gain_formula(stage, gain, bias, element.name)
-
-
-# --- the whole sweep ------------------------------------------------------------------------
-
-
-def transfer_curve(
-    circuit: Circuit,
-    source: str,
-    output: str,
-    values: Sequence[float] | np.ndarray,
-    session: NgspiceSession | None = None,
-    *,
-    sim_timeout: float = 10.0,
-    unavailable_hint: str | None = None,
-    gate_bias: GateBias | None = None,
-) -> TransferCurve:
-    """Sweep `source` through `values` and follow V(`output`) in the three columns.
-
-    Raises SweepInputError for an unknown source or node; a column that cannot be computed is
-    None, with a finding that says why. With `gate_bias` (from gate_bias_source), `circuit` must
-    be its circuit: the result then says which source was created and why.
-    """
-    element = independent_source(circuit, source)
-    output = output_node(circuit, output)
-    x = np.asarray(values, dtype=float)
-    if x.ndim != 1 or len(x) == 0:
-        raise SweepInputError("the sweep has no points")
-    devices = tuple(e.name for e in circuit.elements_of("mosfet"))
-    bias = float(element.value or 0.0)
-    findings: list[Finding] = [Finding(NOTICE_SEVERITY, n.code, *notice_in(n, circuit.source_file))
-                               for n in circuit.notices]
-
-    other_levels = circuit.other_level_mosfets()
-    hand: Curve | None = None
-    level1: Curve | None = None
-    if other_levels:
-        findings.append(not_level1_finding(other_levels))
-    else:
-        hand, hand_findings, hand_model_at = _hand_curve(circuit, element.name, output, x, bias, devices)
-        findings += hand_findings
-        level1, level1_findings = _level1_curve(circuit, element.name, output, x, bias, devices)
-        findings += level1_findings
-
-    sim: Curve | None = None
-    simulator: tuple[str, str] | None = None
-    if session is None:
-        findings.append(Finding("info", "no-simulator", unavailable_hint or "ngspice not available"))
-    else:
-        try:
-            simulator = ("ngspice", session.version)
-        except SimulatorError as exc:
-            findings.append(simulator_failure(exc))
-        else:
-            sim, sim_findings = sim_curve(circuit, session, element.name, output, x, bias, devices, sim_timeout)
-            findings += sim_findings
-
-    deviation, reference_name = curve_deviations(x, hand, level1, sim)
-    differs = solver_differs_finding(x, element.name, output, level1, sim)
-    if differs is not None:
-        findings.append(differs)
-    findings += several_crossings_findings({"hand": hand, "level1": level1, "sim": sim})
-
-    closed: dict[str, ClosedFormEdges] = {}
-    hand_gain: HandGainFormula | None = None
-    if hand is not None:
-        form, gain = _hand_closed_forms(circuit, element.name, hand_model_at, x, output, bias)
-        if form is not None:
-            closed[form.device] = form
-            hand_gain = gain
-    return TransferCurve(
-        file=circuit.source_file,
-        title=circuit.title,
-        source=element.name,
-        source_unit="V" if element.kind == "vsource" else "A",
-        output=output,
-        x=x,
-        step=grid_step(x),
-        bias=bias,
-        devices=devices,
-        curves={"hand": hand, "level1": level1, "sim": sim},
-        simulator=simulator,
-        deviation=deviation,
-        deviation_reference=reference_name,
-        closed_form=closed,
-        hand_gain=hand_gain,
-        findings=tuple(findings),
-        gate_bias=gate_bias,
-    )
 
 
 # --- size -----------------------------------------------------------------------------------

@@ -2,7 +2,7 @@
 range, and the gate bias of a capacitor-coupled stage.
 
 Choices only: each reads the Circuit and names something in it; the sweep itself is
-bridge.analysis.sweep.
+bridge.sweep_run.
 """
 
 from __future__ import annotations
@@ -10,8 +10,7 @@ from __future__ import annotations
 from dataclasses import replace
 
 from ..analysis.hand_edges import fixed_nodes, held_voltages
-from ..analysis.sweep import GateBias
-from ..curves import SweepInputError, independent_source
+from ..curves import GateBias, SweepInputError, independent_source
 from ..netlist.circuit import GROUND, Circuit, Element
 
 

@@ -1,6 +1,6 @@
 """The transfer-curve plot of `biasbridge sweep --plot FILE.png|.svg` (matplotlib, Agg: no display).
 
-Formatting only: the curves, regions, edges and bias point come from bridge.analysis.sweep.
+Formatting only: the curves, regions, edges and bias point come from the sweep (bridge.sweep_run).
 The figure is FIGURE_INCHES at FIGURE_DPI (800 × 500 px as PNG, 576 × 360 pt as SVG); with the
 detail panel of the active region below the whole sweep, DETAIL_FIGURE_INCHES (800 × 800 px).
 """
@@ -14,7 +14,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ..analysis.sweep import Curve, TransferCurve
+from ..curves import Curve
+from ..sweep_run import TransferCurve
 from ..vocabulary import COLUMNS
 from .files import write_atomically
 

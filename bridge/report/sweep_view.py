@@ -1,6 +1,6 @@
 """How `biasbridge sweep` shows its result: a rich summary table, one JSON object, or CSV rows.
 
-Formatting only: every number here was computed by bridge.analysis.sweep.
+Formatting only: every number here was computed by the sweep (bridge.sweep_run).
 """
 
 from __future__ import annotations
@@ -9,16 +9,17 @@ import csv
 import io
 import math
 from collections.abc import Sequence
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-from rich.console import Group
-from rich.table import Table
-from rich.text import Text
 
-from ..analysis.sweep import BOUNDARIES, GAIN_METHODS, TransferCurve
 from ..netlist.numbers import engineering
+from ..sweep_run import BOUNDARIES, GAIN_METHODS, TransferCurve
 from ..vocabulary import COLUMN_TITLES, COLUMNS, Step
+
+if TYPE_CHECKING:  # rich is imported where a table is drawn: `sweep --json` and `--csv` do not load it
+    from rich.console import Group
+    from rich.text import Text
 
 BOUNDARY_TITLES = {"cutoff_saturation": "cutoff ↔ saturation", "saturation_triode": "saturation ↔ triode"}
 SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "info": "dim"}
@@ -63,12 +64,16 @@ def _numbers(values: np.ndarray | None) -> list[float | None] | None:
 
 
 def _quantity(value: float | None, unit: str) -> Text:
+    from rich.text import Text
+
     if value is None or not math.isfinite(value):
         return Text("—", style="dim")
     return Text(engineering(value, unit, digits=6))
 
 
 def _gain(value: float | None) -> Text:
+    from rich.text import Text
+
     if value is None or not math.isfinite(value):
         return Text("—", style="dim")
     return Text(f"{value:.5g}")
@@ -85,10 +90,14 @@ def _sweep_line(result: TransferCurve) -> str:
 
 
 def _dim(text: str = "—") -> Text:
+    from rich.text import Text
+
     return Text(text, style="dim")
 
 
 def _steps(title: str, steps: Sequence[Step]) -> list[Text]:
+    from rich.text import Text
+
     lines = [Text(title, style="bold")]
     for number, step in enumerate(steps, start=1):
         lines.append(Text(f"  {number:>2}. {step.text}"))
@@ -99,6 +108,11 @@ def _steps(title: str, steps: Sequence[Step]) -> list[Text]:
 
 def sweep_renderable(result: TransferCurve, steps: bool = False) -> Group:
     """The summary: deviations, region edges, gains; with `steps` the closed-form working."""
+    from rich.console import Group
+    from rich.text import Text
+
+    from .table_layout import Cell, Table  # laid out as rich's Table, without its machinery
+
     simulator = f"{result.simulator[0]} {result.simulator[1]}" if result.simulator else "no simulator"
     header = Text.assemble((f"{result.file}", "bold"), f": {result.title}\n", _sweep_line(result),
                            f"\nsimulator: {simulator}")  # fmt: skip
@@ -106,13 +120,14 @@ def sweep_renderable(result: TransferCurve, steps: bool = False) -> Group:
         header.append(f"\n{result.gate_bias.explanation()}", style="yellow")
     curves = result.curves
     x_unit = result.source_unit
-    table = Table(title_justify="left")
-    table.add_column("quantity")
-    for column in COLUMNS:
-        table.add_column(COLUMN_TITLES[column], justify="right")
+    table = Table(("quantity", *(COLUMN_TITLES[column] for column in COLUMNS)))
+    empty: Cell = ("", "")
 
-    def row(label: str, cells: list[Text]) -> None:
-        table.add_row(Text(label), *cells)
+    def row(label: str, cells: list[Cell]) -> None:
+        table.add_row([(label, ""), *cells])
+
+    def dim(text: str = "—") -> Cell:
+        return (text, "dim")
 
     x_factor, x_label = _scale([float(v) for v in result.x], x_unit)
     gain_unit = "V/V" if x_unit == "V" else "V/A"
@@ -129,21 +144,21 @@ def sweep_renderable(result: TransferCurve, steps: bool = False) -> Group:
             ]
     decimals = {column: column_decimals(stated[column]) for column in COLUMNS}
 
-    def number(column: str, value: float | None, factor: float = 1.0, accuracy: float | None = None) -> Text:
+    def number(column: str, value: float | None, factor: float = 1.0, accuracy: float | None = None) -> Cell:
         if value is None or not math.isfinite(value):
-            return _dim()
+            return dim()
         places = decimals[column]
         text = f"{value / factor:.{places}f}"
         if accuracy is not None and math.isfinite(accuracy):
             text += f" ± {shown_accuracy(accuracy / factor, places):.{places}f}"
-        return Text(text)
+        return (text, "")
 
     reference = result.deviation_reference
     found = [result.deviation.get(c) if c != reference else None for c in COLUMNS]
     row(f"max |ΔV({result.output})| vs {COLUMN_TITLES.get(reference or '', '—')} (mV)",
-        [number(c, d.volts, 1e-3) if d else _dim() for c, d in zip(COLUMNS, found)])  # fmt: skip
+        [number(c, d.volts, 1e-3) if d else dim() for c, d in zip(COLUMNS, found)])  # fmt: skip
     row(f"  at {result.source} ({x_label})",
-        [number(c, d.at, x_factor) if d else _dim() for c, d in zip(COLUMNS, found)])  # fmt: skip
+        [number(c, d.at, x_factor) if d else dim() for c, d in zip(COLUMNS, found)])  # fmt: skip
 
     for device in result.devices:
         table.add_section()
@@ -153,27 +168,27 @@ def sweep_renderable(result: TransferCurve, steps: bool = False) -> Group:
                 curve = curves[column]
                 edges = curve.edges.get(device) if curve is not None else None
                 if edges is None:
-                    cells.append(_dim())
+                    cells.append(dim())
                 elif edges.get(boundary) is None:
-                    cells.append(_dim("never"))
+                    cells.append(dim("never"))
                 else:
                     cells.append(number(column, edges.get(boundary), x_factor, edges.accuracy(boundary)))
             row(f"{device} {BOUNDARY_TITLES[boundary]} ({x_label})", cells)
             closed = result.closed_form.get(device)
             if closed is not None:
-                row("  closed form", [number("hand", getattr(closed, boundary), x_factor), Text(""), Text("")])
+                row("  closed form", [number("hand", getattr(closed, boundary), x_factor), empty, empty])
 
     table.add_section()
     row(f"gain at the bias point ({gain_unit})",
-        [number(c, curves[c].gain_at_bias, 1.0, curves[c].gain_accuracy) if curves[c] else _dim()
+        [number(c, curves[c].gain_at_bias, 1.0, curves[c].gain_accuracy) if curves[c] else dim()
          for c in COLUMNS])  # fmt: skip
     if result.hand_gain is not None:
-        row("  hand −gm·(RD ∥ ro)·dVG/dVin", [number("hand", result.hand_gain.value), Text(""), Text("")])
+        row("  hand −gm·(RD ∥ ro)·dVG/dVin", [number("hand", result.hand_gain.value), empty, empty])
     peaks = [curves[c].largest_gain if curves[c] else None for c in COLUMNS]
     row(f"largest |gain| on the grid ({gain_unit})",
-        [number(c, abs(p.gain)) if p else _dim() for c, p in zip(COLUMNS, peaks)])  # fmt: skip
+        [number(c, abs(p.gain)) if p else dim() for c, p in zip(COLUMNS, peaks)])  # fmt: skip
     row(f"  at {result.source} ({x_label})",
-        [number(c, p.at, x_factor) if p else _dim() for c, p in zip(COLUMNS, peaks)])  # fmt: skip
+        [number(c, p.at, x_factor) if p else dim() for c, p in zip(COLUMNS, peaks)])  # fmt: skip
 
     parts: list[Any] = [header, table]
     parts += [_dim(f"{COLUMN_TITLES[c]} edges: {curves[c].edge_method}") for c in COLUMNS if curves[c] is not None]
