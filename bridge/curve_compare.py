@@ -15,6 +15,7 @@ import numpy as np
 
 from .compare import SOLVER_FLOOR, SOLVER_RELATIVE
 from .curves import BOUNDARIES, Curve
+from .netlist.circuit import Circuit
 from .vocabulary import Finding
 
 
@@ -66,7 +67,7 @@ def solver_differs_finding(
                    f"{sim.output[k]:.6g} V at {source} = {x[k]:.6g} (beyond 0.2 % + 1 mV)")  # fmt: skip
 
 
-def several_crossings_findings(curves: Mapping[str, Curve | None]) -> list[Finding]:
+def several_crossings_findings(curves: Mapping[str, Curve | None], circuit: Circuit) -> list[Finding]:
     """A note for each device and column where a boundary is crossed more than once: only the
     first crossing is reported as the edge."""
     findings: list[Finding] = []
@@ -75,8 +76,10 @@ def several_crossings_findings(curves: Mapping[str, Curve | None]) -> list[Findi
             for boundary in BOUNDARIES:
                 count = sum(c.boundary == boundary for c in edges.crossings)
                 if count > 1:
+                    element = circuit.element(name)
                     findings.append(
                         Finding("info", "several-crossings", f"{name} crosses the {boundary.replace('_', '–')} "
-                                f"boundary {count} times in the {column} column; the first is reported")
+                                f"boundary {count} times in the {column} column; the first is reported",
+                                element.origin.line if element is not None else None, name)
                     )
     return findings

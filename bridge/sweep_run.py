@@ -112,7 +112,7 @@ def transfer_curve(
     differs = solver_differs_finding(x, element.name, output, level1, sim)
     if differs is not None:
         findings.append(differs)
-    findings += several_crossings_findings({"hand": hand, "level1": level1, "sim": sim})
+    findings += several_crossings_findings({"hand": hand, "level1": level1, "sim": sim}, circuit)
 
     closed: dict[str, ClosedFormEdges] = {}
     hand_gain: HandGainFormula | None = None

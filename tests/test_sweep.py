@@ -197,6 +197,29 @@ def test_a_stage_that_never_leaves_cutoff_has_no_edges():
         assert set(result.curves[column].regions["M1"]) == {"cutoff"}
 
 
+def test_a_device_crossing_a_boundary_twice_is_noted_at_its_line():
+    """A cascade of two common sources swept on the supply: the second stage's device enters
+    triode and leaves it again; the note names it and carries its card's line."""
+    circuit = parse_netlist(TWO_STAGES, "two.cir")
+    result = transfer_curve(circuit, "VDD", "d2", sweep_values(0.0, 5.0, step=0.025))
+    notes = [f for f in result.findings if f.code == "several-crossings"]
+    assert notes and {(f.subject, f.line) for f in notes} == {("M2", 8)}
+
+
+TWO_STAGES = """\
+Bicycle dynamo light: two common sources in cascade, swept on the supply
+VDD vdd 0 5
+R1 vdd g1 330k
+R2 g1 0 120k
+RD1 vdd d1 47k
+M1 d1 g1 0 0 nch W=20u L=2u
+RD2 vdd d2 22k
+M2 d2 d1 0 0 nch W=10u L=2u
+.model nch nmos (vto=0.7 kp=120u lambda=0.02)
+.end
+"""
+
+
 # --- the ngspice column against ngspice itself -------------------------------------------------
 
 _PRINTED_ROW = re.compile(r"^(\d+)\s+(\S+)\s+(\S+)\s*$")

@@ -174,7 +174,8 @@ def sim_curve(
         names = _device_sweep_vectors(circuit, element) if element is not None else []
         if len(names) < 3 or not all(vector in result for vector in names):
             findings.append(Finding("warning", "sim-no-device", f"ngspice gave no vgs, vds and threshold for "
-                                    f"{name}: its regions and edges are not known"))
+                                    f"{name}: its regions and edges are not known",
+                                    element.origin.line if element is not None else None, name))
             continue
         vov, channel = _sim_device_drive(circuit, name, *(on_grid(result[vector]) for vector in names))
         regions[name] = _device_regions(vov, channel)
@@ -184,7 +185,7 @@ def sim_curve(
         if from_grid:
             findings.append(Finding("info", "sim-edge-from-grid", f"{from_grid} of {name}'s ngspice edges could "
                                     "not be refined with a finer .dc: they are the grid's interpolation, ± the grid "
-                                    "step"))  # fmt: skip
+                                    "step", element.origin.line, name))  # fmt: skip
     refined = _refined_sim_gain(circuit, session, source, output, x, bias, timeout)
     gain, gain_accuracy = refined if refined is not None else (slope_from_curve(x, output_values, bias), None)
     if gain is None:
