@@ -24,6 +24,7 @@ FLOOR_FRACTION = 0.01  # default current floor: 1 % of the largest measured curr
 WORST_COUNT = 5
 # Starting values and bounds where no measurement gives one (common practice, no source).
 START_LAMBDA, START_GAMMA, START_PHI = 0.01, 0.4, 0.7
+AT_BOUND = 1e-9  # a fitted LAMBDA, GAMMA or PHI this close to its lower bound is written as the bound
 BOUNDS = {"vto": (-10.0, 10.0), "lambda": (0.0, 2.0), "gamma": (0.0, 5.0), "phi": (0.1, 2.0)}
 
 
@@ -126,7 +127,7 @@ def fit_level1(
         kp0 = max(1e-12, kp_from_root_slope(math.sqrt(measured[k]) / max(vgs[k] - vto0, 0.1), geometry))
 
     def values_of(x: np.ndarray) -> Level1Values:
-        return Level1Values(x[0], math.exp(x[1]), x[2], *(x[3:5] if body else (None, None)))
+        return Level1Values(float(x[0]), math.exp(x[1]), float(x[2]), *(map(float, x[3:5]) if body else (None, None)))
 
     def residuals(x: np.ndarray) -> np.ndarray:
         return weight * (model_currents(values_of(x), geometry, vgs, vds, vbs) / measured - 1.0)
@@ -136,7 +137,9 @@ def fit_level1(
     upper = [BOUNDS["vto"][1], 10.0, BOUNDS["lambda"][1]] + ([BOUNDS["gamma"][1], BOUNDS["phi"][1]] if body else [])
     x0 = np.clip(x0, np.asarray(lower) + 1e-9, np.asarray(upper) - 1e-9)
     solution = least_squares(residuals, x0, bounds=(lower, upper), method="trf", x_scale="jac")
-    values = values_of(solution.x)
+    x = solution.x.copy()
+    x[2:] = np.where(np.abs(x[2:] - np.asarray(lower[2:])) < AT_BOUND, lower[2:], x[2:])  # 1e-22 is a 0
+    values = values_of(x)
 
     dof = measured.size - count
     sigma = _uncertainty(solution.jac, solution.fun, dof)
