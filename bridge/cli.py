@@ -618,6 +618,7 @@ def build_parser() -> argparse.ArgumentParser:
                       help="give up on ngspice's operating point of one netlist after this long (default 10)")
     lint.set_defaults(run=command_lint)
     fit = verbs.add_parser("fit", help="a level-1 card from bench data, two datasheet points or another model card")
+    fit._negative_number_matcher = SWEEP_NEGATIVE_VALUE  # `--point -2,-10m` (PMOS signs) is a value
     fit.add_argument("file", nargs="?", metavar="FILE.csv", help="measurements: columns vgs, vds, id (vbs optional)")
     fit.add_argument("--type", choices=("nmos", "pmos"), help="device type of the data (default nmos)")
     fit.add_argument("--w", metavar="W", help="channel width the data was taken at (default 100u, ngspice's DEFW)")
