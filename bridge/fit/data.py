@@ -153,7 +153,7 @@ def read_bias_csv(path: str, mos_type: str = "nmos") -> BiasData:
     conducting = current[np.abs(current) >= 0.5 * np.max(np.abs(current))]
     negative = bool(np.median(conducting) < 0.0)
     if negative and mos_type == "nmos":
-        first = rows[int(np.argmax(current == conducting[0]))]
+        first = rows[int(np.argmax(current < 0.0))]  # the first negative current
         raise error("the device conducts with negative current: PMOS data given as nmos? (use --type pmos)",
                     first, _cells(lines[first - 1])[id_index][1], lines[first - 1])
     if negative:  # PMOS measured with its own signs: every voltage and current negated
