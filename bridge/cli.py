@@ -498,7 +498,7 @@ def command_fit(args: argparse.Namespace) -> int:
                 return EXIT_INPUT
             card = next((m for key, m in circuit.models.items() if key.lower() == args.model.lower()), None)
             if card is None:
-                known = ", ".join(sorted(circuit.models)) or "none"
+                known = ", ".join(sorted(circuit.models)) or "none; the first line of a SPICE file is its title"
                 return refuse(f"{args.card}: no model `{args.model}` (models in the file: {known})")
             if card.type.lower() not in ("nmos", "pmos"):
                 return refuse(f"{args.card}:{card.origin.line}: model `{card.name}` is a {card.type}, not a MOSFET")
