@@ -162,3 +162,25 @@ def test_header_forms_and_units(tmp_path):
     assert data.id[-1] == pytest.approx(3.3e-3)
     assert data.rows.tolist() == [3, 4, 5, 6, 7]
     assert not data.has_vbs and not data.vbs_varies
+
+
+def test_pmos_data_with_magnitude_currents_and_signed_voltages(required_ngspice_session, tmp_path, capsys):
+    """A bench that records |ID| but the PMOS's own negative VGS and VDS: the voltages are negated alone."""
+    grid = grid_data(required_ngspice_session, "valve_p")
+    lines = ["vgs,vds,id"] + [f"{-g:.17g},{-d:.17g},{i:.17g}" for g, d, i in zip(grid.vgs, grid.vds, grid.id)]
+    (tmp_path / "valve.csv").write_text("\n".join(lines) + "\n")
+    result = fit_json(capsys, str(tmp_path / "valve.csv"), "--type", "pmos", "--w", "10u", "--l", "1u")
+    assert abs(result["model"]["vto"] - (-0.8)) <= 0.010
+    assert result["model"]["kp"] == pytest.approx(40e-6, rel=0.03)
+
+
+def test_plain_text_report_in_a_pipe(required_ngspice_session, tmp_path, capsys):
+    write_csv(tmp_path / "probe.csv", grid_data(required_ngspice_session, "probe_n"), 0.01, with_vbs=False)
+    assert main(["fit", str(tmp_path / "probe.csv"), "--w", "10u", "--l", "1u"]) == 0
+    out = capsys.readouterr().out
+    assert "  VTO     0.6" in out and " ± " in out
+    assert "  GAMMA   not fitted" in out
+    assert "worst points (device polarity):\n  line " in out  # the file's line of each worst point
+    assert "ELR" in out and "ESR" in out  # the published first estimates, named
+    assert "RMS relative error, fitted card simulated in ngspice vs data: " in out
+    assert "\x1b[" not in out and "┃" not in out  # no colour, no table frame in a pipe

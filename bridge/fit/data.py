@@ -33,7 +33,7 @@ class BiasData:
     """Measured bias points in device polarity (a conducting PMOS: positive vgs, vds, id).
 
     ``rows`` are the file's line numbers of the points; ``has_vbs`` says the file had a vbs
-    column (else vbs is 0); ``flipped`` that PMOS data came with negative signs and was negated.
+    column (else vbs is 0); ``flipped`` that PMOS data came with negative signs and (those columns) was negated.
     """
 
     file: str
@@ -148,17 +148,25 @@ def read_bias_csv(path: str, mos_type: str = "nmos") -> BiasData:
     if not np.any(current != 0.0):
         raise error("every current in column `id` is zero: nothing to fit", header_line, id_column, header)
 
+    # Which way the data conducts: the signs at the points carrying the larger currents. A bench
+    # may record a PMOS with its own signs throughout, or |ID| with signed voltages: each of ID,
+    # VGS and VDS is negated when it is negative there (VBS with VGS, as the source is the reference).
+    conducting = np.abs(current) >= 0.5 * np.max(np.abs(current))
+    negative = {name: bool(np.median(arrays[name][conducting]) < 0.0) for name in ("id", "vgs", "vds")}
+    if mos_type == "nmos" and (negative["id"] or negative["vgs"]):
+        name = "id" if negative["id"] else "vgs"
+        index = columns[name][0]
+        first = rows[int(np.argmax(arrays[name] < 0.0))]  # the first negative value
+        raise error(f"the device conducts with negative {'current' if name == 'id' else 'VGS'}: PMOS data given "
+                    "as nmos? (use --type pmos)", first, _cells(lines[first - 1])[index][1], lines[first - 1])
     flipped = False
-    # Which way the data conducts: the sign of the current carried by the largest points.
-    conducting = current[np.abs(current) >= 0.5 * np.max(np.abs(current))]
-    negative = bool(np.median(conducting) < 0.0)
-    if negative and mos_type == "nmos":
-        first = rows[int(np.argmax(current < 0.0))]  # the first negative current
-        raise error("the device conducts with negative current: PMOS data given as nmos? (use --type pmos)",
-                    first, _cells(lines[first - 1])[id_index][1], lines[first - 1])
-    if negative:  # PMOS measured with its own signs: every voltage and current negated
-        flipped = True
-        arrays = {name: -v for name, v in arrays.items()}
+    if mos_type == "pmos":
+        for name in ("id", "vgs", "vds"):
+            if negative[name]:
+                arrays[name] = -arrays[name]
+                flipped = True
+        if negative["vgs"] and "vbs" in arrays:
+            arrays["vbs"] = -arrays["vbs"]
         vbs = arrays.get("vbs", np.zeros(len(rows)))
         current = arrays["id"]
     return BiasData(

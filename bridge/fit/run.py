@@ -112,7 +112,7 @@ def fit_measurements(data: BiasData, geometry: Level1Geometry, name: str, floor:
     text = model_card_text(name, data.mos_type, fit.values, tuple(notes))
     warnings: list[str] = []
     if data.flipped:
-        warnings.append("PMOS data with negative voltages and currents: every value negated (device polarity)")
+        warnings.append("PMOS data with negative signs: those columns negated (device polarity: positive when on)")
     used = ~np.isnan(fit.relative_errors)
     sim_error, problem = _simulated_error(session, level1_card(name, data.mos_type, fit.values), geometry, data,
                                           used, timeout)  # fmt: skip

@@ -49,7 +49,7 @@ def fit_lines(outcome: FitOutcome) -> list[str]:
     lines: list[str] = []
     if outcome.mode != "datasheet":
         lines.append(f"points used: {outcome.points_used}; below the current floor of {outcome.floor:.3g} A and "
-                     f"left out (weak inversion, cutoff): {outcome.points_dropped}")  # fmt: skip
+                     f"left out: {outcome.points_dropped}")  # fmt: skip
         lines.append(f"RMS relative error, level-1 model vs {'data' if outcome.mode == 'data' else 'the card'}: "
                      f"{_percent(outcome.rms_rel_error)}")  # fmt: skip
         against = "data" if outcome.mode == "data" else "the card"
