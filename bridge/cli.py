@@ -432,7 +432,7 @@ def command_fit(args: argparse.Namespace) -> int:
     from .fit.data import read_bias_csv
     from .fit.least_squares import FitError
     from .netlist import NetlistError, read_netlist
-    from .sim.client import NgspiceSession, ngspice_available
+    from .sim.client import NgspiceSession, SimulatorError, ngspice_available
 
     def refuse(message: str) -> int:
         print(f"biasbridge: error: {message}", file=sys.stderr)
@@ -507,8 +507,12 @@ def command_fit(args: argparse.Namespace) -> int:
             if not available:
                 return refuse(f"--card needs ngspice to simulate the card: {hint}")
             session = NgspiceSession()
-            outcome = fit_card(session, card, args.card, geometry, args.name or f"{card.name}_l1", vds_range, around,
-                               timeout)  # fmt: skip
+            try:
+                outcome = fit_card(session, card, args.card, geometry, args.name or f"{card.name}_l1", vds_range,
+                                   around, timeout)  # fmt: skip
+            except SimulatorError as exc:
+                place = f"{args.card}:{card.origin.line}:1"
+                return refuse(f"{place}: ngspice could not simulate model `{card.name}`: {exc}")
         else:
             from .fit.run import fit_measurements
 

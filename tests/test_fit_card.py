@@ -108,3 +108,33 @@ def test_a_failed_fit_leaves_an_earlier_output_alone(tmp_path, capsys):
     assert main(["fit", str(data), "--out", str(out)]) == 2
     assert out.read_text() == "an older card\n"
     capsys.readouterr()
+
+
+SHORT_CHANNEL = """bicycle dynamo light: a short-channel BSIM4 card of our own, and one ngspice refuses
+.model short_n nmos (level=14 version=4.8.1 toxe=3n vth0=0.4)
+.model broken_n nmos (level=8 version=3.3.0 tox=-9n)
+.end
+"""
+
+
+def test_short_channel_card_gets_a_range_even_where_the_middle_of_the_grid_is_off(
+    required_ngspice_session, tmp_path, capsys
+):
+    """Velocity saturation bends the BSIM4 card away from the square law in the middle of the grid;
+    the range is then the largest box grown from any strong-inversion point where the equivalent holds."""
+    path = tmp_path / "short.lib"
+    path.write_text(SHORT_CHANNEL)
+    assert main(["fit", "--card", str(path), "--model", "short_n", "--w", "1u", "--l", "100n", "--vds-range", "0,1.2",
+                 "--json"]) == 0  # fmt: skip
+    result = json.loads(capsys.readouterr().out)
+    valid = result["valid_range"]
+    assert valid is not None and valid["vgs"][0] <= valid["vgs"][1] and valid["vds"][0] <= valid["vds"][1]
+    assert f"VGS {valid['vgs'][0]:g}..{valid['vgs'][1]:g} V" in result["card"]
+
+
+def test_a_card_ngspice_refuses_is_reported_at_its_line(required_ngspice_session, tmp_path, capsys):
+    path = tmp_path / "short.lib"
+    path.write_text(SHORT_CHANNEL)
+    assert main(["fit", "--card", str(path), "--model", "broken_n", "--w", "1u", "--l", "1u"]) == 2
+    err = capsys.readouterr().err
+    assert f"{path}:3:1: ngspice could not simulate model `broken_n`" in err and "Traceback" not in err

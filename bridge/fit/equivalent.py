@@ -3,9 +3,9 @@
 
 Weighting: every point above the current floor (strong inversion) alike; with an operating point
 (VGS0, VDS0) the weights fall off as a Gaussian of AROUND_VGS and AROUND_VDS volts from it
-(common practice, no source). The range is the largest box of grid points found by growing one
-from the operating point (or from the middle of the strong-inversion points) one row or column
-at a time while every point above the floor in it stays within HOLD of ngspice.
+(common practice, no source). The range is a box of grid points grown one row or column at a
+time while every point above the floor in it stays within HOLD of ngspice: from the operating
+point, or without one the largest grown from up to BOX_STARTS strong-inversion points.
 """
 
 from __future__ import annotations
@@ -25,6 +25,7 @@ from .least_squares import Level1Fit, Level1Values, fit_level1
 VGS_POINTS, VDS_POINTS = 41, 31  # grid of 1,271 points
 HOLD = 0.05
 AROUND_VGS, AROUND_VDS = 0.25, 0.5  # V, the Gaussian widths around an operating point
+BOX_STARTS = 64  # strong-inversion points a box is grown from, without an operating point
 
 
 @dataclass(frozen=True)
@@ -101,32 +102,59 @@ def _relative_all(fit: Level1Fit, data: BiasData) -> np.ndarray:
 
 def _holding_box(good: np.ndarray, above: np.ndarray, vgs_axis: np.ndarray, vds_axis: np.ndarray,
                  around: tuple[float, float] | None) -> HoldingRange | None:  # fmt: skip
-    """Grow a box of grid indices (rows VDS, columns VGS) from its centre while it stays good."""
-    if not above.any():
-        return None
+    """The box grown from the operating point, or without one the largest grown from any of up to
+    BOX_STARTS strong-inversion points where the equivalent holds (rows VDS, columns VGS)."""
     if around is not None:
         row = int(np.argmin(np.abs(vds_axis - abs(around[1]))))
-        col = int(np.argmin(np.abs(vgs_axis - abs(around[0]))))
+        starts = [(row, int(np.argmin(np.abs(vgs_axis - abs(around[0])))))]
     else:
-        rows, cols = np.nonzero(above)
-        row, col = int(np.median(rows)), int(np.median(cols))
-    if not (above[row, col] and good[row, col]):
+        rows, cols = np.nonzero(above & good)
+        pick = np.unique(np.linspace(0, rows.size - 1, min(BOX_STARTS, rows.size)).astype(int)) if rows.size else []
+        starts = [(int(rows[k]), int(cols[k])) for k in pick]
+    best: tuple[int, tuple[int, int, int, int]] | None = None
+    bad = _summed(~good)
+    for row, col in starts:
+        if not (above[row, col] and good[row, col]):
+            continue
+        box = _grown(bad, row, col)
+        r0, r1, c0, c1 = box
+        count = int(above[r0:r1 + 1, c0:c1 + 1].sum())
+        if best is None or count > best[0]:
+            best = (count, box)
+    if best is None:
         return None
+    r0, r1, c0, c1 = best[1]
+    # Said only of points that count: the box shrunk to the points above the floor inside it.
+    rows, cols = np.nonzero(above[r0:r1 + 1, c0:c1 + 1])
+    c0, c1, r0, r1 = c0 + int(cols.min()), c0 + int(cols.max()), r0 + int(rows.min()), r0 + int(rows.max())
+    return HoldingRange((float(vgs_axis[c0]), float(vgs_axis[c1])), (float(vds_axis[r0]), float(vds_axis[r1])))
+
+
+def _summed(flags: np.ndarray) -> np.ndarray:
+    """The summed-area table of `flags`: entry [r, c] counts the flags above and left of (r, c)."""
+    table = np.zeros((flags.shape[0] + 1, flags.shape[1] + 1), dtype=np.int64)
+    table[1:, 1:] = np.cumsum(np.cumsum(flags, axis=0), axis=1)
+    return table
+
+
+def _grown(bad: np.ndarray, row: int, col: int) -> tuple[int, int, int, int]:
+    """Grow a box of grid indices from (row, col) one side at a time while no point in it is bad
+    (`bad`: the summed-area table of the points that are not)."""
+    rows, cols = bad.shape[0] - 1, bad.shape[1] - 1
+
+    def clean(r0: int, r1: int, c0: int, c1: int) -> bool:
+        return int(bad[r1 + 1, c1 + 1] - bad[r0, c1 + 1] - bad[r1 + 1, c0] + bad[r0, c0]) == 0
 
     r0, r1, c0, c1 = row, row, col, col
     grown = True
     while grown:
         grown = False
-        for side in range(4):
-            if side == 0 and c1 + 1 < good.shape[1] and good[r0:r1 + 1, c1 + 1].all():
-                c1, grown = c1 + 1, True
-            elif side == 1 and c0 > 0 and good[r0:r1 + 1, c0 - 1].all():
-                c0, grown = c0 - 1, True
-            elif side == 2 and r1 + 1 < good.shape[0] and good[r1 + 1, c0:c1 + 1].all():
-                r1, grown = r1 + 1, True
-            elif side == 3 and r0 > 0 and good[r0 - 1, c0:c1 + 1].all():
-                r0, grown = r0 - 1, True
-    # Said only of points that count: the box shrunk to the points above the floor inside it.
-    rows, cols = np.nonzero(above[r0:r1 + 1, c0:c1 + 1])
-    c0, c1, r0, r1 = c0 + int(cols.min()), c0 + int(cols.max()), r0 + int(rows.min()), r0 + int(rows.max())
-    return HoldingRange((float(vgs_axis[c0]), float(vgs_axis[c1])), (float(vds_axis[r0]), float(vds_axis[r1])))
+        if c1 + 1 < cols and clean(r0, r1, c1 + 1, c1 + 1):
+            c1, grown = c1 + 1, True
+        if c0 > 0 and clean(r0, r1, c0 - 1, c0 - 1):
+            c0, grown = c0 - 1, True
+        if r1 + 1 < rows and clean(r1 + 1, r1 + 1, c0, c1):
+            r1, grown = r1 + 1, True
+        if r0 > 0 and clean(r0 - 1, r0 - 1, c0, c1):
+            r0, grown = r0 - 1, True
+    return r0, r1, c0, c1
