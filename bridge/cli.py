@@ -428,11 +428,31 @@ def _number_pair(text: str, option: str, names: str) -> tuple[float, float]:
 
 def command_fit(args: argparse.Namespace) -> int:
     """`biasbridge fit`: a level-1 card from bench data, two datasheet points or another model card."""
+    from .sim.client import NgspiceSession, ngspice_available
+
+    available, hint = ngspice_available()
+    # ngspice starts while scipy and the fit modules load (two datasheet points need no simulator).
+    session = NgspiceSession() if available and not args.point else None
+    if session is not None:
+        session.spawn()
+    try:
+        return _fit(args, session, hint)
+    finally:
+        if session is not None:
+            session.close()
+
+
+if TYPE_CHECKING:
+    from .sim.client import NgspiceSession
+
+
+def _fit(args: argparse.Namespace, session: NgspiceSession | None, hint: str) -> int:
+    """`fit` with ngspice's worker already starting (`session`; None: not installed, `hint` says why)."""
     from .devices.mos1.load import Level1Geometry
     from .fit.data import read_bias_csv
     from .fit.least_squares import FitError
     from .netlist import NetlistError, read_netlist
-    from .sim.client import NgspiceSession, SimulatorError, ngspice_available
+    from .sim.client import SimulatorError
 
     def refuse(message: str) -> int:
         print(f"biasbridge: error: {message}", file=sys.stderr)
@@ -462,8 +482,6 @@ def command_fit(args: argparse.Namespace) -> int:
     except (ValueError, argparse.ArgumentTypeError) as exc:
         return refuse(str(exc))
 
-    available, hint = ngspice_available()
-    session = None
     try:
         if args.point:
             from .fit.run import fit_datasheet
@@ -504,9 +522,8 @@ def command_fit(args: argparse.Namespace) -> int:
                 return refuse(f"{args.card}:{card.origin.line}: model `{card.name}` is a {card.type}, not a MOSFET")
             if args.type and args.type != card.type.lower():
                 return refuse(f"--type {args.type} but model `{card.name}` is {card.type.lower()}")
-            if not available:
+            if session is None:
                 return refuse(f"--card needs ngspice to simulate the card: {hint}")
-            session = NgspiceSession()
             try:
                 outcome = fit_card(session, card, args.card, geometry, args.name or f"{card.name}_l1", vds_range,
                                    around, timeout)  # fmt: skip
@@ -521,9 +538,7 @@ def command_fit(args: argparse.Namespace) -> int:
             except NetlistError as exc:
                 print(exc.render(), file=sys.stderr)
                 return EXIT_INPUT
-            if available:
-                session = NgspiceSession()
-            else:
+            if session is None:
                 print(f"biasbridge: {hint} (the fitted card is not simulated back)", file=sys.stderr)
             try:
                 outcome = fit_measurements(data, geometry, args.name or "fitted", floor, session, timeout)
@@ -531,9 +546,6 @@ def command_fit(args: argparse.Namespace) -> int:
                 return refuse(f"{args.file}: {exc}")
     except FitError as exc:
         return refuse(str(exc))
-    finally:
-        if session is not None:
-            session.close()
 
     from .report.files import write_text_atomically
     from .report.fit_view import fit_json, fit_renderable, fit_text
