@@ -423,6 +423,160 @@ def command_lint(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _number_pair(text: str, option: str, names: str) -> tuple[float, float]:
+    """`A,B` with SPICE suffixes allowed → two floats (ValueError naming the option otherwise)."""
+    parts = text.split(",")
+    if len(parts) != 2:
+        raise ValueError(f"{option} `{text}` is not {names} (two numbers separated by a comma)")
+    first, second = (_sweep_number(part, option) for part in parts)
+    assert first is not None and second is not None
+    return first, second
+
+
+def command_fit(args: argparse.Namespace) -> int:
+    """`biasbridge fit`: a level-1 card from bench data, two datasheet points or another model card."""
+    from .sim.client import NgspiceSession, ngspice_available
+
+    available, hint = ngspice_available()
+    # ngspice starts while scipy and the fit modules load (two datasheet points need no simulator).
+    session = NgspiceSession() if available and not args.point else None
+    if session is not None:
+        session.spawn()
+    try:
+        return _fit(args, session, hint)
+    finally:
+        if session is not None:
+            session.close()
+
+
+if TYPE_CHECKING:
+    from .sim.client import NgspiceSession
+
+
+def _fit(args: argparse.Namespace, session: NgspiceSession | None, hint: str) -> int:
+    """`fit` with ngspice's worker already starting (`session`; None: not installed, `hint` says why)."""
+    from .devices.mos1.load import Level1Geometry
+    from .fit.data import read_bias_csv
+    from .fit.least_squares import FitError
+    from .netlist import NetlistError, read_netlist
+    from .sim.client import SimulatorError
+
+    def refuse(message: str) -> int:
+        print(f"biasbridge: error: {message}", file=sys.stderr)
+        return EXIT_INPUT
+
+    ways = [args.file is not None, bool(args.point), args.card is not None]
+    if sum(ways) != 1:
+        return refuse("fit takes one of: a CSV file of measurements, --point VGS,ID twice, or --card FILE --model NAME")
+    inputs = {os.path.realpath(path) for path in (args.file, args.card) if path is not None}
+    try:
+        w = _sweep_number(args.w, "--w") if args.w is not None else None
+        l = _sweep_number(args.l, "--l") if args.l is not None else None  # noqa: E741
+        geometry = Level1Geometry(**{key: value for key, value in (("w", w), ("l", l)) if value is not None})
+        floor = _sweep_number(args.floor, "--floor")
+        if floor is not None and floor < 0.0:
+            raise ValueError("--floor must not be negative")
+        timeout = _positive_seconds(args.sim_timeout)
+        for target, option in ((args.out, "--out"), (args.plot, "--plot")):
+            if target is not None:
+                _check_output_path(target, inputs, option)
+        if args.plot is not None:
+            from .report.plot import plot_format
+
+            plot_format(args.plot)
+        if args.out is not None and args.plot is not None and os.path.realpath(args.out) == os.path.realpath(args.plot):
+            raise ValueError("--out and --plot name the same file")
+    except (ValueError, argparse.ArgumentTypeError) as exc:
+        return refuse(str(exc))
+
+    try:
+        if args.point:
+            from .fit.run import fit_datasheet
+
+            if len(args.point) != 2:
+                return refuse(f"datasheet mode takes --point VGS,ID exactly twice, not {len(args.point)} times")
+            if args.plot is not None:
+                return refuse("--plot needs measurements or a card: two datasheet points make no curves to show")
+            try:
+                points = tuple(_number_pair(p, "--point", "VGS,ID") for p in args.point)
+                vds = _sweep_number(args.vds, "--vds")
+                pair = (points[0], points[1])
+                outcome = fit_datasheet(pair, geometry, args.name or "fitted", args.type or "nmos", vds)
+            except ValueError as exc:
+                return refuse(f"--point: {exc}" if not str(exc).startswith("--") else str(exc))
+        elif args.card is not None:
+            from .fit.run import fit_card
+
+            if not args.model:
+                return refuse("--card needs --model NAME: the card in the file to fit")
+            try:
+                vds_range = _number_pair(args.vds_range, "--vds-range", "VMIN,VMAX")
+                around = _number_pair(args.around, "--around", "VGS,VDS") if args.around else None
+            except ValueError as exc:
+                return refuse(str(exc))
+            if max(abs(v) for v in vds_range) <= 0.0:
+                return refuse(f"--vds-range {args.vds_range} spans nothing")
+            try:
+                circuit = read_netlist(args.card)
+            except NetlistError as exc:
+                print(exc.render(), file=sys.stderr)
+                return EXIT_INPUT
+            card = next((m for key, m in circuit.models.items() if key.lower() == args.model.lower()), None)
+            if card is None:
+                known = ", ".join(sorted(circuit.models)) or "none; the first line of a SPICE file is its title"
+                return refuse(f"{args.card}: no model `{args.model}` (models in the file: {known})")
+            if card.type.lower() not in ("nmos", "pmos"):
+                return refuse(f"{args.card}:{card.origin.line}: model `{card.name}` is a {card.type}, not a MOSFET")
+            if args.type and args.type != card.type.lower():
+                return refuse(f"--type {args.type} but model `{card.name}` is {card.type.lower()}")
+            if session is None:
+                return refuse(f"--card needs ngspice to simulate the card: {hint}")
+            try:
+                outcome = fit_card(session, card, args.card, geometry, args.name or f"{card.name}_l1", vds_range,
+                                   around, timeout)  # fmt: skip
+            except SimulatorError as exc:
+                place = f"{args.card}:{card.origin.line}:1"
+                return refuse(f"{place}: ngspice could not simulate model `{card.name}`: {exc}")
+        else:
+            from .fit.run import fit_measurements
+
+            try:
+                data = read_bias_csv(args.file, args.type or "nmos")
+            except NetlistError as exc:
+                print(exc.render(), file=sys.stderr)
+                return EXIT_INPUT
+            if session is None:
+                print(f"biasbridge: {hint} (the fitted card is not simulated back)", file=sys.stderr)
+            try:
+                outcome = fit_measurements(data, geometry, args.name or "fitted", floor, session, timeout)
+            except FitError as exc:
+                return refuse(f"{args.file}: {exc}")
+    except FitError as exc:
+        return refuse(str(exc))
+
+    from .report.files import write_text_atomically
+    from .report.fit_view import fit_json, fit_renderable, fit_text
+
+    try:
+        if args.out is not None:
+            write_text_atomically(args.out, outcome.card_text)
+        if args.plot is not None:
+            from .report.fit_plot import write_fit_plot
+
+            write_fit_plot(outcome, args.plot)
+    except OSError as exc:
+        return refuse(f"cannot write {exc.filename or 'the output'}: {exc.strerror or exc}")
+    if args.json:
+        sys.stdout.write(json.dumps(fit_json(outcome), allow_nan=False) + "\n")
+    elif sys.stdout.isatty():
+        _console().print(fit_renderable(outcome))
+    else:
+        sys.stdout.write(fit_text(outcome))
+    for warning in outcome.warnings if args.json else ():
+        print(f"biasbridge: warning: {warning}", file=sys.stderr)
+    return EXIT_OK
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="biasbridge",
@@ -486,6 +640,26 @@ def build_parser() -> argparse.ArgumentParser:
     lint.add_argument("--sim-timeout", type=_positive_seconds, default=10.0, metavar="SECONDS",
                       help="give up on ngspice's operating point of one netlist after this long (default 10)")
     lint.set_defaults(run=command_lint)
+    fit = verbs.add_parser("fit", help="a level-1 card from bench data, two datasheet points or another model card")
+    fit._negative_number_matcher = SWEEP_NEGATIVE_VALUE  # `--point -2,-10m` (PMOS signs) is a value
+    fit.add_argument("file", nargs="?", metavar="FILE.csv", help="measurements: columns vgs, vds, id (vbs optional)")
+    fit.add_argument("--type", choices=("nmos", "pmos"), help="device type of the data (default nmos)")
+    fit.add_argument("--w", metavar="W", help="channel width the data was taken at (default 100u, ngspice's DEFW)")
+    fit.add_argument("--l", metavar="L", help="channel length (default 100u, ngspice's DEFL)")
+    fit.add_argument("--name", metavar="NAME", help="the card's model name (default fitted, or MODEL_l1)")
+    fit.add_argument("--floor", metavar="A", help="leave out points below this current (default 1%% of the largest)")
+    fit.add_argument("--point", action="append", metavar="VGS,ID", help="datasheet mode: a saturation point (twice)")
+    fit.add_argument("--vds", metavar="V", help="datasheet mode: the VDS of the two points")
+    fit.add_argument("--card", metavar="FILE", help="card mode: a file holding the .model card to fit")
+    fit.add_argument("--model", metavar="NAME", help="card mode: the model's name in that file")
+    fit.add_argument("--vds-range", default="0,3.3", metavar="VMIN,VMAX",
+                     help="card mode: VDS range of the grid; VGS runs from 0 to VMAX (default 0,3.3)")
+    fit.add_argument("--around", metavar="VGS,VDS", help="card mode: weight the fit around this operating point")
+    fit.add_argument("--out", metavar="FILE", help="write the .model card (atomically)")
+    fit.add_argument("--plot", metavar="FILE.png|.svg", help="write data and fitted curves")
+    fit.add_argument("--json", action="store_true", help="print one JSON object")
+    fit.add_argument("--sim-timeout", default="30", metavar="SECONDS", help="give up on ngspice after this long")
+    fit.set_defaults(run=command_fit)
     demo = verbs.add_parser("demo", help="run the main job on a bundled example")
     demo.set_defaults(run=command_demo)
     return parser

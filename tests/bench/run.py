@@ -183,6 +183,9 @@ def main() -> int:
     from lint_bench import lint_goal  # tests/bench/lint_bench.py, beside this file
 
     results.append(lint_goal())
+    from fit_bench import fit_goals  # tests/bench/fit_bench.py, beside this file
+
+    results.extend(fit_goals())
     return 0 if all(results) else 1
 
 
