@@ -5,6 +5,7 @@ from __future__ import annotations
 
 from ..fit.least_squares import Level1Values
 from ..fit.run import FitOutcome
+from ..netlist.numbers import engineering
 
 PARAMETERS = (("vto", "VTO", "V"), ("kp", "KP", "A/V²"), ("lambda", "LAMBDA", "1/V"), ("gamma", "GAMMA", "√V"),
               ("phi", "PHI", "V"))  # fmt: skip
@@ -81,7 +82,7 @@ def fit_lines(outcome: FitOutcome) -> list[str]:
 def fit_text(outcome: FitOutcome) -> str:
     """The whole report as plain text (a pipe)."""
     head = [f"{outcome.source}: level-1 {outcome.mos_type} card `{outcome.name}` "
-            f"(W={outcome.geometry.w:g} m, L={outcome.geometry.l:g} m)"]
+            f"(W = {engineering(outcome.geometry.w, 'm')}, L = {engineering(outcome.geometry.l, 'm')})"]
     for key, label, unit in PARAMETERS:
         value = _signed(outcome, outcome.values, key)
         spread = _signed(outcome, outcome.uncertainty, key, True)
@@ -98,8 +99,8 @@ def fit_renderable(outcome: FitOutcome):
     from rich.table import Table
     from rich.text import Text
 
-    table = Table(title=f"{outcome.source}: level-1 {outcome.mos_type} card `{outcome.name}` "
-                        f"(W={outcome.geometry.w:g} m, L={outcome.geometry.l:g} m)")  # fmt: skip
+    size = f"W = {engineering(outcome.geometry.w, 'm')}, L = {engineering(outcome.geometry.l, 'm')}"
+    table = Table(title=f"{outcome.source}: level-1 {outcome.mos_type} card `{outcome.name}` ({size})")
     table.add_column("parameter")
     table.add_column("value", justify="right")
     table.add_column("± 1σ", justify="right")
