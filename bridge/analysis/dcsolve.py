@@ -49,28 +49,26 @@ from bridge.analysis.linear import (
     stamp_rows,
     stamped,
 )
+from bridge.devices.diode import PlacedDiode
 from bridge.devices.interface import DcDevice
-from bridge.devices.mos1.convergence import pnjlim as _pnjlim
 from bridge.devices.mos1.convergence import vcrit as _vcrit
 from bridge.devices.mos1.instance import (
     InstanceError,
     ModelChoice,
     ModelValueError,
-    Mos1Instance,
     NotLevel1,
     default_size,
     mosfet_instance,
 )
 from bridge.devices.mos1.load import (
     ArrayPoint,
-    Level1Geometry,
     Level1Point,
     evaluate_arrays,
-    junction_current,
     junction_current_arrays,
 )
 from bridge.devices.mos1.model import Level1Model
 from bridge.devices.mos1.params import CELSIUS_TO_KELVIN, CIRCUIT_TEMPERATURE_C, K_OVER_Q
+from bridge.devices.mos1.placed import PlacedMosfet
 from bridge.netlist.circuit import GROUND, Circuit, Element, ModelCard
 
 __all__ = [
@@ -109,7 +107,6 @@ GMIN_STEPPING_START = 1e-2  # S from every node to ground at the first gmin step
 GMIN_FACTOR = 10.0  # ngspice's gminfactor
 SOURCE_STEP_START = 1e-3  # first source-stepping raise, as ngspice's gillespie_src
 ZERO_RESISTANCE = 1e-3  # Ω: what ngspice's resistor makes of R = 0
-MAX_EXP_ARG = 709.0  # ngspice's clamp on junction exponents (exp overflows past it)
 CIRCUIT_TEMPERATURE_K = 300.15
 THERMAL_VOLTAGE = K_OVER_Q * CIRCUIT_TEMPERATURE_K  # kT/q at 27 °C, as ngspice computes it
 _EPS = float(np.finfo(float).eps)  # machine epsilon, 2.2e-16
@@ -242,72 +239,9 @@ def level1_model(card: ModelCard) -> Level1Model:
 # --- the compiled network -----------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class _Mosfet:
-    """A MOSFET instance (``Mos1Instance``) placed in the network: its terminals' unknowns."""
-
-    name: str
-    drain: int
-    gate: int
-    source: int
-    bulk: int
-    model: Level1Model
-    geometry: Level1Geometry
-    drain_saturation_current: float
-    source_saturation_current: float
-    drain_vcrit: float
-    source_vcrit: float
-    thermal_voltage: float  # kT/q at the device temperature, for its bulk junctions
-    device: Mos1Instance
-    # The last (voltages, Level1Point) evaluated: a converged point is asked for again by the
-    # convergence test, the settling, the report and the next sweep point's first iteration.
-    last_point: list = field(default_factory=list, compare=False, repr=False)
-
-    def point(self, vd: float, vg: float, vs: float, vb: float) -> Level1Point:
-        """``evaluate`` at absolute terminal voltages, the last answer reused for the same ones."""
-        last = self.last_point
-        if last and last[0] == (vd, vg, vs, vb):
-            return last[1]
-        point = self.device.evaluate(vd, vg, vs, vb)
-        last[:] = ((vd, vg, vs, vb), point)
-        return point
-
-    def junction_start(self) -> list[float]:
-        """ngspice's MODEINITJCT guess: vgs = type·VTO, vds = 0, vbs = −1 (and von = vgs)."""
-        return self.device.junction_start()
-
-    def convergence_pairs(self, entry: tuple, x: Sequence[float], gmin: float) -> tuple[tuple[float, float], ...]:
-        """MOS1convTest: the channel current and both bulk junction currents, linearised (`entry`,
-        recorded by Newton's load) and carried to `x`, beside their values at `x`."""
-        point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs = entry
-        xd, xg, xs, xb = x[self.drain], x[self.gate], x[self.source], x[self.bulk]
-        gd, gg, gs, gb = point.conductances
-        polarity = self.model.polarity
-        new_vbd, new_vbs = polarity * (xb - xd), polarity * (xb - xs)
-        return (
-            (point.drain_current + gd * (xd - vd) + gg * (xg - vg) + gs * (xs - vs) + gb * (xb - vb),
-             self.point(xd, xg, xs, xb).drain_current),
-            (cbd + gbd * (new_vbd - vbd),
-             _mos_junction(new_vbd, self.drain_saturation_current, gmin, self.thermal_voltage)[0]),
-            (cbs + gbs * (new_vbs - vbs),
-             _mos_junction(new_vbs, self.source_saturation_current, gmin, self.thermal_voltage)[0]),
-        )  # fmt: skip
-
-
-@dataclass(frozen=True)
-class _Diode:
-    name: str
-    anode: int
-    cathode: int
-    saturation_current: float
-    emission_voltage: float  # N·Vt
-    vcrit: float
-
-    def convergence_pairs(self, entry: tuple, x: Sequence[float], gmin: float) -> tuple[tuple[float, float], ...]:
-        """DIOconvTest: the linearised current (`entry`) carried to `x`, beside the current there."""
-        current, conductance, vd = entry
-        new_vd = x[self.anode] - x[self.cathode]
-        return ((current + conductance * (new_vd - vd), _diode_current(new_vd, self, gmin)[0]),)
+# The nonlinear devices as the network places them (``bridge.devices.interface.DcDevice``).
+_Mosfet = PlacedMosfet
+_Diode = PlacedDiode
 
 
 @dataclass(frozen=True)
@@ -329,6 +263,11 @@ class _Network:
     @property
     def size(self) -> int:
         return 1 + len(self.nodes) + len(self.branch_names)
+
+    @cached_property
+    def devices(self) -> tuple[DcDevice, ...]:
+        """Every nonlinear device, in the order Newton loads them: the MOSFETs, then the diodes."""
+        return (*self.mosfets, *self.diodes)
 
     @cached_property
     def newton_floors(self) -> tuple[tuple[float, ...], tuple[float, ...]]:
@@ -362,14 +301,15 @@ class _Network:
 
 @dataclass
 class _State:
-    """Where Newton stands: the solution vector and each device's last (limited) voltages."""
+    """Where Newton stands: the solution vector and each device's state (its last limited
+    voltages: vgs, vds, vbs, vbd and von of a MOSFET in device polarity, vd of a diode), in the
+    order of ``_Network.devices``."""
 
     x: np.ndarray
-    mos: list[list[float]]  # per MOSFET, device polarity: vgs, vds, vbs, vbd, von
-    diode: list[float]  # per diode: vd
+    devices: list[list[float]]
 
     def copy(self) -> _State:
-        return _State(self.x.copy(), [row[:] for row in self.mos], self.diode[:])
+        return _State(self.x.copy(), [row[:] for row in self.devices])
 
 
 def _number(value: object, what: str, element: Element) -> float:
@@ -511,7 +451,7 @@ def _resistance(element: Element) -> float:
     return resistance / _number(element.params.get("m", 1.0), "M", element)
 
 
-def _diode(element: Element, at: list[int], circuit: Circuit, caveats: list[str]) -> _Diode:
+def _diode(element: Element, at: list[int], circuit: Circuit, caveats: list[str]) -> PlacedDiode:
     card = circuit.model(element.model or "")
     if card is None or card.type.lower() != "d":
         raise InvalidElement(element.name, f"{element.name}: no diode model `{element.model}`")
@@ -535,7 +475,7 @@ def _diode(element: Element, at: list[int], circuit: Circuit, caveats: list[str]
         raise InvalidElement(element.name, f"model {card.name}: emission coefficient N must be positive")
     if "off" in element.flags:
         caveats.append(f"{element.name}: OFF ignored (it only picks the starting point)")
-    return _Diode(
+    return PlacedDiode(
         element.name, at[0], at[1], saturation_current, emission_voltage,
         _vcrit(emission_voltage, saturation_current),
     )  # fmt: skip
@@ -550,7 +490,7 @@ def _mosfet(
     caveats: list[str],
     default_w: float,
     default_l: float,
-) -> _Mosfet:
+) -> PlacedMosfet:
     # One model per card and device temperature (instances with TEMP/DTEMP may differ).
     known = set(models)
     try:
@@ -574,21 +514,7 @@ def _mosfet(
             caveats.append(f"model {card.name}: parameters not known to level 1 ignored: {names}")
     if "off" in element.flags:
         caveats.append(f"{element.name}: OFF ignored (it only picks the starting point)")
-    return _Mosfet(
-        name=element.name,
-        drain=at[0],
-        gate=at[1],
-        source=at[2],
-        bulk=at[3],
-        model=model,
-        geometry=device.geometry,
-        drain_saturation_current=device.drain_saturation_current,
-        source_saturation_current=device.source_saturation_current,
-        drain_vcrit=device.drain_vcrit,
-        source_vcrit=device.source_vcrit,
-        thermal_voltage=device.thermal_voltage,
-        device=device,
-    )
+    return PlacedMosfet(element.name, at[0], at[1], at[2], at[3], device)
 
 
 def _diode_at_temperature(params: Mapping[str, float], celsius: float, nominal_celsius: float) -> tuple[float, float]:
@@ -682,46 +608,6 @@ def _check_structure(circuit: Circuit, nodes: tuple[str, ...]) -> None:
             f"{'them' if len(floating) > 1 else 'it'}), so the operating point is undefined",
             nodes=floating,
         )
-
-
-# --- device equations the solver adds around level1 ----------------------------------------
-
-
-def _mos_junction(
-    voltage: float, saturation_current: float, gmin: float, thermal: float = THERMAL_VOLTAGE
-) -> tuple[float, float]:
-    """mos1load.c's bulk junction (``devices.mos1.load.junction_current``)."""
-    return junction_current(voltage, saturation_current, gmin, thermal)
-
-
-def _diode_current(voltage: float, diode: _Diode, gmin: float) -> tuple[float, float]:
-    """dioload.c without breakdown: Shockley forward, a cubic approach to −IS in reverse."""
-    vte, saturation_current = diode.emission_voltage, diode.saturation_current
-    if voltage >= -3.0 * vte:
-        growth = math.exp(min(MAX_EXP_ARG, voltage / vte))
-        current = saturation_current * (growth - 1.0)
-        conductance = saturation_current * growth / vte
-    else:
-        ratio = (3.0 * vte / (voltage * math.e)) ** 3
-        current = -saturation_current * (1.0 + ratio)
-        conductance = saturation_current * 3.0 * ratio / voltage
-    return current + gmin * voltage, conductance + gmin
-
-
-def _stamp_pair(matrix: list[list[float]], rhs: list[float], a: int, c: int, g: float, offset: float) -> None:
-    """A linearised two-terminal current leaving `a` for `c`: g·(va − vc) + offset.
-
-    `a` and `c` are positions in the reduced system; −1 is ground (nothing to stamp).
-    """
-    if a >= 0:
-        matrix[a][a] += g
-        rhs[a] -= offset
-        if c >= 0:
-            matrix[a][c] -= g
-            matrix[c][a] -= g
-    if c >= 0:
-        matrix[c][c] += g
-        rhs[c] += offset
 
 
 # --- the linear part folded onto the device terminals -------------------------------------
@@ -914,31 +800,15 @@ class _Attempt:
     singular: bool = False
 
 
-def _local_voltages(mos: _Mosfet, x: Sequence[float]) -> tuple[float, float, float]:
-    polarity = mos.model.polarity
-    vs = x[mos.source]
-    return polarity * (x[mos.gate] - vs), polarity * (x[mos.drain] - vs), polarity * (x[mos.bulk] - vs)
-
-
 def _settle(net: _Network, x: np.ndarray) -> _State:
     """The device state of a solution vector, so that Newton can continue from it."""
     values = x.tolist()
-    mos_state = []
-    for mos in net.mosfets:
-        vgs, vds, vbs = _local_voltages(mos, values)
-        point = mos.point(values[mos.drain], values[mos.gate], values[mos.source], values[mos.bulk])
-        mos_state.append([vgs, vds, vbs, vbs - vds, point.vth])
-    diode_state = [values[d.anode] - values[d.cathode] for d in net.diodes]
-    return _State(x.copy(), mos_state, diode_state)
+    return _State(x.copy(), [device.settle(values) for device in net.devices])
 
 
 def _junction_start(net: _Network, x: np.ndarray | None = None) -> _State:
     """ngspice's MODEINITJCT: devices start at fixed local voltages, not the node guess."""
-    return _State(
-        np.zeros(net.size) if x is None else x.copy(),
-        [mos.junction_start() for mos in net.mosfets],
-        [d.vcrit if math.isfinite(d.vcrit) else 0.6 for d in net.diodes],
-    )
+    return _State(np.zeros(net.size) if x is None else x.copy(), [device.start() for device in net.devices])
 
 
 def _newton(
@@ -968,13 +838,12 @@ def _newton(
     loose_floor, tight_floor = net.newton_floors
     gmin = net.gmin
     x = state.x.tolist()
-    # Per MOSFET, what no iteration changes: its state row (updated in place), polarity, and
-    # the places of its drain, gate, source and bulk in the reduced system.
-    mosfets = [
-        (mos, device_state, mos.model.polarity,
-         position[mos.drain], position[mos.gate], position[mos.source], position[mos.bulk])
-        for mos, device_state in zip(net.mosfets, state.mos, strict=True)
-    ]  # fmt: skip
+    # Per device, what no iteration changes: its state row (updated in place by its load) and
+    # the places of its terminals in the reduced system.
+    devices = [
+        (device, device_state, device.places(position))
+        for device, device_state in zip(net.devices, state.devices, strict=True)
+    ]
     loose_count = 0
     for iteration in range(1, max_iterations + 1):
         matrix = copy_rows(reduction.matrix)
@@ -984,55 +853,12 @@ def _newton(
         # a cut-off device whose gate is driven far negative: its limited vgs lags for many
         # iterations while its current (zero) is already right.
         clipped = False
+        first = iteration == 1
         linearised: list[tuple] = []
-        for mos, device_state, polarity, d, gt, s, b in mosfets:
-            vs = x[mos.source]
-            if iteration == 1:
-                vgs, vds, vbs, vbd = device_state[:4]
-            else:
-                vgs, vds, vbs, vbd, junction_clipped = mos.device.limit(
-                    device_state, polarity * (x[mos.gate] - vs), polarity * (x[mos.drain] - vs),
-                    polarity * (x[mos.bulk] - vs),
-                )  # fmt: skip
-                clipped = clipped or junction_clipped
-            vd, vg, vb = vs + polarity * vds, vs + polarity * vgs, vs + polarity * vbs
-            point = mos.point(vd, vg, vs, vb)
-            device_state[:] = [vgs, vds, vbs, vbd, point.vth]
-            g = point.conductances
-            # The linearised drain current is point.drain_current + Σ g·(v − v_here): its constant part.
-            offset = point.drain_current - (
-                g.wrt_drain * vd + g.wrt_gate * vg + g.wrt_source * vs + g.wrt_bulk * vb
-            )
-            gd, gg, gs, gb = g
-            for row, sign in ((d, 1.0), (s, -1.0)):
-                if row >= 0:  # the drain current enters the drain row and leaves the source row
-                    line = matrix[row]
-                    if d >= 0:
-                        line[d] += sign * gd
-                    if gt >= 0:
-                        line[gt] += sign * gg
-                    if s >= 0:
-                        line[s] += sign * gs
-                    if b >= 0:
-                        line[b] += sign * gb
-                    rhs[row] -= sign * offset
-            # Bulk junctions, in device polarity; the real current bulk → diffusion is polarity·c.
-            cbd, gbd = _mos_junction(vbd, mos.drain_saturation_current, gmin, mos.thermal_voltage)
-            _stamp_pair(matrix, rhs, b, d, gbd, polarity * (cbd - gbd * vbd))
-            cbs, gbs = _mos_junction(vbs, mos.source_saturation_current, gmin, mos.thermal_voltage)
-            _stamp_pair(matrix, rhs, b, s, gbs, polarity * (cbs - gbs * vbs))
-            linearised.append((mos, (point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs)))
-        for k, diode in enumerate(net.diodes):
-            vd = state.diode[k]
-            if iteration > 1:
-                vd, junction_clipped = _pnjlim(x[diode.anode] - x[diode.cathode], vd,
-                                               diode.emission_voltage, diode.vcrit)  # fmt: skip
-                clipped = clipped or junction_clipped
-            state.diode[k] = vd
-            current, conductance = _diode_current(vd, diode, gmin)
-            _stamp_pair(matrix, rhs, position[diode.anode], position[diode.cathode],
-                        conductance, current - conductance * vd)  # fmt: skip
-            linearised.append((diode, (current, conductance, vd)))
+        for device, device_state, places in devices:
+            entry, junction_clipped = device.load(device_state, places, x, first, gmin, matrix, rhs)
+            clipped = clipped or junction_clipped
+            linearised.append((device, entry))
         solution = solve_dense(matrix, rhs)
         if solution is None:
             return _Attempt(None, iteration, singular=True)
@@ -1215,10 +1041,10 @@ def _operating_point(net: _Network, solved: _Solved, circuit_caveats: Sequence[s
         polarity = mos.model.polarity
         vbd, vbs = polarity * (vb - vd), polarity * (vb - vs)
         junctions[mos.name] = BulkJunctions(
-            bulk_drain=_mos_junction(vbd, mos.drain_saturation_current, net.gmin, mos.thermal_voltage)[0],
-            bulk_source=_mos_junction(vbs, mos.source_saturation_current, net.gmin, mos.thermal_voltage)[0],
+            bulk_drain=mos.device.junction(vbd, True, net.gmin)[0],
+            bulk_source=mos.device.junction(vbs, False, net.gmin)[0],
         )
-    diode_currents = {d.name: _diode_current(x[d.anode] - x[d.cathode], d, net.gmin)[0] for d in net.diodes}
+    diode_currents = {d.name: d.current(x[d.anode] - x[d.cathode], net.gmin)[0] for d in net.diodes}
     caveats = tuple(circuit_caveats)
     if not solved.tight:
         caveats += (
