@@ -33,7 +33,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cached_property
 from typing import NamedTuple
 
@@ -56,6 +56,7 @@ from bridge.devices.mos1.instance import (
     InstanceError,
     ModelChoice,
     ModelValueError,
+    Mos1Instance,
     NotLevel1,
     default_size,
     mosfet_instance,
@@ -74,6 +75,7 @@ from bridge.netlist.circuit import GROUND, Circuit, Element, ModelCard
 __all__ = [
     "BulkJunctions",
     "DcSolveError",
+    "HandNetwork",
     "InvalidElement",
     "METHODS",
     "NoConvergence",
@@ -259,6 +261,8 @@ class _Network:
     gmin: float
     caveats: tuple[str, ...]
     nodeset: dict[str, float]
+    # Nodes shorted into another (the hand's merged nodes: inductors, 0 Ω resistors) → that node.
+    merged: dict[str, str] = field(default_factory=dict)
 
     @property
     def size(self) -> int:
@@ -281,6 +285,16 @@ class _Network:
     def plain_reduction(self) -> _Reduction:
         """The reduced system without stepped gmin: built once, used by every plain Newton."""
         return _reduce(self, 0.0)
+
+    def with_devices(self, devices: Mapping[str, Mos1Instance]) -> _Network:
+        """The same network with the MOSFETs named in `devices` given those instances (another
+        model of the same elements); the linear part and its reduction are shared."""
+        network = replace(self, mosfets=tuple(
+            mos.with_device(devices[mos.name]) if mos.name in devices else mos for mos in self.mosfets
+        ))  # fmt: skip
+        if "plain_reduction" in vars(self):  # a cached_property: its value lives in the instance dict
+            vars(network)["plain_reduction"] = self.plain_reduction
+        return network
 
     def reduction(self, diagonal_gmin: float) -> _Reduction:
         """The system Newton solves with `diagonal_gmin` from every node to ground (each gmin
@@ -318,8 +332,17 @@ def _number(value: object, what: str, element: Element) -> float:
     return float(value)
 
 
-def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
-    """Compile the circuit once: linear stamps, source columns and the nonlinear devices."""
+def _build_network(
+    circuit: Circuit,
+    model_choice: ModelChoice,
+    hand: tuple[Mapping[str, Mos1Instance], Mapping[str, str]] | None = None,
+) -> _Network:
+    """Compile the circuit once: linear stamps, source columns and the nonlinear devices.
+
+    `hand` is (instances, merged) for the hand model (``HandNetwork``): each MOSFET placed as the
+    instance given for it, and the nodes shorted by inductors and 0 Ω resistors merged (every
+    node → the node naming its class) instead of 1 mΩ and 0 V branches.
+    """
     caveats: list[str] = []
     options = circuit.options()
     gmin = float(options["gmin"]) if isinstance(options.get("gmin"), (int, float)) else GMIN
@@ -349,7 +372,16 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
 
     nodes = circuit.nodes()
     index = {GROUND: 0, **{node: k + 1 for k, node in enumerate(nodes)}}
-    branch_elements = [e for e in circuit.elements if e.kind in _BRANCH_KINDS]
+    branch_kinds = _BRANCH_KINDS
+    merged: dict[str, str] = {}
+    if hand is not None:
+        instances, merged = hand[0], {node: root for node, root in hand[1].items() if node != root}
+        nodes = tuple(node for node in dict.fromkeys(hand[1].get(n, n) for n in nodes) if node != GROUND)
+        index = {GROUND: 0, **{node: k + 1 for k, node in enumerate(nodes)}}
+        index.update({node: index[root] for node, root in merged.items()})
+        branch_kinds = tuple(kind for kind in _BRANCH_KINDS if kind != "inductor")  # shorts, merged
+        nodeset = {}
+    branch_elements = [e for e in circuit.elements if e.kind in branch_kinds]
     branch_index = {e.name.lower(): 1 + len(nodes) + k for k, e in enumerate(branch_elements)}
     size = 1 + len(nodes) + len(branch_elements)
     # Stamped in plain floats (numpy's per-element indexing is slow), the same sums in the same order.
@@ -373,6 +405,8 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
     for element in circuit.elements:
         at = [index[node] for node in element.nodes]
         kind = element.kind
+        if hand is not None and kind in ("resistor", "inductor") and at[0] == at[1]:
+            continue  # a short the hand model merged (or a resistor across one): nothing to stamp
         if kind == "resistor":
             resistance = _resistance(element)
             if resistance == 0.0:
@@ -385,7 +419,7 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
             linear[c][c] += conductance
             linear[a][c] -= conductance
             linear[c][a] -= conductance
-        elif kind in _BRANCH_KINDS:
+        elif kind in branch_kinds:
             k = branch_index[element.name.lower()]
             a, c = at[0], at[1]
             # KCL: the branch current leaves n+ and enters n−; the branch row states the voltage.
@@ -420,11 +454,13 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
             linear[at[1]][k] -= gain
         elif kind == "diode":
             diodes.append(_diode(element, at, circuit, caveats))
+        elif kind == "mosfet" and hand is not None:
+            mosfets.append(PlacedMosfet(element.name, at[0], at[1], at[2], at[3], instances[element.name]))
         elif kind == "mosfet":
             mosfets.append(_mosfet(element, at, circuit, models, model_choice, caveats, default_w, default_l))
         # capacitors: open at DC, nothing to stamp
 
-    _check_structure(circuit, nodes)
+    _check_structure(circuit, circuit.nodes(), channels=hand is not None)
     return _Network(
         nodes=nodes,
         branch_names=tuple(e.name for e in branch_elements),
@@ -437,6 +473,7 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
         gmin=gmin,
         caveats=tuple(dict.fromkeys(caveats)),
         nodeset={node: value for node, value in nodeset.items() if node in index},
+        merged=merged,
     )
 
 
@@ -563,18 +600,20 @@ def _temperature_notes(circuit: Circuit) -> list[str]:
     return notes
 
 
-def _check_structure(circuit: Circuit, nodes: tuple[str, ...]) -> None:
+def _check_structure(circuit: Circuit, nodes: tuple[str, ...], *, channels: bool = False) -> None:
     """Refuse a circuit whose matrix is singular by construction, naming the cause.
 
     A node with no DC path to ground (reached only through capacitors, current sources or
     MOSFET gates) has no defined voltage; a loop of voltage sources and shorts has no
-    defined current. ngspice meets both as a singular matrix.
+    defined current. ngspice meets both as a singular matrix. With `channels` (the hand
+    device: no bulk junctions) a MOSFET joins its drain and source only, and inductors are
+    shorts whose nodes are merged, not branches.
     """
     sets = NodeSets((GROUND, *nodes))
     root, join = sets.root, sets.join
 
     # Loops of fixed-voltage branches first: independent V sources and inductors.
-    fixed = [e for e in circuit.elements if e.kind in ("vsource", "inductor")]
+    fixed = [e for e in circuit.elements if e.kind == "vsource" or (e.kind == "inductor" and not channels)]
     for element in fixed:
         if not join(element.nodes[0], element.nodes[1]):
             group = root(element.nodes[0])
@@ -588,8 +627,10 @@ def _check_structure(circuit: Circuit, nodes: tuple[str, ...]) -> None:
     loose_ends: set[str] = set()  # outputs of G/F sources: they may pin a node in odd circuits
     for element in circuit.elements:
         kind, ends = element.kind, element.nodes
-        if kind in ("resistor", "diode", "vcvs", "ccvs"):
+        if kind in ("resistor", "diode", "vcvs", "ccvs") or (kind == "inductor" and channels):
             join(ends[0], ends[1])
+        elif kind == "mosfet" and channels:
+            join(ends[0], ends[2])  # the channel: the hand device has no junctions to the bulk
         elif kind == "mosfet":
             # The bulk junctions (with GMIN) tie drain and source to the bulk.
             join(ends[0], ends[3])
@@ -1032,18 +1073,14 @@ def _operating_point(net: _Network, solved: _Solved, circuit_caveats: Sequence[s
     x = solved.state.x.tolist()
     node_voltages = {GROUND: 0.0}
     node_voltages.update(zip(net.nodes, x[1:]))
+    node_voltages.update({node: node_voltages[root] for node, root in net.merged.items()})
     branch_currents = dict(zip(net.branch_names, x[1 + len(net.nodes) :]))
     devices: dict[str, Level1Point] = {}
     junctions: dict[str, BulkJunctions] = {}
     for mos in net.mosfets:
         vd, vg, vs, vb = x[mos.drain], x[mos.gate], x[mos.source], x[mos.bulk]
         devices[mos.name] = mos.point(vd, vg, vs, vb)
-        polarity = mos.model.polarity
-        vbd, vbs = polarity * (vb - vd), polarity * (vb - vs)
-        junctions[mos.name] = BulkJunctions(
-            bulk_drain=mos.device.junction(vbd, True, net.gmin)[0],
-            bulk_source=mos.device.junction(vbs, False, net.gmin)[0],
-        )
+        junctions[mos.name] = BulkJunctions(*mos.junction_currents(x, net.gmin))
     diode_currents = {d.name: d.current(x[d.anode] - x[d.cathode], net.gmin)[0] for d in net.diodes}
     caveats = tuple(circuit_caveats)
     if not solved.tight:
@@ -1068,7 +1105,7 @@ def _start(net: _Network, initial: Mapping[str, float] | None) -> tuple[_State, 
     guess = dict(net.nodeset) if initial is None else {}
     for node, value in (initial or {}).items():
         key = node.lower()
-        key = GROUND if key == "gnd" else key
+        key = GROUND if key == "gnd" else net.merged.get(key, key)
         if key != GROUND and key not in net.nodes:
             raise ValueError(f"initial guess names node `{node}`, which is not in the circuit")
         guess[key] = float(value)
@@ -1145,6 +1182,37 @@ def solve_dc_sweep(
         previous = _settle(net, solved.state.x)
         points.append(_operating_point(net, solved, net.caveats))
     return points
+
+
+class HandNetwork:
+    """The circuit compiled once for the hand device, solved by this module's Newton (limiting,
+    gmin then source stepping, the same convergence tests): the hand analysis's numerical path.
+
+    `devices` gives each MOSFET's instance, the hand device (``Mos1Instance.without_junctions``:
+    the hand model, no bulk junctions and so no GMIN); `merged` maps every node to the node its
+    shorts (inductors, 0 Ω resistors) merge it into, as the hand analysis merges them. The answer
+    has no gmin: a stepped gmin is only a way there. ``solve`` takes other instances of the same
+    elements (another model: an effect switched on) on the same compiled linear part.
+    Construction raises InvalidElement, UnsupportedElement or SingularCircuit.
+    """
+
+    def __init__(self, circuit: Circuit, devices: Mapping[str, Mos1Instance], merged: Mapping[str, str]) -> None:
+        self._net = _build_network(circuit, level1_model, (devices, merged))
+
+    @property
+    def nodes(self) -> tuple[str, ...]:
+        """The nodes solved for (merged nodes by the name of their class), ground left out."""
+        return self._net.nodes
+
+    def solve(
+        self, devices: Mapping[str, Mos1Instance] | None = None, start: Mapping[str, float] | None = None
+    ) -> OperatingPoint:
+        """The operating point with `devices` in place of the instances given at construction
+        (by element name), Newton started from `start`'s node voltages (of ``nodes``) where
+        given, else from ngspice's junction guess. Raises NoConvergence."""
+        net = self._net if devices is None else self._net.with_devices(devices)
+        state, fresh = _start(net, start)
+        return _operating_point(net, _solve(net, net.source_defaults, state, fresh, METHODS), ())
 
 
 # --- many operating points at once ----------------------------------------------------------

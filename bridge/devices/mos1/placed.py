@@ -134,6 +134,19 @@ class PlacedMosfet:
         stamp_pair(matrix, rhs, b, s, gbs, polarity * (cbs - gbs * vbs))
         return (point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs), clipped
 
+    def junction_currents(self, x: Sequence[float], gmin: float) -> tuple[float, float]:
+        """Bulk–drain and bulk–source junction currents at the solution `x` (device polarity,
+        GMIN included, as ngspice's cbd and cbs); 0 for a device without junctions."""
+        device = self.device
+        if not device.junctions:
+            return 0.0, 0.0
+        polarity = device.model.polarity
+        vb = x[self.bulk]
+        return (
+            device.junction(polarity * (vb - x[self.drain]), True, gmin)[0],
+            device.junction(polarity * (vb - x[self.source]), False, gmin)[0],
+        )
+
     def convergence_pairs(self, entry: tuple, x: Sequence[float], gmin: float) -> tuple[tuple[float, float], ...]:
         """MOS1convTest: the channel current and both bulk junction currents (where the instance
         has them), linearised (`entry`, recorded by ``load``) and carried to `x`, beside their
