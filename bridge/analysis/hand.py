@@ -46,7 +46,13 @@ from ..devices.level1 import (
     threshold,
 )
 from ..devices.mos1.instance import InstanceError, Mos1Instance, NotLevel1, default_size, mosfet_instance
-from ..devices.mos1.load import saturation_overdrive, square_law, triode_channel_bias
+from ..devices.mos1.load import (
+    saturation_overdrive,
+    saturation_overdrive_quadratic,
+    square_law,
+    triode_channel_bias,
+    triode_current_quadratic,
+)
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
 from ..vocabulary import EFFECTS as _EFFECT_ORDER
@@ -1146,7 +1152,7 @@ def _quadratic(a: float, b: float, c: float) -> tuple[float, ...]:
             disc = 0.0
         else:
             return ()
-    q = -0.5 * (b + math.copysign(math.sqrt(disc), b))
+    q = -(b + math.copysign(math.sqrt(disc), b)) / 2.0  # halving is exact: the same bits as ×0.5
     roots = [q / a] + ([c / q] if q != 0.0 else [q / a])
     return tuple(sorted(roots))
 
@@ -1220,7 +1226,7 @@ def _affine_numbers(dc: _DcCircuit, stage: _Stage, base: dict[str, float] | None
     if rg == 0.0:
         vov, other = u, 0.0
     else:
-        roots = _quadratic(0.5 * k * rg, 1.0, -u)
+        roots = _quadratic(*saturation_overdrive_quadratic(t.model, t.geometry, u, rg))
         vov, other = roots[1], roots[0]
     current = square_law(t.model, t.geometry, vov, vov, "saturation")[0]
     vds = vds0 - rd * current
@@ -1232,9 +1238,7 @@ def _affine_numbers(dc: _DcCircuit, stage: _Stage, base: dict[str, float] | None
 
     # Triode: ID = K·(VOV·VDS − VDS²/2) with both affine in ID → a·ID² + b·ID + c = 0.
     w = vds0
-    qa = k * (rg * rd - 0.5 * rd * rd)
-    qb = k * (w * rd - u * rd - rg * w) - 1.0
-    qc = k * (u * w - 0.5 * w * w)
+    qa, qb, qc = triode_current_quadratic(t.model, t.geometry, u, rg, w, rd)
     roots = _quadratic(qa, qb, qc)
 
     def fits(root: float) -> bool:
@@ -1308,7 +1312,7 @@ def _affine_working(dc: _DcCircuit, stage: _Stage, numbers: _AffineNumbers) -> l
             )
         )
     else:
-        a = 0.5 * k * rg
+        a = saturation_overdrive_quadratic(t.model, t.geometry, u, rg)[0]
         steps.append(
             Step(
                 f"Quadratic in VOV from ID = (K/2)·VOV² and VOV = {_q(u, 'V')} − ID·{symbol}",
