@@ -263,6 +263,10 @@ class _Network:
     nodeset: dict[str, float]
     # Nodes shorted into another (the hand's merged nodes: inductors, 0 Ω resistors) → that node.
     merged: dict[str, str] = field(default_factory=dict)
+    # Whether Newton works on the reduced system (the Schur complement) or on the whole one: the
+    # hand's networks are solved whole, so that its node voltages keep the precision of one LU of
+    # the MNA system (a reduction can leave ~1e-13 relative in a node it recovers).
+    eliminate: bool = True
 
     @property
     def size(self) -> int:
@@ -284,7 +288,7 @@ class _Network:
     @cached_property
     def plain_reduction(self) -> _Reduction:
         """The reduced system without stepped gmin: built once, used by every plain Newton."""
-        return _reduce(self, 0.0)
+        return _reduce(self, 0.0, eliminate=self.eliminate)
 
     def with_devices(self, devices: Mapping[str, Mos1Instance]) -> _Network:
         """The same network with the MOSFETs named in `devices` given those instances (another
@@ -299,7 +303,7 @@ class _Network:
     def reduction(self, diagonal_gmin: float) -> _Reduction:
         """The system Newton solves with `diagonal_gmin` from every node to ground (each gmin
         step builds its own, once for all its iterations)."""
-        return self.plain_reduction if diagonal_gmin == 0.0 else _reduce(self, diagonal_gmin)
+        return self.plain_reduction if diagonal_gmin == 0.0 else _reduce(self, diagonal_gmin, eliminate=self.eliminate)
 
     def source_vector(self, overrides: Mapping[str, float] | None) -> np.ndarray:
         values = self.source_defaults.copy()
@@ -474,6 +478,7 @@ def _build_network(
         caveats=tuple(dict.fromkeys(caveats)),
         nodeset={node: value for node, value in nodeset.items() if node in index},
         merged=merged,
+        eliminate=hand is None,
     )
 
 
