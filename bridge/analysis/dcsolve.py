@@ -264,8 +264,8 @@ class _Network:
     # Nodes shorted into another (the hand's merged nodes: inductors, 0 Ω resistors) → that node.
     merged: dict[str, str] = field(default_factory=dict)
     # Whether Newton works on the reduced system (the Schur complement) or on the whole one: the
-    # hand's networks are solved whole, so that its node voltages keep the precision of one LU of
-    # the MNA system (a reduction can leave ~1e-13 relative in a node it recovers).
+    # hand's small networks are solved whole, so that its node voltages keep the precision of one
+    # LU of the MNA system (a reduction can leave ~1e-13 relative in a node it recovers).
     eliminate: bool = True
 
     @property
@@ -465,10 +465,11 @@ def _build_network(
         # capacitors: open at DC, nothing to stamp
 
     _check_structure(circuit, circuit.nodes(), channels=hand is not None)
+    linear_matrix = stamped(linear, size)
     return _Network(
         nodes=nodes,
         branch_names=tuple(e.name for e in branch_elements),
-        linear=stamped(linear, size),
+        linear=linear_matrix,
         source_columns=np.array(source_columns, dtype=float).reshape(size, len(sources)),
         source_names=tuple(e.name for e in sources),
         source_defaults=np.array([float(e.value or 0.0) for e in sources]),
@@ -478,7 +479,9 @@ def _build_network(
         caveats=tuple(dict.fromkeys(caveats)),
         nodeset={node: value for node, value in nodeset.items() if node in index},
         merged=merged,
-        eliminate=hand is None,
+        # The hand's networks whole, but for large ones (stamped sparse), where Newton on the whole
+        # system would copy and factor thousands of rows at every iteration.
+        eliminate=hand is None or not isinstance(linear_matrix, np.ndarray),
     )
 
 
@@ -1108,10 +1111,11 @@ def _operating_point(net: _Network, solved: _Solved, circuit_caveats: Sequence[s
 def _start(net: _Network, initial: Mapping[str, float] | None) -> tuple[_State, bool]:
     """The starting state: the caller's node guess, else `.nodeset`, else MODEINITJCT."""
     guess = dict(net.nodeset) if initial is None else {}
+    known = set(net.nodes) if initial else ()  # a set: a guess may name thousands of nodes
     for node, value in (initial or {}).items():
         key = node.lower()
         key = GROUND if key == "gnd" else net.merged.get(key, key)
-        if key != GROUND and key not in net.nodes:
+        if key != GROUND and key not in known:
             raise ValueError(f"initial guess names node `{node}`, which is not in the circuit")
         guess[key] = float(value)
     if not guess:

@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 
 from ..interface import stamp_pair
 from .instance import Mos1Instance
-from .load import Level1Geometry, Level1Point
+from .load import Level1Geometry, Level1Point, junction_current
 from .model import Level1Model
 
 
@@ -128,9 +128,12 @@ class PlacedMosfet:
         if not device.junctions:
             return (point, vd, vg, vs, vb), clipped
         # Bulk junctions, in device polarity; the real current bulk → diffusion is polarity·c.
-        cbd, gbd = device.junction(vbd, True, gmin)
+        # (``junction_current`` called directly, not through ``device.junction``: once per
+        # iteration per device, the extra call shows in a sweep.)
+        thermal = device.thermal_voltage
+        cbd, gbd = junction_current(vbd, device.drain_saturation_current, gmin, thermal)
         stamp_pair(matrix, rhs, b, d, gbd, polarity * (cbd - gbd * vbd))
-        cbs, gbs = device.junction(vbs, False, gmin)
+        cbs, gbs = junction_current(vbs, device.source_saturation_current, gmin, thermal)
         stamp_pair(matrix, rhs, b, s, gbs, polarity * (cbs - gbs * vbs))
         return (point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs), clipped
 
