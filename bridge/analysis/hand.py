@@ -209,7 +209,7 @@ class _DcCircuit:
     floating_sources: list[Element]  # voltage sources not referred to ground
     controlled: list[Element]
     notes: list[str] = field(default_factory=list)
-    # The numerical path's network (dcsolve.HandNetwork), once compiled (_hand_network). Its
+    # The numerical path's network (dcsolve.HandNetwork), once compiled (_solve_numerically). Its
     # linear part does not involve the transistors' models, and the copies HandModel.solve makes
     # with other transistor models share this list, so the attribution's re-solves compile it once.
     solver: list[HandNetwork] = field(default_factory=list, repr=False, compare=False)
