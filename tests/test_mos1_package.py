@@ -191,9 +191,11 @@ def test_the_triode_quadratic_gives_the_current_its_terminal_voltages_carry(u, r
     assert _close(square_law(model, geometry, vov, vds, "triode")[0], current, 1e-12)
 
 
-def test_no_module_outside_devices_writes_the_square_law() -> None:
-    # ½·K·VOV² (and the triode's VDS²/2) are the device's: the analyses ask devices/mos1/load.py.
-    # (The reports' midpoints, 0.5·(lo + hi), are no square law: they are not scanned.)
+def test_the_analyses_write_no_square_law_coefficient() -> None:
+    """No `0.5 *` in bridge/*.py or bridge/analysis/: the closed forms' quadratic coefficients
+    (β·Rg/2, the triode's VDS²/2) are the device's too, asked of devices/mos1/load.py. The
+    pattern test above missed the affine form's `0.5 * k * rg`. (The reports' midpoints,
+    0.5·(lo + hi), are no square law: they are not scanned.)"""
     import re
     from pathlib import Path
 
