@@ -162,3 +162,48 @@ def test_square_law_and_its_inverses_agree_with_the_device_evaluation() -> None:
     triode = evaluate(model, geometry, 0.2, 1.5, 0.0, 0.0)  # VOV = 1.0 V, VDS = 0.2 V
     assert square_law(model, geometry, triode.vov, triode.vds, "triode") == (triode.id, triode.gm, triode.gds)
     assert _close(triode_channel_bias(model, geometry, triode.vov - triode.vds, triode.id), 0.2, 1e-13)
+
+
+@pytest.mark.parametrize("u, rg", [(0.8, 0.0), (0.8, 2.2e3), (2.4, 47e3), (0.05, 1e6)])
+def test_the_saturation_quadratic_gives_the_overdrive_that_carries_its_own_current(u: float, rg: float) -> None:
+    from bridge.devices.mos1.load import saturation_overdrive_quadratic, square_law
+
+    model = Level1Model.from_card("nmos", {"vto": 0.6, "kp": 110e-6})
+    geometry = Level1Geometry(w=24e-6, l=2e-6)
+    a, b, c = saturation_overdrive_quadratic(model, geometry, u, rg)
+    vov = -c / b if a == 0.0 else (-b + math.sqrt(b * b - 4.0 * a * c)) / (2.0 * a)
+    current = square_law(model, geometry, vov, vov, "saturation")[0]
+    assert _close(vov, u - rg * current, 1e-12)  # the source resistance's loss, self-consistent
+
+
+@pytest.mark.parametrize("u, rg, w, rd", [(1.5, 1e3, 0.4, 4.7e3), (3.0, 0.0, 0.2, 10e3), (2.0, 500.0, 1.0, 0.0)])
+def test_the_triode_quadratic_gives_the_current_its_terminal_voltages_carry(u, rg, w, rd) -> None:
+    from bridge.devices.mos1.load import square_law, triode_current_quadratic
+
+    model = Level1Model.from_card("pmos", {"vto": -0.7, "kp": 40e-6})
+    geometry = Level1Geometry(w=50e-6, l=2e-6)
+    a, b, c = triode_current_quadratic(model, geometry, u, rg, w, rd)
+    roots = [(-b - math.sqrt(b * b - 4.0 * a * c)) / (2.0 * a), (-b + math.sqrt(b * b - 4.0 * a * c)) / (2.0 * a)] \
+        if a else [-c / b]
+    current = min(r for r in roots if r >= 0.0)
+    vov, vds = u - rg * current, w - rd * current
+    assert 0.0 < vds < vov  # triode
+    assert _close(square_law(model, geometry, vov, vds, "triode")[0], current, 1e-12)
+
+
+def test_the_analyses_write_no_square_law_coefficient() -> None:
+    """No `0.5 *` in bridge/*.py or bridge/analysis/: the closed forms' quadratic coefficients
+    (β·Rg/2, the triode's VDS²/2) are the device's too, asked of devices/mos1/load.py. The
+    pattern test above missed the affine form's `0.5 * k * rg`. (The reports' midpoints,
+    0.5·(lo + hi), are no square law: they are not scanned.)"""
+    import re
+    from pathlib import Path
+
+    bridge = Path(__file__).resolve().parents[1] / "bridge"
+    halves = re.compile(r"0\.5 ?\*")
+    offenders = [
+        f"{path.relative_to(bridge)}:{number}"
+        for path in sorted([*bridge.glob("*.py"), *(bridge / "analysis").glob("*.py")])
+        for number, line in enumerate(path.read_text().splitlines(), 1) if halves.search(line.split("#")[0])
+    ]
+    assert offenders == []

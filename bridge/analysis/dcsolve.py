@@ -33,7 +33,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cached_property
 from typing import NamedTuple
 
@@ -49,8 +49,8 @@ from bridge.analysis.linear import (
     stamp_rows,
     stamped,
 )
+from bridge.devices.diode import PlacedDiode
 from bridge.devices.interface import DcDevice
-from bridge.devices.mos1.convergence import pnjlim as _pnjlim
 from bridge.devices.mos1.convergence import vcrit as _vcrit
 from bridge.devices.mos1.instance import (
     InstanceError,
@@ -63,19 +63,19 @@ from bridge.devices.mos1.instance import (
 )
 from bridge.devices.mos1.load import (
     ArrayPoint,
-    Level1Geometry,
     Level1Point,
     evaluate_arrays,
-    junction_current,
     junction_current_arrays,
 )
 from bridge.devices.mos1.model import Level1Model
 from bridge.devices.mos1.params import CELSIUS_TO_KELVIN, CIRCUIT_TEMPERATURE_C, K_OVER_Q
+from bridge.devices.mos1.placed import PlacedMosfet
 from bridge.netlist.circuit import GROUND, Circuit, Element, ModelCard
 
 __all__ = [
     "BulkJunctions",
     "DcSolveError",
+    "HandNetwork",
     "InvalidElement",
     "METHODS",
     "NoConvergence",
@@ -109,7 +109,6 @@ GMIN_STEPPING_START = 1e-2  # S from every node to ground at the first gmin step
 GMIN_FACTOR = 10.0  # ngspice's gminfactor
 SOURCE_STEP_START = 1e-3  # first source-stepping raise, as ngspice's gillespie_src
 ZERO_RESISTANCE = 1e-3  # Ω: what ngspice's resistor makes of R = 0
-MAX_EXP_ARG = 709.0  # ngspice's clamp on junction exponents (exp overflows past it)
 CIRCUIT_TEMPERATURE_K = 300.15
 THERMAL_VOLTAGE = K_OVER_Q * CIRCUIT_TEMPERATURE_K  # kT/q at 27 °C, as ngspice computes it
 _EPS = float(np.finfo(float).eps)  # machine epsilon, 2.2e-16
@@ -242,72 +241,9 @@ def level1_model(card: ModelCard) -> Level1Model:
 # --- the compiled network -----------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class _Mosfet:
-    """A MOSFET instance (``Mos1Instance``) placed in the network: its terminals' unknowns."""
-
-    name: str
-    drain: int
-    gate: int
-    source: int
-    bulk: int
-    model: Level1Model
-    geometry: Level1Geometry
-    drain_saturation_current: float
-    source_saturation_current: float
-    drain_vcrit: float
-    source_vcrit: float
-    thermal_voltage: float  # kT/q at the device temperature, for its bulk junctions
-    device: Mos1Instance
-    # The last (voltages, Level1Point) evaluated: a converged point is asked for again by the
-    # convergence test, the settling, the report and the next sweep point's first iteration.
-    last_point: list = field(default_factory=list, compare=False, repr=False)
-
-    def point(self, vd: float, vg: float, vs: float, vb: float) -> Level1Point:
-        """``evaluate`` at absolute terminal voltages, the last answer reused for the same ones."""
-        last = self.last_point
-        if last and last[0] == (vd, vg, vs, vb):
-            return last[1]
-        point = self.device.evaluate(vd, vg, vs, vb)
-        last[:] = ((vd, vg, vs, vb), point)
-        return point
-
-    def junction_start(self) -> list[float]:
-        """ngspice's MODEINITJCT guess: vgs = type·VTO, vds = 0, vbs = −1 (and von = vgs)."""
-        return self.device.junction_start()
-
-    def convergence_pairs(self, entry: tuple, x: Sequence[float], gmin: float) -> tuple[tuple[float, float], ...]:
-        """MOS1convTest: the channel current and both bulk junction currents, linearised (`entry`,
-        recorded by Newton's load) and carried to `x`, beside their values at `x`."""
-        point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs = entry
-        xd, xg, xs, xb = x[self.drain], x[self.gate], x[self.source], x[self.bulk]
-        gd, gg, gs, gb = point.conductances
-        polarity = self.model.polarity
-        new_vbd, new_vbs = polarity * (xb - xd), polarity * (xb - xs)
-        return (
-            (point.drain_current + gd * (xd - vd) + gg * (xg - vg) + gs * (xs - vs) + gb * (xb - vb),
-             self.point(xd, xg, xs, xb).drain_current),
-            (cbd + gbd * (new_vbd - vbd),
-             _mos_junction(new_vbd, self.drain_saturation_current, gmin, self.thermal_voltage)[0]),
-            (cbs + gbs * (new_vbs - vbs),
-             _mos_junction(new_vbs, self.source_saturation_current, gmin, self.thermal_voltage)[0]),
-        )  # fmt: skip
-
-
-@dataclass(frozen=True)
-class _Diode:
-    name: str
-    anode: int
-    cathode: int
-    saturation_current: float
-    emission_voltage: float  # N·Vt
-    vcrit: float
-
-    def convergence_pairs(self, entry: tuple, x: Sequence[float], gmin: float) -> tuple[tuple[float, float], ...]:
-        """DIOconvTest: the linearised current (`entry`) carried to `x`, beside the current there."""
-        current, conductance, vd = entry
-        new_vd = x[self.anode] - x[self.cathode]
-        return ((current + conductance * (new_vd - vd), _diode_current(new_vd, self, gmin)[0]),)
+# The nonlinear devices as the network places them (``bridge.devices.interface.DcDevice``).
+_Mosfet = PlacedMosfet
+_Diode = PlacedDiode
 
 
 @dataclass(frozen=True)
@@ -325,10 +261,21 @@ class _Network:
     gmin: float
     caveats: tuple[str, ...]
     nodeset: dict[str, float]
+    # Nodes shorted into another (the hand's merged nodes: inductors, 0 Ω resistors) → that node.
+    merged: dict[str, str] = field(default_factory=dict)
+    # Whether Newton works on the reduced system (the Schur complement) or on the whole one: the
+    # hand's small networks are solved whole, so that its node voltages keep the precision of one
+    # LU of the MNA system (a reduction can leave ~1e-13 relative in a node it recovers).
+    eliminate: bool = True
 
     @property
     def size(self) -> int:
         return 1 + len(self.nodes) + len(self.branch_names)
+
+    @cached_property
+    def devices(self) -> tuple[DcDevice, ...]:
+        """Every nonlinear device, in the order Newton loads them: the MOSFETs, then the diodes."""
+        return (*self.mosfets, *self.diodes)
 
     @cached_property
     def newton_floors(self) -> tuple[tuple[float, ...], tuple[float, ...]]:
@@ -341,12 +288,22 @@ class _Network:
     @cached_property
     def plain_reduction(self) -> _Reduction:
         """The reduced system without stepped gmin: built once, used by every plain Newton."""
-        return _reduce(self, 0.0)
+        return _reduce(self, 0.0, eliminate=self.eliminate)
+
+    def with_devices(self, devices: Mapping[str, Mos1Instance]) -> _Network:
+        """The same network with the MOSFETs named in `devices` given those instances (another
+        model of the same elements); the linear part and its reduction are shared."""
+        network = replace(self, mosfets=tuple(
+            mos.with_device(devices[mos.name]) if mos.name in devices else mos for mos in self.mosfets
+        ))  # fmt: skip
+        if "plain_reduction" in vars(self):  # a cached_property: its value lives in the instance dict
+            vars(network)["plain_reduction"] = self.plain_reduction
+        return network
 
     def reduction(self, diagonal_gmin: float) -> _Reduction:
         """The system Newton solves with `diagonal_gmin` from every node to ground (each gmin
         step builds its own, once for all its iterations)."""
-        return self.plain_reduction if diagonal_gmin == 0.0 else _reduce(self, diagonal_gmin)
+        return self.plain_reduction if diagonal_gmin == 0.0 else _reduce(self, diagonal_gmin, eliminate=self.eliminate)
 
     def source_vector(self, overrides: Mapping[str, float] | None) -> np.ndarray:
         values = self.source_defaults.copy()
@@ -362,14 +319,15 @@ class _Network:
 
 @dataclass
 class _State:
-    """Where Newton stands: the solution vector and each device's last (limited) voltages."""
+    """Where Newton stands: the solution vector and each device's state (its last limited
+    voltages: vgs, vds, vbs, vbd and von of a MOSFET in device polarity, vd of a diode), in the
+    order of ``_Network.devices``."""
 
     x: np.ndarray
-    mos: list[list[float]]  # per MOSFET, device polarity: vgs, vds, vbs, vbd, von
-    diode: list[float]  # per diode: vd
+    devices: list[list[float]]
 
     def copy(self) -> _State:
-        return _State(self.x.copy(), [row[:] for row in self.mos], self.diode[:])
+        return _State(self.x.copy(), [row[:] for row in self.devices])
 
 
 def _number(value: object, what: str, element: Element) -> float:
@@ -378,8 +336,17 @@ def _number(value: object, what: str, element: Element) -> float:
     return float(value)
 
 
-def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
-    """Compile the circuit once: linear stamps, source columns and the nonlinear devices."""
+def _build_network(
+    circuit: Circuit,
+    model_choice: ModelChoice,
+    hand: tuple[Mapping[str, Mos1Instance], Mapping[str, str]] | None = None,
+) -> _Network:
+    """Compile the circuit once: linear stamps, source columns and the nonlinear devices.
+
+    `hand` is (instances, merged) for the hand model (``HandNetwork``): each MOSFET placed as the
+    instance given for it, and the nodes shorted by inductors and 0 Ω resistors merged (every
+    node → the node naming its class) instead of 1 mΩ and 0 V branches.
+    """
     caveats: list[str] = []
     options = circuit.options()
     gmin = float(options["gmin"]) if isinstance(options.get("gmin"), (int, float)) else GMIN
@@ -409,7 +376,16 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
 
     nodes = circuit.nodes()
     index = {GROUND: 0, **{node: k + 1 for k, node in enumerate(nodes)}}
-    branch_elements = [e for e in circuit.elements if e.kind in _BRANCH_KINDS]
+    branch_kinds = _BRANCH_KINDS
+    merged: dict[str, str] = {}
+    if hand is not None:
+        instances, merged = hand[0], {node: root for node, root in hand[1].items() if node != root}
+        nodes = tuple(node for node in dict.fromkeys(hand[1].get(n, n) for n in nodes) if node != GROUND)
+        index = {GROUND: 0, **{node: k + 1 for k, node in enumerate(nodes)}}
+        index.update({node: index[root] for node, root in merged.items()})
+        branch_kinds = tuple(kind for kind in _BRANCH_KINDS if kind != "inductor")  # shorts, merged
+        nodeset = {}
+    branch_elements = [e for e in circuit.elements if e.kind in branch_kinds]
     branch_index = {e.name.lower(): 1 + len(nodes) + k for k, e in enumerate(branch_elements)}
     size = 1 + len(nodes) + len(branch_elements)
     # Stamped in plain floats (numpy's per-element indexing is slow), the same sums in the same order.
@@ -433,6 +409,8 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
     for element in circuit.elements:
         at = [index[node] for node in element.nodes]
         kind = element.kind
+        if hand is not None and kind in ("resistor", "inductor") and at[0] == at[1]:
+            continue  # a short the hand model merged (or a resistor across one): nothing to stamp
         if kind == "resistor":
             resistance = _resistance(element)
             if resistance == 0.0:
@@ -445,7 +423,7 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
             linear[c][c] += conductance
             linear[a][c] -= conductance
             linear[c][a] -= conductance
-        elif kind in _BRANCH_KINDS:
+        elif kind in branch_kinds:
             k = branch_index[element.name.lower()]
             a, c = at[0], at[1]
             # KCL: the branch current leaves n+ and enters n−; the branch row states the voltage.
@@ -480,15 +458,18 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
             linear[at[1]][k] -= gain
         elif kind == "diode":
             diodes.append(_diode(element, at, circuit, caveats))
+        elif kind == "mosfet" and hand is not None:
+            mosfets.append(PlacedMosfet(element.name, at[0], at[1], at[2], at[3], instances[element.name]))
         elif kind == "mosfet":
             mosfets.append(_mosfet(element, at, circuit, models, model_choice, caveats, default_w, default_l))
         # capacitors: open at DC, nothing to stamp
 
-    _check_structure(circuit, nodes)
+    _check_structure(circuit, circuit.nodes(), channels=hand is not None)
+    linear_matrix = stamped(linear, size)
     return _Network(
         nodes=nodes,
         branch_names=tuple(e.name for e in branch_elements),
-        linear=stamped(linear, size),
+        linear=linear_matrix,
         source_columns=np.array(source_columns, dtype=float).reshape(size, len(sources)),
         source_names=tuple(e.name for e in sources),
         source_defaults=np.array([float(e.value or 0.0) for e in sources]),
@@ -497,6 +478,10 @@ def _build_network(circuit: Circuit, model_choice: ModelChoice) -> _Network:
         gmin=gmin,
         caveats=tuple(dict.fromkeys(caveats)),
         nodeset={node: value for node, value in nodeset.items() if node in index},
+        merged=merged,
+        # The hand's networks whole, but for large ones (stamped sparse), where Newton on the whole
+        # system would copy and factor thousands of rows at every iteration.
+        eliminate=hand is None or not isinstance(linear_matrix, np.ndarray),
     )
 
 
@@ -511,7 +496,7 @@ def _resistance(element: Element) -> float:
     return resistance / _number(element.params.get("m", 1.0), "M", element)
 
 
-def _diode(element: Element, at: list[int], circuit: Circuit, caveats: list[str]) -> _Diode:
+def _diode(element: Element, at: list[int], circuit: Circuit, caveats: list[str]) -> PlacedDiode:
     card = circuit.model(element.model or "")
     if card is None or card.type.lower() != "d":
         raise InvalidElement(element.name, f"{element.name}: no diode model `{element.model}`")
@@ -535,7 +520,7 @@ def _diode(element: Element, at: list[int], circuit: Circuit, caveats: list[str]
         raise InvalidElement(element.name, f"model {card.name}: emission coefficient N must be positive")
     if "off" in element.flags:
         caveats.append(f"{element.name}: OFF ignored (it only picks the starting point)")
-    return _Diode(
+    return PlacedDiode(
         element.name, at[0], at[1], saturation_current, emission_voltage,
         _vcrit(emission_voltage, saturation_current),
     )  # fmt: skip
@@ -550,7 +535,7 @@ def _mosfet(
     caveats: list[str],
     default_w: float,
     default_l: float,
-) -> _Mosfet:
+) -> PlacedMosfet:
     # One model per card and device temperature (instances with TEMP/DTEMP may differ).
     known = set(models)
     try:
@@ -574,21 +559,7 @@ def _mosfet(
             caveats.append(f"model {card.name}: parameters not known to level 1 ignored: {names}")
     if "off" in element.flags:
         caveats.append(f"{element.name}: OFF ignored (it only picks the starting point)")
-    return _Mosfet(
-        name=element.name,
-        drain=at[0],
-        gate=at[1],
-        source=at[2],
-        bulk=at[3],
-        model=model,
-        geometry=device.geometry,
-        drain_saturation_current=device.drain_saturation_current,
-        source_saturation_current=device.source_saturation_current,
-        drain_vcrit=device.drain_vcrit,
-        source_vcrit=device.source_vcrit,
-        thermal_voltage=device.thermal_voltage,
-        device=device,
-    )
+    return PlacedMosfet(element.name, at[0], at[1], at[2], at[3], device)
 
 
 def _diode_at_temperature(params: Mapping[str, float], celsius: float, nominal_celsius: float) -> tuple[float, float]:
@@ -637,18 +608,20 @@ def _temperature_notes(circuit: Circuit) -> list[str]:
     return notes
 
 
-def _check_structure(circuit: Circuit, nodes: tuple[str, ...]) -> None:
+def _check_structure(circuit: Circuit, nodes: tuple[str, ...], *, channels: bool = False) -> None:
     """Refuse a circuit whose matrix is singular by construction, naming the cause.
 
     A node with no DC path to ground (reached only through capacitors, current sources or
     MOSFET gates) has no defined voltage; a loop of voltage sources and shorts has no
-    defined current. ngspice meets both as a singular matrix.
+    defined current. ngspice meets both as a singular matrix. With `channels` (the hand
+    device: no bulk junctions) a MOSFET joins its drain and source only, and inductors are
+    shorts whose nodes are merged, not branches.
     """
     sets = NodeSets((GROUND, *nodes))
     root, join = sets.root, sets.join
 
     # Loops of fixed-voltage branches first: independent V sources and inductors.
-    fixed = [e for e in circuit.elements if e.kind in ("vsource", "inductor")]
+    fixed = [e for e in circuit.elements if e.kind == "vsource" or (e.kind == "inductor" and not channels)]
     for element in fixed:
         if not join(element.nodes[0], element.nodes[1]):
             group = root(element.nodes[0])
@@ -662,8 +635,10 @@ def _check_structure(circuit: Circuit, nodes: tuple[str, ...]) -> None:
     loose_ends: set[str] = set()  # outputs of G/F sources: they may pin a node in odd circuits
     for element in circuit.elements:
         kind, ends = element.kind, element.nodes
-        if kind in ("resistor", "diode", "vcvs", "ccvs"):
+        if kind in ("resistor", "diode", "vcvs", "ccvs") or (kind == "inductor" and channels):
             join(ends[0], ends[1])
+        elif kind == "mosfet" and channels:
+            join(ends[0], ends[2])  # the channel: the hand device has no junctions to the bulk
         elif kind == "mosfet":
             # The bulk junctions (with GMIN) tie drain and source to the bulk.
             join(ends[0], ends[3])
@@ -682,46 +657,6 @@ def _check_structure(circuit: Circuit, nodes: tuple[str, ...]) -> None:
             f"{'them' if len(floating) > 1 else 'it'}), so the operating point is undefined",
             nodes=floating,
         )
-
-
-# --- device equations the solver adds around level1 ----------------------------------------
-
-
-def _mos_junction(
-    voltage: float, saturation_current: float, gmin: float, thermal: float = THERMAL_VOLTAGE
-) -> tuple[float, float]:
-    """mos1load.c's bulk junction (``devices.mos1.load.junction_current``)."""
-    return junction_current(voltage, saturation_current, gmin, thermal)
-
-
-def _diode_current(voltage: float, diode: _Diode, gmin: float) -> tuple[float, float]:
-    """dioload.c without breakdown: Shockley forward, a cubic approach to −IS in reverse."""
-    vte, saturation_current = diode.emission_voltage, diode.saturation_current
-    if voltage >= -3.0 * vte:
-        growth = math.exp(min(MAX_EXP_ARG, voltage / vte))
-        current = saturation_current * (growth - 1.0)
-        conductance = saturation_current * growth / vte
-    else:
-        ratio = (3.0 * vte / (voltage * math.e)) ** 3
-        current = -saturation_current * (1.0 + ratio)
-        conductance = saturation_current * 3.0 * ratio / voltage
-    return current + gmin * voltage, conductance + gmin
-
-
-def _stamp_pair(matrix: list[list[float]], rhs: list[float], a: int, c: int, g: float, offset: float) -> None:
-    """A linearised two-terminal current leaving `a` for `c`: g·(va − vc) + offset.
-
-    `a` and `c` are positions in the reduced system; −1 is ground (nothing to stamp).
-    """
-    if a >= 0:
-        matrix[a][a] += g
-        rhs[a] -= offset
-        if c >= 0:
-            matrix[a][c] -= g
-            matrix[c][a] -= g
-    if c >= 0:
-        matrix[c][c] += g
-        rhs[c] += offset
 
 
 # --- the linear part folded onto the device terminals -------------------------------------
@@ -914,31 +849,15 @@ class _Attempt:
     singular: bool = False
 
 
-def _local_voltages(mos: _Mosfet, x: Sequence[float]) -> tuple[float, float, float]:
-    polarity = mos.model.polarity
-    vs = x[mos.source]
-    return polarity * (x[mos.gate] - vs), polarity * (x[mos.drain] - vs), polarity * (x[mos.bulk] - vs)
-
-
 def _settle(net: _Network, x: np.ndarray) -> _State:
     """The device state of a solution vector, so that Newton can continue from it."""
     values = x.tolist()
-    mos_state = []
-    for mos in net.mosfets:
-        vgs, vds, vbs = _local_voltages(mos, values)
-        point = mos.point(values[mos.drain], values[mos.gate], values[mos.source], values[mos.bulk])
-        mos_state.append([vgs, vds, vbs, vbs - vds, point.vth])
-    diode_state = [values[d.anode] - values[d.cathode] for d in net.diodes]
-    return _State(x.copy(), mos_state, diode_state)
+    return _State(x.copy(), [device.settle(values) for device in net.devices])
 
 
 def _junction_start(net: _Network, x: np.ndarray | None = None) -> _State:
     """ngspice's MODEINITJCT: devices start at fixed local voltages, not the node guess."""
-    return _State(
-        np.zeros(net.size) if x is None else x.copy(),
-        [mos.junction_start() for mos in net.mosfets],
-        [d.vcrit if math.isfinite(d.vcrit) else 0.6 for d in net.diodes],
-    )
+    return _State(np.zeros(net.size) if x is None else x.copy(), [device.start() for device in net.devices])
 
 
 def _newton(
@@ -968,13 +887,12 @@ def _newton(
     loose_floor, tight_floor = net.newton_floors
     gmin = net.gmin
     x = state.x.tolist()
-    # Per MOSFET, what no iteration changes: its state row (updated in place), polarity, and
-    # the places of its drain, gate, source and bulk in the reduced system.
-    mosfets = [
-        (mos, device_state, mos.model.polarity,
-         position[mos.drain], position[mos.gate], position[mos.source], position[mos.bulk])
-        for mos, device_state in zip(net.mosfets, state.mos, strict=True)
-    ]  # fmt: skip
+    # Per device, what no iteration changes: its state row (updated in place by its load) and
+    # the places of its terminals in the reduced system.
+    devices = [
+        (device, device_state, device.places(position))
+        for device, device_state in zip(net.devices, state.devices, strict=True)
+    ]
     loose_count = 0
     for iteration in range(1, max_iterations + 1):
         matrix = copy_rows(reduction.matrix)
@@ -984,55 +902,12 @@ def _newton(
         # a cut-off device whose gate is driven far negative: its limited vgs lags for many
         # iterations while its current (zero) is already right.
         clipped = False
+        first = iteration == 1
         linearised: list[tuple] = []
-        for mos, device_state, polarity, d, gt, s, b in mosfets:
-            vs = x[mos.source]
-            if iteration == 1:
-                vgs, vds, vbs, vbd = device_state[:4]
-            else:
-                vgs, vds, vbs, vbd, junction_clipped = mos.device.limit(
-                    device_state, polarity * (x[mos.gate] - vs), polarity * (x[mos.drain] - vs),
-                    polarity * (x[mos.bulk] - vs),
-                )  # fmt: skip
-                clipped = clipped or junction_clipped
-            vd, vg, vb = vs + polarity * vds, vs + polarity * vgs, vs + polarity * vbs
-            point = mos.point(vd, vg, vs, vb)
-            device_state[:] = [vgs, vds, vbs, vbd, point.vth]
-            g = point.conductances
-            # The linearised drain current is point.drain_current + Σ g·(v − v_here): its constant part.
-            offset = point.drain_current - (
-                g.wrt_drain * vd + g.wrt_gate * vg + g.wrt_source * vs + g.wrt_bulk * vb
-            )
-            gd, gg, gs, gb = g
-            for row, sign in ((d, 1.0), (s, -1.0)):
-                if row >= 0:  # the drain current enters the drain row and leaves the source row
-                    line = matrix[row]
-                    if d >= 0:
-                        line[d] += sign * gd
-                    if gt >= 0:
-                        line[gt] += sign * gg
-                    if s >= 0:
-                        line[s] += sign * gs
-                    if b >= 0:
-                        line[b] += sign * gb
-                    rhs[row] -= sign * offset
-            # Bulk junctions, in device polarity; the real current bulk → diffusion is polarity·c.
-            cbd, gbd = _mos_junction(vbd, mos.drain_saturation_current, gmin, mos.thermal_voltage)
-            _stamp_pair(matrix, rhs, b, d, gbd, polarity * (cbd - gbd * vbd))
-            cbs, gbs = _mos_junction(vbs, mos.source_saturation_current, gmin, mos.thermal_voltage)
-            _stamp_pair(matrix, rhs, b, s, gbs, polarity * (cbs - gbs * vbs))
-            linearised.append((mos, (point, vd, vg, vs, vb, cbd, gbd, vbd, cbs, gbs, vbs)))
-        for k, diode in enumerate(net.diodes):
-            vd = state.diode[k]
-            if iteration > 1:
-                vd, junction_clipped = _pnjlim(x[diode.anode] - x[diode.cathode], vd,
-                                               diode.emission_voltage, diode.vcrit)  # fmt: skip
-                clipped = clipped or junction_clipped
-            state.diode[k] = vd
-            current, conductance = _diode_current(vd, diode, gmin)
-            _stamp_pair(matrix, rhs, position[diode.anode], position[diode.cathode],
-                        conductance, current - conductance * vd)  # fmt: skip
-            linearised.append((diode, (current, conductance, vd)))
+        for device, device_state, places in devices:
+            entry, junction_clipped = device.load(device_state, places, x, first, gmin, matrix, rhs)
+            clipped = clipped or junction_clipped
+            linearised.append((device, entry))
         solution = solve_dense(matrix, rhs)
         if solution is None:
             return _Attempt(None, iteration, singular=True)
@@ -1206,19 +1081,15 @@ def _operating_point(net: _Network, solved: _Solved, circuit_caveats: Sequence[s
     x = solved.state.x.tolist()
     node_voltages = {GROUND: 0.0}
     node_voltages.update(zip(net.nodes, x[1:]))
+    node_voltages.update({node: node_voltages[root] for node, root in net.merged.items()})
     branch_currents = dict(zip(net.branch_names, x[1 + len(net.nodes) :]))
     devices: dict[str, Level1Point] = {}
     junctions: dict[str, BulkJunctions] = {}
     for mos in net.mosfets:
         vd, vg, vs, vb = x[mos.drain], x[mos.gate], x[mos.source], x[mos.bulk]
         devices[mos.name] = mos.point(vd, vg, vs, vb)
-        polarity = mos.model.polarity
-        vbd, vbs = polarity * (vb - vd), polarity * (vb - vs)
-        junctions[mos.name] = BulkJunctions(
-            bulk_drain=_mos_junction(vbd, mos.drain_saturation_current, net.gmin, mos.thermal_voltage)[0],
-            bulk_source=_mos_junction(vbs, mos.source_saturation_current, net.gmin, mos.thermal_voltage)[0],
-        )
-    diode_currents = {d.name: _diode_current(x[d.anode] - x[d.cathode], d, net.gmin)[0] for d in net.diodes}
+        junctions[mos.name] = BulkJunctions(*mos.junction_currents(x, net.gmin))
+    diode_currents = {d.name: d.current(x[d.anode] - x[d.cathode], net.gmin)[0] for d in net.diodes}
     caveats = tuple(circuit_caveats)
     if not solved.tight:
         caveats += (
@@ -1240,10 +1111,11 @@ def _operating_point(net: _Network, solved: _Solved, circuit_caveats: Sequence[s
 def _start(net: _Network, initial: Mapping[str, float] | None) -> tuple[_State, bool]:
     """The starting state: the caller's node guess, else `.nodeset`, else MODEINITJCT."""
     guess = dict(net.nodeset) if initial is None else {}
+    known = set(net.nodes) if initial else ()  # a set: a guess may name thousands of nodes
     for node, value in (initial or {}).items():
         key = node.lower()
-        key = GROUND if key == "gnd" else key
-        if key != GROUND and key not in net.nodes:
+        key = GROUND if key == "gnd" else net.merged.get(key, key)
+        if key != GROUND and key not in known:
             raise ValueError(f"initial guess names node `{node}`, which is not in the circuit")
         guess[key] = float(value)
     if not guess:
@@ -1319,6 +1191,37 @@ def solve_dc_sweep(
         previous = _settle(net, solved.state.x)
         points.append(_operating_point(net, solved, net.caveats))
     return points
+
+
+class HandNetwork:
+    """The circuit compiled once for the hand device, solved by this module's Newton (limiting,
+    gmin then source stepping, the same convergence tests): the hand analysis's numerical path.
+
+    `devices` gives each MOSFET's instance, the hand device (``Mos1Instance.without_junctions``:
+    the hand model, no bulk junctions and so no GMIN); `merged` maps every node to the node its
+    shorts (inductors, 0 Ω resistors) merge it into, as the hand analysis merges them. The answer
+    has no gmin: a stepped gmin is only a way there. ``solve`` takes other instances of the same
+    elements (another model: an effect switched on) on the same compiled linear part.
+    Construction raises InvalidElement, UnsupportedElement or SingularCircuit.
+    """
+
+    def __init__(self, circuit: Circuit, devices: Mapping[str, Mos1Instance], merged: Mapping[str, str]) -> None:
+        self._net = _build_network(circuit, level1_model, (devices, merged))
+
+    @property
+    def nodes(self) -> tuple[str, ...]:
+        """The nodes solved for (merged nodes by the name of their class), ground left out."""
+        return self._net.nodes
+
+    def solve(
+        self, devices: Mapping[str, Mos1Instance] | None = None, start: Mapping[str, float] | None = None
+    ) -> OperatingPoint:
+        """The operating point with `devices` in place of the instances given at construction
+        (by element name), Newton started from `start`'s node voltages (of ``nodes``) where
+        given, else from ngspice's junction guess. Raises NoConvergence."""
+        net = self._net if devices is None else self._net.with_devices(devices)
+        state, fresh = _start(net, start)
+        return _operating_point(net, _solve(net, net.source_defaults, state, fresh, METHODS), ())
 
 
 # --- many operating points at once ----------------------------------------------------------

@@ -18,7 +18,8 @@ The hand model, stated once:
   (or a diode-connected node fed only by one) fixes ID at that current instead.
 * Anything else — several transistors, controlled sources, floating voltage sources, a drain
   held only by a current source, or LAMBDA/GAMMA switched back on through ``effects`` — is the
-  same model solved numerically (Newton on the node equations), and the steps say so.
+  same model solved numerically, and the steps say so: the DC solver (``dcsolve.HandNetwork``)
+  with the hand device, the same MOSFET without bulk junctions (so without GMIN).
 
 Nothing here reads files or prints: the Circuit is the only input.
 """
@@ -29,7 +30,6 @@ import copy
 import math
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
-from operator import mul
 
 import numpy as np
 
@@ -45,14 +45,21 @@ from ..devices.level1 import (
     leff,
     threshold,
 )
-from ..devices.mos1.instance import InstanceError, NotLevel1, default_size, mosfet_instance
-from ..devices.mos1.load import saturation_overdrive, square_law, triode_channel_bias
+from ..devices.mos1.instance import InstanceError, Mos1Instance, NotLevel1, default_size, mosfet_instance
+from ..devices.mos1.load import (
+    saturation_overdrive,
+    saturation_overdrive_quadratic,
+    square_law,
+    triode_channel_bias,
+    triode_current_quadratic,
+)
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
 from ..vocabulary import EFFECTS as _EFFECT_ORDER
 from ..vocabulary import Step
 from .connectivity import NodeSets
-from .linear import as_array, condition_estimate, is_large, solve_dense, sparse_factor, stamp_rows, stamped
+from .dcsolve import DcSolveError, HandNetwork, InvalidElement
+from .linear import sparse_factor, stamp_rows, stamped
 
 __all__ = [
     "EFFECTS",
@@ -72,11 +79,6 @@ _LINEAR_KINDS = frozenset({"resistor", "capacitor", "inductor", "vsource", "isou
 _CONTROLLED_KINDS = frozenset({"vcvs", "vccs", "cccs", "ccvs"})
 _HAND_KINDS = _LINEAR_KINDS | _CONTROLLED_KINDS | {"mosfet"}
 _MATCH = 1e-9  # relative agreement for "this Thevenin equivalent is just that one resistor"
-# Largest node-voltage change of one Newton iteration: 2 V, or half the largest node voltage
-# when the circuit swings wider (so a far-off solution is still reached in few steps).
-_NEWTON_STEP_LIMIT = 2.0  # V
-_NEWTON_ITERATIONS = 200
-_GMIN_LADDER = tuple(10.0**-k for k in range(2, 13))  # S, a crutch only: the answer has none
 
 
 class HandAnalysisError(ValueError):
@@ -176,10 +178,16 @@ class _Transistor:
     gate: str
     source: str
     bulk: str
+    instance: Mos1Instance  # the element as the device package reads it (card model, size, junctions)
 
     @property
     def name(self) -> str:
         return self.element.name
+
+    def hand_device(self) -> Mos1Instance:
+        """The hand device the numerical path solves: the instance with this hand model and no
+        bulk junctions."""
+        return self.instance.without_junctions(self.model)
 
     @property
     def polarity(self) -> int:
@@ -201,12 +209,12 @@ class _DcCircuit:
     floating_sources: list[Element]  # voltage sources not referred to ground
     controlled: list[Element]
     notes: list[str] = field(default_factory=list)
-    # The numerical path's linear equations, once built (_node_equations). They do not involve
-    # the transistors, and the copies HandModel.solve makes with other transistor models share
-    # this list, so the attribution's re-solves build them once.
-    equations: list[_NodeEquations] = field(default_factory=list, repr=False, compare=False)
+    # The numerical path's network (dcsolve.HandNetwork), once compiled (_solve_numerically). Its
+    # linear part does not involve the transistors' models, and the copies HandModel.solve makes
+    # with other transistor models share this list, so the attribution's re-solves compile it once.
+    solver: list[HandNetwork] = field(default_factory=list, repr=False, compare=False)
     # Per node, the resistors touching it in `resistors` order, once built (_resistors_at); shared
-    # by the copies HandModel.solve makes like `equations`.
+    # by the copies HandModel.solve makes like `solver`.
     incidence: dict[str, list[_Resistor]] = field(default_factory=dict, repr=False, compare=False)
 
 
@@ -251,7 +259,7 @@ def _transistor(
         raise HandAnalysisError(f"{element.name}: {exc}") from None
     card_model, geometry = device.model, device.geometry
     d, g, s, b = (merged[node] for node in element.nodes)
-    return _Transistor(element, hand_model(card_model, effects), card_model, geometry, d, g, s, b)
+    return _Transistor(element, hand_model(card_model, effects), card_model, geometry, d, g, s, b, device)
 
 
 def _temperature_moved(model: Level1Model) -> bool:
@@ -1144,7 +1152,7 @@ def _quadratic(a: float, b: float, c: float) -> tuple[float, ...]:
             disc = 0.0
         else:
             return ()
-    q = -0.5 * (b + math.copysign(math.sqrt(disc), b))
+    q = -(b + math.copysign(math.sqrt(disc), b)) / 2.0  # halving is exact: the same bits as ×0.5
     roots = [q / a] + ([c / q] if q != 0.0 else [q / a])
     return tuple(sorted(roots))
 
@@ -1218,7 +1226,7 @@ def _affine_numbers(dc: _DcCircuit, stage: _Stage, base: dict[str, float] | None
     if rg == 0.0:
         vov, other = u, 0.0
     else:
-        roots = _quadratic(0.5 * k * rg, 1.0, -u)
+        roots = _quadratic(*saturation_overdrive_quadratic(t.model, t.geometry, u, rg))
         vov, other = roots[1], roots[0]
     current = square_law(t.model, t.geometry, vov, vov, "saturation")[0]
     vds = vds0 - rd * current
@@ -1230,9 +1238,7 @@ def _affine_numbers(dc: _DcCircuit, stage: _Stage, base: dict[str, float] | None
 
     # Triode: ID = K·(VOV·VDS − VDS²/2) with both affine in ID → a·ID² + b·ID + c = 0.
     w = vds0
-    qa = k * (rg * rd - 0.5 * rd * rd)
-    qb = k * (w * rd - u * rd - rg * w) - 1.0
-    qc = k * (u * w - 0.5 * w * w)
+    qa, qb, qc = triode_current_quadratic(t.model, t.geometry, u, rg, w, rd)
     roots = _quadratic(qa, qb, qc)
 
     def fits(root: float) -> bool:
@@ -1306,7 +1312,7 @@ def _affine_working(dc: _DcCircuit, stage: _Stage, numbers: _AffineNumbers) -> l
             )
         )
     else:
-        a = 0.5 * k * rg
+        a = saturation_overdrive_quadratic(t.model, t.geometry, u, rg)[0]
         steps.append(
             Step(
                 f"Quadratic in VOV from ID = (K/2)·VOV² and VOV = {_q(u, 'V')} − ID·{symbol}",
@@ -1538,321 +1544,37 @@ def _gm_step(t: _Transistor, drive: float, current: float, region: Region, vov: 
 
 # --- the numerical path -----------------------------------------------------------------------
 
-
-_ILL_CONDITIONED = 1e15  # np.linalg.cond above which the numerical path refuses a Newton step
-_SURELY_CONDITIONED = 1e10
-_SVD_ERROR = 1e-12  # bound on |σ̂ − σ| / σmax for numpy's (LAPACK's) computed singular values
-
-
-class _ConditionTest:
-    """``np.linalg.cond(J) > 1e15`` for the successive jacobians of one numerical solve, with
-    most of the SVDs skipped (an SVD costs more than the rest of a Newton iteration).
-
-    Weyl's inequality: no singular value moves by more than ‖J − J₀‖₂ ≤ ‖J − J₀‖_F. So once a
-    jacobian J₀ has been through the SVD, a later J whose distance from J₀ keeps its condition
-    number below _SURELY_CONDITIONED needs no SVD of its own; otherwise the SVD runs and J
-    becomes the new J₀. The gap up to _ILL_CONDITIONED covers the SVD's own error: LAPACK's
-    singular values are within p(n)·ε·σmax of the exact ones, and _SVD_ERROR allows p(n) up to
-    about 4000, far more than a matrix of a few unknowns needs. A J the bound passes thus has an
-    exact condition number ≤ 1e10 and an SVD-computed one ≤ 1.02e10: the verdict the SVD itself
-    would give. J₀ is kept only when all its entries are finite; a NaN or inf in J fails the
-    bound (every comparison with NaN is false) and goes to the SVD.
-    """
-
-    def __init__(self) -> None:
-        self._rows: list[list[float]] | None = None  # J₀, kept only when finite and well conditioned
-        self._high = self._low = 0.0  # its largest and smallest computed singular values
-
-    def __call__(self, jacobian: list[list[float]]) -> bool:
-        if not jacobian:
-            return bool(np.linalg.cond(np.zeros((0, 0))) > _ILL_CONDITIONED)  # raises, as cond does
-        if self._rows is not None:
-            square = 0.0
-            for row, old in zip(jacobian, self._rows):
-                if row != old:  # most rows are the linear network's, the same floats as in J₀
-                    square += sum([(a - b) * (a - b) for a, b in zip(row, old)])
-            # ‖J − J₀‖₂ from above, with room for the rounding of the sum and for underflow.
-            slack = _SVD_ERROR * self._high + math.sqrt(square) * (1.0 + 1e-9) + 1e-150
-            low = self._low - slack
-            if low > 0.0 and self._high + slack <= _SURELY_CONDITIONED * low:
-                return False
-        singular = np.linalg.svd(as_array(jacobian), compute_uv=False).tolist()
-        high, low = singular[0], singular[-1]
-        if low == 0.0:
-            return True  # 0/0 counts as ∞, as in cond
-        if high <= _SURELY_CONDITIONED * low and math.isfinite(sum(map(sum, jacobian))):
-            self._rows, self._high, self._low = [row[:] for row in jacobian], high, low
-        return high / low > _ILL_CONDITIONED
+_NO_POINT = (
+    "the simplified model (square law, λ = γ = 0, no gate current) has no operating point Newton's "
+    "method could find: the circuit may have none, or several nodes the model leaves undetermined "
+    "(e.g. a saturated drain held only by a current source)"
+)
 
 
-@dataclass(frozen=True)
-class _NodeEquations:
-    """The linear part of the numerical path's MNA system, matrix·x = rhs: the unknowns are the
-    node voltages (ground left out; `index` gives their places) and then the branch currents of
-    the voltage sources and E/H sources. Newton adds the transistors at every iteration."""
-
-    nodes: list[str]
-    index: dict[str, int]
-    matrix: list[list[float]]
-    rhs: list[float]
-    # A large system (linear.is_large): `matrix` in CSR here, its rows in `matrix` being dicts.
-    sparse: object = field(default=None, repr=False, compare=False)
-
-
-def _node_equations(dc: _DcCircuit) -> _NodeEquations:
-    """The linear MNA system of `dc`, built on first use and kept in ``dc.equations``."""
-    if dc.equations:
-        return dc.equations[0]
-    nodes = [n for n in dict.fromkeys(dc.merged.values()) if n != GROUND]
-    index = {node: k for k, node in enumerate(nodes)}
-    branches = dc.voltage_sources + [e for e in dc.controlled if e.kind in ("vcvs", "ccvs")]
-    branch_index = {e.name.lower(): len(nodes) + k for k, e in enumerate(branches)}
-    size = len(nodes) + len(branches)
-    # The algebra in plain floats: a stage leaves a handful of unknowns, where numpy's per-call
-    # overhead would be most of the time (bridge.analysis.linear).
-    matrix = stamp_rows(size)  # dict rows from linear.SPARSE_FROM unknowns on
-    rhs = [0.0] * size
-
-    def slot(node: str) -> int | None:
-        return index.get(dc.merged.get(node, node))
-
-    def add(row: int | None, col: int | None, value: float) -> None:
-        if row is not None and col is not None:
-            matrix[row][col] += value
-
-    def control(element: Element) -> int:
-        key = (element.controlling_source or "").lower()
-        if key not in branch_index:
-            raise HandAnalysisError(
-                f"{element.name}: controlling source `{element.controlling_source}` is not a voltage source"
-            )
-        return branch_index[key]
-
-    for resistor in dc.resistors:
-        a, b, g = index.get(resistor.a), index.get(resistor.b), 1.0 / resistor.resistance
-        add(a, a, g)
-        add(b, b, g)
-        add(a, b, -g)
-        add(b, a, -g)
-    for source in dc.current_sources:
-        if source.leaves in index:
-            rhs[index[source.leaves]] -= source.current
-        if source.enters in index:
-            rhs[index[source.enters]] += source.current
-    for element in branches:
-        k = branch_index[element.name.lower()]
-        a, b = slot(element.nodes[0]), slot(element.nodes[1])
-        add(a, k, 1.0)
-        add(b, k, -1.0)
-        add(k, a, 1.0)
-        add(k, b, -1.0)
-        if element.kind == "vsource":
-            rhs[k] = float(element.value or 0.0)
-        elif element.kind == "vcvs":
-            gain = _number(element.value, "gain", element)
-            add(k, slot(element.nodes[2]), -gain)
-            add(k, slot(element.nodes[3]), gain)
-        else:
-            add(k, control(element), -_number(element.value, "transresistance", element))
-    for element in dc.controlled:
-        a, b = slot(element.nodes[0]), slot(element.nodes[1])
-        if element.kind == "vccs":
-            gm = _number(element.value, "transconductance", element)
-            for row, sign in ((a, 1.0), (b, -1.0)):
-                add(row, slot(element.nodes[2]), sign * gm)
-                add(row, slot(element.nodes[3]), -sign * gm)
-        elif element.kind == "cccs":
-            gain = _number(element.value, "gain", element)
-            add(a, control(element), gain)
-            add(b, control(element), -gain)
-    equations = _NodeEquations(nodes, index, matrix, rhs, stamped(matrix, size) if is_large(size) else None)
-    dc.equations.append(equations)
-    return equations
-
-
-def _solve_numerically(dc: _DcCircuit, start: Mapping[str, float] | None = None) -> tuple[dict[str, float], int]:
-    """The simplified model's node equations solved by damped Newton (MNA): node voltages.
+def _solve_numerically(
+    circuit: Circuit, dc: _DcCircuit, start: Mapping[str, float] | None = None
+) -> tuple[dict[str, float], int]:
+    """The hand model solved by the DC solver with the hand device (``dcsolve.HandNetwork``): the
+    voltages of the merged nodes (ground included) and the Newton iterations spent.
 
     Newton starts from `start`'s node voltages where given (a nearby solution: the attribution
-    starts each one-effect re-solve from the plain hand point), from zero otherwise.
+    starts each one-effect re-solve from the plain hand point), from ngspice's junction guess
+    otherwise.
     """
-    equations = _node_equations(dc)
-    if equations.sparse is not None:
-        return _solve_numerically_large(dc, equations, start)
-    nodes, index, base, source_side = equations.nodes, equations.index, equations.matrix, equations.rhs
-    size = len(source_side)
-
-    devices = _device_stamps(dc, index)
-    node_count = len(nodes)
-
-    def system(x: list[float], gmin: float) -> tuple[list[float], list[list[float]]]:
-        residual = [sum(map(mul, row, x)) - r for row, r in zip(base, source_side)]
-        jacobian = [row[:] for row in base]
-        if gmin:
-            for k in range(node_count):
-                residual[k] += gmin * x[k]
-                jacobian[k][k] += gmin
-        for model, geometry, (d, g, s, b), rows, columns in devices:
-            point = evaluate(
-                model,
-                geometry,
-                0.0 if d is None else x[d],
-                0.0 if g is None else x[g],
-                0.0 if s is None else x[s],
-                0.0 if b is None else x[b],
-            )
-            current, partials = point.drain_current, point.conductances
-            for row, sign in rows:
-                residual[row] += sign * current
-                line = jacobian[row]
-                for col, k in columns:
-                    line[col] += sign * partials[k]
-        return residual, jacobian
-
-    ill_conditioned = _ConditionTest()
-
-    def newton(x: list[float], gmin: float) -> tuple[list[float] | None, int]:
-        for iteration in range(1, _NEWTON_ITERATIONS + 1):
-            residual, jacobian = system(x, gmin)
-            # The condition test first: elimination overwrites the jacobian.
-            bad = ill_conditioned(jacobian)
-            steps = solve_dense(jacobian, [-r for r in residual])
-            if steps is None or not math.isfinite(sum(steps)) or bad:
-                return None, iteration
-            largest = max(map(abs, steps[:node_count])) if nodes else 0.0
-            widest = max(map(abs, x[:node_count])) if nodes else 0.0
-            limit = max(_NEWTON_STEP_LIMIT, 0.5 * widest)
-            if largest > limit:
-                steps = [step * (limit / largest) for step in steps]
-            x = [value + step for value, step in zip(x, steps)]
-            scale = 1.0 + (max(map(abs, x[:node_count])) if nodes else 0.0)
-            if largest <= 1e-13 * scale:
-                return x, iteration
-        return None, _NEWTON_ITERATIONS
-
-    return _newton_from_start(newton, index, start, lambda: [0.0] * size)
-
-
-def _solve_numerically_large(
-    dc: _DcCircuit, equations: _NodeEquations, start: Mapping[str, float] | None
-) -> tuple[dict[str, float], int]:
-    """`_solve_numerically` for a large system (linear.is_large): the same damped Newton, gmin
-    ladder and stopping rule, with the jacobian kept sparse and solved by a sparse LU.
-
-    The condition test is the 1-norm estimate from that LU (``linear.condition_estimate``)
-    against the same 1e15, in place of the SVD: an SVD of thousands of unknowns costs minutes.
-    """
-    from scipy.sparse import coo_matrix, diags
-
-    nodes, index, base = equations.nodes, equations.index, equations.sparse
-    source_side = np.array(equations.rhs, dtype=float)
-    size = len(source_side)
-    node_count = len(nodes)
-    devices = _device_stamps(dc, index)
-    node_diagonal = np.zeros(size)
-    node_diagonal[:node_count] = 1.0
-
-    def system(x: np.ndarray, gmin: float):
-        residual = base @ x - source_side
-        at_rows: list[int] = []
-        at_columns: list[int] = []
-        values: list[float] = []
-        if gmin:
-            residual += gmin * node_diagonal * x
-        for model, geometry, (d, g, s, b), rows, columns in devices:
-            point = evaluate(
-                model,
-                geometry,
-                0.0 if d is None else float(x[d]),
-                0.0 if g is None else float(x[g]),
-                0.0 if s is None else float(x[s]),
-                0.0 if b is None else float(x[b]),
-            )
-            current, partials = point.drain_current, point.conductances
-            for row, sign in rows:
-                residual[row] += sign * current
-                for col, k in columns:
-                    at_rows.append(row)
-                    at_columns.append(col)
-                    values.append(sign * partials[k])
-        jacobian = base + coo_matrix((values, (at_rows, at_columns)), shape=(size, size))
-        if gmin:
-            jacobian = jacobian + diags(gmin * node_diagonal)
-        return residual, jacobian.tocsc()
-
-    def newton(x: np.ndarray, gmin: float) -> tuple[np.ndarray | None, int]:
-        for iteration in range(1, _NEWTON_ITERATIONS + 1):
-            residual, jacobian = system(x, gmin)
-            try:
-                factor = sparse_factor(jacobian)
-            except np.linalg.LinAlgError:
-                return None, iteration
-            with np.errstate(all="ignore"):
-                steps = factor.solve(-residual)
-            bad = not condition_estimate(jacobian, factor) <= _ILL_CONDITIONED
-            if not math.isfinite(float(steps.sum())) or bad:
-                return None, iteration
-            largest = float(np.abs(steps[:node_count]).max()) if nodes else 0.0
-            widest = float(np.abs(x[:node_count]).max()) if nodes else 0.0
-            limit = max(_NEWTON_STEP_LIMIT, 0.5 * widest)
-            if largest > limit:
-                steps = steps * (limit / largest)
-            x = x + steps
-            scale = 1.0 + (float(np.abs(x[:node_count]).max()) if nodes else 0.0)
-            if largest <= 1e-13 * scale:
-                return x, iteration
-        return None, _NEWTON_ITERATIONS
-
-    return _newton_from_start(newton, index, start, lambda: np.zeros(size))
-
-
-def _device_stamps(dc: _DcCircuit, index: Mapping[str, int]) -> list[tuple]:
-    """Per transistor: its terminals' unknowns (None for ground), the rows its drain current
-    enters (+) and leaves (−), and the unknowns whose columns its partials go to (in the
-    order d, g, s, b: with several devices on one node the sums keep that order)."""
-    devices = []
-    for t in dc.transistors:
-        terminals = tuple(index.get(n) for n in (t.drain, t.gate, t.source, t.bulk))
-        rows = tuple((row, sign) for row, sign in ((terminals[0], 1.0), (terminals[2], -1.0)) if row is not None)
-        columns = tuple((col, k) for k, col in enumerate(terminals) if col is not None)
-        devices.append((t.model, t.geometry, terminals, rows, columns))
-    return devices
-
-
-def _newton_from_start(
-    newton, index: Mapping[str, int], start: Mapping[str, float] | None, zeros
-) -> tuple[dict[str, float], int]:
-    """The numerical path's schedule, dense or sparse alike: Newton from `start` (else zero); failing
-    that, from zero along the gmin ladder and once more without gmin. `newton(x, gmin)` gives the
-    solution or None and the iterations it used; `zeros()` a zero vector of its kind."""
-    spent = 0
-    initial = zeros()
-    if start:
-        for node, k in index.items():
-            initial[k] = start.get(node, 0.0)
-    x, used = newton(initial, 0.0)
-    spent += used
-    if x is None:
-        # A cut-off device can leave a node held by nothing at the start: lean on a shunt
-        # conductance to ground, shrink it away, and finish without one.
-        x = zeros()
-        for gmin in _GMIN_LADDER:
-            attempt, used = newton(x, gmin)
-            spent += used
-            if attempt is None:
-                break
-            x = attempt
-        x, used = newton(x, 0.0)
-        spent += used
-    if x is None:
-        raise HandAnalysisError(
-            "the simplified model (square law, λ = γ = 0, no gate current) has no operating point Newton's "
-            "method could find: the circuit may have none, or several nodes the model leaves undetermined "
-            "(e.g. a saturated drain held only by a current source)"
-        )
+    devices = {t.name: t.hand_device() for t in dc.transistors}
+    try:
+        if not dc.solver:
+            dc.solver.append(HandNetwork(circuit, devices, dc.merged))
+        network = dc.solver[0]
+        guess = None if start is None else {node: start[node] for node in network.nodes if node in start}
+        solved = network.solve(devices, guess)
+    except InvalidElement as exc:  # a controlled source's value or control, read on this path only
+        raise HandAnalysisError(str(exc)) from None
+    except DcSolveError:
+        raise HandAnalysisError(_NO_POINT) from None
     voltages = {GROUND: 0.0}
-    voltages.update({node: float(x[k]) for node, k in index.items()})
-    return voltages, spent
+    voltages.update({node: solved.node_voltages[node] for node in network.nodes})
+    return voltages, solved.iterations
 
 
 # --- the answer -------------------------------------------------------------------------------
@@ -1941,7 +1663,7 @@ def _numerical_solution(
     working: bool = True,
     start: Mapping[str, float] | None = None,
 ) -> HandSolution:
-    voltages, iterations = _solve_numerically(dc, start)
+    voltages, iterations = _solve_numerically(circuit, dc, start)
     points = _device_points(dc, voltages)
     devices = {name: _hand_device(point) for name, point in points.items()}
     if not working:

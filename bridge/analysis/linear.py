@@ -1,4 +1,5 @@
-"""Small dense linear systems, the inner step of both Newton solvers (dcsolve, hand).
+"""Small dense linear systems, the inner step of the DC solver's Newton (dcsolve; the hand
+analysis's numerical path is that solver), and the stamping the hand's linear network shares.
 
 A one-transistor stage leaves Newton a handful of unknowns; numpy's solve costs several
 microseconds of call overhead on such a system, elimination in plain floats a fraction of it.

@@ -79,6 +79,28 @@ def limvds(new: float, old: float) -> float:
     return max(new, -0.5)
 
 
+def gate_drain_limit(vgs: float, vds: float, old_vgs: float, old_vds: float, von: float) -> tuple[float, float]:
+    """mos1load.c's limiting of vgs and vds: fetlim on the gate voltage of the side acting as
+    source, limvds on the drain–source voltage."""
+    vgd = vgs - vds
+    if old_vds >= 0.0:
+        vgs = fetlim(vgs, old_vgs, von)
+        vds = limvds(vgs - vgd, old_vds)
+    else:
+        vgd = fetlim(vgd, old_vgs - old_vds, von)
+        vds = -limvds(-(vgs - vgd), -old_vds)
+        vgs = vgd + vds
+    return vgs, vds
+
+
+def limit_channel(state: list[float], vgs: float, vds: float, vbs: float) -> tuple[float, float, float, float, bool]:
+    """``limit`` for a device without bulk junctions: vgs and vds limited alike (fetlim, limvds),
+    vbs taken as it is (no junction to clip, so never clipped)."""
+    old_vgs, old_vds, _, _, von = state
+    vgs, vds = gate_drain_limit(vgs, vds, old_vgs, old_vds, von)
+    return vgs, vds, vbs, vbs - vds, False
+
+
 def limit(
     state: list[float], vgs: float, vds: float, vbs: float, thermal: float, source_vcrit: float, drain_vcrit: float
 ) -> tuple[float, float, float, float, bool]:
@@ -88,14 +110,7 @@ def limit(
     Returns vgs, vds, vbs, vbd to evaluate at and whether a junction step was clipped.
     """
     old_vgs, old_vds, old_vbs, old_vbd, von = state
-    vgd = vgs - vds
-    if old_vds >= 0.0:
-        vgs = fetlim(vgs, old_vgs, von)
-        vds = limvds(vgs - vgd, old_vds)
-    else:
-        vgd = fetlim(vgd, old_vgs - old_vds, von)
-        vds = -limvds(-(vgs - vgd), -old_vds)
-        vgs = vgd + vds
+    vgs, vds = gate_drain_limit(vgs, vds, old_vgs, old_vds, von)
     if vds >= 0.0:
         vbs, clipped = pnjlim(vbs, old_vbs, thermal, source_vcrit)
         vbd = vbs - vds

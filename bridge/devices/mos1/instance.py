@@ -3,7 +3,9 @@ size (W, L, M with ngspice's defaults) and its bulk junctions (mos1set.c, mos1te
 
 ``mosfet_instance`` is the one place an analysis reads a MOSFET's model and size: the hand
 analysis, the DC solver and the sweep all call it. The instance is also the device interface
-the DC solver calls (``bridge.devices.interface.DcDevice``): evaluate, junctions, limit.
+what the solver's placed device (``placed.PlacedMosfet``) asks: evaluate, junctions, limit.
+``junctions`` says whether it has its bulk junction diodes: the hand device (``without_junctions``)
+has none, and limits only its gate and drain voltages.
 """
 
 from __future__ import annotations
@@ -13,7 +15,7 @@ from dataclasses import dataclass, replace
 
 from bridge.netlist.circuit import Circuit, Element, ModelCard
 
-from .convergence import limit, vcrit
+from .convergence import limit, limit_channel, vcrit
 from .load import Level1Geometry, Level1Point, beta, evaluate, junction_current
 from .model import Level1Model
 from .params import CIRCUIT_TEMPERATURE_C, DEFAULT_JUNCTION_IS, DEFAULT_L, DEFAULT_W
@@ -92,6 +94,7 @@ class Mos1Instance:
     drain_vcrit: float
     source_vcrit: float
     thermal_voltage: float  # kT/q at the device temperature, for its bulk junctions
+    junctions: bool = True  # False: the hand device, no bulk diodes (nor their GMIN)
 
     @property
     def gain_factor(self) -> float:
@@ -109,8 +112,16 @@ class Mos1Instance:
         return junction_current(voltage, saturation, gmin, self.thermal_voltage)
 
     def limit(self, state: list[float], vgs: float, vds: float, vbs: float) -> tuple[float, float, float, float, bool]:
-        """mos1load.c's limiting of new device-polarity voltages against `state` (``convergence.limit``)."""
+        """mos1load.c's limiting of new device-polarity voltages against `state` (``convergence.limit``;
+        without junctions ``convergence.limit_channel``: nothing to clip on the bulk side)."""
+        if not self.junctions:
+            return limit_channel(state, vgs, vds, vbs)
         return limit(state, vgs, vds, vbs, self.thermal_voltage, self.source_vcrit, self.drain_vcrit)
+
+    def without_junctions(self, model: Level1Model) -> Mos1Instance:
+        """The hand device: this instance with `model` (the hand model of its card) and no bulk
+        junction diodes, so no GMIN either."""
+        return replace(self, model=model, junctions=False)
 
     def junction_start(self) -> list[float]:
         """ngspice's MODEINITJCT guess: vgs = type·VTO, vds = 0, vbs = −1 (and von = vgs)."""

@@ -217,6 +217,28 @@ def triode_channel_bias(model: Level1Model, geometry: Level1Geometry, excess: fl
     return math.sqrt(excess * excess + 2.0 * current / beta(model, geometry)) - excess
 
 
+def saturation_overdrive_quadratic(
+    model: Level1Model, geometry: Level1Geometry, u: float, rg: float
+) -> tuple[float, float, float]:
+    """(a, b, c) of a·VOV² + b·VOV + c = 0 for a saturated device (λ = 0) whose overdrive falls
+    by `rg` volts per ampere of its current from `u` at zero current: VOV = u − rg·ID with
+    ID = (β/2)·VOV², so (β·rg/2)·VOV² + VOV − u = 0."""
+    return 0.5 * beta(model, geometry) * rg, 1.0, -u
+
+
+def triode_current_quadratic(
+    model: Level1Model, geometry: Level1Geometry, u: float, rg: float, w: float, rd: float
+) -> tuple[float, float, float]:
+    """(a, b, c) of a·ID² + b·ID + c = 0 for a device in triode (λ = 0) with VOV = u − rg·ID and
+    VDS = w − rd·ID: ID = β·(VOV·VDS − VDS²/2) with both affine in ID."""
+    gain = beta(model, geometry)
+    return (
+        gain * (rg * rd - 0.5 * rd * rd),
+        gain * (w * rd - u * rd - rg * w) - 1.0,
+        gain * (u * w - 0.5 * w * w),
+    )
+
+
 def junction_current(voltage: float, saturation_current: float, gmin: float, thermal: float) -> tuple[float, float]:
     """mos1load.c's bulk junction: current and conductance, GMIN included; `thermal` is kT/q
     at the device temperature."""

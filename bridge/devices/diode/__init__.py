@@ -1,0 +1,8 @@
+"""The junction diode as the DC solver models it (ngspice's dio device in part): ``load`` (the
+Shockley current without breakdown, GMIN in parallel) and ``placed`` (the diode in an MNA system,
+``bridge.devices.interface.DcDevice``)."""
+
+from .load import MAX_EXP_ARG, diode_current
+from .placed import PlacedDiode
+
+__all__ = ["MAX_EXP_ARG", "PlacedDiode", "diode_current"]
