@@ -13,20 +13,14 @@
 from __future__ import annotations
 
 import re
-import sys
 from pathlib import Path
 
 from .netlist.errors import Location, NetlistError
 from .netlist.numbers import NumberError, parse_number
+from .tomlfile import read_toml
 from .vocabulary import DEVICE_QUANTITIES, Expectation, Expectations
 
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover - Python 3.10
-    import tomli as tomllib
-
 REGIONS = ("cutoff", "saturation", "triode")
-_TOML_PLACE = re.compile(r"at line (\d+), column (\d+)")
 
 
 def _line_of(lines: list[str], key: str, section: str | None = None) -> int:
@@ -70,19 +64,7 @@ def _value(raw: object, where: Location, lines: list[str]) -> float:
 def read_expectations(path: str | Path, default_tolerance: float) -> Expectations:
     """Parse the TOML file; every problem is a located NetlistError (exit status 2)."""
     name = str(path)
-    try:
-        text = Path(path).read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise NetlistError(f"cannot read: {getattr(exc, 'strerror', None) or exc}", Location(name, 1, 1)) from None
-    lines = text.splitlines() or [""]
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        match = _TOML_PLACE.search(str(exc))
-        line, column = (int(match[1]), int(match[2])) if match else (1, 1)
-        message = _TOML_PLACE.sub("", str(exc)).strip(" ()")
-        source_line = lines[line - 1] if 0 < line <= len(lines) else None
-        raise NetlistError(f"not valid TOML: {message}", Location(name, line, column), source_line) from None
+    data, lines = read_toml(path)
     unknown = set(data) - {"tolerance", "tol", "nodes", "devices"}
     if unknown:
         key = sorted(unknown)[0]

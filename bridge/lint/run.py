@@ -16,7 +16,6 @@ import dataclasses
 import difflib
 import math
 import re
-import sys
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -25,14 +24,10 @@ from ..netlist.build import build_circuit
 from ..netlist.circuit import Circuit, Notice
 from ..netlist.errors import Location, NetlistError
 from ..netlist.source import SourceFile, notice_in, read_deck, read_source
+from ..tomlfile import read_toml
 from ..vocabulary import Finding
 from . import registry
 from .rule import LintContext, LintSettings
-
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover - Python 3.10
-    import tomli as tomllib
 
 # The runner's own findings (the rule families' codes are in registry.CODES).
 PARSE_ERROR = "parse-error"
@@ -79,7 +74,6 @@ NOT_SILENCED_BY_MARKER = frozenset({*ALWAYS_REPORTED, CONTROL_BLOCK})
 
 CONFIG_FILE = "pyproject.toml"
 CONFIG_TABLE = ("tool", "biasbridge", "lint")
-_TOML_PLACE = re.compile(r"at line (\d+), column (\d+)")
 
 
 def known_codes() -> dict[str, str]:
@@ -192,22 +186,7 @@ def _key_place(lines: Sequence[str], key: str) -> Location | None:
 def read_config(path: str | Path) -> LintConfig:
     """The lint table of a pyproject.toml; every problem is a located NetlistError (exit 2)."""
     name = str(path)
-    try:
-        text = Path(path).read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise NetlistError(f"cannot read: {getattr(exc, 'strerror', None) or exc}", Location(name, 1, 1)) from None
-    lines = text.splitlines() or [""]
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        match = _TOML_PLACE.search(str(exc))
-        line, column = (int(match[1]), int(match[2])) if match else (1, 1)
-        if match is None and "end of document" in str(exc):
-            line = len(lines)
-            column = len(lines[-1]) + 1
-        message = _TOML_PLACE.sub("", str(exc)).replace("(at end of document)", "").strip(" ()")
-        source_line = lines[line - 1] if 0 < line <= len(lines) else None
-        raise NetlistError(f"not valid TOML: {message}", Location(name, line, column), source_line) from None
+    data, lines = read_toml(path)
     table: object = data
     for key in CONFIG_TABLE:
         table = table.get(key, {}) if isinstance(table, dict) else {}
