@@ -207,3 +207,17 @@ def test_the_analyses_write_no_square_law_coefficient() -> None:
         for number, line in enumerate(path.read_text().splitlines(), 1) if halves.search(line.split("#")[0])
     ]
     assert offenders == []
+
+
+def test_the_resistor_loaded_edge_overdrive_puts_the_device_at_vds_equal_vov() -> None:
+    """At the overdrive ``resistor_loaded_edge_overdrive`` gives, the drain current of the square
+    law across the resistor leaves exactly VDS = VOV (the saturation–triode edge)."""
+    from bridge.devices.mos1.load import beta, resistor_loaded_edge_overdrive, square_law
+
+    model = Level1Model.from_card("nmos", {"vto": 0.6, "kp": 110e-6})
+    geometry = Level1Geometry(w=20e-6, l=2e-6)
+    gain = beta(model, geometry)
+    for resistance, span in ((10e3, 3.0), (47e3, 4.3), (1e3, 0.4)):
+        vov = resistor_loaded_edge_overdrive(gain, resistance, span)
+        current = square_law(model, geometry, vov, vov, "saturation")[0]
+        assert _close(span - resistance * current, vov, 1e-12)

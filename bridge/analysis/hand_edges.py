@@ -14,6 +14,7 @@ from dataclasses import dataclass
 
 from ..devices.level1 import beta, threshold
 from ..devices.mos1.instance import InstanceError, mosfet_instance
+from ..devices.mos1.load import resistor_loaded_edge_overdrive
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
 from ..vocabulary import Step
@@ -219,7 +220,7 @@ def common_source_edges(
     if span <= 0.0:
         return None
     rd = float(stage.drain_resistor.value or 0.0)
-    vov = 2.0 * span / (1.0 + math.sqrt(1.0 + 2.0 * k * rd * span))
+    vov = resistor_loaded_edge_overdrive(k, rd, span)
     vg_edge = vs + p * (vt + vov)
     vg_cut = vs + p * vt
     edge = (vg_edge - offset) / ratio

@@ -239,6 +239,13 @@ def triode_current_quadratic(
     )
 
 
+def resistor_loaded_edge_overdrive(gain: float, resistance: float, span: float) -> float:
+    """The overdrive at the saturation–triode edge (VDS = VOV, λ = 0) of a device of gain β whose
+    VDS is `span` less the drop of its current across `resistance`: VOV = span − R·(β/2)·VOV²,
+    the positive root written as 2·span/(1 + √(1 + 2·β·R·span)) (no cancellation)."""
+    return 2.0 * span / (1.0 + math.sqrt(1.0 + 2.0 * gain * resistance * span))
+
+
 def junction_current(voltage: float, saturation_current: float, gmin: float, thermal: float) -> tuple[float, float]:
     """mos1load.c's bulk junction: current and conductance, GMIN included; `thermal` is kT/q
     at the device temperature."""
