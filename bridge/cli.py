@@ -28,6 +28,7 @@ if TYPE_CHECKING:
 EXIT_OK, EXIT_FINDINGS, EXIT_INPUT = 0, 1, 2
 DEMO_NETLIST = "cs_divider.cir"
 SWEEP_NEGATIVE_VALUE = re.compile(r"^-\.?\d")
+MAX_SIM_TIMEOUT = 86400.0
 
 
 class _Parser(argparse.ArgumentParser):
@@ -99,8 +100,13 @@ def _positive_seconds(text: str) -> float:
         value = float(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"`{text}` is not a number of seconds") from None
+    if value != value:  # nan
+        raise argparse.ArgumentTypeError(f"`{text}` is not a number of seconds")
     if value <= 0:
         raise argparse.ArgumentTypeError("the timeout must be positive")
+    # inf reads as a float; the wait for ngspice takes whole milliseconds in a C int (epoll).
+    if not value <= MAX_SIM_TIMEOUT:
+        raise argparse.ArgumentTypeError(f"the timeout must be at most {MAX_SIM_TIMEOUT:.0f} seconds (a day)")
     return value
 
 
