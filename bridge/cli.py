@@ -13,6 +13,7 @@ import argparse
 import json
 import os
 import re
+import signal
 import sys
 from collections.abc import Sequence
 from pathlib import Path
@@ -243,6 +244,8 @@ def _check_output_path(target: str, inputs: set[str], option: str) -> None:
         raise ValueError(f"{option} {target}: {_unusable_folder(os.path.dirname(target) or '.')}")
     if os.path.isdir(resolved):
         raise ValueError(f"{option} {target} is a folder")
+    if not os.access(folder, os.W_OK | os.X_OK):  # said before the sweep runs, not after
+        raise ValueError(f"{option} {target}: the folder {os.path.dirname(target) or '.'} is not writable")
 
 
 def _unusable_folder(folder: str) -> str:
@@ -490,14 +493,32 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _terminated(signum: int, frame: object) -> None:
+    raise SystemExit(128 + signum)
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
+    # SIGTERM (a CI job cancelled or timed out) unwinds like Ctrl-C instead of ending the process
+    # on the spot: the ngspice worker and its temporary folder go, a half-written output's
+    # temporary file is removed.
+    installed = _main_thread()
+    previous = signal.signal(signal.SIGTERM, _terminated) if installed else None
     try:
         return args.run(args)
     except KeyboardInterrupt:
         return 130
     except BrokenPipeError:
         return EXIT_OK
+    finally:
+        if installed:
+            signal.signal(signal.SIGTERM, signal.SIG_DFL if previous is None else previous)
+
+
+def _main_thread() -> bool:
+    import threading
+
+    return threading.current_thread() is threading.main_thread()
 
 
 if __name__ == "__main__":
