@@ -146,7 +146,8 @@ def test_lint_gives_each_unusable_file_one_finding_and_goes_on(form):
 
 # The files `sweep` is quick to refuse, and a few stages it sweeps: the batch goes on through both.
 SWEEP_SAMPLE = sorted({*UNUSABLE_EXAMPLES, "cs_hive_scale.cir", "crlf_ends.cir", "long_line.cir", "nul_bytes.cir",
-                       "param_max_three.cir", "sf_hive_temp.cir", "huge_numbers.cir", "control_block.cir"})
+                       "param_max_three.cir", "sf_hive_temp.cir", "huge_numbers.cir", "control_block.cir",
+                       "extreme_diode_supply.cir", "extreme_length.cir", "extreme_supply.cir"})
 
 
 def _sweep_batch(netlists: list[str], options: str) -> None:
