@@ -26,7 +26,15 @@ from .sim.operating_point import (
     simulate_operating_point,
     submit_operating_point,
 )
-from .vocabulary import EFFECTS, Expectations, Finding, not_level1_finding, other_level_cards, simulator_failure
+from .vocabulary import (
+    EFFECT_NAMES,
+    EFFECTS,
+    Expectations,
+    Finding,
+    not_level1_finding,
+    other_level_cards,
+    simulator_failure,
+)
 
 
 class NotASingleStage(ValueError):
@@ -89,6 +97,22 @@ class OwnColumns:
     findings: tuple[Finding, ...]
 
 
+def _solved_with_each_effect(model: HandModel, hand: HandSolution, findings: list[Finding]) -> dict[str, HandSolution]:
+    """The hand model re-solved with each effect alone; an effect with which it has no solution
+    is left out of the causes, and a finding says so."""
+    solved: dict[str, HandSolution] = {}
+    for effect in EFFECTS:
+        try:
+            solved[effect] = model.solve(effects=frozenset({effect}), working=False, start=hand.node_voltages)
+        except HandAnalysisError as exc:
+            findings.append(Finding(
+                "info", "hand-unavailable",
+                f"hand analysis with {EFFECT_NAMES.get(effect, effect)} alone: {exc}; that effect is left out of "
+                "the causes", None, None,
+            ))
+    return solved
+
+
 def solve_own_columns(circuit: Circuit) -> OwnColumns:
     """The hand and level-1 columns of `circuit`; a column that fails becomes a finding."""
     if not circuit.elements_of("mosfet"):
@@ -110,10 +134,7 @@ def solve_own_columns(circuit: Circuit) -> OwnColumns:
         if hand.devices:
             # Started from the plain hand point: one effect moves it a little, and Newton from
             # there needs a few iterations where a start from zero can need the gmin ladder.
-            with_effect = {
-                effect: model.solve(effects=frozenset({effect}), working=False, start=hand.node_voltages)
-                for effect in EFFECTS
-            }
+            with_effect = _solved_with_each_effect(model, hand, findings)
 
     if hand.devices and not hand.closed_form:
         findings.append(

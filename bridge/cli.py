@@ -13,6 +13,7 @@ import argparse
 import json
 import os
 import re
+import signal
 import sys
 from collections.abc import Sequence
 from pathlib import Path
@@ -28,6 +29,7 @@ if TYPE_CHECKING:
 EXIT_OK, EXIT_FINDINGS, EXIT_INPUT = 0, 1, 2
 DEMO_NETLIST = "cs_divider.cir"
 SWEEP_NEGATIVE_VALUE = re.compile(r"^-\.?\d")
+MAX_SIM_TIMEOUT = 86400.0
 
 
 class _Parser(argparse.ArgumentParser):
@@ -99,8 +101,13 @@ def _positive_seconds(text: str) -> float:
         value = float(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"`{text}` is not a number of seconds") from None
+    if value != value:  # nan
+        raise argparse.ArgumentTypeError(f"`{text}` is not a number of seconds")
     if value <= 0:
         raise argparse.ArgumentTypeError("the timeout must be positive")
+    # inf reads as a float; the wait for ngspice takes whole milliseconds in a C int (epoll).
+    if not value <= MAX_SIM_TIMEOUT:
+        raise argparse.ArgumentTypeError(f"the timeout must be at most {MAX_SIM_TIMEOUT:.0f} seconds (a day)")
     return value
 
 
@@ -237,6 +244,8 @@ def _check_output_path(target: str, inputs: set[str], option: str) -> None:
         raise ValueError(f"{option} {target}: {_unusable_folder(os.path.dirname(target) or '.')}")
     if os.path.isdir(resolved):
         raise ValueError(f"{option} {target} is a folder")
+    if not os.access(folder, os.W_OK | os.X_OK):  # said before the sweep runs, not after
+        raise ValueError(f"{option} {target}: the folder {os.path.dirname(target) or '.'} is not writable")
 
 
 def _unusable_folder(folder: str) -> str:
@@ -665,14 +674,32 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _terminated(signum: int, frame: object) -> None:
+    raise SystemExit(128 + signum)
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
+    # SIGTERM (a CI job cancelled or timed out) unwinds like Ctrl-C instead of ending the process
+    # on the spot: the ngspice worker and its temporary folder go, a half-written output's
+    # temporary file is removed.
+    installed = _main_thread()
+    previous = signal.signal(signal.SIGTERM, _terminated) if installed else None
     try:
         return args.run(args)
     except KeyboardInterrupt:
         return 130
     except BrokenPipeError:
         return EXIT_OK
+    finally:
+        if installed:
+            signal.signal(signal.SIGTERM, signal.SIG_DFL if previous is None else previous)
+
+
+def _main_thread() -> bool:
+    import threading
+
+    return threading.current_thread() is threading.main_thread()
 
 
 if __name__ == "__main__":

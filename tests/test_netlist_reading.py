@@ -104,7 +104,7 @@ def test_missing_end_is_accepted_and_lines_after_end_ignored():
 
 def test_params_several_per_line_evaluated_in_order():
     circuit = parse(
-        "t\n.param a=2 b = {a*3} c='b-1'\n.param d={-a^2 + sqrt(16) * (1+1)} e={max(a, b, 1) / min(4, 8)}\n"
+        "t\n.param a=2 b = {a*3} c='b-1'\n.param d={-a^2 + sqrt(16) * (1+1)} e={max(a, b) / min(4, 8)}\n"
         ".param f={pow(2,3) + abs(-1) + exp(0) + ln(1) + log(1)} g={2**3}\n"
         "R1 a 0 {d*1k}\n"
     )

@@ -149,9 +149,11 @@ def _round_half_away(scaled: float, digits: int) -> str:
     text = f"{scaled:.{digits}g}"
     # Cheap first look: far from a tie (in float arithmetic, with room for its noise) %g is right.
     magnitude = abs(scaled)
-    kept = magnitude * 10.0 ** (digits - 1 - math.floor(math.log10(magnitude)))
-    if abs(kept - math.floor(kept) - 0.5) > 1e-9 * kept:
-        return text
+    shift = digits - 1 - math.floor(math.log10(magnitude))
+    if shift < 300:  # beyond, 10**shift overflows (a subnormal value): the exact look below decides
+        kept = magnitude * 10.0 ** shift
+        if abs(kept - math.floor(kept) - 0.5) > 1e-9 * kept:
+            return text
     decimal = f"{scaled:.{_NOISE_DIGITS - 1}e}"
     mantissa, _, power = decimal.partition("e")
     if mantissa.lstrip("-").replace(".", "")[digits:].rstrip("0") != "5":

@@ -109,7 +109,14 @@ def read_source(path: str | os.PathLike[str], display_name: str | None = None) -
                 Location(name, 1, 1),
             )
         with open(path, "rb") as handle:
-            data = handle.read()
+            # No more than the limit, whatever the size said: a device or a pipe (`/dev/zero`,
+            # `<(yes)`) reports size 0 and never ends.
+            data = handle.read(MAX_FILE_BYTES + 1)
+        if len(data) > MAX_FILE_BYTES:
+            raise NetlistError(
+                f"more than {MAX_FILE_BYTES // (1024 * 1024)} MiB to read: far beyond a single-stage netlist",
+                Location(name, 1, 1),
+            )
     except IsADirectoryError:
         raise NetlistError("is a directory, not a netlist file", Location(name, 1, 1)) from None
     except OSError as exc:
@@ -329,6 +336,10 @@ class _Reader:
         if len(self.include_stack) >= MAX_INCLUDE_DEPTH:
             raise card.error(f"includes nested deeper than {MAX_INCLUDE_DEPTH}", offset)
         if not target.is_file():
+            if target.is_dir():
+                raise card.error(f"included `{file_name}` is a folder, not a file ({target})", offset)
+            if target.exists():  # a device or a pipe: nothing a netlist includes
+                raise card.error(f"included `{file_name}` is not a regular file ({target})", offset)
             raise card.error(f"included file `{file_name}` not found (looked for {target})", offset)
         try:
             included = read_source(target, display_name=_display_name(target))
