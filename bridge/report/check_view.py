@@ -169,10 +169,12 @@ def _group_heading(result: CheckResult, group: CauseGroup) -> str:
     differences = f"{count} difference{'s' if count > 1 else ''}"
     if group.cause == REGION_CHANGE:
         return (f"cause: the region of {group.subject} — the hand analysis puts it in another region than "
-                f"{_reference_name(result)} and no effect switched on alone moves it there; its {differences} "
-                "below come with that region:")
+                f"{_reference_name(result)} and no effect switched on alone moves it there; "
+                f"{'its ' + differences + ' below come' if count > 1 else 'its difference below comes'} with that "
+                "region:")
+    which = f"each of the {differences}" if count > 1 else "the difference"
     return (f"cause: {EFFECT_NAMES.get(group.cause, group.cause)} — switched on alone in the hand model, it removes "
-            f"each of the {differences} below (none is flagged with it):")
+            f"{which} below (none is flagged with it):")
 
 
 def _reference_name(result: CheckResult) -> str:
