@@ -23,6 +23,7 @@ from . import __version__
 if TYPE_CHECKING:
     from rich.console import Console
 
+    from .compare import CheckResult
     from .netlist import Location
 
 EXIT_OK, EXIT_FINDINGS, EXIT_INPUT = 0, 1, 2
@@ -227,10 +228,10 @@ class _BatchView:
 
         self.view, self.args, self.console = batch_view, args, console
         self.verdicts: list[str] = []
-        self.detailed: list[object] = []  # the results whose full view follows the rows
+        self.detailed: list[CheckResult] = []  # the results whose full view follows the rows
         batch_view.print_line(console, batch_view.HEADING, "bold")
 
-    def row(self, result) -> None:  # noqa: ANN001 (a compare.CheckResult)
+    def row(self, result: CheckResult) -> None:
         row = self.view.batch_row(result, self.args.allow_region)
         self.view.print_row(self.console, row)
         self.verdicts.append(row.verdict)
