@@ -193,3 +193,15 @@ def test_a_progress_bar_on_a_terminal_from_two_netlists_on(batch_files):
     text = output.decode(errors="replace")
     assert "checking" in text and "━" in text, text  # the bar: its description and its track
     assert "2 stages: 1 agree, 1 disagree" in text
+
+
+def test_without_ngspice_the_rows_say_the_column_is_missing():
+    files = [str(EXAMPLES / "cs_divider.cir"), str(EXAMPLES / "cs_degenerated.cir")]
+    completed = cli_subprocess(["check", *files], NGSPICE_LIBRARY_PATH="/nonexistent/libngspice.so.0", NO_COLOR="1")
+    rows = completed.stdout.splitlines()[1:3]
+    assert rows[0] == (f"{files[0]} | common-source, divider bias | M1 sat/sat/—, id 240.7 µA vs — | "
+                       "cause: no ngspice column | agree")
+    # The body effect still explains the hand's differences from the level-1 solver.
+    assert rows[1].startswith(f"{files[1]} | common-source, divider bias, source resistor | M1 triode/sat/—, "
+                              "id 460.5 µA vs — | cause: body effect (GAMMA) (10 findings) | disagree")
+    assert completed.stdout.rstrip("\n").splitlines()[-1].startswith("2 stages: 1 agree, 1 disagree")
