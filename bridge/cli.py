@@ -24,6 +24,7 @@ from . import __version__
 if TYPE_CHECKING:
     from rich.console import Console
 
+    from .compare import CheckResult
     from .netlist import Location
 
 EXIT_OK, EXIT_FINDINGS, EXIT_INPUT = 0, 1, 2
@@ -141,8 +142,9 @@ def command_check(args: argparse.Namespace) -> int:
     if session is None:
         print(f"biasbridge: {hint}", file=sys.stderr)
     status = EXIT_OK
+    batch = _batch_view(args, console)
     progress = None
-    if len(args.files) > 3 and console.is_terminal and not args.json:
+    if len(args.files) >= 2 and console.is_terminal and sys.stderr.isatty() and not args.json:
         from rich.console import Console
         from rich.progress import Progress
 
@@ -157,7 +159,11 @@ def command_check(args: argparse.Namespace) -> int:
             print(item.rendered, file=sys.stderr)
             if args.json:
                 sys.stdout.write(json.dumps(unusable_json(item.file, item.message, item.location)) + "\n")
+            elif batch is not None:
+                batch.unusable(item.file, item.message)
             status = EXIT_INPUT
+            if progress is not None:
+                progress.advance(task)
             return
         assert isinstance(item, PendingCheck)
         try:
@@ -167,6 +173,8 @@ def command_check(args: argparse.Namespace) -> int:
             return
         if args.json:
             sys.stdout.write(json.dumps(check_json(result), allow_nan=False) + "\n")
+        elif batch is not None:
+            batch.row(result)
         else:
             print_check(console, check_renderable(result, steps=args.steps, allow_region=args.allow_region))
         # A stage that does not amplify is a finding too, unless --allow-region accepts it.
@@ -204,6 +212,10 @@ def command_check(args: argparse.Namespace) -> int:
                 report(done)
         for done in queue.rest():
             report(done)
+        if batch is not None:
+            if progress is not None:
+                progress.stop()
+            batch.finish()
     finally:
         prepared.close()
         if progress is not None:
@@ -213,11 +225,54 @@ def command_check(args: argparse.Namespace) -> int:
     return status
 
 
+class _BatchView:
+    """`check` on several netlists in text: a row per stage as each result comes (see
+    ``report.batch_view``), then the full view of the flagged stages (every stage's with
+    --details), then the summary line."""
+
+    def __init__(self, args: argparse.Namespace, console: Console) -> None:
+        from .report import batch_view
+
+        self.view, self.args, self.console = batch_view, args, console
+        self.verdicts: list[str] = []
+        self.detailed: list[CheckResult] = []  # the results whose full view follows the rows
+        batch_view.print_line(console, batch_view.HEADING, "bold")
+
+    def row(self, result: CheckResult) -> None:
+        row = self.view.batch_row(result, self.args.allow_region)
+        self.view.print_row(self.console, row)
+        self.verdicts.append(row.verdict)
+        if self.args.details or self.view.flagged(result, self.args.allow_region):
+            self.detailed.append(result)
+
+    def unusable(self, file: str, message: str) -> None:
+        row = self.view.unusable_row(file, message)
+        self.view.print_row(self.console, row)
+        self.verdicts.append(row.verdict)
+
+    def finish(self) -> None:
+        from .report.check_view import check_renderable, print_check
+
+        self.console.print()
+        for result in self.detailed:
+            print_check(self.console, check_renderable(result, steps=self.args.steps,
+                                                       allow_region=self.args.allow_region))
+        self.view.print_line(self.console, self.view.summary_line(self.verdicts, len(self.detailed)), "bold")
+
+
+def _batch_view(args: argparse.Namespace, console: Console) -> _BatchView | None:
+    """The batch view for text output of more than one netlist; None for one netlist or --json."""
+    if args.json or len(args.files) < 2:
+        return None
+    return _BatchView(args, console)
+
+
 def command_demo(args: argparse.Namespace) -> int:
     path = example_path(DEMO_NETLIST)
     _console().print(f"[bold]biasbridge demo[/bold]: check --steps on the bundled example {path.name}\n")
     demo_args = argparse.Namespace(
-        files=[str(path)], json=False, steps=True, tol=0.05, sim_timeout=10.0, expect=None, allow_region=False
+        files=[str(path)], json=False, steps=True, tol=0.05, sim_timeout=10.0, expect=None, allow_region=False,
+        details=False,
     )
     status = command_check(demo_args)
     return EXIT_OK if status == EXIT_FINDINGS else status
@@ -612,6 +667,8 @@ def build_parser() -> argparse.ArgumentParser:
     check.add_argument("--allow-region", action="store_true",
                        help="a device in cutoff or triode (a switch, say) is reported but does not make the exit "
                             "status 1")
+    check.add_argument("--details", action="store_true",
+                       help="with several netlists: the full table of every stage, not only of those flagged")
     check.set_defaults(run=command_check)
     sweep = verbs.add_parser(
         "sweep", help="the DC transfer curve: hand, level-1 and ngspice, with region edges and gain"

@@ -24,6 +24,7 @@ from .vocabulary import (
     COLUMNS,
     DEVICE_QUANTITIES,
     EFFECT_NAMES,
+    EFFECTS,
     SAT_MARGIN,
     UNITS,
     Expectation,
@@ -91,6 +92,8 @@ class CheckResult:
     has_expect: bool = False
     supplies: dict = field(default_factory=dict)  # name → bias_rules.Supply: current and power per column
     tolerance: float = DEFAULT_TOLERANCE  # the relative tolerance of the hand column
+    # Per effect (``vocabulary.EFFECTS``), what it settles switched on alone in the hand model: see ``Settled``.
+    settled_by: dict = field(default_factory=dict)  # effect → Settled
 
     @property
     def agree(self) -> bool:
@@ -307,6 +310,7 @@ def compare(
         steps=tuple(hand.steps),
         has_expect=expect is not None,
         tolerance=tolerance,
+        settled_by=_settled_by(circuit, hand, with_effect, nodes, devices, tolerance),
     )
 
 
@@ -587,3 +591,174 @@ def _swapped_finding(element, mos_type: str, devices: Mapping[str, object], refe
 
 def _listed(words: list[str]) -> str:
     return words[0] if len(words) == 1 else f"{', '.join(words[:-1])} and {words[-1]}"
+
+
+# --- causes of several differences at once -------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Settled:
+    """The hand comparisons one effect settles on its own: with only that effect switched on in the
+    hand model, each of these `quantities` (as ``Finding.quantity`` names them: `V(d)`, `M1 id`)
+    is within the hand tolerance of the reference column (or, for gds in saturation without λ,
+    not compared, as the plain hand model's), and each of these `regions` (device names) is the
+    reference column's region."""
+
+    quantities: tuple[str, ...] = ()
+    regions: tuple[str, ...] = ()
+
+
+def _settled_by(
+    circuit: Circuit, hand: HandSolution, with_effect: Mapping[str, HandSolution] | None,
+    nodes: Mapping[str, Columns], devices: Mapping[str, DeviceComparison], tolerance: float,
+) -> dict[str, Settled]:
+    """Per effect, the hand comparisons its re-solved hand model brings to the reference (see
+    ``Settled``), judged by the same rule as the hand column (``_differs``, tolerance or floor)."""
+    if not with_effect:
+        return {}
+    settled: dict[str, Settled] = {}
+    for effect, solution in with_effect.items():
+        quantities: list[str] = []
+        regions: list[str] = []
+        for node, columns in nodes.items():
+            reference = columns.sim if columns.sim is not None else columns.level1
+            value = solution.node_voltages.get(node)
+            if value is not None and reference is not None and not _differs(value, reference, tolerance,
+                                                                             HAND_FLOOR["V"]):
+                quantities.append(f"V({node})")
+        for name, device in devices.items():
+            moved = solution.devices.get(name)
+            if moved is None or hand.devices.get(name) is None:
+                continue
+            reference_region = device.region.get(device.reference_column)
+            if reference_region is not None and moved.region == reference_region:
+                regions.append(name)
+            for quantity in DEVICE_QUANTITIES:
+                reference = device.quantities[quantity].get(device.reference_column)
+                value = None if quantity == "vov" and _runs_swapped(moved) else getattr(moved, quantity)
+                assumed = quantity == "gds" and moved.region == "saturation" and effect != "lambda"
+                if assumed or (value is not None and reference is not None
+                               and not _differs(value, reference, tolerance, HAND_FLOOR[UNITS[quantity]])):
+                    quantities.append(f"{name} {quantity}")
+        settled[effect] = Settled(tuple(quantities), tuple(regions))
+    return settled
+
+
+REGION_CHANGE = "region"  # a cause group led by a device's region disagreement (no effect alone settles it)
+HAND_DIFFERS, REGION_MISMATCH, CAUSE = "hand-differs", "region-mismatch", "cause"
+
+
+@dataclass(frozen=True)
+class CauseGroup:
+    """Findings (indices into ``CheckResult.findings``) that one cause explains.
+
+    `cause` is an effect of ``vocabulary.EFFECTS`` — switched on alone in the hand model it settles
+    every finding in `findings` (see ``Settled``) — or ``REGION_CHANGE``: the hand analysis puts
+    device `subject` in another region than the reference and no effect alone moves it there; the
+    findings are that device's own hand differences. `stated_by`: the findings that state the
+    cause (the devices' `cause` lines; for a region change, its `region-mismatch` finding)."""
+
+    cause: str
+    subject: str | None
+    stated_by: tuple[int, ...]
+    findings: tuple[int, ...]
+
+
+def cause_groups(result: CheckResult) -> tuple[CauseGroup, ...]:
+    """The hand differences of `result` grouped by the cause that explains them, from the data the
+    comparison holds (``CheckResult.settled_by``), never from the findings' text.
+
+    Each finding is in one group at most: a hand difference that several effects settle goes to the
+    effect that settles the most findings (``EFFECTS`` order on a tie). A group holds at least one
+    explained finding. Effect groups come first, largest first; then region changes, in device order.
+    """
+    findings = result.findings
+    explainable = {
+        index: finding for index, finding in enumerate(findings)
+        if finding.code == HAND_DIFFERS or finding.code == REGION_MISMATCH
+    }
+
+    def settles(effect: str, finding: Finding) -> bool:
+        settled = result.settled_by.get(effect)
+        if settled is None:
+            return False
+        if finding.code == REGION_MISMATCH:
+            return finding.subject in settled.regions
+        return finding.quantity in settled.quantities
+
+    reach = {
+        effect: [index for index, finding in explainable.items() if settles(effect, finding)]
+        for effect in EFFECTS if effect in result.settled_by
+    }
+    order = sorted(reach, key=lambda effect: (-len(reach[effect]), EFFECTS.index(effect)))
+    taken: set[int] = set()
+    stated: set[int] = set()
+    groups: list[CauseGroup] = []
+    for effect in order:
+        members = [index for index in reach[effect] if index not in taken]
+        if not members:
+            continue
+        taken.update(members)
+        subjects = {findings[index].subject for index in members}
+        statements = [
+            index for index, finding in enumerate(findings)
+            if finding.code == CAUSE and finding.subject in subjects and index not in stated
+        ]
+        stated.update(statements)
+        groups.append(CauseGroup(effect, None, tuple(statements), tuple(members)))
+    for index, finding in explainable.items():
+        if finding.code != REGION_MISMATCH or index in taken:
+            continue
+        members = [
+            other for other, candidate in explainable.items()
+            if candidate.code == HAND_DIFFERS and candidate.subject == finding.subject and other not in taken
+        ]
+        if members:
+            taken.update(members)
+            taken.add(index)
+            groups.append(CauseGroup(REGION_CHANGE, finding.subject, (index,), tuple(members)))
+    return tuple(groups)
+
+
+NO_SIMULATOR = "no-simulator"  # a leading cause: ngspice gave no column (not installed, or it failed)
+
+
+@dataclass(frozen=True)
+class LeadingCause:
+    """The one cause a one-line summary of a check names (``leading_cause``): an effect of
+    ``vocabulary.EFFECTS``, ``REGION_CHANGE`` (with its device as `subject`) or ``NO_SIMULATOR``;
+    `explains` the number of findings its group explains (0 when no finding is flagged)."""
+
+    cause: str
+    subject: str | None = None
+    explains: int = 0
+
+
+def leading_cause(result: CheckResult) -> LeadingCause | None:
+    """The cause that explains the most flagged findings (the first of ``cause_groups``); without
+    one, a missing ngspice column; else, when a `cause` finding states the hand id's difference,
+    the effect that moves the hand id most on its own (``DeviceComparison.attribution``, largest
+    first); else None."""
+    groups = cause_groups(result)
+    if groups:
+        group = groups[0]
+        return LeadingCause(group.cause, group.subject, len(group.findings))
+    if any(device.region.get("sim") is None for device in result.devices.values()) and any(
+        finding.code == NO_SIMULATOR or finding.code.startswith("sim-") and finding.severity == "error"
+        for finding in result.findings
+    ):
+        return LeadingCause(NO_SIMULATOR)
+    for name, device in result.devices.items():
+        stated = any(finding.code == CAUSE and finding.subject == name for finding in result.findings)
+        largest = next((effect for effect, change in device.attribution.items() if change), None)
+        if stated and largest is not None:
+            return LeadingCause(largest, name)
+    return None
+
+
+def hand_difference(columns: Columns, unit: str = "A") -> str | None:
+    """The hand value's difference from ngspice's as the findings state it (a percentage, or an
+    absolute difference from a value at the solver's resolution); None without both values."""
+    if columns.hand is None or columns.sim is None:
+        return None
+    return _difference(columns.hand, columns.sim, columns.resolution, unit)

@@ -42,9 +42,10 @@ def saturation_overdrive(k: float, drive: float, resistance: float) -> float:
 
 @pytest.fixture(scope="module")
 def table_text() -> dict[str, str]:
-    """`check --steps` on two bundled stages, colour off and wide, split per netlist."""
+    """`check --steps --details` on two bundled stages (every stage's full view after the batch
+    rows), colour off and wide, split per netlist."""
     files = [EXAMPLES / "cs_degenerated.cir", EXAMPLES / "cs_divider.cir"]
-    completed = cli_subprocess(["check", "--steps", *map(str, files)], NO_COLOR="1", COLUMNS="250")
+    completed = cli_subprocess(["check", "--steps", "--details", *map(str, files)], NO_COLOR="1", COLUMNS="250")
     assert completed.returncode == 1, completed.stderr
     text = completed.stdout
     starts = [text.index(f"{path}: ") for path in files]
@@ -110,13 +111,16 @@ def test_steps_show_the_divider_the_kept_root_and_the_region_check(table_text):
 @needs_library
 def test_findings_and_verdict_lines_follow_the_table(table_text):
     degenerated = table_text["cs_degenerated.cir"].splitlines()
-    assert any(re.fullmatch(r"warning: V\(d\): hand 1\.224 V vs ngspice 1\.671 V \(.*\) \[hand-differs\]", line)
-               for line in degenerated)
-    assert ("warning: line 8: M1: the hand analysis puts it in triode, ngspice in saturation; body effect "
-            "(GAMMA) alone moves the hand model to saturation [region-mismatch]") in degenerated
-    assert any(line.startswith("info: line 8: M1: the body effect (GAMMA = 0.45") and line.endswith("[cause]")
-               for line in degenerated)
-    assert "→ disagreement flagged" in degenerated
+    # The body effect explains them all: its heading leads, the findings follow indented under it.
+    heading = next(i for i, line in enumerate(degenerated) if line.startswith("cause: body effect (GAMMA) — "))
+    grouped = degenerated[heading + 1:]
+    assert any(re.fullmatch(r"  warning: V\(d\): hand 1\.224 V vs ngspice 1\.671 V \(.*\) \[hand-differs\]", line)
+               for line in grouped)
+    assert ("  warning: line 8: M1: the hand analysis puts it in triode, ngspice in saturation; body effect "
+            "(GAMMA) alone moves the hand model to saturation [region-mismatch]") in grouped
+    assert any(line.startswith("  info: line 8: M1: the body effect (GAMMA = 0.45") and line.endswith("[cause]")
+               for line in grouped)
+    assert "→ disagreement flagged" in grouped
     assert "→ all three agree within tolerance" in table_text["cs_divider.cir"].splitlines()
 
 

@@ -12,9 +12,9 @@ from __future__ import annotations
 import math
 from typing import TYPE_CHECKING, Any
 
-from ..compare import HAND_FLOOR, NOT_AMPLIFYING, CheckResult, Columns
+from ..compare import HAND_FLOOR, NOT_AMPLIFYING, REGION_CHANGE, CauseGroup, CheckResult, Columns, cause_groups
 from ..netlist.numbers import engineering
-from ..vocabulary import COLUMN_NAMES, COLUMN_TITLES, COLUMNS, SAT_MARGIN, UNITS
+from ..vocabulary import COLUMN_NAMES, COLUMN_TITLES, COLUMNS, EFFECT_NAMES, SAT_MARGIN, UNITS, Finding
 from .table_layout import Cell, Header, Line, Part, Table, View, print_view
 
 if TYPE_CHECKING:
@@ -131,14 +131,56 @@ def check_renderable(result: CheckResult, steps: bool = False, *, allow_region: 
             parts.append(Line(f"  {number:>2}. {step.text}"))
             if step.equation:
                 parts.append(Line(f"      {step.equation}", "cyan"))
-    for finding in result.findings:
-        where = f"line {finding.line}: " if finding.line else ""
-        severity = "info" if finding.code == NOT_AMPLIFYING and allow_region else finding.severity
-        style = "" if finding.code in PLAIN_INFO else SEVERITY_STYLE.get(severity, "")
-        parts.append(Line(f"{severity}: {where}{finding.message} [{finding.code}]", style))
+    parts += finding_lines(result, allow_region)
     verdict, style = _verdict(result, allow_region)
     parts.append(Line(f"→ {verdict}", style))
     return View(parts)
+
+
+def _finding_line(finding: Finding, allow_region: bool, indent: str = "") -> Line:
+    where = f"line {finding.line}: " if finding.line else ""
+    severity = "info" if finding.code == NOT_AMPLIFYING and allow_region else finding.severity
+    style = "" if finding.code in PLAIN_INFO else SEVERITY_STYLE.get(severity, "")
+    return Line(f"{indent}{severity}: {where}{finding.message} [{finding.code}]", style)
+
+
+def finding_lines(result: CheckResult, allow_region: bool = False) -> list[Line]:
+    """The findings in their order, but each cause group (``compare.cause_groups``) together, where
+    its first finding would be: a heading naming the cause, the lines that state it, then the
+    differences it explains, indented under it."""
+    groups = cause_groups(result)
+    first = {min((*group.stated_by, *group.findings)): group for group in groups}
+    grouped = {index for group in groups for index in (*group.stated_by, *group.findings)}
+    lines: list[Line] = []
+    for index, finding in enumerate(result.findings):
+        group = first.get(index)
+        if group is not None:
+            lines.append(Line(_group_heading(result, group), "bold"))
+            lines += [_finding_line(result.findings[i], allow_region, "  ") for i in group.stated_by]
+            lines += [_finding_line(result.findings[i], allow_region, "  ") for i in group.findings]
+        elif index not in grouped:
+            lines.append(_finding_line(finding, allow_region))
+    return lines
+
+
+def _group_heading(result: CheckResult, group: CauseGroup) -> str:
+    """What one cause explains, said before its lines: from the group's data, nothing computed."""
+    count = len(group.findings)
+    differences = f"{count} difference{'s' if count > 1 else ''}"
+    if group.cause == REGION_CHANGE:
+        return (f"cause: the region of {group.subject} — the hand analysis puts it in another region than "
+                f"{_reference_name(result)} and no effect switched on alone moves it there; "
+                f"{'its ' + differences + ' below come' if count > 1 else 'its difference below comes'} with that "
+                "region:")
+    which = f"each of the {differences}" if count > 1 else "the difference"
+    return (f"cause: {EFFECT_NAMES.get(group.cause, group.cause)} — switched on alone in the hand model, it removes "
+            f"{which} below (none is flagged with it):")
+
+
+def _reference_name(result: CheckResult) -> str:
+    """The column every other is judged against: ngspice, else the level-1 solver."""
+    device = next(iter(result.devices.values()), None)
+    return COLUMN_NAMES[device.reference_column if device is not None else "sim"]
 
 
 def _add_supply_rows(table: Table, result: CheckResult, shown: tuple[str, ...]) -> None:
@@ -193,4 +235,12 @@ def check_json(result: CheckResult) -> dict[str, Any]:
         ],
         "agree": result.agree,
         "amplifies": result.amplifies,
+        "groups": [group_json(group) for group in cause_groups(result)],
     }
+
+
+def group_json(group: CauseGroup) -> dict[str, Any]:
+    """One cause group of `check --json`: the cause (an effect, or "region" with its device), and
+    the indices into "findings" of the lines that state it and of the findings it explains."""
+    return {"cause": group.cause, "subject": group.subject, "stated_by": list(group.stated_by),
+            "findings": list(group.findings)}
