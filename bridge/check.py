@@ -473,10 +473,15 @@ def equivalent_columns(
         multiplier = float(element.params.get("m", 1.0))
         name = f"{card.name}_l1" if users[card.name] == 1 else re.sub(r"\W", "_", f"{card.name}_l1_{element.name}")
         instance = {k: float(element.params[k]) for k in ("temp", "dtemp") if k in element.params}
+        # A device running with drain and source swapped (vds < 0) is fitted where it works: from
+        # the terminal acting as source (vgd, vsd, vbd and the current out of the drain terminal).
+        vgs, vds, vbs, current = device.vgs, device.vds, device.vbs, device.id
+        if vds < 0:
+            vgs, vds, vbs, current = vgs - vds, -vds, vbs - vds, -current
         try:
             found = equivalent_at_operating_point(
-                session, card, name, geometry, (device.vgs, device.vds), device.vbs, device.id / multiplier,
-                max(span, abs(device.vgs), abs(device.vds), 0.5), circuit.device_temperature(element),
+                session, card, name, geometry, (vgs, vds), vbs, current / multiplier,
+                max(span, abs(vgs), abs(vds), 0.5), circuit.device_temperature(element),
                 temperature_cards, instance, timeout,
             )  # fmt: skip
         except (FitError, SimulatorError) as exc:
@@ -492,6 +497,7 @@ def equivalent_columns(
             name, card.name, card.level, found.card.name, found.values.vto, found.values.kp, found.values.lambda_,
             found.geometry.w, found.geometry.l, found.temperature, found.vbs, found.around, found.rms_around,
             found.at_point, found.error, found.points_used, found.below_floor,
+            (sim.devices[name].vds or 0.0) < 0,
         )  # fmt: skip
         for name, (element, card, found) in equivalents.items()
     }
@@ -554,8 +560,11 @@ def _equivalent_finding(element, equivalent: FittedEquivalent) -> Finding:
         f"VTO = {engineering(equivalent.vto, 'V')}, KP = {engineering(equivalent.kp, 'A/V²')}, "
         f"LAMBDA = {equivalent.lambda_:.4g} /V",
         f"W = {engineering(equivalent.w, 'm')}, L = {engineering(equivalent.l, 'm')}, "
-        f"{equivalent.temperature:g} °C, VBS = {engineering(equivalent.vbs, 'V')}",
-        f"VGS = {engineering(vgs, 'V')}, VDS = {engineering(vds, 'V')}",
-        f"{100 * equivalent.rms_around:.1f} %", f"{100 * equivalent.at_point:+.1f} %",
+        f"{equivalent.temperature:g} °C, VBS = {engineering(equivalent.vbs, 'V')}"
+        + (" (from the drain terminal)" if equivalent.swapped else ""),
+        f"VGS = {engineering(vgs, 'V')}, VDS = {engineering(vds, 'V')}"
+        + (", seen from the drain terminal, which acts as source" if equivalent.swapped else ""),
+        f"{100 * equivalent.rms_around:.1f} %",
+        f"{100 * equivalent.at_point:+.1f} %" if math.isfinite(equivalent.at_point) else "not defined (no current)",
         f"{100 * equivalent.error:.1f} %", equivalent.below_floor,
     )  # fmt: skip

@@ -101,6 +101,7 @@ class FittedEquivalent:
     error: float  # the larger of the two: the KP scaling the level-1 column's allowance comes from
     points_used: int
     below_floor: bool = False  # ngspice's id there is below the fit's floor: weak inversion, no square law
+    swapped: bool = False  # runs with drain and source swapped: `around` and `vbs` seen from the drain terminal
 
 
 @dataclass(frozen=True)

@@ -335,3 +335,33 @@ def test_the_check_text_shows_the_equivalent_line_and_legend(stage_files, requir
                      r"RMS error [\d.]+ % there", flat)  # fmt: skip
     assert "level-1: 0.2 % plus what the fitted equivalent's error allows" in flat
     assert "need level-1 model cards" not in flat
+
+
+SWAPPED = """\
+Beehive heater switch wired upside down: PMOS with its source terminal at ground, level-3 card
+VDD vdd 0 DC 3.3
+VG g 0 DC 0
+RL vdd d 10k
+M1 d g 0 vdd PSW W=20u L=2u
+.model PSW pmos (level=3 vto=-0.7 kp=30u theta=0.05)
+.op
+.end
+"""
+
+
+def test_a_device_running_swapped_is_fitted_from_the_terminal_acting_as_source(tmp_path, required_ngspice_session):
+    path = tmp_path / "swapped.cir"
+    path.write_text(SWAPPED)
+    result = checked(path, required_ngspice_session)
+    columns = result.devices["M1"].quantities
+    assert columns["vds"].sim < 0  # ngspice runs it in mode −1
+    equivalent = result.fitted.equivalents["M1"]
+    assert equivalent.swapped
+    # Fitted at (vgd, vsd, vbd) in device polarity, where the device works.
+    assert equivalent.around[0] == pytest.approx(columns["vgs"].sim - columns["vds"].sim)
+    assert equivalent.around[1] == pytest.approx(-columns["vds"].sim)
+    assert abs(equivalent.at_point) < 0.05
+    said = next(f.message for f in result.findings if f.code == "fitted-equivalent")
+    assert "seen from the drain terminal, which acts as source" in said and "(from the drain terminal)" in said
+    assert "solver-differs" not in codes(result)
+    assert abs(columns["id"].level1 / columns["id"].sim - 1.0) <= equivalent.error + 2e-3
