@@ -365,3 +365,32 @@ def test_a_device_running_swapped_is_fitted_from_the_terminal_acting_as_source(t
     assert "seen from the drain terminal, which acts as source" in said and "(from the drain terminal)" in said
     assert "solver-differs" not in codes(result)
     assert abs(columns["id"].level1 / columns["id"].sim - 1.0) <= equivalent.error + 2e-3
+
+
+SUBTHRESHOLD = """\
+Beehive scale standby: NMOS held just below threshold by its divider, BSIM3 card of our own
+VDD vdd 0 DC 3.3
+R1 vdd gate 1meg
+R2 gate 0 150k
+RD vdd drain 20k
+M1 drain gate 0 0 NHIVE W=4u L=0.6u
+.model NHIVE nmos (level=8 version=3.3.0 tox=8n vth0=0.55 u0=380 k1=0.6)
+.op
+.end
+"""
+
+
+def test_a_device_in_weak_inversion_keeps_its_level1_id_out_of_the_comparison(tmp_path, required_ngspice_session):
+    """ngspice's BSIM3 card conducts a subthreshold current the square law has no term for: the
+    equivalent cannot be judged there, and the finding says so instead of calling it a defect."""
+    path = tmp_path / "standby.cir"
+    path.write_text(SUBTHRESHOLD)
+    result = checked(path, required_ngspice_session)
+    columns = result.devices["M1"].quantities["id"]
+    equivalent = result.fitted.equivalents["M1"]
+    assert equivalent.below_floor and columns.sim > 0 and columns.level1 < 0.5 * columns.sim
+    assert "level1" not in columns.compared and "level1" not in columns.flagged
+    assert equivalent.error == equivalent.rms_around  # the point's own error (the square law's zero) is not used
+    said = next(f.message for f in result.findings if f.code == "fitted-equivalent")
+    assert "below the fit's floor, in weak inversion" in said and "level-1 id of this device is not compared" in said
+    assert "solver-differs" not in codes(result)
