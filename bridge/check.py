@@ -453,7 +453,7 @@ def equivalent_columns(
     users: dict[str, int] = {}
     for _, card in other_levels:
         users[card.name] = users.get(card.name, 0) + 1
-    span = max(sim.node_voltages.values(), default=0.0) - min(0.0, *sim.node_voltages.values())
+    span = max([0.0, *sim.node_voltages.values()]) - min([0.0, *sim.node_voltages.values()])
     temperature_cards = tuple(d for d in circuit.directives if d.kind == "temp"
                               or (d.kind == "options" and any(k in ("temp", "tnom") for k, _ in d.settings)))
     models = dict(circuit.models)
@@ -472,6 +472,8 @@ def equivalent_columns(
             return not_level1_finding(other_levels, f"{element.name}: {exc}")
         multiplier = float(element.params.get("m", 1.0))
         name = f"{card.name}_l1" if users[card.name] == 1 else re.sub(r"\W", "_", f"{card.name}_l1_{element.name}")
+        while name.lower() in models:  # never in place of a card the netlist has
+            name += "_"
         instance = {k: float(element.params[k]) for k in ("temp", "dtemp") if k in element.params}
         # A device running with drain and source swapped (vds < 0) is fitted where it works: from
         # the terminal acting as source (vgd, vsd, vbd and the current out of the drain terminal).
@@ -484,7 +486,7 @@ def equivalent_columns(
                 max(span, abs(vgs), abs(vds), 0.5), circuit.device_temperature(element),
                 temperature_cards, instance, timeout,
             )  # fmt: skip
-        except (FitError, SimulatorError) as exc:
+        except (FitError, ValueError, SimulatorError) as exc:
             return not_level1_finding(other_levels, f"the fit of {card.name} for {element.name} failed: {exc}")
         models[name.lower()] = found.card
         renamed[element.name] = name

@@ -394,3 +394,20 @@ def test_a_device_in_weak_inversion_keeps_its_level1_id_out_of_the_comparison(tm
     said = next(f.message for f in result.findings if f.code == "fitted-equivalent")
     assert "below the fit's floor, in weak inversion" in said and "level-1 id of this device is not compared" in said
     assert "solver-differs" not in codes(result)
+
+
+def test_a_level1_region_on_the_equivalent_that_differs_from_ngspices_is_an_info_not_a_solver_error(
+    tmp_path, required_ngspice_session
+):
+    """Near the saturation edge (RD = 84 kΩ here) the equivalent's VTO puts the level-1 column in
+    triode where the BSIM3 card's vth keeps ngspice in saturation: said as it is, not as a defect."""
+    path = tmp_path / "edge.cir"
+    path.write_text(STAGES["bsim3_nmos.cir"].replace("RD vdd drain 20k", "RD vdd drain 84k"))
+    result = checked(path, required_ngspice_session)
+    device = result.devices["M1"]
+    assert device.region["level1"] == "triode" and device.region["sim"] == "saturation"
+    said = [f for f in result.findings if f.code == "equivalent-region"]
+    assert len(said) == 1 and said[0].severity == "info" and "level-1 region is not compared" in said[0].message
+    assert "level1" not in device.region_compared and "level1" not in device.region_flagged
+    assert "solver-region-mismatch" not in codes(result) and "solver-differs" not in codes(result)
+    assert "region-mismatch" in codes(result)  # the hand column is judged as usual
