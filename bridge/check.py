@@ -9,6 +9,8 @@ the next netlist's check (and send its deck) before comparing and printing this 
 
 from __future__ import annotations
 
+import math
+import re
 from collections import deque
 from collections.abc import Iterator
 from dataclasses import dataclass, replace
@@ -16,8 +18,11 @@ from dataclasses import dataclass, replace
 from .analysis.dcsolve import DcSolveError, OperatingPoint, solve_operating_point
 from .analysis.hand import HandAnalysisError, HandModel, HandSolution
 from .bias_rules import bias_findings, device_vector_findings, inconsistent_device_vectors, supplies
-from .compare import CheckResult, compare
+from .compare import CheckResult, FittedEquivalent, FittedTolerance, compare
+from .devices.mos1.instance import default_size
+from .devices.mos1.load import Level1Geometry
 from .netlist.circuit import Circuit, Directive
+from .netlist.numbers import engineering
 from .netlist.source import NOTICE_SEVERITY, notice_in
 from .sim.client import NgspiceSession, SimulatorError
 from .sim.operating_point import (
@@ -27,10 +32,12 @@ from .sim.operating_point import (
     submit_operating_point,
 )
 from .vocabulary import (
+    DEVICE_QUANTITIES,
     EFFECT_NAMES,
     EFFECTS,
     Expectations,
     Finding,
+    fitted_equivalent_finding,
     not_level1_finding,
     other_level_cards,
     simulator_failure,
@@ -252,21 +259,32 @@ class PendingCheck:
         self.collect()
         own = self.own
         assert own is not None
+        circuit, fitted = self.circuit, None
+        if own.level1 is None and circuit.other_level_mosfets() and not own.hand.devices:
+            equivalent = equivalent_columns(circuit, self.session, self._sim, self.sim_timeout)
+            if isinstance(equivalent, Finding):
+                own = replace(own, findings=tuple(equivalent if f.code == "not-level-1" else f for f in own.findings))
+            else:  # hand and level-1 on the equivalents; ngspice's column stays the card's
+                circuit, own, fitted = equivalent.circuit, equivalent.own, equivalent.fitted
         notices = [Finding(NOTICE_SEVERITY, n.code, *notice_in(n, self.circuit.source_file), None)
                    for n in self.circuit.notices]
-        supply_table = supplies(self.circuit, own.hand, own.level1, self._sim)
-        rules = bias_findings(self.circuit, own.hand, own.level1, self._sim, supply_table)
+        supply_table = supplies(circuit, own.hand, own.level1, self._sim)
+        rules = bias_findings(circuit, own.hand, own.level1, self._sim, supply_table)
         rules += device_vector_findings(self.circuit, self._sim)
         findings_before = (*notices, *own.findings, *self.findings, *rules)
 
         def compared(converged: SimOperatingPoint | None = None) -> tuple[CheckResult, tuple[Finding, ...]]:
             result = compare(
-                self.circuit, own.hand, own.level1, self._sim,
+                circuit, own.hand, own.level1, self._sim,
                 simulator=self._simulator, tolerance=self.tolerance,
                 with_effect=own.with_effect,
-                expect=self.expect, findings=findings_before, converged=converged,
+                expect=self.expect, findings=findings_before, converged=converged, fitted=fitted,
             )
-            return result, _without_disproved(result.findings, self.circuit, own.level1, self._sim)
+            if fitted is not None:  # the devices under their own card's name
+                result = replace(result, devices={
+                    name: replace(device, model=self.circuit.element(name).model or "")
+                    for name, device in result.devices.items()})  # fmt: skip
+            return result, _without_disproved(result.findings, circuit, own.level1, self._sim)
 
         result, findings = compared()
         if own.level1 is not None and self._sim is not None and any(f.code == SOLVER_DIFFERS for f in findings):
@@ -417,3 +435,152 @@ class CheckQueue:
             item.collect()
             self._send()  # the next deck goes to ngspice before this check is compared and printed
         return item
+
+
+@dataclass(frozen=True)
+class EquivalentColumns:
+    """Hand and level-1 columns of a circuit whose MOSFET cards are not all level 1, solved with
+    each such device's level-1 equivalent (``fit.equivalent.equivalent_at_operating_point``):
+    the circuit with those cards in place of the originals, its own columns, and what ``compare``
+    needs to judge them."""
+
+    circuit: Circuit
+    own: OwnColumns
+    fitted: FittedTolerance
+
+
+def equivalent_columns(
+    circuit: Circuit, session: NgspiceSession | None, sim: SimOperatingPoint | None, timeout: float,
+) -> EquivalentColumns | Finding:  # fmt: skip
+    """The own columns on level-1 equivalents fitted around ngspice's operating point, one `.dc`
+    grid per device; or the `not-level-1` finding saying why no equivalent could be made."""
+    other_levels = circuit.other_level_mosfets()
+    if session is None:
+        return not_level1_finding(other_levels, "a level-1 equivalent is fitted around ngspice's operating "
+                                                "point, and ngspice is not available")  # fmt: skip
+    if sim is None:
+        return not_level1_finding(other_levels, "a level-1 equivalent is fitted around ngspice's operating "
+                                                "point, and ngspice gave none")  # fmt: skip
+    from .fit.equivalent import equivalent_at_operating_point
+    from .fit.least_squares import FitError
+
+    users: dict[str, int] = {}
+    for _, card in other_levels:
+        users[card.name] = users.get(card.name, 0) + 1
+    span = max([0.0, *sim.node_voltages.values()]) - min([0.0, *sim.node_voltages.values()])
+    temperature_cards = tuple(d for d in circuit.directives if d.kind == "temp"
+                              or (d.kind == "options" and any(k in ("temp", "tnom") for k, _ in d.settings)))
+    models = dict(circuit.models)
+    renamed: dict[str, str] = {}
+    equivalents = {}
+    for element, card in other_levels:
+        device = sim.devices.get(element.name)
+        missing = [q for q in ("id", "vgs", "vds", "vbs") if device is None or getattr(device, q) is None]
+        if missing:
+            return not_level1_finding(other_levels, f"ngspice reports no {', '.join(missing)} for {element.name}, "
+                                                    "and the equivalent is fitted around them")  # fmt: skip
+        width, length = default_size(circuit)
+        try:
+            geometry = Level1Geometry(float(element.params.get("w", width)), float(element.params.get("l", length)))
+        except (TypeError, ValueError) as exc:
+            return not_level1_finding(other_levels, f"{element.name}: {exc}")
+        multiplier = float(element.params.get("m", 1.0))
+        name = f"{card.name}_l1" if users[card.name] == 1 else re.sub(r"\W", "_", f"{card.name}_l1_{element.name}")
+        while name.lower() in models:  # never in place of a card the netlist has
+            name += "_"
+        instance = {k: float(element.params[k]) for k in ("temp", "dtemp") if k in element.params}
+        # A device running with drain and source swapped (vds < 0) is fitted where it works: from
+        # the terminal acting as source (vgd, vsd, vbd and the current out of the drain terminal).
+        vgs, vds, vbs, current = device.vgs, device.vds, device.vbs, device.id
+        if vds < 0:
+            vgs, vds, vbs, current = vgs - vds, -vds, vbs - vds, -current
+        try:
+            found = equivalent_at_operating_point(
+                session, card, name, geometry, (vgs, vds), vbs, current / multiplier,
+                max(span, abs(vgs), abs(vds), 0.5), circuit.device_temperature(element),
+                temperature_cards, instance, timeout,
+            )  # fmt: skip
+        except (FitError, ValueError, SimulatorError) as exc:
+            return not_level1_finding(other_levels, f"the fit of {card.name} for {element.name} failed: {exc}")
+        models[name.lower()] = found.card
+        renamed[element.name] = name
+        equivalents[element.name] = (element, card, found)
+    elements = tuple(replace(e, model=renamed[e.name]) if e.name in renamed else e for e in circuit.elements)
+    fitted_circuit = replace(circuit, elements=elements, models=models)
+    own = solve_own_columns(fitted_circuit)
+    summaries = {
+        name: FittedEquivalent(
+            name, card.name, card.level, found.card.name, found.values.vto, found.values.kp, found.values.lambda_,
+            found.geometry.w, found.geometry.l, found.temperature, found.vbs, found.around, found.rms_around,
+            found.at_point, found.error, found.points_used, found.below_floor,
+            (sim.devices[name].vds or 0.0) < 0,
+        )  # fmt: skip
+        for name, (element, card, found) in equivalents.items()
+    }
+    findings = tuple(_equivalent_finding(element, summaries[element.name]) for element, _, _ in
+                     equivalents.values())  # fmt: skip
+    allowance = _fitted_allowance(fitted_circuit, own.level1, {n: s.error for n, s in summaries.items()}, renamed)
+    own = replace(own, findings=(*findings, *own.findings))
+    return EquivalentColumns(fitted_circuit, own, FittedTolerance(summaries, allowance))
+
+
+def _fitted_allowance(
+    circuit: Circuit, level1: OperatingPoint | None, errors: dict[str, float], cards: dict[str, str],
+) -> dict[str, float]:  # fmt: skip
+    """Per quantity (`V(d)`, `M1 id`), how far the level-1 column may be from ngspice's because the
+    equivalents are not the cards: each device's KP scaled by 1 ± its fit error (its current scaled
+    by as much, at any bias), the circuit re-solved, and the largest moves added over the devices
+    (first order). A quantity whose re-solve fails gets no bound (infinite)."""
+    if level1 is None:
+        return {}
+    base = _column_values(circuit, level1)
+    allowance = dict.fromkeys(base, 0.0)
+    for device, error in errors.items():
+        card = circuit.models[cards[device].lower()]
+        shift = dict.fromkeys(base, 0.0)
+        for factor in (1.0 - error, 1.0 + error):
+            if not (math.isfinite(factor) and factor > 0.0):
+                return dict.fromkeys(base, math.inf)
+            scaled = replace(circuit, models={**circuit.models, card.name.lower(): replace(
+                card, params={**card.params, "kp": float(card.params["kp"]) * factor})})  # fmt: skip
+            try:
+                moved = _column_values(scaled, solve_operating_point(scaled))
+            except DcSolveError:
+                return dict.fromkeys(base, math.inf)
+            for subject, value in base.items():
+                shift[subject] = max(shift[subject], abs(moved.get(subject, math.inf) - value))
+        for subject in base:
+            allowance[subject] += shift[subject]
+    return allowance
+
+
+def _column_values(circuit: Circuit, point: OperatingPoint) -> dict[str, float]:
+    """The level-1 column's values by the subject ``compare`` gives them (`V(d)`, `M1 id`)."""
+    values = {f"V({node})": voltage for node, voltage in point.node_voltages.items() if node != "0"}
+    for element in circuit.elements_of("mosfet"):
+        device = point.devices.get(element.name)
+        if device is None:
+            continue
+        for quantity in DEVICE_QUANTITIES:
+            value = point.drain_terminal_current(element.name) if quantity == "id" else getattr(device, quantity)
+            if value is not None:
+                values[f"{element.name} {quantity}"] = float(value)
+    return values
+
+
+def _equivalent_finding(element, equivalent: FittedEquivalent) -> Finding:
+    """The `fitted-equivalent` finding of one device, its numbers in engineering notation."""
+    vgs, vds = equivalent.around
+    return fitted_equivalent_finding(
+        element.name, element.origin.line, equivalent.model, equivalent.level, equivalent.card,
+        f"VTO = {engineering(equivalent.vto, 'V')}, KP = {engineering(equivalent.kp, 'A/V²')}, "
+        f"LAMBDA = {equivalent.lambda_:.4g} /V",
+        f"W = {engineering(equivalent.w, 'm')}, L = {engineering(equivalent.l, 'm')}, "
+        f"{equivalent.temperature:g} °C, VBS = {engineering(equivalent.vbs, 'V')}"
+        + (" (from the drain terminal)" if equivalent.swapped else ""),
+        f"VGS = {engineering(vgs, 'V')}, VDS = {engineering(vds, 'V')}"
+        + (", seen from the drain terminal, which acts as source" if equivalent.swapped else ""),
+        f"{100 * equivalent.rms_around:.1f} %",
+        f"{100 * equivalent.at_point:+.1f} %" if math.isfinite(equivalent.at_point) else "not defined (no current)",
+        f"{100 * equivalent.error:.1f} %", equivalent.below_floor,
+    )  # fmt: skip

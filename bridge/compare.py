@@ -19,6 +19,8 @@ from .netlist.circuit import Circuit
 from .netlist.numbers import ABSTOL, GMIN, VNTOL, engineering
 from .sim.operating_point import SimOperatingPoint
 from .vocabulary import (
+    BEYOND_LEVEL1,
+    BEYOND_LEVEL1_NAME,
     COLUMN_NAMES,
     COLUMN_TITLES,
     COLUMNS,
@@ -79,6 +81,46 @@ class DeviceComparison:
 
 
 @dataclass(frozen=True)
+class FittedEquivalent:
+    """A device's level-1 equivalent of its card, fitted around ngspice's operating point (device
+    polarity: VTO positive for an enhancement device), and how well it fits there."""
+
+    device: str
+    model: str  # the card's name
+    level: int
+    card: str  # the equivalent's name
+    vto: float
+    kp: float
+    lambda_: float
+    w: float
+    l: float  # noqa: E741
+    temperature: float  # °C
+    vbs: float
+    around: tuple[float, float]  # ngspice's (vgs, vds)
+    rms_around: float
+    at_point: float
+    error: float  # the larger of the two: the KP scaling the level-1 column's allowance comes from
+    points_used: int
+    below_floor: bool = False  # ngspice's id there is below the fit's floor: weak inversion, no square law
+    swapped: bool = False  # runs with drain and source swapped: `around` and `vbs` seen from the drain terminal
+
+
+@dataclass(frozen=True)
+class FittedTolerance:
+    """What ``compare`` needs when hand and level-1 run on fitted equivalents: the equivalents by
+    device, and per quantity (`V(d)`, `M1 id`) the absolute allowance of the level-1 column beyond
+    0.2 % (see ``check.equivalent_columns``)."""
+
+    equivalents: Mapping[str, FittedEquivalent]
+    allowance: Mapping[str, float]
+
+
+# Quantities of a device on a fitted equivalent that the level-1 column does not compare: the
+# equivalent's threshold, overdrive and conductances are not the card's.
+NOT_COMPARED_FITTED = frozenset({"vth", "vov", "gm", "gds"})
+
+
+@dataclass(frozen=True)
 class CheckResult:
     file: str
     title: str
@@ -94,6 +136,7 @@ class CheckResult:
     tolerance: float = DEFAULT_TOLERANCE  # the relative tolerance of the hand column
     # Per effect (``vocabulary.EFFECTS``), what it settles switched on alone in the hand model: see ``Settled``.
     settled_by: dict = field(default_factory=dict)  # effect → Settled
+    fitted: FittedTolerance | None = None  # hand and level-1 on fitted equivalents of non-level-1 cards
 
     @property
     def agree(self) -> bool:
@@ -165,6 +208,7 @@ def compare(
     expect: Expectations | None = None,
     findings: tuple[Finding, ...] = (),
     converged: SimOperatingPoint | None = None,
+    fitted: FittedTolerance | None = None,
 ) -> CheckResult:
     """Lay the columns side by side and flag what disagrees.
 
@@ -174,6 +218,9 @@ def compare(
     `with_effect[effect]` is the hand model re-solved with that effect switched on (one
     solution per circuit, read by every transistor); `findings`
     carries what the callers already know (a failed simulation, a solver caveat).
+
+    `fitted`: hand and level-1 solved on level-1 equivalents of non-level-1 cards; the level-1
+    column is then judged within its allowance, and a fitted device's cause list names the card.
     """
     found: list[Finding] = list(findings)
     reference_column = "sim" if sim is not None else "level1"
@@ -191,7 +238,7 @@ def compare(
         expected = expect.nodes.get(node) if expect else None
         flagged = _flag_columns(
             "V", hand_v, level1_v, sim_v, expected, reference_column, tolerance, found, f"V({node})", None,
-            resolution, solver_v,
+            resolution, solver_v, _allowance(fitted, f"V({node})"),
         )
         nodes[node] = Columns(hand_v, level1_v, sim_v, _expect_value(expected), flagged,
                               _compared(hand_v, level1_v, sim_v, expected, reference_column), resolution["V"])
@@ -221,13 +268,18 @@ def compare(
             expected = wanted.get(quantity)
             # The hand model's gds in saturation is 0 by its own assumption (λ = 0): not a finding.
             assumed = quantity == "gds" and hand_device is not None and hand_device.region == "saturation"
+            on_equivalent = fitted is not None and element.name in fitted.equivalents
+            unjudged = on_equivalent and (quantity in NOT_COMPARED_FITTED or (
+                quantity == "id" and fitted.equivalents[element.name].below_floor))  # fmt: skip
             flagged = _flag_columns(
                 UNITS[quantity], None if assumed else hand_q, level1_q, sim_q, expected, reference_column,
                 tolerance, found, f"{element.name} {quantity}", element, device_resolution, solver_q,
+                math.inf if unjudged else _allowance(fitted, f"{element.name} {quantity}"),
             )
+            compared = _compared(None if assumed else hand_q, level1_q, sim_q, expected, reference_column)
             quantities[quantity] = Columns(
                 hand_q, level1_q, sim_q, _expect_value(expected), flagged,
-                _compared(None if assumed else hand_q, level1_q, sim_q, expected, reference_column),
+                tuple(c for c in compared if not (unjudged and c == "level1")),
                 device_resolution[UNITS[quantity]],
             )
         quantities[SAT_MARGIN] = _sat_margin(quantities, resolution["V"])
@@ -240,6 +292,9 @@ def compare(
         effect_solutions = with_effect if hand_device and with_effect is not None else {}
         for column in ("hand", "level1") if reference_column == "sim" else ("hand",):
             if region[column] and reference_region and region[column] != reference_region:
+                if column == "level1" and fitted is not None and element.name in fitted.equivalents:
+                    found.append(_equivalent_region_finding(element, region[column], reference_region))
+                    continue
                 message = (
                     f"{element.name}: the {COLUMN_NAMES[column]} puts it in {region[column]}, "
                     f"{COLUMN_NAMES[reference_column]} in {reference_region}"
@@ -290,13 +345,18 @@ def compare(
             found.append(_body_effect_cause(element, gamma, quantities["vth"], reference_column, reference_device,
                                             level1))
         effects = _attribute(element.name, hand, effect_solutions)
+        if fitted is not None and element.name in fitted.equivalents:
+            effects = _with_beyond_level1(effects, hand_device, level1_device and quantities["id"].level1,
+                                          quantities["id"].sim)  # fmt: skip
         if hand_device and (sim_device or level1_device):
             _explain(element.name, element.origin.line, quantities["id"],
                      _acting(effects, element, model, reference_device), reference_column, found)
         expect_region = str(expected_region.value) if expected_region else None
         devices[element.name] = DeviceComparison(
             element.name, mos_type, element.model or "", element.origin.line, region, quantities, effects,
-            expect_region, *_region_flags(region, expect_region, reference_column), reference_column,
+            expect_region, *_region_flags(region, expect_region, reference_column,
+                                          fitted is not None and element.name in fitted.equivalents),
+            reference_column,
         )
     return CheckResult(
         file=circuit.source_file,
@@ -311,11 +371,12 @@ def compare(
         has_expect=expect is not None,
         tolerance=tolerance,
         settled_by=_settled_by(circuit, hand, with_effect, nodes, devices, tolerance),
+        fitted=fitted,
     )
 
 
 def _region_flags(
-    region: Mapping[str, str | None], expect_region: str | None, reference_column: str,
+    region: Mapping[str, str | None], expect_region: str | None, reference_column: str, fitted: bool = False,
 ) -> tuple[tuple[str, ...], tuple[str, ...]]:
     """The columns (and the designer's expected region) whose region differs from the reference
     column's, and every one compared with it: as the region findings judge them."""
@@ -323,7 +384,8 @@ def _region_flags(
     if reference is None:
         return (), ()
     values = {**region, "expect": expect_region}
-    compared = tuple(column for column, value in values.items() if value is not None and column != reference_column)
+    compared = tuple(column for column, value in values.items() if value is not None and column != reference_column
+                     and not (fitted and column == "level1"))  # an equivalent's: see _equivalent_region_finding
     return tuple(column for column in compared if values[column] != reference), compared
 
 
@@ -349,8 +411,10 @@ def _flag_columns(
     element,
     resolutions: Mapping[str, float],
     solver_v: float | None,
+    allowance: float | None = None,
 ) -> tuple[str, ...]:
-    """`solver_v`: ngspice's value the level-1 column is judged against (`sim_v`, or a re-run's)."""
+    """`solver_v`: ngspice's value the level-1 column is judged against (`sim_v`, or a re-run's);
+    `allowance`: with fitted equivalents, how far beyond 0.2 % their fit error lets it be."""
     reference = sim_v if reference_column == "sim" else level1_v
     line = element.origin.line if element is not None else None
     name = element.name if element is not None else subject
@@ -368,7 +432,13 @@ def _flag_columns(
                 line, name, quantity=subject,
             )
         )
-    if reference_column == "sim" and _differs(
+    if allowance is not None:
+        if reference_column == "sim" and _differs(
+            level1_v, solver_v, SOLVER_RELATIVE, max(SOLVER_FLOOR[unit], resolution) + allowance
+        ):
+            flagged.append("level1")
+            found.append(_equivalent_differs(subject, line, name, unit, level1_v, sim_v, allowance, resolution))
+    elif reference_column == "sim" and _differs(
         level1_v, solver_v, SOLVER_RELATIVE, max(SOLVER_FLOOR[unit], resolution)
     ):
         flagged.append("level1")
@@ -493,12 +563,15 @@ def _explain(
         # Nothing to explain: equal, or both at leakage level (a device in cutoff).
         return
     share = abs(id_columns.hand / reference)
-    parts = [f"{EFFECT_NAMES.get(effect, effect)} {_percent(change * share)}" for effect, change in effects.items()]
+    parts = [f"{_effect_name(effect)} {_percent(change * share)}" for effect, change in effects.items()
+             if effect != BEYOND_LEVEL1]  # fmt: skip
     explained = sum(change * share for change in effects.values() if math.isfinite(change))
     message = (
         f"{name}: hand id is {_percent(gap)} from {COLUMN_NAMES[reference_column]}'s; each effect switched on "
         f"alone in the hand model moves it by (of {COLUMN_NAMES[reference_column]}'s id): " + ", ".join(parts)
     )
+    if BEYOND_LEVEL1 in effects:
+        message = _beyond_level1_cause(message, parts, effects[BEYOND_LEVEL1] * share, id_columns)
     if math.isfinite(gap) and math.isfinite(explained) and abs(gap + explained) > max(0.01, 0.2 * abs(gap)):
         message += f" (together {_percent(explained)}; the rest comes from their interaction or the circuit)"
     found.append(Finding("info", "cause", message, line, name))
@@ -762,3 +835,65 @@ def hand_difference(columns: Columns, unit: str = "A") -> str | None:
     if columns.hand is None or columns.sim is None:
         return None
     return _difference(columns.hand, columns.sim, columns.resolution, unit)
+
+
+def _allowance(fitted: FittedTolerance | None, subject: str) -> float | None:
+    """The level-1 column's allowance for `subject` on fitted equivalents (None without them)."""
+    if fitted is None:
+        return None
+    return fitted.allowance.get(subject, math.inf)
+
+
+def _equivalent_differs(
+    subject: str, line: int | None, name: str, unit: str, level1_v: float, sim_v: float | None, allowance: float,
+    resolution: float,
+) -> Finding:  # fmt: skip
+    """A level-1 value on fitted equivalents beyond what their fit error allows."""
+    return Finding(
+        "error", "solver-differs",
+        f"{subject}: level-1 solver {engineering(level1_v, unit, resolution=resolution)} vs ngspice "
+        f"{engineering(sim_v, unit, resolution=resolution)} beyond 0.2 % plus {engineering(allowance, unit)} (what "
+        "the fitted equivalents' error around the operating point allows): the equivalent departs from the card "
+        "more than its fit says, or a defect of biasbridge's solver",
+        line, name, quantity=subject,
+    )  # fmt: skip
+
+
+def _equivalent_region_finding(element, level1_region: str, sim_region: str) -> Finding:
+    """The level-1 equivalent's region differs from ngspice's: each is judged from its own model's
+    threshold (the equivalent's VTO, the card's vth), so this says where the device sits, not that
+    the solver is wrong (its currents and voltages are judged on their own)."""
+    return Finding(
+        "info", "equivalent-region",
+        f"{element.name}: the level-1 solver on the fitted equivalent puts it in {level1_region}, ngspice on the "
+        f"card in {sim_region}: each judges the region from its own model's threshold (the equivalent's VTO, "
+        "the card's vth); the level-1 region is not compared",
+        element.origin.line, element.name,
+    )  # fmt: skip
+
+
+def _with_beyond_level1(
+    effects: dict[str, float], hand_device, level1_id: float | None, sim_id: float | None
+) -> dict[str, float]:
+    """`effects` with the card's own share: the move from the level-1 equivalent's id to ngspice's
+    (on the card), as a change of the hand id like the others; largest first."""
+    if hand_device is None or level1_id is None or sim_id is None or hand_device.id == 0:
+        return effects
+    changes = {**effects, BEYOND_LEVEL1: (sim_id - level1_id) / abs(hand_device.id)}
+    return dict(sorted(changes.items(), key=lambda item: -abs(item[1]) if math.isfinite(item[1]) else -math.inf))
+
+
+def _effect_name(effect: str) -> str:
+    return BEYOND_LEVEL1_NAME if effect == BEYOND_LEVEL1 else EFFECT_NAMES.get(effect, effect)
+
+
+def _beyond_level1_cause(message: str, parts: list[str], change: float, id_columns: Columns) -> str:
+    """The cause line of a device on a fitted equivalent: the hand model's own effects, then the
+    card's share (ngspice on the card against the level-1 column on its equivalent)."""
+    if not parts:
+        message = message.split("; each effect")[0] + "; the hand model has no effect to switch on"
+    message += f"; {BEYOND_LEVEL1_NAME} {_percent(change)}"
+    if "hand" in id_columns.flagged and "level1" not in id_columns.flagged:
+        message += (" — the level-1 equivalent agrees with ngspice within its fit's error while the hand differs: "
+                    "its difference is the card's behaviour that the square law with VTO and KP alone leaves out")
+    return message

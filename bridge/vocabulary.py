@@ -79,11 +79,12 @@ class Expectations:
     file: str | None = None
 
 
-def not_level1_finding(other_levels) -> Finding:
+def not_level1_finding(other_levels, why: str | None = None) -> Finding:
     """Hand and level-1 columns left empty: both read level-1 cards only (KP, VTO, LAMBDA, GAMMA),
     and a card of another level has none of them to read; its defaults would be numbers of a
     device the netlist does not hold. ngspice still solves the circuit as written.
-    `other_levels`: ``Circuit.other_level_mosfets()``, not empty."""
+    `other_levels`: ``Circuit.other_level_mosfets()``, not empty; `why`: why no level-1
+    equivalent of the card stands in for it (see ``fitted_equivalent_finding``)."""
     cards = other_level_cards(other_levels)
     first = other_levels[0][0]
     one = len(other_levels) == 1
@@ -91,7 +92,36 @@ def not_level1_finding(other_levels) -> Finding:
         f"{cards}: the hand and level-1 columns need level-1 model cards and are left empty; "
         "ngspice solves the card as written"
     )
+    if why:
+        message += f" (no level-1 equivalent: {why})"
     return Finding("info", "not-level-1", message, first.origin.line if one else None, first.name if one else None)
+
+
+FITTED_EQUIVALENT = "fitted-equivalent"
+# The cause the attribution adds for a device on a fitted equivalent: what the card does beyond it.
+BEYOND_LEVEL1 = "beyond_level1"
+BEYOND_LEVEL1_NAME = "model beyond level 1 (the card against its fitted level-1 equivalent)"
+
+
+def fitted_equivalent_finding(
+    device: str, line: int | None, model: str, level: int, card: str, values: str, where: str, around: str,
+    rms_around: str, at_point: str, error: str, below_floor: bool = False,
+) -> Finding:  # fmt: skip
+    """The hand and level-1 columns of `device` rest on a level-1 equivalent of its card, fitted by
+    biasbridge to ngspice's I–V of the card around ngspice's operating point; the level-1 column is
+    judged against ngspice within what that fit's error allows, not 0.2 %. (The numbers come formatted.)"""
+    message = (
+        f"{device}: model {model} is LEVEL={level}: the hand and level-1 columns rest on its level-1 "
+        f"equivalent {card} ({values}), fitted by biasbridge to ngspice's drain current of the card at {where}, "
+        f"weighted around ngspice's operating point ({around}; GAMMA not fitted, so VTO is the threshold at that "
+        f"VBS); its RMS error there is {rms_around}, at the operating point itself {at_point}"
+    )
+    if below_floor:
+        message += (" (ngspice's current there is below the fit's floor, in weak inversion, where the square law "
+                    "has no current: the level-1 id of this device is not compared)")
+    message += (f": the level-1 column is judged against ngspice within what a {error} current error moves each "
+                "value, plus 0.2 %, and its vth, vov, gm and gds (the equivalent's, not the card's) are not compared")
+    return Finding("info", FITTED_EQUIVALENT, message, line, device)
 
 
 def other_level_cards(other_levels) -> str:

@@ -20,7 +20,7 @@ from ..sim.client import NgspiceSession
 from ..sim.device_iv import simulate_grid
 from .card import card_value
 from .data import BiasData
-from .least_squares import Level1Fit, Level1Values, fit_level1
+from .least_squares import Level1Fit, Level1Values, fit_level1, model_currents
 
 VGS_POINTS, VDS_POINTS = 41, 31  # grid of 1,271 points
 HOLD = 0.05
@@ -158,3 +158,58 @@ def _grown(bad: np.ndarray, row: int, col: int) -> tuple[int, int, int, int]:
         if r0 > 0 and clean(r0 - 1, r0 - 1, c0, c1):
             r0, grown = r0 - 1, True
     return r0, r1, c0, c1
+
+
+@dataclass(frozen=True)
+class OperatingPointEquivalent:
+    """A card's level-1 equivalent for one device of a circuit, fitted around ngspice's operating
+    point of that device: at its W/L, its temperature (the card's TNOM set to it, so that the
+    level-1 model at that temperature has the fitted VTO and KP) and its body bias (GAMMA not fitted:
+    VTO is the threshold at that VBS)."""
+
+    card: ModelCard  # the equivalent, level 1
+    values: Level1Values
+    geometry: Level1Geometry  # W, L; M = 1 (the circuit's M multiplies the equivalent as it does the card)
+    around: tuple[float, float]  # ngspice's (vgs, vds) of the device, device polarity
+    vbs: float
+    temperature: float  # °C
+    rms_around: float  # RMS relative error, each grid point weighted as in the fit
+    at_point: float  # relative error of the equivalent at ngspice's own bias point of the device
+    points_used: int
+    below_floor: bool  # ngspice's current at the operating point is below the fit's floor (weak inversion)
+
+    @property
+    def error(self) -> float:
+        """The equivalent's error around the operating point: the larger of the two; below the
+        floor the square law says nothing (no weak inversion), so the fitted region's alone."""
+        return self.rms_around if self.below_floor else max(self.rms_around, abs(self.at_point))
+
+
+def equivalent_at_operating_point(
+    session: NgspiceSession, card: ModelCard, name: str, geometry: Level1Geometry, around: tuple[float, float],
+    vbs: float, drain_current: float, span: float, temperature: float, directives=(),
+    instance: dict[str, float] | None = None, timeout: float = 30.0,
+) -> OperatingPointEquivalent:  # fmt: skip
+    """The level-1 equivalent of `card` around one device's operating point (`around`: ngspice's
+    vgs, vds; `vbs`; `drain_current` per unit of M), from one `.dc` grid over 0..`span` at that VBS,
+    weighted as ``card_equivalent`` weights around a point. Raises FitError or SimulatorError."""
+    vgs_axis, vds_axis = grid_axes((0.0, span))
+    grid = simulate_grid(session, card, geometry.w, geometry.l, vgs_axis, vds_axis, (vbs,), timeout,
+                         directives, instance)  # fmt: skip
+    data = BiasData("<grid>", card.type, grid.vgs, grid.vds, grid.vbs, grid.id, np.arange(1, grid.id.size + 1))
+    vgs0, vds0 = abs(around[0]), abs(around[1])
+    weights = np.exp(-0.5 * (((grid.vgs - vgs0) / AROUND_VGS) ** 2 + ((grid.vds - vds0) / AROUND_VDS) ** 2))
+    fit = fit_level1(data, geometry, weights=weights, fit_body=False)
+    equivalent = level1_card(name, card.type, fit.values)
+    equivalent = ModelCard(name, card.type, 1, {**equivalent.params, "tnom": float(temperature)}, equivalent.origin)
+    # The values as the card writes them (five digits): those are what the columns use.
+    sign = -1.0 if card.type == "pmos" else 1.0
+    values = Level1Values(sign * float(equivalent.params["vto"]), float(equivalent.params["kp"]),
+                          float(equivalent.params["lambda"]))  # fmt: skip
+    used = ~np.isnan(fit.relative_errors)
+    share = weights[used]
+    rms = float(np.sqrt(np.sum(share * fit.relative_errors[used] ** 2) / np.sum(share)))
+    model = model_currents(values, geometry, np.array([vgs0]), np.array([vds0]), np.array([vbs]))
+    at_point = float(model[0] / drain_current - 1.0) if drain_current > 0.0 else float("inf")
+    return OperatingPointEquivalent(equivalent, values, geometry, (vgs0, vds0), vbs, temperature, rms, at_point,
+                                    fit.points_used, drain_current < fit.floor)  # fmt: skip

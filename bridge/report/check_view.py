@@ -72,6 +72,8 @@ def _legend(result: CheckResult) -> str:
     reference = "ngspice" if result.simulator else COLUMN_NAMES["level1"]
     floors = ", ".join(engineering(HAND_FLOOR[unit], unit) for unit in ("V", "A", "S"))
     solver = "; level-1: 0.2 % or a smaller floor" if result.simulator else ""
+    if result.fitted is not None and result.simulator:
+        solver = "; level-1: 0.2 % plus what the fitted equivalent's error allows, or a smaller floor"
     return (
         f"legend: green = within tolerance of {reference} (hand: {result.tolerance * 100:g} % or {floors}{solver}); "
         f"red and ! = beyond it; no colour = not compared; 0 = zero at the solver's resolution; "
@@ -124,7 +126,7 @@ def check_renderable(result: CheckResult, steps: bool = False, *, allow_region: 
         for quantity, columns in device.quantities.items():
             label = QUANTITY_LABELS.get(quantity, quantity)
             table.add_row(_row(f"{device.name} {label}", columns, UNITS[quantity], shown))
-    parts: list[Part] = [header, table, Line(_legend(result))]
+    parts: list[Part] = [header, table, *_equivalent_lines(result), Line(_legend(result))]
     if steps and result.steps:
         parts.append(Line("Hand analysis, step by step:", "bold"))
         for number, step in enumerate(result.steps, start=1):
@@ -216,6 +218,8 @@ def check_json(result: CheckResult) -> dict[str, Any]:
         for quantity, columns in device.quantities.items():
             entry[quantity] = _triple(columns, with_expect)
         entry["attribution"] = {effect: _finite(change) for effect, change in device.attribution.items()}
+        if result.fitted is not None and device.name in result.fitted.equivalents:
+            entry["equivalent"] = _equivalent_json(result.fitted.equivalents[device.name])
         devices[device.name] = entry
     return {
         "file": result.file,
@@ -244,3 +248,28 @@ def group_json(group: CauseGroup) -> dict[str, Any]:
     the indices into "findings" of the lines that state it and of the findings it explains."""
     return {"cause": group.cause, "subject": group.subject, "stated_by": list(group.stated_by),
             "findings": list(group.findings)}
+
+
+def _equivalent_lines(result: CheckResult) -> list[Line]:
+    """One line per device whose hand and level-1 columns rest on a fitted level-1 equivalent."""
+    if result.fitted is None:
+        return []
+    return [
+        Line(f"{e.device}: hand and level-1 columns on {e.card}, a level-1 equivalent of {e.model} (level {e.level}) "
+             f"fitted around ngspice's operating point: VTO = {engineering(e.vto, 'V')}, KP = "
+             f"{engineering(e.kp, 'A/V²')}, LAMBDA = {e.lambda_:.4g} /V; RMS error {100 * e.rms_around:.1f} % there",
+             "bold")
+        for e in result.fitted.equivalents.values()
+    ]  # fmt: skip
+
+
+def _equivalent_json(equivalent) -> dict[str, Any]:
+    """A fitted equivalent in `check --json` (device polarity, SI units, errors relative)."""
+    return {
+        "model": equivalent.model, "level": equivalent.level, "card": equivalent.card,
+        "vto": equivalent.vto, "kp": equivalent.kp, "lambda": equivalent.lambda_,
+        "w": equivalent.w, "l": equivalent.l, "temperature": equivalent.temperature, "vbs": equivalent.vbs,
+        "around": {"vgs": equivalent.around[0], "vds": equivalent.around[1]},
+        "rms_rel_error": equivalent.rms_around, "rel_error_at_point": _finite(equivalent.at_point),
+        "tolerance": equivalent.error, "points_used": equivalent.points_used,
+    }  # fmt: skip

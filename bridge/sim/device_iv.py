@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..netlist.circuit import Analysis, Circuit, DcSweep, Element, ModelCard, Origin
+from ..netlist.circuit import Analysis, Circuit, DcSweep, Directive, Element, ModelCard, Origin
 from ..netlist.emit import SpiceDeck, emit
 from .client import NgspiceSession
 
@@ -41,8 +41,10 @@ def _source(name: str, positive: str, value: float) -> Element:
     return Element(name, "vsource", (positive, "0"), float(value), ORIGIN)
 
 
-def _mosfet(name: str, nodes: tuple[str, str, str, str], card: ModelCard, w: float, l: float) -> Element:  # noqa: E741
-    return Element(name, "mosfet", nodes, None, ORIGIN, model=card.name, params={"w": float(w), "l": float(l)})
+def _mosfet(name: str, nodes: tuple[str, str, str, str], card: ModelCard, w: float, l: float,  # noqa: E741
+            extra: dict[str, float] | None = None) -> Element:  # fmt: skip
+    return Element(name, "mosfet", nodes, None, ORIGIN, model=card.name,
+                   params={"w": float(w), "l": float(l), **(extra or {})})  # fmt: skip
 
 
 def bias_point_deck(
@@ -83,20 +85,22 @@ def _axis_sweep(source: str, axis: np.ndarray, sign: int) -> DcSweep:
 
 def grid_deck(
     card: ModelCard, w: float, l: float, vgs_axis: np.ndarray, vds_axis: np.ndarray,  # noqa: E741
-    vbs_values: Sequence[float],
+    vbs_values: Sequence[float], directives: Sequence[Directive] = (), instance: dict[str, float] | None = None,
 ) -> tuple[SpiceDeck, list[str]]:  # fmt: skip
     """One device per body bias, drains and gates shared through zero-volt ammeters, swept by one
-    nested `.dc` (VGS inside, VDS outside)."""
+    nested `.dc` (VGS inside, VDS outside). `directives` (`.temp`, `.options tnom`) and `instance`
+    (TEMP, DTEMP) put the device at a circuit's temperature."""
     sign = _polarity(card)
     elements = [_source("vgate", "g", 0.0), _source("vdrain", "d", 0.0)]
     wanted = ["v(g)", "v(d)"]
     for k, body in enumerate(vbs_values):
         elements += [
             Element(f"vsense{k}", "vsource", ("d", f"d{k}"), 0.0, ORIGIN),
-            _source(f"vb{k}", f"b{k}", sign * body), _mosfet(f"m{k}", (f"d{k}", "g", "0", f"b{k}"), card, w, l),
+            _source(f"vb{k}", f"b{k}", sign * body),
+            _mosfet(f"m{k}", (f"d{k}", "g", "0", f"b{k}"), card, w, l, instance),
         ]  # fmt: skip
         wanted.append(f"i(vsense{k})")
-    circuit = Circuit("device grid", ORIGIN.file, tuple(elements), {card.name: card})
+    circuit = Circuit("device grid", ORIGIN.file, tuple(elements), {card.name: card}, directives=tuple(directives))
     sweeps = (_axis_sweep("vgate", vgs_axis, sign), _axis_sweep("vdrain", vds_axis, sign))
     return emit(circuit, analyses=[Analysis("dc", ORIGIN, sweeps)], saves=wanted), wanted
 
@@ -104,9 +108,10 @@ def grid_deck(
 def simulate_grid(
     session: NgspiceSession, card: ModelCard, w: float, l: float,  # noqa: E741
     vgs_axis: np.ndarray, vds_axis: np.ndarray, vbs_values: Sequence[float] = (0.0,), timeout: float = 30.0,
+    directives: Sequence[Directive] = (), instance: dict[str, float] | None = None,
 ) -> DeviceGrid:  # fmt: skip
     """ngspice's drain current over VGS × VDS at each VBS, from one `.dc` (evenly spaced axes)."""
-    deck, wanted = grid_deck(card, w, l, vgs_axis, vds_axis, vbs_values)
+    deck, wanted = grid_deck(card, w, l, vgs_axis, vds_axis, vbs_values, directives, instance)
     result = session.run(deck, vectors=wanted, timeout=timeout)
     sign = _polarity(card)
     vgs = sign * result["v(g)"]
