@@ -224,3 +224,18 @@ def table_titles(block: str) -> list[str]:
 def located(err: str, path: Path, line: int | None = None) -> bool:
     where = rf"{line}" if line is not None else r"\d+"
     return re.search(rf"^{re.escape(str(path))}:{where}:\d+: ", err, re.MULTILINE) is not None
+
+
+# Greenhouse sensor board: a source follower whose strong body effect moves seven quantities at once
+# (the batch view's and the cause groups' disagreeing stage).
+PROBE_BUFFER = """\
+Greenhouse sensor board: soil-probe buffer, NMOS source follower with a strong body effect
+VDD vdd 0 5
+R1 vdd g 150k
+R2 g 0 100k
+RS s 0 10k
+M1 vdd g s 0 nch W=40u L=2u
+.model nch nmos (vto=0.6 kp=120u gamma=0.9 phi=0.65)
+.op
+.end
+"""

@@ -16,7 +16,7 @@ import time
 from pathlib import Path
 
 import pytest
-from check_support import cli_subprocess, needs_library
+from check_support import PROBE_BUFFER, cli_subprocess, needs_library
 from conftest import EXAMPLES, REPO
 
 from bridge.check import check_circuit
@@ -38,17 +38,7 @@ M1 d g 0 0 nch W=50u L=4u
 .end
 """,
     # Disagrees: a strong body effect on a source follower (the hand model takes Vt = VTO).
-    "probe_buffer.cir": """\
-Greenhouse sensor board: soil-probe buffer, NMOS source follower with a strong body effect
-VDD vdd 0 5
-R1 vdd g 150k
-R2 g 0 100k
-RS s 0 10k
-M1 vdd g s 0 nch W=40u L=2u
-.model nch nmos (vto=0.6 kp=120u gamma=0.9 phi=0.65)
-.op
-.end
-""",
+    "probe_buffer.cir": PROBE_BUFFER,
     "broken.cir": "Greenhouse sensor board: a typo in a resistor\nR1 a 0 1.2.3k\n",
 }
 # What `check` on each bundled example says alone (its exit status and verdict line): 4 agree, 4 disagree.

@@ -11,7 +11,7 @@ import json
 from pathlib import Path
 
 import pytest
-from check_support import cli_subprocess, needs_library
+from check_support import PROBE_BUFFER, cli_subprocess, needs_library
 from conftest import needs_ngspice, ngspice_batch_op
 
 from bridge.check import check_circuit
@@ -20,17 +20,6 @@ from bridge.netlist import read_netlist
 from bridge.report.check_view import check_json, finding_lines
 from bridge.vocabulary import Finding
 
-PROBE_BUFFER = """\
-Greenhouse sensor board: soil-probe buffer, NMOS source follower with a strong body effect
-VDD vdd 0 5
-R1 vdd g 150k
-R2 g 0 100k
-RS s 0 10k
-M1 vdd g s 0 nch W=40u L=2u
-.model nch nmos (vto=0.6 kp=120u gamma=0.9 phi=0.65)
-.op
-.end
-"""
 FAN_DRIVER = """\
 Greenhouse sensor board: vent-fan gate driver, NMOS common source with a noticeable LAMBDA
 VDD vdd 0 12
