@@ -192,8 +192,11 @@ def _relative_change(value: float, reference: float) -> float:
 
 
 def _percent(change: float) -> str:
-    """A relative difference as every percentage in the report is: (other − reference)/|reference|."""
-    return f"{change * 100:+.1f} %" if math.isfinite(change) else "from zero"
+    """A relative difference as every percentage in the report is: (other − reference)/|reference|;
+    from a million per cent on, in three significant digits with an exponent (not 300 of them)."""
+    if not math.isfinite(change):
+        return "from zero"
+    return f"{change * 100:+.1f} %" if abs(change) < 1e4 else f"{change * 100:+.3g} %"
 
 
 def compare(

@@ -144,3 +144,13 @@ def test_a_value_passes_within_the_relative_tolerance_or_within_the_floor():
 def test_a_device_in_cutoff_gets_no_garbled_cause(own_dir):
     result = check_circuit(read_netlist(own_dir / "cutoff.cir"), None, tolerance=0.05)
     assert not [f.message for f in result.findings if "from zero from" in f.message]
+
+
+def test_a_percentage_beyond_a_million_is_written_with_an_exponent():
+    """A supply of 1e300 V (a slip of the exponent) once printed a 300-digit percentage."""
+    from bridge.compare import _percent
+
+    assert _percent(0.047) == "+4.7 %"
+    assert _percent(9999.0) == "+999900.0 %"
+    assert _percent(7.462686567e297) == "+7.46e+299 %"
+    assert _percent(-1e5) == "-1e+07 %"
