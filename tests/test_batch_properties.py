@@ -37,7 +37,7 @@ def at_two_depths(quick: int, thorough: int):
 
         test.__name__, test.__qualname__ = body.__name__, body.__qualname__
         test.__doc__ = (body.__doc__ or "") + (
-            f"\n\nAt {thorough} examples (the `slow` mark) this takes over 5 s: thousands of inputs are "
+            f"\n\nAt {thorough} examples (the `slow` mark) this takes seconds: a thousand inputs and more are "
             "the point of a property test.")
         depths = [pytest.param(quick, id=f"{quick}-examples"),
                   pytest.param(thorough, id=f"{thorough}-examples", marks=pytest.mark.slow)]
@@ -85,7 +85,7 @@ FUNC_CARDS = st.lists(
 )
 
 
-@at_two_depths(200, 3000)
+@at_two_depths(200, 1000)
 def test_param_expressions_are_read_or_refused_at_their_place(data, folder):
     """`.param` and `{}` values built from every function and operator, with `.func`s."""
     funcs = data.draw(FUNC_CARDS)
@@ -127,7 +127,7 @@ CARDS = st.lists(st.lists(CARD_WORDS, max_size=12).map(" ".join), max_size=20).m
 LINE_ENDS = st.sampled_from([b"\n", b"\r\n", b"\r"])
 
 
-@at_two_depths(300, 3000)
+@at_two_depths(300, 1000)
 def test_random_cards_are_read_or_refused_at_their_place(data, folder):
     """Cards of random words from every element letter and dot card, any line ends."""
     text = "Beehive scale: random cards\n" + data.draw(CARDS) + "\n"
@@ -140,7 +140,7 @@ def test_random_cards_are_read_or_refused_at_their_place(data, folder):
         _located(error, text.count("\n") + 1)
 
 
-@at_two_depths(300, 3000)
+@at_two_depths(300, 1000)
 def test_corpus_files_cut_spliced_and_sprinkled_with_bytes_are_read_or_refused(data, folder):
     """A corpus netlist with lines dropped, repeated or swapped for random bytes."""
     lines = data.draw(st.sampled_from(SEEDS)).splitlines(keepends=True)
