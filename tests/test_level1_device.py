@@ -18,9 +18,7 @@ from pathlib import Path
 
 import pytest
 
-from bridge.devices.level1 import (
-    DEFAULT_L,
-    DEFAULT_W,
+from bridge.devices.mos1 import (
     Level1Geometry,
     Level1Model,
     beta,
@@ -28,6 +26,7 @@ from bridge.devices.level1 import (
     leff,
     threshold,
 )
+from bridge.devices.mos1.params import DEFAULT_L, DEFAULT_W
 
 CURRENT_REL = 2e-3
 CURRENT_ABS = 1e-9  # A; ngspice's junction diodes + GMIN leave pA in cutoff

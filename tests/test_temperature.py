@@ -24,7 +24,7 @@ from bridge.analysis.hand import hand_analysis
 from bridge.analysis.sweep import sweep_values
 from bridge.check import check_circuit
 from bridge.cli import main
-from bridge.devices.level1 import Level1Geometry, Level1Model, evaluate
+from bridge.devices.mos1 import Level1Geometry, Level1Model, evaluate
 from bridge.netlist import parse_netlist, read_netlist
 from bridge.sweep_run import transfer_curve
 
@@ -33,7 +33,7 @@ TEMPERATURES = (-40.0, 0.0, 27.0, 85.0, 125.0)
 RELATIVE = 2e-3
 VOLTS = 1e-3
 
-# --- mos1temp.c written out, independently of bridge/devices/level1.py ----------------------
+# --- mos1temp.c written out, independently of bridge/devices/mos1/temperature.py ----------------------
 # Constants of ngspice 39's const.h.
 Q = 1.6021766208e-19
 K_BOLTZ = 1.38064852e-23

@@ -11,7 +11,7 @@ What is solved, stated once:
 * Diodes: Shockley (IS·AREA·M, emission coefficient N) with ngspice's reverse-bias form below
   −3·N·Vt and GMIN in parallel. RS, BV and the rest are not modelled; a card that gives them is
   listed in the caveats.
-* MOSFETs: the level-1 equations of ``bridge.devices.level1`` (one Level1Model per card), plus the
+* MOSFETs: the level-1 equations of ``bridge.devices.mos1`` (one Level1Model per card), plus the
   bulk–drain and bulk–source junction diodes with GMIN in parallel that ngspice's mos1 places, so
   cutoff leakage and floating-bulk cases come out as ngspice's do. BJTs are refused.
 * Newton with ngspice's voltage limiting (DEVfetlim/DEVlimvds on vgs and vds, DEVpnjlim on every

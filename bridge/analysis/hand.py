@@ -33,9 +33,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from ..devices.level1 import (
-    CELSIUS_TO_KELVIN,
-    CIRCUIT_TEMPERATURE_C,
+from ..devices.mos1 import (
     Level1Geometry,
     Level1Model,
     Level1Point,
@@ -53,6 +51,7 @@ from ..devices.mos1.load import (
     triode_channel_bias,
     triode_current_quadratic,
 )
+from ..devices.mos1.params import CELSIUS_TO_KELVIN, CIRCUIT_TEMPERATURE_C
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
 from ..vocabulary import EFFECTS as _EFFECT_ORDER

@@ -12,7 +12,7 @@ import math
 from collections.abc import Mapping
 from dataclasses import dataclass
 
-from ..devices.level1 import beta, threshold
+from ..devices.mos1 import beta, threshold
 from ..devices.mos1.instance import InstanceError, mosfet_instance
 from ..devices.mos1.load import resistor_loaded_edge_overdrive
 from ..netlist.circuit import GROUND, Circuit, Element

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from ..devices.level1 import Region, classify_region, overdrive
+from ..devices.mos1 import Region, classify_region, overdrive
 from ..netlist.circuit import GROUND, Analysis, Circuit, Element, Origin
 from ..netlist.emit import emit
 from .client import NgspiceSession, PendingRun, SimResult

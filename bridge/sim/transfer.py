@@ -28,7 +28,7 @@ from ..curves import (
     region_edges,
     slope_from_curve,
 )
-from ..devices.level1 import classify_region, overdrive
+from ..devices.mos1 import classify_region, overdrive
 from ..netlist.circuit import Analysis, Circuit, DcSweep, Element, Origin
 from ..netlist.emit import SpiceDeck, emit
 from ..vocabulary import Finding, simulator_failure
