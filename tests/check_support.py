@@ -239,3 +239,16 @@ M1 vdd g s 0 nch W=40u L=2u
 .op
 .end
 """
+
+
+# Greenhouse heater sense: a current source pushing 300 µA into the source node (the device off).
+HEATER = """Greenhouse heater sense: source current sink wired backwards
+VDD vdd 0 5
+R1 vdd g 300k
+R2 g 0 200k
+RD vdd d 4.7k
+M1 d g s 0 NG W=20u L=2u
+I1 0 s 300u
+RS s 0 500k
+.model NG nmos (vto=0.7 kp=100u lambda=0.02 gamma=0.45 phi=0.7)
+"""

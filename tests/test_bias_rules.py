@@ -19,6 +19,7 @@ from bridge.bias_rules import bias_findings, supplies
 from bridge.check import check_circuit
 from bridge.netlist import parse_netlist
 from bridge.report.check_view import check_json
+from tests.check_support import HEATER
 from tests.conftest import NGSPICE, needs_ngspice
 
 SOIL_PROBE = """Greenhouse soil-probe buffer: NMOS common source, bulk tied to VDD
@@ -47,17 +48,6 @@ R2 g 0 1M
 RD vdd d 10k
 M1 d g 0 0 NG W=20u L=2u
 .model NG nmos (vto=0.7 kp=100u lambda=0.02)
-"""
-
-HEATER = """Greenhouse heater sense: source current sink wired backwards
-VDD vdd 0 5
-R1 vdd g 300k
-R2 g 0 200k
-RD vdd d 4.7k
-M1 d g s 0 NG W=20u L=2u
-I1 0 s 300u
-RS s 0 500k
-.model NG nmos (vto=0.7 kp=100u lambda=0.02 gamma=0.45 phi=0.7)
 """
 
 FAN = """Greenhouse fan driver: PMOS wired upside down

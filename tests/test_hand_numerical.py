@@ -16,6 +16,7 @@ import pytest
 from bridge.analysis.dcsolve import HandNetwork, solve_operating_point
 from bridge.analysis.hand import HandModel, _dc_circuit, hand_analysis
 from bridge.netlist import parse_netlist
+from tests.check_support import HEATER
 
 REL = 1e-12  # the solver's answer against the closed form: rounding only
 
@@ -95,16 +96,7 @@ M1 d 0 0 vdd PG W=40u L=2u
 
 def _sink_backwards() -> tuple[str, dict[str, float], dict[str, float]]:
     # The current source pushes 300 µA into the source node: 150 V across RS, the device off.
-    text = """Greenhouse heater sense: source current sink wired backwards
-VDD vdd 0 5
-R1 vdd g 300k
-R2 g 0 200k
-RD vdd d 4.7k
-M1 d g s 0 NG W=20u L=2u
-I1 0 s 300u
-RS s 0 500k
-.model NG nmos (vto=0.7 kp=100u lambda=0.02 gamma=0.45 phi=0.7)
-"""
+    text = HEATER
     return text, {"g": 2.0, "s": 150.0, "d": 5.0}, {"M1": 0.0}
 
 
