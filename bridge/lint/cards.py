@@ -102,6 +102,12 @@ def level_not_1(context: LintContext) -> list[Finding]:
 
 
 RULES: tuple[Rule, ...] = (polarity_against_wiring, level_not_1)
+# The reader's own refusals of a card (``NetlistError.code``) and their fixes: the runner reports
+# them in the netlist's place, since a netlist that does not build is not linted further.
+BUILD_REFUSALS: dict[str, str] = {
+    "card-missing": "add the `.model` card the element names, or correct the name it gives",
+    "card-wrong-type": "give the element a `.model` card of its own kind (nmos/pmos for a MOSFET)",
+}
 CODES: dict[str, str] = {
     "card-missing": "an element names a model no `.model` card defines (from the netlist reader)",
     "card-wrong-type": "a model card of the wrong kind for the element, a diode card on a MOSFET (from the reader)",

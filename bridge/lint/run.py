@@ -26,7 +26,7 @@ from ..netlist.errors import Location, NetlistError
 from ..netlist.source import SourceFile, notice_in, read_deck, read_source
 from ..tomlfile import read_toml
 from ..vocabulary import Finding
-from . import registry
+from . import cards, registry
 from .rule import LintContext, LintSettings
 
 # The runner's own findings (the rule families' codes are in registry.CODES).
@@ -62,14 +62,9 @@ NOTICE_FIXES: dict[str, str] = {
 FAMILIES = ("scale", "card", "path", "bulk", "orient", "op", "control", "parse", "read", "file", "allow")
 # Findings that `--select`/`--ignore`, the config and the markers never hide: without them the
 # rest of the report means nothing (a file not linted at all), or the netlist itself would be
-# silencing its own security finding.
-# The reader's own refusals (a model no card defines, a card of the wrong kind) are findings of
-# the card family, but like a parse error they mean the file was not linted: always reported.
-BUILD_REFUSALS = {
-    "card-missing": "add the `.model` card the element names, or correct the name it gives",
-    "card-wrong-type": "give the element a `.model` card of its own kind (nmos/pmos for a MOSFET)",
-}
-ALWAYS_REPORTED = frozenset({PARSE_ERROR, FILE_UNREADABLE, *BUILD_REFUSALS})
+# silencing its own security finding. The reader's refusals of a card (card-missing, ...) are
+# of the card family, but like a parse error they mean the file was not linted.
+ALWAYS_REPORTED = frozenset({PARSE_ERROR, FILE_UNREADABLE, *cards.BUILD_REFUSALS})
 NOT_SILENCED_BY_MARKER = frozenset({*ALWAYS_REPORTED, CONTROL_BLOCK})
 
 CONFIG_FILE = "pyproject.toml"
@@ -332,8 +327,8 @@ def _read(path: str) -> _Read:
         circuit = build_circuit(read_deck(source, path))
     except NetlistError as exc:
         location = exc.location
-        code = exc.code if exc.code in BUILD_REFUSALS else PARSE_ERROR
-        fix = BUILD_REFUSALS.get(code, "correct the card")
+        code = exc.code if exc.code in cards.BUILD_REFUSALS else PARSE_ERROR
+        fix = cards.BUILD_REFUSALS.get(code, "correct the card")
         finding = Finding("error", code, exc.message, location.line, None, location.column,
                           f"{fix}; no other rule runs on a netlist that does not build")
         return _Read(path, source, entries=[LintEntry(location.file or path, finding, exc.source_line)])
