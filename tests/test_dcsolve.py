@@ -638,28 +638,6 @@ def test_reduced_and_full_systems_give_the_same_operating_point(
         assert reduced.devices[device].id == pytest.approx(point.id, rel=1e-7, abs=1e-15), device
 
 
-def test_small_blocks_passed_without_the_rank_test_would_pass_it() -> None:
-    # _surely_regular lets _reduce skip the SVD rank test of a 1×1 or 2×2 block; whatever it
-    # passes, the test itself must pass (singular[-1] > singular[0]·n·ε).
-    rng = np.random.default_rng(3)
-    blocks = [np.array([[v]]) for v in (1.0, -3e-300, 5e-324, 1e300, 0.0, -0.0, math.inf, math.nan)]
-    for scale in (1.0, 1e-160, 1e-100, 1e100, 1e160):
-        for gap in (1.0, 1e-5, 1e-9, 1e-11, 1e-15, 1e-17, 0.0):
-            for _ in range(20):
-                u, _, vt = np.linalg.svd(rng.normal(size=(2, 2)))
-                blocks.append(scale * (u @ np.diag([1.0, gap]) @ vt))
-    blocks += [np.array([[1.0, 1.0], [1.0, 1.0]]), np.array([[0.0, 1.0], [0.0, 0.0]]),
-               np.array([[1.0, 2.0], [math.nan, 1.0]]), np.array([[1.0, 5e-324], [5e-324, 1e-300]])]  # fmt: skip
-    passed = 0
-    for block in blocks:
-        if dcsolve._surely_regular(block):
-            passed += 1
-            singular = np.linalg.svd(block, compute_uv=False)
-            assert singular[-1] > singular[0] * block.shape[0] * np.finfo(float).eps, block
-    assert passed >= 60  # the well-conditioned blocks of ordinary size
-    assert not dcsolve._surely_regular(np.eye(3))  # larger blocks are left to the SVD
-
-
 def test_as_array_is_np_array() -> None:
     from bridge.analysis.linear import as_array
 

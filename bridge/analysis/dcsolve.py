@@ -23,8 +23,9 @@ What is solved, stated once:
   MOSFET through ``Level1Model.at_temperature`` (ngspice's mos1temp.c) with its bulk junctions'
   IS/JS and kT/q at that temperature, the diode's IS and N·kT/q as ngspice's diotemp.c.
 * Newton solves only for the unknowns a nonlinear device touches: the linear rest of the MNA
-  system is eliminated once per network (``_Reduction``, a Schur complement) and recovered
-  after each solve, so a one-transistor stage iterates on a 2–4 unknown system in plain Python.
+  system is eliminated once per network (``reduction.reduce_network``, a Schur complement) and
+  recovered after each solve, so a one-transistor stage iterates on a 2–4 unknown system in
+  plain Python.
 
 Nothing here reads files: the Circuit is the only input.
 """
@@ -40,15 +41,9 @@ from typing import NamedTuple
 import numpy as np
 
 from bridge.analysis.connectivity import NodeSets
-from bridge.analysis.linear import (
-    SPARSE_FROM,
-    condition_estimate,
-    copy_rows,
-    solve_dense,
-    sparse_factor,
-    stamp_rows,
-    stamped,
-)
+from bridge.analysis.linear import copy_rows, solve_dense, stamp_rows, stamped
+from bridge.analysis.reduction import Reduction as _Reduction
+from bridge.analysis.reduction import reduce_network as _reduce
 from bridge.devices.diode import PlacedDiode
 from bridge.devices.interface import DcDevice
 from bridge.devices.mos1.convergence import vcrit as _vcrit
@@ -111,7 +106,6 @@ SOURCE_STEP_START = 1e-3  # first source-stepping raise, as ngspice's gillespie_
 ZERO_RESISTANCE = 1e-3  # Ω: what ngspice's resistor makes of R = 0
 CIRCUIT_TEMPERATURE_K = 300.15
 THERMAL_VOLTAGE = K_OVER_Q * CIRCUIT_TEMPERATURE_K  # kT/q at 27 °C, as ngspice computes it
-_EPS = float(np.finfo(float).eps)  # machine epsilon, 2.2e-16
 
 NEWTON = "newton"
 GMIN_STEPPING = "gmin stepping"
@@ -657,185 +651,6 @@ def _check_structure(circuit: Circuit, nodes: tuple[str, ...], *, channels: bool
             f"{'them' if len(floating) > 1 else 'it'}), so the operating point is undefined",
             nodes=floating,
         )
-
-
-# --- the linear part folded onto the device terminals -------------------------------------
-
-
-@dataclass(frozen=True)
-class _Reduction:
-    """The MNA system with its linear-only unknowns eliminated (a Schur complement).
-
-    Newton only has to solve for the unknowns a nonlinear device touches (`kept`); every
-    other node voltage and branch current is an affine function of those and of the sources,
-    fixed once per network. For a one-transistor stage that turns a 6–10 unknown system into
-    a 2–4 unknown one, solved in plain Python instead of through numpy's per-call overhead.
-    """
-
-    kept: tuple[int, ...]  # full-vector indices Newton solves for (ground excluded)
-    position: tuple[int, ...]  # full index → its place in `kept`, −1 for ground or eliminated
-    matrix: tuple[tuple[float, ...], ...]  # the kept block after elimination
-    source_map: np.ndarray  # sources → right-hand side of the kept block
-    eliminated: tuple[int, ...]  # full-vector indices recovered after each solve
-    recover_sources: np.ndarray  # sources → eliminated values (with the kept ones at zero)
-    recover_kept: tuple[tuple[float, ...], ...]  # per eliminated unknown, its weight on each kept one
-
-
-def _surely_regular(block: np.ndarray) -> bool:
-    """Whether a 1×1 or 2×2 block is so far from singular that the rank test's SVD is sure to
-    pass it (False proves nothing: then the SVD decides).
-
-    1×1: any finite non-zero value. 2×2: σ₁·σ₂ = |det| and σ₁² ≤ ‖A‖²_F bound the condition
-    number by ‖A‖²_F/|det|. Where that is ≤ 1e10 (|det| taken from below), the SVD, whose
-    singular values are within far less than 1e-12·σ₁ of the exact ones, finds σ₂/σ₁ ≥ 0.99e-10:
-    far above the rank test's 2ε.
-    """
-    if block.shape == (1, 1):
-        value = float(block[0, 0])
-        return value != 0.0 and math.isfinite(value)
-    if block.shape != (2, 2):
-        return False
-    (a, b), (c, d) = block.tolist()
-    ad, bc = a * d, b * c
-    # |det| from below: ad − bc is off by at most about 2ε(|ad| + |bc|), and by a denormal's ulp
-    # if a product underflows. The range of ‖A‖²_F makes that margin immaterial and keeps the
-    # sums finite; NaN and inf fail the comparisons.
-    determinant = abs(ad - bc) - 4.0 * _EPS * (abs(ad) + abs(bc)) - 1e-300
-    square = a * a + b * b + c * c + d * d
-    return 1e-150 < square < 1e150 and square * (1.0 + 1e-12) <= 1e10 * determinant
-
-
-def _reduce(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _Reduction:
-    """Fold the linear unknowns away. The block eliminated must be regular; where it is not
-    (a voltage source straight across two device terminals leaves its branch row empty
-    there), the branch currents are kept too, and failing that (or without `eliminate`)
-    nothing is eliminated."""
-    if not isinstance(net.linear, np.ndarray):
-        return _reduce_large(net, diagonal_gmin, eliminate=eliminate)
-    size = net.size
-    full = net.linear[1:, 1:].copy()
-    if diagonal_gmin:
-        nodes = np.arange(len(net.nodes))
-        full[nodes, nodes] += diagonal_gmin
-    columns = net.source_columns[1:]
-    touched = {i for mos in net.mosfets for i in (mos.drain, mos.gate, mos.source, mos.bulk)}
-    touched |= {i for diode in net.diodes for i in (diode.anode, diode.cathode)}
-    touched.discard(0)
-    branches = set(range(1 + len(net.nodes), size))
-    everything = set(range(1, size))
-    for kept_set in (touched, touched | branches, everything) if eliminate else (everything,):
-        kept = sorted(kept_set)
-        rest = [j for j in range(1, size) if j not in kept_set]
-        order = np.array(kept + rest, dtype=int) - 1
-        ordered = full[order][:, order]  # kept unknowns first, then the ones to eliminate
-        count = len(kept)
-        kk, kr = ordered[:count, :count], ordered[:count, count:]
-        rk, rr = ordered[count:, :count], ordered[count:, count:]
-        kept_sources, rest_sources = columns[order[:count]], columns[order[count:]]
-        if rest:
-            # A rank test (SVD, numpy's matrix_rank tolerance) once per network: a block that only
-            # rounds away from singular must not be inverted. Keeping more is always correct.
-            if not _surely_regular(rr):
-                singular = np.linalg.svd(rr, compute_uv=False)
-                if singular[-1] <= singular[0] * len(rest) * _EPS:
-                    continue
-            weights = np.linalg.solve(rr, np.concatenate((rk, rest_sources), axis=1))
-            on_kept, on_sources = weights[:, :count], weights[:, count:]
-            matrix, source_map = kk - kr @ on_kept, kept_sources - kr @ on_sources
-        else:
-            matrix, source_map = kk, kept_sources
-            on_kept, on_sources = np.zeros((0, count)), np.zeros((0, columns.shape[1]))
-        return _schur_reduction(size, kept, rest, matrix, source_map, on_kept, on_sources)
-    raise AssertionError("keeping every unknown always gives a reduction")  # pragma: no cover
-
-
-def _schur_reduction(
-    size: int, kept: list[int], rest: list[int], matrix: np.ndarray, source_map: np.ndarray,
-    on_kept: np.ndarray, on_sources: np.ndarray,
-) -> _Reduction:
-    """The reduction that keeps `kept` (matrix and sources their Schur complement) and recovers
-    `rest` from them (rest = on_sources·sources − on_kept·kept), dense or sparse path alike."""
-    position = [-1] * size
-    for place, index in enumerate(kept):
-        position[index] = place
-    return _Reduction(
-        kept=tuple(kept),
-        position=tuple(position),
-        matrix=tuple(tuple(row) for row in matrix.tolist()),
-        source_map=source_map,
-        eliminated=tuple(rest),
-        recover_sources=on_sources,
-        recover_kept=tuple(tuple(row) for row in on_kept.tolist()),
-    )
-
-
-def _reduce_large(net: _Network, diagonal_gmin: float, *, eliminate: bool = True) -> _Reduction:
-    """`_reduce` for a network stamped sparse (linear.SPARSE_FROM unknowns or more).
-
-    The same Schur complement, with the eliminated block factored by a sparse LU instead of
-    a dense solve, and its rank test a 1-norm condition estimate from that LU instead of an
-    SVD (``linear.condition_estimate``), against the same tolerance. Kept unknowns become
-    Newton's dense system, so that is tried only while they are fewer than SPARSE_FROM (many
-    devices make the eliminated rest couple all of them). Otherwise, or where the rest is not
-    regular, nothing is eliminated and Newton's system stays sparse (`_keep_all_sparse`).
-    """
-    size = net.size
-    full = net.linear[1:, 1:].tocsr()
-    if diagonal_gmin:
-        node_count = len(net.nodes)
-        diagonal = np.zeros(size - 1)
-        diagonal[:node_count] = diagonal_gmin
-        from scipy.sparse import diags
-
-        full = (full + diags(diagonal)).tocsr()
-    columns = net.source_columns[1:]
-    touched = {i for mos in net.mosfets for i in (mos.drain, mos.gate, mos.source, mos.bulk)}
-    touched |= {i for diode in net.diodes for i in (diode.anode, diode.cathode)}
-    touched.discard(0)
-    branches = set(range(1 + len(net.nodes), size))
-    for kept_set in (touched, touched | branches) if eliminate else ():
-        kept = sorted(kept_set)
-        rest = [j for j in range(1, size) if j not in kept_set]
-        if not rest or len(kept) >= SPARSE_FROM:
-            break  # nothing to eliminate, or a kept system too large to be dense
-        kept_at, rest_at = np.array(kept, dtype=int) - 1, np.array(rest, dtype=int) - 1
-        kept_rows, rest_rows = full[kept_at], full[rest_at]
-        kk, kr = kept_rows[:, kept_at].toarray(), kept_rows[:, rest_at]
-        rk, rr = rest_rows[:, kept_at].toarray(), rest_rows[:, rest_at].tocsc()
-        count = len(kept)
-        kept_sources, rest_sources = columns[kept_at], columns[rest_at]
-        try:
-            factor = sparse_factor(rr)
-        except np.linalg.LinAlgError:
-            continue
-        # numpy's matrix_rank tolerance, σmin ≤ σmax·n·ε, read as a condition number.
-        if not condition_estimate(rr, factor) < 1.0 / (len(rest) * _EPS):
-            continue
-        weights = factor.solve(np.concatenate((rk, rest_sources), axis=1))
-        on_kept, on_sources = weights[:, :count], weights[:, count:]
-        matrix, source_map = kk - kr @ on_kept, kept_sources - kr @ on_sources
-        return _schur_reduction(size, kept, rest, np.asarray(matrix), np.asarray(source_map), on_kept, on_sources)
-    return _keep_all_sparse(full, columns, size)
-
-
-def _keep_all_sparse(full, columns: np.ndarray, size: int) -> _Reduction:
-    """The reduction that eliminates nothing, its matrix as sparse rows (dicts, column → value):
-    Newton stamps the devices into copies of them and solves by a sparse LU (linear.solve_dense)."""
-    rows = full.tocsr()
-    matrix = tuple(
-        dict(zip(rows.indices[rows.indptr[k]:rows.indptr[k + 1]].tolist(),
-                 rows.data[rows.indptr[k]:rows.indptr[k + 1]].tolist()))
-        for k in range(size - 1)
-    )  # fmt: skip
-    return _Reduction(
-        kept=tuple(range(1, size)),
-        position=(-1, *range(size - 1)),
-        matrix=matrix,
-        source_map=columns,
-        eliminated=(),
-        recover_sources=np.zeros((0, columns.shape[1])),
-        recover_kept=(),
-    )
 
 
 # --- Newton ---------------------------------------------------------------------------------

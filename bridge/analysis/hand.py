@@ -58,7 +58,8 @@ from ..vocabulary import EFFECTS as _EFFECT_ORDER
 from ..vocabulary import Step
 from .connectivity import NodeSets
 from .dcsolve import DcSolveError, HandNetwork, InvalidElement
-from .linear import sparse_factor, stamp_rows, stamped
+from .linear import stamp_rows, stamped
+from .reduction import kron, solve_block, solve_each
 
 __all__ = [
     "EFFECTS",
@@ -407,16 +408,10 @@ class _Network:
     conductance: np.ndarray
     injection: np.ndarray
     device: np.ndarray
-    rows: list[list[float]]  # the conductance matrix in plain floats, to cut blocks from
-    # A large network (linear.is_large) has `conductance` in CSR and `rows` as dicts; the sparse
-    # LU of the whole matrix is kept here once made.
+    plain: list  # the conductance matrix in plain floats (list rows), to cut blocks from; None when large
+    # A large network (linear.is_large) has `conductance` in CSR; the sparse LU of the whole
+    # matrix is kept here once made.
     factors: dict[str, object] = field(default_factory=dict, repr=False, compare=False)
-
-    def block(self, rows: list[int], columns: list[int]) -> np.ndarray:
-        """``conductance[np.ix_(rows, columns)]``: the same array, without np.ix_'s overhead."""
-        g = self.rows
-        values = [[g[r][c] for c in columns] for r in rows]
-        return np.array(values, dtype=float).reshape(len(rows), len(columns))
 
 
 def _network(dc: _DcCircuit, transistor: _Transistor) -> _Network:
@@ -441,7 +436,8 @@ def _network(dc: _DcCircuit, transistor: _Transistor) -> _Network:
     if transistor.source in index:
         device[index[transistor.source]] += p
     matrix = stamped(conductance, size)
-    return _Network(free, index, matrix, np.array(injection, dtype=float), np.array(device, dtype=float), conductance)
+    plain = conductance if isinstance(matrix, np.ndarray) else None
+    return _Network(free, index, matrix, np.array(injection, dtype=float), np.array(device, dtype=float), plain)
 
 
 def _injection(dc: _DcCircuit, index: Mapping[str, int]) -> list[float]:
@@ -480,22 +476,11 @@ def _unanchored_groups(dc: _DcCircuit, net: _Network) -> list[set[str]]:
 
 
 def _reduce(net: _Network, kept: list[str], ports: list[str]) -> tuple[np.ndarray, np.ndarray]:
-    """Kron reduction onto `ports`: Y·v_ports = J_ports, the other kept nodes eliminated."""
-    if _large(net):
-        return _reduce_large(net, kept, ports)
-    internal = [n for n in kept if n not in ports]
-    pi = [net.index[n] for n in ports]
-    ii = [net.index[n] for n in internal]
-    j = net.injection
-    y = net.block(pi, pi)
-    jt = j[pi]
-    if ii:
-        rhs = np.column_stack([net.block(ii, pi), j[ii]])
-        solved = np.linalg.solve(net.block(ii, ii), rhs)
-        coupling = net.block(pi, ii)
-        y -= coupling @ solved[:, :-1]
-        jt -= coupling @ solved[:, -1]
-    return y, jt
+    """Kron reduction onto `ports`: Y·v_ports = J_ports, the other kept nodes eliminated
+    (``reduction.kron``)."""
+    port_set = set(ports)
+    internal = [net.index[n] for n in kept if n not in port_set]
+    return kron(net.conductance, net.injection, [net.index[n] for n in ports], internal, net.plain)
 
 
 def _large(net: _Network) -> bool:
@@ -503,56 +488,10 @@ def _large(net: _Network) -> bool:
     return not isinstance(net.conductance, np.ndarray)
 
 
-def _whole_factor(net: _Network):
-    """The sparse LU of a large network's whole conductance matrix, made once."""
-    if "whole" not in net.factors:
-        net.factors["whole"] = sparse_factor(net.conductance)
-    return net.factors["whole"]
-
-
-def _solve_whole(net: _Network, rhs: np.ndarray) -> np.ndarray:
-    """G⁻¹·rhs on all free nodes (raises np.linalg.LinAlgError when G is singular)."""
-    if not _large(net):
-        return np.linalg.solve(net.conductance, rhs)
-    return _whole_factor(net).solve(np.asarray(rhs, dtype=float))
-
-
-def _solve_block(net: _Network, rows: list[int], rhs: np.ndarray) -> np.ndarray:
-    """The block of G on `rows` (the same rows as columns) solved for `rhs`."""
-    if not _large(net):
-        return np.linalg.solve(net.block(rows, rows), rhs)
-    at = np.array(rows, dtype=int)
-    return sparse_factor(net.conductance[at][:, at]).solve(np.asarray(rhs, dtype=float))
-
-
-def _reduce_large(net: _Network, kept: list[str], ports: list[str]) -> tuple[np.ndarray, np.ndarray]:
-    """`_reduce` on a large network: the internal block factored by a sparse LU."""
-    port_set = set(ports)
-    internal = [n for n in kept if n not in port_set]
-    pi = np.array([net.index[n] for n in ports], dtype=int)
-    ii = np.array([net.index[n] for n in internal], dtype=int)
-    g, j = net.conductance, net.injection
-    port_rows = g[pi]
-    y = port_rows[:, pi].toarray()
-    jt = j[pi]
-    if len(ii):
-        internal_rows = g[ii]
-        rhs = np.column_stack([internal_rows[:, pi].toarray(), j[ii]])
-        solved = sparse_factor(internal_rows[:, ii]).solve(rhs)
-        coupling = port_rows[:, ii]
-        y -= coupling @ solved[:, :-1]
-        jt -= coupling @ solved[:, -1]
-    return y, jt
-
-
-def _solve_network_large(net: _Network, kept: list[str], drain_current: float) -> dict[str, float]:
-    """`_solve_network` on a large network (sparse LU)."""
-    if len(kept) == len(net.nodes):
-        solution = _solve_whole(net, net.injection + drain_current * net.device)
-    else:
-        idx = [net.index[n] for n in kept]
-        solution = _solve_block(net, idx, net.injection[idx] + drain_current * net.device[idx])
-    return dict(zip(kept, solution.tolist(), strict=True))
+def _solve_on(net: _Network, rhs: np.ndarray, rows: list[int] | None = None) -> np.ndarray:
+    """G⁻¹·rhs on the free nodes `rows` (None: all of them), ``reduction.solve_block``; raises
+    np.linalg.LinAlgError where that block of G is singular."""
+    return solve_block(net.conductance, rhs, rows, net.plain, net.factors)
 
 
 def _resistors_at(dc: _DcCircuit, node: str) -> list[_Resistor]:
@@ -795,10 +734,10 @@ def _recognise(dc: _DcCircuit) -> tuple[str, _Stage | None, str | None]:
         response = None
         if held is None:
             # The affine closed form's slopes; the solve doubles as the test that the network is regular.
-            response = _solve_whole(net, net.device)
+            response = _solve_on(net, net.device)
         elif kept:
             rows = [net.index[n] for n in kept]
-            _solve_block(net, rows, np.ones(len(rows)))
+            _solve_on(net, np.ones(len(rows)), rows)
     except np.linalg.LinAlgError:
         return f"{pmos}single MOSFET, other bias network", None, "the resistive network is singular"
     stage = _Stage(transistor, net, gate, drain, source, held, held_current, held_by, response)
@@ -1114,14 +1053,11 @@ def _solve_network(net: _Network, kept: list[str], drain_current: float) -> dict
     """The voltages of the `kept` nodes (a subsequence of net.nodes) with the device drawing ID."""
     if not kept:
         return {}
-    if _large(net):
-        return _solve_network_large(net, kept, drain_current)
     if len(kept) == len(net.nodes):  # all of them: the arrays as they are
-        matrix, injection, device = net.conductance, net.injection, net.device
+        solution = _solve_on(net, net.injection + drain_current * net.device)
     else:
         idx = [net.index[n] for n in kept]
-        matrix, injection, device = net.block(idx, idx), net.injection[idx], net.device[idx]
-    solution = np.linalg.solve(matrix, injection + drain_current * device)
+        solution = _solve_on(net, net.injection[idx] + drain_current * net.device[idx], idx)
     return dict(zip(kept, solution.tolist(), strict=True))
 
 
@@ -1827,8 +1763,7 @@ class HandSweep:
             return []
         # G·v = J + 0·e at each value, as _solve_network states it for ID = 0.
         rhs = np.array(injections) + 0.0 * net.device
-        count, size = rhs.shape
-        solved = np.linalg.solve(np.broadcast_to(net.conductance, (count, size, size)), rhs[:, :, None])[:, :, 0]
+        solved = solve_each(net.conductance, rhs)
         points = []
         for (fixed, current_sources), base in zip(held, solved.tolist(), strict=True):
             dc.fixed, dc.current_sources = fixed, current_sources
