@@ -370,7 +370,7 @@ def compare(
         nodes=nodes,
         devices=devices,
         findings=tuple(found),
-        steps=tuple(hand.steps),
+        steps=hand.steps,  # written when a view reads it (hand_working.Written)
         has_expect=expect is not None,
         tolerance=tolerance,
         settled_by=_settled_by(circuit, hand, with_effect, nodes, devices, tolerance),

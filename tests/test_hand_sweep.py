@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from bridge.analysis import hand
+from bridge.analysis import hand, hand_working
 from bridge.analysis.hand import HandAnalysisError, HandSweep, hand_analysis
 from bridge.analysis.sweep import sweep_values, with_source_value
 from bridge.netlist import parse_netlist
@@ -132,7 +132,7 @@ def test_hand_column_writes_no_working(monkeypatch):
         circuit = parse_netlist(text, "scenario.cir")
         x = sweep_values(start, stop, points=201)
         with monkeypatch.context() as patch:
-            patch.setattr(hand, "Step", CountedStep)
+            patch.setattr(hand_working, "Step", CountedStep)
             result = transfer_curve(circuit, source, "d", x, None)
         assert result.curves["hand"] is not None
     assert written == []

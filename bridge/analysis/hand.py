@@ -19,9 +19,12 @@ The hand model, stated once:
 * Anything else — several transistors, controlled sources, floating voltage sources, a drain
   held only by a current source, or LAMBDA/GAMMA switched back on through ``effects`` — is the
   same model solved numerically, and the steps say so: the DC solver (``dcsolve.HandNetwork``)
-  with the hand device, the same MOSFET without bulk junctions (so without GMIN).
+  with the hand device, the same MOSFET without bulk junctions (so without the minimum
+  conductance ngspice puts across each junction either).
 
-Nothing here reads files or prints: the Circuit is the only input.
+This module finds the numbers; ``hand_working.py`` writes the working from them, only when a
+view reads a solution's ``steps`` or ``assumptions``. Nothing here reads files or prints: the
+Circuit is the only input.
 """
 
 from __future__ import annotations
@@ -37,10 +40,8 @@ from ..devices.mos1 import (
     Level1Geometry,
     Level1Model,
     Level1Point,
-    Region,
     beta,
     evaluate,
-    leff,
     threshold,
 )
 from ..devices.mos1.instance import InstanceError, Mos1Instance, NotLevel1, default_size, mosfet_instance
@@ -51,13 +52,12 @@ from ..devices.mos1.load import (
     triode_channel_bias,
     triode_current_quadratic,
 )
-from ..devices.mos1.params import CELSIUS_TO_KELVIN, CIRCUIT_TEMPERATURE_C
 from ..netlist.circuit import GROUND, Circuit, Element
-from ..netlist.numbers import engineering
 from ..vocabulary import EFFECTS as _EFFECT_ORDER
 from ..vocabulary import Step
 from .connectivity import NodeSets
 from .dcsolve import DcSolveError, HandNetwork, InvalidElement
+from .hand_working import Working, _effect_text, _names, _q, written
 from .linear import stamp_rows, stamped
 from .reduction import kron, solve_block, solve_each
 
@@ -107,44 +107,18 @@ class HandDevice:
 class HandSolution:
     """The hand bias point: recognised topology, every node voltage (ground "0" included),
     each MOSFET's point, the working and what was assumed. ``closed_form`` is False when the
-    simplified model was solved numerically; ``effects`` lists the effects switched on."""
+    simplified model was solved numerically; ``effects`` lists the effects switched on.
+
+    ``steps`` and ``assumptions`` are sequences written the first time they are read
+    (``hand_working.Written``: equal to, and pickled as, the tuples they stand for)."""
 
     topology: str
     closed_form: bool
     node_voltages: dict[str, float]
     devices: dict[str, HandDevice]
-    steps: tuple[Step, ...]
-    assumptions: tuple[str, ...]
+    steps: Sequence[Step]
+    assumptions: Sequence[str]
     effects: frozenset[str] = frozenset()
-
-
-# --- formatting ------------------------------------------------------------------------------
-
-
-def _q(value: float, unit: str = "") -> str:
-    """A quantity as a designer writes it: 1.333 V, 0.6325 V, 240.7 µA, 88 kΩ."""
-    if unit == "V" and 1e-2 <= abs(value) < 1e3:
-        return f"{value:.4g} V"
-    return engineering(value, unit)
-
-
-def _minus(value: float, unit: str) -> str:
-    """`− 1.5 kΩ`-style continuation of a sum: the sign pulled out of the number."""
-    return f"− {_q(-value, unit)}" if value < 0 else f"+ {_q(value, unit)}"
-
-
-def _signed(value: float) -> str:
-    """`− 0.5`-style continuation of a sum for a plain number."""
-    return f"− {-value:.4g}" if value < 0 else f"+ {value:.4g}"
-
-
-def _gate_formula(offset: float, drain_gain: float, source_gain: float) -> str:
-    """VG = a + α·VD + β·VS, zero terms left out."""
-    text = f"VG = {_q(offset, 'V')}"
-    for gain, symbol in ((drain_gain, "VD"), (source_gain, "VS")):
-        if abs(gain) > 1e-12:
-            text += f" {_signed(gain)}·{symbol}"
-    return text
 
 
 # --- the DC circuit ---------------------------------------------------------------------------
@@ -156,6 +130,10 @@ class _Resistor:
     a: str
     b: str
     resistance: float
+
+    def far_end(self, node: str) -> str:
+        """The other end from `node`."""
+        return self.b if self.a == node else self.a
 
 
 @dataclass(frozen=True)
@@ -217,6 +195,10 @@ class _DcCircuit:
     # by the copies HandModel.solve makes like `solver`.
     incidence: dict[str, list[_Resistor]] = field(default_factory=dict, repr=False, compare=False)
 
+    def voltage(self, free: Mapping[str, float], node: str) -> float:
+        """A node's voltage: fixed by a source, else taken from `free`."""
+        return self.fixed[node] if node in self.fixed else free[node]
+
 
 def _number(value: object, what: str, element: Element) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)):
@@ -260,29 +242,6 @@ def _transistor(
     card_model, geometry = device.model, device.geometry
     d, g, s, b = (merged[node] for node in element.nodes)
     return _Transistor(element, hand_model(card_model, effects), card_model, geometry, d, g, s, b, device)
-
-
-def _temperature_moved(model: Level1Model) -> bool:
-    """True when the model is not simply the card at 27 °C: another temperature or TNOM."""
-    return model.temperature_celsius is not None and (
-        model.temperature_celsius != CIRCUIT_TEMPERATURE_C or not model.at_nominal_temperature
-    )
-
-
-def _temperature_step(transistor: _Transistor) -> Step:
-    """The working's line for KP and VTO at the device temperature (mos1temp.c's rules)."""
-    model = transistor.model
-    card = model.nominal or model
-    celsius = model.temperature_celsius
-    kelvin, tnom_kelvin = model.kelvin, card.tnom_celsius + CELSIUS_TO_KELVIN
-    return Step(
-        f"{transistor.name} at {celsius:g} °C: KP and VTO at that temperature (ngspice level-1 temperature "
-        f"rules, TNOM = {card.tnom_celsius:g} °C: KP·(T/TNOM)^−1.5, VTO through PHI and the band gap)",
-        f"KP = {_q(card.kp, 'A/V²')}·({kelvin:.2f} K/{tnom_kelvin:.2f} K)^−1.5 = {_q(model.kp, 'A/V²')}, "
-        f"VTO = {_q(card.vto, 'V')} → {_q(model.vto, 'V')}, PHI = {_q(card.phi, 'V')} → {_q(model.phi, 'V')}",
-        model.kp,
-        "A/V²",
-    )
 
 
 def _dc_circuit(circuit: Circuit, effects: frozenset[str]) -> _DcCircuit:
@@ -564,10 +523,6 @@ def _incident(dc: _DcCircuit, node: str) -> tuple[list[_Resistor], list[_Current
     )
 
 
-def _far_end(resistor: _Resistor, node: str) -> str:
-    return resistor.b if resistor.a == node else resistor.a
-
-
 def _channel_terminal(
     dc: _DcCircuit,
     node: str,
@@ -590,10 +545,10 @@ def _channel_terminal(
     resistance = 1.0 / y[k, k]
     voltage = jt[k] * resistance
     resistors, currents = _incident(dc, node)
-    to_rails = [r for r in resistors if _far_end(r, node) in dc.fixed]
+    to_rails = [r for r in resistors if r.far_end(node) in dc.fixed]
     if len(to_rails) == 1 and not currents:
         only = to_rails[0]
-        rail = _far_end(only, node)
+        rail = only.far_end(node)
         if math.isclose(resistance, only.resistance, rel_tol=_MATCH) and math.isclose(
             voltage, dc.fixed[rail], rel_tol=_MATCH, abs_tol=_MATCH
         ):
@@ -620,8 +575,8 @@ def _gate_terminal(dc: _DcCircuit, net: _Network, transistor: _Transistor, kept:
     resistors, currents = _incident(dc, g)
     tiny = 1e-12
     if abs(drain_gain) > tiny:
-        to_drain = [r for r in resistors if _far_end(r, g) == d]
-        to_rails = [r for r in resistors if _far_end(r, g) in dc.fixed]
+        to_drain = [r for r in resistors if r.far_end(g) == d]
+        to_rails = [r for r in resistors if r.far_end(g) in dc.fixed]
         simple = (
             not currents
             and abs(source_gain) <= tiny
@@ -647,7 +602,7 @@ def _gate_terminal(dc: _DcCircuit, net: _Network, transistor: _Transistor, kept:
             returned=returned,
         )
     resistance = 1.0 / y[0, 0]
-    all_to_rails = all(_far_end(r, g) in dc.fixed for r in resistors)
+    all_to_rails = all(r.far_end(g) in dc.fixed for r in resistors)
     if all_to_rails and not currents and len(resistors) in (1, 2):
         kind = "resistor" if len(resistors) == 1 else "divider"
         return _Terminal(
@@ -778,7 +733,7 @@ def _topology_label(dc: _DcCircuit, stage: _Stage) -> str:
     if gate.kind == "rail":
         gate_phrase = "gate grounded" if gate.voltage_label == "0" else "gate on a voltage source"
     elif gate.kind == "resistor":
-        rail = _far_end(gate.detail[0], stage.transistor.gate)
+        rail = gate.detail[0].far_end(stage.transistor.gate)
         gate_phrase = "gate returned to ground through a resistor" if rail == GROUND else "gate resistor to a rail"
     else:
         gate_phrase = {
@@ -808,245 +763,7 @@ def _topology_label(dc: _DcCircuit, stage: _Stage) -> str:
     return pmos + ", ".join(p for p in parts if p)
 
 
-# --- the working ------------------------------------------------------------------------------
-
-
-@dataclass
-class _Names:
-    """How the working writes device-polarity quantities: VGS/VDS for NMOS, VSG/VSD for PMOS."""
-
-    vgs: str
-    vds: str
-    vgd: str
-
-
-def _names(polarity: int) -> _Names:
-    return _Names("VGS", "VDS", "VGD") if polarity > 0 else _Names("VSG", "VSD", "VDG")
-
-
-def _model_steps(transistor: _Transistor, effects: frozenset[str]) -> list[Step]:
-    model, geometry = transistor.model, transistor.geometry
-    k = beta(model, geometry)
-    length = leff(model, geometry)
-    m_text = "·M" if geometry.m != 1.0 else ""
-    m_value = f"·{geometry.m:g}" if geometry.m != 1.0 else ""
-    l_text = "Leff" if model.ld != 0.0 else "L"
-    moved = _temperature_moved(model)
-    at_text = f" at {model.temperature_celsius:g} °C" if moved else ""
-    steps = [_temperature_step(transistor)] if moved else []
-    steps += [
-        Step(
-            f"{transistor.name}: gain factor K = KP·W{m_text}/{l_text}{at_text}"
-            + (f" (Leff = L − 2·LD = {_q(length, 'm')})" if model.ld != 0.0 else ""),
-            f"K = {_q(model.kp, 'A/V²')}·{_q(geometry.w, 'm')}{m_value}/{_q(length, 'm')} = {_q(k, 'A/V²')}",
-            k,
-            "A/V²",
-        )
-    ]
-    vt = threshold(model, 0.0)
-    if "gamma" in effects:
-        steps.append(
-            Step(
-                f"{transistor.name}: zero-bias threshold{at_text} (body effect on: GAMMA = {model.gamma:.4g} √V, "
-                f"PHI = {_q(model.phi, 'V')})",
-                f"Vt0 = {'−VTO' if model.polarity < 0 else 'VTO'} = {_q(vt, 'V')}",
-                vt,
-                "V",
-            )
-        )
-    else:
-        steps.append(
-            Step(
-                f"{transistor.name}: threshold from the card{at_text}, no body effect"
-                + (" (PMOS: in device polarity)" if model.polarity < 0 else ""),
-                f"Vt = {'−VTO' if model.polarity < 0 else 'VTO'} = {_q(vt, 'V')}",
-                vt,
-                "V",
-            )
-        )
-    return steps
-
-
-def _gate_steps(dc: _DcCircuit, stage: _Stage) -> list[Step]:
-    gate, t = stage.gate, stage.transistor
-    if gate.kind == "diode":
-        return [Step(f"Gate tied to the drain (diode-connected): {_names(t.polarity).vgs} = {_names(t.polarity).vds}")]
-    if gate.kind == "tied":
-        return [Step(f"Gate tied to the source: {_names(t.polarity).vgs} = 0")]
-    if gate.kind == "rail":
-        if gate.voltage_label == "0":
-            return [Step("Gate grounded", "VG = 0 V", 0.0, "V")]
-        return [
-            Step(
-                f"Gate driven directly by {gate.voltage_label} (a Thevenin source with R = 0)",
-                f"VG = {_q(gate.voltage, 'V')}",
-                gate.voltage,
-                "V",
-            )
-        ]
-    if gate.kind == "divider":
-        first, second = gate.detail
-        rail_1, rail_2 = dc.fixed[_far_end(first, t.gate)], dc.fixed[_far_end(second, t.gate)]
-        if rail_1 == 0.0 and rail_2 != 0.0:
-            first, second = second, first
-            rail_1, rail_2 = rail_2, rail_1
-        label_1 = dc.rail_label[_far_end(first, t.gate)]
-        label_2 = dc.rail_label[_far_end(second, t.gate)]
-        total = first.resistance + second.resistance
-        if rail_2 == 0.0:
-            formula = f"VG = {label_1}·{second.name}/({first.name}+{second.name})"
-            numbers = f"{_q(rail_1, 'V')}·{_q(second.resistance, 'Ω')}/{_q(total, 'Ω')}"
-        else:
-            formula = f"VG = ({label_1}·{second.name} + {label_2}·{first.name})/({first.name}+{second.name})"
-            numbers = (
-                f"({_q(rail_1, 'V')}·{_q(second.resistance, 'Ω')} + {_q(rail_2, 'V')}·"
-                f"{_q(first.resistance, 'Ω')})/{_q(total, 'Ω')}"
-            )
-        return [
-            Step(
-                f"Gate voltage from the divider (no gate current, so RTH = {first.name}∥{second.name} = "
-                f"{_q(gate.resistance, 'Ω')} drops nothing)",
-                f"{formula} = {numbers} = {_q(gate.offset, 'V')}",
-                gate.offset,
-                "V",
-            )
-        ]
-    if gate.kind == "resistor":
-        (only,) = gate.detail
-        rail = _far_end(only, t.gate)
-        return [
-            Step(
-                f"Gate returned to {dc.rail_label[rail] if rail != GROUND else 'ground'} through {only.name} "
-                "(no gate current, so no drop across it)",
-                f"VG = {_q(gate.offset, 'V')}",
-                gate.offset,
-                "V",
-            )
-        ]
-    if gate.kind == "network":
-        return [
-            Step(
-                f"Gate Thevenin equivalent of {', '.join(gate.elements)} (no gate current, so VG is the "
-                f"Thevenin voltage; RTH = {_q(gate.resistance, 'Ω')} drops nothing)",
-                f"VG = {_q(gate.offset, 'V')}",
-                gate.offset,
-                "V",
-            )
-        ]
-    if gate.kind == "feedback":
-        if gate.detail:
-            feedback = gate.detail[0]
-            if len(gate.detail) == 2:
-                shunt = gate.detail[1]
-                rail = _far_end(shunt, t.gate)
-                ratio = f"{shunt.name}/({feedback.name}+{shunt.name})"
-                if rail == GROUND:
-                    formula = f"VG = VD·{ratio} = {gate.drain_gain:.4g}·VD"
-                else:
-                    formula = (
-                        f"VG = {dc.rail_label[rail]} + (VD − {dc.rail_label[rail]})·{ratio} = "
-                        f"{_q(gate.offset, 'V')} + {gate.drain_gain:.4g}·VD"
-                    )
-                text = f"Gate from the drain through the divider {feedback.name}–{shunt.name} (no gate current)"
-            else:
-                text = f"Gate from the drain through {feedback.name}: no gate current, so it drops nothing"
-                formula = "VG = VD"
-        else:
-            text = f"Gate from the drain through {', '.join(gate.elements)} (no gate current)"
-            formula = _gate_formula(gate.offset, gate.drain_gain, gate.source_gain)
-        return [Step(text, formula)]
-    return [
-        Step(
-            f"Gate relation from {', '.join(gate.elements)} (no gate current)",
-            _gate_formula(gate.offset, gate.drain_gain, gate.source_gain),
-        )
-    ]
-
-
-def _channel_relation(terminal: _Terminal, role: str, polarity: int) -> str | None:
-    """`VD = VDD − ID·RD`-style relation of a drain or source resistor; None when there is none."""
-    if terminal.kind != "resistor":
-        return None
-    symbol = "VD" if role == "drain" else "VS"
-    # A conducting NMOS pulls current out of its drain node and pushes it into its source node.
-    sign = -polarity if role == "drain" else polarity
-    rail = "" if terminal.voltage_label == "0" else terminal.voltage_label
-    term = f"ID·{terminal.resistance_label}"
-    if not rail:
-        return f"{symbol} = {'−' if sign < 0 else ''}{term}"
-    return f"{symbol} = {rail} {'−' if sign < 0 else '+'} {term}"
-
-
-def _channel_steps(dc: _DcCircuit, stage: _Stage) -> list[Step]:
-    steps: list[Step] = []
-    p = stage.transistor.polarity
-    for role, terminal in (("source", stage.source), ("drain", stage.drain)):
-        symbol = "VS" if role == "source" else "VD"
-        if terminal.kind == "rail":
-            where = "grounded" if terminal.voltage_label == "0" else f"on {terminal.voltage_label}"
-            if role == "drain" and stage.gate.kind == "diode":
-                continue
-            steps.append(
-                Step(
-                    f"{role.capitalize()} {where}",
-                    f"{symbol} = {_q(terminal.voltage, 'V')}",
-                    terminal.voltage,
-                    "V",
-                )
-            )
-        elif terminal.kind == "resistor":
-            relation = _channel_relation(terminal, role, p)
-            if terminal.resistance_label.startswith("RTH"):
-                tag = terminal.resistance_label[-1]
-                steps.append(
-                    Step(
-                        f"{role.capitalize()} Thevenin equivalent of {', '.join(terminal.elements)}"
-                        + (" (the feedback string loads the drain)" if stage.gate.kind == "feedback" else ""),
-                        f"VTH,{tag} = {_q(terminal.voltage, 'V')}, RTH,{tag} = {_q(terminal.resistance, 'Ω')}",
-                    )
-                )
-                steps.append(Step(f"{role.capitalize()} side", relation))
-            else:
-                rail = terminal.voltage_label
-                where = "ground" if rail == "0" else rail
-                steps.append(Step(f"{role.capitalize()} resistor {terminal.resistance_label} to {where}", relation))
-        elif terminal.kind == "coupled" and role == "source":
-            steps.append(
-                Step(
-                    f"Drain and source both hang on the network {', '.join(terminal.elements)}: "
-                    "it is reduced as a whole below"
-                )
-            )
-    return steps
-
-
-def _terminal_value_step(terminal: _Terminal, role: str, polarity: int, current: float, value: float) -> Step | None:
-    if terminal.kind == "rail":
-        return None
-    symbol = "VD" if role == "drain" else "VS"
-    relation = _channel_relation(terminal, role, polarity)
-    if relation is None:
-        return Step(f"{role.capitalize()} voltage", f"{symbol} = {_q(value, 'V')}", value, "V")
-    sign = -polarity if role == "drain" else polarity
-    rail = "" if terminal.voltage_label == "0" else f"{_q(terminal.voltage, 'V')} "
-    numbers = f"{rail}{'−' if sign < 0 else '+'} {_q(current, 'A')}·{_q(terminal.resistance, 'Ω')}"
-    if not rail:
-        numbers = ("−" if sign < 0 else "") + numbers[2:]
-    return Step(f"{role.capitalize()} voltage", f"{relation} = {numbers} = {_q(value, 'V')}", value, "V")
-
-
 # --- closed forms -----------------------------------------------------------------------------
-
-
-@dataclass
-class _ClosedForm:
-    free_voltages: dict[str, float]
-    drain_current: float
-    steps: list[Step]
-
-
-def _voltage(dc: _DcCircuit, free: dict[str, float], node: str) -> float:
-    return dc.fixed[node] if node in dc.fixed else free[node]
 
 
 def _solve_network(net: _Network, kept: list[str], drain_current: float) -> dict[str, float]:
@@ -1059,22 +776,6 @@ def _solve_network(net: _Network, kept: list[str], drain_current: float) -> dict
         idx = [net.index[n] for n in kept]
         solution = _solve_on(net, net.injection[idx] + drain_current * net.device[idx], idx)
     return dict(zip(kept, solution.tolist(), strict=True))
-
-
-def _overdrive_symbol(stage: _Stage, value: float) -> str:
-    """Name of the resistance that turns ID into lost overdrive; its value when there is no name."""
-    gate, drain, source = stage.gate, stage.drain, stage.source
-    source_r = source.resistance_label if source.kind == "resistor" else ""
-    plus_source = f" + {source_r}" if source_r else ""
-    if gate.kind in ("rail", "divider", "resistor", "network") and source_r:
-        return source_r
-    if gate.kind == "diode" and drain.kind == "resistor":
-        return f"({drain.resistance_label}{plus_source})" if source_r else drain.resistance_label
-    if gate.kind == "feedback" and drain.kind == "resistor" and abs(gate.source_gain) <= 1e-12:
-        factor = "" if math.isclose(gate.drain_gain, 1.0) else f"{gate.drain_gain:.4g}·"
-        named = f"{factor}{drain.resistance_label}{plus_source}"
-        return f"({named})" if source_r or factor else named
-    return _q(value, "Ω")
 
 
 def _quadratic(a: float, b: float, c: float) -> tuple[float, ...]:
@@ -1196,285 +897,60 @@ def _affine_numbers(dc: _DcCircuit, stage: _Stage, base: dict[str, float] | None
     )  # fmt: skip
 
 
-def _affine_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _ClosedForm | str:
-    """Every node voltage affine in ID: VOV = u − Rg·ID, VDS = w − Rd·ID; a quadratic each region."""
-    numbers = _affine_numbers(dc, stage)
-    if isinstance(numbers, str):
-        return numbers
-    steps.extend(_affine_working(dc, stage, numbers))
-    if numbers.failure is not None:
-        return numbers.failure
-    return _ClosedForm(numbers.voltages, numbers.current, steps)
+@dataclass(frozen=True)
+class _HeldNumbers:
+    """The numbers of the held closed form: a current source is the only DC path of the source
+    (or of a diode-connected drain), so ID = I.
+
+    `region` is where the device ends up. A held source: `vg`, `vd`, `vs` and `vds` are the
+    saturation attempt's (VOV = `vov_sat`); where it fails, `delta` (VGD − Vt) and `triode_vds`
+    are the triode re-solve's. A diode-connected node: `vs` and `vgs` (= VDS).
+    """
+
+    current: float
+    voltages: dict[str, float]  # every free node at the solution
+    region: str
+    vov_sat: float
+    vg: float = 0.0
+    vd: float = 0.0
+    vs: float = 0.0
+    vds: float = 0.0
+    delta: float = 0.0
+    triode_vds: float = 0.0
+    vgs: float = 0.0
+    failure: str | None = None  # never: a held closed form always has its root
 
 
-def _affine_working(dc: _DcCircuit, stage: _Stage, numbers: _AffineNumbers) -> list[Step]:
-    """The steps of the affine closed form, written from its numbers."""
-    t = stage.transistor
-    names = _names(t.polarity)
-    k, vt, vgs0, vds0, u = numbers.k, numbers.vt, numbers.vgs0, numbers.vds0, numbers.u
-    rg, rd = numbers.rg, numbers.rd
-    symbol = _overdrive_symbol(stage, rg)
-    steps = [
-        Step(
-            f"Overdrive in terms of ID (substituting the gate and source relations; VOV = {names.vgs} − Vt)",
-            f"VOV = {_q(u, 'V')}" + (f" − ID·{_q(rg, 'Ω')}" if rg > 0.0 else ""),
-        ),
-        Step(
-            f"{names.vds} in terms of ID",
-            f"{names.vds} = {_q(vds0, 'V')}" + (f" − ID·{_q(rd, 'Ω')}" if rd else ""),
-        ),
-    ]
-    if numbers.region == "cutoff":
-        steps.append(
-            Step(
-                f"With ID = 0, {names.vgs} = {_q(vgs0, 'V')} is not above Vt = {_q(vt, 'V')}: VOV ≤ 0, cutoff",
-                "ID = 0",
-                0.0,
-                "A",
-            )
-        )
-        return steps
-
-    steps.append(Step("Assume saturation", "ID = (K/2)·VOV²"))
-    vov, other = numbers.trial_vov, numbers.trial_other
-    if rg == 0.0:
-        steps.append(
-            Step(
-                "Nothing between the source and a rail drops voltage: VOV is set directly",
-                f"VOV = {_q(vov, 'V')}",
-                vov,
-                "V",
-            )
-        )
-    else:
-        a = saturation_overdrive_quadratic(t.model, t.geometry, u, rg)[0]
-        steps.append(
-            Step(
-                f"Quadratic in VOV from ID = (K/2)·VOV² and VOV = {_q(u, 'V')} − ID·{symbol}",
-                f"(K·{symbol}/2)·VOV² + VOV − {_q(u, 'V')} = {a:.4g} /V·VOV² + VOV − {_q(u, 'V')} = 0 → "
-                f"VOV = (−1 ± √(1 + 2·K·{symbol}·{_q(u, 'V')}))/(K·{symbol}) = {_q(vov, 'V')} or "
-                f"{_q(other, 'V')}",
-            )
-        )
-        steps.append(
-            Step(
-                f"Keep the root VOV = {_q(vov, 'V')}: the other, {_q(other, 'V')}, would mean {names.vgs} = "
-                f"Vt + VOV = {_q(vt + other, 'V')} < Vt — the square law's mirror branch, where the device "
-                "is really off",
-                f"VOV = {_q(vov, 'V')}",
-                vov,
-                "V",
-            )
-        )
-    current = numbers.trial_current
-    steps.append(
-        Step(
-            "Drain current",
-            f"ID = (K/2)·VOV² = {_q(k / 2, 'A/V²')}·({_q(vov, 'V')})² = {_q(current, 'A')}",
-            current,
-            "A",
-        )
-    )
-    vds = numbers.trial_vds
-    steps.extend(_node_steps(dc, stage, current, numbers.trial_voltages))
-    if numbers.region == "saturation":
-        steps.append(
-            Step(
-                "Check the saturation assumption",
-                f"{names.vds} = {_q(vds, 'V')} ≥ VOV = {_q(vov, 'V')} → saturation holds",
-            )
-        )
-        steps.append(_gm_step(t, vov, current, "saturation"))
-        return steps
-
-    steps.append(
-        Step(
-            "Check the saturation assumption",
-            f"{names.vds} = {_q(vds, 'V')} < VOV = {_q(vov, 'V')} → saturation fails: re-solve in triode",
-        )
-    )
-    w = vds0
-    qa, qb, qc = numbers.quadratic
-    roots = numbers.roots
-    steps.append(
-        Step(
-            f"Triode: ID = K·(VOV·{names.vds} − {names.vds}²/2) with "
-            f"VOV = {_q(u, 'V')}" + (f" − ID·{_q(rg, 'Ω')}" if rg > 0.0 else "") + " and "
-            f"{names.vds} = {_q(w, 'V')}" + (f" − ID·{_q(rd, 'Ω')}" if rd else "") + ": a quadratic in ID",
-            f"{qa:.4g} /A·ID² {_signed(qb)}·ID {_minus(qc, 'A')} = 0 → ID = " + " or ".join(_q(r, "A") for r in roots),
-        )
-    )
-    if numbers.failure is not None:
-        return steps
-    current, vov, vds = numbers.current, numbers.vov, numbers.vds
-    rejected = [r for r in roots if r != current]
-    why = ""
-    if rejected:
-        r = rejected[0]
-        why = f"; the other root gives VOV = {_q(u - rg * r, 'V')}, {names.vds} = {_q(w - rd * r, 'V')}, outside triode"
-    steps.append(
-        Step(
-            f"Keep ID = {_q(current, 'A')}: with it 0 ≤ {names.vds} = {_q(vds, 'V')} ≤ VOV = {_q(vov, 'V')}{why}",
-            f"ID = {_q(current, 'A')}",
-            current,
-            "A",
-        )
-    )
-    steps.extend(_node_steps(dc, stage, current, numbers.voltages))
-    steps.append(Step("Check", f"{names.vds} = {_q(vds, 'V')} < VOV = {_q(vov, 'V')} → triode holds"))
-    steps.append(_gm_step(t, vds, current, "triode", vov))
-    return steps
-
-
-def _held_closed_form(dc: _DcCircuit, stage: _Stage, steps: list[Step]) -> _ClosedForm | str:
-    """A current source is the only DC path of the source (or of a diode-connected drain): ID = I."""
+def _held_numbers(dc: _DcCircuit, stage: _Stage) -> _HeldNumbers:
+    """The held closed form's numbers, no text (its working: ``hand_working._held_working``)."""
     t, net = stage.transistor, stage.network
-    p, names = t.polarity, _names(t.polarity)
-    k, vt = beta(t.model, t.geometry), threshold(t.model, 0.0)
-    held = stage.held_node
-    assert held is not None
-    current = stage.held_current
-    where = "source" if held == t.source else "drain–gate node"
-    steps.append(
-        Step(
-            f"Current source {', '.join(stage.held_by)} is the {where}'s only DC path (no gate current), so "
-            "it sets the drain current",
-            f"ID = {_q(current, 'A')}",
-            current,
-            "A",
-        )
-    )
+    p, vt = t.polarity, threshold(t.model, 0.0)
+    held, current = stage.held_node, stage.held_current
     kept = [n for n in net.nodes if n != held]
     free = _solve_network(net, kept, current)
     vov_sat = saturation_overdrive(t.model, t.geometry, current)
     d, g, s = t.drain, t.gate, t.source
-
     if held == s:
-        vg, vd = _voltage(dc, free, g), _voltage(dc, free, d)
-        steps.append(
-            Step(
-                "Assume saturation",
-                f"VOV = √(2·ID/K) = √(2·{_q(current, 'A')}/{_q(k, 'A/V²')}) = {_q(vov_sat, 'V')}",
-                vov_sat,
-                "V",
-            )
-        )
+        vg, vd = dc.voltage(free, g), dc.voltage(free, d)
         vs = vg - p * (vt + vov_sat)
-        if stage.gate.kind != "rail":
-            steps.append(Step("Gate voltage", f"VG = {_q(vg, 'V')}", vg, "V"))
-        relation = "VS = VG − Vt − VOV" if p > 0 else "VS = VG + Vt + VOV"
-        steps.append(Step("Source voltage", f"{relation} = {_q(vs, 'V')}", vs, "V"))
-        step = _terminal_value_step(stage.drain, "drain", p, current, vd)
-        if step is not None:
-            steps.append(step)
         vds = p * (vd - vs)
         if vds >= vov_sat:
-            steps.append(
-                Step(
-                    "Check the saturation assumption",
-                    f"{names.vds} = {_q(vds, 'V')} ≥ VOV = {_q(vov_sat, 'V')} → saturation holds",
-                )
-            )
-            steps.append(_gm_step(t, vov_sat, current, "saturation"))
             free[s] = vs
-            return _ClosedForm(free, current, steps)
-        steps.append(
-            Step(
-                "Check the saturation assumption",
-                f"{names.vds} = {_q(vds, 'V')} < VOV = {_q(vov_sat, 'V')} → saturation fails: re-solve in triode",
-            )
-        )
+            return _HeldNumbers(current, free, "saturation", vov_sat, vg, vd, vs, vds)
         # Triode with ID fixed: VOV = VDS + δ, δ = VGD − Vt, so ID = K·(VDS²/2 + δ·VDS).
         delta = p * (vg - vd) - vt
-        vds = triode_channel_bias(t.model, t.geometry, delta, current)
-        vs = vd - p * vds
-        steps.append(
-            Step(
-                f"Triode with ID fixed: VOV = {names.vds} + δ, δ = {names.vgd} − Vt = {_q(delta, 'V')}, so "
-                f"ID = K·({names.vds}²/2 + δ·{names.vds}); keep the positive root (the other puts the drain "
-                "beyond the source)",
-                f"{names.vds} = √(δ² + 2·ID/K) − δ = {_q(vds, 'V')}",
-                vds,
-                "V",
-            )
-        )
-        steps.append(Step("Source voltage", f"VS = {_q(vs, 'V')}", vs, "V"))
-        steps.append(Step("Check", f"{names.vds} = {_q(vds, 'V')} < VOV = {_q(vds + delta, 'V')} → triode holds"))
-        steps.append(_gm_step(t, vds, current, "triode", vds + delta))
-        free[s] = vs
-        return _ClosedForm(free, current, steps)
-
+        triode_vds = triode_channel_bias(t.model, t.geometry, delta, current)
+        free[s] = vd - p * triode_vds
+        return _HeldNumbers(current, free, "triode", vov_sat, vg, vd, vs, vds, delta, triode_vds)
     # Diode-connected node fed only by a current source.
-    vs = _voltage(dc, free, s)
-    step = _terminal_value_step(stage.source, "source", p, current, vs)
-    if step is not None:
-        steps.append(step)
+    vs = dc.voltage(free, s)
     if vt > 0.0:
-        vgs = vt + vov_sat
-        steps.append(
-            Step(
-                f"Saturation ({names.vds} = {names.vgs} = Vt + VOV ≥ VOV, as Vt > 0)",
-                f"{names.vgs} = Vt + √(2·ID/K) = {_q(vt, 'V')} + √(2·{_q(current, 'A')}/{_q(k, 'A/V²')}) "
-                f"= {_q(vgs, 'V')}",
-                vgs,
-                "V",
-            )
-        )
-        region, vov = "saturation", vov_sat
+        vgs, region = vt + vov_sat, "saturation"
     else:
         # Depletion device: VDS = VGS < VOV, so triode: ID = K·(VGS²/2 − Vt·VGS).
-        vgs = triode_channel_bias(t.model, t.geometry, -vt, current)  # VDS = VGS, VOV = VGS − Vt
-        steps.append(
-            Step(
-                f"Vt ≤ 0, so {names.vds} = {names.vgs} < VOV: triode, ID = K·({names.vgs}²/2 − "
-                f"Vt·{names.vgs}); keep the positive root",
-                f"{names.vgs} = Vt + √(Vt² + 2·ID/K) = {_q(vgs, 'V')}",
-                vgs,
-                "V",
-            )
-        )
-        region, vov = "triode", vgs - vt
-    vd = vs + p * vgs
-    steps.append(
-        Step(
-            "Drain (and gate) voltage",
-            f"VD = VS {'+' if p > 0 else '−'} {names.vgs} = {_q(vd, 'V')}",
-            vd,
-            "V",
-        )
-    )
-    steps.append(_gm_step(t, vov if region == "saturation" else vgs, current, region, vov))
-    free[d] = vd
-    return _ClosedForm(free, current, steps)
-
-
-def _node_steps(dc: _DcCircuit, stage: _Stage, current: float, voltages: dict[str, float]) -> list[Step]:
-    t = stage.transistor
-    steps = []
-    for role, terminal, node in (("source", stage.source, t.source), ("drain", stage.drain, t.drain)):
-        step = _terminal_value_step(terminal, role, t.polarity, current, _voltage(dc, voltages, node))
-        if step is not None:
-            steps.append(step)
-    if stage.gate.kind in ("feedback", "coupled"):
-        vg = _voltage(dc, voltages, t.gate)
-        steps.append(Step("Gate voltage", f"VG = {_q(vg, 'V')}", vg, "V"))
-    return steps
-
-
-def _gm_step(t: _Transistor, drive: float, current: float, region: Region, vov: float | None = None) -> Step:
-    """gm (and gds in triode) of the hand model, asked of the device at the closed form's point:
-    `drive` is VOV in saturation, VDS in triode."""
-    if region == "saturation":
-        gm = square_law(t.model, t.geometry, drive, drive, region)[1]
-        return Step("Transconductance (λ = 0: gds = 0)", f"gm = K·VOV = 2·ID/VOV = {_q(gm, 'S')}", gm, "S")
-    assert vov is not None
-    _, gm, gds = square_law(t.model, t.geometry, vov, drive, region)
-    return Step(
-        "Small-signal values in triode",
-        f"gm = K·VDS = {_q(gm, 'S')}, gds = K·(VOV − VDS) = {_q(gds, 'S')}",
-        gm,
-        "S",
-    )
+        vgs, region = triode_channel_bias(t.model, t.geometry, -vt, current), "triode"  # VOV = VGS − Vt
+    free[d] = vs + p * vgs
+    return _HeldNumbers(current, free, region, vov_sat, vs=vs, vgs=vgs)
 
 
 # --- the numerical path -----------------------------------------------------------------------
@@ -1526,110 +1002,23 @@ def _device_points(dc: _DcCircuit, voltages: dict[str, float]) -> dict[str, Leve
         for t in dc.transistors
     }
 
-
-# Forward bias at which a real bulk junction conducts enough to matter: the answer then
-# leans on the missing junction diodes, and the working says so.
-_JUNCTION_ON = 0.3  # V: about a nanoamp through a default (IS = 1e-14 A) junction
-
-
-def _junction_warnings(dc: _DcCircuit, voltages: dict[str, float]) -> list[Step]:
-    """Bulk junctions the hand solution forward-biases: its answer then ignores a real diode."""
-    warnings = []
-    for t in dc.transistors:
-        for terminal, node in (("source", t.source), ("drain", t.drain)):
-            forward = t.polarity * (voltages[t.bulk] - voltages[node])
-            if forward > _JUNCTION_ON:
-                warnings.append(
-                    Step(
-                        f"Warning: {t.name}'s bulk–{terminal} junction is forward biased by "
-                        f"{_q(forward, 'V')}; the hand model has no junction diodes, a real device "
-                        "(and ngspice) would conduct through it",
-                        value=forward,
-                        unit="V",
-                    )
-                )
-    return warnings
-
-
-def _assumptions(dc: _DcCircuit, effects: frozenset[str]) -> tuple[str, ...]:
-    items = [
-        "Square law: ID = (K/2)·VOV² in saturation, K·(VOV·VDS − VDS²/2) in triode, K = KP·W·M/Leff",
-        "LAMBDA switched on: ID scaled by (1 + λ·VDS)"
-        if "lambda" in effects
-        else "LAMBDA = 0: no channel-length modulation (gds = 0 in saturation)",
-        "GAMMA switched on: threshold rises with source–bulk reverse bias"
-        if "gamma" in effects
-        else "GAMMA = 0: no body effect, Vt = VTO",
-        "No gate current",
-        "Capacitors open, inductors shorted (DC)",
-        "Bulk junction diodes and GMIN left out",
-        "Device quantities in device polarity: a conducting PMOS has positive ID, VGS = V(s) − V(g), "
-        "VDS = V(s) − V(d), Vt",
-    ]
-    items.extend(dc.notes)
-    for t in dc.transistors:
-        if _temperature_moved(t.model):
-            items.append(
-                f"{t.name} at {t.model.temperature_celsius:g} °C: the card's KP, VTO and PHI taken to that "
-                f"temperature by ngspice's level-1 rules (TNOM = {t.model.tnom_celsius:g} °C)"
-            )
-    for t in dc.transistors:
-        items.extend(f"{t.name}: {caveat}" for caveat in t.card.caveats)
-    return tuple(dict.fromkeys(items))
-
-
-def _effect_text(dc: _DcCircuit, effects: frozenset[str]) -> str:
-    parts = []
-    for t in dc.transistors:
-        if "lambda" in effects:
-            parts.append(f"{t.name} LAMBDA = {t.model.lambda_:.4g} /V")
-        if "gamma" in effects:
-            parts.append(f"{t.name} GAMMA = {t.model.gamma:.4g} √V")
-    return ", ".join(parts)
-
-
 def _numerical_solution(
     circuit: Circuit,
     dc: _DcCircuit,
     topology: str,
-    reason: str,
     effects: frozenset[str],
-    steps: list[Step],
-    working: bool = True,
+    working: Working | None,
     start: Mapping[str, float] | None = None,
 ) -> HandSolution:
+    """The model solved numerically; `working` (what the text is written from, this path's
+    numbers added to it) None for an answer without text."""
     voltages, iterations = _solve_numerically(circuit, dc, start)
     points = _device_points(dc, voltages)
     devices = {name: _hand_device(point) for name, point in points.items()}
-    if not working:
+    if working is None:
         return HandSolution(topology, False, _all_nodes(dc, voltages), devices, (), (), effects)
-    steps.append(Step(f"No closed form used: {reason}"))
-    model_words = "the hand model" + (f" with {_effect_text(dc, effects)} switched on" if effects else "")
-    steps.append(
-        Step(f"Solved {model_words} numerically: Newton's method on the node equations ({iterations} iterations)")
-    )
-    warnings = _junction_warnings(dc, voltages)
-    for t in dc.transistors:
-        point = points[t.name]
-        names = _names(t.polarity)
-        steps.append(
-            Step(
-                f"{t.name}: {point.region}",
-                f"ID = {_q(point.id, 'A')}, {names.vgs} = {_q(point.vgs, 'V')}, {names.vds} = "
-                f"{_q(point.vds, 'V')}, VOV = {_q(point.vov, 'V')}",
-                point.id,
-                "A",
-            )
-        )
-    return HandSolution(
-        topology=topology,
-        closed_form=False,
-        node_voltages=_all_nodes(dc, voltages),
-        devices=devices,
-        steps=tuple(steps + warnings),
-        assumptions=_assumptions(dc, effects) + tuple(w.text for w in warnings),
-        effects=effects,
-    )
+    steps, assumptions = written(replace(working, voltages=voltages, iterations=iterations, points=points))
+    return HandSolution(topology, False, _all_nodes(dc, voltages), devices, steps, assumptions, effects)
 
 
 def _all_nodes(dc: _DcCircuit, voltages: dict[str, float]) -> dict[str, float]:
@@ -1652,9 +1041,10 @@ def hand_analysis(
     ``effects`` switches "lambda" and/or "gamma" back on (for attributing a difference to
     one effect at a time); the closed forms then no longer apply and the same model is solved
     numerically. ``closed_form=False`` takes the numerical path even where a closed form
-    exists (the two agree to rounding). ``working=False`` leaves the steps and assumptions
-    out of a numerical answer (its numbers are the same): for callers that only read the
-    bias point, such as the attribution. Raises HandAnalysisError when the circuit has no
+    exists (the two agree to rounding). The working is written only when the answer's
+    ``steps`` or ``assumptions`` are read; ``working=False`` leaves them empty (the numbers are
+    the same) and, with effects or without a closed form, keeps nothing to write them from:
+    for callers that only read the bias point, such as the attribution. Raises HandAnalysisError when the circuit has no
     bias point under the model or holds elements it excludes (diodes, BJTs).
     """
     chosen = _chosen_effects(effects)
@@ -1812,45 +1202,42 @@ def _solve(
     working: bool,
     start: Mapping[str, float] | None = None,
 ) -> HandSolution:
+    """The numbers, and with `working` what their text is written from (written when read)."""
     topology, stage, reason = recognised
     if not working and (chosen or not closed_form or stage is None):
-        return _numerical_solution(circuit, dc, topology, "", chosen, [], working=False, start=start)
-    steps: list[Step] = []
-    for t in dc.transistors:
-        steps.extend(_model_steps(t, chosen))
+        return _numerical_solution(circuit, dc, topology, chosen, None, start=start)
     if chosen:
         reason = f"{_effect_text(dc, chosen)} switched on — the closed forms assume λ = γ = 0" + (
             f" (and {reason})" if reason else ""
         )
     elif not closed_form:
         reason = "numerical path requested" + (f" (and {reason})" if reason else "")
+    text = Working(dc, chosen, {}) if working else None
     if stage is None or reason is not None:
-        return _numerical_solution(circuit, dc, topology, reason or "", chosen, steps)
+        return _numerical_solution(circuit, dc, topology, chosen, text and replace(text, reason=reason or ""))
 
-    steps.extend(_gate_steps(dc, stage))
-    steps.extend(_channel_steps(dc, stage))
-    solved = (
-        _held_closed_form(dc, stage, steps) if stage.held_node is not None else _affine_closed_form(dc, stage, steps)
-    )
-    if isinstance(solved, str):
-        return _numerical_solution(circuit, dc, topology, solved, chosen, steps, working=working)
-    voltages = {**dc.fixed, **solved.free_voltages}
-    points = _device_points(dc, voltages)
+    closed = _held_numbers(dc, stage) if stage.held_node is not None else _affine_numbers(dc, stage)
+    if isinstance(closed, str):
+        return _numerical_solution(circuit, dc, topology, chosen, text and replace(text, stage=stage, reason=closed))
+    text = text and replace(text, stage=stage, closed=closed)
+    if closed.failure is not None:
+        return _numerical_solution(circuit, dc, topology, chosen, text and replace(text, reason=closed.failure))
+    voltages = {**dc.fixed, **closed.voltages}
     t = stage.transistor
-    point = points[t.name]
-    if not math.isclose(point.id, solved.drain_current, rel_tol=1e-9, abs_tol=1e-15):
+    point = _device_points(dc, voltages)[t.name]
+    if not math.isclose(point.id, closed.current, rel_tol=1e-9, abs_tol=1e-15):
         # Far from any stage's sizes and supplies (W = 1 T-metre, VDD = 1 TV) the closed form's
         # rounding leaves the device equations: the numerical path answers instead.
-        reason = (f"the closed form for {t.name} loses its precision here (ID {solved.drain_current:.6g} A vs "
+        reason = (f"the closed form for {t.name} loses its precision here (ID {closed.current:.6g} A vs "
                   f"{point.id:.6g} A from the device equations)")
-        return _numerical_solution(circuit, dc, topology, reason, chosen, steps, working=working)
-    warnings = _junction_warnings(dc, voltages)
+        return _numerical_solution(circuit, dc, topology, chosen, text and replace(text, reason=reason))
+    steps, assumptions = written(replace(text, voltages=voltages)) if text else ((), ())
     return HandSolution(
         topology=topology,
         closed_form=True,
         node_voltages=_all_nodes(dc, voltages),
         devices={t.name: _hand_device(point)},
-        steps=tuple(solved.steps + warnings),
-        assumptions=_assumptions(dc, chosen) + tuple(w.text for w in warnings),
+        steps=steps,
+        assumptions=assumptions,
         effects=chosen,
     )
