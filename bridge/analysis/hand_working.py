@@ -6,8 +6,8 @@ sequences that build their text the first time they are read (``check --steps``,
 ``check --json``, the attribution's re-solves and a sweep's points format nothing. A ``Written``
 compares, hashes and pickles as the tuple it stands for.
 
-Nothing here imports ``hand.py`` (it imports this): the working reads the hand's circuit,
-stage and numbers through their attributes.
+Nothing here imports ``hand.py`` or ``hand_circuit.py`` (they import this): the working reads
+the hand's circuit, stage and numbers through their attributes.
 """
 
 from __future__ import annotations
@@ -25,7 +25,8 @@ from ..netlist.numbers import engineering
 from ..vocabulary import Step
 
 if TYPE_CHECKING:
-    from .hand import _AffineNumbers, _DcCircuit, _HeldNumbers, _Stage, _Terminal, _Transistor
+    from .hand import _AffineNumbers, _HeldNumbers
+    from .hand_circuit import _DcCircuit, _Stage, _Terminal, _Transistor
 
 __all__ = ["Working", "Written", "written"]
 
