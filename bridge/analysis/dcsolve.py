@@ -40,11 +40,11 @@ from typing import NamedTuple
 
 import numpy as np
 
-from bridge.analysis.connectivity import NodeSets
+from bridge.analysis.connectivity import structure_fault
 from bridge.analysis.linear import copy_rows, solve_dense, stamp_rows, stamped
 from bridge.analysis.reduction import Reduction as _Reduction
 from bridge.analysis.reduction import reduce_network as _reduce
-from bridge.devices.diode import PlacedDiode
+from bridge.devices.diode import PlacedDiode, diode_at_temperature
 from bridge.devices.interface import DcDevice
 from bridge.devices.mos1.convergence import vcrit as _vcrit
 from bridge.devices.mos1.instance import (
@@ -63,7 +63,7 @@ from bridge.devices.mos1.load import (
     junction_current_arrays,
 )
 from bridge.devices.mos1.model import Level1Model
-from bridge.devices.mos1.params import CELSIUS_TO_KELVIN, CIRCUIT_TEMPERATURE_C, K_OVER_Q
+from bridge.devices.mos1.params import CIRCUIT_TEMPERATURE_C, K_OVER_Q
 from bridge.devices.mos1.placed import PlacedMosfet
 from bridge.netlist.circuit import GROUND, Circuit, Element, ModelCard
 
@@ -504,7 +504,7 @@ def _diode(element: Element, at: list[int], circuit: Circuit, caveats: list[str]
     area = _number(element.params.get("area", 1.0), "AREA", element)
     multiplier = _number(element.params.get("m", 1.0), "M", element)
     try:
-        saturation_current, emission_voltage = _diode_at_temperature(
+        saturation_current, emission_voltage = diode_at_temperature(
             params, circuit.device_temperature(element), circuit.nominal_temperature()
         )
     except ValueError as exc:
@@ -556,24 +556,6 @@ def _mosfet(
     return PlacedMosfet(element.name, at[0], at[1], at[2], at[3], device)
 
 
-def _diode_at_temperature(params: Mapping[str, float], celsius: float, nominal_celsius: float) -> tuple[float, float]:
-    """A diode card's IS (per unit area, before AREA·M) and N·kT/q at `celsius`, as diotemp.c
-    (ngspice 39, DIOtempUpdate): IS(T) = IS·exp((T/TNOM − 1)·EG/(N·Vt(T)) + (XTI/N)·ln(T/TNOM)),
-    EG = 1.11 eV and XTI = 3 by default, TNOM the card's or the circuit's nominal temperature."""
-    kelvin = celsius + CELSIUS_TO_KELVIN
-    if not kelvin > 0.0:
-        raise ValueError(f"temperature {celsius:g} °C is below absolute zero")
-    emission = params.get("n", 1.0)
-    emission_voltage = emission * K_OVER_Q * kelvin
-    saturation_current = params.get("is", 1e-14)
-    tnom = params.get("tnom", nominal_celsius) + CELSIUS_TO_KELVIN
-    if kelvin != tnom and emission_voltage > 0.0:
-        ratio = kelvin / tnom
-        band_gap_term = (ratio - 1.0) * params.get("eg", 1.11) / emission_voltage
-        saturation_current *= math.exp(band_gap_term + params.get("xti", 3.0) / emission * math.log(ratio))
-    return saturation_current, emission_voltage
-
-
 def _temperature_notes(circuit: Circuit) -> list[str]:
     """What the reader should know about the temperature the circuit is solved at."""
     notes: list[str] = []
@@ -603,54 +585,11 @@ def _temperature_notes(circuit: Circuit) -> list[str]:
 
 
 def _check_structure(circuit: Circuit, nodes: tuple[str, ...], *, channels: bool = False) -> None:
-    """Refuse a circuit whose matrix is singular by construction, naming the cause.
-
-    A node with no DC path to ground (reached only through capacitors, current sources or
-    MOSFET gates) has no defined voltage; a loop of voltage sources and shorts has no
-    defined current. ngspice meets both as a singular matrix. With `channels` (the hand
-    device: no bulk junctions) a MOSFET joins its drain and source only, and inductors are
-    shorts whose nodes are merged, not branches.
-    """
-    sets = NodeSets((GROUND, *nodes))
-    root, join = sets.root, sets.join
-
-    # Loops of fixed-voltage branches first: independent V sources and inductors.
-    fixed = [e for e in circuit.elements if e.kind == "vsource" or (e.kind == "inductor" and not channels)]
-    for element in fixed:
-        if not join(element.nodes[0], element.nodes[1]):
-            group = root(element.nodes[0])
-            loop = [e.name for e in fixed if root(e.nodes[0]) == group]
-            raise SingularCircuit(
-                f"singular circuit: a loop of voltage sources and inductors among {', '.join(loop)} "
-                "(the currents around it are undefined)",
-                elements=loop,
-            )
-    # Then DC paths: everything that conducts at DC joins its nodes.
-    loose_ends: set[str] = set()  # outputs of G/F sources: they may pin a node in odd circuits
-    for element in circuit.elements:
-        kind, ends = element.kind, element.nodes
-        if kind in ("resistor", "diode", "vcvs", "ccvs") or (kind == "inductor" and channels):
-            join(ends[0], ends[1])
-        elif kind == "mosfet" and channels:
-            join(ends[0], ends[2])  # the channel: the hand device has no junctions to the bulk
-        elif kind == "mosfet":
-            # The bulk junctions (with GMIN) tie drain and source to the bulk.
-            join(ends[0], ends[3])
-            join(ends[2], ends[3])
-        elif kind in ("vccs", "cccs"):
-            loose_ends.update(ends[:2])
-            if kind == "vccs" and {ends[0], ends[1]} == {ends[2], ends[3]}:
-                join(ends[0], ends[1])  # a G source controlled by its own nodes is a conductance
-    ground = root(GROUND)
-    floating = [node for node in nodes if root(node) != ground]
-    if floating and not any(root(node) in {root(f) for f in floating} for node in loose_ends):
-        names = ", ".join(floating)
-        raise SingularCircuit(
-            f"singular circuit: no DC path to ground from node{'s' if len(floating) > 1 else ''} "
-            f"{names} (only capacitors, current sources or MOSFET gates reach "
-            f"{'them' if len(floating) > 1 else 'it'}), so the operating point is undefined",
-            nodes=floating,
-        )
+    """Refuse a circuit whose matrix is singular by construction, naming the cause
+    (``connectivity.structure_fault``; `channels`: the hand device's network)."""
+    fault = structure_fault(circuit, nodes, channels=channels)
+    if fault is not None:
+        raise SingularCircuit(fault.message, nodes=fault.nodes, elements=fault.elements)
 
 
 # --- Newton ---------------------------------------------------------------------------------
