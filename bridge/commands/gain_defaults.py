@@ -156,8 +156,8 @@ def midband(low_hz: float | None, high_hz: float | None) -> tuple[float, str]:
         chosen = math.sqrt(low_limit * high_limit)
         nice = nice_above(chosen)
         chosen = nice if nice <= high_limit else chosen
-        return chosen, (f"between 100× the low band edge ({engineering(low_limit, 'Hz')}) and 1/100 of the upper "
-                        f"band edge ({engineering(high_limit, 'Hz')})")
+        return chosen, (f"between {engineering(low_limit, 'Hz')}, 100× the low band edge, and "
+                        f"{engineering(high_limit, 'Hz')}, 1/100 of the upper band edge")
     if low_limit is not None:
         return nice_above(low_limit), f"100× above the low band edge ({engineering(low_hz, 'Hz')}), rounded up"
     if high_limit is not None:
