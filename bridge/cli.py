@@ -514,7 +514,7 @@ def _gain_with(args: argparse.Namespace, session: object, hint: str) -> int:
     if args.json:
         sys.stdout.write(json.dumps(gain_json(result), allow_nan=False) + "\n")
     else:
-        _console().print(gain_renderable(result, steps=args.steps))
+        _console().print(gain_renderable(result, steps=args.steps), soft_wrap=True)
     return EXIT_OK if result.agree else EXIT_FINDINGS
 
 
