@@ -11,7 +11,7 @@ import math
 from collections.abc import Mapping
 
 from .netlist.numbers import engineering
-from .vocabulary import COLUMN_NAMES, EFFECT_NAMES, Finding
+from .vocabulary import COLUMN_NAMES, Finding
 
 LEVEL1_TOLERANCE = 0.005  # the level-1 linearisation against ngspice's .ac: 0.5 %
 QUANTITIES = ("gain", "rin", "rout")
@@ -79,12 +79,3 @@ def attribution(hand_gain: float | None, with_effect: Mapping[str, float]) -> di
         return {}
     changes = {effect: relative(value, hand_gain) for effect, value in with_effect.items()}
     return dict(sorted(changes.items(), key=lambda item: -abs(item[1])))
-
-
-def cause_findings(changes: Mapping[str, float], subject: str | None, line: int | None) -> list[Finding]:
-    """One info line per effect of the attribution, largest first."""
-    return [
-        Finding("info", "gain-cause", f"{EFFECT_NAMES.get(effect, effect)} alone changes the hand gain by "
-                                      f"{_percent(change)}", line, subject)
-        for effect, change in changes.items()
-    ]

@@ -34,7 +34,7 @@ from .commands.gain_defaults import (
     midband,
     sweep_range,
 )
-from .gain_compare import attribution, cause_findings, compare_columns
+from .gain_compare import attribution, compare_columns
 from .netlist.circuit import Circuit
 from .vocabulary import EFFECTS, Finding, simulator_failure
 
@@ -230,7 +230,6 @@ def run_gain(
             except SmallSignalError:
                 continue
         changes = attribution(column.gain, with_effect)
-        findings.extend(cause_findings(changes, subject, line))
     if frequency is not None and ((low and frequency < 100.0 * low) or (high and frequency > high / 100.0)):
         findings.append(Finding("info", "near-band-edge", f"--freq {frequency:g} Hz is within 100× of a hand band "
                                 "edge: the hand column's shorted and open capacitors are not exact there",
