@@ -199,8 +199,11 @@ def test_common_source_rout_is_the_closed_form_at_ngspices_operating_point(requi
     # drain junction, GMIN at least) → vd / i = (1 + (gm + g)·RS) / g = ro + RS + gm·ro·RS.
     g = op["@m1[gds]"] + op["@m1[gbd]"]
     drain = (1 + (op["@m1[gm]"] + g) * 2.2e3) / g
-    expected = 1 / (1j * 2 * math.pi * f * 2.2e-6) + 1 / (1 / 12e3 + 1 / drain)  # COUT + RD ∥ drain
-    assert measured.rout == pytest.approx(expected, rel=1e-9)
+    coupled = 1 / (1j * 2 * math.pi * f * 2.2e-6)  # COUT
+    assert measured.rout == pytest.approx(coupled + 1 / (1 / 12e3 + 1 / drain), rel=1e-9)  # COUT + RD ∥ drain
+    # RD as the load: its other terminal is the supply (AC ground); it sees the drain ∥ (COUT + RL).
+    at_drain = measure_ac(required_ngspice_session, circuit, AcSetup("VSIG", "drain", "RD", f, 10.0, 1e5))
+    assert at_drain.rout == pytest.approx(1 / (1 / drain + 1 / (coupled + 47e3)), rel=1e-9)
 
 
 @needs_ngspice
