@@ -488,11 +488,7 @@ def _gain_with(args: argparse.Namespace, session: object, hint: str) -> int:
 
             plot_format(args.plot)
             _check_output_path(args.plot, inputs, "--plot")
-            try:
-                from .report.gain_plot import write_gain_plot as write_plot
-            except ImportError:
-                raise ValueError("--plot: the gain plot (bridge.report.gain_plot) is not built into this "
-                                 "version") from None
+            from .report.gain_plot import plot_gain as write_plot
         if not circuit.elements_of("mosfet"):
             raise ValueError("the netlist has no MOSFET: `gain` follows a MOSFET stage")
         result = run_gain(
@@ -508,7 +504,9 @@ def _gain_with(args: argparse.Namespace, session: object, hint: str) -> int:
             print(f"biasbridge: --plot {args.plot}: no ngspice sweep to draw; no plot written", file=sys.stderr)
         else:
             try:
-                write_plot(result, args.plot)
+                write_plot(args.plot, result.measurement, result.gain["hand"], result.band["low_hz"]["hand"],
+                           result.band["high_hz"]["hand"], f"{circuit.title} — {result.input.value} to "
+                           f"{result.output.value}")  # fmt: skip
             except OSError as exc:
                 return refuse(f"cannot write {args.plot}: {exc.strerror or exc}")
     if args.json:

@@ -82,3 +82,9 @@ def test_the_bundled_example_runs(capsys):
     out = capsys.readouterr().out
     assert status in (0, 1)
     assert "midband" in out and "RD = 10 kΩ" in out and "CS (470 µF)" in out
+
+
+def test_plot_is_written(stage, tmp_path, required_ngspice_session, capsys):
+    target = tmp_path / "response.svg"
+    assert main(["gain", str(stage), "--plot", str(target)]) in (0, 1)
+    assert target.read_text().lstrip().startswith("<?xml") and "hand midband gain" in target.read_text()

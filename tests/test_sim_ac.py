@@ -15,7 +15,7 @@ import pytest
 from bridge.netlist import parse_netlist
 from bridge.netlist.circuit import AcSweep, Analysis, Origin
 from bridge.netlist.emit import emit
-from bridge.sim.ac import AcSetup, band_edges, measure_ac
+from bridge.sim.ac import AcMeasurement, AcSetup, band_edges, measure_ac
 from tests.conftest import NGSPICE, needs_ngspice
 
 # A greenhouse soil-moisture probe's signal path, piece by piece.
@@ -199,8 +199,11 @@ def test_common_source_rout_is_the_closed_form_at_ngspices_operating_point(requi
     # drain junction, GMIN at least) → vd / i = (1 + (gm + g)·RS) / g = ro + RS + gm·ro·RS.
     g = op["@m1[gds]"] + op["@m1[gbd]"]
     drain = (1 + (op["@m1[gm]"] + g) * 2.2e3) / g
-    expected = 1 / (1j * 2 * math.pi * f * 2.2e-6) + 1 / (1 / 12e3 + 1 / drain)  # COUT + RD ∥ drain
-    assert measured.rout == pytest.approx(expected, rel=1e-9)
+    coupled = 1 / (1j * 2 * math.pi * f * 2.2e-6)  # COUT
+    assert measured.rout == pytest.approx(coupled + 1 / (1 / 12e3 + 1 / drain), rel=1e-9)  # COUT + RD ∥ drain
+    # RD as the load: its other terminal is the supply (AC ground); it sees the drain ∥ (COUT + RL).
+    at_drain = measure_ac(required_ngspice_session, circuit, AcSetup("VSIG", "drain", "RD", f, 10.0, 1e5))
+    assert at_drain.rout == pytest.approx(1 / (1 / drain + 1 / (coupled + 47e3)), rel=1e-9)
 
 
 @needs_ngspice
@@ -253,3 +256,73 @@ def test_band_edges_interpolate_log_log_and_stop_at_the_first_fall():
 
 
 HALF = 1 / math.sqrt(2)
+
+
+@needs_ngspice
+def test_the_worker_returns_an_ac_plot_as_complex_arrays_and_an_op_as_floats(required_ngspice_session):
+    circuit = parse_netlist(LOW_PASS, "lp.cir")
+    session = required_ngspice_session
+    ac = emit(circuit, analyses=[Analysis("ac", Origin("lp.cir", 0), ac=AcSweep("oct", 2, 100.0, 800.0))])
+    result = session.run(ac, vectors=["frequency", "v(out)", "i(vprobe)"])
+    assert result["v(out)"].dtype == complex and result["vprobe#branch"].dtype == complex
+    assert np.allclose(result["frequency"].real, [100.0, 100 * 2**0.5, 200.0, 200 * 2**0.5, 400.0,
+                                                   400 * 2**0.5, 800.0], rtol=1e-12)
+    w = 2 * np.pi * result["frequency"].real
+    assert np.allclose(result["v(out)"], 1 / (1 + 1j * w * R_LP * C_LP), rtol=1e-9, atol=0)
+    # ngspice's branch current flows into the + node: the current VPROBE delivers is its negative.
+    assert np.allclose(-result["i(vprobe)"], 1 / (R_LP + 1 / (1j * w * C_LP)), rtol=1e-9, atol=0)
+    op = session.run(emit(circuit, analyses=[Analysis("op", Origin("lp.cir", 0))]), vectors=["v(out)"])
+    assert op["v(out)"].dtype == float and op.scalar("v(out)") == 0.0
+
+
+def _high_pass_measurement() -> AcMeasurement:
+    """The RC high-pass's response from its closed form, in the shape measure_ac gives it."""
+    f = np.logspace(0, 7, 7 * 40 + 1)
+    x = 1j * 2 * np.pi * f * R_HP * C_HP
+    response = x / (1 + x)
+    gain = complex(response[-40])
+    low, high = band_edges(f, response, float(f[-40]), abs(gain))
+    return AcMeasurement(float(f[-40]), gain, complex(R_HP), complex(0.0), f, response, low, high)
+
+
+def test_gain_plot_draws_the_response_and_the_hand_marks():
+    from bridge.report.gain_plot import gain_figure
+
+    measured = _high_pass_measurement()
+    corner = 1.0 / (2.0 * math.pi * R_HP * C_HP)
+    figure = gain_figure(measured, -0.98, corner * 1.1, None, "soil probe coupling")
+    magnitude, phase = figure.axes
+    sim = next(line for line in magnitude.get_lines() if line.get_label() == "ngspice .ac")
+    assert np.allclose(sim.get_ydata(), 20 * np.log10(np.abs(measured.response)))
+    assert sim.get_xdata()[0] == 1.0 and magnitude.get_xscale() == "log"
+    hand = [line for line in magnitude.get_lines() if line.get_label().startswith("hand midband gain -0.98 ")]
+    assert len(hand) == 1 and np.allclose(hand[0].get_ydata(), 20 * math.log10(0.98))
+    edges = [line for line in magnitude.get_lines() if line.get_label().startswith("hand f_L = ")]
+    assert len(edges) == 1 and np.allclose(edges[0].get_xdata(), corner * 1.1)
+    assert not [line for line in magnitude.get_lines() if "f_H" in line.get_label()]  # None: not drawn
+    assert any(np.allclose(line.get_xdata(), corner * 1.1) for line in phase.get_lines())
+    sim_phase = next(line for line in phase.get_lines() if line.get_label() == "ngspice .ac")
+    assert np.interp(corner, sim_phase.get_xdata(), sim_phase.get_ydata()) == pytest.approx(45.0, abs=0.1)
+    ngspice_edge = [line for line in magnitude.get_lines() if line.get_label().startswith("ngspice −3 dB f_L")]
+    assert len(ngspice_edge) == 1 and np.allclose(ngspice_edge[0].get_xdata(), measured.low_hz)
+    assert figure.get_suptitle() == "soil probe coupling"
+    upper = gain_figure(measured, None, None, 2e5, "soil probe coupling").axes[0]
+    assert [line.get_label() for line in upper.get_lines() if line.get_label().startswith("hand")] == [
+        "hand f_H = 200 kHz"]
+
+
+def test_gain_plot_file_is_written_whole_and_replaced_by_rename(tmp_path):
+    from bridge.report.gain_plot import plot_gain
+
+    measured = _high_pass_measurement()
+    target = tmp_path / "probe.png"
+    plot_gain(target, measured, 0.99, 160.0, None, "soil probe coupling")
+    first = target.stat().st_ino
+    assert target.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    plot_gain(target, measured, None, None, None, "soil probe coupling")
+    # A new file renamed into place (another inode), never the old one rewritten; no part left.
+    assert target.stat().st_ino != first and target.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["probe.png"]
+    with pytest.raises(ValueError, match=r"\.png or \.svg"):
+        plot_gain(tmp_path / "probe.pdf", measured, 0.99, None, None, "x")
+    assert not (tmp_path / "probe.pdf").exists()

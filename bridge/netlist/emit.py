@@ -2,7 +2,8 @@
 
 Canonical means: one card per line, lower-case keywords, values as exact decimal
 numbers in SI (no suffixes to misread), models before elements, parameters already
-resolved. emit → parse → emit is a fixed point. Nothing of the user's own text
+resolved. emit → parse → emit is a fixed point for what the reader makes (an `.ac` analysis,
+made only by bridge.sim.ac, reads back as a kept card). Nothing of the user's own text
 passes through except names and text-valued model parameters (`version=3.3.0`),
 which the grammar has already read as single fields, and the title line.
 """

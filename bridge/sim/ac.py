@@ -8,7 +8,9 @@ Every deck is a variant of the Circuit, emitted (the user's own text never reach
   (no AC spec); one `.ac dec` over the sweep (the response, the band edges, the plot) and one
   `.ac lin 1 f f` at the midband frequency (the midband gain and Rin), each a worker call;
 - the output-resistance run: every source AC 0 (DC values kept, so the bias stays), a test current
-  source (DC 0, AC 1 A) into the output node, `.ac lin 1 f f` at midband. The load stays in for the
+  source (DC 0, AC 1 A) into the output node from the load's other terminal (from ground without a
+  load; the same wherever that terminal is at AC ground, as a supply or ground is), Rout the
+  voltage between the two over the current, `.ac lin 1 f f` at midband. The load stays in for the
   operating point, with a 0 V source in series that measures its AC current; the current into the
   rest of the circuit is then 1 A minus the load's, so Rout is the impedance the load sees as if
   it were taken out, with the bias it has in the circuit (taking it out of the deck instead would
