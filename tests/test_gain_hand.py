@@ -207,3 +207,21 @@ def test_no_midband_when_the_bands_overlap():
     result = run_gain(_stage(body, model), None)
     assert [f.code for f in result.findings if f.severity != "info"] == ["no-midband"]
     assert result.gain["hand"] is None and result.frequency is None
+
+
+def test_split_supplies_source_on_the_negative_rail():
+    """The source on VSS is AC ground by the supply, not bypassed: the working says which."""
+    body = f"""VDD vdd 0 5
+VSS vss 0 -5
+VPICK pick 0 DC 0 AC 1
+CIN pick g 1u
+R1 vdd g 850k
+R2 g vss 150k
+RD vdd d {RD}
+M1 d g vss vss N W={W} L={L}"""
+    column = _hand(_stage(body), "VPICK", "d", None)
+    vgs = 10.0 * 150e3 / 1e6  # the divider across the 10 V between the rails, from VSS
+    assert column.gain == pytest.approx(-K * (vgs - VTO) * RD, rel=1e-9)
+    words = " ".join(str(step) for step in column.steps)
+    assert "the source is on a supply: AC ground" in words and "bypassed" not in words
+    assert "vdd (a supply: AC ground)" in words

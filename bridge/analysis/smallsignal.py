@@ -232,10 +232,6 @@ class SignalNetwork:
                 inductance = _value(element) / _multiplier(element)
                 if omega > 0.0 and inductance != 0.0:
                     admit(at(element.nodes[0]), at(element.nodes[1]), 1.0 / (1j * omega * inductance))
-                else:
-                    roots_a, roots_b = at(element.nodes[0]), at(element.nodes[1])
-                    if roots_a != roots_b:
-                        raise SmallSignalError(f"{element.name}: an inductor at 0 Hz is a short; ask at a frequency")
             elif kind == "vccs":
                 p, n, cp, cn = (at(x) for x in element.nodes[:4])
                 transfer(p, n, cp, cn, _value(element))
@@ -514,10 +510,17 @@ def _parallel_words(circuit: Circuit, network: SignalNetwork, terminal: str, sho
         near, far = (element.nodes[0], element.nodes[1]) if ends[0] == here else (element.nodes[1], element.nodes[0])
         if roots.find(far) != GROUND:
             return None
-        why = "ground" if far == GROUND else f"{far} (AC ground at midband)"
+        if far == GROUND:
+            why = "ground"
+        elif far in _supply_nodes(circuit, network.source):
+            why = f"{far} (a supply: AC ground)"
+        else:
+            why = f"{far} (AC ground through a capacitor, a short at midband)"
         through = "" if near == terminal else f", reached from {terminal} through a coupling capacitor"
         parts.append(f"{element.name} = {_q(_value(element) / _multiplier(element), 'Ω')} to {why}{through}")
-    return "; ".join(parts) if parts else None
+    if not parts:
+        return None
+    return "; ".join(parts) + (", in parallel" if len(parts) > 1 else "")
 
 
 def hand_column(circuit: Circuit, hand: HandSolution, setup: SignalSetup) -> HandColumn:
@@ -628,17 +631,21 @@ def _closed_form(circuit, network, devices, setup, shorted, steps, numeric):
                           f"vg/vin = {alpha:.6g}" + (f" (gate resistance {gate_words})" if gate_words else ""), alpha))
     steps.append(Step(f"Rin: the resistance {source.name} sees at its terminals"
                       + (f" — {rsig} in series with the gate resistance" if rsig else "")
-                      + (f" ({gate_words}, in parallel)" if gate_words else ""),
+                      + (f" ({gate_words})" if gate_words else ""),
                       f"Rin = {_q(rin, 'Ω')}", rin, "Ω"))
     drain_words = _parallel_words(circuit, network, drain, shorted) if role == "drain" or rd else None
     source_words = _parallel_words(circuit, network, src, shorted)
     if rs == 0.0:
-        rs_text = "the source is at AC ground" + (" (bypassed: its capacitor is a short at midband)"
-                                                   if source_root == GROUND and src != GROUND else "")
+        if src == GROUND:
+            rs_text = "the source is grounded"
+        elif src in _supply_nodes(circuit, source):
+            rs_text = "the source is on a supply: AC ground"
+        else:
+            rs_text = "the source is at AC ground (bypassed: its capacitor is a short at midband)"
     elif math.isinf(rs):
         rs_text = "the source sees no resistance to AC ground (a current source: open)"
     else:
-        rs_text = f"RS' = {_q(rs, 'Ω')}" + (f" ({source_words}, in parallel)" if source_words else
+        rs_text = f"RS' = {_q(rs, 'Ω')}" + (f" ({source_words})" if source_words else
                                              " (the network at the source, reduced)")
     if role == "drain":
         label = f"{polarity}common source" + ("" if rs == 0.0 else ", unbypassed source resistance")
@@ -646,7 +653,7 @@ def _closed_form(circuit, network, devices, setup, shorted, steps, numeric):
             steps.append(Step("Drain: nothing resistive to AC ground (a current-source load, ro infinite): the hand "
                               "model gives no finite gain"))
             return None, rin, None, label + ", current-source load"
-        rd_text = f"RD' = {_q(rd, 'Ω')}" + (f" ({drain_words}, in parallel)" if drain_words else
+        rd_text = f"RD' = {_q(rd, 'Ω')}" + (f" ({drain_words})" if drain_words else
                                              " (the network at the drain, reduced)")
         steps.append(Step(f"Drain: {rd_text}", value=rd, unit="Ω"))
         steps.append(Step(f"Source: {rs_text}"))
@@ -684,6 +691,16 @@ def _closed_form(circuit, network, devices, setup, shorted, steps, numeric):
                               f"({numeric_gain:.6g}) differ: the numerical answer is kept"))
             return None
     return gain, rin, rout, label
+
+
+def _supply_nodes(circuit: Circuit, source: Element) -> set[str]:
+    """The nodes voltage sources other than the input hold from ground: AC ground at any frequency."""
+    roots = _Roots()
+    roots.find(GROUND)
+    for element in circuit.elements:
+        if element.kind == "vsource" and element is not source:
+            roots.join(element.nodes[0], element.nodes[1])
+    return {node for node in circuit.nodes() if roots.find(node) == GROUND}
 
 
 def _series_resistance(circuit: Circuit, source: Element, gate: str, shorted: tuple[str, ...]) -> str | None:
