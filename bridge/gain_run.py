@@ -122,8 +122,8 @@ def run_gain(
         return GainResult(**base)
 
     if source.value is None:
-        findings.append(Finding("error", "no-signal-source", f"not an amplifier here: {source.why}; name the "
-                                "signal source with --input", None, None))  # fmt: skip
+        findings.append(Finding("error", "no-signal-source", f"no signal source: {source.why}; name it with "
+                                "--input", None, None))  # fmt: skip
         return result()
 
     hand: HandSolution | None = None

@@ -192,3 +192,26 @@ def test_gain_json_shape(tmp_path, capsys):
     assert list(document["band"]) == ["low_hz", "high_hz"] and list(document["band"]["low_hz"]) == ["hand", "sim"]
     assert document["input"] == "VIN" and document["output"] == "out"
     assert status == (0 if document["agree"] else 1)
+
+
+def test_a_current_source_input(required_ngspice_session):
+    """The input a current source: gain against the voltage across it, Rin the impedance it
+    drives (RG ∥ RB here), the same definitions in all three columns."""
+    circuit = parse_netlist("""current-driven pickup
+VDD vdd 0 5
+IIN 0 g DC 0 AC 1
+RG g 0 100k
+VB gb 0 2.4
+RB gb g 100k
+RD vdd d 4.7k
+M1 d g 0 0 N W=40u L=2u
+.model N nmos (level=1 vto=0.7 kp=120u lambda=0.02)
+.end
+""", "current.cir")  # fmt: skip
+    result = run_gain(circuit, required_ngspice_session, input_name="IIN")
+    assert result.rin["hand"] == pytest.approx(50e3, rel=1e-9)
+    for quantity in ("gain", "rin", "rout"):
+        values = getattr(result, quantity)
+        assert values["level1"] == pytest.approx(values["sim"], rel=5e-3)
+    # v(d) over v(0) − v(g): the current into g develops −v(g) across the source, so the sign is +.
+    assert result.gain["hand"] == pytest.approx(120e-6 * 20 * 0.5 * 4.7e3, rel=1e-9)
