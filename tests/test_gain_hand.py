@@ -225,3 +225,12 @@ M1 d g vss vss N W={W} L={L}"""
     words = " ".join(str(step) for step in column.steps)
     assert "the source is on a supply: AC ground" in words and "bypassed" not in words
     assert "vdd (a supply: AC ground)" in words
+
+
+def test_a_given_frequency_is_used_and_one_near_a_band_edge_is_said():
+    circuit = _stage(COMMON + f"\nM1 d g 0 0 N W={W} L={L}")
+    result = run_gain(circuit, None, frequency=5e3)
+    assert result.frequency == 5e3 and result.frequency_why == "given with --freq"
+    assert "near-band-edge" not in {f.code for f in result.findings}
+    near = run_gain(circuit, None, frequency=20.0)  # the low band edge is ~3.6 Hz: within 100×
+    assert "near-band-edge" in {f.code for f in near.findings}
