@@ -575,8 +575,8 @@ def hand_column(circuit: Circuit, hand: HandSolution, setup: SignalSetup) -> Han
 def _closed_form(circuit, network, devices, setup, shorted, steps, numeric):
     """The closed form of a recognised topology, its steps appended; None when none applies.
 
-    Returns (gain, rout, topology) — equal to the numerical solve of the same model (checked to
-    1e-9), which stays the reference if they ever differ."""
+    Returns (gain, Rin, Rout, topology) — the gain and Rout equal to the numerical solve of the
+    same model (checked to 1e-6), which stays the answer if they ever differ."""
     mosfets = circuit.elements_of("mosfet")
     if len(mosfets) != 1 or any(e.kind in ("vcvs", "vccs", "inductor") for e in circuit.elements):
         return None
@@ -633,7 +633,7 @@ def _closed_form(circuit, network, devices, setup, shorted, steps, numeric):
                       + (f" — {rsig} in series with the gate resistance" if rsig else "")
                       + (f" ({gate_words})" if gate_words else ""),
                       f"Rin = {_q(rin, 'Ω')}", rin, "Ω"))
-    drain_words = _parallel_words(circuit, network, drain, shorted) if role == "drain" or rd else None
+    drain_words = _parallel_words(circuit, network, drain, shorted)
     source_words = _parallel_words(circuit, network, src, shorted)
     if rs == 0.0:
         if src == GROUND:
@@ -662,7 +662,9 @@ def _closed_form(circuit, network, devices, setup, shorted, steps, numeric):
             steps.append(Step("Common source: Av = −(vg/vin)·gm·RD'", f"Av = −{alpha:.6g}·{_q(gm, 'S')}·"
                               f"{_q(rd, 'Ω')} = {gain:.4g}", gain))
         elif math.isinf(rs):
-            return None
+            gain = 0.0
+            steps.append(Step("Nothing resistive at the source: its current cannot change, so Av = 0", "Av = 0",
+                              gain))
         else:
             gain = -alpha * gm * rd / (1.0 + gm * rs)
             steps.append(Step("Unbypassed source resistance: Av = −(vg/vin)·gm·RD'/(1 + gm·RS')",
