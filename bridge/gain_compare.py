@@ -17,7 +17,7 @@ LEVEL1_TOLERANCE = 0.005  # the level-1 linearisation against ngspice's .ac: 0.5
 QUANTITIES = ("gain", "rin", "rout")
 QUANTITY_NAMES = {"gain": "midband gain", "rin": "Rin", "rout": "Rout", "low_hz": "low band edge",
                   "high_hz": "upper band edge"}  # fmt: skip
-UNITS = {"gain": "V/V", "rin": "Ω", "rout": "Ω", "low_hz": "Hz", "high_hz": "Hz"}
+QUANTITY_UNITS = {"gain": "V/V", "rin": "Ω", "rout": "Ω", "low_hz": "Hz", "high_hz": "Hz"}
 
 
 def relative(value: float, reference: float) -> float:
@@ -48,7 +48,7 @@ def compare_columns(
         hand, level1, sim = values.get("hand"), values.get("level1"), values.get("sim")
         reference_column = "sim" if sim is not None else "level1"
         reference = sim if sim is not None else level1
-        unit = UNITS[quantity]
+        unit = QUANTITY_UNITS[quantity]
         name = QUANTITY_NAMES[quantity]
         if hand is not None and reference is not None and not (math.isinf(hand) and math.isinf(reference)):
             change = relative(hand, reference)

@@ -8,7 +8,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from ..gain_compare import UNITS
+from ..gain_compare import QUANTITY_UNITS
 from ..gain_run import COLUMN_KEYS, GainResult, finite
 from ..netlist.numbers import engineering
 from ..vocabulary import COLUMN_TITLES, EFFECT_NAMES
@@ -62,7 +62,7 @@ def gain_renderable(result: GainResult, *, steps: bool = False):
         table.add_column(COLUMN_TITLES[column], justify="right")
     for key, label in ROWS:
         values = _values(result, key)
-        unit = "dB" if key == "gain_db" else UNITS[key]
+        unit = "dB" if key == "gain_db" else QUANTITY_UNITS[key]
         cells = []
         for column in COLUMN_KEYS:
             quantity = "gain" if key == "gain_db" else key
