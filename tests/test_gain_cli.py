@@ -6,6 +6,8 @@ from __future__ import annotations
 import pytest
 from conftest import EXAMPLES
 
+from test_batch_arguments import _fuzz, workspace  # noqa: F401 - the fuzz and its working folder (a fixture)
+
 from bridge.cli import main
 
 STAGE = """Dynamo light: pickup preamp
@@ -88,3 +90,15 @@ def test_plot_is_written(stage, tmp_path, required_ngspice_session, capsys):
     target = tmp_path / "response.svg"
     assert main(["gain", str(stage), "--plot", str(target)]) in (0, 1)
     assert target.read_text().lstrip().startswith("<?xml") and "hand midband gain" in target.read_text()
+
+
+def test_random_gain_option_lists_end_in_exit_0_1_or_2_without_a_traceback(workspace, capsys):
+    """The batch tests' argument fuzz (options read from the parser) on `gain`."""
+    _fuzz("gain", 25, capsys)
+
+
+@pytest.mark.parametrize("seconds", ["inf", "1e400", "nan"])
+def test_a_simulator_timeout_beyond_a_day_or_not_a_number_is_refused(seconds, stage, capsys):
+    assert _status(["gain", str(stage), "--sim-timeout", seconds]) == 2
+    err = capsys.readouterr().err
+    assert "--sim-timeout" in err and "Traceback" not in err
