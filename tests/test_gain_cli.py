@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import pytest
 from conftest import EXAMPLES
-
 from test_batch_arguments import _fuzz, workspace  # noqa: F401 - the fuzz and its working folder (a fixture)
 
 from bridge.cli import main
