@@ -91,7 +91,8 @@ def test_plot_is_written(stage, tmp_path, required_ngspice_session, capsys):
     assert target.read_text().lstrip().startswith("<?xml") and "hand midband gain" in target.read_text()
 
 
-def test_random_gain_option_lists_end_in_exit_0_1_or_2_without_a_traceback(workspace, capsys):
+@pytest.mark.usefixtures("workspace")
+def test_random_gain_option_lists_end_in_exit_0_1_or_2_without_a_traceback(capsys):
     """The batch tests' argument fuzz (options read from the parser) on `gain`."""
     _fuzz("gain", 25, capsys)
 
