@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import os
 import re
 import signal
@@ -430,6 +431,91 @@ def _sweep_with(args: argparse.Namespace, session: object, hint: str) -> int:
     return EXIT_OK if result.agree else EXIT_FINDINGS
 
 
+def command_gain(args: argparse.Namespace) -> int:
+    """`biasbridge gain`: midband gain, Rin, Rout and band edges, hand | level-1 | ngspice."""
+    from .sim.client import NgspiceSession, ngspice_available
+
+    available, hint = ngspice_available()
+    session = NgspiceSession() if available else None
+    if session is not None:
+        session.spawn()  # ngspice starts up while the analyses load and the netlist is read
+    try:
+        return _gain_with(args, session, hint)
+    finally:
+        if session is not None:
+            session.close()
+
+
+def _frequency(text: str | None) -> float | None:
+    """--freq: a positive frequency in Hz (SPICE suffixes allowed); ValueError otherwise."""
+    value = _sweep_number(text, "--freq")
+    if value is not None and not (math.isfinite(value) and value > 0.0):
+        raise ValueError(f"--freq `{text}` must be a positive frequency in Hz")
+    return value
+
+
+def _gain_with(args: argparse.Namespace, session: object, hint: str) -> int:
+    """The gain command once the worker is started (`session`: an NgspiceSession, None without ngspice)."""
+    from .commands.gain_defaults import GainInputError
+    from .curves import SweepInputError
+    from .gain_run import run_gain
+    from .netlist import NetlistError, read_netlist
+    from .report.gain_view import gain_json, gain_renderable
+
+    def refuse(message: str) -> int:
+        print(f"biasbridge: error: {message}", file=sys.stderr)
+        return EXIT_INPUT
+
+    try:
+        circuit = read_netlist(args.file)
+    except NetlistError as exc:
+        print(exc.render(), file=sys.stderr)
+        if args.json:
+            sys.stdout.write(json.dumps(unusable_json(args.file, exc.message, exc.location)) + "\n")
+        return EXIT_INPUT
+    inputs = {os.path.realpath(args.file)} | {
+        os.path.realpath(element.origin.file) for element in circuit.elements if element.origin.file
+    }
+    try:
+        frequency = _frequency(args.freq)
+        try:
+            sim_timeout = _positive_seconds(args.sim_timeout)
+        except argparse.ArgumentTypeError as exc:
+            raise ValueError(f"--sim-timeout: {exc}") from None
+        write_plot = None
+        if args.plot is not None:
+            from .report.plot import plot_format
+
+            plot_format(args.plot)
+            _check_output_path(args.plot, inputs, "--plot")
+            from .report.gain_plot import plot_gain as write_plot
+        if not circuit.elements_of("mosfet"):
+            raise ValueError("the netlist has no MOSFET: `gain` follows a MOSFET stage")
+        result = run_gain(
+            circuit, session, input_name=args.input, output_name=args.output, frequency=frequency,
+            tolerance=args.tol, sim_timeout=sim_timeout, unavailable_hint=None if session is not None else hint,
+        )  # fmt: skip
+    except (GainInputError, SweepInputError, ValueError) as exc:
+        return refuse(f"{args.file}: {exc}")
+    if session is None:
+        print(f"biasbridge: {hint} (the ngspice column stays empty)", file=sys.stderr)
+    if write_plot is not None:
+        if result.measurement is None:
+            print(f"biasbridge: --plot {args.plot}: no ngspice sweep to draw; no plot written", file=sys.stderr)
+        else:
+            try:
+                write_plot(args.plot, result.measurement, result.gain["hand"], result.band["low_hz"]["hand"],
+                           result.band["high_hz"]["hand"], f"{circuit.title} — {result.input.value} to "
+                           f"{result.output.value}")  # fmt: skip
+            except OSError as exc:
+                return refuse(f"cannot write {args.plot}: {exc.strerror or exc}")
+    if args.json:
+        sys.stdout.write(json.dumps(gain_json(result), allow_nan=False) + "\n")
+    else:
+        _console().print(gain_renderable(result, steps=args.steps), soft_wrap=True)
+    return EXIT_OK if result.agree else EXIT_FINDINGS
+
+
 def _codes(text: str) -> tuple[str, ...]:
     """`--select`/`--ignore` values: codes or code prefixes, comma-separated."""
     codes = tuple(part.strip().lower() for part in text.split(",") if part.strip())
@@ -693,6 +779,25 @@ def build_parser() -> argparse.ArgumentParser:
     sweep.add_argument("--sim-timeout", default="30", metavar="SECONDS",
                        help="give up on ngspice after this long (default 30)")
     sweep.set_defaults(run=command_sweep)
+    gain = verbs.add_parser(
+        "gain", help="small-signal cross-check: midband gain, Rin, Rout and band edges, hand | level-1 | ngspice"
+    )
+    gain.add_argument("file", metavar="FILE", help="SPICE netlist of a single-transistor stage")
+    gain.add_argument("--input", metavar="SOURCE",
+                      help="the signal source (default: the source with an AC spec, else the one driving the gate)")
+    gain.add_argument("--output", metavar="NODE",
+                      help="the output node (default: the far side of the output coupling capacitor, else the "
+                           "drain; the source for a follower)")
+    gain.add_argument("--freq", metavar="F", help="the midband frequency in Hz (default: chosen and printed)")
+    gain.add_argument("--json", action="store_true", help="print one JSON object")
+    gain.add_argument("--steps", action="store_true", help="show the hand small-signal derivation")
+    gain.add_argument("--plot", metavar="FILE.png|.svg",
+                      help="write ngspice's magnitude and phase with the hand values")
+    gain.add_argument("--tol", type=_tolerance, default=0.05, metavar="TOL",
+                      help="hand-vs-simulator tolerance, e.g. 5%% or 0.05 (default 5%%)")
+    gain.add_argument("--sim-timeout", default="30", metavar="SECONDS",
+                      help="give up on ngspice after this long (default 30)")
+    gain.set_defaults(run=command_gain)
     lint = verbs.add_parser("lint", help="the classic bias mistakes, each at its card's line, with a fix")
     lint.add_argument("files", nargs="+", metavar="FILE", help="SPICE netlist(s)")
     lint.add_argument("--format", choices=("text", "json"),

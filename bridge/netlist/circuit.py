@@ -141,12 +141,30 @@ class DcSweep:
 
 
 @dataclass(frozen=True)
+class AcSweep:
+    """The frequencies of an `.ac` analysis: `variation` "dec", "oct" or "lin", `points` per
+    decade, per octave or in all, from `start` to `stop` in Hz (ngspice's `.ac` card)."""
+
+    variation: str
+    points: int
+    start: float
+    stop: float
+
+
+AC_VARIATIONS = ("dec", "oct", "lin")
+
+
+@dataclass(frozen=True)
 class Analysis:
-    """`.op` (no sweeps) or `.dc` (one or two sweeps)."""
+    """`.op` (no sweeps), `.dc` (one or two sweeps) or `.ac` (its frequencies in `ac`).
+
+    The reader makes `.op` and `.dc` only (a netlist's own `.ac` card stays a `Directive`,
+    not emitted); an `.ac` Analysis is made by the small-signal runs (bridge.sim.ac)."""
 
     kind: str
     origin: Origin
     sweeps: tuple[DcSweep, ...] = ()
+    ac: AcSweep | None = None
 
 
 @dataclass(frozen=True)

@@ -2,18 +2,20 @@
 
 Canonical means: one card per line, lower-case keywords, values as exact decimal
 numbers in SI (no suffixes to misread), models before elements, parameters already
-resolved. emit → parse → emit is a fixed point. Nothing of the user's own text
+resolved. emit → parse → emit is a fixed point for what the reader makes (an `.ac` analysis,
+made only by bridge.sim.ac, reads back as a kept card). Nothing of the user's own text
 passes through except names and text-valued model parameters (`version=3.3.0`),
 which the grammar has already read as single fields, and the title line.
 """
 
 from __future__ import annotations
 
+import math
 import re
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 
-from .circuit import Analysis, Circuit, Directive, Element, ModelCard
+from .circuit import AC_VARIATIONS, Analysis, Circuit, Directive, Element, ModelCard
 
 # Directives that change the operating point or its convergence: emitted. The rest
 # (.save, .print, .meas, .tran, ...) belong to the user's own runs: not emitted.
@@ -96,10 +98,25 @@ def directive_card(directive: Directive) -> str:
 def analysis_card(analysis: Analysis) -> str:
     if analysis.kind == "op":
         return ".op"
+    if analysis.kind == "ac":
+        return ac_card(analysis)
     sweeps = " ".join(
         f"{s.source} {number(s.start)} {number(s.stop)} {number(s.step)}" for s in analysis.sweeps
     )
     return f".dc {sweeps}"
+
+
+def ac_card(analysis: Analysis) -> str:
+    """`.ac dec|oct|lin points fstart fstop` (ngspice 39 manual, 15.3.1 ".AC: Small-Signal AC Analysis")."""
+    sweep = analysis.ac
+    if sweep is None:
+        raise ValueError("an .ac analysis needs its frequencies (Analysis.ac)")
+    if sweep.variation not in AC_VARIATIONS:
+        raise ValueError(f".ac variation must be one of {', '.join(AC_VARIATIONS)}, not {sweep.variation!r}")
+    if sweep.points < 1 or not 0.0 < sweep.start <= sweep.stop or not math.isfinite(sweep.stop):
+        raise ValueError(f".ac needs points ≥ 1 and 0 < fstart ≤ fstop, not {sweep.points} points from "
+                         f"{sweep.start!r} to {sweep.stop!r} Hz")
+    return f".ac {sweep.variation} {sweep.points} {number(sweep.start)} {number(sweep.stop)}"
 
 
 def emit(

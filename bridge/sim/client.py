@@ -95,7 +95,8 @@ class SimulatorTimeout(SimulatorError, TimeoutError):
 
 @dataclass(frozen=True, eq=False)
 class SimResult:
-    """The vectors of the plot one analysis made, keyed as the worker names them."""
+    """The vectors of the plot one analysis made, keyed as the worker names them: float arrays,
+    complex ones for an `.ac` plot."""
 
     plot: str
     vectors: Mapping[str, np.ndarray]
@@ -372,7 +373,10 @@ def _sim_result(reply: Mapping[str, Any]) -> SimResult:
                                str(reply.get("error") or "ngspice failed"), messages)
     arrays = {}
     for name, values in (reply.get("vectors") or {}).items():
-        array = np.asarray(values, dtype=float)
+        if isinstance(values, dict):  # an .ac plot's complex vector, in its two parts
+            array = np.asarray(values["re"], dtype=float) + 1j * np.asarray(values["im"], dtype=float)
+        else:
+            array = np.asarray(values, dtype=float)
         array.setflags(write=False)
         arrays[name] = array
     return SimResult(plot=str(reply.get("plot")), vectors=MappingProxyType(arrays), messages=messages)

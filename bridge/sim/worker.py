@@ -7,8 +7,9 @@ Protocol, JSON Lines both ways:
 - responses on the response fd (never stdout: PySpice and ngspice chatter there): first a
   handshake ``{"handshake": true, "ok", "version", "library", "pid", "messages", "error"}``, then
   one ``{"id", "ok", "plot", "vectors": {name: [floats]}, "messages", "error", "kind", "retire"}``
-  per request. ``kind`` is null, ``"no_convergence"`` or ``"simulator_error"``; ``retire`` true
-  means ngspice asked to be unloaded (it cannot recover) and this process exits after answering.
+  per request; a complex vector (an ``.ac`` plot's) is ``{"re": [floats], "im": [floats]}``.
+  ``kind`` is null, ``"no_convergence"`` or ``"simulator_error"``; ``retire`` true means ngspice
+  asked to be unloaded (it cannot recover) and this process exits after answering.
 
 Vector names are lower case; node voltages are keyed by the node name (ngspice's ``V(1)`` for a
 numeric node becomes ``1``), branch currents as ``v1#branch``, device quantities as ``@m1[id]``.
@@ -245,7 +246,7 @@ class Simulator:
             "retire": False,
         }
 
-    def _read_last_plot(self) -> tuple[str | None, dict[str, list[float]], str | None]:
+    def _read_last_plot(self) -> tuple[str | None, dict[str, Any], str | None]:
         """The vectors of the plot the analysis made, or why there is none worth reading."""
         if self.retired:
             return None, {}, "ngspice cannot recover"
@@ -258,7 +259,7 @@ class Simulator:
         import numpy as np
 
         plot = self._ngspice.plot(None, plot_name)
-        vectors: dict[str, list[float]] = {}
+        vectors: dict[str, Any] = {}
         for name, vector in plot.items():
             # The array PySpice read from ngspice, without wrapping it in its unit classes first
             # (the same numbers, at a fraction of the cost); through them if it is not there.
@@ -266,22 +267,30 @@ class Simulator:
             if not isinstance(data, np.ndarray):
                 data = np.asarray(vector.to_waveform())
             if np.iscomplexobj(data):
-                continue  # .op and .dc are real; complex plots are not part of the protocol
+                # An .ac plot: PySpice hands ngspice's complex vectors over as complex128 arrays
+                # (Shared.NgSpiceShared.plot, from v_compdata); sent as their two parts.
+                vectors[vector_key(name)] = {"re": data.real.tolist(), "im": data.imag.tolist()}
+                continue
             vectors[vector_key(name)] = np.asarray(data, dtype=float).tolist()
         _drop_absent_device_vectors(vectors)
-        if not vectors or any(len(values) == 0 for values in vectors.values()):
+        if not vectors or any(_length(values) == 0 for values in vectors.values()):
             return plot_name, {}, f"the analysis produced no data (plot {plot_name})"
         return plot_name, vectors, None
 
 
-def _drop_absent_device_vectors(vectors: dict[str, list[float]]) -> None:
+def _length(values: list[float] | dict[str, list[float]]) -> int:
+    """The points of a vector as the response carries it: a list, or a complex one's parts."""
+    return len(values["re"]) if isinstance(values, dict) else len(values)
+
+
+def _drop_absent_device_vectors(vectors: dict[str, Any]) -> None:
     """Remove the device vectors the device's model does not have.
 
     A `.save @m1[von]` for a model without `von` (BSIM3 and BSIM4 call their threshold `vth`)
     leaves a vector of length 0 in the plot, beside full ones (seen with `ngspice -b` and
     `display`, ngspice 39). It is absent, not a failed analysis: the caller finds it missing.
     """
-    for key in [key for key, values in vectors.items() if not values and key.startswith("@")]:
+    for key in [key for key, values in vectors.items() if not _length(values) and key.startswith("@")]:
         del vectors[key]
 
 
