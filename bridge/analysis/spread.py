@@ -34,6 +34,7 @@ import numpy as np
 from ..netlist.circuit import Circuit
 
 FULL_CORNER_LIMIT = 12  # bands: up to 2^12 = 4096 corners are all solved
+UNMOVED_ENUMERATED = 3  # beyond the limit: bands a quantity does not move at nominal, tried at both ends
 SATURATION = 2  # region code of ask.REGIONS ("cutoff", "triode", "saturation")
 CHUNK_ROWS = 1_000_000  # Monte-Carlo rows solved per call (bounds the solver's working memory)
 PERCENTILES = (0.1, 99.9)
@@ -140,13 +141,25 @@ def all_corners(bands: Sequence[Band]) -> Points:
 
 def directed_corners(bands: Sequence[Band], moves: Sequence[np.ndarray]) -> Points:
     """For each quantity's one-at-a-time moves (high-end value − low-end value per band), the
-    corner that raises it (each band at the end that raised it; a band that did not move it at its
-    nominal value) and the one that lowers it; duplicates dropped, in order."""
+    corner that raises it (each band at the end that raised it) and the one that lowers it. A band
+    that did not move the quantity from the nominal point (a supply with the device in saturation
+    and λ = 0, say) may still move it elsewhere: up to UNMOVED_ENUMERATED such bands are put at
+    both ends in every combination, more stay nominal. Duplicates dropped, in order."""
     seen: dict[tuple[int, ...], None] = {}
     for move in moves:
-        sign = np.sign(np.nan_to_num(move)).astype(int)
-        for direction in (1, -1):
-            seen.setdefault(tuple(int(s) for s in direction * sign), None)
+        values = np.nan_to_num(move)
+        scale = float(np.max(np.abs(values))) if values.size else 0.0
+        sign = np.where(np.abs(values) <= 1e-12 * scale, 0, np.sign(values)).astype(int)
+        unmoved = np.flatnonzero(sign == 0)
+        fills = itertools.product((-1, 1), repeat=unmoved.size) if unmoved.size <= UNMOVED_ENUMERATED else [()]
+        for fill in fills:
+            filled = sign.copy()
+            if fill:
+                filled[unmoved] = fill
+            for direction in (1, -1):
+                corner = direction * sign
+                corner[unmoved] = filled[unmoved]
+                seen.setdefault(tuple(int(s) for s in corner), None)
     ends = np.array(list(seen), dtype=int).reshape(-1, len(bands))
     return Points(_values_at(bands, ends), ends)
 
@@ -381,8 +394,9 @@ def spread(
         solution = _joined(first, second)
         how = (f"{k} tolerances are more than {full_corner_limit}: not all {2 ** k} corners were solved, but "
                f"the nominal point, each tolerance alone at its ends, and the {directed.count} corners those "
-               "one-at-a-time results point to (each tolerance at the end that moved a quantity that way); "
-               "the extremes are over these points only")  # fmt: skip
+               "one-at-a-time results point to (each tolerance at the end that moved a quantity that way; up to "
+               f"{UNMOVED_ENUMERATED} tolerances that did not move it, at both ends); the extremes are over these "
+               "points only")  # fmt: skip
     assert points.ends is not None
     names = tuple(point_name(bands, ends) for ends in points.ends)
     sample_points = monte_carlo(bands, samples, seed, distribution)
