@@ -54,13 +54,8 @@ from ..curves import region_edges as _edges
 from ..devices.mos1.ask import REGIONS
 from ..netlist.circuit import GROUND, Circuit
 from ..vocabulary import Finding
-from .dcsolve import (
-    DcSolveError,
-    OperatingPoint,
-    SweepArrays,
-    solve_dc_sweep_arrays,
-    solve_operating_point,
-)
+from .dcbatch import SweepArrays, solve_dc_sweep_arrays
+from .dcsolve import DcSolveError, OperatingPoint, solve_operating_point
 from .hand import HandAnalysisError, HandSolution, HandSweep, hand_analysis
 from .hand_edges import (
     ClosedFormEdges,

@@ -283,32 +283,52 @@ def evaluate_arrays(
     model: Level1Model, geometry: Level1Geometry, vd: np.ndarray, vg: np.ndarray, vs: np.ndarray, vb: np.ndarray
 ) -> ArrayPoint:
     """``evaluate`` over arrays of absolute terminal voltages: the same equations, branch by
-    branch with ``np.where``, in the same order of operations."""
+    branch with ``np.where``, in the same order of operations. The model's VTO, KP, GAMMA, PHI,
+    LAMBDA and LD (and the geometry's W, L, M) may be arrays too, one value per point
+    (broadcasting); a point whose Leff = L − 2·LD is not positive gets NaN."""
     polarity = model.polarity
     vd, vg, vs, vb = (np.asarray(v, dtype=float) for v in (vd, vg, vs, vb))
     vgs = polarity * (vg - vs)
     vds = polarity * (vd - vs)
     vbs = polarity * (vb - vs)
+    return channel_arrays(
+        polarity, model.vto, model.gamma, model.phi, model.lambda_, beta_arrays(model, geometry), vgs, vds, vbs
+    )
+
+
+def beta_arrays(model: Level1Model, geometry: Level1Geometry):
+    """β = KP·W·M/Leff where any of them may be arrays: ``beta`` without its ValueError (a point
+    whose Leff is not positive gets NaN). Plain floats give ``beta``'s float."""
+    length = geometry.l - 2.0 * model.ld
+    if not isinstance(length, np.ndarray) and not any(isinstance(v, np.ndarray) for v in (model.kp, geometry.w)):
+        return model.kp * geometry.w * geometry.m / length if length > 0.0 else math.nan
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(length > 0.0, model.kp * geometry.w * geometry.m / length, math.nan)
+
+
+def channel_arrays(polarity: int, vto, gamma, phi, lambda_, gain, vgs, vds, vbs) -> ArrayPoint:
+    """The square law and its conductances over arrays of device-polarity voltages (vgs, vds, vbs:
+    the differences ``evaluate`` forms), for card values VTO, GAMMA, PHI, LAMBDA and β = `gain`
+    that are floats or arrays of the same length: ``evaluate``'s equations with ``np.where``."""
     swapped = vds < 0.0
     gate_drive = np.where(swapped, vgs - vds, vgs)
     channel_bias = np.where(swapped, -vds, vds)
     body_bias = np.where(swapped, vbs - vds, vbs)
 
-    sqrt_phi = math.sqrt(model.phi)
+    sqrt_phi = np.sqrt(phi)
     reverse = body_bias <= 0.0
     with np.errstate(invalid="ignore", divide="ignore"):
-        reverse_root = np.sqrt(np.where(reverse, model.phi - body_bias, model.phi))
+        reverse_root = np.sqrt(np.where(reverse, phi - body_bias, phi))
         tangent = sqrt_phi - body_bias / (2.0 * sqrt_phi)
         root = np.where(reverse, reverse_root, np.where(tangent <= 0.0, 0.0, tangent))
         root_decline = np.where(reverse, 0.5 / reverse_root, np.where(tangent <= 0.0, 0.0, 0.5 / sqrt_phi))
-        body_factor = np.where(root > 0.0, model.gamma / (2.0 * np.where(root > 0.0, root, 1.0)), 0.0)
-    vth = polarity * model.vto + model.gamma * (root - sqrt_phi)
+        body_factor = np.where(root > 0.0, gamma / (2.0 * np.where(root > 0.0, root, 1.0)), 0.0)
+    vth = polarity * vto + gamma * (root - sqrt_phi)
     vov = gate_drive - vth
     vdsat = np.maximum(vov, 0.0)
-    exact_body_factor = model.gamma * root_decline
+    exact_body_factor = gamma * root_decline
 
-    gain = beta(model, geometry)
-    clm = 1.0 + model.lambda_ * channel_bias
+    clm = 1.0 + lambda_ * channel_bias
     region = region_codes(vov, channel_bias)
     saturated, triode = region == 2, region == 1
     current = np.where(saturated, 0.5 * gain * clm * vov * vov,
@@ -316,9 +336,9 @@ def evaluate_arrays(
     gm = np.where(saturated, gain * clm * vov, np.where(triode, gain * clm * channel_bias, 0.0))
     gds = np.where(
         saturated,
-        0.5 * model.lambda_ * gain * vov * vov,
+        0.5 * lambda_ * gain * vov * vov,
         np.where(triode, gain * clm * (vov - channel_bias)
-                 + model.lambda_ * gain * channel_bias * (vov - 0.5 * channel_bias), 0.0),
+                 + lambda_ * gain * channel_bias * (vov - 0.5 * channel_bias), 0.0),
     )  # fmt: skip
     gmbs = gm * body_factor
     gmbs_exact = gm * exact_body_factor
@@ -336,9 +356,10 @@ def evaluate_arrays(
 
 
 def junction_current_arrays(
-    voltage: np.ndarray, saturation_current: float, gmin: float, thermal: float
+    voltage: np.ndarray, saturation_current, gmin: float, thermal
 ) -> tuple[np.ndarray, np.ndarray]:
-    """``junction_current`` over an array of junction voltages."""
+    """``junction_current`` over an array of junction voltages; the saturation current and kT/q
+    may be arrays too (one value per point: a batch at several temperatures)."""
     reverse = voltage <= -3.0 * thermal
     growth = np.exp(np.minimum(MAX_EXP_ARG, np.where(reverse, 0.0, voltage) / thermal))
     current = np.where(reverse, gmin * voltage - saturation_current,
