@@ -87,12 +87,6 @@ def test_a_netlist_without_a_mosfet_is_refused(tmp_path, capsys):
     assert "the netlist has no MOSFET" in _refused(["spread", str(path), "--resistors", "5"], capsys)
 
 
-def test_a_mosfet_with_its_own_dtemp_is_refused_when_temperature_is_varied(tmp_path, capsys):
-    path = tmp_path / "dtemp.cir"
-    path.write_text(PROBE.replace("L=4u", "L=4u dtemp=10"))
-    assert "M1 has its own TEMP or DTEMP (line 6)" in _refused(["spread", str(path), "--temp", "0:50"], capsys)
-
-
 def test_an_unreadable_netlist_is_refused_at_its_line(tmp_path, capsys):
     path = tmp_path / "bad.cir"
     path.write_text("bad\nR1 a 0 1.2.3k\n.end\n")

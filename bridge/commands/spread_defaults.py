@@ -356,10 +356,6 @@ def bands(circuit: Circuit, tolerances: Tolerances) -> tuple[Band, ...]:
                               nominal + spread, text))  # fmt: skip
     if tolerances.temperature is not None:
         low, high = tolerances.temperature
-        for element in circuit.elements_of("mosfet"):
-            if "temp" in element.params or "dtemp" in element.params:
-                raise ValueError(f"{element.name} has its own TEMP or DTEMP (line {element.origin.line}); "
-                                 "spread varies the circuit temperature only: take it off to vary temperature")
         found.append(Band("temperature", "temperature", "", None, circuit.temperature(), low, high,
                           f"{low:g}…{high:g} °C"))  # fmt: skip
     resistor_temperature_coefficients(circuit)  # refuses what the resistors' temperature rule cannot take
