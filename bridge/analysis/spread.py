@@ -325,7 +325,7 @@ class SpreadResult:
     seed: int
     distribution: str
     corners: Points  # every point searched for the extremes (nominal first)
-    corner_names: tuple[str, ...]
+    corner_names: _Names  # the points' names, made when asked for (corner_names[row])
     how: str  # how the corners were chosen, in words
     corner_solution: Solved
     sample_points: Points
@@ -341,7 +341,23 @@ class SpreadResult:
     caveats: tuple[str, ...] = field(default_factory=tuple)
 
 
-def _extremes(nominal: float, corner_values: np.ndarray, names: Sequence[str], samples: np.ndarray) -> Extremes:
+class _Names:
+    """The points' names by row, each worded when first asked for (thousands of corners, a few named)."""
+
+    def __init__(self, bands: Sequence[Band], ends: np.ndarray) -> None:
+        self.bands, self.ends, self.made = tuple(bands), ends, {}
+
+    def __getitem__(self, row: int) -> str:
+        row = int(row)
+        if row not in self.made:
+            self.made[row] = point_name(self.bands, self.ends[row])
+        return self.made[row]
+
+    def __len__(self) -> int:
+        return int(self.ends.shape[0])
+
+
+def _extremes(nominal: float, corner_values: np.ndarray, names: _Names, samples: np.ndarray) -> Extremes:
     finite = np.isfinite(corner_values)
     if finite.any():
         low = int(np.nanargmin(np.where(finite, corner_values, np.inf)))
@@ -398,7 +414,7 @@ def spread(
                f"{UNMOVED_ENUMERATED} tolerances that did not move it, at both ends); the extremes are over these "
                "points only")  # fmt: skip
     assert points.ends is not None
-    names = tuple(point_name(bands, ends) for ends in points.ends)
+    names = _Names(bands, points.ends)
     sample_points = monte_carlo(bands, samples, seed, distribution)
     sampled = solve_points(circuit, bands, sample_points, start=_nominal_start(solution))
     devices = {
@@ -429,7 +445,7 @@ def spread(
         how=how, corner_solution=solution, sample_points=sample_points, sample_solution=sampled, devices=devices,
         nodes=nodes, saturation_yield=float(in_saturation.mean()), margin_yield=float(with_margin.mean()),
         margin_threshold=margin_threshold, sensitivity=sensitivity,
-        unsolved_corners=tuple(n for n, ok in zip(names, solution.solved, strict=True) if not ok),
+        unsolved_corners=tuple(names[row] for row in np.flatnonzero(~solution.solved)),
         unsolved_samples=int((~sampled.solved).sum()),
         caveats=tuple(dict.fromkeys((*solution.caveats, *sampled.caveats))),
     )  # fmt: skip
