@@ -219,3 +219,12 @@ def test_normal_draws_read_the_band_as_three_sigma_and_stay_inside_it(tmp_path):
     z = np.random.default_rng(2).standard_normal((4000, 1))[:, 0]
     np.testing.assert_allclose(rd, np.clip(16e3 + (3.2e3 / 6) * z, 14.4e3, 17.6e3), rtol=1e-15)
     assert rd.min() >= 14.4e3 and rd.max() <= 17.6e3
+
+
+def test_a_temperature_range_without_the_circuit_temperature_keeps_every_point_inside_it(tmp_path):
+    _, circuit = _circuit(tmp_path, "frost.cir", FROST)  # at 27 °C
+    varied = bands(circuit, Tolerances(temperature=(40.0, 80.0)))
+    assert varied[0].nominal == 60.0
+    result = spread(circuit, varied, samples=50, seed=1)
+    assert result.corners.values[:, 0].min() >= 40.0 and result.corners.values[:, 0].max() <= 80.0
+    assert result.sample_points.values.min() >= 40.0 and result.sample_points.values.max() <= 80.0

@@ -107,7 +107,7 @@ def _file_refused(probe: Path, text: str, capsys) -> tuple[str, Path]:
     [
         ("[resistors]\ndefault = 5\nRX = 1\n", "3:1", "the circuit has no resistor `RX`"),
         ("[resistors]\nM1 = 1\n", "2:1", "`M1` is a mosfet, not a resistor"),
-        ("[supplies]\n  R1 = 2\n", "2:3", "`R1` is a resistor, not a independent source"),
+        ("[supplies]\n  R1 = 2\n", "2:3", "`R1` is a resistor, not an independent source"),
         ("[resistors]\nR1 = -1\n", "2:1", "a tolerance must not be negative"),
         ("[resistors]\nR1 = 120\n", "2:1", "a tolerance above 100 %"),
         ("[resistors]\nR1 = true\n", "2:1", "must be a number"),

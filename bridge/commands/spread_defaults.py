@@ -302,8 +302,9 @@ def bands(circuit: Circuit, tolerances: Tolerances) -> tuple[Band, ...]:
         wanted = ("resistor",) if section == "resistors" else ("vsource", "isource")
         if element is None or element.kind not in wanted:
             what = "resistor" if section == "resistors" else "independent source"
+            article = "a" if section == "resistors" else "an"
             raise entry.error(f"the circuit has no {what} `{name.upper() if element is None else element.name}`"
-                              if element is None else f"`{element.name}` is a {element.kind}, not a {what}")
+                              if element is None else f"`{element.name}` is a {element.kind}, not {article} {what}")
     mosfet_models = {(e.model or "").lower() for e in circuit.elements_of("mosfet")}
     for model, entry in tolerances.model_names.items():
         if model not in mosfet_models:
@@ -356,8 +357,12 @@ def bands(circuit: Circuit, tolerances: Tolerances) -> tuple[Band, ...]:
                               nominal + spread, text))  # fmt: skip
     if tolerances.temperature is not None:
         low, high = tolerances.temperature
-        found.append(Band("temperature", "temperature", "", None, circuit.temperature(), low, high,
-                          f"{low:g}…{high:g} °C"))  # fmt: skip
+        # The nominal point stays inside the range searched: the circuit's temperature when the
+        # range holds it, else the range's middle.
+        nominal = circuit.temperature()
+        if not low <= nominal <= high:
+            nominal = 0.5 * (low + high)
+        found.append(Band("temperature", "temperature", "", None, nominal, low, high, f"{low:g}…{high:g} °C"))
     resistor_temperature_coefficients(circuit)  # refuses what the resistors' temperature rule cannot take
     return tuple(found)
 
