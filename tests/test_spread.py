@@ -228,3 +228,17 @@ def test_a_temperature_range_without_the_circuit_temperature_keeps_every_point_i
     result = spread(circuit, varied, samples=50, seed=1)
     assert result.corners.values[:, 0].min() >= 40.0 and result.corners.values[:, 0].max() <= 80.0
     assert result.sample_points.values.min() >= 40.0 and result.sample_points.values.max() <= 80.0
+
+
+def test_a_corner_where_ngspice_differs_beyond_half_a_percent_is_a_finding(tmp_path, required_ngspice_session):
+    """A card with RS (series source resistance), which ngspice models and the level-1 solver does
+    not (its caveat says so): ngspice's current at the corners is lower, and the check says so."""
+    _, circuit = _circuit(tmp_path, "vent_rs.cir", VENT.replace("kp=100u)", "kp=100u rs=200)"))
+    varied = bands(circuit, Tolerances(vto=Entry(0.1)))
+    result = spread(circuit, varied, samples=20, seed=1)
+    assert any("RS given" in caveat for caveat in result.caveats)
+    check = prove_corners(required_ngspice_session, circuit, result)
+    differs = [f.message for f in check.findings if f.code == "corner-differs"]
+    assert any(m.startswith("M1 id minimum at its corner (NVENT.vto +0.1 V): level-1") for m in differs), differs
+    low, _ = check.devices["M1"]["id"]
+    assert low < 0.99 * result.devices["M1"]["id"].min
