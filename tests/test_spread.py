@@ -242,3 +242,33 @@ def test_a_corner_where_ngspice_differs_beyond_half_a_percent_is_a_finding(tmp_p
     assert any(m.startswith("M1 id minimum at its corner (NVENT.vto +0.1 V): level-1") for m in differs), differs
     low, _ = check.devices["M1"]["id"]
     assert low < 0.99 * result.devices["M1"]["id"].min
+
+
+def test_samples_solved_in_blocks_give_the_numbers_of_one_call(tmp_path, monkeypatch):
+    import bridge.analysis.spread as numbers
+
+    _, circuit = _circuit(tmp_path, "vent.cir", VENT)
+    varied = bands(circuit, Tolerances(resistors=Entry(10.0), vto=Entry(0.1)))
+    whole = spread(circuit, varied, samples=1000, seed=5)
+    monkeypatch.setattr(numbers, "CHUNK_ROWS", 300)
+    blocks = spread(circuit, varied, samples=1000, seed=5)
+    np.testing.assert_array_equal(blocks.sample_solution.ids["M1"], whole.sample_solution.ids["M1"])
+    assert blocks.saturation_yield == whole.saturation_yield
+
+
+def test_the_command_line_beats_the_files_defaults_and_the_files_names_beat_both(tmp_path):
+    from bridge.commands.spread_defaults import merged, read_tolerance_file
+
+    _, circuit = _circuit(tmp_path, "frost.cir", FROST)
+    toml = tmp_path / "t.toml"
+    toml.write_text("[resistors]\ndefault = 5\nRD = 1\n[models.PFROST]\nvto = 0.02\n[temperature]\nrange = [0, 50]\n")
+    file = read_tolerance_file(toml)
+    varied = {b.label: b for b in bands(circuit, merged(Tolerances(resistors=Entry(10.0), vto=Entry(0.1),
+                                                                   temperature=(-40.0, 85.0)), file))}  # fmt: skip
+    assert varied["R1"].high == pytest.approx(165e3)  # --resistors 10 over the file's default 5
+    assert varied["RD"].high == pytest.approx(6.8e3 * 1.01)  # the file's RD = 1 over --resistors
+    assert varied["PFROST.vto"].low == pytest.approx(-0.82)  # the file's model entry over --vto
+    assert (varied["temperature"].low, varied["temperature"].high) == (-40.0, 85.0)
+    only_file = {b.label: b for b in bands(circuit, merged(Tolerances(), file))}
+    assert only_file["R1"].high == pytest.approx(157.5e3)
+    assert (only_file["temperature"].low, only_file["temperature"].high) == (0.0, 50.0)

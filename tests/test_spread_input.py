@@ -138,3 +138,17 @@ def test_a_plot_over_the_netlist_is_refused(probe, capsys):
     png = probe.with_suffix(".png")
     err = _refused(["spread", str(probe), "--resistors", "5", "--plot", str(probe.parent / "no" / png.name)], capsys)
     assert "does not exist" in err
+
+
+def test_without_ngspice_the_corners_are_not_run_and_it_is_said(probe):
+    import json
+
+    from check_support import cli_subprocess
+
+    completed = cli_subprocess(["spread", str(probe), "--vto", "0.05", "--samples", "200", "--json"],
+                               NGSPICE_LIBRARY_PATH="/nonexistent")  # fmt: skip
+    assert completed.returncode == 0, completed.stderr
+    assert "the corners are not run in ngspice" in completed.stderr
+    data = json.loads(completed.stdout)
+    assert data["devices"]["M1"]["id"]["sim_min"] is None and data["devices"]["M1"]["id"]["min"] is not None
+    assert "no-simulator" in [f["code"] for f in data["findings"]]

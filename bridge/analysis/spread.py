@@ -1,6 +1,7 @@
 """`biasbridge spread`, numbers only: tolerance bands → corner rows and Monte-Carlo rows, each set
-solved by the batch solver (``dcbatch.solve_dc_batch``) in one call, then the extremes with the
-point that gives each, the statistics, the yields and the sensitivities. Imports no sim or report.
+solved by the batch solver (``dcbatch.solve_dc_batch``) in one call per CHUNK_ROWS rows, then the
+extremes with the point that gives each, the statistics, the yields and the sensitivities.
+Imports no sim or report.
 
 What is varied (``Band``): a resistor's or independent source's value, a level-1 card's VTO, KP or
 LAMBDA, the temperature. A model's band is one draw per row for every MOSFET using that model
@@ -36,7 +37,7 @@ from ..netlist.circuit import Circuit
 FULL_CORNER_LIMIT = 12  # bands: up to 2^12 = 4096 corners are all solved
 UNMOVED_ENUMERATED = 3  # beyond the limit: bands a quantity does not move at nominal, tried at both ends
 SATURATION = 2  # region code of ask.REGIONS ("cutoff", "triode", "saturation")
-CHUNK_ROWS = 1_000_000  # Monte-Carlo rows solved per call (bounds the solver's working memory)
+CHUNK_ROWS = 100_000  # Monte-Carlo rows solved per call (bounds the solver's working memory)
 PERCENTILES = (0.1, 99.9)
 
 
@@ -256,7 +257,7 @@ def solve_points(circuit: Circuit, bands: Sequence[Band], points: Points, start=
             ids={name: np.asarray(d.id, dtype=float) * nan for name, d in devices.items()},
             margins={name: (np.asarray(d.vds, dtype=float) - np.asarray(d.vov, dtype=float)) * nan
                      for name, d in devices.items()},
-            regions={name: np.where(solved, np.asarray(d.region), -1) for name, d in devices.items()},
+            regions={name: np.where(solved, np.asarray(d.region), -1).astype(np.int8) for name, d in devices.items()},
             nodes={node: np.asarray(v, dtype=float) * nan for node, v in arrays.nodes.items() if node != "0"},
             caveats=tuple(arrays.caveats),
         ))  # fmt: skip
