@@ -272,3 +272,18 @@ def test_the_command_line_beats_the_files_defaults_and_the_files_names_beat_both
     only_file = {b.label: b for b in bands(circuit, merged(Tolerances(), file))}
     assert only_file["R1"].high == pytest.approx(157.5e3)
     assert (only_file["temperature"].low, only_file["temperature"].high) == (0.0, 50.0)
+
+
+def test_a_corner_in_cutoff_is_said_and_ngspices_gmin_leakage_there_is_no_difference(tmp_path,
+                                                                                     required_ngspice_session):
+    from bridge.report.spread_view import spread_findings
+
+    _, circuit = _circuit(tmp_path, "vent_low.cir", VENT.replace("VREF g 0 DC 1.5", "VREF g 0 DC 0.95"))
+    varied = bands(circuit, Tolerances(vto=Entry(0.2)))
+    result = spread(circuit, varied, samples=50, seed=1)
+    check = prove_corners(required_ngspice_session, circuit, result)
+    low, _ = check.devices["M1"]["id"]
+    assert result.devices["M1"]["id"].min == 0.0 and 0.0 < low < 1e-11  # ngspice: GMIN·V(d) through the junction
+    assert [f for f in check.findings if f.code == "corner-differs"] == []
+    cutoff = [f.message for f in spread_findings(result, check) if f.code == "corner-cutoff"]
+    assert cutoff == ["M1 is in cutoff (vov ≤ 0) at 2 of 5 points searched, e.g. at NVENT.vto +0.2 V"]

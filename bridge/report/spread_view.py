@@ -9,6 +9,8 @@ from __future__ import annotations
 import math
 from typing import TYPE_CHECKING, Any
 
+import numpy as np
+
 from ..netlist.numbers import engineering
 from ..vocabulary import Finding
 
@@ -19,6 +21,7 @@ if TYPE_CHECKING:
     from ..sim.corners import CornerCheck
 
 UNITS = {"id": "A", "margin": "V"}
+CUTOFF = 0  # region code of ask.REGIONS
 TITLES = {"id": "id", "margin": "vds − vov"}
 
 
@@ -35,22 +38,29 @@ def spread_findings(result: SpreadResult, check: CornerCheck | None) -> tuple[Fi
         Finding("info", "spread-samples", _samples_text(result)),
     ]
     samples = result.samples
+    unsolved = result.unsolved_samples
+    besides = f"; {unsolved:,} more have no solution" if unsolved else ""
     if result.saturation_yield < 1.0:
-        failing = round((1.0 - result.saturation_yield) * samples)
+        failing = round((1.0 - result.saturation_yield) * samples) - unsolved
         findings.append(Finding("warning", "saturation-yield", f"{failing:,} of {samples:,} samples "
-                                f"({_percent(1.0 - result.saturation_yield)}) have a MOSFET out of saturation "
-                                "(cutoff or triode)"))  # fmt: skip
+                                f"({_percent(failing / samples)}) have a MOSFET out of saturation "
+                                f"(cutoff or triode){besides}"))  # fmt: skip
     if result.margin_yield < 1.0:
-        failing = round((1.0 - result.margin_yield) * samples)
+        failing = round((1.0 - result.margin_yield) * samples) - unsolved
         findings.append(Finding("warning", "margin-yield", f"{failing:,} of {samples:,} samples "
-                                f"({_percent(1.0 - result.margin_yield)}) have a MOSFET out of saturation or with "
+                                f"({_percent(failing / samples)}) have a MOSFET out of saturation or with "
                                 f"vds − vov below {engineering(result.margin_threshold, 'V')} (lint's "
-                                "saturation-margin threshold)"))  # fmt: skip
+                                f"saturation-margin threshold){besides}"))  # fmt: skip
     for name, quantities in result.devices.items():
         margin = quantities["margin"]
         if math.isfinite(margin.min) and margin.min < 0.0:
             findings.append(Finding("warning", "corner-triode", f"{name} leaves saturation at a corner: vds − vov = "
                                     f"{engineering(margin.min, 'V')} at {margin.min_corner}", None, name))  # fmt: skip
+        cutoff = np.flatnonzero(result.corner_solution.regions[name] == CUTOFF)
+        if cutoff.size:
+            findings.append(Finding("warning", "corner-cutoff", f"{name} is in cutoff (vov ≤ 0) at {cutoff.size} of "
+                                    f"{result.corners.count} points searched, e.g. at "
+                                    f"{result.corner_names[int(cutoff[0])]}", None, name))  # fmt: skip
         for quantity, extremes in quantities.items():
             findings += _inside(f"{name} {TITLES[quantity]}", UNITS[quantity], extremes, name)
     for node, extremes in result.nodes.items():
