@@ -439,9 +439,11 @@ def _newton_arrays(
     """Newton on the reduced system for the batch's `rows`, each from its row of `start` (full
     solution vectors), with ngspice's limiting when `limiting` (for far starts: from a neighbour
     it only slows a forward-biased junction down, pnjlim sending a step down back to vcrit).
-    Returns the solution vectors and which rows
-    converged (a step not limited that moved every unknown by less than TIGHT_RELTOL of its
-    size plus its tight floor)."""
+    Returns the solution vectors and which rows converged (a step not limited that moved every
+    unknown by less than TIGHT_RELTOL of its size plus its tight floor).
+
+    The iteration works on the kept unknowns, one array per unknown (all rows); the eliminated
+    ones are recovered for the convergence test of the rows whose kept unknowns have settled."""
     count = rows.size
     result = start.copy()
     converged = np.zeros(count, dtype=bool)
@@ -452,24 +454,27 @@ def _newton_arrays(
     kept, eliminated, floor = batch.kept, batch.eliminated, batch.floor
     size = kept.size
     gmin = batch.net.gmin
-    active = np.arange(count)
-    x = start.copy()
-    states: list[tuple[np.ndarray, ...] | None] = [None] * len(mosfets)
     shared = linear.matrix.ndim == 2
     base = [[float(v) for v in line] for line in linear.matrix] if shared else None
+    per_row_matrix = None if shared else [[linear.matrix[:, i, j] for j in range(size)] for i in range(size)]
+    rhs_base = [np.ascontiguousarray(linear.rhs[:, i]) for i in range(size)]
+    recover_base, recover_kept = linear.recover_base, linear.recover_kept
+    kept_floor = [float(floor[i]) for i in kept]
+    # Where each terminal sits among the kept columns (−1: ground, which is never eliminated).
+    place_of = {int(index): place for place, index in enumerate(kept)}
+    active = np.arange(count)
+    columns = [np.ascontiguousarray(start[:, i]) for i in kept]
+    states: list[tuple[np.ndarray, ...] | None] = [None] * len(mosfets)
     for _ in range(iterations):
         rows_now = active.size
-        if base is not None:
-            entries = [line[:] for line in base]
-        else:
-            entries = [[linear.matrix[:, i, j] for j in range(size)] for i in range(size)]
-        rhs = [linear.rhs[:, i] for i in range(size)]
-        limited = np.zeros(rows_now, dtype=bool)
+        ground = np.zeros(rows_now)
+        entries = [line[:] for line in (base if base is not None else per_row_matrix)]
+        rhs = rhs_base[:]
+        limited = None
         for m, mos in enumerate(mosfets):
             polarity = mos.polarity
-            d, g, s, b = mos.terminals
-            vs = x[:, s]
-            vgs, vds, vbs = polarity * (x[:, g] - vs), polarity * (x[:, d] - vs), polarity * (x[:, b] - vs)
+            vd, vg, vs, vb = (columns[place_of[t]] if t else ground for t in mos.terminals)
+            vgs, vds, vbs = polarity * (vg - vs), polarity * (vd - vs), polarity * (vb - vs)
             vbd = vbs - vds
             state = states[m]
             if state is not None and limiting:
@@ -486,6 +491,8 @@ def _newton_arrays(
                     changed = new[4] | _moved(new[0], vgs[at]) | _moved(new[1], vds[at]) | _moved(new[2], vbs[at])
                     vgs, vds, vbs, vbd = vgs.copy(), vds.copy(), vbs.copy(), vbd.copy()
                     vgs[at], vds[at], vbs[at], vbd[at] = new[0], new[1], new[2], new[3]
+                    if limited is None:
+                        limited = np.zeros(rows_now, dtype=bool)
                     limited[at] |= changed
             point = channel_arrays(polarity, mos.vto, mos.gamma, mos.phi, mos.lambda_, mos.gain, vgs, vds, vbs)
             states[m] = (vgs, vds, vbs, vbd, point.vth)
@@ -498,8 +505,8 @@ def _newton_arrays(
                 line = entries[row]
                 for column, conductance in ((pd, gd), (pg, gg), (ps, gs), (pb, gb)):
                     if column >= 0:
-                        line[column] = line[column] + sign * conductance
-                rhs[row] = rhs[row] - sign * offset
+                        line[column] = line[column] + conductance if sign > 0 else line[column] - conductance
+                rhs[row] = rhs[row] - offset if sign > 0 else rhs[row] + offset
             if mos.junctions:
                 for far_place, voltage, saturation in ((pd, vbd, mos.drain_saturation_current),
                                                        (ps, vbs, mos.source_saturation_current)):  # fmt: skip
@@ -509,30 +516,52 @@ def _newton_arrays(
                     _stamp_pair(entries, rhs, pb, far_place, conductance,
                                 polarity * (current - conductance * voltage))  # fmt: skip
         solution = _solve_small(entries, rhs, size, rows_now)
-        new = np.zeros_like(x)
-        new[:, kept] = solution
-        if eliminated.size:
+        # The kept unknowns' test first; the eliminated ones only for the rows that pass it.
+        finite = np.ones(rows_now, dtype=bool)
+        settled = np.ones(rows_now, dtype=bool) if limited is None else ~limited
+        for new_value, old_value, tolerance in zip(solution, columns, kept_floor):
+            finite &= np.isfinite(new_value)
+            size_of = np.maximum(np.abs(new_value), np.abs(old_value))
+            settled &= np.abs(new_value - old_value) <= TIGHT_RELTOL * size_of + tolerance
+        settled &= finite
+        if eliminated.size and settled.any():
+            at = np.flatnonzero(settled)
+            new_kept = np.stack([value[at] for value in solution], axis=1)
+            old_kept = np.stack([value[at] for value in columns], axis=1)
             if shared:
-                new[:, eliminated] = linear.recover_base - solution @ linear.recover_kept.T
+                new_rest = recover_base[at] - new_kept @ recover_kept.T
+                old_rest = recover_base[at] - old_kept @ recover_kept.T
             else:
-                new[:, eliminated] = linear.recover_base - np.einsum("nij,nj->ni", linear.recover_kept, solution)
-        finite = np.isfinite(new).all(axis=1)
-        change = np.abs(new - x)
-        size_of = np.maximum(np.abs(new), np.abs(x))
-        settled = finite & ~limited & (change <= TIGHT_RELTOL * size_of + floor).all(axis=1)
-        done = active[settled]
-        result[done] = new[settled]
-        converged[done] = True
+                new_rest = recover_base[at] - np.einsum("nij,nj->ni", recover_kept[at], new_kept)
+                old_rest = recover_base[at] - np.einsum("nij,nj->ni", recover_kept[at], old_kept)
+            rest_ok = (np.abs(new_rest - old_rest) <= TIGHT_RELTOL * np.maximum(np.abs(new_rest), np.abs(old_rest))
+                       + floor[eliminated]).all(axis=1) & np.isfinite(new_rest).all(axis=1)  # fmt: skip
+            settled[at] = rest_ok
+            done = active[at[rest_ok]]
+            result[done[:, None], kept] = new_kept[rest_ok]
+            result[done[:, None], eliminated] = new_rest[rest_ok]
+            converged[done] = True
+        elif settled.any():
+            done = active[settled]
+            result[done[:, None], kept] = np.stack([value[settled] for value in solution], axis=1)
+            converged[done] = True
         going = finite & ~settled
         if not going.any():
             break
-        if not going.all():
-            active, x = active[going], new[going]
-            linear = linear.take(np.flatnonzero(going))
-            mosfets = [mos.take(np.flatnonzero(going)) for mos in mosfets]
-            states = [tuple(column[going] for column in state) for state in states]
-        else:
-            x = new
+        if going.all():
+            columns = solution
+            continue
+        active = active[going]
+        columns = [value[going] for value in solution]
+        states = [tuple(column[going] for column in state) for state in states]
+        if not shared or any(isinstance(getattr(mos, name), np.ndarray) for mos in mosfets for name in _PER_ROW):
+            at = np.flatnonzero(going)
+            mosfets = [mos.take(at) for mos in mosfets]
+            if not shared:
+                per_row_matrix = [[value[at] for value in line] for line in per_row_matrix]
+                recover_kept = recover_kept[at]
+        rhs_base = [value[going] for value in rhs_base]
+        recover_base = recover_base[going]
     return result, converged
 
 
@@ -556,38 +585,41 @@ def _stamp_pair(entries: list, rhs: list, a: int, c: int, g: np.ndarray, offset:
         rhs[c] = rhs[c] + offset
 
 
-def _solve_small(entries: list, rhs: list, size: int, rows: int) -> np.ndarray:
-    """Every row's kept system: by Cramer's rule up to 3 unknowns (a handful of array operations),
-    numpy's batched LU beyond. A singular row gives inf or NaN (it then leaves the batch)."""
+def _solve_small(entries: list, rhs: list, size: int, rows: int) -> list[np.ndarray]:
+    """Every row's kept system, as one array per unknown: by Cramer's rule up to 3 unknowns (a
+    handful of array operations), numpy's batched LU beyond. A singular row gives inf or NaN
+    (it then leaves the batch)."""
     if size == 1:
-        return np.asarray(rhs[0] / entries[0][0], dtype=float).reshape(rows, 1)
+        return [np.broadcast_to(rhs[0] / entries[0][0], (rows,))]
     if size == 2:
         (a, b), (c, d) = entries
         e, f = rhs
         det = a * d - b * c
-        return np.stack(np.broadcast_arrays((e * d - b * f) / det, (a * f - e * c) / det), axis=1)
+        return [np.broadcast_to((e * d - b * f) / det, (rows,)), np.broadcast_to((a * f - e * c) / det, (rows,))]
     if size == 3:
         (a, b, c), (d, e, f), (g, h, i) = entries
         r0, r1, r2 = rhs
         m0, m1, m2 = e * i - f * h, d * i - f * g, d * h - e * g
         det = a * m0 - b * m1 + c * m2
-        x0 = (r0 * m0 - b * (r1 * i - f * r2) + c * (r1 * h - e * r2)) / det
-        x1 = (a * (r1 * i - f * r2) - r0 * m1 + c * (d * r2 - r1 * g)) / det
-        x2 = (a * (e * r2 - r1 * h) - b * (d * r2 - r1 * g) + r0 * m2) / det
-        return np.stack(np.broadcast_arrays(x0, x1, x2), axis=1)
+        n0, n1, n2 = r1 * i - f * r2, d * r2 - r1 * g, e * r2 - r1 * h
+        return [
+            np.broadcast_to((r0 * m0 - b * n0 + c * (r1 * h - e * r2)) / det, (rows,)),
+            np.broadcast_to((a * n0 - r0 * m1 + c * n1) / det, (rows,)),
+            np.broadcast_to((a * n2 - b * n1 + r0 * m2) / det, (rows,)),
+        ]
     matrix = np.empty((rows, size, size))
     for i, line in enumerate(entries):
         for j, value in enumerate(line):
             matrix[:, i, j] = value
     vector = np.stack(np.broadcast_arrays(*rhs), axis=1)
     try:
-        return np.linalg.solve(matrix, vector[..., None])[..., 0]
+        solution = np.linalg.solve(matrix, vector[..., None])[..., 0]
     except np.linalg.LinAlgError:  # one singular row: the rows one at a time, the singular ones NaN
         solution = np.full((rows, size), math.nan)
         for k in range(rows):
             with contextlib.suppress(np.linalg.LinAlgError):
                 solution[k] = np.linalg.solve(matrix[k], vector[k])
-        return solution
+    return [np.ascontiguousarray(solution[:, i]) for i in range(size)]
 
 
 # --- the scalar solver for the rows the batch leaves -----------------------------------------
@@ -749,6 +781,22 @@ def solve_dc_batch(
     return BatchArrays(**_arrays(batch, solutions, solved, vectorised))
 
 
+def _neighbour_starts(x: np.ndarray, solutions: np.ndarray, solved: np.ndarray, todo: np.ndarray) -> np.ndarray:
+    """Starts for the sweep points `todo` from the solved ones: on the line through the solved
+    neighbours on either side (by the swept value), else the nearest solved point's solution."""
+    done = np.flatnonzero(solved)
+    after = np.searchsorted(done, todo).clip(max=done.size - 1)
+    above, below = done[after], done[(after - 1).clip(min=0)]
+    starts = solutions[np.where(np.abs(below - todo) < np.abs(above - todo), below, above)]
+    between = (below < todo) & (todo < above)
+    if between.any():
+        b, a, t = below[between], above[between], todo[between]
+        weight = ((x[t] - x[b]) / (x[a] - x[b]))[:, None]
+        line = solutions[b] + weight * (solutions[a] - solutions[b])
+        starts[between] = np.where(np.isfinite(line), line, starts[between])
+    return starts
+
+
 def solve_dc_sweep_arrays(
     circuit: Circuit,
     source: str,
@@ -801,25 +849,21 @@ def solve_dc_sweep_arrays(
         if not solved.any():
             solved[0] = scalar(0, None)
             strides = (*BATCH_STRIDES, *strides)
-        for stride in strides if solved.any() else ():
+        for pass_number, stride in enumerate(strides if solved.any() else ()):
             todo = np.flatnonzero(~solved[::stride]) * stride
             if not todo.size:
                 if stride == 1:
                     break
                 continue
-            # Each point left starts from its nearest solved neighbour (the first pass: point 0).
-            done = np.flatnonzero(solved)
-            nearest = done[np.searchsorted(done, todo).clip(max=done.size - 1)]
-            below = done[(np.searchsorted(done, todo) - 1).clip(min=0)]
-            nearest = np.where(np.abs(below - todo) < np.abs(nearest - todo), below, nearest)
-            if stride > 1:
-                _far_pass(batch, todo, solutions[nearest], solutions, solved, vectorised)
+            starts = _neighbour_starts(x_values, solutions, solved, todo)
+            if pass_number == 0 and stride > 1:  # from point 0 alone: far, limited
+                _far_pass(batch, todo, starts, solutions, solved, vectorised)
                 continue
-            found, converged = _newton_rows(batch, todo, solutions[nearest], BATCH_ITERATIONS, False)
+            found, converged = _newton_rows(batch, todo, starts, BATCH_ITERATIONS, False)
             solutions[todo[converged]] = found[converged]
             solved[todo[converged]] = True
             vectorised[todo[converged]] = True
-            if not converged.any():
+            if stride == 1 and not converged.any():
                 break
     for k in np.flatnonzero(~solved).tolist():
         previous = np.flatnonzero(solved[:k])
