@@ -16,6 +16,8 @@ a goal are context. Exit status 1 when a goal is missed.
 
 from __future__ import annotations
 
+import os
+import resource
 import statistics
 import subprocess
 import sys
@@ -59,8 +61,15 @@ def batch_goals() -> list[bool]:
     points = monte_carlo(varied, SAMPLES, 0, "uniform")
     solve_points(circuit, varied, points)  # warm-up: first-call costs are start-up
     batch = median_seconds(lambda: solve_points(circuit, varied, points), REPEAT)
+    cpu = []
+    for _ in range(REPEAT):
+        start = time.process_time()
+        solve_points(circuit, varied, points)
+        cpu.append(time.process_time() - start)
     solved = solve_points(circuit, varied, points)
     results = [report(f"{SAMPLES:,} samples solved at once (median of {REPEAT})", batch * 1e3, 50.0)]
+    note(f"  context: the same, CPU time of this process (median of {REPEAT})", statistics.median(cpu) * 1e3, "ms")
+    note("  context: load average of the machine (1 min)", os.getloadavg()[0], "")
     note("  context: rows solved (of 10,000)", float(solved.solved.sum()), "rows")
     if not ngspice_available()[0]:
         print("ngspice absent: the comparison with its operating points is skipped")
@@ -85,11 +94,17 @@ def cold_command_goal() -> bool:
     with tempfile.TemporaryDirectory() as folder:
         env = child_environment(Path(folder) / "bytecode")
 
+        cpu: list[float] = []
+
         def seconds(*arguments: str) -> float:
+            before = resource.getrusage(resource.RUSAGE_CHILDREN)
             start = time.perf_counter()
             completed = subprocess.run([sys.executable, *arguments], stdin=subprocess.DEVNULL, capture_output=True,
                                        env=env, check=False)  # fmt: skip
             elapsed = time.perf_counter() - start
+            after = resource.getrusage(resource.RUSAGE_CHILDREN)
+            if arguments[:3] == ("-m", "bridge", "spread") and "--json" not in arguments:
+                cpu.append(after.ru_utime + after.ru_stime - before.ru_utime - before.ru_stime)
             if completed.returncode not in (0, 1):
                 raise RuntimeError(f"spread failed ({completed.returncode}): {completed.stderr.decode()[-500:]}")
             return elapsed
@@ -101,6 +116,8 @@ def cold_command_goal() -> bool:
     simulator = "" if ngspice_available()[0] else " (ngspice absent: no corner check)"
     report(f"  context: the interpreter alone, python -c pass (median of {COLD_RUNS})", bare, None, "s")
     report(f"  context: cold `spread --json` (median of {COLD_RUNS})", as_json, None, "s")
+    report("  context: cold `spread`, CPU time (its ngspice worker included; median)", statistics.median(cpu[1:]),
+           None, "s")  # fmt: skip
     return report(f"cold `spread` of {SAMPLES:,} samples with corners{simulator}", table, 1.0, "s")
 
 
