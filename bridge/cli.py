@@ -708,6 +708,7 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
         return refuse("nothing to vary: give --resistors, --supplies, --vto, --kp, --lambda, --temp or "
                       "--tolerances (with a non-zero tolerance on something the circuit has)")
 
+    from .analysis.dcsolve import DcSolveError
     from .analysis.spread import spread
     from .lint.rule import LintSettings
 
@@ -716,6 +717,10 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
                         margin_threshold=LintSettings().saturation_margin)  # fmt: skip
     except ValueError as exc:  # the temperature phase refusing a card (PHI ≤ 0 at an end, say)
         return refuse(f"{args.file}: {exc}")
+    except DcSolveError as exc:  # an element the solver does not model, a node without a DC path, ...
+        element = circuit.element(getattr(exc, "element", None) or "")
+        place = f"{element.origin.file or args.file}:{element.origin.line}:1" if element is not None else args.file
+        return refuse(f"{place}: the level-1 solver cannot solve this circuit: {exc}")
     check = None
     if session is not None:
         from .sim.corners import prove_corners

@@ -152,3 +152,17 @@ def test_without_ngspice_the_corners_are_not_run_and_it_is_said(probe):
     data = json.loads(completed.stdout)
     assert data["devices"]["M1"]["id"]["sim_min"] is None and data["devices"]["M1"]["id"]["min"] is not None
     assert "no-simulator" in [f["code"] for f in data["findings"]]
+
+
+def test_a_circuit_the_solver_does_not_model_is_refused_at_the_elements_line(tmp_path, capsys):
+    path = tmp_path / "bjt.cir"
+    path.write_text(PROBE.replace(".op", "Q1 sup g e QN\nRE e 0 1k\n.model QN npn\n.op"))
+    err = _refused(["spread", str(path), "--resistors", "5", "--samples", "10"], capsys)
+    assert f"{path}:8:1: the level-1 solver cannot solve this circuit: Q1: bipolar transistors" in err
+
+
+def test_a_gate_without_a_dc_path_is_refused(tmp_path, capsys):
+    path = tmp_path / "float.cir"
+    path.write_text(PROBE.replace("R1 sup g 220k\nR2 g 0 180k\n", "C1 g 0 1n\n"))
+    err = _refused(["spread", str(path), "--resistors", "5", "--samples", "10"], capsys)
+    assert "no DC path to ground from node g" in err
