@@ -118,6 +118,7 @@ def _file_refused(probe: Path, text: str, capsys) -> tuple[str, Path]:
         ("[temperature]\nrange = [20]\n", "2:1", "range must be [LO, HI]"),
         ("[temperature]\nlow = -20\n", "2:1", "`low` is not a temperature setting"),
         ("[transistors]\nM1 = 5\n", "1:1", "unknown section `transistors`"),
+        ("# resistors\nresistors = 5\n", "2:1", "`resistors` must be a table ([resistors])"),
         ("[resistors\ndefault = 5\n", "1:11", "not valid TOML"),
     ],
 )

@@ -223,7 +223,8 @@ def read_tolerance_file(path: str | Path) -> Tolerances:
             raise NetlistError(f"unknown section `{key}` (expected [resistors], [supplies], [models.NAME], "
                                "[temperature])", Location(name, line, 1), lines[line - 1])  # fmt: skip
         if not isinstance(data[key], dict):
-            raise located(f"`{key}` must be a table ([{key}])", "", None)
+            line = next((n for n, t in enumerate(lines, 1) if re.match(rf"^\s*{re.escape(key)}\s*=", t)), 1)
+            raise NetlistError(f"`{key}` must be a table ([{key}])", Location(name, line, 1), lines[line - 1])
     defaults: dict[str, Entry] = {}
     elements: dict[str, tuple[str, Entry]] = {}
     for section in ("resistors", "supplies"):
