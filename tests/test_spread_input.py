@@ -167,3 +167,10 @@ def test_a_gate_without_a_dc_path_is_refused(tmp_path, capsys):
     path.write_text(PROBE.replace("R1 sup g 220k\nR2 g 0 180k\n", "C1 g 0 1n\n"))
     err = _refused(["spread", str(path), "--resistors", "5", "--samples", "10"], capsys)
     assert "no DC path to ground from node g" in err
+
+
+def test_a_resistor_with_tc_instead_of_tc1_is_refused_at_its_line(tmp_path, capsys):
+    path = tmp_path / "tc.cir"
+    path.write_text(PROBE.replace("RS out 0 4.7k", "RS out 0 4.7k tc=0.004"))
+    err = _refused(["spread", str(path), "--resistors", "5", "--samples", "10"], capsys)
+    assert f"{path}:5:1: RS: `tc=` is not handled by spread; write tc1= and tc2=" in err

@@ -364,7 +364,15 @@ def bands(circuit: Circuit, tolerances: Tolerances) -> tuple[Band, ...]:
         if not low <= nominal <= high:
             nominal = 0.5 * (low + high)
         found.append(Band("temperature", "temperature", "", None, nominal, low, high, f"{low:g}…{high:g} °C"))
-    resistor_temperature_coefficients(circuit)  # refuses what the resistors' temperature rule cannot take
+    try:  # what the resistors' temperature rule cannot take, at the resistor's line
+        resistor_temperature_coefficients(circuit)
+    except ValueError as exc:
+        name = str(exc).split(":", 1)[0]
+        element = circuit.element(name)
+        if element is None:
+            raise
+        raise NetlistError(str(exc), Location(element.origin.file or circuit.source_file, element.origin.line, 1),
+                           caret=False) from None  # fmt: skip
     return tuple(found)
 
 
