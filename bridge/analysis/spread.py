@@ -59,7 +59,7 @@ class Band:
 
     @property
     def middle(self) -> float:
-        return 0.5 * (self.low + self.high)
+        return (self.low + self.high) / 2.0
 
     def end_text(self, end: int) -> str:
         """This band at an end (−1 low, +1 high) in words: `RD +5 %`, `NCH.vto −0.05 V`, `125 °C`."""
@@ -173,7 +173,7 @@ def monte_carlo(bands: Sequence[Band], count: int, seed: int, distribution: str)
     if distribution == "uniform":
         values = low + (high - low) * rng.random((count, len(bands)))
     elif distribution == "normal":
-        middle, sigma = 0.5 * (low + high), (high - low) / 6.0
+        middle, sigma = (low + high) / 2.0, (high - low) / 6.0
         values = np.clip(middle + sigma * rng.standard_normal((count, len(bands))), low, high)
     else:
         raise ValueError(f"unknown distribution `{distribution}` (uniform or normal)")

@@ -12,7 +12,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ..netlist.numbers import engineering
-from ..vocabulary import Finding
+from ..vocabulary import UNITS, Finding
 
 if TYPE_CHECKING:
     from rich.console import RenderableType
@@ -20,7 +20,7 @@ if TYPE_CHECKING:
     from ..analysis.spread import Extremes, SpreadResult
     from ..sim.corners import CornerCheck
 
-UNITS = {"id": "A", "margin": "V"}
+QUANTITY_UNITS = {"id": UNITS["id"], "margin": UNITS["sat_margin"]}
 CUTOFF = 0  # region code of ask.REGIONS
 TITLES = {"id": "id", "margin": "vds − vov"}
 
@@ -62,7 +62,7 @@ def spread_findings(result: SpreadResult, check: CornerCheck | None) -> tuple[Fi
                                     f"{result.corners.count} points searched, e.g. at "
                                     f"{result.corner_names[int(cutoff[0])]}", None, name))  # fmt: skip
         for quantity, extremes in quantities.items():
-            findings += _inside(f"{name} {TITLES[quantity]}", UNITS[quantity], extremes, name)
+            findings += _inside(f"{name} {TITLES[quantity]}", QUANTITY_UNITS[quantity], extremes, name)
     for node, extremes in result.nodes.items():
         findings += _inside(f"V({node})", "V", extremes, node)
     if result.unsolved_corners:
@@ -185,7 +185,7 @@ def spread_renderable(file: str, result: SpreadResult, check: CornerCheck | None
     for name, quantities in result.devices.items():
         for quantity, extremes in quantities.items():
             sim = check.devices[name][quantity] if check else None
-            row(f"{name} {TITLES[quantity]}", UNITS[quantity], extremes, sim)
+            row(f"{name} {TITLES[quantity]}", QUANTITY_UNITS[quantity], extremes, sim)
     for node, extremes in result.nodes.items():
         row(f"V({node})", "V", extremes, check.nodes[node] if check else None)
     parts += [table, Text(""), sampled, Text("")]
