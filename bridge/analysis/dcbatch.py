@@ -34,6 +34,7 @@ import contextlib
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
+from typing import NamedTuple
 
 import numpy as np
 
@@ -170,8 +171,7 @@ class SweepArrays(BatchArrays):
 # --- the batch compiled ----------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class _RowMosfet:
+class _RowMosfet(NamedTuple):
     """One MOSFET's values for the batch's rows: each a float (the same for every row) or an
     array with one value per row. Terminals as full-vector indices and kept positions."""
 
@@ -195,7 +195,7 @@ class _RowMosfet:
 
     def take(self, rows: np.ndarray) -> _RowMosfet:
         """These values for a subset of rows."""
-        return replace(self, **{name: _take(getattr(self, name), rows) for name in _PER_ROW})
+        return self._replace(**{name: _take(getattr(self, name), rows) for name in _PER_ROW})
 
 
 _PER_ROW = ("vto", "gamma", "phi", "lambda_", "gain", "drain_saturation_current", "source_saturation_current",
@@ -206,8 +206,7 @@ def _take(value: object, rows: np.ndarray) -> object:
     return value[rows] if isinstance(value, np.ndarray) and value.ndim else value
 
 
-@dataclass(frozen=True)
-class _Linear:
+class _Linear(NamedTuple):
     """The reduced linear system for the batch's rows: ``matrix`` (k, k) shared or (rows, k, k);
     ``rhs`` (rows, k) the sources' part; eliminated unknowns = ``recover_base`` − kept ·
     ``recover_kept`` (shared (e, k) or per row (rows, e, k))."""
@@ -227,8 +226,7 @@ class _Linear:
         )
 
 
-@dataclass
-class _Batch:
+class _Batch(NamedTuple):
     circuit: Circuit
     net: _Network
     values: BatchValues
