@@ -13,13 +13,17 @@ What is solved, stated once:
   ``dcsolve.solve_operating_point`` on that circuit is the reference; the batch lands on the
   same operating points (tests/test_dcbatch.py: 1e-9 relative).
 * The linear part is reduced as ``dcsolve._reduce`` reduces it (the same kept unknowns): once
-  for all rows when only sources vary (the sweep's case), else per row, by numpy on stacked
-  matrices. Newton then solves the small kept system of every row at once (closed form up to
-  3 unknowns, numpy's batched LU beyond) and recovers the rest.
+  for all rows when only sources vary (the sweep's case) or no varied resistor touches an
+  eliminated unknown, else per row, by Gaussian elimination over all rows at once in the pivot
+  order of the circuit's own values (``_solve_entries``). Newton then solves the small kept
+  system of every row at once (closed form up to 3 unknowns, numpy's batched LU beyond).
 * The MOSFETs are ``devices.mos1``'s level-1 equations on arrays (``load.channel_arrays``,
   ``junction_current_arrays``), their card and temperature phase per row where the row changes
   them (``temperature.at_temperature_arrays``), and ngspice's limiting on arrays
-  (``convergence.limit_arrays``) on the rows whose step is large enough for it to act.
+  (``convergence.limit_arrays``) on the rows whose step is large enough for it to act: from far
+  starts (the nominal solution, a hand point), then once more without it for the rows left (a
+  forward-biased junction converges faster so); a sweep's passes from solved neighbours run
+  without it.
 * A row converges when one Newton step, not limited, moves no unknown by more than
   TIGHT_RELTOL of its size plus TIGHT_VNTOL (or TIGHT_ABSTOL): the scalar solver's tight
   criterion. A row that does not converge within the batch's iterations is solved by the scalar
@@ -932,12 +936,7 @@ def solve_dc_sweep_arrays(
 
     def scalar(k: int, guess: np.ndarray | None) -> bool:
         if guess is None and first:
-            guess = np.zeros(net.size)
-            try:
-                state, _ = _start(net, first)
-                guess = state.x
-            except ValueError:
-                guess = None
+            guess = _start(net, first)[0].x  # ValueError for a node the circuit does not have
         x = _scalar_row(batch, k, guess)
         if x is None:
             return False
