@@ -13,13 +13,17 @@ What is solved, stated once:
   ``dcsolve.solve_operating_point`` on that circuit is the reference; the batch lands on the
   same operating points (tests/test_dcbatch.py: 1e-9 relative).
 * The linear part is reduced as ``dcsolve._reduce`` reduces it (the same kept unknowns): once
-  for all rows when only sources vary (the sweep's case), else per row, by numpy on stacked
-  matrices. Newton then solves the small kept system of every row at once (closed form up to
-  3 unknowns, numpy's batched LU beyond) and recovers the rest.
+  for all rows when only sources vary (the sweep's case) or no varied resistor touches an
+  eliminated unknown, else per row, by Gaussian elimination over all rows at once in the pivot
+  order of the circuit's own values (``_solve_entries``). Newton then solves the small kept
+  system of every row at once (closed form up to 3 unknowns, numpy's batched LU beyond).
 * The MOSFETs are ``devices.mos1``'s level-1 equations on arrays (``load.channel_arrays``,
   ``junction_current_arrays``), their card and temperature phase per row where the row changes
   them (``temperature.at_temperature_arrays``), and ngspice's limiting on arrays
-  (``convergence.limit_arrays``) on the rows whose step is large enough for it to act.
+  (``convergence.limit_arrays``) on the rows whose step is large enough for it to act: from far
+  starts (the nominal solution, a hand point), then once more without it for the rows left (a
+  forward-biased junction converges faster so); a sweep's passes from solved neighbours run
+  without it.
 * A row converges when one Newton step, not limited, moves no unknown by more than
   TIGHT_RELTOL of its size plus TIGHT_VNTOL (or TIGHT_ABSTOL): the scalar solver's tight
   criterion. A row that does not converge within the batch's iterations is solved by the scalar
@@ -34,6 +38,7 @@ import contextlib
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
+from typing import NamedTuple
 
 import numpy as np
 
@@ -170,8 +175,7 @@ class SweepArrays(BatchArrays):
 # --- the batch compiled ----------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class _RowMosfet:
+class _RowMosfet(NamedTuple):
     """One MOSFET's values for the batch's rows: each a float (the same for every row) or an
     array with one value per row. Terminals as full-vector indices and kept positions."""
 
@@ -195,7 +199,7 @@ class _RowMosfet:
 
     def take(self, rows: np.ndarray) -> _RowMosfet:
         """These values for a subset of rows."""
-        return replace(self, **{name: _take(getattr(self, name), rows) for name in _PER_ROW})
+        return self._replace(**{name: _take(getattr(self, name), rows) for name in _PER_ROW})
 
 
 _PER_ROW = ("vto", "gamma", "phi", "lambda_", "gain", "drain_saturation_current", "source_saturation_current",
@@ -206,8 +210,7 @@ def _take(value: object, rows: np.ndarray) -> object:
     return value[rows] if isinstance(value, np.ndarray) and value.ndim else value
 
 
-@dataclass(frozen=True)
-class _Linear:
+class _Linear(NamedTuple):
     """The reduced linear system for the batch's rows: ``matrix`` (k, k) shared or (rows, k, k);
     ``rhs`` (rows, k) the sources' part; eliminated unknowns = ``recover_base`` − kept ·
     ``recover_kept`` (shared (e, k) or per row (rows, e, k))."""
@@ -227,8 +230,7 @@ class _Linear:
         )
 
 
-@dataclass
-class _Batch:
+class _Batch(NamedTuple):
     circuit: Circuit
     net: _Network
     values: BatchValues
@@ -303,43 +305,142 @@ def _shared_linear(net: _Network, sources: np.ndarray) -> _Linear:
 
 def _linear_rows(circuit: Circuit, net: _Network, sources: np.ndarray, resistors: Mapping[str, np.ndarray]) -> _Linear:
     """Resistors vary: each row's MNA matrix (the network's, each varied resistor's conductance
-    moved to the row's), reduced on the same kept unknowns as the network's own reduction, all
-    rows at once (numpy's batched solve on the stacked eliminated blocks)."""
+    moved to the row's), reduced on the same kept unknowns as the network's own reduction. When
+    no varied resistor touches an eliminated unknown, only the kept block changes and the
+    network's reduction is shared; else every row's eliminated block is factored, all rows at
+    once (``_solve_entries``)."""
     count = sources.shape[0]
-    full = np.broadcast_to(net.linear, (count, *net.linear.shape)).copy()
-    index = {GROUND: 0, **{node: k + 1 for k, node in enumerate(net.nodes)}}
-    for name, resistance in resistors.items():
-        element = circuit.element(name)
-        multiplier = float(element.params.get("m", 1.0))
-        nominal = 1.0 / _nominal_resistance(element)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            resistance = np.where(resistance == 0.0, ZERO_RESISTANCE, resistance)
-            change = 1.0 / (resistance / multiplier) - nominal
-        a, c = (index[node] for node in element.nodes[:2])
-        full[:, a, a] += change
-        full[:, c, c] += change
-        full[:, a, c] -= change
-        full[:, c, a] -= change
     reduction = net.plain_reduction
     kept = np.array(reduction.kept, dtype=int)
     rest = np.array(reduction.eliminated, dtype=int)
+    size = kept.size
+    order = np.concatenate((kept, rest))
+    place = {int(index): k for k, index in enumerate(order)}  # ground has no place
+    nominal = net.linear[np.ix_(order, order)]
+    full = np.broadcast_to(nominal, (count, *nominal.shape)).copy()
+    index = {GROUND: 0, **{node: k + 1 for k, node in enumerate(net.nodes)}}
+    touches_rest = False
+    for name, resistance in resistors.items():
+        element = circuit.element(name)
+        multiplier = float(element.params.get("m", 1.0))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            resistance = np.where(resistance == 0.0, ZERO_RESISTANCE, resistance)
+            change = 1.0 / (resistance / multiplier) - 1.0 / _nominal_resistance(element)
+        a, c = (place.get(index[node]) for node in element.nodes[:2])
+        touches_rest = touches_rest or any(end is not None and end >= size for end in (a, c))
+        for i, j, sign in ((a, a, 1.0), (c, c, 1.0), (a, c, -1.0), (c, a, -1.0)):
+            if i is not None and j is not None:
+                full[:, i, j] += sign * change
     columns = net.source_columns
-    kk = full[:, kept][:, :, kept]
-    if not rest.size:
-        return _Linear(kk, np.einsum("ij,nj->ni", columns[kept], sources), np.zeros((count, 0)),
-                       np.zeros((count, 0, kept.size)))  # fmt: skip
-    kr, rk, rr = full[:, kept][:, :, rest], full[:, rest][:, :, kept], full[:, rest][:, :, rest]
-    right = np.concatenate((rk, np.broadcast_to(columns[rest], (count, *columns[rest].shape))), axis=2)
+    kk = full[:, :size, :size]
+    recover_sources = np.asarray(reduction.recover_sources).reshape(rest.size, columns.shape[1])
+    if not touches_rest:  # the eliminated part is the network's: its reduction, the kept block moved
+        base_matrix = np.array(reduction.matrix, dtype=float).reshape(size, size)
+        matrix = base_matrix + (kk - nominal[:size, :size])
+        recover_kept = np.array(reduction.recover_kept, dtype=float).reshape(rest.size, size)
+        recover_base = sources @ recover_sources.T if rest.size else np.zeros((count, 0))
+        return _Linear(matrix, sources @ reduction.source_map.T, recover_base,
+                       np.broadcast_to(recover_kept, (count, rest.size, size)))  # fmt: skip
+    # Every entry of the reordered matrix as a float (the same in every row) or an array per row.
+    varied = np.zeros(nominal.shape, dtype=bool)
+    for name in resistors:
+        ends = [place.get(index[node]) for node in circuit.element(name).nodes[:2]]
+        for i in ends:
+            for j in ends:
+                if i is not None and j is not None:
+                    varied[i, j] = True
+    entries = [[full[:, i, j].copy() if varied[i, j] else float(nominal[i, j]) for j in range(nominal.shape[1])]
+               for i in range(nominal.shape[0])]  # fmt: skip
+    source_rest = columns[rest]
+    right = [[entries[size + i][j] for j in range(size)] + [float(v) for v in source_rest[i]] for i in range(rest.size)]
+    weights = _solve_entries([line[size:] for line in entries[size:]], right, nominal[size:, size:], count)
+    on_kept = [line[:size] for line in weights]
+    on_sources = [line[size:] for line in weights]
+    kr = [line[size:] for line in entries[:size]]
+    matrix = np.empty((count, size, size))
+    for i in range(size):
+        for j in range(size):
+            matrix[:, i, j] = _difference(entries[i][j], _dot(kr[i], [on_kept[r][j] for r in range(rest.size)]))
+    source_count = columns.shape[1]
+    source_map = [[_difference(float(columns[kept[i], s]), _dot(kr[i], [on_sources[r][s] for r in range(rest.size)]))
+                   for s in range(source_count)] for i in range(size)]  # fmt: skip
+    rhs = np.stack([_combine(source_map[i], sources) for i in range(size)], axis=1)
+    recover_base = np.stack([_combine(on_sources[r], sources) for r in range(rest.size)], axis=1)
+    recover_kept = np.empty((count, rest.size, size))
+    for r in range(rest.size):
+        for j in range(size):
+            recover_kept[:, r, j] = on_kept[r][j]
+    return _Linear(matrix, rhs, recover_base, recover_kept)
+
+
+def _dot(left: list, right: list):
+    """Σ left·right over entries that are floats or arrays, skipping exact zeros."""
+    total = 0.0
+    for a, b in zip(left, right, strict=True):
+        if isinstance(a, float) and a == 0.0 or isinstance(b, float) and b == 0.0:
+            continue
+        total = total + a * b
+    return total
+
+
+def _difference(a, b):
+    return a if isinstance(b, float) and b == 0.0 else a - b
+
+
+def _combine(weights: list, sources: np.ndarray) -> np.ndarray:
+    """Σ weights[s]·sources[:, s] per row (a weight a float or an array per row)."""
+    total = np.zeros(sources.shape[0])
+    for s, weight in enumerate(weights):
+        if not (isinstance(weight, float) and weight == 0.0):
+            total = total + weight * sources[:, s]
+    return total
+
+
+def _solve_entries(matrix: list, right: list, nominal: np.ndarray, count: int) -> list:
+    """Solve every row's system (entries floats, the same in every row, or arrays per row) by
+    Gaussian elimination in the pivot order partial pivoting picks for the circuit's own values
+    (`nominal`), skipping the zeros the structure gives; each step over all rows at once.
+    A row whose pivot falls below 1e-3 of the nominal one (its order would not be partial
+    pivoting's) gives NaN: the batch leaves it to the scalar solver. Returns the solution's
+    entries (rows of the unknowns, columns of the right-hand sides)."""
+    size = len(matrix)
+    work = nominal.astype(float).copy()
+    order = list(range(size))
+    for j in range(size):  # partial pivoting on the nominal values: the row order
+        best = j + int(np.argmax(np.abs(work[order[j:], j])))
+        order[j], order[best] = order[best], order[j]
+        pivot = work[order[j], j]
+        if pivot != 0.0:
+            for i in order[j + 1 :]:
+                work[i] -= work[i, j] / pivot * work[order[j]]
+    a = [list(matrix[i]) for i in order]
+    b = [list(right[i]) for i in order]
+    reference = [abs(float(work[order[j], j])) for j in range(size)]
+    bad = np.zeros(count, dtype=bool)
     with np.errstate(all="ignore"):
-        try:
-            weights = np.linalg.solve(rr, right)
-        except np.linalg.LinAlgError:  # a row whose eliminated block is singular: rows solved one by one
-            weights = np.full(right.shape, math.nan)
-    on_kept, on_sources = weights[:, :, : kept.size], weights[:, :, kept.size :]
-    matrix = kk - kr @ on_kept
-    source_map = columns[kept] - kr @ on_sources
-    return _Linear(matrix, np.einsum("nij,nj->ni", source_map, sources), np.einsum("nij,nj->ni", on_sources, sources),
-                   on_kept)  # fmt: skip
+        for j in range(size):
+            pivot = a[j][j]
+            if isinstance(pivot, np.ndarray):
+                bad |= ~(np.abs(pivot) >= 1e-3 * reference[j])
+            for i in range(j + 1, size):
+                if isinstance(a[i][j], float) and a[i][j] == 0.0:
+                    continue
+                factor = a[i][j] / pivot
+                for c in range(j + 1, size):
+                    if not (isinstance(a[j][c], float) and a[j][c] == 0.0):
+                        a[i][c] = a[i][c] - factor * a[j][c]
+                b[i] = [_difference(value, _dot([factor], [pivot_value])) for value, pivot_value in zip(b[i], b[j])]
+                a[i][j] = 0.0
+        x: list = [None] * size
+        for j in range(size - 1, -1, -1):
+            row = []
+            for m in range(len(b[j])):
+                known = _difference(b[j][m], _dot(a[j][j + 1 :], [x[r][m] for r in range(j + 1, size)]))
+                row.append(known / a[j][j])
+            x[j] = row
+    if bad.any():
+        x = [[np.where(bad, math.nan, np.broadcast_to(value, (count,))) for value in line] for line in x]
+    return x
 
 
 def _nominal_resistance(element) -> float:
@@ -456,7 +557,9 @@ def _newton_arrays(
     gmin = batch.net.gmin
     shared = linear.matrix.ndim == 2
     base = [[float(v) for v in line] for line in linear.matrix] if shared else None
-    per_row_matrix = None if shared else [[linear.matrix[:, i, j] for j in range(size)] for i in range(size)]
+    per_row_matrix = None if shared else [
+        [np.ascontiguousarray(linear.matrix[:, i, j]) for j in range(size)] for i in range(size)
+    ]
     rhs_base = [np.ascontiguousarray(linear.rhs[:, i]) for i in range(size)]
     recover_base, recover_kept = linear.recover_base, linear.recover_kept
     kept_floor = [float(floor[i]) for i in kept]
@@ -585,17 +688,22 @@ def _stamp_pair(entries: list, rhs: list, a: int, c: int, g: np.ndarray, offset:
         rhs[c] = rhs[c] + offset
 
 
+def _rows(value, rows: int) -> np.ndarray:
+    """`value` as one float per row (an array already, but for a system without any array)."""
+    return value if isinstance(value, np.ndarray) and value.shape == (rows,) else np.full(rows, value, dtype=float)
+
+
 def _solve_small(entries: list, rhs: list, size: int, rows: int) -> list[np.ndarray]:
     """Every row's kept system, as one array per unknown: by Cramer's rule up to 3 unknowns (a
     handful of array operations), numpy's batched LU beyond. A singular row gives inf or NaN
     (it then leaves the batch)."""
     if size == 1:
-        return [np.broadcast_to(rhs[0] / entries[0][0], (rows,))]
+        return [_rows(rhs[0] / entries[0][0], rows)]
     if size == 2:
         (a, b), (c, d) = entries
         e, f = rhs
         det = a * d - b * c
-        return [np.broadcast_to((e * d - b * f) / det, (rows,)), np.broadcast_to((a * f - e * c) / det, (rows,))]
+        return [_rows((e * d - b * f) / det, rows), _rows((a * f - e * c) / det, rows)]
     if size == 3:
         (a, b, c), (d, e, f), (g, h, i) = entries
         r0, r1, r2 = rhs
@@ -603,9 +711,9 @@ def _solve_small(entries: list, rhs: list, size: int, rows: int) -> list[np.ndar
         det = a * m0 - b * m1 + c * m2
         n0, n1, n2 = r1 * i - f * r2, d * r2 - r1 * g, e * r2 - r1 * h
         return [
-            np.broadcast_to((r0 * m0 - b * n0 + c * (r1 * h - e * r2)) / det, (rows,)),
-            np.broadcast_to((a * n0 - r0 * m1 + c * n1) / det, (rows,)),
-            np.broadcast_to((a * n2 - b * n1 + r0 * m2) / det, (rows,)),
+            _rows((r0 * m0 - b * n0 + c * (r1 * h - e * r2)) / det, rows),
+            _rows((a * n0 - r0 * m1 + c * n1) / det, rows),
+            _rows((a * n2 - b * n1 + r0 * m2) / det, rows),
         ]
     matrix = np.empty((rows, size, size))
     for i, line in enumerate(entries):
@@ -828,12 +936,7 @@ def solve_dc_sweep_arrays(
 
     def scalar(k: int, guess: np.ndarray | None) -> bool:
         if guess is None and first:
-            guess = np.zeros(net.size)
-            try:
-                state, _ = _start(net, first)
-                guess = state.x
-            except ValueError:
-                guess = None
+            guess = _start(net, first)[0].x  # ValueError for a node the circuit does not have
         x = _scalar_row(batch, k, guess)
         if x is None:
             return False

@@ -10,8 +10,8 @@ The columns, stated once:
 * hand — the hand model (square law, λ = γ = 0, no gate current) at every point, numbers only:
   ``HandSweep`` (the circuit reduced once, the affine closed form per point) where it applies,
   else ``hand_analysis(..., working=False)`` on a copy with the swept source's value replaced.
-* level1 — ``solve_dc_sweep_arrays``: the full level-1 model, every point at once, each from a
-  solved neighbour.
+* level1 — ``solve_dc_sweep_arrays``: the full level-1 model, every point at once, each from the
+  hand column's point (``hand_starts``) or a solved neighbour.
 
 The ngspice column is ``bridge.sim.transfer``'s; ``bridge.sweep_run`` drives the three and
 compares them (``bridge.curve_compare``). Nothing here imports compare, sim or report.
