@@ -643,6 +643,9 @@ def _fit(args: argparse.Namespace, session: NgspiceSession | None, hint: str) ->
 
 # -- spread ----------------------------------------------------------------------------------------
 
+SPREAD_SIM_TIMEOUT = 10.0  # s: ngspice's limit for one corner's `.op`, as check's default
+
+
 def command_spread(args: argparse.Namespace) -> int:
     """`biasbridge spread`: tolerance corners, temperature and Monte Carlo, the worst corners in ngspice."""
     from .sim.client import NgspiceSession, ngspice_available
@@ -678,7 +681,6 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
         )  # fmt: skip
         count = defaults.samples(args.samples)
         seed = defaults.seed(args.seed)
-        sim_timeout = _positive_seconds(args.sim_timeout)
     except (ValueError, argparse.ArgumentTypeError) as exc:
         return refuse(str(exc))
     try:
@@ -725,7 +727,7 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
     if session is not None:
         from .sim.corners import prove_corners
 
-        check = prove_corners(session, circuit, result, timeout=sim_timeout)
+        check = prove_corners(session, circuit, result, timeout=SPREAD_SIM_TIMEOUT)
         session.close()
     else:
         print(f"biasbridge: {hint} (the corners are not run in ngspice)", file=sys.stderr)
@@ -849,8 +851,6 @@ def build_parser() -> argparse.ArgumentParser:
                         help="uniform within each band (default), or normal with the band as ±3σ (clipped to it)")
     spread.add_argument("--json", action="store_true", help="print one JSON object")
     spread.add_argument("--plot", metavar="FILE.png|.svg", help="histograms of drain current and margin")
-    spread.add_argument("--sim-timeout", default="10", metavar="SECONDS",
-                        help="give up on ngspice for one corner after this long (default 10)")
     spread.set_defaults(run=command_spread)
     demo = verbs.add_parser("demo", help="run the main job on a bundled example")
     demo.set_defaults(run=command_demo)
