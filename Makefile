@@ -35,7 +35,8 @@ test: install
 
 bench: install
 	$(BIN)/python tests/bench/run.py; a=$$?; $(BIN)/python tests/bench/sweep_bench.py; b=$$?; \
-	$(BIN)/python tests/bench/large_bench.py; c=$$?; exit $$((a || b || c))
+	$(BIN)/python tests/bench/large_bench.py; c=$$?; $(BIN)/python tests/bench/spread_bench.py; d=$$?; \
+	exit $$((a || b || c || d))
 
 lint: install
 	$(BIN)/ruff check bridge tests

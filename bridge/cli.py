@@ -727,6 +727,113 @@ def _fit(args: argparse.Namespace, session: NgspiceSession | None, hint: str) ->
     return EXIT_OK
 
 
+# -- spread ----------------------------------------------------------------------------------------
+
+SPREAD_SIM_TIMEOUT = 10.0  # s: ngspice's limit for one corner's `.op`, as check's default
+
+
+def command_spread(args: argparse.Namespace) -> int:
+    """`biasbridge spread`: tolerance corners, temperature and Monte Carlo, the worst corners in ngspice."""
+    from .sim.client import NgspiceSession, ngspice_available
+
+    available, hint = ngspice_available()
+    session = NgspiceSession() if available else None
+    if session is not None:
+        session.spawn()  # ngspice starts while numpy, the reader and the batch solver load
+    try:
+        return _spread_with(args, session, hint)
+    finally:
+        if session is not None:
+            session.close()
+
+
+def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint: str) -> int:
+    from .commands import spread_defaults as defaults
+    from .netlist import NetlistError, read_netlist
+
+    def refuse(message: str) -> int:
+        print(f"biasbridge: error: {message}", file=sys.stderr)
+        return EXIT_INPUT
+
+    try:
+        entry = defaults.Entry
+        command_line = defaults.Tolerances(
+            resistors=None if args.resistors is None else entry(defaults.percent(args.resistors, "--resistors")),
+            supplies=None if args.supplies is None else entry(defaults.percent(args.supplies, "--supplies")),
+            vto=None if args.vto is None else entry(defaults.volts(args.vto, "--vto")),
+            kp=None if args.kp is None else entry(defaults.percent(args.kp, "--kp")),
+            lambda_=None if args.lambda_ is None else entry(defaults.percent(args.lambda_, "--lambda")),
+            temperature=None if args.temp is None else defaults.temperature_range(args.temp),
+        )  # fmt: skip
+        count = defaults.samples(args.samples)
+        seed = defaults.seed(args.seed)
+    except (ValueError, argparse.ArgumentTypeError) as exc:
+        return refuse(str(exc))
+    try:
+        file = defaults.read_tolerance_file(args.tolerances) if args.tolerances else None
+        circuit = read_netlist(args.file)
+        inputs = {os.path.realpath(args.file)} | {
+            os.path.realpath(element.origin.file) for element in circuit.elements if element.origin.file
+        }
+        if args.tolerances:
+            inputs.add(os.path.realpath(args.tolerances))
+        if args.plot is not None:
+            from .report.plot import plot_format
+
+            plot_format(args.plot)
+            _check_output_path(args.plot, inputs, "--plot")
+        refusal = defaults.refusal(circuit)
+        if refusal is not None:
+            return refuse(f"{args.file}: {refusal}")
+        tolerances = defaults.merged(command_line, file)
+        bands = defaults.bands(circuit, tolerances)
+    except NetlistError as exc:
+        print(exc.render(), file=sys.stderr)
+        return EXIT_INPUT
+    except ValueError as exc:
+        return refuse(str(exc))
+    if not bands:
+        return refuse("nothing to vary: give --resistors, --supplies, --vto, --kp, --lambda, --temp or "
+                      "--tolerances (with a non-zero tolerance on something the circuit has)")
+
+    from .analysis.dcsolve import DcSolveError
+    from .analysis.spread import spread
+    from .lint.rule import LintSettings
+
+    try:
+        result = spread(circuit, bands, samples=count, seed=seed, distribution=args.dist,
+                        margin_threshold=LintSettings().saturation_margin)  # fmt: skip
+    except ValueError as exc:  # the temperature phase refusing a card (PHI ≤ 0 at an end, say)
+        return refuse(f"{args.file}: {exc}")
+    except DcSolveError as exc:  # an element the solver does not model, a node without a DC path, ...
+        element = circuit.element(getattr(exc, "element", None) or "")
+        place = f"{element.origin.file or args.file}:{element.origin.line}:1" if element is not None else args.file
+        return refuse(f"{place}: the level-1 solver cannot solve this circuit: {exc}")
+    check = None
+    if session is not None:
+        from .sim.corners import prove_corners
+
+        check = prove_corners(session, circuit, result, timeout=SPREAD_SIM_TIMEOUT)
+        session.close()
+    else:
+        print(f"biasbridge: {hint} (the corners are not run in ngspice)", file=sys.stderr)
+    from .report.spread_view import spread_findings, spread_json, spread_renderable
+
+    findings = spread_findings(result, check)
+    if args.plot is not None:
+        from .report.spread_plot import write_spread_plot
+
+        try:
+            write_spread_plot(result, args.plot)
+        except OSError as exc:
+            return refuse(f"cannot write {args.plot}: {exc.strerror or exc}")
+    if args.json:
+        sys.stdout.write(json.dumps(spread_json(args.file, result, check, findings), allow_nan=False) + "\n")
+    else:
+        _console().print(spread_renderable(args.file, result, check, findings))
+    return EXIT_FINDINGS if any(f.severity in ("warning", "error") for f in findings) else EXIT_OK
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="biasbridge",
@@ -831,6 +938,25 @@ def build_parser() -> argparse.ArgumentParser:
     fit.add_argument("--json", action="store_true", help="print one JSON object")
     fit.add_argument("--sim-timeout", default="30", metavar="SECONDS", help="give up on ngspice after this long")
     fit.set_defaults(run=command_fit)
+    spread = verbs.add_parser(
+        "spread", help="tolerance corners, temperature and Monte Carlo: will the bias survive production?"
+    )
+    spread._negative_number_matcher = SWEEP_NEGATIVE_VALUE  # `--temp -40:125` is a value
+    spread.add_argument("file", metavar="FILE", help="SPICE netlist of a single-transistor stage (level-1 cards)")
+    spread.add_argument("--resistors", metavar="PCT", help="every resistor ±PCT %% (e.g. 5 or 5%%)")
+    spread.add_argument("--supplies", metavar="PCT", help="every independent voltage source ±PCT %%")
+    spread.add_argument("--vto", metavar="VOLTS", help="every MOSFET card's VTO ±VOLTS (absolute, e.g. 0.05 or 50m)")
+    spread.add_argument("--kp", metavar="PCT", help="every MOSFET card's KP ±PCT %%")
+    spread.add_argument("--lambda", dest="lambda_", metavar="PCT", help="every MOSFET card's LAMBDA ±PCT %%")
+    spread.add_argument("--temp", metavar="LO:HI", help="temperature range in °C (e.g. -40:125)")
+    spread.add_argument("--tolerances", metavar="FILE.toml", help="per-element and per-model tolerances (see README)")
+    spread.add_argument("--samples", default=str(10_000), metavar="N", help="Monte-Carlo samples (default 10000)")
+    spread.add_argument("--seed", default="0", metavar="S", help="random seed (default 0): same seed, same numbers")
+    spread.add_argument("--dist", choices=("uniform", "normal"), default="uniform",
+                        help="uniform within each band (default), or normal with the band as ±3σ (clipped to it)")
+    spread.add_argument("--json", action="store_true", help="print one JSON object")
+    spread.add_argument("--plot", metavar="FILE.png|.svg", help="histograms of drain current and margin")
+    spread.set_defaults(run=command_spread)
     demo = verbs.add_parser("demo", help="run the main job on a bundled example")
     demo.set_defaults(run=command_demo)
     return parser

@@ -92,7 +92,8 @@ def transfer_curve(
     else:
         hand, hand_findings, hand_model_at = own_columns.hand_curve(circuit, element.name, output, x, bias, devices)
         findings += hand_findings
-        level1, level1_findings = own_columns.level1_curve(circuit, element.name, output, x, bias, devices)
+        starts = own_columns.hand_starts(circuit, hand_model_at, x)  # each level-1 point from its hand point
+        level1, level1_findings = own_columns.level1_curve(circuit, element.name, output, x, bias, devices, starts)
         findings += level1_findings
 
     sim: Curve | None = None

@@ -56,12 +56,7 @@ from bridge.devices.mos1.instance import (
     default_size,
     mosfet_instance,
 )
-from bridge.devices.mos1.load import (
-    ArrayPoint,
-    Level1Point,
-    evaluate_arrays,
-    junction_current_arrays,
-)
+from bridge.devices.mos1.load import Level1Point
 from bridge.devices.mos1.model import Level1Model
 from bridge.devices.mos1.params import CIRCUIT_TEMPERATURE_C, K_OVER_Q
 from bridge.devices.mos1.placed import PlacedMosfet
@@ -78,7 +73,6 @@ __all__ = [
     "SingularCircuit",
     "UnsupportedElement",
     "level1_model",
-    "SweepArrays",
     "solve_dc_sweep",
     "solve_dc_sweep_arrays",
     "solve_operating_point",
@@ -978,232 +972,23 @@ class HandNetwork:
         return _operating_point(net, _solve(net, net.source_defaults, state, fresh, METHODS), ())
 
 
-# --- many operating points at once ----------------------------------------------------------
-
-BATCH_ITERATIONS = 8  # Newton iterations of one vectorised pass before its stragglers start again
-BATCH_STRIDES = (16,)  # the coarse grid solved first: every 16th point
-BATCH_PASSES = 8  # vectorised passes, each from the nearest solved neighbours, before the scalar solver
-
-
-@dataclass(frozen=True)
-class SweepArrays:
-    """Operating points of a whole sweep, solved together: ``x`` the swept values; ``nodes``
-    each node's voltage per point (ground included); ``solved`` which points have a solution
-    (NaN voltages elsewhere); ``vectorised`` which of them the vectorised Newton gave (the
-    rest came from the scalar solver, started from a neighbour)."""
-
-    x: np.ndarray
-    nodes: dict[str, np.ndarray]
-    solved: np.ndarray
-    vectorised: np.ndarray
-    caveats: tuple[str, ...]
-    devices: dict[str, ArrayPoint] = field(default_factory=dict)
-
-    def device(self, name: str) -> ArrayPoint:
-        """A MOSFET's channel quantities at every point, by element name ignoring case."""
-        return self.devices[_lookup(self.devices, name)]
-
-    def voltage(self, node: str) -> np.ndarray:
-        """A node's voltages by name, ignoring case (``gnd`` is ground)."""
-        key = node.lower()
-        return self.nodes[GROUND if key == "gnd" else key]
-
-    def node_voltages(self, k: int) -> dict[str, float]:
-        """Point `k`'s node voltages, as ``OperatingPoint.node_voltages``."""
-        return {node: float(values[k]) for node, values in self.nodes.items()}
-
-
-def _batch_newton(
-    net: _Network, reduction: _Reduction, sources: np.ndarray, start: np.ndarray, iterations: int
-) -> tuple[np.ndarray, np.ndarray]:
-    """``_batch_newton_rows`` with floating-point warnings off: a diverging row overflows on its
-    way out of the batch (it is then left to the next pass or the scalar solver)."""
-    with np.errstate(all="ignore"):
-        return _batch_newton_rows(net, reduction, sources, start, iterations)
-
-
-def _batch_newton_rows(
-    net: _Network, reduction: _Reduction, sources: np.ndarray, start: np.ndarray, iterations: int
-) -> tuple[np.ndarray, np.ndarray]:
-    """Newton on the reduced system for many source vectors at once (rows of `sources`), each
-    from its row of `start` (full solution vectors). No limiting: the starts are neighbours'
-    solutions. Returns the full solution vectors and which rows converged (to the tight
-    tolerances: TIGHT_RELTOL of the value plus TIGHT_VNTOL or TIGHT_ABSTOL)."""
-    count = sources.shape[0]
-    kept = np.array(reduction.kept, dtype=int)
-    eliminated = np.array(reduction.eliminated, dtype=int)
-    position = reduction.position
-    size = len(kept)
-    base_matrix = np.array(reduction.matrix, dtype=float).reshape(size, size)
-    base_rhs = sources @ reduction.source_map.T
-    recover_base = sources @ reduction.recover_sources.T if eliminated.size else None
-    recover_kept = np.array(reduction.recover_kept, dtype=float).reshape(eliminated.size, size)
-    _, tight_floor = net.newton_floors
-    floor = np.array(tight_floor)
-    result = start.copy()
-    converged = np.zeros(count, dtype=bool)
-    active = np.arange(count)
-    x = start.copy()
-    gmin = net.gmin
-    stamps = [_batch_stamps(mos, position) for mos in net.mosfets]
-    for _ in range(iterations):
-        rows = active.size
-        matrix = np.broadcast_to(base_matrix, (rows, size, size)).copy()
-        rhs = base_rhs[active]
-        for mos, (channel_rows, channel_columns, junctions) in zip(net.mosfets, stamps, strict=True):
-            vd, vg, vs, vb = x[:, mos.drain], x[:, mos.gate], x[:, mos.source], x[:, mos.bulk]
-            point = evaluate_arrays(mos.model, mos.geometry, vd, vg, vs, vb)
-            g = point.conductances
-            offset = point.drain_current - (g[0] * vd + g[1] * vg + g[2] * vs + g[3] * vb)
-            # The drain row gains +g, the source row −g (a − g is a + (−1.0·g) to the bit).
-            for row, positive in channel_rows:
-                for column, terminal in channel_columns:
-                    if positive:
-                        matrix[:, row, column] += g[terminal]
-                    else:
-                        matrix[:, row, column] -= g[terminal]
-                if positive:
-                    rhs[:, row] -= offset
-                else:
-                    rhs[:, row] += offset
-            polarity = mos.model.polarity
-            for far, saturation in junctions:  # only junctions with a terminal among the kept unknowns
-                junction_voltage = polarity * (vb - x[:, far])
-                current, conductance = junction_current_arrays(junction_voltage, saturation, gmin, mos.thermal_voltage)
-                _stamp_pair_arrays(matrix, rhs, position[mos.bulk], position[far], conductance,
-                                   polarity * (current - conductance * junction_voltage))  # fmt: skip
-        try:
-            solution = np.linalg.solve(matrix, rhs[..., None])[..., 0]
-        except np.linalg.LinAlgError:  # a singular system in the batch: leave it to the scalar solver
-            break
-        new = np.zeros_like(x)
-        new[:, kept] = solution
-        if eliminated.size:
-            new[:, eliminated] = recover_base[active] - solution @ recover_kept.T
-        finite = np.isfinite(new).all(axis=1)
-        change = np.abs(new - x)
-        size_of = np.maximum(np.abs(new), np.abs(x))
-        settled = finite & (change <= TIGHT_RELTOL * size_of + floor).all(axis=1)
-        done = active[settled]
-        result[done] = new[settled]
-        converged[done] = True
-        going = finite & ~settled
-        active, x = active[going], new[going]
-        if not active.size:
-            break
-    return result, converged
-
-
-def _stamp_pair_arrays(
-    matrix: np.ndarray, rhs: np.ndarray, a: int, c: int, g: np.ndarray, offset: np.ndarray
-) -> None:
-    """``_stamp_pair`` for a batch of systems."""
-    if a >= 0:
-        matrix[:, a, a] += g
-        rhs[:, a] -= offset
-        if c >= 0:
-            matrix[:, a, c] -= g
-            matrix[:, c, a] -= g
-    if c >= 0:
-        matrix[:, c, c] += g
-        rhs[:, c] += offset
-
-
-def _batch_stamps(
-    mos: _Mosfet, position: Sequence[int]
-) -> tuple[list[tuple[int, bool]], list[tuple[int, int]], list[tuple[int, float]]]:
-    """Where one MOSFET lands in the reduced system, worked out once per batch: the channel's
-    rows (drain +, source −) and columns among the kept unknowns with the terminal (0–3) whose
-    conductance goes there, and the bulk junctions (far terminal, saturation current) that stamp
-    anything (a junction between two eliminated or grounded nodes stamps nothing)."""
-    terminals = (position[mos.drain], position[mos.gate], position[mos.source], position[mos.bulk])
-    rows = [(row, positive) for row, positive in ((terminals[0], True), (terminals[2], False)) if row >= 0]
-    columns = [(column, terminal) for terminal, column in enumerate(terminals) if column >= 0]
-    junctions = [
-        (far, saturation)
-        for far, saturation in ((mos.drain, mos.drain_saturation_current), (mos.source, mos.source_saturation_current))
-        if position[mos.bulk] >= 0 or position[far] >= 0
-    ]
-    return rows, columns, junctions
+# --- many operating points at once: bridge.analysis.dcbatch -----------------------------------
 
 
 def solve_dc_sweep_arrays(
-    circuit: Circuit, source: str, values: Sequence[float], *, start: Mapping[str, float] | None = None
-) -> SweepArrays:
-    """The operating points of `source` stepped through `values`, solved all at once.
+    circuit: Circuit, source: str, values: Sequence[float], *, start: Mapping[str, float] | np.ndarray | None = None
+):
+    """The operating points of `source` stepped through `values`, solved all at once: the batch
+    engine's sweep (``bridge.analysis.dcbatch.solve_dc_sweep_arrays``, which says how)."""
+    from bridge.analysis.dcbatch import solve_dc_sweep_arrays as solve
 
-    The first point is solved by the scalar solver (from `start`, e.g. the hand point, else
-    the full ladder); every point then starts from it in one vectorised Newton on the reduced
-    system; points that do not converge start again from their nearest converged neighbour,
-    and what is left is solved one by one by the scalar solver from a neighbour. Networks
-    without a dense reduction or with diodes are solved one by one throughout.
-    Raises UnsupportedElement, InvalidElement or SingularCircuit, as solve_operating_point.
-    """
-    net = _build_network(circuit, level1_model)
-    if source.lower() not in {name.lower() for name in net.source_names}:
-        raise ValueError(f"`{source}` is not an independent source of this circuit")
-    swept = next(k for k, name in enumerate(net.source_names) if name.lower() == source.lower())
-    x_values = np.asarray(values, dtype=float)
-    count = x_values.size
-    sources = np.tile(net.source_vector(None), (count, 1))
-    sources[:, swept] = x_values
-    solutions = np.full((count, net.size), math.nan)
-    vectorised = np.zeros(count, dtype=bool)
-    reduction = net.plain_reduction
-    batch = count > 0 and not net.diodes and isinstance(net.linear, np.ndarray) and all(
-        isinstance(row, tuple) for row in reduction.matrix
-    )
+    return solve(circuit, source, values, start=start)
 
-    def scalar(k: int, guess: np.ndarray | None) -> bool:
-        initial = None
-        if guess is not None:
-            initial = {node: float(guess[i + 1]) for i, node in enumerate(net.nodes)}
-        for begin in ((initial, None) if initial is not None else (start, None) if start else (None,)):
-            try:
-                state, fresh = _start(net, begin)
-                solved = _solve(net, sources[k], state, fresh, METHODS)
-            except NoConvergence:
-                continue
-            solutions[k] = solved.state.x
-            return True
-        return False
 
-    solved = np.zeros(count, dtype=bool)
-    if batch and count and scalar(0, None):
-        solved[0] = True
-        # A coarse grid first (every 16th point, from point 0), then all, each point from its nearest
-        # solved neighbour, so the fine passes start close to their answer. (Counted on the bench
-        # stage: 15 batched iterations in all, against 21–34 for other strides and pass lengths.)
-        for stride in (*BATCH_STRIDES, *(1,) * BATCH_PASSES):
-            todo = np.flatnonzero(~solved[::stride]) * stride
-            if not todo.size:
-                if stride == 1:
-                    break
-                continue
-            # Each straggler starts from its nearest solved neighbour (the first pass: point 0).
-            done = np.flatnonzero(solved)
-            nearest = done[np.searchsorted(done, todo).clip(max=done.size - 1)]
-            below = done[(np.searchsorted(done, todo) - 1).clip(min=0)]
-            nearest = np.where(np.abs(below - todo) < np.abs(nearest - todo), below, nearest)
-            found, converged = _batch_newton(net, reduction, sources[todo], solutions[nearest], BATCH_ITERATIONS)
-            solutions[todo[converged]] = found[converged]
-            solved[todo[converged]] = True
-            vectorised[todo[converged]] = True
-            if stride == 1 and not converged.any():
-                break
-    last: np.ndarray | None = None
-    for k in np.flatnonzero(~solved).tolist():
-        previous = np.flatnonzero(solved[:k])
-        last = solutions[previous[-1]] if previous.size else None
-        solved[k] = scalar(k, last)
-    solved_mask = solved
-    nodes = {GROUND: np.where(solved_mask, 0.0, math.nan)}
-    for i, node in enumerate(net.nodes):
-        nodes[node] = solutions[:, i + 1]
-    with np.errstate(invalid="ignore"):  # unsolved points are NaN
-        devices = {
-            mos.name: evaluate_arrays(mos.model, mos.geometry, solutions[:, mos.drain], solutions[:, mos.gate],
-                                      solutions[:, mos.source], solutions[:, mos.bulk])
-            for mos in net.mosfets
-        }  # fmt: skip
-    return SweepArrays(x_values, nodes, solved_mask, vectorised, net.caveats, devices)
+def __getattr__(name: str) -> object:
+    """``SweepArrays`` lives in ``dcbatch`` (imported on first use: it imports this module)."""
+    if name == "SweepArrays":
+        from bridge.analysis.dcbatch import SweepArrays
+
+        return SweepArrays
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

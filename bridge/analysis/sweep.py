@@ -10,8 +10,8 @@ The columns, stated once:
 * hand — the hand model (square law, λ = γ = 0, no gate current) at every point, numbers only:
   ``HandSweep`` (the circuit reduced once, the affine closed form per point) where it applies,
   else ``hand_analysis(..., working=False)`` on a copy with the swept source's value replaced.
-* level1 — ``solve_dc_sweep_arrays``: the full level-1 model, every point at once, each from a
-  solved neighbour.
+* level1 — ``solve_dc_sweep_arrays``: the full level-1 model, every point at once, each from the
+  hand column's point (``hand_starts``) or a solved neighbour.
 
 The ngspice column is ``bridge.sim.transfer``'s; ``bridge.sweep_run`` drives the three and
 compares them (``bridge.curve_compare``). Nothing here imports compare, sim or report.
@@ -54,13 +54,8 @@ from ..curves import region_edges as _edges
 from ..devices.mos1.ask import REGIONS
 from ..netlist.circuit import GROUND, Circuit
 from ..vocabulary import Finding
-from .dcsolve import (
-    DcSolveError,
-    OperatingPoint,
-    SweepArrays,
-    solve_dc_sweep_arrays,
-    solve_operating_point,
-)
+from .dcbatch import SweepArrays, solve_dc_sweep_arrays
+from .dcsolve import DcSolveError, OperatingPoint, solve_operating_point
 from .hand import HandAnalysisError, HandSolution, HandSweep, hand_analysis
 from .hand_edges import (
     ClosedFormEdges,
@@ -225,6 +220,7 @@ class HandColumn:
         self.source = source
         self.failure: str | None = None
         self.closed_form = HandSweep(circuit, source)
+        self.points: list[HandSolution | None] = []  # the grid's solutions, once hand_curve has them
 
     def solve(self, value: float) -> HandSolution | None:
         try:
@@ -300,6 +296,7 @@ def hand_curve(
     points without a hand solution; the model, for the closed forms (``hand_closed_forms``)."""
     model = HandColumn(circuit, source)
     solutions = model.solve_all([float(value) for value in x])
+    model.points = solutions
     findings: list[Finding] = []
     failed = sum(s is None for s in solutions)
     if failed == len(solutions):
@@ -354,23 +351,39 @@ def hand_curve(
 # --- the level-1 column ---------------------------------------------------------------------
 
 
-def _level1_points(circuit: Circuit, source: str, x: np.ndarray) -> SweepArrays:
+def _level1_points(circuit: Circuit, source: str, x: np.ndarray, start: np.ndarray | None = None) -> SweepArrays:
     """Every point of the sweep solved at once (``solve_dc_sweep_arrays``: a vectorised Newton,
-    each point from a solved neighbour, stragglers by the scalar solver from a neighbour).
+    each point from `start`'s row where it has one, else from a solved neighbour, stragglers by
+    the scalar solver from a neighbour).
 
     Raises UnsupportedElement, InvalidElement or SingularCircuit: those hold at every point.
     """
-    return solve_dc_sweep_arrays(circuit, source, x)
+    return solve_dc_sweep_arrays(circuit, source, x, start=start)
+
+
+def hand_starts(circuit: Circuit, hand: HandColumn | None, x: np.ndarray) -> np.ndarray | None:
+    """The hand column's node voltages at each grid point (rows in ``circuit.nodes()`` order,
+    NaN where the hand model has none): the level-1 column's starting points. None without them."""
+    points = hand.points if hand is not None else []
+    if len(points) != len(x) or not any(point is not None for point in points):
+        return None
+    nodes = circuit.nodes()
+    return np.array([
+        [point.node_voltages.get(node, math.nan) for node in nodes] if point is not None else [math.nan] * len(nodes)
+        for point in points
+    ], dtype=float).reshape(len(points), len(nodes))  # fmt: skip
 
 
 def level1_curve(
-    circuit: Circuit, source: str, output: str, x: np.ndarray, bias: float, devices: Sequence[str]
+    circuit: Circuit, source: str, output: str, x: np.ndarray, bias: float, devices: Sequence[str],
+    start: np.ndarray | None = None,
 ) -> tuple[Curve | None, list[Finding]]:
     """The level-1 column over the grid `x`: V(`output`), regions, edges and gains; None with an
-    error finding where the solver gives no point."""
+    error finding where the solver gives no point. `start`: each point's starting node voltages
+    (``hand_starts``), where known."""
     findings: list[Finding] = []
     try:
-        points = _level1_points(circuit, source, x)
+        points = _level1_points(circuit, source, x, start)
     except DcSolveError as exc:
         findings.append(Finding("error", "solver-failed", f"level-1 solver: {exc}"))
         return None, findings

@@ -19,7 +19,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from .ask import Region, classify_region, region_codes
+from .ask import Region, classify_region
 from .model import Level1Model
 from .params import DEFAULT_L, DEFAULT_W
 
@@ -283,63 +283,99 @@ def evaluate_arrays(
     model: Level1Model, geometry: Level1Geometry, vd: np.ndarray, vg: np.ndarray, vs: np.ndarray, vb: np.ndarray
 ) -> ArrayPoint:
     """``evaluate`` over arrays of absolute terminal voltages: the same equations, branch by
-    branch with ``np.where``, in the same order of operations."""
+    branch with ``np.where``, in the same order of operations. The model's VTO, KP, GAMMA, PHI,
+    LAMBDA and LD (and the geometry's W, L, M) may be arrays too, one value per point
+    (broadcasting); a point whose Leff = L − 2·LD is not positive gets NaN."""
     polarity = model.polarity
     vd, vg, vs, vb = (np.asarray(v, dtype=float) for v in (vd, vg, vs, vb))
     vgs = polarity * (vg - vs)
     vds = polarity * (vd - vs)
     vbs = polarity * (vb - vs)
-    swapped = vds < 0.0
-    gate_drive = np.where(swapped, vgs - vds, vgs)
-    channel_bias = np.where(swapped, -vds, vds)
-    body_bias = np.where(swapped, vbs - vds, vbs)
+    return channel_arrays(
+        polarity, model.vto, model.gamma, model.phi, model.lambda_, beta_arrays(model, geometry), vgs, vds, vbs
+    )
 
-    sqrt_phi = math.sqrt(model.phi)
+
+def beta_arrays(model: Level1Model, geometry: Level1Geometry):
+    """β = KP·W·M/Leff where any of them may be arrays: ``beta`` without its ValueError (a point
+    whose Leff is not positive gets NaN). Plain floats give ``beta``'s float."""
+    length = geometry.l - 2.0 * model.ld
+    if not isinstance(length, np.ndarray) and not any(isinstance(v, np.ndarray) for v in (model.kp, geometry.w)):
+        return model.kp * geometry.w * geometry.m / length if length > 0.0 else math.nan
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(length > 0.0, model.kp * geometry.w * geometry.m / length, math.nan)
+
+
+def channel_arrays(polarity: int, vto, gamma, phi, lambda_, gain, vgs, vds, vbs) -> ArrayPoint:
+    """The square law and its conductances over arrays of device-polarity voltages (vgs, vds, vbs:
+    the differences ``evaluate`` forms), for card values VTO, GAMMA, PHI, LAMBDA and β = `gain`
+    that are floats or arrays of the same length: ``evaluate``'s equations, bit for bit.
+
+    Written for few array operations (a Newton iteration of a batch calls it per device): with
+    vde = min(VDS, max(VOV, 0)) the three regions are one expression, ID = β·clm·vde·(max(VOV, 0)
+    − vde/2), gm = β·clm·vde, gds = β·clm·(max(VOV, 0) − vde) + λ·β·vde·(max(VOV, 0) − vde/2),
+    which in saturation (vde = VOV) is ``channel``'s form exactly (a halving is exact in binary
+    floating point), in triode (vde = VDS) the same, and in cutoff 0. Swapped points (vds < 0)
+    see vgd, −vds and vbd: vgs − min(vds, 0) and so on, no ``np.where`` when none is swapped."""
+    swapped = vds < 0.0
+    any_swapped = bool(swapped.any())
+    if any_swapped:
+        toward = np.minimum(vds, 0.0)
+        gate_drive, channel_bias, body_bias = vgs - toward, np.abs(vds), vbs - toward
+    else:
+        gate_drive, channel_bias, body_bias = vgs, vds, vbs
+
+    sqrt_phi = np.sqrt(phi)
     reverse = body_bias <= 0.0
     with np.errstate(invalid="ignore", divide="ignore"):
-        reverse_root = np.sqrt(np.where(reverse, model.phi - body_bias, model.phi))
-        tangent = sqrt_phi - body_bias / (2.0 * sqrt_phi)
-        root = np.where(reverse, reverse_root, np.where(tangent <= 0.0, 0.0, tangent))
-        root_decline = np.where(reverse, 0.5 / reverse_root, np.where(tangent <= 0.0, 0.0, 0.5 / sqrt_phi))
-        body_factor = np.where(root > 0.0, model.gamma / (2.0 * np.where(root > 0.0, root, 1.0)), 0.0)
-    vth = polarity * model.vto + model.gamma * (root - sqrt_phi)
+        if reverse.all():  # no forward body bias: the plain root, never zero where PHI > 0
+            root = np.sqrt(phi - body_bias)
+            root_decline = 0.5 / root
+            body_factor = gamma / (2.0 * root)
+        else:
+            reverse_root = np.sqrt(np.where(reverse, phi - body_bias, phi))
+            tangent = sqrt_phi - body_bias / (2.0 * sqrt_phi)
+            root = np.where(reverse, reverse_root, np.where(tangent <= 0.0, 0.0, tangent))
+            root_decline = np.where(reverse, 0.5 / reverse_root, np.where(tangent <= 0.0, 0.0, 0.5 / sqrt_phi))
+            body_factor = np.where(root > 0.0, gamma / (2.0 * np.where(root > 0.0, root, 1.0)), 0.0)
+    vth = polarity * vto + gamma * (root - sqrt_phi)
     vov = gate_drive - vth
     vdsat = np.maximum(vov, 0.0)
-    exact_body_factor = model.gamma * root_decline
+    exact_body_factor = gamma * root_decline
 
-    gain = beta(model, geometry)
-    clm = 1.0 + model.lambda_ * channel_bias
-    region = region_codes(vov, channel_bias)
-    saturated, triode = region == 2, region == 1
-    current = np.where(saturated, 0.5 * gain * clm * vov * vov,
-                       np.where(triode, gain * clm * channel_bias * (vov - 0.5 * channel_bias), 0.0))
-    gm = np.where(saturated, gain * clm * vov, np.where(triode, gain * clm * channel_bias, 0.0))
-    gds = np.where(
-        saturated,
-        0.5 * model.lambda_ * gain * vov * vov,
-        np.where(triode, gain * clm * (vov - channel_bias)
-                 + model.lambda_ * gain * channel_bias * (vov - 0.5 * channel_bias), 0.0),
-    )  # fmt: skip
+    gain_clm = gain * (1.0 + lambda_ * channel_bias)
+    effective = np.minimum(channel_bias, vdsat)  # vde: VDS in triode, VOV in saturation, 0 in cutoff
+    gm = gain_clm * effective
+    half = vdsat - 0.5 * effective
+    current = gm * half
+    gds = gain_clm * (vdsat - effective) + lambda_ * gain * effective * half
+    region = (vov > 0.0) * ((vov <= channel_bias) + 1)  # ask.region_codes: 0 cutoff, 1 triode, 2 saturation
     gmbs = gm * body_factor
     gmbs_exact = gm * exact_body_factor
-    drain_current = np.where(swapped, -polarity * current, polarity * current)
-    conductances = (
-        np.where(swapped, gm + gds + gmbs_exact, gds),
-        np.where(swapped, -gm, gm),
-        np.where(swapped, -gds, -(gm + gds + gmbs_exact)),
-        np.where(swapped, -gmbs_exact, gmbs_exact),
-    )
+    if any_swapped:
+        signed = np.where(swapped, -current, current)
+        conductances = (
+            np.where(swapped, gm + gds + gmbs_exact, gds),
+            np.where(swapped, -gm, gm),
+            np.where(swapped, -gds, -(gm + gds + gmbs_exact)),
+            np.where(swapped, -gmbs_exact, gmbs_exact),
+        )
+    else:
+        signed = current
+        conductances = (gds, gm, -(gm + gds + gmbs_exact), gmbs_exact)
     return ArrayPoint(
-        np.where(swapped, -current, current), vgs, vds, vbs, vth, vov, vdsat, gm, gds, gmbs, region, swapped,
-        drain_current, conductances,
+        signed, vgs, vds, vbs, vth, vov, vdsat, gm, gds, gmbs, region, swapped, polarity * signed, conductances,
     )  # fmt: skip
 
 
 def junction_current_arrays(
-    voltage: np.ndarray, saturation_current: float, gmin: float, thermal: float
+    voltage: np.ndarray, saturation_current, gmin: float, thermal
 ) -> tuple[np.ndarray, np.ndarray]:
-    """``junction_current`` over an array of junction voltages."""
+    """``junction_current`` over an array of junction voltages; the saturation current and kT/q
+    may be arrays too (one value per point: a batch at several temperatures)."""
     reverse = voltage <= -3.0 * thermal
+    if reverse.all():  # every junction reverse-biased (the usual case): no exponential
+        return gmin * voltage - saturation_current, np.full(voltage.shape, gmin)
     growth = np.exp(np.minimum(MAX_EXP_ARG, np.where(reverse, 0.0, voltage) / thermal))
     current = np.where(reverse, gmin * voltage - saturation_current,
                        saturation_current * (growth - 1.0) + gmin * voltage)  # fmt: skip

@@ -1,0 +1,206 @@
+"""`biasbridge spread`'s output: the findings, the rich summary and the `--json` object.
+
+Formatting only: the numbers are bridge.analysis.spread's, ngspice's corner values
+bridge.sim.corners'.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from ..netlist.numbers import engineering
+from ..vocabulary import UNITS, Finding
+
+if TYPE_CHECKING:
+    from rich.console import RenderableType
+
+    from ..analysis.spread import Extremes, SpreadResult
+    from ..sim.corners import CornerCheck
+
+QUANTITY_UNITS = {"id": UNITS["id"], "margin": UNITS["sat_margin"]}
+CUTOFF = 0  # region code of ask.REGIONS
+TITLES = {"id": "id", "margin": "vds − vov"}
+
+
+def _percent(fraction: float) -> str:
+    return f"{100 * fraction:.2f} %"
+
+
+def spread_findings(result: SpreadResult, check: CornerCheck | None) -> tuple[Finding, ...]:
+    """What the spread tells the designer, in order: how it was searched, the yields, the corners
+    that leave saturation, Monte-Carlo samples beyond every corner, what was not solved, and
+    ngspice's disagreements at the corners."""
+    findings = [
+        Finding("info", "spread-corners", f"extremes over {result.corners.count} points: {result.how}"),
+        Finding("info", "spread-samples", _samples_text(result)),
+    ]
+    samples = result.samples
+    unsolved = result.unsolved_samples
+    besides = f"; {unsolved:,} more have no solution" if unsolved else ""
+    if result.saturation_yield < 1.0:
+        failing = round((1.0 - result.saturation_yield) * samples) - unsolved
+        findings.append(Finding("warning", "saturation-yield", f"{failing:,} of {samples:,} samples "
+                                f"({_percent(failing / samples)}) have a MOSFET out of saturation "
+                                f"(cutoff or triode){besides}"))  # fmt: skip
+    if result.margin_yield < 1.0:
+        failing = round((1.0 - result.margin_yield) * samples) - unsolved
+        findings.append(Finding("warning", "margin-yield", f"{failing:,} of {samples:,} samples "
+                                f"({_percent(failing / samples)}) have a MOSFET out of saturation or with "
+                                f"vds − vov below {engineering(result.margin_threshold, 'V')} (lint's "
+                                f"saturation-margin threshold){besides}"))  # fmt: skip
+    for name, quantities in result.devices.items():
+        margin = quantities["margin"]
+        if math.isfinite(margin.min) and margin.min < 0.0:
+            findings.append(Finding("warning", "corner-triode", f"{name} leaves saturation at a corner: vds − vov = "
+                                    f"{engineering(margin.min, 'V')} at {margin.min_corner}", None, name))  # fmt: skip
+        cutoff = np.flatnonzero(result.corner_solution.regions[name] == CUTOFF)
+        if cutoff.size:
+            findings.append(Finding("warning", "corner-cutoff", f"{name} is in cutoff (vov ≤ 0) at {cutoff.size} of "
+                                    f"{result.corners.count} points searched, e.g. at "
+                                    f"{result.corner_names[int(cutoff[0])]}", None, name))  # fmt: skip
+        for quantity, extremes in quantities.items():
+            findings += _inside(f"{name} {TITLES[quantity]}", QUANTITY_UNITS[quantity], extremes, name)
+    for node, extremes in result.nodes.items():
+        findings += _inside(f"V({node})", "V", extremes, node)
+    if result.unsolved_corners:
+        shown = "; ".join(result.unsolved_corners[:3])
+        more = f" and {len(result.unsolved_corners) - 3} more" if len(result.unsolved_corners) > 3 else ""
+        findings.append(Finding("error", "corner-unsolved", f"{len(result.unsolved_corners)} corner(s) have no "
+                                f"level-1 solution and are left out of the extremes: {shown}{more}"))  # fmt: skip
+    if result.unsolved_samples:
+        findings.append(Finding("error", "sample-unsolved", f"{result.unsolved_samples:,} samples have no level-1 "
+                                "solution: left out of the statistics and counted as failing both yields"))  # fmt: skip
+    for caveat in result.caveats:
+        findings.append(Finding("info", "solver-caveat", caveat))
+    if check is None:
+        findings.append(Finding("info", "no-simulator", "ngspice is not available: the corners are not run in it"))
+    else:
+        findings += check.findings
+    return tuple(findings)
+
+
+def _samples_text(result: SpreadResult) -> str:
+    how = ("uniform within each band" if result.distribution == "uniform" else
+           "normal with each band as ±3σ around its middle, clipped to the band")  # fmt: skip
+    return (f"{result.samples:,} Monte-Carlo samples, {how}, seed {result.seed}; a model's tolerance is one draw per "
+            "sample for every MOSFET using that model (one lot)")  # fmt: skip
+
+
+def _inside(what: str, unit: str, extremes: Extremes, subject: str) -> list[Finding]:
+    """A sample beyond every corner searched: the quantity is not monotone in some band (or the
+    corners were not all searched), so the corners' extreme is not the worst case."""
+    found = []
+    scale = max(abs(extremes.min), abs(extremes.max), 1e-15)
+    for side, sample, corner in (("below", extremes.sample_min, extremes.min), ("above", extremes.sample_max,
+                                                                               extremes.max)):  # fmt: skip
+        beyond = sample < corner if side == "below" else sample > corner
+        if math.isfinite(sample) and math.isfinite(corner) and beyond and abs(sample - corner) > 1e-9 * scale:
+            found.append(Finding("info", "corner-not-worst", f"{what}: a Monte-Carlo sample is {side} every corner "
+                                 f"searched ({engineering(sample, unit)} against {engineering(corner, unit)}): its "
+                                 "extreme lies inside the bands, not at a corner", None, subject))  # fmt: skip
+    return found
+
+
+def _number(value: float | None) -> float | None:
+    return None if value is None or not math.isfinite(value) else float(value)
+
+
+def _extremes_json(extremes: Extremes, sim: tuple[float | None, float | None] | None) -> dict[str, Any]:
+    sim_min, sim_max = sim if sim is not None else (None, None)
+    return {
+        "nominal": _number(extremes.nominal), "min": _number(extremes.min), "max": _number(extremes.max),
+        "min_corner": extremes.min_corner or None, "max_corner": extremes.max_corner or None,
+        "sim_min": _number(sim_min), "sim_max": _number(sim_max),
+        "mean": _number(extremes.mean), "std": _number(extremes.std),
+        "p0.1": _number(extremes.p_low), "p99.9": _number(extremes.p_high),
+    }  # fmt: skip
+
+
+def spread_json(file: str, result: SpreadResult, check: CornerCheck | None,
+                findings: tuple[Finding, ...]) -> dict[str, Any]:  # fmt: skip
+    """The issue's shape: file, samples, seed, devices, nodes, yield, sensitivity, findings."""
+    devices = {
+        name: {q: _extremes_json(e, check.devices[name][q] if check else None) for q, e in quantities.items()}
+        for name, quantities in result.devices.items()
+    }
+    nodes = {node: _extremes_json(e, check.nodes[node] if check else None) for node, e in result.nodes.items()}
+    sensitivity = {name: {s.band: _number(s.delta) for s in rows} for name, rows in result.sensitivity.items()}
+    return {
+        "file": file, "samples": result.samples, "seed": result.seed, "devices": devices, "nodes": nodes,
+        "yield": {"saturation": result.saturation_yield, "margin": result.margin_yield},
+        "sensitivity": sensitivity,
+        "findings": [{"severity": f.severity, "code": f.code, "message": f.message, "subject": f.subject}
+                     for f in findings],
+    }  # fmt: skip
+
+
+def spread_renderable(file: str, result: SpreadResult, check: CornerCheck | None,
+                      findings: tuple[Finding, ...]) -> RenderableType:  # fmt: skip
+    """The summary: the bands, per device and node the nominal value, the extremes with their
+    corners and ngspice's values there, the Monte-Carlo statistics, the yields, the sensitivities
+    and the findings."""
+    from rich.console import Group
+    from rich.table import Table
+    from rich.text import Text
+
+    parts: list[Any] = [Text(f"{file}: spread over {len(result.bands)} tolerance(s)", style="bold")]
+    bands = Table(box=None, pad_edge=False, show_edge=False)
+    for heading in ("varied", "nominal", "band", "low", "high"):
+        bands.add_column(heading, justify="left" if heading == "varied" else "right")
+    for band in result.bands:
+        unit = {"resistor": "Ω", "temperature": "°C"}.get(band.kind, "")
+        if band.kind == "source":
+            unit = "V"
+        elif band.parameter == "kp":
+            unit = "A/V²"
+        elif band.parameter == "lambda":
+            unit = "1/V"
+        elif band.parameter == "vto":
+            unit = "V"
+        shown = [f"{v:g} °C" if band.kind == "temperature" else engineering(v, unit)
+                 for v in (band.nominal, band.low, band.high)]  # fmt: skip
+        bands.add_row(band.label, shown[0], band.text, shown[1], shown[2])
+    parts += [bands, Text("")]
+    table = Table(box=None, pad_edge=False, show_edge=False, title="corners (level-1, and ngspice at the same corner)",
+                  title_justify="left")  # fmt: skip
+    for heading in ("", "nominal", "min", "ngspice", "max", "ngspice"):
+        table.add_column(heading, justify="left" if not heading else "right")
+    sampled = Table(box=None, pad_edge=False, show_edge=False, title=f"Monte Carlo ({result.samples:,} samples)",
+                    title_justify="left")  # fmt: skip
+    for heading in ("", "mean", "std", "p0.1", "p99.9"):
+        sampled.add_column(heading, justify="left" if not heading else "right")
+    corners: list[tuple[str, str, str]] = []
+
+    def row(label: str, unit: str, extremes: Extremes, sim: tuple[float | None, float | None] | None) -> None:
+        sim_min, sim_max = sim if sim is not None else (None, None)
+        table.add_row(label, engineering(extremes.nominal, unit), engineering(extremes.min, unit),
+                      engineering(sim_min, unit), engineering(extremes.max, unit), engineering(sim_max, unit))
+        sampled.add_row(label, engineering(extremes.mean, unit), engineering(extremes.std, unit),
+                        engineering(extremes.p_low, unit), engineering(extremes.p_high, unit))  # fmt: skip
+        corners.append((label, extremes.min_corner, extremes.max_corner))
+
+    for name, quantities in result.devices.items():
+        for quantity, extremes in quantities.items():
+            sim = check.devices[name][quantity] if check else None
+            row(f"{name} {TITLES[quantity]}", QUANTITY_UNITS[quantity], extremes, sim)
+    for node, extremes in result.nodes.items():
+        row(f"V({node})", "V", extremes, check.nodes[node] if check else None)
+    parts += [table, Text(""), sampled, Text("")]
+    for label, low, high in corners:
+        parts.append(Text(f"{label}: min at {low}; max at {high}"))
+    parts.append(Text(""))
+    parts.append(Text(f"saturation yield {_percent(result.saturation_yield)} (every MOSFET with vov > 0 and "
+                      f"vds ≥ vov); margin yield {_percent(result.margin_yield)} (and vds − vov ≥ "
+                      f"{engineering(result.margin_threshold, 'V')})", style="bold"))  # fmt: skip
+    for name, rows in result.sensitivity.items():
+        moves = ", ".join(f"{s.band} {engineering(s.delta, 'A')}" for s in rows)
+        parts.append(Text(f"{name} id moves (each tolerance alone, high end − low end): {moves}"))
+    parts.append(Text(""))
+    style = {"error": "red", "warning": "yellow", "info": ""}
+    for finding in findings:
+        colour = style.get(finding.severity, "")
+        parts.append(Text(f"{finding.severity} {finding.code}: {finding.message}", style=colour))
+    return Group(*parts)

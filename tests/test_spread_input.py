@@ -1,0 +1,176 @@
+"""`biasbridge spread`'s bad input: every case exit status 2 with one clear message (located
+`FILE:LINE:COL:` for the tolerance file), never a traceback. Each test named "… is refused"
+fails when the input is accepted."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from bridge.cli import main
+
+# A greenhouse soil-moisture probe's buffer: NMOS source follower.
+PROBE = """Greenhouse soil-probe buffer: NMOS source follower
+VSUP sup 0 DC 5
+R1 sup g 220k
+R2 g 0 180k
+RS out 0 4.7k
+M1 sup g out 0 NPROBE W=40u L=4u
+.model NPROBE nmos (level=1 vto=0.6 kp=80u lambda=0.02)
+.op
+.end
+"""
+
+
+@pytest.fixture()
+def probe(tmp_path: Path) -> Path:
+    path = tmp_path / "probe.cir"
+    path.write_text(PROBE)
+    return path
+
+
+def _refused(argv: list[str], capsys) -> str:
+    status = main(argv)
+    captured = capsys.readouterr()
+    assert status == 2, captured.out + captured.err
+    assert "Traceback" not in captured.err
+    assert captured.out == ""
+    return captured.err
+
+
+@pytest.mark.parametrize(
+    ("options", "message"),
+    [
+        (["--resistors", "-5"], "--resistors -5: a tolerance must not be negative"),
+        (["--resistors", "101"], "--resistors 101: a tolerance above 100 %"),
+        (["--supplies", "150%"], "--supplies 150%: a tolerance above 100 %"),
+        (["--kp", "five"], "--kp `five` is not a percentage"),
+        (["--lambda", "nan"], "--lambda nan: not a finite number"),
+        (["--vto", "-0.1"], "--vto -0.1: a tolerance must not be negative"),
+        (["--vto", "x0.1"], "--vto `x0.1` is not a voltage"),
+        (["--resistors", "5", "--samples", "0"], "--samples 0: at least one sample"),
+        (["--resistors", "5", "--samples", "10000001"], "--samples 10000001: at most 10,000,000 samples"),
+        (["--resistors", "5", "--samples", "1e4"], "--samples `1e4` is not a whole number"),
+        (["--resistors", "5", "--seed", "-1"], "--seed -1: the seed must not be negative"),
+        (["--temp", "50:50"], "--temp 50:50: the range is empty"),
+        (["--temp", "125:-40"], "--temp 125:-40: the range is reversed"),
+        (["--temp", "-300:20"], "at or below absolute zero"),
+        (["--temp", "-40"], "--temp `-40` is not a range LO:HI"),
+        ([], "nothing to vary"),
+        (["--resistors", "0"], "nothing to vary"),
+        (["--resistors", "100"], "a ±100 % resistor reaches 0 Ω"),
+    ],
+)
+def test_a_bad_option_is_refused(options, message, probe, capsys):
+    err = _refused(["spread", str(probe), *options], capsys)
+    assert message in err
+
+
+def test_a_distribution_other_than_uniform_or_normal_is_refused(probe, capsys):
+    with pytest.raises(SystemExit) as raised:
+        main(["spread", str(probe), "--resistors", "5", "--dist", "triangular"])
+    assert raised.value.code == 2
+    assert "invalid choice: 'triangular'" in capsys.readouterr().err
+
+
+def test_a_netlist_with_a_level_3_card_is_refused(tmp_path, capsys):
+    path = tmp_path / "l3.cir"
+    path.write_text(PROBE.replace("(level=1 ", "(level=3 "))
+    err = _refused(["spread", str(path), "--resistors", "5"], capsys)
+    assert "M1 uses model NPROBE (level 3, line 7); spread solves level-1 cards only" in err
+
+
+def test_a_netlist_without_a_mosfet_is_refused(tmp_path, capsys):
+    path = tmp_path / "divider.cir"
+    path.write_text("divider\nV1 a 0 5\nR1 a b 1k\nR2 b 0 1k\n.op\n.end\n")
+    assert "the netlist has no MOSFET" in _refused(["spread", str(path), "--resistors", "5"], capsys)
+
+
+def test_an_unreadable_netlist_is_refused_at_its_line(tmp_path, capsys):
+    path = tmp_path / "bad.cir"
+    path.write_text("bad\nR1 a 0 1.2.3k\n.end\n")
+    assert f"{path}:2:11:" in _refused(["spread", str(path), "--resistors", "5"], capsys)
+
+
+# --- the tolerance file ------------------------------------------------------------------------
+
+
+def _file_refused(probe: Path, text: str, capsys) -> tuple[str, Path]:
+    toml = probe.parent / "tol.toml"
+    toml.write_text(text)
+    return _refused(["spread", str(probe), "--tolerances", str(toml)], capsys), toml
+
+
+@pytest.mark.parametrize(
+    ("text", "place", "message"),
+    [
+        ("[resistors]\ndefault = 5\nRX = 1\n", "3:1", "the circuit has no resistor `RX`"),
+        ("[resistors]\nM1 = 1\n", "2:1", "`M1` is a mosfet, not a resistor"),
+        ("[supplies]\n  R1 = 2\n", "2:3", "`R1` is a resistor, not an independent source"),
+        ("[resistors]\nR1 = -1\n", "2:1", "a tolerance must not be negative"),
+        ("[resistors]\nR1 = 120\n", "2:1", "a tolerance above 100 %"),
+        ("[resistors]\nR1 = true\n", "2:1", "must be a number"),
+        ("[models.PCH]\nvto = 0.1\n", "1:1", "model `pch`: the circuit has no such model"),
+        ("[models.NPROBE]\nvto = 0.1\ngamma = 5\n", "3:1", "`gamma` is not a model tolerance"),
+        ("[models.NPROBE]\nkp = \"ten\"\n", "2:1", "`ten` is not a percentage"),
+        ("[temperature]\nrange = [50, 0]\n", "2:1", "the range is reversed"),
+        ("[temperature]\nrange = [20]\n", "2:1", "range must be [LO, HI]"),
+        ("[temperature]\nlow = -20\n", "2:1", "`low` is not a temperature setting"),
+        ("[transistors]\nM1 = 5\n", "1:1", "unknown section `transistors`"),
+        ("# resistors\nresistors = 5\n", "2:1", "`resistors` must be a table ([resistors])"),
+        ("[resistors\ndefault = 5\n", "1:11", "not valid TOML"),
+    ],
+)
+def test_a_bad_tolerance_file_is_refused_at_its_line(text, place, message, probe, capsys):
+    err, toml = _file_refused(probe, text, capsys)
+    assert f"{toml}:{place}: " in err, err
+    assert message in err
+
+
+def test_a_missing_tolerance_file_is_refused(probe, capsys):
+    err = _refused(["spread", str(probe), "--tolerances", str(probe.parent / "none.toml")], capsys)
+    assert "none.toml:1:1: cannot read" in err
+
+
+def test_a_plot_over_the_netlist_is_refused(probe, capsys):
+    err = _refused(["spread", str(probe), "--resistors", "5", "--plot", str(probe)], capsys)
+    assert "--plot needs a .png or .svg" in err
+    png = probe.with_suffix(".png")
+    err = _refused(["spread", str(probe), "--resistors", "5", "--plot", str(probe.parent / "no" / png.name)], capsys)
+    assert "does not exist" in err
+
+
+def test_without_ngspice_the_corners_are_not_run_and_it_is_said(probe):
+    import json
+
+    from check_support import cli_subprocess
+
+    completed = cli_subprocess(["spread", str(probe), "--vto", "0.05", "--samples", "200", "--json"],
+                               NGSPICE_LIBRARY_PATH="/nonexistent")  # fmt: skip
+    assert completed.returncode == 0, completed.stderr
+    assert "the corners are not run in ngspice" in completed.stderr
+    data = json.loads(completed.stdout)
+    assert data["devices"]["M1"]["id"]["sim_min"] is None and data["devices"]["M1"]["id"]["min"] is not None
+    assert "no-simulator" in [f["code"] for f in data["findings"]]
+
+
+def test_a_circuit_the_solver_does_not_model_is_refused_at_the_elements_line(tmp_path, capsys):
+    path = tmp_path / "bjt.cir"
+    path.write_text(PROBE.replace(".op", "Q1 sup g e QN\nRE e 0 1k\n.model QN npn\n.op"))
+    err = _refused(["spread", str(path), "--resistors", "5", "--samples", "10"], capsys)
+    assert f"{path}:8:1: the level-1 solver cannot solve this circuit: Q1: bipolar transistors" in err
+
+
+def test_a_gate_without_a_dc_path_is_refused(tmp_path, capsys):
+    path = tmp_path / "float.cir"
+    path.write_text(PROBE.replace("R1 sup g 220k\nR2 g 0 180k\n", "C1 g 0 1n\n"))
+    err = _refused(["spread", str(path), "--resistors", "5", "--samples", "10"], capsys)
+    assert "no DC path to ground from node g" in err
+
+
+def test_a_resistor_with_tc_instead_of_tc1_is_refused_at_its_line(tmp_path, capsys):
+    path = tmp_path / "tc.cir"
+    path.write_text(PROBE.replace("RS out 0 4.7k", "RS out 0 4.7k tc=0.004"))
+    err = _refused(["spread", str(path), "--resistors", "5", "--samples", "10"], capsys)
+    assert f"{path}:5:1: RS: `tc=` is not handled by spread; write tc1= and tc2=" in err
