@@ -69,15 +69,30 @@ def prepare(path: str, expectations: Expectations | None) -> Prepared | Unusable
         return Unusable.from_error(path, NetlistError(str(exc), Location(path, 1, 1)))
 
 
-def worth_a_helper(count: int) -> bool:
-    """Whether `count` files are worth a second process on this machine."""
+def worth_a_helper(count: int, *, cpus: int | None = None, load: float | None = None) -> bool:
+    """Whether `count` files are worth a second process on this machine (`cpus` and `load`, the
+    load average of the last minute, are this machine's unless given).
+
+    The helper wins wall time only on a CPU nothing else wants: the check itself keeps one busy
+    (this process and the ngspice worker take turns), and the helper costs CPU of its own (the
+    fork, pickling, a file both took). So a helper needs a CPU idle besides that one, with half a
+    CPU to spare: load < cpus - 1.5. Measured with `check --json` of the 200 bench stages on 2
+    CPUs at load 9: with the helper 2.05 s CPU and 5.3 s wall, without 1.82 s and 5.0 s (medians
+    of 4, alternating; see DEVELOPERS.md, Speed notes).
+    """
     if count < AHEAD_FROM or not hasattr(os, "fork"):
         return False
-    try:
-        cpus = len(os.sched_getaffinity(0))
-    except AttributeError:  # not on every platform
-        cpus = os.cpu_count() or 1
-    return cpus > 1
+    if cpus is None:
+        try:
+            cpus = len(os.sched_getaffinity(0))
+        except AttributeError:  # not on every platform
+            cpus = os.cpu_count() or 1
+    if load is None:
+        try:
+            load = os.getloadavg()[0]
+        except (AttributeError, OSError):  # no load average here: the CPUs alone decide
+            load = 0.0
+    return cpus > 1 and load < cpus - 1.5
 
 
 class Preparation:
