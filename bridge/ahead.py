@@ -17,9 +17,7 @@ import signal
 import threading
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
-from multiprocessing import Pipe, RawValue
-from multiprocessing.connection import Connection
-from typing import TypeVar
+from typing import TYPE_CHECKING, Any, TypeVar
 
 from .check import NotASingleStage, OwnColumns, solve_own_columns
 from .expect import check_against_circuit
@@ -27,6 +25,11 @@ from .netlist import Location, NetlistError, read_netlist
 from .netlist.circuit import Circuit
 from .netlist.parser import load_grammar
 from .vocabulary import Expectations
+
+# multiprocessing (its connections, and the shared memory behind RawValue) is imported when a
+# helper is forked: a check without one does not pay for it.
+if TYPE_CHECKING:
+    from multiprocessing.connection import Connection
 
 # Below this many files the fork (a few ms) and the pickling cost more than they save.
 AHEAD_FROM = 4
@@ -115,7 +118,7 @@ class Preparation:
         self.taken_here = 0  # files this process prepared while the helper was busy
         self._from_helper: Connection | None = None
         self._back = len(self.paths)  # from here on, the files are this process's
-        self._shared_back = RawValue("l", self._back)
+        self._shared_back: Any = None  # `_back` as the helper reads it (a RawValue), once forked
         self._kept: dict[int, Prepared | Unusable] = {}
         self._next = 0  # the index of the next item the iteration hands out
         if helper and len(self.paths) > 1:
@@ -182,7 +185,10 @@ class Preparation:
         return index, item
 
     def _fork(self) -> None:
+        from multiprocessing import Pipe, RawValue
+
         load_grammar()  # once, here, for both processes
+        self._shared_back = RawValue("l", self._back)
         receiving, sending = Pipe(duplex=False)
         pid = os.fork()
         if pid == 0:  # the helper

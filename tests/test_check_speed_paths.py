@@ -17,21 +17,26 @@ from bridge.netlist.parser import RawCard, _explain, _parser, plain_card
 from bridge.netlist.source import LogicalCard, decode_source, read_deck, read_source
 
 # A fresh process runs the command and then says, on stderr, which of rich's modules it loaded.
-_RUN_AND_LIST_RICH = (
-    "import sys; from bridge.cli import main; status = main(sys.argv[1:]); "
-    "sys.stderr.write('RICH ' + repr(sorted(m for m in sys.modules if m.split('.')[0] == 'rich')) + '\\n'); "
+_RUN_AND_LIST_MODULES = (
+    "import sys; from bridge.cli import main; package = sys.argv.pop(1); status = main(sys.argv[1:]); "
+    "sys.stderr.write('LOADED ' + repr(sorted(m for m in sys.modules if m.split('.')[0] == package)) + '\\n'); "
     "sys.exit(status)"
 )
 
 
-def _rich_modules_loaded(*arguments: str) -> tuple[list[str], str]:
+def _modules_loaded(package: str, *arguments: str) -> tuple[list[str], str]:
+    """The modules of `package` a fresh process has loaded after the command, and its stdout."""
     completed = subprocess.run(
-        [sys.executable, "-c", _RUN_AND_LIST_RICH, *arguments],
+        [sys.executable, "-c", _RUN_AND_LIST_MODULES, package, *arguments],
         capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL,
     )
     assert completed.returncode in (0, 1), completed.stderr
-    line = next(line for line in completed.stderr.splitlines() if line.startswith("RICH "))
-    return eval(line[5:]), completed.stdout  # noqa: S307 - a repr of a list of names written above
+    line = next(line for line in completed.stderr.splitlines() if line.startswith("LOADED "))
+    return eval(line[7:]), completed.stdout  # noqa: S307 - a repr of a list of names written above
+
+
+def _rich_modules_loaded(*arguments: str) -> tuple[list[str], str]:
+    return _modules_loaded("rich", *arguments)
 
 
 def test_check_json_does_not_load_rich() -> None:
@@ -44,6 +49,14 @@ def test_check_json_does_not_load_rich() -> None:
 def test_check_json_of_several_files_does_not_load_rich() -> None:
     files = [str(EXAMPLES / name) for name in ("cs_divider.cir", "pmos_cs.cir")]
     loaded, stdout = _rich_modules_loaded("check", "--json", *files)
+    assert loaded == []
+    assert len(stdout.splitlines()) == 2
+
+
+def test_a_check_without_a_helper_does_not_load_multiprocessing() -> None:
+    # Fewer files than a helper needs (ahead.AHEAD_FROM): no fork, no pipe, no shared value.
+    files = [str(EXAMPLES / name) for name in ("cs_divider.cir", "pmos_cs.cir")]
+    loaded, stdout = _modules_loaded("multiprocessing", "check", "--json", *files)
     assert loaded == []
     assert len(stdout.splitlines()) == 2
 
