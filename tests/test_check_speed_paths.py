@@ -7,6 +7,7 @@ import json
 import subprocess
 import sys
 
+import pytest
 from conftest import EXAMPLES, REPO
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -186,3 +187,57 @@ def test_plain_cards_match_the_parser_on_random_cards(first: str, fields: list[s
         return
     for card in cards:
         _same_as_the_parser(card)
+
+
+# ---- the worker reads the plot without PySpice's Plot objects: the same vectors ----------------
+
+_BOTH_READS = r"""
+import json, sys
+from bridge.sim.worker import Simulator
+simulator = Simulator(sys.argv[1])
+reads = []
+for deck in sys.argv[2:]:
+    simulator._ngspice.load_circuit(deck)
+    simulator._ngspice.run()
+    plot = simulator._ngspice.last_plot
+    reads.append([plot, simulator._read_plot_directly(plot), simulator._read_plot_through_pyspice(plot)])
+    simulator._ngspice.exec_command("remcirc")
+    simulator._ngspice.exec_command("destroy all")
+print(json.dumps(reads))
+"""
+
+# A greenhouse fan driver: an NMOS switch with a divider on its gate, `.op` and a `.dc` sweep.
+_FAN_DRIVER = """greenhouse fan driver
+VDD vdd 0 12
+VG gin 0 3
+R1 gin g 10k
+R2 g 0 47k
+RF vdd d 240
+M1 d g 0 0 fan W=400u L=2u
+.model fan nmos (vto=1.1 kp=60u lambda=0.01 gamma=0.3)
+.save all @m1[id] @m1[gm] @m1[von]
+{analysis}
+.end
+"""
+
+
+def test_the_worker_reads_the_plot_directly_as_pyspice_reads_it() -> None:
+    from bridge.sim.client import ngspice_available
+    from bridge.sim.locate import locate_ngspice
+
+    available, hint = ngspice_available()
+    if not available:
+        pytest.skip(hint)
+    decks = [_FAN_DRIVER.format(analysis=".op"), _FAN_DRIVER.format(analysis=".dc VG 0 5 0.05")]
+    completed = subprocess.run(
+        [sys.executable, "-c", _BOTH_READS, str(locate_ngspice().path), *decks],
+        capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL,
+    )
+    assert completed.returncode == 0, completed.stderr
+    (op_plot, op_direct, op_pyspice), (dc_plot, dc_direct, dc_pyspice) = json.loads(completed.stdout.splitlines()[-1])
+    assert op_plot.startswith("op") and dc_plot.startswith("dc")
+    # The same names in the same order, the same numbers to the bit (JSON keeps a float's repr).
+    assert list(op_direct.items()) == list(op_pyspice.items())
+    assert list(dc_direct.items()) == list(dc_pyspice.items())
+    assert {"d", "g", "vdd#branch", "@m1[id]", "@m1[gm]"} <= set(op_direct)
+    assert len(dc_direct["d"]) == 101 and all(len(values) == 1 for values in op_direct.values())
