@@ -20,7 +20,6 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, TypeVar
 
 from .check import NotASingleStage, OwnColumns, solve_own_columns
-from .expect import check_against_circuit
 from .netlist import Location, NetlistError, read_netlist
 from .netlist.circuit import Circuit
 from .netlist.parser import load_grammar
@@ -64,6 +63,8 @@ def prepare(path: str, expectations: Expectations | None) -> Prepared | Unusable
     try:
         circuit = read_netlist(path)
         if expectations is not None:
+            from .expect import check_against_circuit  # with its TOML reader: only for --expect
+
             check_against_circuit(expectations, set(circuit.nodes()), {e.name.lower() for e in circuit.elements})
         return Prepared(circuit, solve_own_columns(circuit))
     except NetlistError as exc:

@@ -120,11 +120,12 @@ def command_check(args: argparse.Namespace) -> int:
     if session is not None:
         session.spawn()  # ngspice starts up while the analyses are imported and the netlists read
     from .ahead import Preparation, Prepared, Unusable, next_meanwhile, worth_a_helper
-    from .expect import read_expectations
     from .netlist import NetlistError
 
     expectations = None
     if args.expect:
+        from .expect import read_expectations  # and the TOML reader with it: only for --expect
+
         try:
             expectations = read_expectations(args.expect, args.tol)
         except NetlistError as exc:

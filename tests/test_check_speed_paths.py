@@ -19,14 +19,15 @@ from bridge.netlist.source import LogicalCard, decode_source, read_deck, read_so
 
 # A fresh process runs the command and then says, on stderr, which of rich's modules it loaded.
 _RUN_AND_LIST_MODULES = (
-    "import sys; from bridge.cli import main; package = sys.argv.pop(1); status = main(sys.argv[1:]); "
-    "sys.stderr.write('LOADED ' + repr(sorted(m for m in sys.modules if m.split('.')[0] == package)) + '\\n'); "
+    "import sys; from bridge.cli import main; packages = sys.argv.pop(1).split(','); status = main(sys.argv[1:]); "
+    "sys.stderr.write('LOADED ' + repr(sorted(m for m in sys.modules if m.split('.')[0] in packages)) + '\\n'); "
     "sys.exit(status)"
 )
 
 
 def _modules_loaded(package: str, *arguments: str) -> tuple[list[str], str]:
-    """The modules of `package` a fresh process has loaded after the command, and its stdout."""
+    """The modules of `package` (a name, or names joined by commas) a fresh process has loaded
+    after the command, and its stdout."""
     completed = subprocess.run(
         [sys.executable, "-c", _RUN_AND_LIST_MODULES, package, *arguments],
         capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL,
@@ -54,10 +55,11 @@ def test_check_json_of_several_files_does_not_load_rich() -> None:
     assert len(stdout.splitlines()) == 2
 
 
-def test_a_check_without_a_helper_does_not_load_multiprocessing() -> None:
-    # Fewer files than a helper needs (ahead.AHEAD_FROM): no fork, no pipe, no shared value.
+def test_a_check_without_a_helper_or_expectations_does_not_load_their_modules() -> None:
+    # Fewer files than a helper needs (ahead.AHEAD_FROM): no fork, no pipe, no shared value; no
+    # --expect: no TOML reader.
     files = [str(EXAMPLES / name) for name in ("cs_divider.cir", "pmos_cs.cir")]
-    loaded, stdout = _modules_loaded("multiprocessing", "check", "--json", *files)
+    loaded, stdout = _modules_loaded("multiprocessing,tomllib", "check", "--json", *files)
     assert loaded == []
     assert len(stdout.splitlines()) == 2
 
