@@ -17,16 +17,18 @@ import signal
 import threading
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
-from multiprocessing import Pipe, RawValue
-from multiprocessing.connection import Connection
-from typing import TypeVar
+from typing import TYPE_CHECKING, Any, TypeVar
 
 from .check import NotASingleStage, OwnColumns, solve_own_columns
-from .expect import check_against_circuit
 from .netlist import Location, NetlistError, read_netlist
 from .netlist.circuit import Circuit
 from .netlist.parser import load_grammar
 from .vocabulary import Expectations
+
+# multiprocessing (its connections, and the shared memory behind RawValue) is imported when a
+# helper is forked: a check without one does not pay for it.
+if TYPE_CHECKING:
+    from multiprocessing.connection import Connection
 
 # Below this many files the fork (a few ms) and the pickling cost more than they save.
 AHEAD_FROM = 4
@@ -61,6 +63,8 @@ def prepare(path: str, expectations: Expectations | None) -> Prepared | Unusable
     try:
         circuit = read_netlist(path)
         if expectations is not None:
+            from .expect import check_against_circuit  # with its TOML reader: only for --expect
+
             check_against_circuit(expectations, set(circuit.nodes()), {e.name.lower() for e in circuit.elements})
         return Prepared(circuit, solve_own_columns(circuit))
     except NetlistError as exc:
@@ -69,15 +73,30 @@ def prepare(path: str, expectations: Expectations | None) -> Prepared | Unusable
         return Unusable.from_error(path, NetlistError(str(exc), Location(path, 1, 1)))
 
 
-def worth_a_helper(count: int) -> bool:
-    """Whether `count` files are worth a second process on this machine."""
+def worth_a_helper(count: int, *, cpus: int | None = None, load: float | None = None) -> bool:
+    """Whether `count` files are worth a second process on this machine (`cpus` and `load`, the
+    load average of the last minute, are this machine's unless given).
+
+    The helper wins wall time only on a CPU nothing else wants: the check itself keeps one busy
+    (this process and the ngspice worker take turns), and the helper costs CPU of its own (the
+    fork, pickling, a file both took). So a helper needs a CPU idle besides that one, with half a
+    CPU to spare: load < cpus - 1.5. Measured with `check --json` of the 200 bench stages on 2
+    CPUs at load 9: with the helper 2.05 s CPU and 5.3 s wall, without 1.82 s and 5.0 s (medians
+    of 4, alternating; see DEVELOPERS.md, Speed notes).
+    """
     if count < AHEAD_FROM or not hasattr(os, "fork"):
         return False
-    try:
-        cpus = len(os.sched_getaffinity(0))
-    except AttributeError:  # not on every platform
-        cpus = os.cpu_count() or 1
-    return cpus > 1
+    if cpus is None:
+        try:
+            cpus = len(os.sched_getaffinity(0))
+        except AttributeError:  # not on every platform
+            cpus = os.cpu_count() or 1
+    if load is None:
+        try:
+            load = os.getloadavg()[0]
+        except (AttributeError, OSError):  # no load average here: the CPUs alone decide
+            load = 0.0
+    return cpus > 1 and load < cpus - 1.5
 
 
 class Preparation:
@@ -100,7 +119,7 @@ class Preparation:
         self.taken_here = 0  # files this process prepared while the helper was busy
         self._from_helper: Connection | None = None
         self._back = len(self.paths)  # from here on, the files are this process's
-        self._shared_back = RawValue("l", self._back)
+        self._shared_back: Any = None  # `_back` as the helper reads it (a RawValue), once forked
         self._kept: dict[int, Prepared | Unusable] = {}
         self._next = 0  # the index of the next item the iteration hands out
         if helper and len(self.paths) > 1:
@@ -167,7 +186,10 @@ class Preparation:
         return index, item
 
     def _fork(self) -> None:
+        from multiprocessing import Pipe, RawValue
+
         load_grammar()  # once, here, for both processes
+        self._shared_back = RawValue("l", self._back)
         receiving, sending = Pipe(duplex=False)
         pid = os.fork()
         if pid == 0:  # the helper

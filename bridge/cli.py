@@ -121,11 +121,12 @@ def command_check(args: argparse.Namespace) -> int:
     if session is not None:
         session.spawn()  # ngspice starts up while the analyses are imported and the netlists read
     from .ahead import Preparation, Prepared, Unusable, next_meanwhile, worth_a_helper
-    from .expect import read_expectations
     from .netlist import NetlistError
 
     expectations = None
     if args.expect:
+        from .expect import read_expectations  # and the TOML reader with it: only for --expect
+
         try:
             expectations = read_expectations(args.expect, args.tol)
         except NetlistError as exc:
@@ -139,13 +140,14 @@ def command_check(args: argparse.Namespace) -> int:
     from .check import CheckQueue, PendingCheck, start_check
     from .report.check_view import check_json, check_renderable, print_check
 
-    console = _console()
+    # JSON lines are written without rich: it is not even imported (see _json_terminal).
+    console = None if args.json else _console()
     if session is None:
         print(f"biasbridge: {hint}", file=sys.stderr)
     status = EXIT_OK
-    batch = _batch_view(args, console)
+    batch = None if console is None else _batch_view(args, console)
     progress = None
-    if len(args.files) >= 2 and console.is_terminal and sys.stderr.isatty() and not args.json:
+    if console is not None and len(args.files) >= 2 and console.is_terminal and sys.stderr.isatty():
         from rich.console import Console
         from rich.progress import Progress
 
@@ -177,6 +179,7 @@ def command_check(args: argparse.Namespace) -> int:
         elif batch is not None:
             batch.row(result)
         else:
+            assert console is not None
             print_check(console, check_renderable(result, steps=args.steps, allow_region=args.allow_region))
         # A stage that does not amplify is a finding too, unless --allow-region accepts it.
         if (not result.agree or not (result.amplifies or args.allow_region)) and status == EXIT_OK:
@@ -191,7 +194,7 @@ def command_check(args: argparse.Namespace) -> int:
     # On a terminal, a result is shown as soon as it is complete: while the next netlist is read
     # and solved (a slow one, say), what ngspice has answered is reported in between. Otherwise
     # the next netlist is prepared first and the result reported after it, in the same order.
-    at_once = console.is_terminal
+    at_once = console.is_terminal if console is not None else _json_terminal()
     items = iter(prepared)
     try:
         # Started in order and reported in order; see CheckQueue for how ngspice is kept busy.
@@ -259,6 +262,23 @@ class _BatchView:
             print_check(self.console, check_renderable(result, steps=self.args.steps,
                                                        allow_region=self.args.allow_region))
         self.view.print_line(self.console, self.view.summary_line(self.verdicts, len(self.detailed)), "bold")
+
+
+def _json_terminal() -> bool:
+    """Whether JSON lines go to a terminal, decided as rich's Console.is_terminal decides it for
+    standard output (rich 15, console.py: TTY_COMPATIBLE=0 or 1 settles it, then a non-empty
+    FORCE_COLOR counts as a terminal, else isatty). Only when each line is written depends on it,
+    never what is written."""
+    compatible = os.environ.get("TTY_COMPATIBLE", "")
+    if compatible in ("0", "1"):
+        return compatible == "1"
+    force_color = os.environ.get("FORCE_COLOR")
+    if force_color is not None:
+        return force_color != ""
+    try:
+        return sys.stdout.isatty()
+    except (AttributeError, ValueError):
+        return False
 
 
 def _batch_view(args: argparse.Namespace, console: Console) -> _BatchView | None:

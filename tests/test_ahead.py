@@ -123,13 +123,25 @@ def test_the_helper_holds_none_of_the_pipes_to_the_ngspice_worker(tmp_path):
 
 
 def test_a_helper_only_pays_from_a_few_files_on():
-    assert not worth_a_helper(AHEAD_FROM - 1)
-    assert worth_a_helper(AHEAD_FROM) == (len(os.sched_getaffinity(0)) > 1)
+    assert not worth_a_helper(AHEAD_FROM - 1, cpus=8, load=0.0)
+    assert worth_a_helper(AHEAD_FROM, cpus=2, load=0.0)
+    assert not worth_a_helper(AHEAD_FROM, cpus=1, load=0.0)
+
+
+def test_a_helper_needs_a_cpu_the_machine_leaves_idle():
+    # One CPU goes to the check itself (this process and the ngspice worker in turn).
+    assert worth_a_helper(200, cpus=2, load=0.3)
+    assert not worth_a_helper(200, cpus=2, load=1.0)  # another job holds a core
+    assert not worth_a_helper(200, cpus=2, load=9.0)
+    assert worth_a_helper(200, cpus=8, load=6.0)
+    assert not worth_a_helper(200, cpus=8, load=6.5)
 
 
 @needs_library
-def test_a_many_file_check_prints_what_checking_each_file_alone_prints(tmp_path, capsys):
+def test_a_many_file_check_prints_what_checking_each_file_alone_prints(tmp_path, capsys, monkeypatch):
     paths = mixed_inputs(tmp_path)
+    # A machine with an idle CPU (whatever this one's load is now), so that the helper runs.
+    monkeypatch.setattr(os, "getloadavg", lambda: (0.0, 0.0, 0.0))
     assert worth_a_helper(len(paths)) or len(os.sched_getaffinity(0)) == 1
     alone_out, alone_err = [], []
     for path in paths:

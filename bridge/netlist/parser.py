@@ -10,17 +10,22 @@ from __future__ import annotations
 
 import functools
 import os
+import re
 from dataclasses import dataclass
 from importlib import resources
 from pathlib import Path
-
-from lark import Lark, Token, Transformer
-from lark.exceptions import UnexpectedEOF, UnexpectedInput
+from typing import TYPE_CHECKING
 
 from .errors import NetlistError
 from .expressions import Binary, Call, Expr, Literal, Reference, Unary
 from .numbers import NumberError, parse_number
 from .source import LogicalCard
+
+# lark is imported with the first card `plain_card` does not read (see the end of this module):
+# a netlist of plain cards is read without it.
+if TYPE_CHECKING:
+    from lark import Lark, Token
+    from lark.exceptions import UnexpectedInput
 
 # ---- raw cards: what one card says, before parameters and models are known ----
 
@@ -180,8 +185,12 @@ def grammar_text() -> str:
         return (Path(__file__).resolve().parents[2] / "grammar" / "spice.lark").read_text(encoding="utf-8")
 
 
-class _CardTransformer(Transformer):
-    """Tokens → values, one method per grammar rule. `card` is the card being parsed."""
+class _CardTransformer:
+    """Tokens → values, one method per grammar rule. `card` is the card being parsed.
+
+    Lark calls a parse-time transformer's methods by the rules' names (every rule has one
+    here), so this needs no base class from lark, and lark is not imported to define it.
+    """
 
     card: LogicalCard
 
@@ -272,6 +281,8 @@ class _CardTransformer(Transformer):
         return DcPart(children[-1])
 
     def source_ac(self, children: list) -> AcPart:
+        from lark import Token
+
         values = [c for c in children[1:] if c is not None and not isinstance(c, Token)]
         return AcPart(values[0] if values else None, values[1] if len(values) > 1 else None)
 
@@ -412,6 +423,8 @@ SUPPORTED_LETTERS = "RCLVIEGFHDMQX"
 @functools.lru_cache(maxsize=1)
 def _parser() -> tuple[Lark, _CardTransformer]:
     """Built once per process: LALR with the transformer applied while parsing."""
+    from lark import Lark
+
     transformer = _CardTransformer()
     parser = Lark(
         grammar_text(),
@@ -453,7 +466,12 @@ def _grammar_cache_file() -> str | None:
 
 def parse_card(card: LogicalCard) -> RawCard:
     """One logical card → its raw card, or a located NetlistError."""
+    plain = plain_card(card)
+    if plain is not None:
+        return plain
     parser, transformer = _parser()
+    from lark.exceptions import UnexpectedInput
+
     transformer.card = card
     try:
         return parser.parse(card.text)
@@ -483,6 +501,9 @@ def _open_expression(text: str) -> bool:
 
 def _explain(card: LogicalCard, exc: UnexpectedInput) -> NetlistError:
     """A lark error → a message a designer understands, at the right column."""
+    from lark import Token
+    from lark.exceptions import UnexpectedEOF
+
     key = _card_key(card)
     usage = USAGE.get(key)
     hint = f"; expected `{usage}`" if usage else ""
@@ -509,3 +530,162 @@ def _explain(card: LogicalCard, exc: UnexpectedInput) -> NetlistError:
     if in_expression or shown in {"}", ")"}:
         return card.error(f"unbalanced or malformed expression at `{shown}`", position)
     return card.error(f"unexpected `{shown}` in `{first}` card{hint}", position)
+
+
+# ---- plain cards: the usual cards read without the parser ------------------------------------
+#
+# Most cards of a stage are plain: an element or a `.model`, `.options`, `.op` or output card
+# made of fields alone (no `{expression}` or quote). `plain_card` reads those as the grammar does,
+# the same raw card the parser gives (tests/test_check_speed_paths.py compares the two over the
+# examples, the corpora and random cards), in a fraction of the time; it gives None for anything
+# else, and for any card the grammar would refuse or whose number does not read, so that the
+# parser reads it (and says what is wrong).
+
+# A field as the grammar's WORD, or one of the separators `=`, `(`, `)`, `,`.
+_PLAIN_FIELD = re.compile(r"[^\s=(),{}']+|[=(),]")
+# Space the grammar does not skip (only blanks, tabs, form and vertical feeds are), or an expression.
+_NOT_PLAIN = re.compile(r"[^\S \t\f\v]|[{}']")
+_SOURCE_KEYWORDS = frozenset({"dc", "ac"})
+_WAVEFORMS = frozenset({"sin", "pulse", "pwl", "exp", "sffm"})
+_KEYWORDS = _SOURCE_KEYWORDS | _WAVEFORMS
+_SEPARATORS = frozenset("=(),")
+_NODE_COUNTS = {"r": 2, "c": 2, "l": 2, "m": 4}
+_KEPT_CARD = re.compile(
+    r"\.(save|print|plot|probe|meas|measure|tran|ac|noise|tf|four|sens|pz|disto|width|title|csparam)", re.IGNORECASE
+)
+_OPTIONS_CARD = re.compile(r"\.opt(ion)?s?", re.IGNORECASE)
+
+
+class _NotPlain(Exception):
+    """The card is not one `plain_card` reads: the parser takes it."""
+
+
+def plain_card(card: LogicalCard) -> RawCard | None:
+    """The raw card of a plain card (see above) as ``parse_card`` gives it; None for any other."""
+    text = card.text
+    if _NOT_PLAIN.search(text):
+        return None
+    fields = [(match.group(), match.start()) for match in _PLAIN_FIELD.finditer(text)]
+    if not fields:
+        return None
+    first = fields[0][0]
+    letter = first[0].lower()
+    try:
+        if letter in _NODE_COUNTS:
+            return _plain_element(card, fields, letter)
+        if letter in "vi":
+            return _plain_source(card, fields, letter)
+        if letter != ".":
+            return None
+        keyword = first.lower()
+        if keyword == ".model":
+            return _plain_model(card, fields)
+        if keyword == ".op":
+            return RawAnalysis("op", card) if len(fields) == 1 else None
+        if _OPTIONS_CARD.fullmatch(first):
+            return RawSetting("options", card, items=_plain_items(fields, 1, _plain_number))
+        if _KEPT_CARD.fullmatch(first):
+            return RawKept(keyword, card)
+    except (_NotPlain, NumberError):
+        return None
+    return None
+
+
+def _plain_word(fields: list[tuple[str, int]], index: int) -> tuple[str, int]:
+    if index >= len(fields) or fields[index][0] in _SEPARATORS:
+        raise _NotPlain
+    return fields[index]
+
+
+def _plain_number(field: tuple[str, int]) -> Literal:
+    return Literal(parse_number(field[0]), field[1])
+
+
+def _plain_model_value(field: tuple[str, int]) -> Literal | ModelText:
+    try:
+        return Literal(parse_number(field[0]), field[1])
+    except NumberError:
+        return ModelText(field[0], field[1])
+
+
+def _plain_items(fields: list[tuple[str, int]], start: int, value_of, *, model: bool = False) -> tuple[Item, ...]:
+    """`name=value` and lone words from `fields[start:]`; in a `.model` card, parentheses and
+    commas only separate."""
+    items: list[Item] = []
+    index = start
+    while index < len(fields):
+        text, offset = fields[index]
+        if text.lower() in _KEYWORDS:
+            # Read after a value, `dc`, `ac` or a waveform's name is the source keyword (the
+            # parser's state after a value is shared with the sources'), which the card refuses.
+            raise _NotPlain
+        if text in _SEPARATORS:
+            if model and text != "=":
+                index += 1
+                continue
+            raise _NotPlain
+        if index + 1 < len(fields) and fields[index + 1][0] == "=":
+            value = _plain_word(fields, index + 2)
+            items.append(Assignment(text, value_of(value), offset))
+            index += 3
+        else:
+            items.append(Word(text, offset))
+            index += 1
+    return tuple(items)
+
+
+def _plain_element(card: LogicalCard, fields: list[tuple[str, int]], letter: str) -> RawElement:
+    name = _plain_word(fields, 0)[0]
+    count = _NODE_COUNTS[letter]
+    nodes = tuple(_plain_word(fields, index) for index in range(1, 1 + count))
+    if letter == "m":
+        model = _plain_word(fields, 1 + count)
+        return RawElement(letter, name, nodes, card, model=Word(*model),
+                          items=_plain_items(fields, 2 + count, _plain_number))
+    value = _plain_number(_plain_word(fields, 3))
+    return RawElement(letter, name, nodes, card, value=value, items=_plain_items(fields, 4, _plain_number))
+
+
+def _plain_source(card: LogicalCard, fields: list[tuple[str, int]], letter: str) -> RawElement:
+    """`Vname n+ n- [value] [DC [=] value] [AC [=] [mag [phase]]]...` (no waveform)."""
+    name = _plain_word(fields, 0)[0]
+    nodes = (_plain_word(fields, 1), _plain_word(fields, 2))
+
+    def is_value(index: int) -> bool:
+        if index >= len(fields) or fields[index][0] in _SEPARATORS:
+            return False
+        word = fields[index][0].lower()
+        if word in _WAVEFORMS:
+            raise _NotPlain
+        return word not in _SOURCE_KEYWORDS
+
+    index, value = 3, None
+    if is_value(index):
+        value = _plain_number(fields[index])
+        index += 1
+    parts: list[SourcePart] = []
+    while index < len(fields):
+        keyword = _plain_word(fields, index)[0].lower()
+        if keyword not in _SOURCE_KEYWORDS:
+            raise _NotPlain
+        index += 1
+        if index < len(fields) and fields[index][0] == "=":
+            index += 1
+        if keyword == "dc":
+            if not is_value(index):
+                raise _NotPlain
+            parts.append(DcPart(_plain_number(fields[index])))
+            index += 1
+        else:
+            values: list[Expr] = []
+            while len(values) < 2 and is_value(index):
+                values.append(_plain_number(fields[index]))
+                index += 1
+            parts.append(AcPart(values[0] if values else None, values[1] if len(values) > 1 else None))
+    return RawElement(letter, name, nodes, card, value=value, source_parts=tuple(parts))
+
+
+def _plain_model(card: LogicalCard, fields: list[tuple[str, int]]) -> RawModel:
+    name = _plain_word(fields, 1)[0]
+    type_ = _plain_word(fields, 2)
+    return RawModel(name, Word(*type_), _plain_items(fields, 3, _plain_model_value, model=True), card)

@@ -17,17 +17,16 @@ import re
 from functools import lru_cache
 from typing import TYPE_CHECKING, Any
 
-from rich import box
-from rich.cells import cell_len
-from rich.console import Console, ConsoleOptions, Group, RenderResult
-from rich.control import strip_control_codes
-from rich.measure import Measurement
-from rich.segment import Segment
-from rich.style import Style
-from rich.text import Text
-
+# rich is imported where a part is drawn or measured, not with this module: `check --json`
+# builds no view and loads no rich (a console brings rich.console, and with it the rest).
 if TYPE_CHECKING:
+    from rich import box
+    from rich.console import Console, ConsoleOptions, RenderResult
+    from rich.measure import Measurement
+    from rich.segment import Segment
+    from rich.style import Style
     from rich.table import Table as RichTable
+    from rich.text import Text
 
 Cell = tuple[str, str]  # text and style name ("" for none)
 _LAST_WORD_END = re.compile(r".*\S(?=\s)", re.DOTALL)  # up to the last word followed by space
@@ -37,6 +36,8 @@ _ONE_CELL: set[str] = set()  # characters rich measures as one cell (its measure
 
 def _simple(text: str) -> bool:
     """Text that rich's Text shows character for character: no newline, tab or control code."""
+    from rich.control import strip_control_codes
+
     return "\n" not in text and "\t" not in text and strip_control_codes(text) == text
 
 
@@ -44,6 +45,8 @@ def _single_cells(text: str) -> bool:
     """Every character one cell wide (no wide, combining or zero-width ones, no control codes)."""
     if text.isascii() and text.isprintable():
         return True
+    from rich.cells import cell_len
+
     characters = set(text)
     if all(cell_len(character) == 1 for character in characters):
         _ONE_CELL.update(characters)
@@ -112,6 +115,8 @@ def _plain_output(console: Console) -> bool:
 def _emit(console: Console, runs: list[Run]) -> list[Segment]:
     """Segments for (text, style) runs. Unstyled runs print as plain text, and in a console
     without colour (a pipe) every run does, so those are joined: the output is the same."""
+    from rich.segment import Segment
+
     plain_output = _plain_output(console)
     segments: list[Segment] = []
     pending: list[str] = []
@@ -145,6 +150,8 @@ class Part:
             yield from _emit(console, runs)
 
     def __rich_measure__(self, console: Console, options: ConsoleOptions) -> Measurement:
+        from rich.measure import Measurement
+
         return Measurement.get(console, options, self.fallback())
 
 
@@ -158,6 +165,8 @@ class Line(Part):
         self.style = style
 
     def fallback(self) -> Text:
+        from rich.text import Text
+
         return Text(self.text, style=self.style)
 
     def runs(self, console: Console, options: ConsoleOptions) -> list[Run] | None:
@@ -183,6 +192,8 @@ class Header(Part):
         self.lead, self.rest, self.second = lead, rest, second
 
     def fallback(self) -> Text:
+        from rich.text import Text
+
         return Text.assemble((self.lead, "bold"), f"{self.rest}\n", self.second)
 
     def runs(self, console: Console, options: ConsoleOptions) -> list[Run] | None:
@@ -236,6 +247,7 @@ class Table(Part):
 
     def fallback(self) -> RichTable:
         from rich.table import Table as RichTable  # only for a table wider than the console
+        from rich.text import Text
 
         table = RichTable(show_lines=False, title_justify="left")
         table.add_column(self.headers[0])
@@ -266,6 +278,8 @@ class Table(Part):
         styles: dict[str, Style | None] = {} if _plain_output(console) else {
             name: get_style(name) if name else None for name in {style for cells in rows for _, style in cells}
         }
+        from rich import box
+
         frame = box.HEAVY_HEAD.substitute(options, safe=console.safe_box)
         # Text's justification in a cell: the first column is left-justified and padded; the others
         # strip the end and pad the front.
@@ -331,6 +345,9 @@ class View:
         yield from _emit(console, runs)
 
     def __rich_measure__(self, console: Console, options: ConsoleOptions) -> Measurement:
+        from rich.console import Group
+        from rich.measure import Measurement
+
         return Measurement.get(console, options, Group(*(part.fallback() for part in self.parts)))
 
 

@@ -1,0 +1,245 @@
+"""What the speed work must not change: the paths it takes are checked for their behaviour
+(modules a run loads, the cards a parse gives, the vectors read), never for their timing."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import pytest
+from conftest import EXAMPLES, REPO
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from lark.exceptions import UnexpectedInput
+
+from bridge.netlist import NetlistError
+from bridge.netlist.parser import RawCard, _explain, _parser, plain_card
+from bridge.netlist.source import LogicalCard, decode_source, read_deck, read_source
+
+# A fresh process runs the command and then says, on stderr, which of rich's modules it loaded.
+_RUN_AND_LIST_MODULES = (
+    "import sys; from bridge.cli import main; packages = sys.argv.pop(1).split(','); status = main(sys.argv[1:]); "
+    "sys.stderr.write('LOADED ' + repr(sorted(m for m in sys.modules if m.split('.')[0] in packages)) + '\\n'); "
+    "sys.exit(status)"
+)
+
+
+def _modules_loaded(package: str, *arguments: str) -> tuple[list[str], str]:
+    """The modules of `package` (a name, or names joined by commas) a fresh process has loaded
+    after the command, and its stdout."""
+    completed = subprocess.run(
+        [sys.executable, "-c", _RUN_AND_LIST_MODULES, package, *arguments],
+        capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL,
+    )
+    assert completed.returncode in (0, 1), completed.stderr
+    line = next(line for line in completed.stderr.splitlines() if line.startswith("LOADED "))
+    return eval(line[7:]), completed.stdout  # noqa: S307 - a repr of a list of names written above
+
+
+def _rich_modules_loaded(*arguments: str) -> tuple[list[str], str]:
+    return _modules_loaded("rich", *arguments)
+
+
+def test_check_json_does_not_load_rich() -> None:
+    loaded, stdout = _rich_modules_loaded("check", "--json", str(EXAMPLES / "cs_divider.cir"))
+    assert loaded == []
+    result = json.loads(stdout)
+    assert "M1" in json.dumps(result)
+
+
+def test_check_json_of_several_files_does_not_load_rich() -> None:
+    files = [str(EXAMPLES / name) for name in ("cs_divider.cir", "pmos_cs.cir")]
+    loaded, stdout = _rich_modules_loaded("check", "--json", *files)
+    assert loaded == []
+    assert len(stdout.splitlines()) == 2
+
+
+def test_a_check_without_a_helper_or_expectations_does_not_load_their_modules() -> None:
+    # Fewer files than a helper needs (ahead.AHEAD_FROM): no fork, no pipe, no shared value; no
+    # --expect: no TOML reader.
+    files = [str(EXAMPLES / name) for name in ("cs_divider.cir", "pmos_cs.cir")]
+    loaded, stdout = _modules_loaded("multiprocessing,tomllib", "check", "--json", *files)
+    assert loaded == []
+    assert len(stdout.splitlines()) == 2
+
+
+def test_check_text_still_draws_with_rich() -> None:
+    # The table needs rich's console: the path above is not rich-free by accident.
+    loaded, stdout = _rich_modules_loaded("check", str(EXAMPLES / "cs_divider.cir"))
+    assert "rich.console" in loaded
+    assert "M1" in stdout
+
+
+# ---- plain cards: read without the parser, the same raw cards ------------------------------
+
+_READ_AND_LIST_LARK = (
+    "import sys; from bridge.netlist import read_netlist; c = read_netlist(sys.argv[1]); "
+    "print(sorted(e.name for e in c.elements), 'lark' in sys.modules)"
+)
+
+
+def _read_in_fresh_process(name: str) -> tuple[str, bool]:
+    completed = subprocess.run([sys.executable, "-c", _READ_AND_LIST_LARK, str(EXAMPLES / name)],
+                               capture_output=True, text=True, timeout=60, check=True)
+    names, loaded = completed.stdout.rsplit(" ", 1)
+    return names, loaded.strip() == "True"
+
+
+def test_a_netlist_of_plain_cards_is_read_without_lark() -> None:
+    names, loaded = _read_in_fresh_process("cs_divider.cir")
+    assert "'M1'" in names and not loaded
+
+
+def test_an_expression_card_brings_the_parser() -> None:
+    names, loaded = _read_in_fresh_process("bench_session.cir")
+    assert "'RD'" in names and loaded
+
+CORPORA = (EXAMPLES, REPO / "tests" / "batch_corpus", REPO / "tests" / "lint_corpus")
+
+
+def _cards(text: str, name: str = "plain.cir") -> list[LogicalCard]:
+    return list(read_deck(decode_source(text.encode("utf-8"), name)).cards)
+
+
+def _by_the_parser(card: LogicalCard) -> RawCard | NetlistError:
+    parser, transformer = _parser()
+    transformer.card = card
+    try:
+        return parser.parse(card.text)
+    except UnexpectedInput as exc:
+        return _explain(card, exc)
+    except NetlistError as exc:  # a number that does not read
+        return exc
+
+
+def _same_as_the_parser(card: LogicalCard) -> bool:
+    """Whether `plain_card` reads `card` (True) or leaves it to the parser (False); asserts that
+    what it reads is what the parser gives."""
+    plain = plain_card(card)
+    if plain is None:
+        return False
+    assert plain == _by_the_parser(card), card.text
+    return True
+
+
+def test_plain_cards_are_the_parser_cards_over_the_examples_and_corpora() -> None:
+    read = total = 0
+    for folder in CORPORA:
+        for path in sorted(folder.rglob("*.cir")):
+            try:
+                cards = list(read_deck(read_source(path), path).cards)
+            except NetlistError:
+                continue
+            for card in cards:
+                total += 1
+                read += _same_as_the_parser(card)
+    # Most cards of a stage are plain: the fast reading is taken, not just allowed.
+    assert total > 300 and read > total / 2, (read, total)
+
+
+def test_plain_cards_of_each_kind() -> None:
+    text = """plain kinds
+R1 a b 4.7k tc1=1m
+Cload out 0 10p
+L1 x y 1u
+M1 d g 0 0 nch W=20u L=2u M=2 off
+V1 in 0 DC 1.2 AC 1
+Vdd vdd 0 5
+I1 0 x dc=1m ac = 1 90
+.model nch nmos (vto=0.7, kp=120u lambda=0.02 version=3.3.0)
+.options reltol=1e-4 noacct
+.op
+.save all @m1[id]
+"""
+    cards = _cards(text)
+    assert [_same_as_the_parser(card) for card in cards] == [True] * len(cards)
+
+
+def test_cards_the_parser_must_read_or_refuse_are_left_to_it() -> None:
+    text = """left to the parser
+R1 a b {2*rl}
+R2 a b k1
+V1 in 0 SIN(0 1 1k)
+V2 in 0 DC
+M1 d g s nch
+.model nch nmos (vto=)
+.op now
+.param x=1
+.dc V1 0 5 0.1
+R3 a b 1k =
+"""
+    assert [plain_card(card) for card in _cards(text)] == [None] * 10
+
+
+_FIRST = st.sampled_from(["R1", "c2", "L3", "M1", "mx", "V1", "i2", "Vdd", ".model", ".MODEL", ".op", ".OP",
+                          ".options", ".opt", ".option", ".optionss", ".save", ".print", ".tran", ".ac", ".dc",
+                          ".param", "E1", "D1", "X1", "q1", "*"])
+_FIELD = st.sampled_from(["a", "0", "1k", "2.5", "-3", "dc", "DC", "ac", "Ac", "sin", "pulse", "=", "(", ")", ",",
+                          "w", "1e-3", "x1", "nmos", "vto", "3.3.0", "{1}", "'2'", "1meg", "5mil", "1q", "µ",
+                          "\t", "(vto", "=1", "1,", "nch)", "$", ";", "+"])
+
+
+@given(_FIRST, st.lists(_FIELD, max_size=10))
+@settings(max_examples=400, derandomize=True, database=None, deadline=None)
+def test_plain_cards_match_the_parser_on_random_cards(first: str, fields: list[str]) -> None:
+    try:
+        cards = _cards(f"random card\n{' '.join([first, *fields])}\n")
+    except NetlistError:
+        return
+    for card in cards:
+        _same_as_the_parser(card)
+
+
+# ---- the worker reads the plot without PySpice's Plot objects: the same vectors ----------------
+
+_BOTH_READS = r"""
+import json, sys
+from bridge.sim.worker import Simulator
+simulator = Simulator(sys.argv[1])
+reads = []
+for deck in sys.argv[2:]:
+    simulator._ngspice.load_circuit(deck)
+    simulator._ngspice.run()
+    plot = simulator._ngspice.last_plot
+    reads.append([plot, simulator._read_plot_directly(plot), simulator._read_plot_through_pyspice(plot)])
+    simulator._ngspice.exec_command("remcirc")
+    simulator._ngspice.exec_command("destroy all")
+print(json.dumps(reads))
+"""
+
+# A greenhouse fan driver: an NMOS switch with a divider on its gate, `.op` and a `.dc` sweep.
+_FAN_DRIVER = """greenhouse fan driver
+VDD vdd 0 12
+VG gin 0 3
+R1 gin g 10k
+R2 g 0 47k
+RF vdd d 240
+M1 d g 0 0 fan W=400u L=2u
+.model fan nmos (vto=1.1 kp=60u lambda=0.01 gamma=0.3)
+.save all @m1[id] @m1[gm] @m1[von]
+{analysis}
+.end
+"""
+
+
+def test_the_worker_reads_the_plot_directly_as_pyspice_reads_it() -> None:
+    from bridge.sim.client import ngspice_available
+    from bridge.sim.locate import locate_ngspice
+
+    available, hint = ngspice_available()
+    if not available:
+        pytest.skip(hint)
+    decks = [_FAN_DRIVER.format(analysis=".op"), _FAN_DRIVER.format(analysis=".dc VG 0 5 0.05")]
+    completed = subprocess.run(
+        [sys.executable, "-c", _BOTH_READS, str(locate_ngspice().path), *decks],
+        capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL,
+    )
+    assert completed.returncode == 0, completed.stderr
+    (op_plot, op_direct, op_pyspice), (dc_plot, dc_direct, dc_pyspice) = json.loads(completed.stdout.splitlines()[-1])
+    assert op_plot.startswith("op") and dc_plot.startswith("dc")
+    # The same names in the same order, the same numbers to the bit (JSON keeps a float's repr).
+    assert list(op_direct.items()) == list(op_pyspice.items())
+    assert list(dc_direct.items()) == list(dc_pyspice.items())
+    assert {"d", "g", "vdd#branch", "@m1[id]", "@m1[gm]"} <= set(op_direct)
+    assert len(dc_direct["d"]) == 101 and all(len(values) == 1 for values in op_direct.values())
