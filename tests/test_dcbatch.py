@@ -399,3 +399,14 @@ def test_evaluate_arrays_takes_model_values_per_point() -> None:
         point = evaluate(one, geometry, vd[k], vg[k], vs[k], vb[k])
         assert arrays.drain_current[k] == pytest.approx(point.drain_current, rel=1e-12, abs=1e-18)
         assert arrays.gm[k] == pytest.approx(point.gm, rel=1e-12, abs=1e-18)
+
+
+def test_rows_with_resistors_far_from_the_cards_values_still_match() -> None:
+    # Resistances over twelve decades (a row's elimination pivots then differ from the circuit's
+    # own): every row still lands on the scalar solver's operating point, by the batch or not.
+    circuit = parse_netlist(GREENHOUSE_PMOS, "pmos.cir")
+    rs = np.array([1e-2, 1.0, 2.2e3, 1e6, 1e10])
+    rl = np.array([1e10, 6.8e3, 1e-2, 1.0, 1e6])
+    batch = solve_dc_batch(circuit, BatchValues(5, resistors={"rs": rs, "rl": rl}))
+    circuits = [with_values(circuit, {"rs": float(rs[k]), "rl": float(rl[k])}) for k in range(5)]
+    _assert_rows_match(batch, circuits)
