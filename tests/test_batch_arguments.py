@@ -120,3 +120,9 @@ def test_a_simulator_timeout_beyond_a_day_or_not_a_number_is_refused(verb, secon
     assert status == 2
     expected = "is not a number of seconds" if seconds == "nan" else "the timeout must be at most 86400 seconds"
     assert expected in err and "Traceback" not in err
+
+
+def test_random_spread_option_lists_end_in_exit_0_1_or_2_without_a_traceback(workspace, capsys):
+    """`spread`: its options from the parser (tolerances, --temp, --samples, --tolerances, --plot...),
+    ngspice started for each example that gets that far."""
+    _fuzz("spread", 40, capsys)

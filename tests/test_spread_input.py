@@ -174,3 +174,56 @@ def test_a_resistor_with_tc_instead_of_tc1_is_refused_at_its_line(tmp_path, caps
     path.write_text(PROBE.replace("RS out 0 4.7k", "RS out 0 4.7k tc=0.004"))
     err = _refused(["spread", str(path), "--resistors", "5", "--samples", "10"], capsys)
     assert f"{path}:5:1: RS: `tc=` is not handled by spread; write tc1= and tc2=" in err
+
+
+def _refused_json(argv: list[str], capsys) -> dict:
+    import json
+
+    status = main([*argv, "--json"])
+    captured = capsys.readouterr()
+    assert status == 2 and "Traceback" not in captured.err and captured.err
+    (line,) = captured.out.splitlines()
+    return json.loads(line)
+
+
+def test_with_json_an_unreadable_netlist_prints_the_error_object_check_and_sweep_print(tmp_path, capsys):
+    path = tmp_path / "bad.cir"
+    path.write_text("Broken stage\nM1 d g\n.end\n")
+    data = _refused_json(["spread", str(path), "--resistors", "5"], capsys)
+    assert data["file"] == str(path)
+    assert data["error"]["file"] == str(path) and data["error"]["line"] == 2 and data["error"]["column"] == 7
+    assert data["error"]["message"].startswith("incomplete `M1` card")
+
+
+def test_with_json_a_bad_tolerance_file_is_located_in_the_error_object(probe, capsys):
+    toml = probe.parent / "tol.toml"
+    toml.write_text("[resistors]\nRX = 5\n")
+    data = _refused_json(["spread", str(probe), "--tolerances", str(toml)], capsys)
+    assert data["error"] == {"message": "the circuit has no resistor `RX`", "file": str(toml), "line": 2, "column": 1}
+
+
+@pytest.mark.parametrize(
+    ("options", "message"),
+    [
+        (["--resistors", "-5"], "--resistors -5: a tolerance must not be negative"),
+        (["--samples", "0"], "--samples 0: at least one sample"),
+        ([], "nothing to vary"),
+    ],
+)
+def test_with_json_a_bad_option_prints_an_error_object_without_a_place(options, message, probe, capsys):
+    data = _refused_json(["spread", str(probe), *options], capsys)
+    assert data["file"] == str(probe) and data["error"]["message"].startswith(message)
+    assert (data["error"]["file"], data["error"]["line"], data["error"]["column"]) == (None, None, None)
+
+
+def test_with_json_a_circuit_the_solver_cannot_solve_is_located_at_the_element(tmp_path, capsys):
+    path = tmp_path / "bjt.cir"
+    path.write_text(PROBE.replace(".op", "Q1 sup g e QN\nRE e 0 1k\n.model QN npn\n.op"))
+    data = _refused_json(["spread", str(path), "--resistors", "5", "--samples", "10"], capsys)
+    assert (data["error"]["file"], data["error"]["line"], data["error"]["column"]) == (str(path), 8, 1)
+    assert data["error"]["message"].startswith("the level-1 solver cannot solve this circuit: Q1")
+    without = PROBE.replace("M1 sup g out 0 NPROBE W=40u L=4u\n", "")
+    (tmp_path / "none.cir").write_text(without)
+    data = _refused_json(["spread", str(tmp_path / "none.cir"), "--resistors", "5"], capsys)
+    assert data["error"]["file"] == str(tmp_path / "none.cir") and data["error"]["line"] is None
+    assert data["error"]["message"] == "the netlist has no MOSFET: spread follows a MOSFET stage's bias"
