@@ -398,6 +398,7 @@ def spread(
 ) -> SpreadResult:
     """Corners and Monte Carlo of `circuit` over `bands` (see the module's docstring)."""
     bands = tuple(bands)
+    refuse_unusable_temperatures(circuit, bands)
     k = len(bands)
     oat = one_at_a_time(bands)
     if k <= full_corner_limit:
@@ -635,3 +636,42 @@ def unmoved_nodes(result: SpreadResult) -> tuple[str, ...]:
         if _same(every, float(values[0]), _scale(every)):
             unmoved.append(node)
     return tuple(unmoved)
+
+
+
+def refuse_unusable_temperatures(circuit: Circuit, bands: Sequence[Band]) -> None:
+    """Raise ValueError when the temperature band reaches a device temperature where a MOSFET's
+    card has PHI(T) ≤ 0 under ngspice's level-1 temperature rules (mos1temp.c, as
+    ``at_temperature``): there the card means nothing and every row would be unsolved. The message
+    names the device, the end, PHI there, and the part of the range where the card holds (on a
+    grid of 4001 temperatures)."""
+    from ..devices.mos1.model import Level1Model
+    from ..devices.mos1.params import CELSIUS_TO_KELVIN
+    from ..devices.mos1.temperature import at_temperature_arrays, temperature_values
+
+    band = next((b for b in bands if b.kind == "temperature"), None)
+    if band is None:
+        return
+    grid = np.linspace(band.low, band.high, 4001)
+    for element in circuit.elements_of("mosfet"):
+        card = circuit.model(element.model or "")
+        if card is None or isinstance(element.params.get("temp"), (int, float)):
+            continue  # an instance TEMP is not moved by the circuit's temperature
+        offset = element.params.get("dtemp", 0.0)
+        offset = float(offset) if isinstance(offset, (int, float)) else 0.0
+        model = Level1Model.from_card(card.type, card.params, circuit.nominal_temperature())
+        usable = np.isfinite(np.asarray(at_temperature_arrays(model, grid + offset).phi, dtype=float))
+        if usable.all():
+            continue
+        end = (band.high if not usable[-1] else band.low) + offset
+        kelvin, tnom = end + CELSIUS_TO_KELVIN, model.tnom_celsius + CELSIUS_TO_KELVIN
+        _, phi, _ = temperature_values(model.kp, model.phi, model.vto, model.gamma, model.polarity, tnom, kelvin, math)
+        inside = (math.ceil(grid[usable].min() * 10.0) / 10.0, math.floor(grid[usable].max() * 10.0) / 10.0) if \
+            usable.any() else (0.0, 0.0)  # fmt: skip
+        holds = (f"; it holds from {inside[0]:.1f} to {inside[1]:.1f} °C of the range"
+                 if usable.any() else "; it holds nowhere in the range")  # fmt: skip
+        raise ValueError(
+            f"{element.name} (model {card.name}, line {card.origin.line}): PHI at {end:g} °C comes out as "
+            f"{phi:.4g} V (ngspice's level-1 temperature rules from PHI = {model.phi:g} V at TNOM = "
+            f"{model.tnom_celsius:g} °C); it must be positive{holds}"
+        )
