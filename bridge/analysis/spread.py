@@ -443,7 +443,7 @@ def spread(
             with_margin &= saturated & (sampled.margins[name] >= margin_threshold)
     sensitivity = {}
     for name, ids in solution.ids.items():
-        rows = [Sensitivity(band.label, float(ids[1 + 2 * j]), float(ids[2 + 2 * j])) for j, band in enumerate(bands)]
+        rows = [_sensitivity(band.label, float(ids[1 + 2 * j]), float(ids[2 + 2 * j])) for j, band in enumerate(bands)]
         rows.sort(key=lambda s: -abs(s.delta) if math.isfinite(s.delta) else 0.0)
         sensitivity[name] = tuple(rows)
     result = SpreadResult(
@@ -675,3 +675,12 @@ def refuse_unusable_temperatures(circuit: Circuit, bands: Sequence[Band]) -> Non
             f"{phi:.4g} V (ngspice's level-1 temperature rules from PHI = {model.phi:g} V at TNOM = "
             f"{model.tnom_celsius:g} °C); it must be positive{holds}"
         )
+
+
+def _sensitivity(label: str, low: float, high: float) -> Sensitivity:
+    """One band's effect on a drain current, where both ends give the same current within
+    SAME_RELATIVE (a solver's last digits, not an effect: a resistor beyond a gate) as exactly none."""
+    if math.isfinite(low) and math.isfinite(high) and abs(high - low) <= SAME_RELATIVE * max(abs(low), abs(high)) \
+            + SAME_FLOOR:  # fmt: skip
+        high = low
+    return Sensitivity(label, low, high)

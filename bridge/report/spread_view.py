@@ -191,8 +191,8 @@ def spread_renderable(file: str, result: SpreadResult, check: CornerCheck | None
             unit = "1/V"
         elif band.parameter == "vto":
             unit = "V"
-        shown = [f"{v:g} °C" if band.kind == "temperature" else engineering(v, unit)
-                 for v in (band.nominal, band.low, band.high)]  # fmt: skip
+        shown = [f"{v:g} °C" if band.kind == "temperature" else f"{v:.4g} 1/V" if unit == "1/V" else
+                 engineering(v, unit) for v in (band.nominal, band.low, band.high)]  # fmt: skip
         bands.add_row(band.label, shown[0], band.text, shown[1], shown[2])
     parts += [bands, Text("")]
     table = Table(box=None, pad_edge=False, show_edge=False, title="corners (level-1, and ngspice at the same corner)",
