@@ -151,6 +151,8 @@ def test_nodes_that_never_move_are_left_out_of_the_text_and_kept_in_the_json(son
     _, out = _run(["spread", str(sonde), *LEAD, "--supplies", "5"], capsys)
     assert any(re.match(r"V\(vdd\)\s{2,}", line) for line in out.splitlines())
     assert "3 nodes left out" in " ".join(line.strip() for line in out.splitlines())
+    # The supply's node is at its extremes whatever the other tolerances do: named by VDD alone.
+    assert _corner_lines(out)["V(vdd)"] == "V(vdd): min at VDD −5 %; max at VDD +5 %"
 
 
 # The radiosonde's pressure-bridge pair: two NMOS from one lot (one card), M2's gate on M1's drain.

@@ -579,12 +579,14 @@ def named_corner(result: SpreadResult, values: np.ndarray, row: int, free: Seque
     ends = result.corners.ends
     assert ends is not None
     scale = _scale(values)
+    cube = corner_cube(result, values)
+    if np.any(ends[row] == 0) and cube is not None:
+        row = _corner_alike(result, values, row, scale)
     if np.any(ends[row] == 0):
         if _same(values[row:row + 1], float(values[0]), scale):
             return "nominal"
         return result.corner_names[row]
     left_out = np.array([b.label in free for b in bands])
-    cube = corner_cube(result, values)
     if cube is not None:
         index = tuple(int(e > 0) for e in ends[row])
         reference = float(values[row])
@@ -684,3 +686,19 @@ def _sensitivity(label: str, low: float, high: float) -> Sensitivity:
             + SAME_FLOOR:  # fmt: skip
         high = low
     return Sensitivity(label, low, high)
+
+
+def _corner_alike(result: SpreadResult, values: np.ndarray, row: int, scale: float) -> int:
+    """For a one-at-a-time point (or the nominal one) that gives an extreme, the first corner with
+    the same bands at the same ends that gives the same value (within SAME_RELATIVE), or `row`
+    when there is none: a supply's node is at its extreme whatever the other tolerances do, and
+    is then named by the corner."""
+    ends = result.corners.ends
+    assert ends is not None
+    first = 1 + 2 * len(result.bands)
+    fixed = ends[row] != 0
+    agree = np.all(ends[first:][:, fixed] == ends[row][fixed], axis=1)
+    with np.errstate(invalid="ignore"):
+        alike = agree & (np.abs(values[first:] - values[row]) <= SAME_RELATIVE * scale + SAME_FLOOR)
+    found = np.flatnonzero(alike)
+    return int(found[0]) + first if found.size else row
