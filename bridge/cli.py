@@ -771,8 +771,14 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
     from .commands import spread_defaults as defaults
     from .netlist import NetlistError, read_netlist
 
-    def refuse(message: str) -> int:
-        print(f"biasbridge: error: {message}", file=sys.stderr)
+    def refuse(message: str, file: str | None = None, line: int | None = None) -> int:
+        """Unusable input: the message on stderr (after `FILE:` or `FILE:LINE:1:` when given) and,
+        with --json, the error object `check` and `sweep` print (null where there is no place)."""
+        place = file if line is None else f"{file}:{line}:1"
+        print(f"biasbridge: error: {place + ': ' if place else ''}{message}", file=sys.stderr)
+        if args.json:
+            error = {"message": message, "file": file, "line": line, "column": None if line is None else 1}
+            sys.stdout.write(json.dumps({"file": args.file, "error": error}) + "\n")
         return EXIT_INPUT
 
     try:
@@ -804,11 +810,13 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
             _check_output_path(args.plot, inputs, "--plot")
         refusal = defaults.refusal(circuit)
         if refusal is not None:
-            return refuse(f"{args.file}: {refusal}")
+            return refuse(refusal, args.file)
         tolerances = defaults.merged(command_line, file)
         bands = defaults.bands(circuit, tolerances)
     except NetlistError as exc:
         print(exc.render(), file=sys.stderr)
+        if args.json:
+            sys.stdout.write(json.dumps(unusable_json(args.file, exc.message, exc.location)) + "\n")
         return EXIT_INPUT
     except ValueError as exc:
         return refuse(str(exc))
@@ -824,11 +832,13 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
         result = spread(circuit, bands, samples=count, seed=seed, distribution=args.dist,
                         margin_threshold=LintSettings().saturation_margin)  # fmt: skip
     except ValueError as exc:  # the temperature phase refusing a card (PHI ≤ 0 at an end, say)
-        return refuse(f"{args.file}: {exc}")
+        return refuse(str(exc), args.file)
     except DcSolveError as exc:  # an element the solver does not model, a node without a DC path, ...
         element = circuit.element(getattr(exc, "element", None) or "")
-        place = f"{element.origin.file or args.file}:{element.origin.line}:1" if element is not None else args.file
-        return refuse(f"{place}: the level-1 solver cannot solve this circuit: {exc}")
+        message = f"the level-1 solver cannot solve this circuit: {exc}"
+        if element is None:
+            return refuse(message, args.file)
+        return refuse(message, element.origin.file or args.file, element.origin.line)
     check = None
     if session is not None:
         from .sim.corners import prove_corners

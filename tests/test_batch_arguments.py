@@ -120,3 +120,45 @@ def test_a_simulator_timeout_beyond_a_day_or_not_a_number_is_refused(verb, secon
     assert status == 2
     expected = "is not a number of seconds" if seconds == "nan" else "the timeout must be at most 86400 seconds"
     assert expected in err and "Traceback" not in err
+
+
+# spread's values: most option lists of the shared fuzz stop at the parser, so spread also gets lists
+# built to reach the solver: a netlist first, then options with values of the kinds spread reads.
+SPREAD_VALUES = ("5", "10%", "0", "100", "99.9", "-5", "1e400", "nan", "50m", "0.2", "-40:125", "125:-40", "20:20",
+                 "-300:20", "-1e3:1e3", "1:2:3", "spread.toml", "junk.toml", "targets.toml", "out.svg", "uniform",
+                 "normal", "1", "7")  # fmt: skip
+SPREAD_TOLERANCES = "[resistors]\ndefault = 5\n[models.NHIVE]\nvto = \"50m\"\n[temperature]\nrange = [-40, 125]\n"
+
+
+def _spread_lists() -> st.SearchStrategy[list[str]]:
+    options = [o for o in _verb_options("spread") if o[0] != "--samples"]
+    option = st.sampled_from(options).flatmap(
+        lambda o: st.sampled_from(SPREAD_VALUES).map(lambda v: [o[0], v]) if o[1] else st.just([o[0]])
+    )
+    samples = st.sampled_from(("1", "40", "0", "x")).map(lambda v: ["--samples", v])
+    pieces = st.lists(option, min_size=1, max_size=5).map(lambda parts: sum(parts, []))
+    return st.tuples(st.sampled_from(NETLISTS[:3]), pieces, samples).map(lambda t: ["spread", t[0], *t[1], *t[2]])
+
+
+def test_random_spread_option_lists_end_in_exit_0_1_or_2_without_a_traceback(workspace, capsys):
+    """`spread`: the shared fuzz (its options from the parser), then option lists that reach the
+    solver and ngspice's corner check (started for each example that gets that far)."""
+    _fuzz("spread", 30, capsys)
+    (workspace / "spread.toml").write_text(SPREAD_TOLERANCES)
+    statuses = []
+
+    @settings(max_examples=25, derandomize=True, database=None, deadline=None,
+              suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
+    @given(_spread_lists())
+    def run(argv: list[str]) -> None:
+        try:
+            status = main(argv)
+        except SystemExit as exc:
+            status = exc.code if isinstance(exc.code, int) else 2
+        captured = capsys.readouterr()
+        assert status in (0, 1, 2), (argv, status, captured.err[-2000:])
+        assert "Traceback" not in captured.err, (argv, captured.err[-2000:])
+        statuses.append(status)
+
+    run()
+    assert {0, 1} & set(statuses)  # some lists were solved, not all refused

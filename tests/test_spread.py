@@ -206,9 +206,12 @@ def test_the_same_seed_gives_the_same_bytes_and_another_seed_other_numbers(tmp_p
     assert data["devices"]["M1"]["id"]["mean"] != other["devices"]["M1"]["id"]["mean"]
     # The corners do not depend on the seed.
     assert data["devices"]["M1"]["id"]["min"] == other["devices"]["M1"]["id"]["min"]
-    assert list(data) == ["file", "samples", "seed", "devices", "nodes", "yield", "sensitivity", "findings"]
+    # The keys first, in its order; what was added since after them.
+    assert list(data) == ["file", "samples", "seed", "devices", "nodes", "yield", "sensitivity", "findings",
+                          "no_dc_effect"]  # fmt: skip
     assert list(data["devices"]["M1"]["id"]) == ["nominal", "min", "max", "min_corner", "max_corner", "sim_min",
-                                                 "sim_max", "mean", "std", "p0.1", "p99.9"]  # fmt: skip
+                                                 "sim_max", "mean", "std", "p0.1", "p99.9", "min_corner_ends",
+                                                 "max_corner_ends"]  # fmt: skip
 
 
 def test_normal_draws_read_the_band_as_three_sigma_and_stay_inside_it(tmp_path):

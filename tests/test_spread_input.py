@@ -7,6 +7,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
+from conftest import needs_ngspice
 
 from bridge.cli import main
 
@@ -174,3 +175,110 @@ def test_a_resistor_with_tc_instead_of_tc1_is_refused_at_its_line(tmp_path, caps
     path.write_text(PROBE.replace("RS out 0 4.7k", "RS out 0 4.7k tc=0.004"))
     err = _refused(["spread", str(path), "--resistors", "5", "--samples", "10"], capsys)
     assert f"{path}:5:1: RS: `tc=` is not handled by spread; write tc1= and tc2=" in err
+
+
+def _refused_json(argv: list[str], capsys) -> dict:
+    import json
+
+    status = main([*argv, "--json"])
+    captured = capsys.readouterr()
+    assert status == 2 and "Traceback" not in captured.err and captured.err
+    (line,) = captured.out.splitlines()
+    return json.loads(line)
+
+
+def test_with_json_an_unreadable_netlist_prints_the_error_object_check_and_sweep_print(tmp_path, capsys):
+    path = tmp_path / "bad.cir"
+    path.write_text("Broken stage\nM1 d g\n.end\n")
+    data = _refused_json(["spread", str(path), "--resistors", "5"], capsys)
+    assert data["file"] == str(path)
+    assert data["error"]["file"] == str(path) and data["error"]["line"] == 2 and data["error"]["column"] == 7
+    assert data["error"]["message"].startswith("incomplete `M1` card")
+
+
+def test_with_json_a_bad_tolerance_file_is_located_in_the_error_object(probe, capsys):
+    toml = probe.parent / "tol.toml"
+    toml.write_text("[resistors]\nRX = 5\n")
+    data = _refused_json(["spread", str(probe), "--tolerances", str(toml)], capsys)
+    assert data["error"] == {"message": "the circuit has no resistor `RX`", "file": str(toml), "line": 2, "column": 1}
+
+
+@pytest.mark.parametrize(
+    ("options", "message"),
+    [
+        (["--resistors", "-5"], "--resistors -5: a tolerance must not be negative"),
+        (["--samples", "0"], "--samples 0: at least one sample"),
+        ([], "nothing to vary"),
+    ],
+)
+def test_with_json_a_bad_option_prints_an_error_object_without_a_place(options, message, probe, capsys):
+    data = _refused_json(["spread", str(probe), *options], capsys)
+    assert data["file"] == str(probe) and data["error"]["message"].startswith(message)
+    assert (data["error"]["file"], data["error"]["line"], data["error"]["column"]) == (None, None, None)
+
+
+def test_with_json_a_circuit_the_solver_cannot_solve_is_located_at_the_element(tmp_path, capsys):
+    path = tmp_path / "bjt.cir"
+    path.write_text(PROBE.replace(".op", "Q1 sup g e QN\nRE e 0 1k\n.model QN npn\n.op"))
+    data = _refused_json(["spread", str(path), "--resistors", "5", "--samples", "10"], capsys)
+    assert (data["error"]["file"], data["error"]["line"], data["error"]["column"]) == (str(path), 8, 1)
+    assert data["error"]["message"].startswith("the level-1 solver cannot solve this circuit: Q1")
+    without = PROBE.replace("M1 sup g out 0 NPROBE W=40u L=4u\n", "")
+    (tmp_path / "none.cir").write_text(without)
+    data = _refused_json(["spread", str(tmp_path / "none.cir"), "--resistors", "5"], capsys)
+    assert data["error"]["file"] == str(tmp_path / "none.cir") and data["error"]["line"] is None
+    assert data["error"]["message"] == "the netlist has no MOSFET: spread follows a MOSFET stage's bias"
+
+
+# A radiosonde thermistor buffer whose card has a tiny PHI: ngspice's level-1 temperature rules
+# take PHI(T) below zero a little above 39 °C.
+TINY_PHI = """Radiosonde thermistor buffer: NMOS source follower, a card with a tiny PHI
+VDD vdd 0 DC 5
+R1 vdd g 330k
+R2 g 0 270k
+RS s 0 10k
+M1 vdd g s 0 NSONDE W=30u L=3u
+.model NSONDE nmos (level=1 vto=0.7 kp=70u lambda=0.01 gamma=0.6 phi=0.05)
+.op
+.end
+"""
+
+
+def test_a_temperature_range_where_phi_goes_below_zero_is_refused_with_where_the_card_holds(tmp_path, capsys):
+    # Before, the rows above ~39 °C were left unsolved ("no level-1 solution", exit 1).
+    path = tmp_path / "tiny_phi.cir"
+    path.write_text(TINY_PHI)
+    err = _refused(["spread", str(path), "--resistors", "5", "--temp", "-40:85", "--samples", "50"], capsys)
+    assert (f"{path}: M1 (model NSONDE, line 7): PHI at 85 °C comes out as -0.1887 V (ngspice's level-1 "
+            "temperature rules from PHI = 0.05 V at TNOM = 27 °C); it must be positive; it holds from -40.0 to "
+            "39.2 °C of the range") in err  # fmt: skip
+    # The same rule as `check`'s scalar temperature phase: usable at 39.2 °C, refused at 39.3 °C.
+    from bridge.devices.mos1.model import Level1Model
+    from bridge.devices.mos1.temperature import at_temperature
+    from bridge.netlist import read_netlist
+
+    card = read_netlist(path).model("NSONDE")
+    model = Level1Model.from_card(card.type, card.params)
+    assert at_temperature(model, 39.2).phi > 0
+    with pytest.raises(ValueError, match="must be positive"):
+        at_temperature(model, 39.3)
+    # Below the edge the range is taken.
+    assert main(["spread", str(path), "--resistors", "5", "--temp", "-40:39", "--samples", "50"]) in (0, 1)
+    assert "no level-1 solution" not in capsys.readouterr().out
+
+
+@needs_ngspice
+def test_ngspice_finds_no_operating_point_where_phi_went_below_zero(tmp_path):
+    """The outside check (`ngspice -b`): at 85 °C the card gives no operating point, at 39 °C it does."""
+    import subprocess
+
+    from conftest import NGSPICE, ngspice_batch_op
+
+    for celsius, solved in ((39, True), (85, False)):
+        path = tmp_path / f"tiny_phi_{celsius}.cir"
+        path.write_text(TINY_PHI.replace(".op", f".temp {celsius}\n.op"))
+        if solved:
+            assert 0.0 < ngspice_batch_op(path)["s"] < 5.0
+        else:
+            done = subprocess.run([NGSPICE, "-b", str(path)], capture_output=True, text=True, timeout=30)
+            assert "gmin stepping failed" in (done.stdout + done.stderr).lower()

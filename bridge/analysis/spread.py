@@ -303,6 +303,8 @@ class Extremes:
     p_high: float  # 99.9 percentile
     sample_min: float
     sample_max: float
+    min_named: str = ""  # the corners named by the tolerances that move this value only (``named_corner``)
+    max_named: str = ""
 
 
 @dataclass(frozen=True)
@@ -340,6 +342,8 @@ class SpreadResult:
     unsolved_corners: tuple[str, ...] = ()
     unsolved_samples: int = 0
     caveats: tuple[str, ...] = field(default_factory=tuple)
+    no_dc_current: tuple[str, ...] = ()  # varied resistors that carry no DC current (by connectivity)
+    no_effect: tuple[str, ...] = ()  # other bands that move no value at any corner (all corners solved)
 
 
 class _Names:
@@ -394,6 +398,7 @@ def spread(
 ) -> SpreadResult:
     """Corners and Monte Carlo of `circuit` over `bands` (see the module's docstring)."""
     bands = tuple(bands)
+    refuse_unusable_temperatures(circuit, bands)
     k = len(bands)
     oat = one_at_a_time(bands)
     if k <= full_corner_limit:
@@ -438,10 +443,10 @@ def spread(
             with_margin &= saturated & (sampled.margins[name] >= margin_threshold)
     sensitivity = {}
     for name, ids in solution.ids.items():
-        rows = [Sensitivity(band.label, float(ids[1 + 2 * j]), float(ids[2 + 2 * j])) for j, band in enumerate(bands)]
+        rows = [_sensitivity(band.label, float(ids[1 + 2 * j]), float(ids[2 + 2 * j])) for j, band in enumerate(bands)]
         rows.sort(key=lambda s: -abs(s.delta) if math.isfinite(s.delta) else 0.0)
         sensitivity[name] = tuple(rows)
-    return SpreadResult(
+    result = SpreadResult(
         bands=bands, samples=samples, seed=seed, distribution=distribution, corners=points, corner_names=names,
         how=how, corner_solution=solution, sample_points=sample_points, sample_solution=sampled, devices=devices,
         nodes=nodes, saturation_yield=float(in_saturation.mean()), margin_yield=float(with_margin.mean()),
@@ -450,6 +455,7 @@ def spread(
         unsolved_samples=int((~sampled.solved).sum()),
         caveats=tuple(dict.fromkeys((*solution.caveats, *sampled.caveats))),
     )  # fmt: skip
+    return with_named_corners(result, dc_dead_resistors(circuit))
 
 
 def _moves(values: np.ndarray) -> np.ndarray:
@@ -473,3 +479,226 @@ def _nominal_start(solution: Solved) -> Mapping[str, float] | None:
     if not solution.solved[0]:
         return None
     return {node: float(values[0]) for node, values in solution.nodes.items()}
+
+
+# ---------------------------------------------------------------------------------------------
+# What moves a value: the corners named by the tolerances that matter to it
+
+SAME_RELATIVE = 1e-9  # two values within this fraction of the quantity's largest corner value are the same
+SAME_FLOOR = 1e-15  # V or A: below this two values are the same whatever their scale
+# The terminals through which an element can carry DC current (a MOSFET's gate carries none, a
+# capacitor none, a controlled source's sensing pair none); an element not named here counts at
+# every terminal, so it never lets a branch be called dead.
+_CONDUCTING = {"resistor": (0, 1), "inductor": (0, 1), "vsource": (0, 1), "isource": (0, 1), "diode": (0, 1),
+               "capacitor": (), "mosfet": (0, 2, 3), "vcvs": (0, 1), "vccs": (0, 1), "ccvs": (0, 1),
+               "cccs": (0, 1)}  # fmt: skip
+_DEAD_WHEN_LOOSE = ("resistor", "inductor", "vsource", "diode")  # two-terminal: no current when one end is loose
+
+
+def dc_dead_resistors(circuit: Circuit) -> tuple[str, ...]:
+    """The resistors that carry no DC current in any solution, by the circuit's connectivity alone:
+    a node (not ground) that only one conducting terminal reaches (the rest capacitors and MOSFET
+    gates) is a dead end, the two-terminal element there carries no current, and taking it away
+    may make its other node a dead end too (a signal source's resistor behind a coupling
+    capacitor, a load behind one). Their values enter no DC node voltage or current."""
+    from ..netlist.circuit import GROUND
+
+    touching: dict[str, list[int]] = {}
+    for index, element in enumerate(circuit.elements):
+        terminals = _CONDUCTING.get(element.kind, tuple(range(len(element.nodes))))
+        for terminal in terminals:
+            if terminal < len(element.nodes):
+                touching.setdefault(element.nodes[terminal], []).append(index)
+    dead: set[int] = set()
+    loose = [node for node, seen in touching.items() if node != GROUND and len(seen) == 1]
+    while loose:
+        node = loose.pop()
+        alive = [i for i in touching.get(node, []) if i not in dead]
+        if len(alive) != 1 or circuit.elements[alive[0]].kind not in _DEAD_WHEN_LOOSE:
+            continue
+        dead.add(alive[0])
+        for other in circuit.elements[alive[0]].nodes:
+            left = [i for i in touching.get(other, []) if i not in dead]
+            if other != GROUND and len(left) == 1:
+                loose.append(other)
+    return tuple(e.name for i, e in enumerate(circuit.elements) if i in dead and e.kind == "resistor")
+
+
+def _same(values: np.ndarray, reference: float, scale: float) -> bool:
+    """Every value equal to `reference` within SAME_RELATIVE of `scale` (NaN never is)."""
+    return bool(np.all(np.abs(values - reference) <= SAME_RELATIVE * scale + SAME_FLOOR))
+
+
+def _scale(values: np.ndarray) -> float:
+    finite = np.abs(values[np.isfinite(values)])
+    return float(finite.max()) if finite.size else 0.0
+
+
+def corner_cube(result: SpreadResult, values: np.ndarray) -> np.ndarray | None:
+    """A quantity's values at every corner as an array of shape (2,)·k (axis j: band j low, high),
+    None when not every corner was solved for the extremes (more than the corner limit)."""
+    k = len(result.bands)
+    corners = result.corners.count - (1 + 2 * k)
+    if corners != 2**k:
+        return None
+    return values[1 + 2 * k:].reshape((2,) * k)
+
+
+def no_effect_bands(
+    result: SpreadResult, dead_resistors: Sequence[str] = ()
+) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """The bands that move no value: (by connectivity, the resistors of `dead_resistors` among the
+    bands; by the numbers, every other band whose low and high end give the same value of every
+    drain current, margin and node voltage at every corner, when all corners were solved)."""
+    dead = {name.lower() for name in dead_resistors}
+    by_connectivity = tuple(b.label for b in result.bands if b.kind == "resistor" and b.target.lower() in dead)
+    solution = result.corner_solution
+    quantities = [*solution.ids.values(), *solution.margins.values(), *solution.nodes.values()]
+    cubes = [corner_cube(result, values) for values in quantities]
+    if not cubes or cubes[0] is None:
+        return by_connectivity, ()
+    by_numbers = []
+    for j, band in enumerate(result.bands):
+        if band.label in by_connectivity:
+            continue
+        if all(_same(np.take(cube, 1, axis=j) - np.take(cube, 0, axis=j), 0.0, _scale(cube))
+               for cube in cubes if cube is not None):  # fmt: skip
+            by_numbers.append(band.label)
+    return by_connectivity, tuple(by_numbers)
+
+
+def named_corner(result: SpreadResult, values: np.ndarray, row: int, free: Sequence[str] = ()) -> str:
+    """The point at `row` named by the bands that move `values` (one quantity over the points
+    searched) there: a band is left out when the value stays the same whichever end it is at,
+    every other band left out or not at its end (checked over all corners when all were solved);
+    the bands in `free` (no DC effect at all) are always left out. A one-at-a-time point whose
+    value is the nominal one is called nominal."""
+    if row < 0:
+        return ""
+    bands = result.bands
+    ends = result.corners.ends
+    assert ends is not None
+    scale = _scale(values)
+    cube = corner_cube(result, values)
+    if np.any(ends[row] == 0) and cube is not None:
+        row = _corner_alike(result, values, row, scale)
+    if np.any(ends[row] == 0):
+        if _same(values[row:row + 1], float(values[0]), scale):
+            return "nominal"
+        return result.corner_names[row]
+    left_out = np.array([b.label in free for b in bands])
+    if cube is not None:
+        index = tuple(int(e > 0) for e in ends[row])
+        reference = float(values[row])
+        for j in range(len(bands)):
+            if left_out[j]:
+                continue
+            trial = left_out.copy()
+            trial[j] = True
+            part = cube[tuple(slice(None) if trial[i] else index[i] for i in range(len(bands)))]
+            if _same(np.asarray(part), reference, scale):
+                left_out = trial
+    parts = [band.end_text(int(end)) for band, end, out in zip(bands, ends[row], left_out, strict=True)
+             if not out]  # fmt: skip
+    return ", ".join(parts) if parts else "every corner (no tolerance moves it)"
+
+
+def with_named_corners(result: SpreadResult, dead_resistors: Sequence[str]) -> SpreadResult:
+    """`result` with the bands that move nothing (``no_effect_bands``) and each extreme's corner
+    named by the tolerances that move its value (``named_corner``)."""
+    import dataclasses
+
+    by_connectivity, by_numbers = no_effect_bands(result, dead_resistors)
+    free = (*by_connectivity, *by_numbers)
+    solution = result.corner_solution
+
+    def named(extremes: Extremes, values: np.ndarray) -> Extremes:
+        return dataclasses.replace(extremes, min_named=named_corner(result, values, extremes.min_row, free),
+                                   max_named=named_corner(result, values, extremes.max_row, free))  # fmt: skip
+
+    devices = {
+        name: {
+            quantity: named(extremes, (solution.ids if quantity == "id" else solution.margins)[name])
+            for quantity, extremes in quantities.items()
+        }
+        for name, quantities in result.devices.items()
+    }
+    nodes = {node: named(extremes, solution.nodes[node]) for node, extremes in result.nodes.items()}
+    return dataclasses.replace(result, devices=devices, nodes=nodes, no_dc_current=by_connectivity,
+                               no_effect=by_numbers)  # fmt: skip
+
+
+def unmoved_nodes(result: SpreadResult) -> tuple[str, ...]:
+    """The nodes whose voltage is the nominal one (within SAME_RELATIVE) at every point searched
+    and every sample: a supply not varied, a signal source's 0 V, a node behind a capacitor."""
+    unmoved = []
+    for node, values in result.corner_solution.nodes.items():
+        samples = result.sample_solution.nodes[node]
+        every = np.concatenate([values, samples])
+        if _same(every, float(values[0]), _scale(every)):
+            unmoved.append(node)
+    return tuple(unmoved)
+
+
+
+def refuse_unusable_temperatures(circuit: Circuit, bands: Sequence[Band]) -> None:
+    """Raise ValueError when the temperature band reaches a device temperature where a MOSFET's
+    card has PHI(T) ≤ 0 under ngspice's level-1 temperature rules (mos1temp.c, as
+    ``at_temperature``): there the card means nothing and every row would be unsolved. The message
+    names the device, the end, PHI there, and the part of the range where the card holds (on a
+    grid of 4001 temperatures)."""
+    from ..devices.mos1.model import Level1Model
+    from ..devices.mos1.params import CELSIUS_TO_KELVIN
+    from ..devices.mos1.temperature import at_temperature_arrays, temperature_values
+
+    band = next((b for b in bands if b.kind == "temperature"), None)
+    if band is None:
+        return
+    grid = np.linspace(band.low, band.high, 4001)
+    for element in circuit.elements_of("mosfet"):
+        card = circuit.model(element.model or "")
+        if card is None or isinstance(element.params.get("temp"), (int, float)):
+            continue  # an instance TEMP is not moved by the circuit's temperature
+        offset = element.params.get("dtemp", 0.0)
+        offset = float(offset) if isinstance(offset, (int, float)) else 0.0
+        model = Level1Model.from_card(card.type, card.params, circuit.nominal_temperature())
+        usable = np.isfinite(np.asarray(at_temperature_arrays(model, grid + offset).phi, dtype=float))
+        if usable.all():
+            continue
+        end = (band.high if not usable[-1] else band.low) + offset
+        kelvin, tnom = end + CELSIUS_TO_KELVIN, model.tnom_celsius + CELSIUS_TO_KELVIN
+        _, phi, _ = temperature_values(model.kp, model.phi, model.vto, model.gamma, model.polarity, tnom, kelvin, math)
+        inside = (math.ceil(grid[usable].min() * 10.0) / 10.0, math.floor(grid[usable].max() * 10.0) / 10.0) if \
+            usable.any() else (0.0, 0.0)  # fmt: skip
+        holds = (f"; it holds from {inside[0]:.1f} to {inside[1]:.1f} °C of the range"
+                 if usable.any() else "; it holds nowhere in the range")  # fmt: skip
+        raise ValueError(
+            f"{element.name} (model {card.name}, line {card.origin.line}): PHI at {end:g} °C comes out as "
+            f"{phi:.4g} V (ngspice's level-1 temperature rules from PHI = {model.phi:g} V at TNOM = "
+            f"{model.tnom_celsius:g} °C); it must be positive{holds}"
+        )
+
+
+def _sensitivity(label: str, low: float, high: float) -> Sensitivity:
+    """One band's effect on a drain current, where both ends give the same current within
+    SAME_RELATIVE (a solver's last digits, not an effect: a resistor beyond a gate) as exactly none."""
+    if math.isfinite(low) and math.isfinite(high) and abs(high - low) <= SAME_RELATIVE * max(abs(low), abs(high)) \
+            + SAME_FLOOR:  # fmt: skip
+        high = low
+    return Sensitivity(label, low, high)
+
+
+def _corner_alike(result: SpreadResult, values: np.ndarray, row: int, scale: float) -> int:
+    """For a one-at-a-time point (or the nominal one) that gives an extreme, the first corner with
+    the same bands at the same ends that gives the same value (within SAME_RELATIVE), or `row`
+    when there is none: a supply's node is at its extreme whatever the other tolerances do, and
+    is then named by the corner."""
+    ends = result.corners.ends
+    assert ends is not None
+    first = 1 + 2 * len(result.bands)
+    fixed = ends[row] != 0
+    agree = np.all(ends[first:][:, fixed] == ends[row][fixed], axis=1)
+    with np.errstate(invalid="ignore"):
+        alike = agree & (np.abs(values[first:] - values[row]) <= SAME_RELATIVE * scale + SAME_FLOOR)
+    found = np.flatnonzero(alike)
+    return int(found[0]) + first if found.size else row

@@ -11,6 +11,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from ..analysis.spread import unmoved_nodes
 from ..netlist.numbers import engineering
 from ..vocabulary import UNITS, Finding
 
@@ -23,6 +24,20 @@ if TYPE_CHECKING:
 QUANTITY_UNITS = {"id": UNITS["id"], "margin": UNITS["sat_margin"]}
 CUTOFF = 0  # region code of ask.REGIONS
 TITLES = {"id": "id", "margin": "vds − vov"}
+
+
+def no_effect_lines(result: SpreadResult) -> list[str]:
+    """Once, the varied quantities that move nothing at DC (left out of the corners' names), and why."""
+    lines = []
+    if result.no_dc_current:
+        several = len(result.no_dc_current) > 1
+        lines.append(f"{', '.join(result.no_dc_current)}: no DC effect (no DC current can flow through "
+                     f"{'them' if several else 'it'}: by the circuit's connectivity one end of "
+                     f"{'each' if several else 'it'} leads only to capacitors or MOSFET gates)")  # fmt: skip
+    if result.no_effect:
+        lines.append(f"{', '.join(result.no_effect)}: no DC effect here (every value the same, within 1e-9, at "
+                     f"either end at every one of the {2 ** len(result.bands):,} corners)")  # fmt: skip
+    return lines
 
 
 def _percent(fraction: float) -> str:
@@ -55,7 +70,8 @@ def spread_findings(result: SpreadResult, check: CornerCheck | None) -> tuple[Fi
         margin = quantities["margin"]
         if math.isfinite(margin.min) and margin.min < 0.0:
             findings.append(Finding("warning", "corner-triode", f"{name} leaves saturation at a corner: vds − vov = "
-                                    f"{engineering(margin.min, 'V')} at {margin.min_corner}", None, name))  # fmt: skip
+                                    f"{engineering(margin.min, 'V')} at {margin.min_named or margin.min_corner}", None,
+                                    name))  # fmt: skip
         cutoff = np.flatnonzero(result.corner_solution.regions[name] == CUTOFF)
         if cutoff.size:
             findings.append(Finding("warning", "corner-cutoff", f"{name} is in cutoff (vov ≤ 0) at {cutoff.size} of "
@@ -108,14 +124,27 @@ def _number(value: float | None) -> float | None:
     return None if value is None or not math.isfinite(value) else float(value)
 
 
-def _extremes_json(extremes: Extremes, sim: tuple[float | None, float | None] | None) -> dict[str, Any]:
+def _ends_json(result: SpreadResult, row: int) -> dict[str, str] | None:
+    """A point searched as a mapping: each band's label → "low", "high" or "nominal"."""
+    if row < 0 or result.corners.ends is None:
+        return None
+    words = {-1: "low", 0: "nominal", 1: "high"}
+    return {band.label: words[int(end)] for band, end in zip(result.bands, result.corners.ends[row], strict=True)}
+
+
+def _extremes_json(extremes: Extremes, sim: tuple[float | None, float | None] | None,
+                   result: SpreadResult | None = None) -> dict[str, Any]:  # fmt: skip
     sim_min, sim_max = sim if sim is not None else (None, None)
+    ends = {} if result is None else {
+        "min_corner_ends": _ends_json(result, extremes.min_row),
+        "max_corner_ends": _ends_json(result, extremes.max_row),
+    }  # fmt: skip
     return {
         "nominal": _number(extremes.nominal), "min": _number(extremes.min), "max": _number(extremes.max),
         "min_corner": extremes.min_corner or None, "max_corner": extremes.max_corner or None,
         "sim_min": _number(sim_min), "sim_max": _number(sim_max),
         "mean": _number(extremes.mean), "std": _number(extremes.std),
-        "p0.1": _number(extremes.p_low), "p99.9": _number(extremes.p_high),
+        "p0.1": _number(extremes.p_low), "p99.9": _number(extremes.p_high), **ends,
     }  # fmt: skip
 
 
@@ -123,10 +152,11 @@ def spread_json(file: str, result: SpreadResult, check: CornerCheck | None,
                 findings: tuple[Finding, ...]) -> dict[str, Any]:  # fmt: skip
     """The issue's shape: file, samples, seed, devices, nodes, yield, sensitivity, findings."""
     devices = {
-        name: {q: _extremes_json(e, check.devices[name][q] if check else None) for q, e in quantities.items()}
+        name: {q: _extremes_json(e, check.devices[name][q] if check else None, result) for q, e in quantities.items()}
         for name, quantities in result.devices.items()
     }
-    nodes = {node: _extremes_json(e, check.nodes[node] if check else None) for node, e in result.nodes.items()}
+    nodes = {node: _extremes_json(e, check.nodes[node] if check else None, result)
+             for node, e in result.nodes.items()}  # fmt: skip
     sensitivity = {name: {s.band: _number(s.delta) for s in rows} for name, rows in result.sensitivity.items()}
     return {
         "file": file, "samples": result.samples, "seed": result.seed, "devices": devices, "nodes": nodes,
@@ -134,6 +164,7 @@ def spread_json(file: str, result: SpreadResult, check: CornerCheck | None,
         "sensitivity": sensitivity,
         "findings": [{"severity": f.severity, "code": f.code, "message": f.message, "subject": f.subject}
                      for f in findings],
+        "no_dc_effect": {"no_dc_current": list(result.no_dc_current), "no_effect_at_corners": list(result.no_effect)},
     }  # fmt: skip
 
 
@@ -160,8 +191,8 @@ def spread_renderable(file: str, result: SpreadResult, check: CornerCheck | None
             unit = "1/V"
         elif band.parameter == "vto":
             unit = "V"
-        shown = [f"{v:g} °C" if band.kind == "temperature" else engineering(v, unit)
-                 for v in (band.nominal, band.low, band.high)]  # fmt: skip
+        shown = [f"{v:g} °C" if band.kind == "temperature" else f"{v:.4g} 1/V" if unit == "1/V" else
+                 engineering(v, unit) for v in (band.nominal, band.low, band.high)]  # fmt: skip
         bands.add_row(band.label, shown[0], band.text, shown[1], shown[2])
     parts += [bands, Text("")]
     table = Table(box=None, pad_edge=False, show_edge=False, title="corners (level-1, and ngspice at the same corner)",
@@ -180,17 +211,24 @@ def spread_renderable(file: str, result: SpreadResult, check: CornerCheck | None
                       engineering(sim_min, unit), engineering(extremes.max, unit), engineering(sim_max, unit))
         sampled.add_row(label, engineering(extremes.mean, unit), engineering(extremes.std, unit),
                         engineering(extremes.p_low, unit), engineering(extremes.p_high, unit))  # fmt: skip
-        corners.append((label, extremes.min_corner, extremes.max_corner))
+        corners.append((label, extremes.min_named or extremes.min_corner, extremes.max_named or extremes.max_corner))
 
     for name, quantities in result.devices.items():
         for quantity, extremes in quantities.items():
             sim = check.devices[name][quantity] if check else None
             row(f"{name} {TITLES[quantity]}", QUANTITY_UNITS[quantity], extremes, sim)
+    unmoved = unmoved_nodes(result)
     for node, extremes in result.nodes.items():
-        row(f"V({node})", "V", extremes, check.nodes[node] if check else None)
+        if node not in unmoved:
+            row(f"V({node})", "V", extremes, check.nodes[node] if check else None)
     parts += [table, Text(""), sampled, Text("")]
+    if unmoved:
+        listed = ", ".join(f"V({node}) {engineering(result.nodes[node].nominal, 'V')}" for node in unmoved)
+        parts += [Text(f"{len(unmoved)} node{'s' if len(unmoved) != 1 else ''} left out of the tables (in --json): "
+                       f"{listed}, the same at every corner and sample"), Text("")]  # fmt: skip
     for label, low, high in corners:
         parts.append(Text(f"{label}: min at {low}; max at {high}"))
+    parts += [Text(line) for line in no_effect_lines(result)]
     parts.append(Text(""))
     parts.append(Text(f"saturation yield {_percent(result.saturation_yield)} (every MOSFET with vov > 0 and "
                       f"vds ≥ vov); margin yield {_percent(result.margin_yield)} (and vds − vov ≥ "

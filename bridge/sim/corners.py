@@ -128,9 +128,10 @@ def prove_corners(
             devices[name][quantity] = (low, high)
             unit = "A" if quantity == "id" else "V"
             label = f"{name} {'id' if quantity == 'id' else 'saturation margin'}"
-            for side, value, sim, row, corner in (("minimum", extremes.min, low, extremes.min_row, extremes.min_corner),
+            for side, value, sim, row, corner in (("minimum", extremes.min, low, extremes.min_row,
+                                                   extremes.min_named or extremes.min_corner),
                                                   ("maximum", extremes.max, high, extremes.max_row,
-                                                   extremes.max_corner)):  # fmt: skip
+                                                   extremes.max_named or extremes.max_corner)):  # fmt: skip
                 floor = FLOORS[quantity]
                 if quantity == "id" and row in answers:
                     floor += GMIN * max(abs(v) for v in answers[row].node_voltages.values())
@@ -140,6 +141,8 @@ def prove_corners(
         low = sim_value(extremes.min_row, None, node) if extremes.min_row >= 0 else None
         high = sim_value(extremes.max_row, None, node) if extremes.max_row >= 0 else None
         nodes[node] = (low, high)
-        judged(node, f"V({node}) minimum", "V", FLOORS["node"], extremes.min, low, extremes.min_corner)
-        judged(node, f"V({node}) maximum", "V", FLOORS["node"], extremes.max, high, extremes.max_corner)
+        judged(node, f"V({node}) minimum", "V", FLOORS["node"], extremes.min, low,
+               extremes.min_named or extremes.min_corner)
+        judged(node, f"V({node}) maximum", "V", FLOORS["node"], extremes.max, high,
+               extremes.max_named or extremes.max_corner)
     return CornerCheck(devices, nodes, len(rows), tuple(findings))
