@@ -825,12 +825,11 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
                       "--tolerances (with a non-zero tolerance on something the circuit has)")
 
     from .analysis.dcsolve import DcSolveError
-    from .analysis.spread import spread
-    from .lint.rule import LintSettings
+    from .spread_run import run_spread
 
     try:
-        result = spread(circuit, bands, samples=count, seed=seed, distribution=args.dist,
-                        margin_threshold=LintSettings().saturation_margin)  # fmt: skip
+        run = run_spread(circuit, bands, samples=count, seed=seed, distribution=args.dist, session=session,
+                         timeout=SPREAD_SIM_TIMEOUT)  # fmt: skip
     except ValueError as exc:  # the temperature phase refusing a card (PHI ≤ 0 at an end, say)
         return refuse(str(exc), args.file)
     except DcSolveError as exc:  # an element the solver does not model, a node without a DC path, ...
@@ -839,17 +838,13 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
         if element is None:
             return refuse(message, args.file)
         return refuse(message, element.origin.file or args.file, element.origin.line)
-    check = None
-    if session is not None:
-        from .sim.corners import prove_corners
-
-        check = prove_corners(session, circuit, result, timeout=SPREAD_SIM_TIMEOUT)
-        session.close()
-    else:
+    if session is None:
         print(f"biasbridge: {hint} (the corners are not run in ngspice)", file=sys.stderr)
-    from .report.spread_view import spread_findings, spread_json, spread_renderable
+    else:
+        session.close()
+    from .report.spread_view import spread_json, spread_renderable
 
-    findings = spread_findings(result, check)
+    result, check, findings = run.result, run.check, run.findings
     if args.plot is not None:
         from .report.spread_plot import write_spread_plot
 

@@ -279,7 +279,7 @@ def test_the_command_line_beats_the_files_defaults_and_the_files_names_beat_both
 
 def test_a_corner_in_cutoff_is_said_and_ngspices_gmin_leakage_there_is_no_difference(tmp_path,
                                                                                      required_ngspice_session):
-    from bridge.report.spread_view import spread_findings
+    from bridge.spread_compare import spread_findings
 
     _, circuit = _circuit(tmp_path, "vent_low.cir", VENT.replace("VREF g 0 DC 1.5", "VREF g 0 DC 0.95"))
     varied = bands(circuit, Tolerances(vto=Entry(0.2)))
@@ -288,19 +288,22 @@ def test_a_corner_in_cutoff_is_said_and_ngspices_gmin_leakage_there_is_no_differ
     low, _ = check.devices["M1"]["id"]
     assert result.devices["M1"]["id"].min == 0.0 and 0.0 < low < 1e-11  # ngspice: GMIN·V(d) through the junction
     assert [f for f in check.findings if f.code == "corner-differs"] == []
-    cutoff = [f.message for f in spread_findings(result, check) if f.code == "corner-cutoff"]
-    assert cutoff == ["M1 is in cutoff (vov ≤ 0) at 2 of 5 points searched, e.g. at NVENT.vto +0.2 V"]
+    cutoff = [f for f in spread_findings(circuit, result, check) if f.code == "corner-cutoff"]
+    assert [f.message for f in cutoff] == [
+        "M1 is in cutoff (vov ≤ 0) at 2 of 5 points searched, e.g. at NVENT.vto +0.2 V"
+    ]
+    assert cutoff[0].line == circuit.element("M1").origin.line  # the finding sits at the MOSFET's card
 
 
 def test_a_current_that_is_not_monotone_in_temperature_is_not_called_worst_at_a_corner(tmp_path):
     """Near its zero-temperature-coefficient bias the drain current has a minimum inside −40…125 °C
     (KP falls with T, VTO falls too): the corners (the two ends) miss it, the samples find it."""
-    from bridge.report.spread_view import spread_findings
+    from bridge.spread_compare import spread_findings
 
     stage = VENT.replace("VREF g 0 DC 1.5", "VREF g 0 DC 1.3").replace("RD vdd d 16k", "RD vdd d 1k")
     _, circuit = _circuit(tmp_path, "ztc.cir", stage.replace("kp=100u)", "kp=100u gamma=0.5 phi=0.7)"))
     result = spread(circuit, bands(circuit, Tolerances(temperature=(-40.0, 125.0))), samples=2000, seed=0)
     stats = result.devices["M1"]["id"]
     assert stats.sample_min < stats.min
-    messages = [f.message for f in spread_findings(result, None) if f.code == "corner-not-worst"]
+    messages = [f.message for f in spread_findings(circuit, result, None) if f.code == "corner-not-worst"]
     assert any(m.startswith("M1 id: a Monte-Carlo sample is below every corner searched") for m in messages)
