@@ -184,3 +184,30 @@ def test_small_blocks_passed_without_the_rank_test_would_pass_it() -> None:
             assert singular[-1] > singular[0] * block.shape[0] * np.finfo(float).eps, block
     assert passed >= 60  # the well-conditioned blocks of ordinary size
     assert not surely_regular(np.eye(3))  # larger blocks are left to the SVD
+
+
+def test_the_attribution_re_solves_share_one_reduction(monkeypatch):
+    """The hand's one-effect re-solves (λ alone, γ alone) run on networks that differ only in
+    their devices: the linear part is reduced once for both, not once per re-solve, and the
+    answers are those of a model that reduced its own network (to the bit)."""
+    from bridge.analysis.hand import HandModel
+
+    circuit = parse_netlist(DYNAMO, "dynamo.cir")
+    reductions = []
+    real = dcsolve._reduce
+
+    def counted(*args, **kwargs):
+        reductions.append(args[1])  # the diagonal gmin: 0 for the plain reduction
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(dcsolve, "_reduce", counted)
+    model = HandModel(circuit)
+    plain = model.solve()
+    assert plain.closed_form  # the plain hand solves no network: the re-solves are the first
+    shared = {effect: model.solve(effects={effect}, working=False, start=plain.node_voltages)
+              for effect in ("lambda", "gamma")}
+    assert reductions == [0.0]
+    for effect, solution in shared.items():
+        alone = HandModel(circuit).solve(effects={effect}, working=False, start=plain.node_voltages)
+        assert solution.node_voltages == alone.node_voltages
+        assert solution.devices == alone.devices

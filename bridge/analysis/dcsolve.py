@@ -280,12 +280,16 @@ class _Network:
 
     def with_devices(self, devices: Mapping[str, Mos1Instance]) -> _Network:
         """The same network with the MOSFETs named in `devices` given those instances (another
-        model of the same elements); the linear part and its reduction are shared."""
+        model of the same elements); the linear part and its reduction are shared.
+
+        The reduction depends on the linear part and on the unknowns the devices touch, which
+        another instance at the same place leaves as they are: it is built here once (if it was
+        not yet) and handed on, so that the attribution's re-solves (one network each) share it."""
         network = replace(self, mosfets=tuple(
             mos.with_device(devices[mos.name]) if mos.name in devices else mos for mos in self.mosfets
         ))  # fmt: skip
-        if "plain_reduction" in vars(self):  # a cached_property: its value lives in the instance dict
-            vars(network)["plain_reduction"] = self.plain_reduction
+        # A cached_property: its value lives in the instance dict.
+        vars(network)["plain_reduction"] = self.plain_reduction
         return network
 
     def reduction(self, diagonal_gmin: float) -> _Reduction:
