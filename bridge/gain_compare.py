@@ -79,3 +79,115 @@ def attribution(hand_gain: float | None, with_effect: Mapping[str, float]) -> di
         return {}
     changes = {effect: relative(value, hand_gain) for effect, value in with_effect.items()}
     return dict(sorted(changes.items(), key=lambda item: -abs(item[1])))
+
+
+# --- the band edges: estimates by construction ------------------------------------------------
+
+# The hand band edges are estimates (short-circuit time constants, Miller): beyond --tol but within
+# this of the reference, with the hand network's own −3 dB point within --tol, the difference is
+# the estimate's and an info says why (common practice, no source).
+BAND_TOLERANCE = 0.5
+BAND_NAMES = {"low_hz": "low band edge", "high_hz": "upper band edge"}
+
+
+def _hz(value: float) -> str:
+    return engineering(value, "Hz")
+
+
+def band_findings(
+    band: Mapping[str, Mapping[str, float | None]],
+    evidence,
+    tolerance: float,
+    band_tolerance: float,
+    places: Mapping[str, tuple[int | None, str | None]],
+    *,
+    junction_capacitances: bool = False,
+) -> list[Finding]:
+    """The band edges side by side. `band`: "low_hz"/"high_hz" → {"hand", "level1", "sim"};
+    `evidence`: ``smallsignal.BandEvidence`` of the hand network (or None); `places`: per edge the
+    (line, subject) a finding points at (the dominant capacitor's for the low edge, the MOSFET's
+    for the upper one).
+
+    A level-1 edge beyond 0.5 % of ngspice's is an error (not judged when the card gives bulk
+    junction capacitances, which the level-1 column leaves out). A hand estimate beyond
+    `tolerance` of the reference is a warning, unless the hand network's own −3 dB point is
+    within `tolerance` (the difference is then the estimate's alone) and the estimate within
+    `band_tolerance`: then an info. Either way a cause line says what the estimate assumed and
+    what this circuit's numbers are."""
+    findings: list[Finding] = []
+    for key in ("low_hz", "high_hz"):
+        values = band.get(key) or {}
+        hand, level1, sim = values.get("hand"), values.get("level1"), values.get("sim")
+        line, subject = places.get(key, (None, None))
+        name = BAND_NAMES[key]
+        if level1 is not None and sim is not None and not junction_capacitances:
+            change = relative(level1, sim)
+            if abs(change) > LEVEL1_TOLERANCE:
+                findings.append(Finding(
+                    "error", "gain-solver-differs",
+                    f"{name}: level-1 {_hz(level1)} vs ngspice {_hz(sim)} ({_percent(change)}), beyond 0.5 %: a "
+                    "defect of ours or a model feature the level-1 linearisation does not cover", line, subject,
+                    quantity=key,
+                ))  # fmt: skip
+        reference_column = "sim" if sim is not None else "level1"
+        reference = sim if sim is not None else level1
+        if hand is None or reference is None or not (math.isfinite(hand) and math.isfinite(reference)):
+            continue
+        change = relative(hand, reference)
+        if abs(change) <= tolerance:
+            continue
+        exact = getattr(evidence, key, None) if evidence is not None else None
+        model_change = relative(exact, reference) if exact else None
+        estimate_only = model_change is not None and abs(model_change) <= tolerance
+        said = (f"{name}: hand estimate {_hz(hand)} vs {COLUMN_NAMES[reference_column]} {_hz(reference)} "
+                f"({_percent(change)}), beyond the {100 * tolerance:g} % tolerance")
+        if estimate_only and abs(change) <= band_tolerance:
+            findings.append(Finding(
+                "info", "band-estimate",
+                f"{said}, within the {100 * band_tolerance:g} % estimate tolerance (--band-tol): the hand network's "
+                f"own −3 dB point is {_hz(exact)} ({_percent(model_change)}), so the difference is the estimate's",
+                line, subject, quantity=key,
+            ))  # fmt: skip
+        else:
+            beyond = f" and the {100 * band_tolerance:g} % estimate tolerance" if abs(change) > band_tolerance else ""
+            findings.append(Finding("warning", "gain-hand-differs", said + beyond, line, subject, quantity=key))
+        cause = (_low_cause if key == "low_hz" else _high_cause)(hand, exact, evidence)
+        if model_change is not None:
+            cause += (f"; the hand network's own −3 dB point is {_hz(exact)} (the estimate "
+                      f"{_percent(relative(hand, exact))} from it, {_percent(model_change)} from "
+                      f"{COLUMN_NAMES[reference_column]})")
+            if abs(model_change) > tolerance:
+                cause += (", so beyond the estimate the hand model itself (ro infinite, no body effect, the hand "
+                          "bias point) differs there")
+        findings.append(Finding("info", "band-cause", "cause: " + cause, line, subject, quantity=key))
+    return findings
+
+
+def _low_cause(hand: float, exact: float | None, evidence) -> str:
+    words = ("the short-circuit time-constant estimate Σ 1/(2π·Rk·Ck) assumes one dominant pole")
+    if evidence is None:
+        return words
+    if evidence.low_poles_hz:
+        poles = ", ".join(_hz(p) for p in evidence.low_poles_hz)
+        words += (f"; it is exactly the sum of the hand network's low-frequency poles (here {poles}, found "
+                  "numerically), and the −3 dB point lies below that sum where several are comparable or zeros "
+                  "sit near them")
+    terms = evidence.terms
+    if len(terms) >= 2:
+        words += (f"; here the two largest terms are {_hz(terms[0].pole_hz)} ({terms[0].capacitor}) and "
+                  f"{_hz(terms[1].pole_hz)} ({terms[1].capacitor})")
+    elif len(terms) == 1:
+        words += f"; here one term, {_hz(terms[0].pole_hz)} ({terms[0].capacitor})"
+    for capacitor, resistor, zero in evidence.zeros:
+        words += f"; {capacitor} across {resistor} puts a zero at 1/(2π·{resistor}·{capacitor}) = {_hz(zero)}"
+    return words
+
+
+def _high_cause(hand: float, exact: float | None, evidence) -> str:
+    words = ("the Miller estimate assumes one dominant pole: it holds the gain across Cgd at its midband value "
+             "and adds the time constants at the gate and at the drain")
+    if evidence is not None and evidence.miller:
+        tau_in, tau_out = evidence.miller
+        words += (f" (here τin = {engineering(tau_in, 's')}, τout = {engineering(tau_out, 's')}, "
+                  f"{100 * tau_in / (tau_in + tau_out):.0f} % at the gate)")
+    return words
