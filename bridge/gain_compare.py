@@ -167,6 +167,10 @@ def _low_cause(hand: float, exact: float | None, evidence) -> str:
     words = ("the short-circuit time-constant estimate Σ 1/(2π·Rk·Ck) assumes one dominant pole")
     if evidence is None:
         return words
+    if evidence.low_poles_hz and len(evidence.low_poles_hz) == 1 and len(evidence.terms) == 1:
+        term = evidence.terms[0]
+        return (f"the short-circuit time-constant estimate: one capacitor, {term.capacitor}, so it is the hand "
+                f"network's one low-frequency pole, {_hz(term.pole_hz)} (found numerically), exact for that network")
     if evidence.low_poles_hz:
         poles = ", ".join(_hz(p) for p in evidence.low_poles_hz)
         words += (f"; it is exactly the sum of the hand network's low-frequency poles (here {poles}, found "
