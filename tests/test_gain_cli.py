@@ -41,6 +41,8 @@ def stage(tmp_path):
         (["--output", "0"], "ground is not an output node"),
         (["--tol", "200"], "tolerance 200 is out of range"),
         (["--tol", "five"], "is not a tolerance"),
+        (["--band-tol", "half"], "is not a tolerance"),
+        (["--band-tol", "0"], "tolerance 0 is out of range"),
         (["--sim-timeout", "0"], "--sim-timeout"),
         (["--plot", "missing-folder/plot.png"], "does not exist"),
         (["--plot", "plot.txt"], "plot"),
@@ -102,3 +104,13 @@ def test_a_simulator_timeout_beyond_a_day_or_not_a_number_is_refused(seconds, st
     assert _status(["gain", str(stage), "--sim-timeout", seconds]) == 2
     err = capsys.readouterr().err
     assert "--sim-timeout" in err and "Traceback" not in err
+
+
+def test_the_documents_say_gain_simulates_ac():
+    """README and DEVELOPERS: every statement of which analyses are simulated names `.ac` (`gain`)."""
+    root = EXAMPLES.parent
+    for name in ("README.md", "DEVELOPERS.md"):
+        text = (root / name).read_text()
+        for statement in ("ever simulated", "worker: .op, .dc"):
+            for line in (line for line in text.splitlines() if statement in line):
+                assert ".ac" in line, f"{name}: {line}"
