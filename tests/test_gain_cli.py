@@ -1,11 +1,10 @@
 """`biasbridge gain` on the command line: every bad argument exits 2 with a clear message and no
-traceback; the bundled example runs."""
+traceback; the bundled example runs. (The random option lists are in tests/test_batch_arguments.py.)"""
 
 from __future__ import annotations
 
 import pytest
 from conftest import EXAMPLES
-from test_batch_arguments import _fuzz, workspace  # noqa: F401 - the fuzz and its working folder (a fixture)
 
 from bridge.cli import main
 
@@ -91,12 +90,6 @@ def test_plot_is_written(stage, tmp_path, required_ngspice_session, capsys):
     target = tmp_path / "response.svg"
     assert main(["gain", str(stage), "--plot", str(target)]) in (0, 1)
     assert target.read_text().lstrip().startswith("<?xml") and "hand midband gain" in target.read_text()
-
-
-@pytest.mark.usefixtures("workspace")
-def test_random_gain_option_lists_end_in_exit_0_1_or_2_without_a_traceback(capsys):
-    """The batch tests' argument fuzz (options read from the parser) on `gain`."""
-    _fuzz("gain", 25, capsys)
 
 
 @pytest.mark.parametrize("seconds", ["inf", "1e400", "nan"])
