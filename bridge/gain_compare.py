@@ -38,6 +38,15 @@ def _percent(change: float) -> str:
     return f"{100.0 * change:+.1f} %" if math.isfinite(change) else "from 0"
 
 
+def _difference(value: float, reference: float, change: float) -> str:
+    """The relative difference in words: a percentage, or why there is none."""
+    if math.isfinite(change):
+        return _percent(change)
+    if reference == 0.0:
+        return "from 0"
+    return "infinite against a finite value"
+
+
 def compare_columns(
     columns: Mapping[str, Mapping[str, float | None]], tolerance: float, subject: str | None, line: int | None,
 ) -> list[Finding]:  # fmt: skip
@@ -56,8 +65,8 @@ def compare_columns(
                 findings.append(Finding(
                     "warning", "gain-hand-differs",
                     f"{name}: hand {_shown(hand, unit)} vs {COLUMN_NAMES[reference_column]} {_shown(reference, unit)} "
-                    f"({_percent(change)}), beyond the {100 * tolerance:g} % tolerance", line, subject,
-                    quantity=quantity,
+                    f"({_difference(hand, reference, change)}), beyond the {100 * tolerance:g} % tolerance",
+                    line, subject, quantity=quantity,
                 ))  # fmt: skip
         if level1 is not None and sim is not None and quantity in QUANTITIES and not (
             math.isinf(level1) and math.isinf(sim)
@@ -66,7 +75,8 @@ def compare_columns(
             if abs(change) > LEVEL1_TOLERANCE:
                 findings.append(Finding(
                     "error", "gain-solver-differs",
-                    f"{name}: level-1 {_shown(level1, unit)} vs ngspice {_shown(sim, unit)} ({_percent(change)}), "
+                    f"{name}: level-1 {_shown(level1, unit)} vs ngspice {_shown(sim, unit)} "
+                    f"({_difference(level1, sim, change)}), "
                     "beyond 0.5 %: a defect of ours or a model feature the level-1 linearisation does not cover",
                     line, subject, quantity=quantity,
                 ))  # fmt: skip
@@ -172,7 +182,7 @@ def _low_cause(hand: float, exact: float | None, evidence) -> str:
         return (f"the short-circuit time-constant estimate: one capacitor, {term.capacitor}, so it is the hand "
                 f"network's one low-frequency pole, {_hz(term.pole_hz)} (found numerically), exact for that network")
     if evidence.low_poles_hz:
-        poles = ", ".join(_hz(p) for p in evidence.low_poles_hz)
+        poles = ", ".join(_pole(p) for p in evidence.low_poles_hz if p.imag >= 0.0)
         words += (f"; it is exactly the sum of the hand network's low-frequency poles (here {poles}, found "
                   "numerically), and the −3 dB point lies below that sum where several are comparable or zeros "
                   "sit near them")
@@ -184,7 +194,16 @@ def _low_cause(hand: float, exact: float | None, evidence) -> str:
         words += f"; here one term, {_hz(terms[0].pole_hz)} ({terms[0].capacitor})"
     for capacitor, resistor, zero in evidence.zeros:
         words += f"; {capacitor} across {resistor} puts a zero at 1/(2π·{resistor}·{capacitor}) = {_hz(zero)}"
+    if evidence.inductors:
+        words += f"; it takes capacitors only, and {', '.join(evidence.inductors)} (inductance) is left out of it"
     return words
+
+
+def _pole(pole: complex) -> str:
+    """A pole in Hz (the magnitude of its real part), a complex pair as `a ± jb Hz`."""
+    if pole.imag == 0.0:
+        return _hz(pole.real)
+    return f"{engineering(pole.real, '')} ± j{_hz(abs(pole.imag))}".strip()
 
 
 def _high_cause(hand: float, exact: float | None, evidence) -> str:
@@ -195,3 +214,51 @@ def _high_cause(hand: float, exact: float | None, evidence) -> str:
         words += (f" (here τin = {engineering(tau_in, 's')}, τout = {engineering(tau_out, 's')}, "
                   f"{100 * tau_in / (tau_in + tau_out):.0f} % at the gate)")
     return words
+
+
+# --- phases at midband: a signed magnitude says the truth only near 0° or 180° ------------------
+
+# A midband gain more than this far from 0° or 180°, or an impedance more than 45° from the real
+# axis, is not what a signed magnitude shows (common practice, no source).
+MIDBAND_PHASE_DEGREES = 10.0
+REACTIVE_DEGREES = 45.0
+
+
+def _off_axis(value: complex) -> float:
+    """How far `value`'s phase is from the real axis (0° or 180°), in degrees."""
+    angle = abs(math.degrees(math.atan2(value.imag, value.real)))
+    return min(angle, 180.0 - angle)
+
+
+def phase_findings(values: Mapping[str, complex | None], column: str, frequency: float, line: int | None,
+                   subject: str | None) -> tuple[list[Finding], set[str]]:  # fmt: skip
+    """The reference column's complex midband values (`values`: "gain", "rin", "rout"): a gain
+    whose phase is far from 0°/180° is a `not-midband` warning (the frequency is not in a flat
+    band); an impedance mostly reactive is an info and is not compared with the hand column (which
+    has every device capacitance open and every netlist capacitor shorted). Returns the findings
+    and the quantities not to compare."""
+    findings: list[Finding] = []
+    skip: set[str] = set()
+    where = engineering(frequency, "Hz")
+    gain = values.get("gain")
+    if gain is not None and gain != 0 and math.isfinite(abs(gain)) and _off_axis(gain) > MIDBAND_PHASE_DEGREES:
+        findings.append(Finding(
+            "warning", "not-midband",
+            f"at {where} the {COLUMN_NAMES[column]} gain's phase is "
+            f"{math.degrees(math.atan2(gain.imag, gain.real)):.1f}° "
+            f"({_off_axis(gain):.1f}° from 0° or 180°): this is not a flat midband, and the signed magnitudes shown "
+            "hide the phase; choose --freq inside the flat band (the ngspice sweep, --plot, shows it)",
+            line, subject, quantity="gain",
+        ))  # fmt: skip
+    for key in ("rin", "rout"):
+        value = values.get(key)
+        if value is None or value == 0 or not math.isfinite(abs(value)) or _off_axis(value) <= REACTIVE_DEGREES:
+            continue
+        skip.add(key)
+        findings.append(Finding(
+            "info", "reactive-impedance",
+            f"{QUANTITY_NAMES[key]} at {where} is mostly reactive in the {COLUMN_NAMES[column]} column (|Z| = "
+            f"{engineering(abs(value), 'Ω')}, phase {math.degrees(math.atan2(value.imag, value.real)):.1f}°): "
+            "not a resistance, so the hand value is not compared with it", line, subject, quantity=key,
+        ))  # fmt: skip
+    return findings, skip

@@ -28,17 +28,19 @@ from .analysis.smallsignal import (
 )
 from .commands.gain_defaults import (
     Choice,
+    GainInputError,
     NoMidband,
     default_input,
     default_load,
     default_output,
     given_input,
     given_output,
+    held_output,
     midband,
     sweep_range,
 )
 from .devices.mos1.smallsignal import card_gives_junction_capacitances
-from .gain_compare import BAND_TOLERANCE, attribution, band_findings, compare_columns
+from .gain_compare import BAND_TOLERANCE, attribution, band_findings, compare_columns, phase_findings
 from .netlist.circuit import Circuit
 from .vocabulary import EFFECTS, Finding, simulator_failure
 
@@ -112,6 +114,10 @@ def run_gain(
     findings: list[Finding] = []
     source = given_input(circuit, input_name) if input_name else default_input(circuit)
     output = given_output(circuit, output_name) if output_name else default_output(circuit)
+    holder = held_output(circuit, output.value, source.value) if output_name else None  # type: ignore[arg-type]
+    if holder is not None:
+        raise GainInputError(f"--output: `{output.value}` is held by {holder} (a voltage source other than the "
+                             "input): it is AC ground and carries no signal")  # fmt: skip
     load = default_load(circuit, output.value)  # type: ignore[arg-type]
     mosfet = circuit.elements_of("mosfet")[0]
     subject, line = mosfet.name, mosfet.origin.line
@@ -233,6 +239,18 @@ def run_gain(
         findings.append(Finding("info", "no-simulator", unavailable_hint or "ngspice not available", None, None))
 
     columns = {"gain": gain, "rin": rin, "rout": rout}
+    if measurement is not None:
+        complex_values = {"gain": measurement.gain, "rin": measurement.rin, "rout": measurement.rout}
+        phased, skip = phase_findings(complex_values, "sim", chosen, line, subject)
+    elif level1_values is not None:
+        complex_values = {"gain": level1_values.gain_complex, "rin": level1_values.rin_complex,
+                          "rout": level1_values.rout_complex}  # fmt: skip
+        phased, skip = phase_findings(complex_values, "level1", chosen, line, subject)
+    else:
+        phased, skip = [], set()
+    findings.extend(phased)
+    for key in skip:
+        columns[key] = {**columns[key], "hand": None}
     findings.extend(compare_columns(columns, tolerance, subject, line))
     places = _band_places(circuit, column, line, subject)
     findings.extend(band_findings(band, evidence, tolerance, band_tolerance, places,

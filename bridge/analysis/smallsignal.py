@@ -478,11 +478,13 @@ def _q(value: float, unit: str) -> str:
     return engineering(value, unit)
 
 
-def short_circuit_terms(network: SignalNetwork) -> tuple[LowBandTerm, ...]:
+def short_circuit_terms(network: SignalNetwork, left_open: Iterable[str] = ()) -> tuple[LowBandTerm, ...]:
     """Per capacitor of the netlist: the resistance it sees with every other capacitor shorted,
     the input source zeroed (hand small-signal model), and its pole."""
     capacitors = network.capacitors
     terms = []
+    left_open = {name.lower() for name in left_open}
+    capacitors = tuple(c for c in capacitors if c.name.lower() not in left_open)
     for cap in capacitors:
         others = [c.name for c in capacitors if c is not cap]
         a, b = cap.nodes[0], cap.nodes[1]
@@ -500,6 +502,31 @@ def short_circuit_terms(network: SignalNetwork) -> tuple[LowBandTerm, ...]:
             pole = 1.0 / (2.0 * math.pi * resistance * capacitance)
         terms.append(LowBandTerm(cap.name, capacitance, resistance, pole))
     return tuple(terms)
+
+
+def load_capacitors(network: SignalNetwork, setup: SignalSetup) -> dict[str, tuple[float, float]]:
+    """The netlist's capacitors that are not coupling or bypass ones: those whose short lowers the
+    hand network's gain (every other capacitor shorted, at DC otherwise), as a load or a feedback
+    capacitance does; each with (|gain| shorted, |gain| open)."""
+    capacitors = network.capacitors
+    if not capacitors:
+        return {}
+    names = [c.name for c in capacitors]
+    try:
+        voltages, _ = network.solve(0.0, shorted=names)
+        all_shorted = abs(voltages[setup.output_node] / network.input_voltage(voltages))
+    except (SmallSignalError, ZeroDivisionError):
+        return {}
+    found = {}
+    for cap in capacitors:
+        try:
+            voltages, _ = network.solve(0.0, shorted=[n for n in names if n != cap.name])
+            opened = abs(voltages[setup.output_node] / network.input_voltage(voltages))
+        except (SmallSignalError, ZeroDivisionError):
+            continue
+        if math.isfinite(opened) and all_shorted < opened * (1.0 - 1e-9):
+            found[cap.name] = (all_shorted, opened)
+    return found
 
 
 def low_band_edge(terms: Iterable[LowBandTerm]) -> float | None:
@@ -573,15 +600,21 @@ def hand_column(circuit: Circuit, hand: HandSolution, setup: SignalSetup) -> Han
     """
     devices = hand_devices(circuit, hand)
     network = SignalNetwork(circuit, devices, setup.input_source)
-    shorted = tuple(c.name for c in network.capacitors)
+    loads = load_capacitors(network, setup)
+    shorted = tuple(c.name for c in network.capacitors if c.name not in loads)
     notes: list[str] = []
+    for name, (shorted_gain, open_gain) in loads.items():
+        notes.append(f"{name}: shorting it lowers the hand gain (|Av| {abs(open_gain):.4g} open, "
+                     f"{abs(shorted_gain):.4g} shorted): a load or feedback (low-pass) capacitance, not a coupling or "
+                     "bypass one; the hand model keeps it as jωC at midband instead of a short, the low band edge "
+                     "estimate leaves it out, and no hand estimate of the upper band edge includes it")  # fmt: skip
     numeric: tuple[float, float, float] | None = None
     try:
         gain_c, rin_c, rout_c = network.midband(setup.midband_hz, setup.output_node, setup.load, shorted)
         numeric = (signed(gain_c), signed(rin_c), signed(rout_c))
     except SmallSignalError as exc:
         notes.append(f"the hand small-signal network: {exc}")
-    terms = short_circuit_terms(network)
+    terms = short_circuit_terms(network, loads)
     low = low_band_edge(terms)
     steps: list[Step] = [Step("Hand small-signal model: gm = K·VOV at the hand bias point, ro infinite (λ = 0), "
                               "no body effect (γ = 0), every capacitor of the netlist a short at midband, "
@@ -838,7 +871,8 @@ def hand_gain_with(circuit: Circuit, hand: HandSolution, setup: SignalSetup, eff
     """The hand midband gain with one effect switched on in the small-signal model ("lambda":
     gds = λ·ID; "gamma": gmbs), at the hand bias point, capacitors shorted."""
     network = SignalNetwork(circuit, hand_devices(circuit, hand, frozenset({effect})), setup.input_source)
-    shorted = tuple(c.name for c in network.capacitors)
+    loads = load_capacitors(SignalNetwork(circuit, hand_devices(circuit, hand), setup.input_source), setup)
+    shorted = tuple(c.name for c in network.capacitors if c.name not in loads)
     return signed(network.midband(setup.midband_hz, setup.output_node, setup.load, shorted)[0])
 
 
@@ -896,10 +930,11 @@ class BandEvidence:
 
     low_hz: float | None
     high_hz: float | None
-    low_poles_hz: tuple[float, ...] | None
+    low_poles_hz: tuple[complex, ...] | None
     zeros: tuple[tuple[str, str, float], ...]
     terms: tuple[LowBandTerm, ...]
     miller: tuple[float, float] | None
+    inductors: tuple[str, ...] = ()  # the netlist's inductors, which no estimate term covers
 
 
 def hand_band_evidence(circuit: Circuit, hand: HandSolution, column: HandColumn, setup: SignalSetup,
@@ -919,13 +954,15 @@ def hand_band_evidence(circuit: Circuit, hand: HandSolution, column: HandColumn,
     zeros = _checked_zeros(circuit, bare, setup)
     if not caps:
         high = None
-    return BandEvidence(low, high, poles, zeros, terms, column.miller)
+    inductors = tuple(e.name for e in circuit.elements_of("inductor"))
+    return BandEvidence(low, high, poles, zeros, terms, column.miller, inductors)
 
 
-def _checked_low_poles(network: SignalNetwork, estimate: float) -> tuple[float, ...] | None:
-    """The natural frequencies of the network with only the netlist's capacitors (Hz, the
-    magnitudes of their real parts, largest first), when their sum equals `estimate` to 1e-6 (the
-    s-coefficient identity); None when it does not or they cannot be found."""
+def _checked_low_poles(network: SignalNetwork, estimate: float) -> tuple[complex, ...] | None:
+    """The natural frequencies of the network with only the netlist's capacitors (Hz, −s/2π: a real
+    pole's value is positive; largest first, a complex pair as two conjugates), when the sum of
+    their real parts equals `estimate` to 1e-6 (the s-coefficient identity); None when it does not
+    or they cannot be found."""
     if network.circuit.elements_of("inductor"):
         return None
     try:
@@ -941,9 +978,11 @@ def _checked_low_poles(network: SignalNetwork, estimate: float) -> tuple[float, 
     except np.linalg.LinAlgError:
         return None
     mu = mu[np.abs(mu) > 1e-12 * max(1e-300, float(np.max(np.abs(mu))))]
-    poles = shift - 1.0 / mu
-    hz = sorted((float(-p.real) / (2.0 * math.pi) for p in poles), reverse=True)
-    if not hz or not math.isclose(sum(hz), estimate, rel_tol=1e-6):
+    poles = -(shift - 1.0 / mu) / (2.0 * math.pi)
+    # A pair whose imaginary parts are below 1e-9 of its size is taken as real (rounding).
+    hz = [complex(p.real, 0.0) if abs(p.imag) <= 1e-9 * abs(p) else complex(p) for p in poles]
+    hz.sort(key=lambda p: (-p.real, -p.imag))
+    if not hz or not math.isclose(sum(p.real for p in hz), estimate, rel_tol=1e-6):
         return None
     return tuple(hz)
 
