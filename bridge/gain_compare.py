@@ -112,6 +112,8 @@ def band_findings(
     places: Mapping[str, tuple[int | None, str | None]],
     *,
     junction_capacitances: bool = False,
+    swept: str | None = None,
+    sweep: tuple[float, float] | None = None,
 ) -> list[Finding]:
     """The band edges side by side. `band`: "low_hz"/"high_hz" → {"hand", "level1", "sim"};
     `evidence`: ``smallsignal.BandEvidence`` of the hand network (or None); `places`: per edge the
@@ -123,7 +125,8 @@ def band_findings(
     `tolerance` of the reference is a warning, unless the hand network's own −3 dB point is
     within `tolerance` (the difference is then the estimate's alone) and the estimate within
     `band_tolerance`: then an info. Either way a cause line says what the estimate assumed and
-    what this circuit's numbers are."""
+    what this circuit's numbers are. A hand estimate of an edge the reference column's response
+    (`swept`: "sim" or "level1", over `sweep`) never shows is a warning too."""
     findings: list[Finding] = []
     for key in ("low_hz", "high_hz"):
         values = band.get(key) or {}
@@ -141,6 +144,20 @@ def band_findings(
                 ))  # fmt: skip
         reference_column = "sim" if sim is not None else "level1"
         reference = sim if sim is not None else level1
+        if hand is not None and reference is None and swept is not None and sweep is not None:
+            exact = getattr(evidence, key, None) if evidence is not None else None
+            findings.append(Finding(
+                "warning", "gain-hand-differs",
+                f"{name}: hand estimate {_hz(hand)}, but the {COLUMN_NAMES[swept]} response never falls 3 dB below "
+                f"its midband gain " + (f"down to {_hz(sweep[0])}" if key == "low_hz" else f"up to {_hz(sweep[1])}")
+                + ": the circuit has no such edge there",
+                line, subject, quantity=key,
+            ))  # fmt: skip
+            cause = (_low_cause if key == "low_hz" else _high_cause)(hand, exact, evidence)
+            cause += ("; the hand network's own response has no such edge either" if exact is None else
+                      f"; the hand network's own −3 dB point is {_hz(exact)}")
+            findings.append(Finding("info", "band-cause", "cause: " + cause, line, subject, quantity=key))
+            continue
         if hand is None or reference is None or not (math.isfinite(hand) and math.isfinite(reference)):
             continue
         change = relative(hand, reference)
@@ -213,6 +230,8 @@ def _high_cause(hand: float, exact: float | None, evidence) -> str:
         tau_in, tau_out = evidence.miller
         words += (f" (here τin = {engineering(tau_in, 's')}, τout = {engineering(tau_out, 's')}, "
                   f"{100 * tau_in / (tau_in + tau_out):.0f} % at the gate)")
+        if tau_in == 0.0:
+            words += "; τin is 0 because the gate is driven through no resistance"
     return words
 
 

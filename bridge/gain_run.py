@@ -253,8 +253,10 @@ def run_gain(
         columns[key] = {**columns[key], "hand": None}
     findings.extend(compare_columns(columns, tolerance, subject, line))
     places = _band_places(circuit, column, line, subject)
+    swept = "sim" if measurement is not None else "level1" if level1_values is not None else None
     findings.extend(band_findings(band, evidence, tolerance, band_tolerance, places,
-                                  junction_capacitances=_junction_capacitances(circuit)))  # fmt: skip
+                                  junction_capacitances=_junction_capacitances(circuit), swept=swept,
+                                  sweep=(start, stop)))  # fmt: skip
     changes: dict[str, float] = {}
     if hand is not None and column is not None and column.gain is not None:
         with_effect = {}

@@ -147,3 +147,36 @@ RD vdd d 10k""")
         values = getattr(result, quantity)
         assert values["level1"] == pytest.approx(values["sim"], rel=5e-3)
     assert result.agree
+
+
+def test_a_pmos_stage_on_split_supplies_with_no_upper_edge_says_so(required_ngspice_session):
+    """A PMOS common source, RS unbypassed, split supplies, its gate driven through CIN by an ideal
+    source: Cgd carries the input to the drain, so the response never falls 3 dB above midband.
+    The Miller estimate still gives a number; the tool says the circuit has no such edge (before:
+    the estimate stood alone in the table, unflagged)."""
+    result = run_gain(_circuit("""VP vp 0 DC 5
+VN vn 0 DC -5
+VIN sig 0 DC 0 AC 1
+CIN sig g 1u
+RG g 0 1meg
+RS vp s 2.2k
+M1 d g s vp PB W=80u L=2u
+RD d vn 3.3k
+COUT d out 1u
+RL out 0 47k""", ".model PB pmos (level=1 vto=-0.8 kp=45u lambda=0.02 tox=25n cgso=0.3n cgdo=0.3n)"),
+        required_ngspice_session)  # fmt: skip
+    # Hand bias: VSG = 5 − ID·RS with ID = K/2·(VSG − 0.8)², K = 45u·80/2; VOV from the quadratic.
+    k, rs = 45e-6 * 80 / 2, 2.2e3
+    a, b, c = k * rs / 2, 1.0, -(5.0 - 0.8)
+    vov = (-b + math.sqrt(b * b - 4 * a * c)) / (2 * a)
+    gm = k * vov
+    rd = 3.3e3 * 47e3 / (3.3e3 + 47e3)
+    assert result.gain["hand"] == pytest.approx(-gm * rd / (1 + gm * rs), rel=1e-6)
+    for quantity in ("gain", "rin", "rout"):
+        values = getattr(result, quantity)
+        assert values["level1"] == pytest.approx(values["sim"], rel=5e-3)
+    assert result.band["high_hz"]["hand"] is not None and result.band["high_hz"]["sim"] is None
+    flagged = [f for f in result.findings if f.code == "gain-hand-differs" and f.quantity == "high_hz"]
+    assert flagged and "never falls 3 dB below its midband gain up to" in flagged[0].message
+    cause = next(f for f in result.findings if f.code == "band-cause" and f.quantity == "high_hz")
+    assert "the gate is driven through no resistance" in cause.message
