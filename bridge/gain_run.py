@@ -42,9 +42,11 @@ from .commands.gain_defaults import (
 from .devices.mos1.smallsignal import card_gives_junction_capacitances
 from .gain_compare import BAND_TOLERANCE, attribution, band_findings, compare_columns, phase_findings
 from .netlist.circuit import Circuit
-from .vocabulary import EFFECTS, Finding, simulator_failure
+from .vocabulary import COLUMN_NAMES, EFFECTS, Finding, simulator_failure
 
 COLUMN_KEYS = ("hand", "level1", "sim")
+# A reference gain below this (V/V) means the input does not reach the output (common practice, no source).
+NO_SIGNAL = 1e-9
 
 
 @dataclass(frozen=True)
@@ -254,6 +256,13 @@ def run_gain(
     findings.extend(compare_columns(columns, tolerance, subject, line))
     places = _band_places(circuit, column, line, subject)
     swept = "sim" if measurement is not None else "level1" if level1_values is not None else None
+    reference_gain = gain["sim"] if gain["sim"] is not None else gain["level1"]
+    if swept is not None and reference_gain is not None and abs(reference_gain) < NO_SIGNAL:
+        findings.append(Finding("warning", "no-output-signal", f"the input {source.value} does not reach "
+                                f"{output.value}: |gain| is below {NO_SIGNAL:g} in the {COLUMN_NAMES[swept]} column, "
+                                "so it has no band edges either; name another node with --output",
+                                None, None))  # fmt: skip
+        band = {key: {**values, "hand": None} for key, values in band.items()}
     findings.extend(band_findings(band, evidence, tolerance, band_tolerance, places,
                                   junction_capacitances=_junction_capacitances(circuit), swept=swept,
                                   sweep=(start, stop)))  # fmt: skip

@@ -180,3 +180,23 @@ RL out 0 47k""", ".model PB pmos (level=1 vto=-0.8 kp=45u lambda=0.02 tox=25n cg
     assert flagged and "never falls 3 dB below its midband gain up to" in flagged[0].message
     cause = next(f for f in result.findings if f.code == "band-cause" and f.quantity == "high_hz")
     assert "the gate is driven through no resistance" in cause.message
+
+
+def test_an_output_the_signal_never_reaches_is_a_finding_not_band_edges(required_ngspice_session):
+    """`ref`, a divider from the supply, carries no signal: gain 0 everywhere. Before, the hand
+    low band edge estimate stood beside it as if the node had a band."""
+    circuit = _circuit("""VDD vdd 0 DC 9
+VIN sig 0 DC 0 AC 1
+CIN sig g 1u
+R1 vdd g 680k
+R2 g 0 220k
+RD vdd d 4.7k
+M1 d g 0 0 NB W=10u L=2u
+RA vdd ref 10k
+RB ref 0 10k""")
+    result = run_gain(circuit, required_ngspice_session, output_name="ref")
+    codes = _codes(result)
+    assert "no-output-signal" in codes and not result.agree
+    assert result.band["low_hz"]["hand"] is None
+    assert not any(f.quantity in ("low_hz", "high_hz") for f in result.findings)
+    assert result.rout["hand"] == pytest.approx(10e3) and result.rout["sim"] == pytest.approx(10e3, rel=1e-6)
