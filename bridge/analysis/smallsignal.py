@@ -619,6 +619,9 @@ def hand_column(circuit: Circuit, hand: HandSolution, setup: SignalSetup) -> Han
     steps: list[Step] = [Step("Hand small-signal model: gm = K·VOV at the hand bias point, ro infinite (λ = 0), "
                               "no body effect (γ = 0), every capacitor of the netlist a short at midband, "
                               "the supplies AC ground")]  # fmt: skip
+    for name, (shorted_gain, open_gain) in loads.items():
+        steps.append(Step(f"Except {name}: shorted it lowers the gain (|Av| {abs(open_gain):.4g} open, "
+                          f"{abs(shorted_gain):.4g} shorted), so it is a load or feedback capacitance, kept as jωC"))
     closed = _closed_form(circuit, network, devices, setup, shorted, steps, numeric)
     label = None
     if closed is not None:
