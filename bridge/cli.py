@@ -513,7 +513,8 @@ def _gain_with(args: argparse.Namespace, session: object, hint: str) -> int:
             raise ValueError("the netlist has no MOSFET: `gain` follows a MOSFET stage")
         result = run_gain(
             circuit, session, input_name=args.input, output_name=args.output, frequency=frequency,
-            tolerance=args.tol, sim_timeout=sim_timeout, unavailable_hint=None if session is not None else hint,
+            tolerance=args.tol, band_tolerance=args.band_tol, sim_timeout=sim_timeout,
+            unavailable_hint=None if session is not None else hint,
         )  # fmt: skip
     except (GainInputError, SweepInputError, ValueError) as exc:
         return refuse(f"{args.file}: {exc}")
@@ -927,6 +928,9 @@ def build_parser() -> argparse.ArgumentParser:
                       help="write ngspice's magnitude and phase with the hand values")
     gain.add_argument("--tol", type=_tolerance, default=0.05, metavar="TOL",
                       help="hand-vs-simulator tolerance, e.g. 5%% or 0.05 (default 5%%)")
+    gain.add_argument("--band-tol", type=_tolerance, default=0.5, metavar="TOL",
+                      help="how far the hand band-edge estimates may be from the simulator when the hand network's "
+                           "own -3 dB point is within --tol (default 50%%)")
     gain.add_argument("--sim-timeout", default="30", metavar="SECONDS",
                       help="give up on ngspice after this long (default 30)")
     gain.set_defaults(run=command_gain)

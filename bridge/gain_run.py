@@ -8,6 +8,7 @@ hand and level-1 columns still report and ``simulator`` says why the third is em
 
 from __future__ import annotations
 
+import contextlib
 import math
 from dataclasses import dataclass, field
 
@@ -18,27 +19,34 @@ from .analysis.smallsignal import (
     Level1Column,
     SignalSetup,
     SmallSignalError,
+    hand_band_evidence,
     hand_column,
     hand_gain_with,
+    level1_band_edges,
     level1_column,
     signed,
 )
 from .commands.gain_defaults import (
     Choice,
+    GainInputError,
     NoMidband,
     default_input,
     default_load,
     default_output,
     given_input,
     given_output,
+    held_output,
     midband,
     sweep_range,
 )
-from .gain_compare import attribution, compare_columns
+from .devices.mos1.smallsignal import card_gives_junction_capacitances
+from .gain_compare import BAND_TOLERANCE, attribution, band_findings, compare_columns, phase_findings
 from .netlist.circuit import Circuit
-from .vocabulary import EFFECTS, Finding, simulator_failure
+from .vocabulary import COLUMN_NAMES, EFFECTS, Finding, simulator_failure
 
 COLUMN_KEYS = ("hand", "level1", "sim")
+# A reference gain below this (V/V) means the input does not reach the output (common practice, no source).
+NO_SIGNAL = 1e-9
 
 
 @dataclass(frozen=True)
@@ -99,6 +107,7 @@ def run_gain(
     output_name: str | None = None,
     frequency: float | None = None,
     tolerance: float = 0.05,
+    band_tolerance: float = BAND_TOLERANCE,
     sim_timeout: float = 30.0,
     unavailable_hint: str | None = None,
 ) -> GainResult:
@@ -107,6 +116,10 @@ def run_gain(
     findings: list[Finding] = []
     source = given_input(circuit, input_name) if input_name else default_input(circuit)
     output = given_output(circuit, output_name) if output_name else default_output(circuit)
+    holder = held_output(circuit, output.value, source.value) if output_name else None  # type: ignore[arg-type]
+    if holder is not None:
+        raise GainInputError(f"--output: `{output.value}` is held by {holder} (a voltage source other than the "
+                             "input): it is AC ground and carries no signal")  # fmt: skip
     load = default_load(circuit, output.value)  # type: ignore[arg-type]
     mosfet = circuit.elements_of("mosfet")[0]
     subject, line = mosfet.name, mosfet.origin.line
@@ -116,7 +129,7 @@ def run_gain(
         base = dict(file=circuit.source_file, title=circuit.title, input=source, output=output, load=load,
                     frequency=None, frequency_why="", sweep=None, simulator=simulator, gain=_empty(),
                     rin=_empty(), rout=_empty(),
-                    band={"low_hz": {"hand": None, "sim": None}, "high_hz": {"hand": None, "sim": None}},
+                    band={"low_hz": dict.fromkeys(COLUMN_KEYS), "high_hz": dict.fromkeys(COLUMN_KEYS)},
                     attribution={}, findings=tuple(findings))  # fmt: skip
         base.update(values)
         return GainResult(**base)
@@ -206,7 +219,15 @@ def run_gain(
         except SmallSignalError as exc:
             findings.append(Finding("error", "level1-unavailable", f"level-1 small-signal model: {exc}", None, None))
 
-    band = {"low_hz": {"hand": low, "sim": None}, "high_hz": {"hand": high, "sim": None}}
+    band = {"low_hz": {"hand": low, "level1": None, "sim": None},
+            "high_hz": {"hand": high, "level1": None, "sim": None}}  # fmt: skip
+    if level1_values is not None:
+        with contextlib.suppress(SmallSignalError):
+            band["low_hz"]["level1"], band["high_hz"]["level1"] = level1_band_edges(circuit, level1, setup, start, stop)
+    evidence = None
+    if column is not None and hand is not None:
+        with contextlib.suppress(SmallSignalError):
+            evidence = hand_band_evidence(circuit, hand, column, setup, start, stop)
     measurement = None
     if session is not None:
         measurement = _measure(session, circuit, setup, start, stop, sim_timeout, findings)
@@ -219,8 +240,32 @@ def run_gain(
     else:
         findings.append(Finding("info", "no-simulator", unavailable_hint or "ngspice not available", None, None))
 
-    columns = {"gain": gain, "rin": rin, "rout": rout, "low_hz": band["low_hz"], "high_hz": band["high_hz"]}
+    columns = {"gain": gain, "rin": rin, "rout": rout}
+    if measurement is not None:
+        complex_values = {"gain": measurement.gain, "rin": measurement.rin, "rout": measurement.rout}
+        phased, skip = phase_findings(complex_values, "sim", chosen, line, subject)
+    elif level1_values is not None:
+        complex_values = {"gain": level1_values.gain_complex, "rin": level1_values.rin_complex,
+                          "rout": level1_values.rout_complex}  # fmt: skip
+        phased, skip = phase_findings(complex_values, "level1", chosen, line, subject)
+    else:
+        phased, skip = [], set()
+    findings.extend(phased)
+    for key in skip:
+        columns[key] = {**columns[key], "hand": None}
     findings.extend(compare_columns(columns, tolerance, subject, line))
+    places = _band_places(circuit, column, line, subject)
+    swept = "sim" if measurement is not None else "level1" if level1_values is not None else None
+    reference_gain = gain["sim"] if gain["sim"] is not None else gain["level1"]
+    if swept is not None and reference_gain is not None and abs(reference_gain) < NO_SIGNAL:
+        findings.append(Finding("warning", "no-output-signal", f"the input {source.value} does not reach "
+                                f"{output.value}: |gain| is below {NO_SIGNAL:g} in the {COLUMN_NAMES[swept]} column, "
+                                "so it has no band edges either; name another node with --output",
+                                None, None))  # fmt: skip
+        band = {key: {**values, "hand": None} for key, values in band.items()}
+    findings.extend(band_findings(band, evidence, tolerance, band_tolerance, places,
+                                  junction_capacitances=_junction_capacitances(circuit), swept=swept,
+                                  sweep=(start, stop)))  # fmt: skip
     changes: dict[str, float] = {}
     if hand is not None and column is not None and column.gain is not None:
         with_effect = {}
@@ -237,6 +282,28 @@ def run_gain(
     return result(frequency=chosen, frequency_why=why, sweep=(start, stop), gain=gain, rin=rin, rout=rout,
                   band=band, attribution=changes, findings=tuple(findings), hand=column, measurement=measurement,
                   topology=column.closed_form if column else None)  # fmt: skip
+
+
+def _band_places(circuit: Circuit, column: HandColumn | None, line: int | None,
+                 subject: str | None) -> dict[str, tuple[int | None, str | None]]:  # fmt: skip
+    """Where a band-edge finding points: the low edge at the capacitor whose short-circuit term is
+    the largest (the MOSFET without one), the upper edge at the MOSFET (its gate capacitances)."""
+    places = {"low_hz": (line, subject), "high_hz": (line, subject)}
+    terms = [t for t in (column.low_terms if column else ()) if 0.0 < t.pole_hz < math.inf]
+    if terms:
+        dominant = circuit.element(max(terms, key=lambda t: t.pole_hz).capacitor)
+        if dominant is not None:
+            places["low_hz"] = (dominant.origin.line, dominant.name)
+    return places
+
+
+def _junction_capacitances(circuit: Circuit) -> bool:
+    """Whether a MOSFET's card gives bulk junction capacitances, which the level-1 column leaves out."""
+    for element in circuit.elements_of("mosfet"):
+        card = circuit.model(element.model or "")
+        if card is not None and card_gives_junction_capacitances(card.params):
+            return True
+    return False
 
 
 def _simulator(session, hint: str | None) -> dict:

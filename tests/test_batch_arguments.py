@@ -89,9 +89,9 @@ def _fuzz(verb: str, examples: int, capsys) -> None:
     run()
 
 
-# How many examples each command gets by default: parse and lint are quick; check and sweep
-# start ngspice for each example (0.1-0.3 s).
-QUICK = {"parse": 60, "lint": 40, "check": 20, "sweep": 15}
+# How many examples each command gets by default: parse and lint are quick; check, sweep and gain
+# start ngspice for each example (0.1-0.3 s), spread solves its corners and runs the worst in ngspice.
+QUICK = {"parse": 60, "lint": 40, "check": 20, "sweep": 15, "gain": 12, "spread": 12}
 
 
 @pytest.mark.parametrize("verb", list(QUICK))

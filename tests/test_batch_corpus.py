@@ -7,8 +7,9 @@ binary and empty files, unicode, very long lines, CR/CRLF line ends. Some are st
 checks; the rest it must refuse with a located message, the file's own finding, and go on.
 
 Each command runs once over the whole corpus (`parse`, `check` and `lint` take every file in one
-command line; `sweep` takes one netlist, so one Python process calls it for each file in turn)
-under a timeout, so a hang fails the test instead of stalling CI.
+command line; `sweep`, `gain` and `spread` take one netlist, so one Python process calls them for
+each file in turn) under a timeout, so a hang fails the test instead of stalling CI. `gain` and
+`spread` run over a sample by default and over the whole corpus under the `slow` mark.
 """
 
 from __future__ import annotations
@@ -176,3 +177,50 @@ def test_sweep_goes_on_past_refused_files_in_one_process(options):
 def test_sweep_over_the_whole_corpus_in_one_process_never_raises(options):
     """Slow (12–30 s on a shared 2-core machine): every stage of the corpus is swept, ngspice's `.dc` runs included."""
     _sweep_batch(NETLISTS, options)
+
+
+# `gain` and `spread` take one netlist each, like `sweep`: one process calls the command for each file.
+COMMAND_DRIVER = SWEEP_DRIVER.replace('main(["sweep", path, *options])', "main([verb, path, *options])").replace(
+    "options = sys.argv[1].split()\nfor path in sys.argv[2:]:",
+    "verb = sys.argv[1]\noptions = sys.argv[2].split()\nfor path in sys.argv[3:]:",
+)
+# The files both refuse at once, and a few stages each runs to the end (one ngspice start each).
+ONE_FILE_SAMPLE = sorted({*UNUSABLE_EXAMPLES, "no_mosfet.cir", "cs_hive_scale.cir", "sf_hive_temp.cir",
+                          "two_mosfets.cir", "controlled_sources.cir", "meas_tran_ac.cir", "crlf_ends.cir"})
+SPREAD_OPTIONS = "--resistors 5 --vto 50m --samples 200"
+
+
+def _one_file_batch(verb: str, netlists: list[str], options: str) -> dict[str, str]:
+    """`verb` on each netlist in turn in one process: never a traceback, an exit status per file,
+    every unusable example refused (2) with a message naming its file; the status per file."""
+    completed = _run(["-c", COMMAND_DRIVER, verb, options, *netlists])
+    assert "Traceback" not in completed.stderr, completed.stderr[-3000:]
+    statuses = re.findall(r"^=== status (\S+)$", completed.stdout, re.MULTILINE)
+    assert len(statuses) == len(netlists), completed.stdout[-3000:]
+    assert set(statuses) <= {"0", "1", "2"}, statuses
+    per_file = dict(zip(netlists, statuses, strict=True))
+    assert all(per_file[name] == "2" for name in UNUSABLE_EXAMPLES if name in per_file)
+    parts = re.split(r"^=== (\S+\.cir)$", completed.stderr, flags=re.MULTILINE)[1:]
+    for name, text in zip(parts[::2], parts[1::2], strict=True):
+        if per_file[name] == "2":
+            assert re.search(rf"^(biasbridge: error: )?{re.escape(name)}(:\d+:\d+)?: ", text, re.MULTILINE), text
+    return per_file
+
+
+def test_gain_goes_on_past_refused_files_in_one_process():
+    per_file = _one_file_batch("gain", ONE_FILE_SAMPLE, "")
+    assert per_file["no_mosfet.cir"] == "2"
+    assert {per_file[name] for name in ("cs_hive_scale.cir", "sf_hive_temp.cir")} <= {"0", "1"}
+
+
+def test_spread_goes_on_past_refused_files_in_one_process():
+    per_file = _one_file_batch("spread", ONE_FILE_SAMPLE, SPREAD_OPTIONS)
+    assert {per_file[name] for name in ("cs_hive_scale.cir", "sf_hive_temp.cir")} <= {"0", "1"}
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("verb, options", [("gain", "--json"), ("spread", SPREAD_OPTIONS)])
+def test_gain_and_spread_over_the_whole_corpus_in_one_process_never_raise(verb, options):
+    """Slow (~10 s each on a shared 2-core machine: gain starts ngspice once per stage). spread
+    leaves out extreme_supply.cir, which alone takes it 16 s (its corners in ngspice)."""
+    _one_file_batch(verb, [n for n in NETLISTS if verb != "spread" or n != "extreme_supply.cir"], options)

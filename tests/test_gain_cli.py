@@ -1,11 +1,10 @@
 """`biasbridge gain` on the command line: every bad argument exits 2 with a clear message and no
-traceback; the bundled example runs."""
+traceback; the bundled example runs. (The random option lists are in tests/test_batch_arguments.py.)"""
 
 from __future__ import annotations
 
 import pytest
 from conftest import EXAMPLES
-from test_batch_arguments import _fuzz, workspace  # noqa: F401 - the fuzz and its working folder (a fixture)
 
 from bridge.cli import main
 
@@ -41,6 +40,8 @@ def stage(tmp_path):
         (["--output", "0"], "ground is not an output node"),
         (["--tol", "200"], "tolerance 200 is out of range"),
         (["--tol", "five"], "is not a tolerance"),
+        (["--band-tol", "half"], "is not a tolerance"),
+        (["--band-tol", "0"], "tolerance 0 is out of range"),
         (["--sim-timeout", "0"], "--sim-timeout"),
         (["--plot", "missing-folder/plot.png"], "does not exist"),
         (["--plot", "plot.txt"], "plot"),
@@ -91,14 +92,18 @@ def test_plot_is_written(stage, tmp_path, required_ngspice_session, capsys):
     assert target.read_text().lstrip().startswith("<?xml") and "hand midband gain" in target.read_text()
 
 
-@pytest.mark.usefixtures("workspace")
-def test_random_gain_option_lists_end_in_exit_0_1_or_2_without_a_traceback(capsys):
-    """The batch tests' argument fuzz (options read from the parser) on `gain`."""
-    _fuzz("gain", 25, capsys)
-
-
 @pytest.mark.parametrize("seconds", ["inf", "1e400", "nan"])
 def test_a_simulator_timeout_beyond_a_day_or_not_a_number_is_refused(seconds, stage, capsys):
     assert _status(["gain", str(stage), "--sim-timeout", seconds]) == 2
     err = capsys.readouterr().err
     assert "--sim-timeout" in err and "Traceback" not in err
+
+
+def test_the_documents_say_gain_simulates_ac():
+    """README and DEVELOPERS: every statement of which analyses are simulated names `.ac` (`gain`)."""
+    root = EXAMPLES.parent
+    for name in ("README.md", "DEVELOPERS.md"):
+        text = (root / name).read_text()
+        for statement in ("ever simulated", "worker: .op, .dc"):
+            for line in (line for line in text.splitlines() if statement in line):
+                assert ".ac" in line, f"{name}: {line}"

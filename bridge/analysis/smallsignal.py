@@ -22,9 +22,10 @@ project's own level-1 operating point, its Meyer gate capacitances where the car
 
 from __future__ import annotations
 
+import contextlib
 import math
 from collections.abc import Iterable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -162,6 +163,33 @@ class SignalNetwork:
         elements named in `removed` are taken out, every other capacitor is jωC (open at 0 Hz).
         Raises SmallSignalError when the network is singular or the input is shorted.
         """
+        s = np.array([2j * math.pi * frequency])
+        matrices, rhs, at, size, branches = self._assemble(s, shorted=shorted, removed=removed, inject=inject)
+        try:
+            solution = np.linalg.solve(matrices[0], rhs) if size else np.zeros(0, dtype=complex)
+        except np.linalg.LinAlgError:
+            raise SmallSignalError("the small-signal network is singular (a node with no path at this "
+                                   "frequency)") from None
+        if not np.all(np.isfinite(solution)):
+            raise SmallSignalError("the small-signal network is singular")
+        voltages = {GROUND: 0j}
+        for node in self.circuit.nodes():
+            k = at(node)
+            voltages[node] = complex(solution[k]) if k >= 0 else 0j
+        source = self.source
+        driven = inject is None
+        current = None
+        if driven and source in branches:
+            current = -complex(solution[size - len(branches) + branches.index(source)])
+        elif driven:
+            current = 1.0 + 0j
+        return voltages, current
+
+    def _assemble(self, s: np.ndarray, *, shorted: Iterable[str] = (), removed: Iterable[str] = (),
+                  inject: tuple[str, str] | None = None):  # fmt: skip
+        """The nodal system at each complex frequency of `s` (rad/s; 0 is DC: capacitors open,
+        inductors left out), as `solve` describes it: (matrices (len(s), n, n), right-hand side (n),
+        node → row (−1: ground), n, the branch elements)."""
         shorted_set = {n.lower() for n in shorted}
         removed_set = {n.lower() for n in removed}
         source = self.source
@@ -190,22 +218,25 @@ class SignalNetwork:
         names = [n for n in dict.fromkeys(roots.find(n) for n in roots.parent) if n != GROUND]
         index = {n: k for k, n in enumerate(names)}
         size = len(names) + len(branches)
-        matrix = np.zeros((size, size), dtype=complex)
+        s = np.asarray(s, dtype=complex)
+        matrix = np.zeros((len(s), size, size), dtype=complex)
         rhs = np.zeros(size, dtype=complex)
-        omega = 2.0 * math.pi * frequency
+        reactive = bool(np.any(s != 0.0))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            inverse_s = np.where(s != 0.0, 1.0 / np.where(s != 0.0, s, 1.0), 0.0)
 
         def at(node: str) -> int:
             return index.get(roots.find(node), -1)
 
-        def admit(a: int, b: int, y: complex) -> None:
+        def admit(a: int, b: int, y) -> None:
             if a >= 0:
-                matrix[a, a] += y
+                matrix[:, a, a] += y
                 if b >= 0:
-                    matrix[a, b] -= y
+                    matrix[:, a, b] -= y
             if b >= 0:
-                matrix[b, b] += y
+                matrix[:, b, b] += y
                 if a >= 0:
-                    matrix[b, a] -= y
+                    matrix[:, b, a] -= y
 
         def transfer(out_p: int, out_n: int, in_p: int, in_n: int, g: complex) -> None:
             """g·(v(in_p) − v(in_n)) flowing out of out_p into out_n through the element."""
@@ -213,9 +244,9 @@ class SignalNetwork:
                 if row < 0:
                     continue
                 if in_p >= 0:
-                    matrix[row, in_p] += sign * g
+                    matrix[:, row, in_p] += sign * g
                 if in_n >= 0:
-                    matrix[row, in_n] -= sign * g
+                    matrix[:, row, in_n] -= sign * g
 
         for element in self.elements:
             name = element.name.lower()
@@ -226,12 +257,12 @@ class SignalNetwork:
                 resistance = _value(element) / _multiplier(element)
                 if resistance != 0.0:
                     admit(at(element.nodes[0]), at(element.nodes[1]), 1.0 / resistance)
-            elif kind == "capacitor" and name not in shorted_set and omega > 0.0:
-                admit(at(element.nodes[0]), at(element.nodes[1]), 1j * omega * _value(element) * _multiplier(element))
+            elif kind == "capacitor" and name not in shorted_set and reactive:
+                admit(at(element.nodes[0]), at(element.nodes[1]), s * (_value(element) * _multiplier(element)))
             elif kind == "inductor":
                 inductance = _value(element) / _multiplier(element)
-                if omega > 0.0 and inductance != 0.0:
-                    admit(at(element.nodes[0]), at(element.nodes[1]), 1.0 / (1j * omega * inductance))
+                if reactive and inductance != 0.0:
+                    admit(at(element.nodes[0]), at(element.nodes[1]), inverse_s / inductance)
             elif kind == "vccs":
                 p, n, cp, cn = (at(x) for x in element.nodes[:4])
                 transfer(p, n, cp, cn, _value(element))
@@ -239,38 +270,38 @@ class SignalNetwork:
                 device = self.devices.get(element.name)
                 if device is None:
                     raise SmallSignalError(f"{element.name}: no small-signal model")
-                d, g, s, b = (at(x) for x in element.nodes[:4])
-                for column, conductance in zip((d, g, s, b), device.conductances):
+                d, g, src, b = (at(x) for x in element.nodes[:4])
+                for column, conductance in zip((d, g, src, b), device.conductances):
                     if column < 0 or conductance == 0.0:
                         continue
                     if d >= 0:
-                        matrix[d, column] += conductance
-                    if s >= 0:
-                        matrix[s, column] -= conductance
+                        matrix[:, d, column] += conductance
+                    if src >= 0:
+                        matrix[:, src, column] -= conductance
                 admit(b, d, device.gbd)
-                admit(b, s, device.gbs)
-                if device.capacitances is not None and omega > 0.0:
+                admit(b, src, device.gbs)
+                if device.capacitances is not None and reactive:
                     caps = device.capacitances
-                    admit(g, s, 1j * omega * caps.cgs)
-                    admit(g, d, 1j * omega * caps.cgd)
-                    admit(g, b, 1j * omega * caps.cgb)
+                    admit(g, src, s * caps.cgs)
+                    admit(g, d, s * caps.cgd)
+                    admit(g, b, s * caps.cgb)
         for k, element in enumerate(branches):
             row = len(names) + k
             p, n = at(element.nodes[0]), at(element.nodes[1])
             # The branch current flows into n+, through the element, out of n− (SPICE sign).
             if p >= 0:
-                matrix[p, row] += 1.0
-                matrix[row, p] += 1.0
+                matrix[:, p, row] += 1.0
+                matrix[:, row, p] += 1.0
             if n >= 0:
-                matrix[n, row] -= 1.0
-                matrix[row, n] -= 1.0
+                matrix[:, n, row] -= 1.0
+                matrix[:, row, n] -= 1.0
             if element.kind == "vcvs":
                 cp, cn = at(element.nodes[2]), at(element.nodes[3])
                 gain = _value(element)
                 if cp >= 0:
-                    matrix[row, cp] -= gain
+                    matrix[:, row, cp] -= gain
                 if cn >= 0:
-                    matrix[row, cn] += gain
+                    matrix[:, row, cn] += gain
             else:
                 rhs[row] = 1.0
         if driven and source.kind == "isource":
@@ -285,23 +316,31 @@ class SignalNetwork:
                 rhs[a] += 1.0
             if b >= 0:
                 rhs[b] -= 1.0
+        return matrix, rhs, at, size, branches
+
+    def transfer(self, s: np.ndarray, output: str, shorted: Iterable[str] = ()) -> np.ndarray:
+        """The gain v(output)/v(input source's terminals) at each complex frequency of `s` (rad/s,
+        none 0), in one stacked solve; NaN where the network is singular there."""
+        matrices, rhs, at, size, _ = self._assemble(np.asarray(s, dtype=complex), shorted=shorted)
+        if not size:
+            return np.full(len(s), np.nan, dtype=complex)
+        solution = np.full((len(s), size), np.nan, dtype=complex)
         try:
-            solution = np.linalg.solve(matrix, rhs) if size else np.zeros(0, dtype=complex)
-        except np.linalg.LinAlgError:
-            raise SmallSignalError("the small-signal network is singular (a node with no path at this "
-                                   "frequency)") from None
-        if not np.all(np.isfinite(solution)):
-            raise SmallSignalError("the small-signal network is singular")
-        voltages = {GROUND: 0j}
-        for node in self.circuit.nodes():
-            k = at(node)
-            voltages[node] = complex(solution[k]) if k >= 0 else 0j
-        current = None
-        if driven and source in branches:
-            current = -complex(solution[len(names) + branches.index(source)])
-        elif driven:
-            current = 1.0 + 0j
-        return voltages, current
+            solution = np.linalg.solve(matrices, np.broadcast_to(rhs, (len(s), size))[..., None])[..., 0]
+        except np.linalg.LinAlgError:  # one singular frequency: the others one by one
+            for k in range(len(s)):
+                try:
+                    solution[k] = np.linalg.solve(matrices[k], rhs)
+                except np.linalg.LinAlgError:
+                    continue
+
+        def node(name: str) -> np.ndarray:
+            k = at(name)
+            return solution[:, k] if k >= 0 else np.zeros(len(s), dtype=complex)
+
+        plus, minus = self.source.nodes[:2]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return node(output) / (node(plus) - node(minus))
 
     def input_voltage(self, voltages: Mapping[str, complex]) -> complex:
         """The input source's own terminal voltage v(n+) − v(n−)."""
@@ -430,6 +469,7 @@ class HandColumn:
     steps: tuple[Step, ...]
     low_terms: tuple[LowBandTerm, ...]
     notes: tuple[str, ...] = ()
+    miller: tuple[float, float] | None = None  # (τin, τout) of the Miller estimate, s
 
 
 def _q(value: float, unit: str) -> str:
@@ -438,11 +478,13 @@ def _q(value: float, unit: str) -> str:
     return engineering(value, unit)
 
 
-def short_circuit_terms(network: SignalNetwork) -> tuple[LowBandTerm, ...]:
+def short_circuit_terms(network: SignalNetwork, left_open: Iterable[str] = ()) -> tuple[LowBandTerm, ...]:
     """Per capacitor of the netlist: the resistance it sees with every other capacitor shorted,
     the input source zeroed (hand small-signal model), and its pole."""
     capacitors = network.capacitors
     terms = []
+    left_open = {name.lower() for name in left_open}
+    capacitors = tuple(c for c in capacitors if c.name.lower() not in left_open)
     for cap in capacitors:
         others = [c.name for c in capacitors if c is not cap]
         a, b = cap.nodes[0], cap.nodes[1]
@@ -460,6 +502,31 @@ def short_circuit_terms(network: SignalNetwork) -> tuple[LowBandTerm, ...]:
             pole = 1.0 / (2.0 * math.pi * resistance * capacitance)
         terms.append(LowBandTerm(cap.name, capacitance, resistance, pole))
     return tuple(terms)
+
+
+def load_capacitors(network: SignalNetwork, setup: SignalSetup) -> dict[str, tuple[float, float]]:
+    """The netlist's capacitors that are not coupling or bypass ones: those whose short lowers the
+    hand network's gain (every other capacitor shorted, at DC otherwise), as a load or a feedback
+    capacitance does; each with (|gain| shorted, |gain| open)."""
+    capacitors = network.capacitors
+    if not capacitors:
+        return {}
+    names = [c.name for c in capacitors]
+    try:
+        voltages, _ = network.solve(0.0, shorted=names)
+        all_shorted = abs(voltages[setup.output_node] / network.input_voltage(voltages))
+    except (SmallSignalError, ZeroDivisionError):
+        return {}
+    found = {}
+    for cap in capacitors:
+        try:
+            voltages, _ = network.solve(0.0, shorted=[n for n in names if n != cap.name])
+            opened = abs(voltages[setup.output_node] / network.input_voltage(voltages))
+        except (SmallSignalError, ZeroDivisionError):
+            continue
+        if math.isfinite(opened) and all_shorted < opened * (1.0 - 1e-9):
+            found[cap.name] = (all_shorted, opened)
+    return found
 
 
 def low_band_edge(terms: Iterable[LowBandTerm]) -> float | None:
@@ -533,19 +600,28 @@ def hand_column(circuit: Circuit, hand: HandSolution, setup: SignalSetup) -> Han
     """
     devices = hand_devices(circuit, hand)
     network = SignalNetwork(circuit, devices, setup.input_source)
-    shorted = tuple(c.name for c in network.capacitors)
+    loads = load_capacitors(network, setup)
+    shorted = tuple(c.name for c in network.capacitors if c.name not in loads)
     notes: list[str] = []
+    for name, (shorted_gain, open_gain) in loads.items():
+        notes.append(f"{name}: shorting it lowers the hand gain (|Av| {abs(open_gain):.4g} open, "
+                     f"{abs(shorted_gain):.4g} shorted): a load or feedback (low-pass) capacitance, not a coupling or "
+                     "bypass one; the hand model keeps it as jωC at midband instead of a short, the low band edge "
+                     "estimate leaves it out, and no hand estimate of the upper band edge includes it")  # fmt: skip
     numeric: tuple[float, float, float] | None = None
     try:
         gain_c, rin_c, rout_c = network.midband(setup.midband_hz, setup.output_node, setup.load, shorted)
         numeric = (signed(gain_c), signed(rin_c), signed(rout_c))
     except SmallSignalError as exc:
         notes.append(f"the hand small-signal network: {exc}")
-    terms = short_circuit_terms(network)
+    terms = short_circuit_terms(network, loads)
     low = low_band_edge(terms)
     steps: list[Step] = [Step("Hand small-signal model: gm = K·VOV at the hand bias point, ro infinite (λ = 0), "
                               "no body effect (γ = 0), every capacitor of the netlist a short at midband, "
                               "the supplies AC ground")]  # fmt: skip
+    for name, (shorted_gain, open_gain) in loads.items():
+        steps.append(Step(f"Except {name}: shorted it lowers the gain (|Av| {abs(open_gain):.4g} open, "
+                          f"{abs(shorted_gain):.4g} shorted), so it is a load or feedback capacitance, kept as jωC"))
     closed = _closed_form(circuit, network, devices, setup, shorted, steps, numeric)
     label = None
     if closed is not None:
@@ -568,8 +644,10 @@ def hand_column(circuit: Circuit, hand: HandSolution, setup: SignalSetup) -> Han
     if low is not None and terms:
         steps.append(Step("Low band edge, short-circuit time constants: f_L ≈ Σ 1/(2π·Rk·Ck)",
                           f"f_L ≈ {_q(low, 'Hz')}", low, "Hz"))
-    high = _miller(circuit, hand, network, setup, shorted, label if gain is not None else None, steps)
-    return HandColumn(gain, rin, rout, low, high, label, tuple(steps), terms, tuple(notes))
+    miller: list[tuple[float, float]] = []
+    high = _miller(circuit, hand, network, setup, shorted, label if gain is not None else None, steps, miller)
+    return HandColumn(gain, rin, rout, low, high, label, tuple(steps), terms, tuple(notes),
+                      miller[0] if miller else None)
 
 
 def _closed_form(circuit, network, devices, setup, shorted, steps, numeric):
@@ -724,7 +802,7 @@ def _series_resistance(circuit: Circuit, source: Element, gate: str, shorted: tu
     return f"{between[0].name} = {_q(_value(between[0]) / _multiplier(between[0]), 'Ω')}"
 
 
-def _miller(circuit, hand, network, setup, shorted, closed, steps) -> float | None:
+def _miller(circuit, hand, network, setup, shorted, closed, steps, parts=None) -> float | None:
     """The upper band edge by the Miller estimate, where the card gives gate capacitances and a
     closed form holds: τin = R at the gate · (Cgs·(1 − Avs) + Cgd·(1 − Avd) + Cgb),
     τout = RD'·Cgd·(1 − 1/Avd) for a drain output; f_H ≈ 1/(2π·(τin + τout))."""
@@ -766,6 +844,8 @@ def _miller(circuit, hand, network, setup, shorted, closed, steps) -> float | No
                       + words,
                       f"R at the gate = {_q(r_gate, 'Ω')}, Avd = {avd:.4g}, Avs = {avs:.4g}, Cin = {_q(c_in, 'F')}; "
                       f"f_H ≈ 1/(2π·(τin + τout)) = {_q(high, 'Hz')}", high, "Hz"))
+    if parts is not None:
+        parts.append((tau_in, tau_out))
     return high
 
 
@@ -794,5 +874,146 @@ def hand_gain_with(circuit: Circuit, hand: HandSolution, setup: SignalSetup, eff
     """The hand midband gain with one effect switched on in the small-signal model ("lambda":
     gds = λ·ID; "gamma": gmbs), at the hand bias point, capacitors shorted."""
     network = SignalNetwork(circuit, hand_devices(circuit, hand, frozenset({effect})), setup.input_source)
-    shorted = tuple(c.name for c in network.capacitors)
+    loads = load_capacitors(SignalNetwork(circuit, hand_devices(circuit, hand), setup.input_source), setup)
+    shorted = tuple(c.name for c in network.capacitors if c.name not in loads)
     return signed(network.midband(setup.midband_hz, setup.output_node, setup.load, shorted)[0])
+
+
+# --- the band edges of a network, exactly ------------------------------------------------------
+
+EDGE_POINTS_PER_DECADE = 40  # the grid searched outwards from midband, as ngspice's sweep
+HALF_POWER = 1.0 / math.sqrt(2.0)
+
+
+def network_band_edges(
+    network: SignalNetwork, output: str, midband_hz: float, start_hz: float, stop_hz: float
+) -> tuple[float | None, float | None]:
+    """The −3 dB frequencies of `network`'s gain (every capacitor jωC) below and above
+    `midband_hz`: going outwards from midband on a 40-a-decade grid, the first point where |gain|
+    is at most |gain(midband)|/√2, then the crossing itself by Brent's method on log f. None on a
+    side where it never falls that far between `start_hz` and `stop_hz`."""
+    from .roots import brent_root
+
+    step = 10.0 ** (1.0 / EDGE_POINTS_PER_DECADE)
+    below = midband_hz / step ** np.arange(1, max(1, math.ceil(math.log(midband_hz / start_hz, step))) + 1)
+    above = midband_hz * step ** np.arange(1, max(1, math.ceil(math.log(stop_hz / midband_hz, step))) + 1)
+    grid = np.concatenate(([midband_hz], below, above))
+    magnitude = np.abs(network.transfer(2j * math.pi * grid, output))
+    middle = magnitude[0]
+    if not (math.isfinite(middle) and middle > 0.0):
+        return None, None
+    target = middle * HALF_POWER
+
+    def excess(log_f: float) -> float:
+        value = abs(network.transfer(np.array([2j * math.pi * math.exp(log_f)]), output)[0])
+        return value - target if math.isfinite(value) else math.inf
+
+    def first_fall(frequencies: np.ndarray, values: np.ndarray) -> float | None:
+        previous = midband_hz
+        for f, value in zip(frequencies.tolist(), values.tolist()):
+            if math.isfinite(value) and value <= target:
+                try:
+                    return math.exp(brent_root(excess, math.log(previous), math.log(f), xtol=1e-12, rtol=1e-10))
+                except ValueError:
+                    return f
+            previous = f
+        return None
+
+    count = len(below)
+    return first_fall(below, magnitude[1:count + 1]), first_fall(above, magnitude[count + 1:])
+
+
+@dataclass(frozen=True)
+class BandEvidence:
+    """What the hand band-edge estimates rest on, measured on the hand network itself: its own
+    −3 dB points (every capacitor jωC, the hand gate capacitances at the hand bias point), its
+    low-frequency poles where their sum was checked equal to the short-circuit estimate (Hz,
+    largest first; None otherwise), the zeros of capacitors across a resistor that were checked
+    to be zeros of its gain ((capacitor, resistor, Hz)), and the short-circuit terms largest first."""
+
+    low_hz: float | None
+    high_hz: float | None
+    low_poles_hz: tuple[complex, ...] | None
+    zeros: tuple[tuple[str, str, float], ...]
+    terms: tuple[LowBandTerm, ...]
+    miller: tuple[float, float] | None
+    inductors: tuple[str, ...] = ()  # the netlist's inductors, which no estimate term covers
+
+
+def hand_band_evidence(circuit: Circuit, hand: HandSolution, column: HandColumn, setup: SignalSetup,
+                       start_hz: float, stop_hz: float) -> BandEvidence:  # fmt: skip
+    """The hand network's own band edges and what explains its estimates (see BandEvidence)."""
+    devices = hand_devices(circuit, hand)
+    caps = hand_capacitances(circuit, hand)
+    with_caps = {name: (replace(device, capacitances=caps[name]) if name in caps else device)
+                 for name, device in devices.items()}  # fmt: skip
+    low = high = None
+    with contextlib.suppress(SmallSignalError):
+        low, high = network_band_edges(SignalNetwork(circuit, with_caps, setup.input_source), setup.output_node,
+                                       setup.midband_hz, start_hz, stop_hz)  # fmt: skip
+    bare = SignalNetwork(circuit, devices, setup.input_source)
+    terms = tuple(sorted((t for t in column.low_terms if 0.0 < t.pole_hz < math.inf), key=lambda t: -t.pole_hz))
+    poles = _checked_low_poles(bare, column.low_hz) if column.low_hz else None
+    zeros = _checked_zeros(circuit, bare, setup)
+    if not caps:
+        high = None
+    inductors = tuple(e.name for e in circuit.elements_of("inductor"))
+    return BandEvidence(low, high, poles, zeros, terms, column.miller, inductors)
+
+
+def _checked_low_poles(network: SignalNetwork, estimate: float) -> tuple[complex, ...] | None:
+    """The natural frequencies of the network with only the netlist's capacitors (Hz, −s/2π: a real
+    pole's value is positive; largest first, a complex pair as two conjugates), when the sum of
+    their real parts equals `estimate` to 1e-6 (the s-coefficient identity); None when it does not
+    or they cannot be found."""
+    if network.circuit.elements_of("inductor"):
+        return None
+    try:
+        matrices, _, _, size, _ = network._assemble(np.array([0.0, 1.0], dtype=complex))
+    except SmallSignalError:
+        return None
+    if not size:
+        return None
+    g, c = matrices[0], matrices[1] - matrices[0]
+    shift = 2.0 * math.pi * estimate * (0.37 + 0.61j)
+    try:
+        mu = np.linalg.eigvals(np.linalg.solve(g + shift * c, c))
+    except np.linalg.LinAlgError:
+        return None
+    mu = mu[np.abs(mu) > 1e-12 * max(1e-300, float(np.max(np.abs(mu))))]
+    poles = -(shift - 1.0 / mu) / (2.0 * math.pi)
+    # A pair whose imaginary parts are below 1e-9 of its size is taken as real (rounding).
+    hz = [complex(p.real, 0.0) if abs(p.imag) <= 1e-9 * abs(p) else complex(p) for p in poles]
+    hz.sort(key=lambda p: (-p.real, -p.imag))
+    if not hz or not math.isclose(sum(p.real for p in hz), estimate, rel_tol=1e-6):
+        return None
+    return tuple(hz)
+
+
+def _checked_zeros(circuit: Circuit, network: SignalNetwork, setup: SignalSetup) -> tuple[tuple[str, str, float], ...]:
+    """Each capacitor with a resistor across the same two nodes whose 1/(2π·R·C) is a zero of the
+    gain (|gain| there below 1e-6 of midband's, checked on the network)."""
+    found = []
+    try:
+        middle = abs(network.transfer(np.array([2j * math.pi * setup.midband_hz]), setup.output_node)[0])
+    except SmallSignalError:
+        return ()
+    for cap in circuit.elements_of("capacitor"):
+        ends = {cap.nodes[0], cap.nodes[1]}
+        for resistor in circuit.elements_of("resistor"):
+            if {resistor.nodes[0], resistor.nodes[1]} != ends or _value(resistor) == 0.0:
+                continue
+            r = _value(resistor) / _multiplier(resistor)
+            zero_hz = 1.0 / (2.0 * math.pi * r * _value(cap) * _multiplier(cap))
+            at_zero = abs(network.transfer(np.array([-2.0 * math.pi * zero_hz + 0j]), setup.output_node)[0])
+            if math.isfinite(at_zero) and at_zero <= 1e-6 * middle:
+                found.append((cap.name, resistor.name, zero_hz))
+    return tuple(found)
+
+
+def level1_band_edges(circuit: Circuit, level1, setup: SignalSetup, start_hz: float,
+                      stop_hz: float) -> tuple[float | None, float | None]:  # fmt: skip
+    """The level-1 column's band edges: its linearised network (every capacitor jωC, the Meyer gate
+    capacitances where the card gives them) swept for its −3 dB points."""
+    network = SignalNetwork(circuit, level1_devices(circuit, level1), setup.input_source)
+    return network_band_edges(network, setup.output_node, setup.midband_hz, start_hz, stop_hz)

@@ -87,6 +87,13 @@ def default_output(circuit: Circuit) -> Choice:
     if terminal == GROUND:
         raise SweepInputError(f"the {role.split(' ')[0]} of {mosfet.name} is ground: name the output with --output")
     held = fixed_nodes(circuit)
+    suffix = ""
+    if terminal == mosfet.nodes[0]:
+        cascode = _cascode_above(circuit, terminal, held)
+        if cascode is not None:
+            terminal = cascode.nodes[0]
+            suffix = f", the common-gate device on {mosfet.name}'s drain (a cascode)"
+            mosfet = cascode
     far = []
     for element in circuit.elements_of("capacitor"):
         if terminal in element.nodes[:2] and element.nodes[0] != element.nodes[1]:
@@ -95,8 +102,51 @@ def default_output(circuit: Circuit) -> Choice:
                 far.append((element, other))
     if len(far) == 1:
         cap, node = far[0]
-        return Choice(node, f"the far side of {cap.name}, the coupling capacitor on the {role}")
-    return Choice(terminal, f"the {role} of {mosfet.name}")
+        return Choice(node, f"the far side of {cap.name}, the coupling capacitor on the {role}"
+                      + (f" of {mosfet.name}{suffix}" if suffix else ""))
+    return Choice(terminal, f"the {role} of {mosfet.name}{suffix}")
+
+
+def _cascode_above(circuit: Circuit, drain: str, held: set[str]) -> Element | None:
+    """The MOSFET stacked on `drain` as a common-gate device — its source at `drain`, its gate held
+    by voltage sources (AC ground), its drain free — followed up the stack; None without one."""
+    found = None
+    seen = {drain}
+    while True:
+        above = [m for m in circuit.elements_of("mosfet") if m.nodes[2] == drain and m.nodes[1] in held
+                 and m.nodes[0] not in held and m.nodes[0] not in seen]  # fmt: skip
+        if len(above) != 1:
+            return found
+        found = above[0]
+        drain = found.nodes[0]
+        seen.add(drain)
+
+
+def held_output(circuit: Circuit, output: str, input_source: str | None) -> str | None:
+    """The voltage source (other than the input) that holds `output` at AC ground, or None: a node
+    on a supply carries no signal."""
+    sources = [e for e in circuit.elements_of("vsource") if input_source is None
+               or e.name.lower() != input_source.lower()]  # fmt: skip
+    without_input = circuit if len(sources) == len(circuit.elements_of("vsource")) else None
+    held = fixed_nodes(without_input) if without_input is not None else _held_by(circuit, sources)
+    if output not in held or output == GROUND:
+        return None
+    touching = [e.name for e in sources if output in e.nodes[:2]]
+    return touching[0] if touching else sources[0].name if sources else None
+
+
+def _held_by(circuit: Circuit, sources: list[Element]) -> set[str]:
+    """Nodes held from ground by chains of the voltage sources `sources`."""
+    known = {GROUND}
+    progress = True
+    while progress:
+        progress = False
+        for element in sources:
+            plus, minus = element.nodes[0], element.nodes[1]
+            if (plus in known) != (minus in known):
+                known |= {plus, minus}
+                progress = True
+    return known
 
 
 def given_output(circuit: Circuit, node: str) -> Choice:
@@ -116,6 +166,9 @@ def default_load(circuit: Circuit, output: str) -> Choice:
     mosfet = _mosfet(circuit)
     if output in mosfet.nodes[:3]:
         return Choice(None, "the output is a terminal of the MOSFET: no load element taken out for Rout")
+    for other in circuit.elements_of("mosfet"):
+        if output in other.nodes[:3]:
+            return Choice(None, f"the output is a terminal of {other.name}: no load element taken out for Rout")
     held = fixed_nodes(circuit)
     for element in circuit.elements_of("resistor"):
         if output in element.nodes[:2]:

@@ -35,7 +35,7 @@ def _values(result: GainResult, key: str) -> dict[str, float | None]:
         return {c: (20.0 * math.log10(abs(v)) if v not in (None, 0.0) and math.isfinite(v) else None)
                 for c, v in result.gain.items()}  # fmt: skip
     if key in ("low_hz", "high_hz"):
-        return {"hand": result.band[key]["hand"], "level1": None, "sim": result.band[key]["sim"]}
+        return {column: result.band[key].get(column) for column in COLUMN_KEYS}
     return getattr(result, key)
 
 
