@@ -221,6 +221,5 @@ def test_spread_goes_on_past_refused_files_in_one_process():
 @pytest.mark.slow
 @pytest.mark.parametrize("verb, options", [("gain", "--json"), ("spread", SPREAD_OPTIONS)])
 def test_gain_and_spread_over_the_whole_corpus_in_one_process_never_raise(verb, options):
-    """Slow (~10 s each on a shared 2-core machine: gain starts ngspice once per stage). spread
-    leaves out extreme_supply.cir, which alone takes it 16 s (its corners in ngspice)."""
-    _one_file_batch(verb, [n for n in NETLISTS if verb != "spread" or n != "extreme_supply.cir"], options)
+    """Slow (~10 s each on a shared 2-core machine: gain starts ngspice once per stage)."""
+    _one_file_batch(verb, NETLISTS, options)

@@ -170,6 +170,16 @@ def test_a_gate_without_a_dc_path_is_refused(tmp_path, capsys):
     assert "no DC path to ground from node g" in err
 
 
+def test_a_circuit_whose_nominal_point_has_no_solution_is_refused_before_any_corner(capsys):
+    """A 1e300 V supply (the batch corpus's slip of the exponent) has no level-1 operating point:
+    spread says so and stops, instead of sending every corner and sample through the scalar
+    solver's whole ladder (it ran for minutes before), and reports no yields."""
+    corpus = Path(__file__).parent / "batch_corpus" / "extreme_supply.cir"
+    err = _refused(["spread", str(corpus), "--resistors", "5"], capsys)
+    assert "the level-1 solver cannot solve this circuit: no DC operating point found" in err
+    assert "yield" not in err
+
+
 def test_a_resistor_with_tc_instead_of_tc1_is_refused_at_its_line(tmp_path, capsys):
     path = tmp_path / "tc.cir"
     path.write_text(PROBE.replace("RS out 0 4.7k", "RS out 0 4.7k tc=0.004"))

@@ -33,6 +33,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..netlist.circuit import Circuit
+from .dcsolve import solve_operating_point
 
 FULL_CORNER_LIMIT = 12  # bands: up to 2^12 = 4096 corners are all solved
 UNMOVED_ENUMERATED = 3  # beyond the limit: bands a quantity does not move at nominal, tried at both ends
@@ -399,6 +400,10 @@ def spread(
     """Corners and Monte Carlo of `circuit` over `bands` (see the module's docstring)."""
     bands = tuple(bands)
     refuse_unusable_temperatures(circuit, bands)
+    # The nominal circuit first, by the scalar solver: without an operating point of its own there
+    # is nothing to spread, and every corner and sample would go through the scalar solver's whole
+    # ladder in turn (minutes for 10,000 rows). Raises NoConvergence (a DcSolveError).
+    solve_operating_point(circuit)
     k = len(bands)
     oat = one_at_a_time(bands)
     if k <= full_corner_limit:
