@@ -102,9 +102,9 @@ def test_random_option_lists_end_in_exit_0_1_or_2_without_a_traceback(verb, work
 @pytest.mark.slow
 @pytest.mark.parametrize("verb", list(QUICK))
 def test_many_random_option_lists_end_in_exit_0_1_or_2_without_a_traceback(verb, workspace, capsys):
-    """Slow (a few seconds per command): 150 option lists per command, ngspice started for each
+    """Slow (a few seconds per command): 100 option lists per command, ngspice started for each
     check and sweep."""
-    _fuzz(verb, 150, capsys)
+    _fuzz(verb, 100, capsys)
 
 
 @pytest.mark.parametrize("verb", ["check", "lint", "sweep"])
