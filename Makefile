@@ -36,7 +36,7 @@ test: install
 bench: install
 	$(BIN)/python tests/bench/run.py; a=$$?; $(BIN)/python tests/bench/sweep_bench.py; b=$$?; \
 	$(BIN)/python tests/bench/large_bench.py; c=$$?; $(BIN)/python tests/bench/spread_bench.py; d=$$?; \
-	exit $$((a || b || c || d))
+	$(BIN)/python tests/bench/gain_bench.py; e=$$?; exit $$((a || b || c || d || e))
 
 lint: install
 	$(BIN)/ruff check bridge tests
