@@ -116,7 +116,7 @@ def band_findings(
     sweep: tuple[float, float] | None = None,
 ) -> list[Finding]:
     """The band edges side by side. `band`: "low_hz"/"high_hz" → {"hand", "level1", "sim"};
-    `evidence`: ``smallsignal.BandEvidence`` of the hand network (or None); `places`: per edge the
+    `evidence`: ``band_edges.BandEvidence`` of the hand network (or None); `places`: per edge the
     (line, subject) a finding points at (the dominant capacitor's for the low edge, the MOSFET's
     for the upper one).
 

@@ -12,6 +12,7 @@ import contextlib
 import math
 from dataclasses import dataclass, field
 
+from .analysis.band_edges import hand_band_evidence, level1_band_edges
 from .analysis.dcsolve import DcSolveError, OperatingPoint, solve_operating_point
 from .analysis.hand import HandAnalysisError, HandModel, HandSolution
 from .analysis.smallsignal import (
@@ -19,10 +20,8 @@ from .analysis.smallsignal import (
     Level1Column,
     SignalSetup,
     SmallSignalError,
-    hand_band_evidence,
     hand_column,
     hand_gain_with,
-    level1_band_edges,
     level1_column,
     signed,
 )

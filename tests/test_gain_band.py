@@ -13,10 +13,11 @@ import math
 
 import pytest
 
+from bridge.analysis.band_edges import hand_band_evidence
 from bridge.analysis.dcsolve import solve_operating_point
 from bridge.analysis.hand import HandModel
 from bridge.analysis.roots import brent_root
-from bridge.analysis.smallsignal import SignalSetup, hand_band_evidence, hand_column, hand_devices
+from bridge.analysis.smallsignal import SignalSetup, hand_column, hand_devices
 from bridge.gain_run import run_gain
 from bridge.netlist import parse_netlist
 

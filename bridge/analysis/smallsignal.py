@@ -1,5 +1,6 @@
 """The small-signal columns of one stage: the hand model's and the level-1 model's midband gain,
-input and output resistance, and the band edges, as numbers with the hand working.
+input and output resistance, and the hand's band-edge estimates (short-circuit time constants,
+Miller), as numbers with the hand working; the networks' exact band edges are ``band_edges``'.
 
     SignalNetwork(circuit, devices, input_source).solve(...)   one linear (complex) solve
     hand_column(circuit, hand, setup)                           closed form or the hand network
@@ -22,10 +23,9 @@ project's own level-1 operating point, its Meyer gate capacitances where the car
 
 from __future__ import annotations
 
-import contextlib
 import math
 from collections.abc import Iterable, Mapping
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -108,14 +108,14 @@ class _Roots:
         return True
 
 
-def _value(element: Element) -> float:
+def element_value(element: Element) -> float:
     value = element.value
     if not isinstance(value, (int, float)) or isinstance(value, bool):
         raise SmallSignalError(f"{element.name}: no numeric value")
     return float(value)
 
 
-def _multiplier(element: Element) -> float:
+def element_multiplier(element: Element) -> float:
     m = element.params.get("m", 1.0)
     return float(m) if isinstance(m, (int, float)) and not isinstance(m, bool) and m > 0 else 1.0
 
@@ -164,7 +164,7 @@ class SignalNetwork:
         Raises SmallSignalError when the network is singular or the input is shorted.
         """
         s = np.array([2j * math.pi * frequency])
-        matrices, rhs, at, size, branches = self._assemble(s, shorted=shorted, removed=removed, inject=inject)
+        matrices, rhs, at, size, branches = self.assemble(s, shorted=shorted, removed=removed, inject=inject)
         try:
             solution = np.linalg.solve(matrices[0], rhs) if size else np.zeros(0, dtype=complex)
         except np.linalg.LinAlgError:
@@ -185,7 +185,7 @@ class SignalNetwork:
             current = 1.0 + 0j
         return voltages, current
 
-    def _assemble(self, s: np.ndarray, *, shorted: Iterable[str] = (), removed: Iterable[str] = (),
+    def assemble(self, s: np.ndarray, *, shorted: Iterable[str] = (), removed: Iterable[str] = (),
                   inject: tuple[str, str] | None = None):  # fmt: skip
         """The nodal system at each complex frequency of `s` (rad/s; 0 is DC: capacitors open,
         inductors left out), as `solve` describes it: (matrices (len(s), n, n), right-hand side (n),
@@ -207,7 +207,7 @@ class SignalNetwork:
                 else:
                     roots.join(element.nodes[0], element.nodes[1])
             elif (element.kind == "capacitor" and name in shorted_set) or (
-                    element.kind == "resistor" and _value(element) == 0.0):
+                    element.kind == "resistor" and element_value(element) == 0.0):
                 roots.join(element.nodes[0], element.nodes[1])
             elif element.kind == "vcvs":
                 branches.append(element)
@@ -254,18 +254,19 @@ class SignalNetwork:
                 continue
             kind = element.kind
             if kind == "resistor":
-                resistance = _value(element) / _multiplier(element)
+                resistance = element_value(element) / element_multiplier(element)
                 if resistance != 0.0:
                     admit(at(element.nodes[0]), at(element.nodes[1]), 1.0 / resistance)
             elif kind == "capacitor" and name not in shorted_set and reactive:
-                admit(at(element.nodes[0]), at(element.nodes[1]), s * (_value(element) * _multiplier(element)))
+                capacitance = element_value(element) * element_multiplier(element)
+                admit(at(element.nodes[0]), at(element.nodes[1]), s * capacitance)
             elif kind == "inductor":
-                inductance = _value(element) / _multiplier(element)
+                inductance = element_value(element) / element_multiplier(element)
                 if reactive and inductance != 0.0:
                     admit(at(element.nodes[0]), at(element.nodes[1]), inverse_s / inductance)
             elif kind == "vccs":
                 p, n, cp, cn = (at(x) for x in element.nodes[:4])
-                transfer(p, n, cp, cn, _value(element))
+                transfer(p, n, cp, cn, element_value(element))
             elif kind == "mosfet":
                 device = self.devices.get(element.name)
                 if device is None:
@@ -297,7 +298,7 @@ class SignalNetwork:
                 matrix[:, row, n] -= 1.0
             if element.kind == "vcvs":
                 cp, cn = at(element.nodes[2]), at(element.nodes[3])
-                gain = _value(element)
+                gain = element_value(element)
                 if cp >= 0:
                     matrix[:, row, cp] -= gain
                 if cn >= 0:
@@ -321,7 +322,7 @@ class SignalNetwork:
     def transfer(self, s: np.ndarray, output: str, shorted: Iterable[str] = ()) -> np.ndarray:
         """The gain v(output)/v(input source's terminals) at each complex frequency of `s` (rad/s,
         none 0), in one stacked solve; NaN where the network is singular there."""
-        matrices, rhs, at, size, _ = self._assemble(np.asarray(s, dtype=complex), shorted=shorted)
+        matrices, rhs, at, size, _ = self.assemble(np.asarray(s, dtype=complex), shorted=shorted)
         if not size:
             return np.full(len(s), np.nan, dtype=complex)
         solution = np.full((len(s), size), np.nan, dtype=complex)
@@ -493,7 +494,7 @@ def short_circuit_terms(network: SignalNetwork, left_open: Iterable[str] = ()) -
             resistance = abs((voltages[a] - voltages[b]).real)
         except SmallSignalError:
             resistance = math.inf
-        capacitance = _value(cap) * _multiplier(cap)
+        capacitance = element_value(cap) * element_multiplier(cap)
         if math.isinf(resistance) or capacitance == 0.0:
             pole = 0.0
         elif resistance == 0.0:
@@ -584,7 +585,8 @@ def _parallel_words(circuit: Circuit, network: SignalNetwork, terminal: str, sho
         else:
             why = f"{far} (AC ground through a capacitor, a short at midband)"
         through = "" if near == terminal else f", reached from {terminal} through a coupling capacitor"
-        parts.append(f"{element.name} = {_q(_value(element) / _multiplier(element), 'Ω')} to {why}{through}")
+        resistance = element_value(element) / element_multiplier(element)
+        parts.append(f"{element.name} = {_q(resistance, 'Ω')} to {why}{through}")
     if not parts:
         return None
     return "; ".join(parts) + (", in parallel" if len(parts) > 1 else "")
@@ -686,7 +688,7 @@ def _closed_form(circuit, network, devices, setup, shorted, steps, numeric):
     same = _Roots()
     for element in circuit.elements:
         if (element.kind == "vsource" and element is not source) or (
-                element.kind == "capacitor") or (element.kind == "resistor" and _value(element) == 0.0):
+                element.kind == "capacitor") or (element.kind == "resistor" and element_value(element) == 0.0):
             same.join(element.nodes[0], element.nodes[1])
     out_root, drain_root, source_root = same.find(output), same.find(drain), same.find(src)
     if out_root == drain_root and drain_root != GROUND:
@@ -799,7 +801,7 @@ def _series_resistance(circuit: Circuit, source: Element, gate: str, shorted: tu
                and {roots.find(e.nodes[0]), roots.find(e.nodes[1])} == {live_root, gate_root}]  # fmt: skip
     if len(between) != 1:
         return None
-    return f"{between[0].name} = {_q(_value(between[0]) / _multiplier(between[0]), 'Ω')}"
+    return f"{between[0].name} = {_q(element_value(between[0]) / element_multiplier(between[0]), 'Ω')}"
 
 
 def _miller(circuit, hand, network, setup, shorted, closed, steps, parts=None) -> float | None:
@@ -877,143 +879,3 @@ def hand_gain_with(circuit: Circuit, hand: HandSolution, setup: SignalSetup, eff
     loads = load_capacitors(SignalNetwork(circuit, hand_devices(circuit, hand), setup.input_source), setup)
     shorted = tuple(c.name for c in network.capacitors if c.name not in loads)
     return signed(network.midband(setup.midband_hz, setup.output_node, setup.load, shorted)[0])
-
-
-# --- the band edges of a network, exactly ------------------------------------------------------
-
-EDGE_POINTS_PER_DECADE = 40  # the grid searched outwards from midband, as ngspice's sweep
-HALF_POWER = 1.0 / math.sqrt(2.0)
-
-
-def network_band_edges(
-    network: SignalNetwork, output: str, midband_hz: float, start_hz: float, stop_hz: float
-) -> tuple[float | None, float | None]:
-    """The −3 dB frequencies of `network`'s gain (every capacitor jωC) below and above
-    `midband_hz`: going outwards from midband on a 40-a-decade grid, the first point where |gain|
-    is at most |gain(midband)|/√2, then the crossing itself by Brent's method on log f. None on a
-    side where it never falls that far between `start_hz` and `stop_hz`."""
-    from .roots import brent_root
-
-    step = 10.0 ** (1.0 / EDGE_POINTS_PER_DECADE)
-    below = midband_hz / step ** np.arange(1, max(1, math.ceil(math.log(midband_hz / start_hz, step))) + 1)
-    above = midband_hz * step ** np.arange(1, max(1, math.ceil(math.log(stop_hz / midband_hz, step))) + 1)
-    grid = np.concatenate(([midband_hz], below, above))
-    magnitude = np.abs(network.transfer(2j * math.pi * grid, output))
-    middle = magnitude[0]
-    if not (math.isfinite(middle) and middle > 0.0):
-        return None, None
-    target = middle * HALF_POWER
-
-    def excess(log_f: float) -> float:
-        value = abs(network.transfer(np.array([2j * math.pi * math.exp(log_f)]), output)[0])
-        return value - target if math.isfinite(value) else math.inf
-
-    def first_fall(frequencies: np.ndarray, values: np.ndarray) -> float | None:
-        previous = midband_hz
-        for f, value in zip(frequencies.tolist(), values.tolist()):
-            if math.isfinite(value) and value <= target:
-                try:
-                    return math.exp(brent_root(excess, math.log(previous), math.log(f), xtol=1e-12, rtol=1e-10))
-                except ValueError:
-                    return f
-            previous = f
-        return None
-
-    count = len(below)
-    return first_fall(below, magnitude[1:count + 1]), first_fall(above, magnitude[count + 1:])
-
-
-@dataclass(frozen=True)
-class BandEvidence:
-    """What the hand band-edge estimates rest on, measured on the hand network itself: its own
-    −3 dB points (every capacitor jωC, the hand gate capacitances at the hand bias point), its
-    low-frequency poles where their sum was checked equal to the short-circuit estimate (Hz,
-    largest first; None otherwise), the zeros of capacitors across a resistor that were checked
-    to be zeros of its gain ((capacitor, resistor, Hz)), and the short-circuit terms largest first."""
-
-    low_hz: float | None
-    high_hz: float | None
-    low_poles_hz: tuple[complex, ...] | None
-    zeros: tuple[tuple[str, str, float], ...]
-    terms: tuple[LowBandTerm, ...]
-    miller: tuple[float, float] | None
-    inductors: tuple[str, ...] = ()  # the netlist's inductors, which no estimate term covers
-
-
-def hand_band_evidence(circuit: Circuit, hand: HandSolution, column: HandColumn, setup: SignalSetup,
-                       start_hz: float, stop_hz: float) -> BandEvidence:  # fmt: skip
-    """The hand network's own band edges and what explains its estimates (see BandEvidence)."""
-    devices = hand_devices(circuit, hand)
-    caps = hand_capacitances(circuit, hand)
-    with_caps = {name: (replace(device, capacitances=caps[name]) if name in caps else device)
-                 for name, device in devices.items()}  # fmt: skip
-    low = high = None
-    with contextlib.suppress(SmallSignalError):
-        low, high = network_band_edges(SignalNetwork(circuit, with_caps, setup.input_source), setup.output_node,
-                                       setup.midband_hz, start_hz, stop_hz)  # fmt: skip
-    bare = SignalNetwork(circuit, devices, setup.input_source)
-    terms = tuple(sorted((t for t in column.low_terms if 0.0 < t.pole_hz < math.inf), key=lambda t: -t.pole_hz))
-    poles = _checked_low_poles(bare, column.low_hz) if column.low_hz else None
-    zeros = _checked_zeros(circuit, bare, setup)
-    if not caps:
-        high = None
-    inductors = tuple(e.name for e in circuit.elements_of("inductor"))
-    return BandEvidence(low, high, poles, zeros, terms, column.miller, inductors)
-
-
-def _checked_low_poles(network: SignalNetwork, estimate: float) -> tuple[complex, ...] | None:
-    """The natural frequencies of the network with only the netlist's capacitors (Hz, −s/2π: a real
-    pole's value is positive; largest first, a complex pair as two conjugates), when the sum of
-    their real parts equals `estimate` to 1e-6 (the s-coefficient identity); None when it does not
-    or they cannot be found."""
-    if network.circuit.elements_of("inductor"):
-        return None
-    try:
-        matrices, _, _, size, _ = network._assemble(np.array([0.0, 1.0], dtype=complex))
-    except SmallSignalError:
-        return None
-    if not size:
-        return None
-    g, c = matrices[0], matrices[1] - matrices[0]
-    shift = 2.0 * math.pi * estimate * (0.37 + 0.61j)
-    try:
-        mu = np.linalg.eigvals(np.linalg.solve(g + shift * c, c))
-    except np.linalg.LinAlgError:
-        return None
-    mu = mu[np.abs(mu) > 1e-12 * max(1e-300, float(np.max(np.abs(mu))))]
-    poles = -(shift - 1.0 / mu) / (2.0 * math.pi)
-    # A pair whose imaginary parts are below 1e-9 of its size is taken as real (rounding).
-    hz = [complex(p.real, 0.0) if abs(p.imag) <= 1e-9 * abs(p) else complex(p) for p in poles]
-    hz.sort(key=lambda p: (-p.real, -p.imag))
-    if not hz or not math.isclose(sum(p.real for p in hz), estimate, rel_tol=1e-6):
-        return None
-    return tuple(hz)
-
-
-def _checked_zeros(circuit: Circuit, network: SignalNetwork, setup: SignalSetup) -> tuple[tuple[str, str, float], ...]:
-    """Each capacitor with a resistor across the same two nodes whose 1/(2π·R·C) is a zero of the
-    gain (|gain| there below 1e-6 of midband's, checked on the network)."""
-    found = []
-    try:
-        middle = abs(network.transfer(np.array([2j * math.pi * setup.midband_hz]), setup.output_node)[0])
-    except SmallSignalError:
-        return ()
-    for cap in circuit.elements_of("capacitor"):
-        ends = {cap.nodes[0], cap.nodes[1]}
-        for resistor in circuit.elements_of("resistor"):
-            if {resistor.nodes[0], resistor.nodes[1]} != ends or _value(resistor) == 0.0:
-                continue
-            r = _value(resistor) / _multiplier(resistor)
-            zero_hz = 1.0 / (2.0 * math.pi * r * _value(cap) * _multiplier(cap))
-            at_zero = abs(network.transfer(np.array([-2.0 * math.pi * zero_hz + 0j]), setup.output_node)[0])
-            if math.isfinite(at_zero) and at_zero <= 1e-6 * middle:
-                found.append((cap.name, resistor.name, zero_hz))
-    return tuple(found)
-
-
-def level1_band_edges(circuit: Circuit, level1, setup: SignalSetup, start_hz: float,
-                      stop_hz: float) -> tuple[float | None, float | None]:  # fmt: skip
-    """The level-1 column's band edges: its linearised network (every capacitor jωC, the Meyer gate
-    capacitances where the card gives them) swept for its −3 dB points."""
-    network = SignalNetwork(circuit, level1_devices(circuit, level1), setup.input_source)
-    return network_band_edges(network, setup.output_node, setup.midband_hz, start_hz, stop_hz)
