@@ -67,6 +67,12 @@ def unusable_json(file: str, message: str, location: Location) -> dict[str, obje
     return {"file": file, "error": error}
 
 
+def refuse(message: str) -> int:
+    """Unusable input: one line on stderr, exit status 2."""
+    print(f"biasbridge: error: {message}", file=sys.stderr)
+    return EXIT_INPUT
+
+
 def command_parse(args: argparse.Namespace) -> int:
     from .netlist import NetlistError, read_netlist
     from .report.circuit_view import circuit_json, circuit_renderable
@@ -337,19 +343,26 @@ def _unusable_folder(folder: str) -> str:
     return f"the folder {folder} does not exist"
 
 
-def command_sweep(args: argparse.Namespace) -> int:
-    """`biasbridge sweep`: the DC transfer curve in three columns, with region edges and gain."""
+def _with_worker(body, args: argparse.Namespace, wanted: bool = True) -> int:
+    """`body(args, session, hint)` with the ngspice worker spawned first (it starts while the
+    command's modules load and the netlist is read), closed afterwards; `session` is None where
+    ngspice is not installed (`hint` says so) or not `wanted`."""
     from .sim.client import NgspiceSession, ngspice_available
 
     available, hint = ngspice_available()
-    session = NgspiceSession() if available else None
+    session = NgspiceSession() if available and wanted else None
     if session is not None:
-        session.spawn()  # ngspice starts up while the sweep's modules load and the netlist is read
+        session.spawn()
     try:
-        return _sweep_with(args, session, hint)
+        return body(args, session, hint)
     finally:
         if session is not None:
             session.close()
+
+
+def command_sweep(args: argparse.Namespace) -> int:
+    """`biasbridge sweep`: the DC transfer curve in three columns, with region edges and gain."""
+    return _with_worker(_sweep_with, args)  # ngspice starts up while the sweep's modules load and the netlist is read
 
 
 def _sweep_with(args: argparse.Namespace, session: object, hint: str) -> int:
@@ -361,10 +374,6 @@ def _sweep_with(args: argparse.Namespace, session: object, hint: str) -> int:
     from .report.files import write_text_atomically
     from .report.sweep_view import sweep_csv, sweep_json, sweep_renderable
     from .sweep_run import transfer_curve
-
-    def refuse(message: str) -> int:
-        print(f"biasbridge: error: {message}", file=sys.stderr)
-        return EXIT_INPUT
 
     try:
         circuit = read_netlist(args.file)
@@ -453,17 +462,7 @@ def _sweep_with(args: argparse.Namespace, session: object, hint: str) -> int:
 
 def command_gain(args: argparse.Namespace) -> int:
     """`biasbridge gain`: midband gain, Rin, Rout and band edges, hand | level-1 | ngspice."""
-    from .sim.client import NgspiceSession, ngspice_available
-
-    available, hint = ngspice_available()
-    session = NgspiceSession() if available else None
-    if session is not None:
-        session.spawn()  # ngspice starts up while the analyses load and the netlist is read
-    try:
-        return _gain_with(args, session, hint)
-    finally:
-        if session is not None:
-            session.close()
+    return _with_worker(_gain_with, args)  # ngspice starts up while the analyses load and the netlist is read
 
 
 def _frequency(text: str | None) -> float | None:
@@ -481,10 +480,6 @@ def _gain_with(args: argparse.Namespace, session: object, hint: str) -> int:
     from .gain_run import run_gain
     from .netlist import NetlistError, read_netlist
     from .report.gain_view import gain_json, gain_renderable
-
-    def refuse(message: str) -> int:
-        print(f"biasbridge: error: {message}", file=sys.stderr)
-        return EXIT_INPUT
 
     try:
         circuit = read_netlist(args.file)
@@ -606,18 +601,7 @@ def _number_pair(text: str, option: str, names: str) -> tuple[float, float]:
 
 def command_fit(args: argparse.Namespace) -> int:
     """`biasbridge fit`: a level-1 card from bench data, two datasheet points or another model card."""
-    from .sim.client import NgspiceSession, ngspice_available
-
-    available, hint = ngspice_available()
-    # ngspice starts while scipy and the fit modules load (two datasheet points need no simulator).
-    session = NgspiceSession() if available and not args.point else None
-    if session is not None:
-        session.spawn()
-    try:
-        return _fit(args, session, hint)
-    finally:
-        if session is not None:
-            session.close()
+    return _with_worker(_fit, args, wanted=not args.point)  # two datasheet points need no simulator
 
 
 if TYPE_CHECKING:
@@ -631,10 +615,6 @@ def _fit(args: argparse.Namespace, session: NgspiceSession | None, hint: str) ->
     from .fit.least_squares import FitError
     from .netlist import NetlistError, read_netlist
     from .sim.client import SimulatorError
-
-    def refuse(message: str) -> int:
-        print(f"biasbridge: error: {message}", file=sys.stderr)
-        return EXIT_INPUT
 
     ways = [args.file is not None, bool(args.point), args.card is not None]
     if sum(ways) != 1:
@@ -755,24 +735,14 @@ SPREAD_SIM_TIMEOUT = 10.0  # s: ngspice's limit for one corner's `.op`, as check
 
 def command_spread(args: argparse.Namespace) -> int:
     """`biasbridge spread`: tolerance corners, temperature and Monte Carlo, the worst corners in ngspice."""
-    from .sim.client import NgspiceSession, ngspice_available
-
-    available, hint = ngspice_available()
-    session = NgspiceSession() if available else None
-    if session is not None:
-        session.spawn()  # ngspice starts while numpy, the reader and the batch solver load
-    try:
-        return _spread_with(args, session, hint)
-    finally:
-        if session is not None:
-            session.close()
+    return _with_worker(_spread_with, args)  # ngspice starts while numpy, the reader and the batch solver load
 
 
 def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint: str) -> int:
     from .commands import spread_defaults as defaults
     from .netlist import NetlistError, read_netlist
 
-    def refuse(message: str, file: str | None = None, line: int | None = None) -> int:
+    def refuse_located(message: str, file: str | None = None, line: int | None = None) -> int:
         """Unusable input: the message on stderr (after `FILE:` or `FILE:LINE:1:` when given) and,
         with --json, the error object `check` and `sweep` print (null where there is no place)."""
         place = file if line is None else f"{file}:{line}:1"
@@ -783,19 +753,11 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
         return EXIT_INPUT
 
     try:
-        entry = defaults.Entry
-        command_line = defaults.Tolerances(
-            resistors=None if args.resistors is None else entry(defaults.percent(args.resistors, "--resistors")),
-            supplies=None if args.supplies is None else entry(defaults.percent(args.supplies, "--supplies")),
-            vto=None if args.vto is None else entry(defaults.volts(args.vto, "--vto")),
-            kp=None if args.kp is None else entry(defaults.percent(args.kp, "--kp")),
-            lambda_=None if args.lambda_ is None else entry(defaults.percent(args.lambda_, "--lambda")),
-            temperature=None if args.temp is None else defaults.temperature_range(args.temp),
-        )  # fmt: skip
+        command_line = defaults.command_line_tolerances(args)
         count = defaults.samples(args.samples)
         seed = defaults.seed(args.seed)
     except (ValueError, argparse.ArgumentTypeError) as exc:
-        return refuse(str(exc))
+        return refuse_located(str(exc))
     try:
         file = defaults.read_tolerance_file(args.tolerances) if args.tolerances else None
         circuit = read_netlist(args.file)
@@ -811,7 +773,7 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
             _check_output_path(args.plot, inputs, "--plot")
         refusal = defaults.refusal(circuit)
         if refusal is not None:
-            return refuse(refusal, args.file)
+            return refuse_located(refusal, args.file)
         tolerances = defaults.merged(command_line, file)
         bands = defaults.bands(circuit, tolerances)
     except NetlistError as exc:
@@ -820,9 +782,9 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
             sys.stdout.write(json.dumps(unusable_json(args.file, exc.message, exc.location)) + "\n")
         return EXIT_INPUT
     except ValueError as exc:
-        return refuse(str(exc))
+        return refuse_located(str(exc))
     if not bands:
-        return refuse("nothing to vary: give --resistors, --supplies, --vto, --kp, --lambda, --temp or "
+        return refuse_located("nothing to vary: give --resistors, --supplies, --vto, --kp, --lambda, --temp or "
                       "--tolerances (with a non-zero tolerance on something the circuit has)")
 
     from .analysis.dcsolve import DcSolveError
@@ -832,13 +794,13 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
         run = run_spread(circuit, bands, samples=count, seed=seed, distribution=args.dist, session=session,
                          timeout=SPREAD_SIM_TIMEOUT)  # fmt: skip
     except ValueError as exc:  # the temperature phase refusing a card (PHI ≤ 0 at an end, say)
-        return refuse(str(exc), args.file)
+        return refuse_located(str(exc), args.file)
     except DcSolveError as exc:  # an element the solver does not model, a node without a DC path, ...
         element = circuit.element(getattr(exc, "element", None) or "")
         message = f"the level-1 solver cannot solve this circuit: {exc}"
         if element is None:
-            return refuse(message, args.file)
-        return refuse(message, element.origin.file or args.file, element.origin.line)
+            return refuse_located(message, args.file)
+        return refuse_located(message, element.origin.file or args.file, element.origin.line)
     if session is None:
         print(f"biasbridge: {hint} (the corners are not run in ngspice)", file=sys.stderr)
     else:
@@ -852,7 +814,7 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
         try:
             write_spread_plot(result, args.plot)
         except OSError as exc:
-            return refuse(f"cannot write {args.plot}: {exc.strerror or exc}")
+            return refuse_located(f"cannot write {args.plot}: {exc.strerror or exc}")
     if args.json:
         sys.stdout.write(json.dumps(spread_json(args.file, result, check, findings), allow_nan=False) + "\n")
     else:

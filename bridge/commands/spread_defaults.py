@@ -389,3 +389,20 @@ def refusal(circuit: Circuit) -> str | None:
         if circuit.model(element.model or "") is None:
             return f"{element.name}: no model `{element.model}` in the netlist (line {element.origin.line})"
     return None
+
+
+def command_line_tolerances(args) -> Tolerances:
+    """The bands the command line gives (`--resistors`, `--supplies`, `--vto`, `--kp`, `--lambda`,
+    `--temp`; None where an option is not given). Raises ValueError or ArgumentTypeError naming the
+    option whose value is unusable."""
+    def given(value: str | None, read, option: str) -> Entry | None:
+        return None if value is None else Entry(read(value, option))
+
+    return Tolerances(
+        resistors=given(args.resistors, percent, "--resistors"),
+        supplies=given(args.supplies, percent, "--supplies"),
+        vto=given(args.vto, volts, "--vto"),
+        kp=given(args.kp, percent, "--kp"),
+        lambda_=given(args.lambda_, percent, "--lambda"),
+        temperature=None if args.temp is None else temperature_range(args.temp),
+    )
