@@ -399,22 +399,11 @@ def _affine_working(dc: _DcCircuit, stage: _Stage, numbers: _AffineNumbers) -> l
     )
     vds = numbers.trial_vds
     steps.extend(_node_steps(dc, stage, current, numbers.trial_voltages))
+    steps.append(_saturation_check(names, vds, vov, numbers.region == "saturation"))
     if numbers.region == "saturation":
-        steps.append(
-            Step(
-                "Check the saturation assumption",
-                f"{names.vds} = {_q(vds, 'V')} ≥ VOV = {_q(vov, 'V')} → saturation holds",
-            )
-        )
         steps.append(_gm_step(t, vov, current, "saturation"))
         return steps
 
-    steps.append(
-        Step(
-            "Check the saturation assumption",
-            f"{names.vds} = {_q(vds, 'V')} < VOV = {_q(vov, 'V')} → saturation fails: re-solve in triode",
-        )
-    )
     w = vds0
     qa, qb, qc = numbers.quadratic
     roots = numbers.roots
@@ -482,21 +471,10 @@ def _held_working(dc: _DcCircuit, stage: _Stage, numbers: _HeldNumbers) -> list[
         step = _terminal_value_step(stage.drain, "drain", p, current, vd)
         if step is not None:
             steps.append(step)
+        steps.append(_saturation_check(names, vds, vov_sat, numbers.region == "saturation"))
         if numbers.region == "saturation":
-            steps.append(
-                Step(
-                    "Check the saturation assumption",
-                    f"{names.vds} = {_q(vds, 'V')} ≥ VOV = {_q(vov_sat, 'V')} → saturation holds",
-                )
-            )
             steps.append(_gm_step(t, vov_sat, current, "saturation"))
             return steps
-        steps.append(
-            Step(
-                "Check the saturation assumption",
-                f"{names.vds} = {_q(vds, 'V')} < VOV = {_q(vov_sat, 'V')} → saturation fails: re-solve in triode",
-            )
-        )
         # Triode with ID fixed: VOV = VDS + δ, δ = VGD − Vt, so ID = K·(VDS²/2 + δ·VDS).
         delta, vds = numbers.delta, numbers.triode_vds
         vs = numbers.voltages[t.source]
@@ -567,6 +545,13 @@ def _node_steps(dc: _DcCircuit, stage: _Stage, current: float, voltages: dict[st
         vg = dc.voltage(voltages, t.gate)
         steps.append(Step("Gate voltage", f"VG = {_q(vg, 'V')}", vg, "V"))
     return steps
+
+
+def _saturation_check(names: _Names, vds: float, vov: float, holds: bool) -> Step:
+    """The check of the saturation assumption a closed form made: VDS against VOV."""
+    comparison = f"{names.vds} = {_q(vds, 'V')} {'≥' if holds else '<'} VOV = {_q(vov, 'V')}"
+    outcome = "saturation holds" if holds else "saturation fails: re-solve in triode"
+    return Step("Check the saturation assumption", f"{comparison} → {outcome}")
 
 
 def _gm_step(t: _Transistor, drive: float, current: float, region: Region, vov: float | None = None) -> Step:
