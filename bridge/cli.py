@@ -26,7 +26,8 @@ if TYPE_CHECKING:
     from rich.console import Console
 
     from .compare import CheckResult
-    from .netlist import Location
+    from .netlist import Location, NetlistError
+    from .netlist.circuit import Circuit
 
 EXIT_OK, EXIT_FINDINGS, EXIT_INPUT = 0, 1, 2
 DEMO_NETLIST = "cs_divider.cir"
@@ -65,6 +66,22 @@ def unusable_json(file: str, message: str, location: Location) -> dict[str, obje
     includes)."""
     error = {"message": message, "file": location.file, "line": location.line, "column": location.column}
     return {"file": file, "error": error}
+
+
+def unusable_netlist(args: argparse.Namespace, exc: NetlistError) -> int:
+    """A netlist that cannot be read: its located message on stderr and, with --json, its error
+    object (`unusable_json`) on stdout; exit status 2."""
+    print(exc.render(), file=sys.stderr)
+    if args.json:
+        sys.stdout.write(json.dumps(unusable_json(args.file, exc.message, exc.location)) + "\n")
+    return EXIT_INPUT
+
+
+def input_files(file: str, circuit: Circuit) -> set[str]:
+    """The real paths of the netlist and every file it includes: what an output must not overwrite."""
+    return {os.path.realpath(file)} | {
+        os.path.realpath(element.origin.file) for element in circuit.elements if element.origin.file
+    }
 
 
 def refuse(message: str) -> int:
@@ -379,13 +396,8 @@ def _sweep_with(args: argparse.Namespace, session: object, hint: str) -> int:
         circuit = read_netlist(args.file)
         refuse_large_sweep(circuit)
     except NetlistError as exc:
-        print(exc.render(), file=sys.stderr)
-        if args.json:
-            sys.stdout.write(json.dumps(unusable_json(args.file, exc.message, exc.location)) + "\n")
-        return EXIT_INPUT
-    inputs = {os.path.realpath(args.file)} | {
-        os.path.realpath(element.origin.file) for element in circuit.elements if element.origin.file
-    }
+        return unusable_netlist(args, exc)
+    inputs = input_files(args.file, circuit)
     try:
         if args.plot is not None:
             from .report.plot import plot_format
@@ -484,13 +496,8 @@ def _gain_with(args: argparse.Namespace, session: object, hint: str) -> int:
     try:
         circuit = read_netlist(args.file)
     except NetlistError as exc:
-        print(exc.render(), file=sys.stderr)
-        if args.json:
-            sys.stdout.write(json.dumps(unusable_json(args.file, exc.message, exc.location)) + "\n")
-        return EXIT_INPUT
-    inputs = {os.path.realpath(args.file)} | {
-        os.path.realpath(element.origin.file) for element in circuit.elements if element.origin.file
-    }
+        return unusable_netlist(args, exc)
+    inputs = input_files(args.file, circuit)
     try:
         frequency = _frequency(args.freq)
         try:
@@ -761,9 +768,7 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
     try:
         file = defaults.read_tolerance_file(args.tolerances) if args.tolerances else None
         circuit = read_netlist(args.file)
-        inputs = {os.path.realpath(args.file)} | {
-            os.path.realpath(element.origin.file) for element in circuit.elements if element.origin.file
-        }
+        inputs = input_files(args.file, circuit)
         if args.tolerances:
             inputs.add(os.path.realpath(args.tolerances))
         if args.plot is not None:
@@ -777,10 +782,7 @@ def _spread_with(args: argparse.Namespace, session: NgspiceSession | None, hint:
         tolerances = defaults.merged(command_line, file)
         bands = defaults.bands(circuit, tolerances)
     except NetlistError as exc:
-        print(exc.render(), file=sys.stderr)
-        if args.json:
-            sys.stdout.write(json.dumps(unusable_json(args.file, exc.message, exc.location)) + "\n")
-        return EXIT_INPUT
+        return unusable_netlist(args, exc)
     except ValueError as exc:
         return refuse_located(str(exc))
     if not bands:
