@@ -106,9 +106,14 @@ class OwnColumns:
 
 def _solved_with_each_effect(model: HandModel, hand: HandSolution, findings: list[Finding]) -> dict[str, HandSolution]:
     """The hand model re-solved with each effect alone; an effect with which it has no solution
-    is left out of the causes, and a finding says so."""
+    is left out of the causes, and a finding says so. An effect that cannot act in this circuit
+    (``HandModel.solved_unchanged``) is not re-solved: its point is the plain hand point."""
     solved: dict[str, HandSolution] = {}
     for effect in EFFECTS:
+        unchanged = model.solved_unchanged(effect, hand)
+        if unchanged is not None:
+            solved[effect] = unchanged
+            continue
         try:
             solved[effect] = model.solve(effects=frozenset({effect}), working=False, start=hand.node_voltages)
         except HandAnalysisError as exc:

@@ -430,6 +430,39 @@ class HandModel:
             dc = replace(dc, transistors=[replace(t, model=hand_model(t.card, chosen)) for t in dc.transistors])
         return _solve(self.circuit, dc, chosen, self._recognised, closed_form, working, start)
 
+    def solved_unchanged(self, effect: str, plain: HandSolution) -> HandSolution | None:
+        """The bias point with `effect` switched on where it provably cannot act: then it IS
+        `plain` (this model's own plain solution), with no working; None where it may act
+        (``solve`` must then re-solve).
+
+        It cannot act where the hand model's equations do not change: LAMBDA or GAMMA 0 on every
+        card (the model is the plain one); or GAMMA where, at `plain`, every transistor's bulk
+        sits on the terminal acting as its source (the source, the drain of a device running
+        swapped): one merged node, or two nodes a source fixes at the same voltage. There the
+        body bias is exactly 0, s(0) − √PHI is exactly 0 (``load.body_root``), so vth, id, gm
+        and gds at `plain` are those of the plain model to the last bit: `plain` solves the
+        model with GAMMA, and Newton started from it (the re-solve) stays on it, but for the
+        rounding of its last step."""
+        if effect not in EFFECTS or not plain.devices:
+            return None
+        dc = self._dc
+        for t in dc.transistors:
+            if effect == "lambda":
+                if t.card.lambda_ != 0.0:
+                    return None
+            elif t.card.gamma != 0.0:
+                device = plain.devices.get(t.name)
+                if device is None:
+                    return None
+                acting = t.drain if device.vds < 0.0 else t.source
+                if t.bulk != acting and not (
+                    t.bulk in dc.fixed and acting in dc.fixed and dc.fixed[t.bulk] == dc.fixed[acting]
+                ):
+                    return None
+        return HandSolution(
+            plain.topology, plain.closed_form, plain.node_voltages, plain.devices, (), (), frozenset((effect,))
+        )
+
 
 class HandSweep:
     """The hand bias point of one circuit at any value of one of its independent sources, numbers
