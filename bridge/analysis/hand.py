@@ -318,11 +318,14 @@ def _solve_numerically(
     """
     devices = {t.name: t.hand_device() for t in dc.transistors}
     try:
+        placed = None  # the network compiled here holds these devices already: no copy with them
         if not dc.solver:
             dc.solver.append(HandNetwork(circuit, devices, dc.merged))
+        else:
+            placed = devices
         network = dc.solver[0]
         guess = None if start is None else {node: start[node] for node in network.nodes if node in start}
-        solved = network.solve(devices, guess)
+        solved = network.solve(placed, guess)
     except InvalidElement as exc:  # a controlled source's value or control, read on this path only
         raise HandAnalysisError(str(exc)) from None
     except DcSolveError:
@@ -427,7 +430,7 @@ class HandModel:
         dc = self._dc
         if chosen:
             # The same reduction with each transistor's hand model rebuilt from its card.
-            dc = replace(dc, transistors=[replace(t, model=hand_model(t.card, chosen)) for t in dc.transistors])
+            dc = dc.with_transistors([t.with_model(hand_model(t.card, chosen)) for t in dc.transistors])
         return _solve(self.circuit, dc, chosen, self._recognised, closed_form, working, start)
 
     def solved_unchanged(self, effect: str, plain: HandSolution) -> HandSolution | None:
@@ -589,16 +592,20 @@ def _solve(
         )
     elif not closed_form:
         reason = "numerical path requested" + (f" (and {reason})" if reason else "")
-    text = Working(dc, chosen, {}) if working else None
+
+    def text(**numbers: object) -> Working | None:
+        """What the numerical path's text is written from (None without working)."""
+        return Working(dc, chosen, {}, **numbers) if working else None
+
     if stage is None or reason is not None:
-        return _numerical_solution(circuit, dc, topology, chosen, text and replace(text, reason=reason or ""))
+        return _numerical_solution(circuit, dc, topology, chosen, text(reason=reason or ""))
 
     closed = _held_numbers(dc, stage) if stage.held_node is not None else _affine_numbers(dc, stage)
     if isinstance(closed, str):
-        return _numerical_solution(circuit, dc, topology, chosen, text and replace(text, stage=stage, reason=closed))
-    text = text and replace(text, stage=stage, closed=closed)
+        return _numerical_solution(circuit, dc, topology, chosen, text(stage=stage, reason=closed))
     if closed.failure is not None:
-        return _numerical_solution(circuit, dc, topology, chosen, text and replace(text, reason=closed.failure))
+        reason = closed.failure
+        return _numerical_solution(circuit, dc, topology, chosen, text(stage=stage, closed=closed, reason=reason))
     voltages = {**dc.fixed, **closed.voltages}
     t = stage.transistor
     point = _device_points(dc, voltages)[t.name]
@@ -607,8 +614,9 @@ def _solve(
         # rounding leaves the device equations: the numerical path answers instead.
         reason = (f"the closed form for {t.name} loses its precision here (ID {closed.current:.6g} A vs "
                   f"{point.id:.6g} A from the device equations)")
-        return _numerical_solution(circuit, dc, topology, chosen, text and replace(text, reason=reason))
-    steps, assumptions = written(replace(text, voltages=voltages)) if text else ((), ())
+        return _numerical_solution(circuit, dc, topology, chosen, text(stage=stage, closed=closed, reason=reason))
+    # The closed form's working, written when read.
+    steps, assumptions = written(Working(dc, chosen, voltages, stage, closed)) if working else ((), ())
     return HandSolution(
         topology=topology,
         closed_form=True,

@@ -84,6 +84,14 @@ class _Transistor:
     def polarity(self) -> int:
         return self.model.polarity
 
+    def with_model(self, model: Level1Model) -> _Transistor:
+        """This transistor with another hand model: ``dataclasses.replace(self, model=model)``
+        without replace's walk over every field and the frozen ``__init__`` (the attribution
+        makes one per re-solve)."""
+        transistor = object.__new__(_Transistor)
+        vars(transistor).update(vars(self), model=model)
+        return transistor
+
 
 @dataclass
 class _DcCircuit:
@@ -111,6 +119,14 @@ class _DcCircuit:
     def voltage(self, free: Mapping[str, float], node: str) -> float:
         """A node's voltage: fixed by a source, else taken from `free`."""
         return self.fixed[node] if node in self.fixed else free[node]
+
+    def with_transistors(self, transistors: list[_Transistor]) -> _DcCircuit:
+        """The same reduction with `transistors` in place of its own (another hand model of each):
+        ``dataclasses.replace(self, transistors=transistors)`` without replace's walk over every
+        field; every other field is shared, `solver` and `incidence` among them."""
+        circuit = object.__new__(_DcCircuit)
+        vars(circuit).update(vars(self), transistors=transistors)
+        return circuit
 
 
 def _number(value: object, what: str, element: Element) -> float:
