@@ -142,3 +142,40 @@ def test_gamma_in_a_device_running_swapped_is_re_solved() -> None:
     assert solved.devices["M1"].region == "triode"
     assert math.isclose(solved.node_voltages["s"], vs, rel_tol=REL)
     assert -solved.devices["M1"].id > -plain.id  # a lower threshold: more current
+
+
+# A PMOS high-side driver whose n-well has its own supply pin, VNW: at the source's 6 V GAMMA
+# cannot act; 0.5 V above it, the well reverse-biases the source junction and raises |Vt|.
+WELL = """Bicycle dynamo light: PMOS high-side driver, n-well on its own pin
+VDD vdd 0 6
+VNW nw 0 {well}
+R1 vdd g 100k
+R2 g 0 220k
+RD d 0 3.3k
+M1 d g vdd nw pled W=60u L=2u
+.model pled pmos (vto=-0.75 kp=40u lambda=0.03 gamma=0.5 phi=0.7)
+.op
+.end
+"""
+
+
+def test_gamma_with_the_well_on_a_source_at_the_source_voltage_is_the_plain_hand_point() -> None:
+    own = _own(WELL.format(well=6))
+    assert own.with_effect is not None
+    assert own.with_effect["gamma"].node_voltages == own.hand.node_voltages
+    assert own.with_effect["gamma"].devices == own.hand.devices
+
+
+def test_gamma_with_the_well_above_the_source_is_re_solved() -> None:
+    own = _own(WELL.format(well=6.5))
+    model = HandModel(parse_netlist(WELL.format(well=6.5), "dynamo.cir"))
+    assert model.solved_unchanged("gamma", own.hand) is None
+    # The source sits on VDD: VSG = 6·100/320 V and the body bias (0.5 V reverse) are fixed, so
+    # the saturation current follows at once from the raised threshold.
+    vth = 0.75 + 0.5 * (math.sqrt(0.7 + 0.5) - math.sqrt(0.7))
+    vsg = 6.0 * 100.0 / 320.0
+    current = 0.5 * 40e-6 * 30 * (vsg - vth) ** 2
+    solved = own.with_effect["gamma"].devices["M1"]
+    assert solved.region == "saturation"
+    assert math.isclose(solved.id, current, rel_tol=REL)
+    assert math.isclose(own.with_effect["gamma"].node_voltages["d"], 3.3e3 * current, rel_tol=REL)
