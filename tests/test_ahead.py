@@ -17,6 +17,7 @@ import subprocess
 import sys
 import threading
 import time
+from dataclasses import replace
 from pathlib import Path
 
 import pytest
@@ -63,6 +64,43 @@ def test_the_helper_delivers_what_preparing_here_gives_in_the_same_order(tmp_pat
     assert preparation.helper_pid is not None
     assert list(preparation) == here
     assert preparation.helper_pid is None  # reaped once the last item is out
+
+
+def test_without_the_working_shown_the_helper_sends_the_same_columns_without_it(tmp_path):
+    # `check` without --steps: the hand derivation is never shown, so the helper neither writes
+    # it nor pipes it; every number, finding and circuit arrives as prepared here.
+    paths = mixed_inputs(tmp_path)
+    here = list(Preparation(paths, None, helper=False))
+    preparation = Preparation(paths, None, helper=True, working=False)
+    assert preparation.helper_pid is not None
+    sent = list(preparation)
+    assert len(sent) == len(here)
+    for item, alone in zip(sent, here):
+        if isinstance(alone, Unusable):
+            assert item == alone
+            continue
+        assert item.circuit == alone.circuit
+        assert (item.own.with_effect, item.own.level1, item.own.findings) == (
+            alone.own.with_effect, alone.own.level1, alone.own.findings)
+        hand = alone.own.hand
+        assert replace(item.own.hand, steps=hand.steps, assumptions=hand.assumptions) == hand
+    # Those from the helper (the first files, at least the first one) have no working; any
+    # taken from the back here keep theirs, unwritten until read.
+    assert tuple(sent[0].own.hand.steps) == () and tuple(sent[0].own.hand.assumptions) == ()
+    assert len(here[0].own.hand.steps) > 0
+
+
+@needs_library
+def test_a_many_file_check_shows_each_derivation_with_the_helper_as_without(tmp_path, capsys, monkeypatch):
+    # --steps keeps the working on its way through the helper's pipe.
+    paths = [str(path) for path in BUNDLED[:AHEAD_FROM]]
+    outputs = []
+    for load in (0.0, 99.0):  # an idle machine: a helper; a busy one: none
+        monkeypatch.setattr(os, "getloadavg", lambda load=load: (load, load, load))
+        main(["check", "--steps", "--details", *paths])
+        outputs.append(capsys.readouterr().out)
+    assert outputs[0] == outputs[1]
+    assert outputs[0].count("Hand analysis, step by step:") == len(paths)
 
 
 def test_while_the_helper_stalls_this_process_takes_the_files_from_the_back(tmp_path):
