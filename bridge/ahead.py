@@ -83,9 +83,12 @@ def prepare(path: str, expectations: Expectations | None) -> Prepared | Unusable
         return Unusable.from_error(path, NetlistError(str(exc), Location(path, 1, 1)))
 
 
-def worth_a_helper(count: int, *, cpus: int | None = None, load: float | None = None) -> bool:
-    """Whether `count` files are worth a second process on this machine (`cpus` and `load`, the
-    load average of the last minute, are this machine's unless given).
+def worth_a_helper(
+    count: int, *, cpus: int | None = None, load: float | None = None, beside: Sequence[int] = (),
+) -> bool:
+    """Whether `count` files are worth a second process on this machine (`cpus`, and `load`, what
+    the machine runs besides this check, are this machine's unless given; `beside`: the pids of
+    this check's own other processes, the ngspice worker starting up, see ``busy_elsewhere``).
 
     The helper wins wall time only on a CPU nothing else wants: the check itself keeps one busy
     (this process and the ngspice worker take turns), and the helper costs CPU of its own (the
@@ -93,6 +96,19 @@ def worth_a_helper(count: int, *, cpus: int | None = None, load: float | None = 
     CPU to spare: load < cpus - 1.5. Measured with `check --json` of the 200 bench stages on 2
     CPUs at load 9: with the helper 2.05 s CPU and 5.3 s wall, without 1.82 s and 5.0 s (medians
     of 4, alternating; see DEVELOPERS.md, Speed notes).
+
+    The load is read at this instant (``busy_elsewhere``), not as the 1-minute load average: that
+    average counts this check's own previous runs, so on 2 CPUs a bench or a CI job running checks
+    back to back never got a helper, even alone on the machine. Measured on 2 CPUs shared with
+    other jobs (an idle machine could not be had), `check --json` of the 200 bench stages with the
+    helper forced on and off, alternating, medians; the readings as the check saw them where it
+    asks: at 1-minute load 4.2-5.5 and 5-8 runnable tasks, wall 3.82 s with the helper and 4.13 s
+    without, CPU 1.90 and 1.85 s (5 runs each); with `yes > /dev/null` holding a core besides,
+    load 6.6-7.3 and 4-11 runnable, wall 6.19 and 7.79 s, CPU 1.89 and 1.77 s (3 and 4 runs). At
+    load 7.4, 500 readings 2 ms apart counted 5-8 runnable tasks, never 2 or fewer: the instant's
+    count sees a loaded machine as the average does, and says no helper there too. What the helper
+    gained there is CPU the other jobs would have had, for 3-7 % more CPU: the rule still asks
+    for a CPU nothing else wants.
     """
     if count < AHEAD_FROM or not hasattr(os, "fork"):
         return False
@@ -102,11 +118,36 @@ def worth_a_helper(count: int, *, cpus: int | None = None, load: float | None = 
         except AttributeError:  # not on every platform
             cpus = os.cpu_count() or 1
     if load is None:
-        try:
-            load = os.getloadavg()[0]
-        except (AttributeError, OSError):  # no load average here: the CPUs alone decide
-            load = 0.0
+        load = busy_elsewhere(beside)
     return cpus > 1 and load < cpus - 1.5
+
+
+LOADAVG = "/proc/loadavg"  # Linux, proc(5)
+
+
+def busy_elsewhere(beside: Sequence[int] = ()) -> float:
+    """What the machine runs now besides this check: the runnable tasks that `LOADAVG` counts at
+    this instant (the first number of its 4th field, proc(5)), less this process and those of
+    `beside` that are running (state R in /proc/PID/stat). Where that file cannot be read, the
+    1-minute load average (which counts this check's earlier runs too); else 0, the CPUs decide."""
+    try:
+        with open(LOADAVG, encoding="ascii") as file:
+            runnable = int(file.read().split()[3].split("/")[0])
+    except (OSError, IndexError, ValueError):
+        try:
+            return os.getloadavg()[0]
+        except (AttributeError, OSError):  # no load average here
+            return 0.0
+    return float(max(0, runnable - 1 - sum(_running(pid) for pid in beside)))
+
+
+def _running(pid: int) -> bool:
+    """Whether process `pid` is runnable now (its state in /proc/PID/stat, after the name)."""
+    try:
+        with open(f"/proc/{pid}/stat", "rb") as file:
+            return file.read().rpartition(b")")[2].split()[0] == b"R"
+    except (OSError, IndexError):
+        return False
 
 
 class Preparation:
