@@ -121,6 +121,15 @@ class SimResult:
             raise ValueError(f"{name} has {values.size} points, not one")
         return float(values[0])
 
+    def scalar_if_any(self, name: str) -> float | None:
+        """``scalar(name)`` when the plot has that vector, else None (one lookup for both)."""
+        values = self.vectors.get(_vector_key(name))
+        if values is None:
+            return None
+        if values.shape != (1,):
+            raise ValueError(f"{name} has {values.size} points, not one")
+        return float(values[0])
+
 
 def ngspice_available(library: str | None = None) -> tuple[bool, str]:
     """Whether libngspice can be found, and one line for the user; never raises."""
