@@ -67,6 +67,17 @@ def without_working(item: Prepared | Unusable) -> Prepared | Unusable:
     return Prepared(item.circuit, replace(item.own, hand=replace(item.own.hand, steps=(), assumptions=())))
 
 
+def without_written_fields(item: Prepared | Unusable) -> Prepared | Unusable:
+    """`item` with its elements' fields as written (``Element.written``: only lint's rules read
+    them, and equality ignores them) left out, for the pipe: of a bench stage's `Prepared`, 0.8 of
+    3.5 KB and a third of the time unpickling it takes this process."""
+    if not isinstance(item, Prepared):
+        return item
+    circuit = item.circuit
+    elements = tuple(replace(element, written={}) if element.written else element for element in circuit.elements)
+    return Prepared(replace(circuit, elements=elements), item.own)
+
+
 def prepare(path: str, expectations: Expectations | None) -> Prepared | Unusable:
     """Read `path` and solve its own columns; a netlist that cannot be checked gives its
     located message (``FILE:LINE:COL: ...``) instead."""
@@ -259,7 +270,7 @@ class Preparation:
                 os.closerange(keep + 1, os.sysconf("SC_OPEN_MAX"))
                 index = 0
                 while index < self._shared_back.value:
-                    item = prepare(self.paths[index], self.expectations)
+                    item = without_written_fields(prepare(self.paths[index], self.expectations))
                     sending.send((index, item if self.working else without_working(item)))
                     index += 1
                 code = 0

@@ -86,9 +86,12 @@ def test_without_the_working_shown_the_helper_sends_the_same_columns_without_it(
         hand = alone.own.hand
         assert replace(item.own.hand, steps=hand.steps, assumptions=hand.assumptions) == hand
     # Those from the helper (the first files, at least the first one) have no working; any
-    # taken from the back here keep theirs, unwritten until read.
+    # taken from the back here keep theirs, unwritten until read. Nor do they carry the fields
+    # as written, which only lint reads.
     assert tuple(sent[0].own.hand.steps) == () and tuple(sent[0].own.hand.assumptions) == ()
     assert len(here[0].own.hand.steps) > 0
+    assert all(not element.written for element in sent[0].circuit.elements)
+    assert any(element.written for element in here[0].circuit.elements)
 
 
 @needs_library
