@@ -203,10 +203,10 @@ def test_a_running_process_of_the_check_itself_is_not_load(tmp_path, monkeypatch
     loadavg = tmp_path / "loadavg"
     monkeypatch.setattr(ahead, "LOADAVG", str(loadavg))
     loadavg.write_text("0.50 0.40 0.30 3/345 31337\n")
-    spinning = subprocess.Popen(["yes"], stdout=subprocess.DEVNULL)
-    sleeping = subprocess.Popen(["sleep", "30"])
+    spinning = subprocess.Popen([sys.executable, "-c", "while True: pass"])
+    sleeping = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(30)"])
     try:
-        deadline = time.monotonic() + 5  # until `yes` runs and `sleep` has got to its sleep
+        deadline = time.monotonic() + 5  # until one spins and the other has got to its sleep
         while (not ahead._running(spinning.pid) or ahead._running(sleeping.pid)) and time.monotonic() < deadline:
             time.sleep(0.01)
         assert ahead._running(spinning.pid)
