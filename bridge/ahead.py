@@ -101,25 +101,28 @@ def worth_a_helper(
     the machine runs besides this check, are this machine's unless given; `beside`: the pids of
     this check's own other processes, the ngspice worker starting up, see ``busy_elsewhere``).
 
-    The helper wins wall time only on a CPU nothing else wants: the check itself keeps one busy
-    (this process and the ngspice worker take turns), and the helper costs CPU of its own (the
-    fork, pickling, a file both took). So a helper needs a CPU idle besides that one, with half a
-    CPU to spare: load < cpus - 1.5. Measured with `check --json` of the 200 bench stages on 2
-    CPUs at load 9: with the helper 2.05 s CPU and 5.3 s wall, without 1.82 s and 5.0 s (medians
-    of 4, alternating; see DEVELOPERS.md, Speed notes).
+    The check itself keeps one CPU busy (this process and the ngspice worker take turns), and the
+    helper takes another and costs CPU of its own (the fork, pickling, a file both took). So a
+    helper is forked only where a CPU is idle besides the check's, with half a CPU to spare:
+    load < cpus - 1.5; on a busy machine what it gains is CPU the other jobs would have had.
+    Measured earlier with `check --json` of the 200 bench stages on 2 CPUs at load 9: with the
+    helper 2.05 s CPU and 5.3 s wall, without 1.82 s and 5.0 s (medians of 4, alternating; see
+    DEVELOPERS.md, Speed notes).
 
     The load is read at this instant (``busy_elsewhere``), not as the 1-minute load average: that
     average counts this check's own previous runs, so on 2 CPUs a bench or a CI job running checks
     back to back never got a helper, even alone on the machine. Measured on 2 CPUs shared with
-    other jobs (an idle machine could not be had), `check --json` of the 200 bench stages with the
-    helper forced on and off, alternating, medians; the readings as the check saw them where it
-    asks: at 1-minute load 4.2-5.5 and 5-8 runnable tasks, wall 3.82 s with the helper and 4.13 s
-    without, CPU 1.90 and 1.85 s (5 runs each); with `yes > /dev/null` holding a core besides,
-    load 6.6-7.3 and 4-11 runnable, wall 6.19 and 7.79 s, CPU 1.89 and 1.77 s (3 and 4 runs). At
-    load 7.4, 500 readings 2 ms apart counted 5-8 runnable tasks, never 2 or fewer: the instant's
-    count sees a loaded machine as the average does, and says no helper there too. What the helper
-    gained there is CPU the other jobs would have had, for 3-7 % more CPU: the rule still asks
-    for a CPU nothing else wants.
+    other jobs (an idle machine could not be had), the same command with the helper forced on and
+    off, alternating, medians, the readings as the check saw them where it asks (runnable tasks:
+    this process and its worker among them):
+
+        machine                          wall on / off   CPU on / off    1-min load  runnable
+        other jobs (5 runs each)         3.82 / 4.13 s   1.90 / 1.85 s   4.2-5.5     5-8
+        and `yes` holding a core (3, 4)  6.19 / 7.79 s   1.89 / 1.77 s   6.6-7.3     4-11
+        fewer other jobs (4 runs each)   1.52 / 1.74 s   1.11 / 1.16 s   2.6-2.9     4-5
+
+    At load 7.4, 500 readings 2 ms apart counted 5-8 runnable tasks, never 2 or fewer: the
+    instant's count sees a loaded machine as the average does, and says no helper on all three.
     """
     if count < AHEAD_FROM or not hasattr(os, "fork"):
         return False
