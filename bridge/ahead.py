@@ -16,7 +16,7 @@ import os
 import signal
 import threading
 from collections.abc import Callable, Iterator, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING, Any, TypeVar
 
 from .check import NotASingleStage, OwnColumns, solve_own_columns
@@ -57,6 +57,27 @@ class Unusable:
         return cls(file, exc.message, exc.location, exc.render())
 
 
+def without_working(item: Prepared | Unusable) -> Prepared | Unusable:
+    """`item` with its hand solution's working (``steps``, ``assumptions``) left empty, for a check
+    whose view does not show it. The working is written when it is first read, and pickling reads
+    it: for the 200 bench stages that writing was a third of pickling a `Prepared` for the pipe
+    and its text 40 % of the 5.9 KB sent (0.21 → 0.09 ms a stage pickled, 5.9 → 3.5 KB)."""
+    if not isinstance(item, Prepared):  # (asking whether the working is empty would write it)
+        return item
+    return Prepared(item.circuit, replace(item.own, hand=replace(item.own.hand, steps=(), assumptions=())))
+
+
+def without_written_fields(item: Prepared | Unusable) -> Prepared | Unusable:
+    """`item` with its elements' fields as written (``Element.written``: only lint's rules read
+    them, and equality ignores them) left out, for the pipe: of a bench stage's `Prepared`, 0.8 of
+    3.5 KB and a third of the time unpickling it takes this process."""
+    if not isinstance(item, Prepared):
+        return item
+    circuit = item.circuit
+    elements = tuple(replace(element, written={}) if element.written else element for element in circuit.elements)
+    return Prepared(replace(circuit, elements=elements), item.own)
+
+
 def prepare(path: str, expectations: Expectations | None) -> Prepared | Unusable:
     """Read `path` and solve its own columns; a netlist that cannot be checked gives its
     located message (``FILE:LINE:COL: ...``) instead."""
@@ -73,16 +94,35 @@ def prepare(path: str, expectations: Expectations | None) -> Prepared | Unusable
         return Unusable.from_error(path, NetlistError(str(exc), Location(path, 1, 1)))
 
 
-def worth_a_helper(count: int, *, cpus: int | None = None, load: float | None = None) -> bool:
-    """Whether `count` files are worth a second process on this machine (`cpus` and `load`, the
-    load average of the last minute, are this machine's unless given).
+def worth_a_helper(
+    count: int, *, cpus: int | None = None, load: float | None = None, beside: Sequence[int] = (),
+) -> bool:
+    """Whether `count` files are worth a second process on this machine (`cpus`, and `load`, what
+    the machine runs besides this check, are this machine's unless given; `beside`: the pids of
+    this check's own other processes, the ngspice worker starting up, see ``busy_elsewhere``).
 
-    The helper wins wall time only on a CPU nothing else wants: the check itself keeps one busy
-    (this process and the ngspice worker take turns), and the helper costs CPU of its own (the
-    fork, pickling, a file both took). So a helper needs a CPU idle besides that one, with half a
-    CPU to spare: load < cpus - 1.5. Measured with `check --json` of the 200 bench stages on 2
-    CPUs at load 9: with the helper 2.05 s CPU and 5.3 s wall, without 1.82 s and 5.0 s (medians
-    of 4, alternating; see DEVELOPERS.md, Speed notes).
+    The check itself keeps one CPU busy (this process and the ngspice worker take turns), and the
+    helper takes another and costs CPU of its own (the fork, pickling, a file both took). So a
+    helper is forked only where a CPU is idle besides the check's, with half a CPU to spare:
+    load < cpus - 1.5; on a busy machine what it gains is CPU the other jobs would have had.
+    Measured earlier with `check --json` of the 200 bench stages on 2 CPUs at load 9: with the
+    helper 2.05 s CPU and 5.3 s wall, without 1.82 s and 5.0 s (medians of 4, alternating; see
+    DEVELOPERS.md, Speed notes).
+
+    The load is read at this instant (``busy_elsewhere``), not as the 1-minute load average: that
+    average counts this check's own previous runs, so on 2 CPUs a bench or a CI job running checks
+    back to back never got a helper, even alone on the machine. Measured on 2 CPUs shared with
+    other jobs (an idle machine could not be had), the same command with the helper forced on and
+    off, alternating, medians, the readings as the check saw them where it asks (runnable tasks:
+    this process and its worker among them):
+
+        machine                          wall on / off   CPU on / off    1-min load  runnable
+        other jobs (5 runs each)         3.82 / 4.13 s   1.90 / 1.85 s   4.2-5.5     5-8
+        and `yes` holding a core (3, 4)  6.19 / 7.79 s   1.89 / 1.77 s   6.6-7.3     4-11
+        fewer other jobs (4 runs each)   1.52 / 1.74 s   1.11 / 1.16 s   2.6-2.9     4-5
+
+    At load 7.4, 500 readings 2 ms apart counted 5-8 runnable tasks, never 2 or fewer: the
+    instant's count sees a loaded machine as the average does, and says no helper on all three.
     """
     if count < AHEAD_FROM or not hasattr(os, "fork"):
         return False
@@ -92,11 +132,36 @@ def worth_a_helper(count: int, *, cpus: int | None = None, load: float | None = 
         except AttributeError:  # not on every platform
             cpus = os.cpu_count() or 1
     if load is None:
-        try:
-            load = os.getloadavg()[0]
-        except (AttributeError, OSError):  # no load average here: the CPUs alone decide
-            load = 0.0
+        load = busy_elsewhere(beside)
     return cpus > 1 and load < cpus - 1.5
+
+
+LOADAVG = "/proc/loadavg"  # Linux, proc(5)
+
+
+def busy_elsewhere(beside: Sequence[int] = ()) -> float:
+    """What the machine runs now besides this check: the runnable tasks that `LOADAVG` counts at
+    this instant (the first number of its 4th field, proc(5)), less this process and those of
+    `beside` that are running (state R in /proc/PID/stat). Where that file cannot be read, the
+    1-minute load average (which counts this check's earlier runs too); else 0, the CPUs decide."""
+    try:
+        with open(LOADAVG, encoding="ascii") as file:
+            runnable = int(file.read().split()[3].split("/")[0])
+    except (OSError, IndexError, ValueError):
+        try:
+            return os.getloadavg()[0]
+        except (AttributeError, OSError):  # no load average here
+            return 0.0
+    return float(max(0, runnable - 1 - sum(_running(pid) for pid in beside)))
+
+
+def _running(pid: int) -> bool:
+    """Whether process `pid` is runnable now (its state in /proc/PID/stat, after the name)."""
+    try:
+        with open(f"/proc/{pid}/stat", "rb") as file:
+            return file.read().rpartition(b")")[2].split()[0] == b"R"
+    except (OSError, IndexError):
+        return False
 
 
 class Preparation:
@@ -109,12 +174,17 @@ class Preparation:
     A file both took (the helper had read the number just before it moved) is used from here.
 
     Iterate once. The helper is forked at construction: before the caller starts any thread (a
-    progress bar's, say), since only the forking thread lives on in the child.
+    progress bar's, say), since only the forking thread lives on in the child. With `working`
+    False (no view will show the hand derivation: `check` without --steps) the helper sends each
+    hand solution without its working (see ``without_working``).
     """
 
-    def __init__(self, paths: Sequence[str], expectations: Expectations | None, *, helper: bool) -> None:
+    def __init__(
+        self, paths: Sequence[str], expectations: Expectations | None, *, helper: bool, working: bool = True,
+    ) -> None:
         self.paths = list(paths)
         self.expectations = expectations
+        self.working = working
         self.helper_pid: int | None = None
         self.taken_here = 0  # files this process prepared while the helper was busy
         self._from_helper: Connection | None = None
@@ -203,7 +273,8 @@ class Preparation:
                 os.closerange(keep + 1, os.sysconf("SC_OPEN_MAX"))
                 index = 0
                 while index < self._shared_back.value:
-                    sending.send((index, prepare(self.paths[index], self.expectations)))
+                    item = without_written_fields(prepare(self.paths[index], self.expectations))
+                    sending.send((index, item if self.working else without_working(item)))
                     index += 1
                 code = 0
             except BaseException:  # noqa: BLE001 - the parent prepares what was not sent

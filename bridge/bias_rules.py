@@ -103,6 +103,9 @@ def _supply_elements(circuit: Circuit) -> list[Element]:
 def _branch_delivered(branches: Mapping[str, float] | None, element: Element) -> float | None:
     if branches is None:
         return None
+    current = branches.get(element.name)  # as written: names are unique ignoring case (build)
+    if current is not None:
+        return -current
     wanted = element.name.lower()
     for name, current in branches.items():
         if name.lower() == wanted:
@@ -425,10 +428,15 @@ def inconsistent_device_vectors(circuit: Circuit, sim: SimOperatingPoint | None)
     return found
 
 
-def device_vector_findings(circuit: Circuit, sim: SimOperatingPoint | None) -> list[Finding]:
-    """One finding per MOSFET whose ngspice device vectors disagree with ngspice's node voltages."""
+def device_vector_findings(
+    circuit: Circuit, sim: SimOperatingPoint | None, inconsistent: Mapping[str, Mapping[str, tuple]] | None = None,
+) -> list[Finding]:
+    """One finding per MOSFET whose ngspice device vectors disagree with ngspice's node voltages
+    (`inconsistent`: ``inconsistent_device_vectors(circuit, sim)``, when the caller has it)."""
     found = []
-    for name, wrong in inconsistent_device_vectors(circuit, sim).items():
+    if inconsistent is None:
+        inconsistent = inconsistent_device_vectors(circuit, sim)
+    for name, wrong in inconsistent.items():
         element = circuit.element(name)
         parts = "; ".join(
             f"@{name.lower()}[{quantity}] = {engineering(vector, 'V')} but its node voltages give "

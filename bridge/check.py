@@ -275,7 +275,11 @@ class PendingCheck:
                    for n in self.circuit.notices]
         supply_table = supplies(circuit, own.hand, own.level1, self._sim)
         rules = bias_findings(circuit, own.hand, own.level1, self._sim, supply_table)
-        rules += device_vector_findings(self.circuit, self._sim)
+        # ngspice's vectors against its node voltages: judged once, for the finding and for the
+        # level-1 differences it disproves (on the same circuit; a fitted one has other cards).
+        wrong_vectors = inconsistent_device_vectors(self.circuit, self._sim)
+        rules += device_vector_findings(self.circuit, self._sim, wrong_vectors)
+        disproving = wrong_vectors if circuit is self.circuit else None
         findings_before = (*notices, *own.findings, *self.findings, *rules)
 
         def compared(converged: SimOperatingPoint | None = None) -> tuple[CheckResult, tuple[Finding, ...]]:
@@ -289,7 +293,7 @@ class PendingCheck:
                 result = replace(result, devices={
                     name: replace(device, model=self.circuit.element(name).model or "")
                     for name, device in result.devices.items()})  # fmt: skip
-            return result, _without_disproved(result.findings, circuit, own.level1, self._sim)
+            return result, _without_disproved(result.findings, circuit, own.level1, self._sim, disproving)
 
         result, findings = compared()
         if own.level1 is not None and self._sim is not None and any(f.code == SOLVER_DIFFERS for f in findings):
@@ -340,15 +344,19 @@ def _with_tolerance_note(
 
 def _without_disproved(
     findings: tuple[Finding, ...], circuit: Circuit, level1: OperatingPoint | None, sim: SimOperatingPoint | None,
+    wrong_vectors: dict[str, dict[str, tuple]] | None = None,
 ) -> tuple[Finding, ...]:
     """The findings less each `solver-differs` on a terminal voltage (vgs, vds) whose ngspice device
     vector disagrees with ngspice's own node voltages while the level-1 value matches those (within
     1 mV + 0.2 %): the difference is then ngspice's vector, not a defect of the level-1 solver
-    (``bias_rules.device_vector_findings`` says so)."""
+    (``bias_rules.device_vector_findings`` says so). `wrong_vectors`: those of
+    ``inconsistent_device_vectors(circuit, sim)``, when they are at hand."""
     if level1 is None:
         return findings
     disproved: set[str] = set()
-    for name, wrong in inconsistent_device_vectors(circuit, sim).items():
+    if wrong_vectors is None:
+        wrong_vectors = inconsistent_device_vectors(circuit, sim)
+    for name, wrong in wrong_vectors.items():
         device = level1.devices.get(name)
         for quantity, (_, from_nodes) in wrong.items():
             value = getattr(device, quantity, None) if device is not None else None

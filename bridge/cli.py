@@ -159,7 +159,9 @@ def command_check(args: argparse.Namespace) -> int:
             return EXIT_INPUT
     # Reading and solving run ahead in a second process when there are enough files (see
     # ahead.py); it is forked before the report's modules load, which it does not need.
-    prepared = Preparation(args.files, expectations, helper=worth_a_helper(len(args.files)))
+    worker = session.worker_pid if session is not None else None
+    helper = worth_a_helper(len(args.files), beside=() if worker is None else (worker,))
+    prepared = Preparation(args.files, expectations, helper=helper, working=args.steps)
     from .check import CheckQueue, PendingCheck, start_check
     from .report.check_view import check_json, check_renderable, print_check
 

@@ -17,11 +17,13 @@ import subprocess
 import sys
 import threading
 import time
+from dataclasses import replace
 from pathlib import Path
 
 import pytest
 from conftest import EXAMPLES
 
+from bridge import ahead
 from bridge.ahead import AHEAD_FROM, Preparation, Prepared, Unusable, next_meanwhile, prepare, worth_a_helper
 from bridge.cli import main
 from bridge.sim.client import NgspiceSession, ngspice_available
@@ -63,6 +65,46 @@ def test_the_helper_delivers_what_preparing_here_gives_in_the_same_order(tmp_pat
     assert preparation.helper_pid is not None
     assert list(preparation) == here
     assert preparation.helper_pid is None  # reaped once the last item is out
+
+
+def test_without_the_working_shown_the_helper_sends_the_same_columns_without_it(tmp_path):
+    # `check` without --steps: the hand derivation is never shown, so the helper neither writes
+    # it nor pipes it; every number, finding and circuit arrives as prepared here.
+    paths = mixed_inputs(tmp_path)
+    here = list(Preparation(paths, None, helper=False))
+    preparation = Preparation(paths, None, helper=True, working=False)
+    assert preparation.helper_pid is not None
+    sent = list(preparation)
+    assert len(sent) == len(here)
+    for item, alone in zip(sent, here):
+        if isinstance(alone, Unusable):
+            assert item == alone
+            continue
+        assert item.circuit == alone.circuit
+        assert (item.own.with_effect, item.own.level1, item.own.findings) == (
+            alone.own.with_effect, alone.own.level1, alone.own.findings)
+        hand = alone.own.hand
+        assert replace(item.own.hand, steps=hand.steps, assumptions=hand.assumptions) == hand
+    # Those from the helper (the first files, at least the first one) have no working; any
+    # taken from the back here keep theirs, unwritten until read. Nor do they carry the fields
+    # as written, which only lint reads.
+    assert tuple(sent[0].own.hand.steps) == () and tuple(sent[0].own.hand.assumptions) == ()
+    assert len(here[0].own.hand.steps) > 0
+    assert all(not element.written for element in sent[0].circuit.elements)
+    assert any(element.written for element in here[0].circuit.elements)
+
+
+@needs_library
+def test_a_many_file_check_shows_each_derivation_with_the_helper_as_without(tmp_path, capsys, monkeypatch):
+    # --steps keeps the working on its way through the helper's pipe.
+    paths = [str(path) for path in BUNDLED[:AHEAD_FROM]]
+    outputs = []
+    for load in (0.0, 99.0):  # an idle machine: a helper; a busy one: none
+        monkeypatch.setattr(ahead, "busy_elsewhere", lambda beside=(), load=load: load)
+        main(["check", "--steps", "--details", *paths])
+        outputs.append(capsys.readouterr().out)
+    assert outputs[0] == outputs[1]
+    assert outputs[0].count("Hand analysis, step by step:") == len(paths)
 
 
 def test_while_the_helper_stalls_this_process_takes_the_files_from_the_back(tmp_path):
@@ -137,11 +179,52 @@ def test_a_helper_needs_a_cpu_the_machine_leaves_idle():
     assert not worth_a_helper(200, cpus=8, load=6.5)
 
 
+def test_the_load_is_read_at_this_instant_not_as_the_minute_average(tmp_path, monkeypatch):
+    # A check run right after another sees its predecessor in the 1-minute average (here 9 on 2
+    # CPUs) though nothing else runs now: only this process is runnable, so a helper pays.
+    loadavg = tmp_path / "loadavg"
+    monkeypatch.setattr(ahead, "LOADAVG", str(loadavg))
+    loadavg.write_text("9.00 6.10 2.40 1/345 31337\n")
+    assert ahead.busy_elsewhere() == 0.0
+    assert worth_a_helper(200, cpus=2)
+    # Now two others are runnable besides this process (a `yes` holding a core, say): no helper.
+    loadavg.write_text("0.10 0.20 0.30 3/345 31337\n")
+    assert ahead.busy_elsewhere() == 2.0
+    assert not worth_a_helper(200, cpus=2)
+    # Without that file (not Linux) the 1-minute average decides, as before.
+    monkeypatch.setattr(ahead, "LOADAVG", str(tmp_path / "absent"))
+    monkeypatch.setattr(os, "getloadavg", lambda: (1.25, 0.5, 0.25))
+    assert ahead.busy_elsewhere() == 1.25
+
+
+def test_a_running_process_of_the_check_itself_is_not_load(tmp_path, monkeypatch):
+    # The ngspice worker starting up beside this process is the check's own: counted out while
+    # it runs (state R), and not subtracted once it sleeps.
+    loadavg = tmp_path / "loadavg"
+    monkeypatch.setattr(ahead, "LOADAVG", str(loadavg))
+    loadavg.write_text("0.50 0.40 0.30 3/345 31337\n")
+    spinning = subprocess.Popen([sys.executable, "-c", "while True: pass"])
+    sleeping = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(30)"])
+    try:
+        deadline = time.monotonic() + 5  # until one spins and the other has got to its sleep
+        while (not ahead._running(spinning.pid) or ahead._running(sleeping.pid)) and time.monotonic() < deadline:
+            time.sleep(0.01)
+        assert ahead._running(spinning.pid)
+        assert ahead.busy_elsewhere((spinning.pid,)) == 1.0
+        assert not ahead._running(sleeping.pid)
+        assert ahead.busy_elsewhere((sleeping.pid,)) == 2.0
+    finally:
+        for process in (spinning, sleeping):
+            process.kill()
+            process.wait()
+    assert not ahead._running(spinning.pid)  # reaped: gone
+
+
 @needs_library
 def test_a_many_file_check_prints_what_checking_each_file_alone_prints(tmp_path, capsys, monkeypatch):
     paths = mixed_inputs(tmp_path)
     # A machine with an idle CPU (whatever this one's load is now), so that the helper runs.
-    monkeypatch.setattr(os, "getloadavg", lambda: (0.0, 0.0, 0.0))
+    monkeypatch.setattr(ahead, "busy_elsewhere", lambda beside=(): 0.0)
     assert worth_a_helper(len(paths)) or len(os.sched_getaffinity(0)) == 1
     alone_out, alone_err = [], []
     for path in paths:

@@ -243,3 +243,31 @@ def test_the_worker_reads_the_plot_directly_as_pyspice_reads_it() -> None:
     assert list(dc_direct.items()) == list(dc_pyspice.items())
     assert {"d", "g", "vdd#branch", "@m1[id]", "@m1[gm]"} <= set(op_direct)
     assert len(dc_direct["d"]) == 101 and all(len(values) == 1 for values in op_direct.values())
+
+
+# ---- a card's effects, remembered per card in a batch: read as the level-1 model reads it ----
+
+
+def test_a_cards_lambda_and_gamma_are_remembered_as_the_level1_model_reads_them() -> None:
+    from bridge.analysis.dcsolve import level1_model
+    from bridge.compare import _card_effects
+    from bridge.netlist.circuit import ModelCard, Origin
+
+    origin = Origin("greenhouse_sensor.cir", 3)
+    cards = [
+        ModelCard("plain", "nmos", 1, {"vto": 0.7, "kp": 120e-6}, origin),
+        ModelCard("clm", "nmos", 1, {"vto": 0.7, "kp": 120e-6, "lambda": 0.02}, origin),
+        # GAMMA not given: derived from NSUB and TOX (ngspice's mos1 does the same)
+        ModelCard("doped", "pmos", 1, {"vto": -0.8, "kp": 40e-6, "nsub": 1e16, "tox": 20e-9}, origin),
+        ModelCard("body", "pmos", 1, {"vto": -0.8, "kp": 40e-6, "gamma": 0.45, "lambda": 0.0}, origin),
+    ]
+    for card in cards:
+        model = level1_model(card)
+        expected = (model.lambda_ > 0, model.gamma > 0)
+        assert _card_effects(card.type, tuple(card.params.items())) == expected, card.name
+        assert _card_effects(card.type, tuple(card.params.items())) == expected, card.name  # remembered
+    assert _card_effects("pmos", tuple(cards[2].params.items()))[1] is True  # the derived GAMMA acts
+    bad = ModelCard("bad", "nmos", 1, {"vto": 0.7, "kp": 120e-6, "phi": -0.6}, origin)
+    for _ in range(2):  # a card that cannot be read raises each time, never a remembered answer
+        with pytest.raises(ValueError, match="PHI must be positive"):
+            _card_effects(bad.type, tuple(bad.params.items()))

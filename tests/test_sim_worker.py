@@ -97,6 +97,16 @@ def test_op_of_divider_and_nmos_stage_gives_node_voltages(session):
 
 
 @needs_ngspice
+def test_a_vector_read_if_present_is_the_scalar_or_none(session):
+    # The operating-point reader asks each name once: the value when the plot has it, else None.
+    result = session.run(deck(STAGE_OP))
+    for name in ("g", "v(d)", "VDD", "i(vdd)", "vdd#branch"):
+        assert result.scalar_if_any(name) == result.scalar(name)
+    assert "nowhere" not in result and result.scalar_if_any("nowhere") is None
+    assert result.scalar_if_any("i(nowhere)") is None
+
+
+@needs_ngspice
 def test_device_vectors_come_back_when_saved(session):
     result = session.run(deck(STAGE_OP))
     gate, drain = result.scalar("g"), result.scalar("d")

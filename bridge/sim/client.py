@@ -11,6 +11,7 @@ something else while ngspice solves; ``spawn`` starts the worker early for the s
 from __future__ import annotations
 
 import contextlib
+import functools
 import json
 import math
 import os
@@ -31,6 +32,10 @@ from typing import TYPE_CHECKING, Any
 
 from bridge.sim.locate import locate_ngspice
 from bridge.sim.worker import vector_key
+
+# A plot's vectors are asked for by the same few names over and over (a check asks ~14 a stage):
+# each name's key is worked out once (the same function, remembered).
+_vector_key = functools.lru_cache(maxsize=1 << 12)(vector_key)
 
 if TYPE_CHECKING:
     import numpy as np
@@ -104,14 +109,23 @@ class SimResult:
 
     def __getitem__(self, name: str) -> np.ndarray:
         """A vector by name; ``v(out)``, ``out``, ``i(v1)`` and ``v1#branch`` all work."""
-        return self.vectors[vector_key(name)]
+        return self.vectors[_vector_key(name)]
 
     def __contains__(self, name: object) -> bool:
-        return isinstance(name, str) and vector_key(name) in self.vectors
+        return isinstance(name, str) and _vector_key(name) in self.vectors
 
     def scalar(self, name: str) -> float:
         """The single value of a vector of an operating point."""
         values = self[name]
+        if values.shape != (1,):
+            raise ValueError(f"{name} has {values.size} points, not one")
+        return float(values[0])
+
+    def scalar_if_any(self, name: str) -> float | None:
+        """``scalar(name)`` when the plot has that vector, else None (one lookup for both)."""
+        values = self.vectors.get(_vector_key(name))
+        if values is None:
+            return None
         if values.shape != (1,):
             raise ValueError(f"{name} has {values.size} points, not one")
         return float(values[0])

@@ -110,17 +110,20 @@ def device_vectors(circuit: Circuit, mosfet: Element) -> tuple[str, ...]:
     return COMMON_VECTORS + (("vdsat", threshold[0]) if threshold is not None else ())
 
 
+_BRANCH_KINDS = frozenset({"vsource", "inductor", "vcvs", "ccvs"})  # the elements with a branch current
+
+
 def _read_operating_point(circuit: Circuit, result: SimResult) -> SimOperatingPoint:
     mosfets = [e for e in circuit.elements if e.kind == "mosfet"]
     nodes = {GROUND: 0.0}
+    scalar = result.scalar_if_any
     for node in circuit.nodes():
-        if node in result:
-            nodes[node] = result.scalar(node)
-    branches = {
-        e.name: result.scalar(f"{e.name.lower()}#branch")
-        for e in circuit.elements
-        if e.kind in {"vsource", "inductor", "vcvs", "ccvs"} and f"{e.name.lower()}#branch" in result
-    }
+        if (value := scalar(node)) is not None:
+            nodes[node] = value
+    branches = {}
+    for e in circuit.elements:
+        if e.kind in _BRANCH_KINDS and (value := scalar(f"{e.name.lower()}#branch")) is not None:
+            branches[e.name] = value
     devices: dict[str, SimDevice] = {}
     for mosfet in mosfets:
         devices[mosfet.name] = _read_device(circuit, mosfet, result)
@@ -129,11 +132,10 @@ def _read_operating_point(circuit: Circuit, result: SimResult) -> SimOperatingPo
 
 def _read_device(circuit: Circuit, mosfet: Element, result: SimResult) -> SimDevice:
     """One MOSFET's quantities; each is None where its vector is missing (the model lacks it)."""
-    values: dict[str, float | None] = {}
-    for quantity in device_vectors(circuit, mosfet):
-        name = device_vector(mosfet.name, quantity)
-        values[quantity] = result.scalar(name) if name in result else None
     threshold = threshold_vector(circuit, mosfet)
+    quantities = COMMON_VECTORS + (("vdsat", threshold[0]) if threshold is not None else ())  # device_vectors
+    scalar = result.scalar_if_any
+    values: dict[str, float | None] = {q: scalar(device_vector(mosfet.name, q)) for q in quantities}
     sign = threshold[1] if threshold is not None else 1.0
     raw_vth = values.get(threshold[0]) if threshold is not None else None
     vth = sign * raw_vth if raw_vth is not None else None
