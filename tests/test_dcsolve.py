@@ -645,3 +645,25 @@ def test_as_array_is_np_array() -> None:
     ours, reference = as_array(matrix), np.array(matrix)
     assert ours.dtype == reference.dtype and ours.shape == reference.shape and ours.flags.c_contiguous
     assert ours.tobytes() == reference.tobytes()
+
+
+@pytest.mark.parametrize("size", range(5, 13))
+def test_lapack_path_is_numpy_solve_to_the_bit(size: int) -> None:
+    # reference: np.linalg.solve itself; past the plain limit solve_dense calls the same gufunc
+    import warnings
+
+    rng = np.random.default_rng(100 + size)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # neither path may warn, singular or not
+        for _ in range(20):
+            matrix = rng.normal(size=(size, size)) * 10.0 ** rng.integers(-12, 4, size=(size, 1))
+            rhs = rng.normal(size=size)
+            assert solve_dense(matrix.tolist(), rhs.tolist()) == np.linalg.solve(matrix, rhs).tolist()
+        exact = np.ones((size, size))  # LAPACK meets an exactly zero pivot
+        with pytest.raises(np.linalg.LinAlgError):
+            np.linalg.solve(exact, np.ones(size))
+        assert solve_dense(exact.tolist(), [1.0] * size) is None
+        with_nan = np.eye(size)
+        with_nan[0, 0] = math.nan  # not singular for LAPACK: numpy answers NaN, so do we
+        ours = solve_dense(with_nan.tolist(), [1.0] * size)
+        assert ours is not None and math.isnan(ours[0]) and ours[1:] == [1.0] * (size - 1)
