@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 
 from ..interface import stamp_pair
 from .instance import Mos1Instance
-from .load import Level1Geometry, Level1Point, junction_current
+from .load import Level1Geometry, Level1Point, evaluate_with, junction_current
 from .model import Level1Model
 
 
@@ -70,7 +70,7 @@ class PlacedMosfet:
         last = self.last_point
         if last and last[0] == (vd, vg, vs, vb):
             return last[1]
-        point = self.device.evaluate(vd, vg, vs, vb)
+        point = evaluate_with(self.device.constants, vd, vg, vs, vb)  # device.evaluate, one call less
         last[:] = ((vd, vg, vs, vb), point)
         return point
 
