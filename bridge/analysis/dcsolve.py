@@ -34,7 +34,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from functools import cached_property
 from typing import NamedTuple
 
@@ -276,6 +276,8 @@ class _Network:
     @cached_property
     def plain_reduction(self) -> _Reduction:
         """The reduced system without stepped gmin: built once, used by every plain Newton."""
+        if not self.eliminate and isinstance(self.linear, np.ndarray):
+            return _whole_system(self)
         return _reduce(self, 0.0, eliminate=self.eliminate)
 
     def with_devices(self, devices: Mapping[str, Mos1Instance]) -> _Network:
@@ -285,11 +287,17 @@ class _Network:
         The reduction depends on the linear part and on the unknowns the devices touch, which
         another instance at the same place leaves as they are: it is built here once (if it was
         not yet) and handed on, so that the attribution's re-solves (one network each) share it."""
-        network = replace(self, mosfets=tuple(
+        plain_reduction = self.plain_reduction
+        # dataclasses.replace(self, mosfets=...) without its walk over every field and the frozen
+        # __init__: the fields copied, then the cached properties (their values live in the
+        # instance dict) that hold for the new devices kept, `devices` (of the old ones) dropped.
+        network = object.__new__(_Network)
+        fields = vars(network)
+        fields.update(vars(self), mosfets=tuple(
             mos.with_device(devices[mos.name]) if mos.name in devices else mos for mos in self.mosfets
         ))  # fmt: skip
-        # A cached_property: its value lives in the instance dict.
-        vars(network)["plain_reduction"] = self.plain_reduction
+        fields.pop("devices", None)
+        fields["plain_reduction"] = plain_reduction
         return network
 
     def reduction(self, diagonal_gmin: float) -> _Reduction:
@@ -307,6 +315,22 @@ class _Network:
                     raise ValueError(f"`{name}` is not an independent source of this circuit")
                 values[k] = float(value)
         return values
+
+
+def _whole_system(net: _Network) -> _Reduction:
+    """What ``reduction.reduce_network(net, 0.0, eliminate=False)`` gives a dense network, built
+    directly: every unknown kept in order, the MNA matrix and source columns without ground,
+    nothing to recover (the hand's networks, solved whole)."""
+    size, source_count = net.size, net.source_columns.shape[1]
+    return _Reduction(
+        kept=tuple(range(1, size)),
+        position=(-1, *range(size - 1)),
+        matrix=tuple(tuple(row) for row in net.linear[1:, 1:].tolist()),
+        source_map=net.source_columns[1:].copy(),
+        eliminated=(),
+        recover_sources=np.zeros((0, source_count)),
+        recover_kept=(),
+    )
 
 
 @dataclass
@@ -343,7 +367,8 @@ def _build_network(
     options = circuit.options()
     gmin = float(options["gmin"]) if isinstance(options.get("gmin"), (int, float)) else GMIN
     default_w, default_l = default_size(circuit)
-    caveats.extend(_temperature_notes(circuit))
+    if hand is None:  # a HandNetwork's answer carries no caveats (HandNetwork.solve)
+        caveats.extend(_temperature_notes(circuit))
     nodeset: dict[str, float] = {}
     for directive in circuit.directives:
         if directive.kind == "ic" and directive.settings:
@@ -366,7 +391,7 @@ def _build_network(
                 element.name, f"{element.name}: element kind {element.kind} is not modelled"
             )
 
-    nodes = circuit.nodes()
+    nodes = circuit_nodes = circuit.nodes()
     index = {GROUND: 0, **{node: k + 1 for k, node in enumerate(nodes)}}
     branch_kinds = _BRANCH_KINDS
     merged: dict[str, str] = {}
@@ -456,7 +481,7 @@ def _build_network(
             mosfets.append(_mosfet(element, at, circuit, models, model_choice, caveats, default_w, default_l))
         # capacitors: open at DC, nothing to stamp
 
-    _check_structure(circuit, circuit.nodes(), channels=hand is not None)
+    _check_structure(circuit, circuit_nodes, channels=hand is not None)
     linear_matrix = stamped(linear, size)
     return _Network(
         nodes=nodes,

@@ -62,8 +62,11 @@ class PlacedMosfet:
         return self.device.thermal_voltage
 
     def with_device(self, device: Mos1Instance) -> PlacedMosfet:
-        """The same place with another instance (another model of the same element)."""
-        return PlacedMosfet(self.name, self.drain, self.gate, self.source, self.bulk, device)
+        """The same place with another instance (another model of the same element), its own
+        (empty) record of the last point; made without the frozen ``__init__``."""
+        placed = object.__new__(PlacedMosfet)
+        vars(placed).update(vars(self), device=device, last_point=[])
+        return placed
 
     def point(self, vd: float, vg: float, vs: float, vb: float) -> Level1Point:
         """``evaluate`` at absolute terminal voltages, the last answer reused for the same ones."""
