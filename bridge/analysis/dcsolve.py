@@ -664,6 +664,10 @@ def _newton(
     loose_floor, tight_floor = net.newton_floors
     gmin = net.gmin
     x = state.x.tolist()
+    base_matrix = reduction.matrix
+    sparse = bool(base_matrix) and isinstance(base_matrix[0], dict)
+    # Every unknown but ground kept, in order (a whole system): the solution is the new vector.
+    whole = not recovery and len(kept) == len(x) - 1
     # Per device, what no iteration changes: its state row (updated in place by its load) and
     # the places of its terminals in the reduced system.
     devices = [
@@ -672,7 +676,7 @@ def _newton(
     ]
     loose_count = 0
     for iteration in range(1, max_iterations + 1):
-        matrix = copy_rows(reduction.matrix)
+        matrix = copy_rows(base_matrix) if sparse else [*map(list, base_matrix)]  # copy_rows, inline
         rhs = base_rhs[:]
         # As in ngspice, only a clipped junction step (pnjlim's icheck) forbids convergence;
         # fetlim/limvds steps are caught by the device current test instead. That matters for
@@ -690,13 +694,16 @@ def _newton(
             return _Attempt(None, iteration, singular=True)
         if not math.isfinite(sum(solution)):  # an inf or nan anywhere makes the sum one
             return _Attempt(None, iteration)
-        new = [0.0] * len(x)
-        for index, value in zip(kept, solution, strict=True):
-            new[index] = value
-        for index, value, weights in recovery:
-            for weight, kept_value in zip(weights, solution):
-                value -= weight * kept_value
-            new[index] = value
+        if whole:
+            new = [0.0, *solution]
+        else:
+            new = [0.0] * len(x)
+            for index, value in zip(kept, solution, strict=True):
+                new[index] = value
+            for index, value, weights in recovery:
+                for weight, kept_value in zip(weights, solution):
+                    value -= weight * kept_value
+                new[index] = value
         # A MODEINITJCT iteration proves nothing: its devices did not sit at the node voltages.
         moved = 0 if (fresh and iteration == 1) or clipped else _settled(new, x, loose_floor, tight_floor)
         if moved:
