@@ -260,3 +260,18 @@ def test_hand_device_sees_its_own_model_not_the_instance_it_came_from() -> None:
     assert hand == dataclasses.replace(instance, model=hand_model, junctions=False)
     assert hand.evaluate(3.0, 1.6, 0.2, 0.0) == evaluate(hand_model, hand.geometry, 3.0, 1.6, 0.2, 0.0)
     assert hand.evaluate(3.0, 1.6, 0.2, 0.0).id != instance.evaluate(3.0, 1.6, 0.2, 0.0).id
+
+
+def test_a_remembered_card_model_is_the_card_model_of_that_very_card() -> None:
+    from bridge.devices.mos1.model import card_model_of
+
+    for k in range(200):  # dicts made and dropped: a freed dict's id may come back for another
+        params = {"vto": 0.5 + k * 1e-3, "kp": 80e-6, "gamma": 0.4, "tox": 2e-8}
+        ours = card_model_of("nmos", params, 30.0)
+        assert ours == Level1Model.from_card("nmos", params, 30.0)
+        assert card_model_of("nmos", params, 30.0) is ours  # asked again: remembered
+        assert card_model_of("pmos", params, 30.0).polarity == -1
+        assert card_model_of("nmos", dict(params), 30.0) == ours
+        assert card_model_of("nmos", params, 20.0).tnom_celsius == 20.0
+    with pytest.raises(ValueError, match="PHI must be positive"):
+        card_model_of("nmos", {"phi": -1.0})

@@ -57,7 +57,7 @@ from bridge.devices.mos1.instance import (
     mosfet_instance,
 )
 from bridge.devices.mos1.load import Level1Point
-from bridge.devices.mos1.model import Level1Model
+from bridge.devices.mos1.model import Level1Model, card_model_of
 from bridge.devices.mos1.params import CIRCUIT_TEMPERATURE_C, K_OVER_Q
 from bridge.devices.mos1.placed import PlacedMosfet
 from bridge.netlist.circuit import GROUND, Circuit, Element, ModelCard
@@ -221,8 +221,9 @@ def _lookup(table: Mapping[str, object], name: str) -> str:
 
 
 def level1_model(card: ModelCard) -> Level1Model:
-    """The Level1Model ngspice would build from a ``.model`` card (the default model choice)."""
-    return Level1Model.from_card(card.type, card.params)
+    """The Level1Model ngspice would build from a ``.model`` card (the default model choice);
+    ``Level1Model.from_card``, remembered for the last cards (``model.card_model_of``)."""
+    return card_model_of(card.type, card.params)
 
 
 

@@ -18,7 +18,7 @@ from bridge.netlist.circuit import Circuit, Element, ModelCard
 
 from .convergence import limit, limit_channel, vcrit
 from .load import DeviceConstants, Level1Geometry, Level1Point, beta, device_constants, evaluate_with, junction_current
-from .model import Level1Model
+from .model import Level1Model, card_model_of
 from .params import CIRCUIT_TEMPERATURE_C, DEFAULT_JUNCTION_IS, DEFAULT_L, DEFAULT_W
 
 ModelChoice = Callable[[ModelCard], Level1Model]
@@ -74,7 +74,7 @@ def card_model(
     card (with that TNOM written into it) in place of ``Level1Model.from_card``. Raises ValueError."""
     nominal = circuit.nominal_temperature()
     if model_choice is None:
-        model = Level1Model.from_card(card.type, card.params, nominal)
+        model = card_model_of(card.type, card.params, nominal)  # Level1Model.from_card, remembered
     else:
         if "tnom" not in card.params and nominal != CIRCUIT_TEMPERATURE_C:
             card = replace(card, params={**card.params, "tnom": nominal})
