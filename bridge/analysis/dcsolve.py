@@ -619,8 +619,7 @@ def _check_structure(circuit: Circuit, nodes: tuple[str, ...], *, channels: bool
 # --- Newton ---------------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class _Attempt:
+class _Attempt(NamedTuple):  # a named tuple: made once per Newton run, a frozen dataclass costs more
     state: _State | None
     iterations: int
     tight: bool = False
@@ -751,8 +750,7 @@ def _devices_settled(linearised: list[tuple[DcDevice, tuple]], x: list[float], g
     return True, tight
 
 
-@dataclass(frozen=True)
-class _Solved:
+class _Solved(NamedTuple):
     state: _State
     method: str
     iterations: int

@@ -67,11 +67,13 @@ def default_size(circuit: Circuit) -> tuple[float, float]:
 
 
 def card_model(
-    circuit: Circuit, card: ModelCard, element: Element, model_choice: ModelChoice | None = None
+    circuit: Circuit, card: ModelCard, element: Element, model_choice: ModelChoice | None = None,
+    *, temperature: float | None = None,
 ) -> Level1Model:
     """The card's level-1 model at the element's device temperature (``.temp``, ``.options temp``,
-    TEMP/DTEMP), its TNOM defaulting to ``.options tnom``. `model_choice` builds the model from the
-    card (with that TNOM written into it) in place of ``Level1Model.from_card``. Raises ValueError."""
+    TEMP/DTEMP; `temperature` when the caller has it already), its TNOM defaulting to ``.options
+    tnom``. `model_choice` builds the model from the card (with that TNOM written into it) in
+    place of ``Level1Model.from_card``. Raises ValueError."""
     nominal = circuit.nominal_temperature()
     if model_choice is None:
         model = card_model_of(card.type, card.params, nominal)  # Level1Model.from_card, remembered
@@ -79,7 +81,7 @@ def card_model(
         if "tnom" not in card.params and nominal != CIRCUIT_TEMPERATURE_C:
             card = replace(card, params={**card.params, "tnom": nominal})
         model = model_choice(card)
-    return model.at_temperature(circuit.device_temperature(element))
+    return model.at_temperature(circuit.device_temperature(element) if temperature is None else temperature)
 
 
 @dataclass(frozen=True)
@@ -176,7 +178,7 @@ def mosfet_instance(
     model = models.get(key) if models is not None else None
     if model is None:
         try:
-            model = card_model(circuit, card, element, model_choice)
+            model = card_model(circuit, card, element, model_choice, temperature=temperature)
         except ValueError as exc:
             raise ModelValueError(card, str(exc)) from None
         if models is not None:
