@@ -172,6 +172,9 @@ class PlacedMosfet:
         new_vbd, new_vbs = polarity * (xb - xd), polarity * (xb - xs)
         return (
             channel,
-            (cbd + gbd * (new_vbd - vbd), device.junction(new_vbd, True, gmin)[0]),
-            (cbs + gbs * (new_vbs - vbs), device.junction(new_vbs, False, gmin)[0]),
+            # device.junction, one call less (as in load)
+            (cbd + gbd * (new_vbd - vbd),
+             junction_current(new_vbd, device.drain_saturation_current, gmin, device.thermal_voltage)[0]),
+            (cbs + gbs * (new_vbs - vbs),
+             junction_current(new_vbs, device.source_saturation_current, gmin, device.thermal_voltage)[0]),
         )
