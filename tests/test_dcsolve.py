@@ -23,6 +23,7 @@ from bridge.analysis.dcsolve import (
     GMIN_STEPPING,
     NEWTON,
     SOURCE_STEPPING,
+    HandNetwork,
     InvalidElement,
     NoConvergence,
     OperatingPoint,
@@ -645,3 +646,80 @@ def test_as_array_is_np_array() -> None:
     ours, reference = as_array(matrix), np.array(matrix)
     assert ours.dtype == reference.dtype and ours.shape == reference.shape and ours.flags.c_contiguous
     assert ours.tobytes() == reference.tobytes()
+
+
+@pytest.mark.parametrize("size", range(5, 13))
+def test_lapack_path_is_numpy_solve_to_the_bit(size: int) -> None:
+    # reference: np.linalg.solve itself; past the plain limit solve_dense calls the same gufunc
+    import warnings
+
+    rng = np.random.default_rng(100 + size)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # neither path may warn, singular or not
+        for _ in range(20):
+            matrix = rng.normal(size=(size, size)) * 10.0 ** rng.integers(-12, 4, size=(size, 1))
+            rhs = rng.normal(size=size)
+            assert solve_dense(matrix.tolist(), rhs.tolist()) == np.linalg.solve(matrix, rhs).tolist()
+        exact = np.ones((size, size))  # LAPACK meets an exactly zero pivot
+        with pytest.raises(np.linalg.LinAlgError):
+            np.linalg.solve(exact, np.ones(size))
+        assert solve_dense(exact.tolist(), [1.0] * size) is None
+        with_nan = np.eye(size)
+        with_nan[0, 0] = math.nan  # not singular for LAPACK: numpy answers NaN, so do we
+        ours = solve_dense(with_nan.tolist(), [1.0] * size)
+        assert ours is not None and math.isnan(ours[0]) and ours[1:] == [1.0] * (size - 1)
+
+
+# An aquarium pump driver: a cascode of two NMOS with a body-biased upper device, the hand
+# analysis's numerical path (no closed form).
+AQUARIUM = """aquarium pump driver, cascode
+VDD vdd 0 12
+VB1 g1 0 1.4
+VB2 g2 0 4
+RL vdd d 4.7k
+M2 d g2 m 0 pump w=80u l=2u
+M1 m g1 0 0 pump w=80u l=2u
+.model pump nmos (vto=0.8 kp=60u gamma=0.6 phi=0.7 lambda=0.04)
+"""
+
+
+def _hand_devices(circuit: Circuit, effects: frozenset[str]):
+    from bridge.analysis.hand import _dc_circuit
+
+    dc = _dc_circuit(circuit, effects)
+    return {t.name: t.hand_device() for t in dc.transistors}, dc.merged
+
+
+def test_hand_network_with_other_devices_is_a_network_built_with_them() -> None:
+    # reference: a HandNetwork compiled afresh for the devices of each model
+    circuit = parse_netlist(AQUARIUM, "aquarium.cir")
+    plain, merged = _hand_devices(circuit, frozenset())
+    network = HandNetwork(circuit, plain, merged)
+    first = network.solve()
+    for effects in ({"lambda"}, {"gamma"}, {"lambda", "gamma"}):
+        devices, _ = _hand_devices(circuit, frozenset(effects))
+        for start in (None, first.node_voltages):
+            ours = network.solve(devices, start)
+            fresh = HandNetwork(circuit, devices, merged).solve(None, start)
+            assert ours.node_voltages == fresh.node_voltages and ours.iterations == fresh.iterations, effects
+            assert ours.devices == fresh.devices
+            assert ours.node_voltages != first.node_voltages
+    assert network.solve().node_voltages == first.node_voltages  # the compiled network untouched
+
+
+def test_whole_system_is_the_reduction_that_eliminates_nothing() -> None:
+    # reference: reduction.reduce_network with eliminate=False
+    from bridge.analysis.reduction import reduce_network
+
+    for text in (AQUARIUM, DIVIDER_FED):
+        circuit = parse_netlist(text, "stage.cir")
+        devices, merged = _hand_devices(circuit, frozenset())
+        net = HandNetwork(circuit, devices, merged)._net
+        assert not net.eliminate
+        ours, reference = dcsolve._whole_system(net), reduce_network(net, 0.0, eliminate=False)
+        for name in ("kept", "position", "matrix", "eliminated", "recover_kept"):
+            assert getattr(ours, name) == getattr(reference, name), name
+        for name in ("source_map", "recover_sources"):
+            mine, theirs = getattr(ours, name), getattr(reference, name)
+            assert mine.shape == theirs.shape and mine.dtype == theirs.dtype and mine.tobytes() == theirs.tobytes()
+        assert net.plain_reduction.matrix == reference.matrix

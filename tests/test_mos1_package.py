@@ -7,6 +7,7 @@ before it (the same card, size and junction rules).
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -221,3 +222,56 @@ def test_the_resistor_loaded_edge_overdrive_puts_the_device_at_vds_equal_vov() -
         vov = resistor_loaded_edge_overdrive(gain, resistance, span)
         current = square_law(model, geometry, vov, vov, "saturation")[0]
         assert _close(span - resistance * current, vov, 1e-12)
+
+
+def test_evaluate_is_the_load_helpers_to_the_bit() -> None:
+    # reference: load.py's body_root, threshold and square_law, which evaluate writes out inline
+    from bridge.devices.mos1.ask import classify_region
+    from bridge.devices.mos1.load import body_root, square_law, threshold
+
+    circuit = _circuit()
+    rng = np.random.default_rng(7)
+    for element in circuit.elements_of("mosfet"):
+        instance = mosfet_instance(circuit, element)
+        model = instance.model
+        for vd, vg, vs, vb in rng.uniform(-4.0, 4.0, size=(400, 4)).tolist():
+            point = instance.evaluate(vd, vg, vs, vb)
+            assert repr(point) == repr(evaluate(model, instance.geometry, vd, vg, vs, vb))
+            p = model.polarity
+            vgs, vds, vbs = p * (vg - vs), p * (vd - vs), p * (vb - vs)
+            drive, bias, body = (vgs - vds, -vds, vbs - vds) if vds < 0.0 else (vgs, vds, vbs)
+            vth = threshold(model, body)
+            region = classify_region(drive - vth, bias)
+            current, gm, gds = square_law(model, instance.geometry, drive - vth, bias, region)
+            root = body_root(model.phi, body)[0]
+            assert (point.vth, point.vov, point.region, point.gm, point.gds) == (vth, drive - vth, region, gm, gds)
+            assert point.id == (-current if vds < 0.0 else current)
+            assert point.gmbs == gm * (model.gamma / (2.0 * root) if root > 0.0 else 0.0)
+
+
+def test_hand_device_sees_its_own_model_not_the_instance_it_came_from() -> None:
+    circuit = _circuit()
+    element = circuit.elements_of("mosfet")[0]
+    instance = mosfet_instance(circuit, element)
+    instance.evaluate(3.0, 1.6, 0.2, 0.0)  # the instance's constants worked out
+    hand_model = instance.model.with_lambda_gamma(0.0, 0.0)
+    hand = instance.without_junctions(hand_model)
+    assert hand.model is hand_model and not hand.junctions and instance.junctions
+    assert hand == dataclasses.replace(instance, model=hand_model, junctions=False)
+    assert hand.evaluate(3.0, 1.6, 0.2, 0.0) == evaluate(hand_model, hand.geometry, 3.0, 1.6, 0.2, 0.0)
+    assert hand.evaluate(3.0, 1.6, 0.2, 0.0).id != instance.evaluate(3.0, 1.6, 0.2, 0.0).id
+
+
+def test_a_remembered_card_model_is_the_card_model_of_that_very_card() -> None:
+    from bridge.devices.mos1.model import card_model_of
+
+    for k in range(200):  # dicts made and dropped: a freed dict's id may come back for another
+        params = {"vto": 0.5 + k * 1e-3, "kp": 80e-6, "gamma": 0.4, "tox": 2e-8}
+        ours = card_model_of("nmos", params, 30.0)
+        assert ours == Level1Model.from_card("nmos", params, 30.0)
+        assert card_model_of("nmos", params, 30.0) is ours  # asked again: remembered
+        assert card_model_of("pmos", params, 30.0).polarity == -1
+        assert card_model_of("nmos", dict(params), 30.0) == ours
+        assert card_model_of("nmos", params, 20.0).tnom_celsius == 20.0
+    with pytest.raises(ValueError, match="PHI must be positive"):
+        card_model_of("nmos", {"phi": -1.0})

@@ -34,7 +34,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from functools import cached_property
 from typing import NamedTuple
 
@@ -57,7 +57,7 @@ from bridge.devices.mos1.instance import (
     mosfet_instance,
 )
 from bridge.devices.mos1.load import Level1Point
-from bridge.devices.mos1.model import Level1Model
+from bridge.devices.mos1.model import Level1Model, card_model_of
 from bridge.devices.mos1.params import CIRCUIT_TEMPERATURE_C, K_OVER_Q
 from bridge.devices.mos1.placed import PlacedMosfet
 from bridge.netlist.circuit import GROUND, Circuit, Element, ModelCard
@@ -221,8 +221,9 @@ def _lookup(table: Mapping[str, object], name: str) -> str:
 
 
 def level1_model(card: ModelCard) -> Level1Model:
-    """The Level1Model ngspice would build from a ``.model`` card (the default model choice)."""
-    return Level1Model.from_card(card.type, card.params)
+    """The Level1Model ngspice would build from a ``.model`` card (the default model choice);
+    ``Level1Model.from_card``, remembered for the last cards (``model.card_model_of``)."""
+    return card_model_of(card.type, card.params)
 
 
 
@@ -276,6 +277,8 @@ class _Network:
     @cached_property
     def plain_reduction(self) -> _Reduction:
         """The reduced system without stepped gmin: built once, used by every plain Newton."""
+        if not self.eliminate and isinstance(self.linear, np.ndarray):
+            return _whole_system(self)
         return _reduce(self, 0.0, eliminate=self.eliminate)
 
     def with_devices(self, devices: Mapping[str, Mos1Instance]) -> _Network:
@@ -285,11 +288,17 @@ class _Network:
         The reduction depends on the linear part and on the unknowns the devices touch, which
         another instance at the same place leaves as they are: it is built here once (if it was
         not yet) and handed on, so that the attribution's re-solves (one network each) share it."""
-        network = replace(self, mosfets=tuple(
+        plain_reduction = self.plain_reduction
+        # dataclasses.replace(self, mosfets=...) without its walk over every field and the frozen
+        # __init__: the fields copied, then the cached properties (their values live in the
+        # instance dict) that hold for the new devices kept, `devices` (of the old ones) dropped.
+        network = object.__new__(_Network)
+        fields = vars(network)
+        fields.update(vars(self), mosfets=tuple(
             mos.with_device(devices[mos.name]) if mos.name in devices else mos for mos in self.mosfets
         ))  # fmt: skip
-        # A cached_property: its value lives in the instance dict.
-        vars(network)["plain_reduction"] = self.plain_reduction
+        fields.pop("devices", None)
+        fields["plain_reduction"] = plain_reduction
         return network
 
     def reduction(self, diagonal_gmin: float) -> _Reduction:
@@ -307,6 +316,22 @@ class _Network:
                     raise ValueError(f"`{name}` is not an independent source of this circuit")
                 values[k] = float(value)
         return values
+
+
+def _whole_system(net: _Network) -> _Reduction:
+    """What ``reduction.reduce_network(net, 0.0, eliminate=False)`` gives a dense network, built
+    directly: every unknown kept in order, the MNA matrix and source columns without ground,
+    nothing to recover (the hand's networks, solved whole)."""
+    size, source_count = net.size, net.source_columns.shape[1]
+    return _Reduction(
+        kept=tuple(range(1, size)),
+        position=(-1, *range(size - 1)),
+        matrix=tuple(tuple(row) for row in net.linear[1:, 1:].tolist()),
+        source_map=net.source_columns[1:].copy(),
+        eliminated=(),
+        recover_sources=np.zeros((0, source_count)),
+        recover_kept=(),
+    )
 
 
 @dataclass
@@ -343,7 +368,8 @@ def _build_network(
     options = circuit.options()
     gmin = float(options["gmin"]) if isinstance(options.get("gmin"), (int, float)) else GMIN
     default_w, default_l = default_size(circuit)
-    caveats.extend(_temperature_notes(circuit))
+    if hand is None:  # a HandNetwork's answer carries no caveats (HandNetwork.solve)
+        caveats.extend(_temperature_notes(circuit))
     nodeset: dict[str, float] = {}
     for directive in circuit.directives:
         if directive.kind == "ic" and directive.settings:
@@ -366,7 +392,7 @@ def _build_network(
                 element.name, f"{element.name}: element kind {element.kind} is not modelled"
             )
 
-    nodes = circuit.nodes()
+    nodes = circuit_nodes = circuit.nodes()
     index = {GROUND: 0, **{node: k + 1 for k, node in enumerate(nodes)}}
     branch_kinds = _BRANCH_KINDS
     merged: dict[str, str] = {}
@@ -456,7 +482,7 @@ def _build_network(
             mosfets.append(_mosfet(element, at, circuit, models, model_choice, caveats, default_w, default_l))
         # capacitors: open at DC, nothing to stamp
 
-    _check_structure(circuit, circuit.nodes(), channels=hand is not None)
+    _check_structure(circuit, circuit_nodes, channels=hand is not None)
     linear_matrix = stamped(linear, size)
     return _Network(
         nodes=nodes,
@@ -593,8 +619,7 @@ def _check_structure(circuit: Circuit, nodes: tuple[str, ...], *, channels: bool
 # --- Newton ---------------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class _Attempt:
+class _Attempt(NamedTuple):  # a named tuple: made once per Newton run, a frozen dataclass costs more
     state: _State | None
     iterations: int
     tight: bool = False
@@ -639,6 +664,10 @@ def _newton(
     loose_floor, tight_floor = net.newton_floors
     gmin = net.gmin
     x = state.x.tolist()
+    base_matrix = reduction.matrix
+    sparse = bool(base_matrix) and isinstance(base_matrix[0], dict)
+    # Every unknown but ground kept, in order (a whole system): the solution is the new vector.
+    whole = not recovery and len(kept) == len(x) - 1
     # Per device, what no iteration changes: its state row (updated in place by its load) and
     # the places of its terminals in the reduced system.
     devices = [
@@ -647,7 +676,7 @@ def _newton(
     ]
     loose_count = 0
     for iteration in range(1, max_iterations + 1):
-        matrix = copy_rows(reduction.matrix)
+        matrix = copy_rows(base_matrix) if sparse else [*map(list, base_matrix)]  # copy_rows, inline
         rhs = base_rhs[:]
         # As in ngspice, only a clipped junction step (pnjlim's icheck) forbids convergence;
         # fetlim/limvds steps are caught by the device current test instead. That matters for
@@ -665,13 +694,16 @@ def _newton(
             return _Attempt(None, iteration, singular=True)
         if not math.isfinite(sum(solution)):  # an inf or nan anywhere makes the sum one
             return _Attempt(None, iteration)
-        new = [0.0] * len(x)
-        for index, value in zip(kept, solution, strict=True):
-            new[index] = value
-        for index, value, weights in recovery:
-            for weight, kept_value in zip(weights, solution):
-                value -= weight * kept_value
-            new[index] = value
+        if whole:
+            new = [0.0, *solution]
+        else:
+            new = [0.0] * len(x)
+            for index, value in zip(kept, solution, strict=True):
+                new[index] = value
+            for index, value, weights in recovery:
+                for weight, kept_value in zip(weights, solution):
+                    value -= weight * kept_value
+                new[index] = value
         # A MODEINITJCT iteration proves nothing: its devices did not sit at the node voltages.
         moved = 0 if (fresh and iteration == 1) or clipped else _settled(new, x, loose_floor, tight_floor)
         if moved:
@@ -718,8 +750,7 @@ def _devices_settled(linearised: list[tuple[DcDevice, tuple]], x: list[float], g
     return True, tight
 
 
-@dataclass(frozen=True)
-class _Solved:
+class _Solved(NamedTuple):
     state: _State
     method: str
     iterations: int

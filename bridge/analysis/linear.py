@@ -31,6 +31,18 @@ __all__ = [
 # 6.4 against 8.3 µs at 4 unknowns, 12.7 against 9.7 µs at 6, conversions included).
 PLAIN_SOLVE_LIMIT = 4
 
+# numpy.linalg.solve's own gufunc for one right-hand side (LAPACK gesv), called under the error
+# state numpy.linalg.solve sets around it but for a singular matrix, which raises
+# FloatingPointError here instead of LinAlgError: the same call on the same arrays, without
+# numpy.linalg.solve's per-call conversions, type and shape checks and errstate object (a third
+# of a 5–8 unknown solve). The decorator form of errstate keeps its state per call (thread-safe).
+try:
+    from numpy.linalg import _umath_linalg
+except ImportError:  # pragma: no cover - numpy moved it: its public solve does the same
+    _gesv = None
+else:
+    _gesv = np.errstate(invalid="raise", over="ignore", divide="ignore", under="ignore")(_umath_linalg.solve1)
+
 
 def as_array(matrix: list[list[float]]) -> np.ndarray:
     """A square matrix of floats as an array: np.array(matrix), without its type and shape discovery."""
@@ -59,10 +71,7 @@ def solve_dense(matrix: list[list[float]], rhs: list[float]) -> list[float] | No
     if size > PLAIN_SOLVE_LIMIT:
         if isinstance(matrix[0], dict):  # sparse rows (a large system): a sparse LU
             return _solve_rows(matrix, rhs)
-        try:
-            return np.linalg.solve(as_array(matrix), np.array(rhs)).tolist()
-        except np.linalg.LinAlgError:
-            return None
+        return _solve_lapack(as_array(matrix), np.array(rhs))
     for column in range(size):
         pivot_row, largest = column, abs(matrix[column][column])
         for row in range(column + 1, size):
@@ -90,6 +99,20 @@ def solve_dense(matrix: list[list[float]], rhs: list[float]) -> list[float] | No
             total -= top[j] * solution[j]
         solution[row] = total / top[row]
     return solution
+
+
+def _solve_lapack(matrix: np.ndarray, rhs: np.ndarray) -> list[float] | None:
+    """``np.linalg.solve(matrix, rhs)`` of a square float matrix and one right-hand side, as a
+    list; None where LAPACK finds the matrix singular (an exactly zero pivot)."""
+    if _gesv is None:  # pragma: no cover
+        try:
+            return np.linalg.solve(matrix, rhs).tolist()
+        except np.linalg.LinAlgError:
+            return None
+    try:
+        return _gesv(matrix, rhs, signature="dd->d").tolist()
+    except FloatingPointError:
+        return None
 
 
 # --- large networks ---------------------------------------------------------------------------

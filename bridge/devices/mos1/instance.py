@@ -12,12 +12,13 @@ from __future__ import annotations
 
 from collections.abc import Callable, MutableMapping
 from dataclasses import dataclass, replace
+from functools import cached_property
 
 from bridge.netlist.circuit import Circuit, Element, ModelCard
 
 from .convergence import limit, limit_channel, vcrit
-from .load import Level1Geometry, Level1Point, beta, evaluate, junction_current
-from .model import Level1Model
+from .load import DeviceConstants, Level1Geometry, Level1Point, beta, device_constants, evaluate_with, junction_current
+from .model import Level1Model, card_model_of
 from .params import CIRCUIT_TEMPERATURE_C, DEFAULT_JUNCTION_IS, DEFAULT_L, DEFAULT_W
 
 ModelChoice = Callable[[ModelCard], Level1Model]
@@ -66,19 +67,21 @@ def default_size(circuit: Circuit) -> tuple[float, float]:
 
 
 def card_model(
-    circuit: Circuit, card: ModelCard, element: Element, model_choice: ModelChoice | None = None
+    circuit: Circuit, card: ModelCard, element: Element, model_choice: ModelChoice | None = None,
+    *, temperature: float | None = None,
 ) -> Level1Model:
     """The card's level-1 model at the element's device temperature (``.temp``, ``.options temp``,
-    TEMP/DTEMP), its TNOM defaulting to ``.options tnom``. `model_choice` builds the model from the
-    card (with that TNOM written into it) in place of ``Level1Model.from_card``. Raises ValueError."""
+    TEMP/DTEMP; `temperature` when the caller has it already), its TNOM defaulting to ``.options
+    tnom``. `model_choice` builds the model from the card (with that TNOM written into it) in
+    place of ``Level1Model.from_card``. Raises ValueError."""
     nominal = circuit.nominal_temperature()
     if model_choice is None:
-        model = Level1Model.from_card(card.type, card.params, nominal)
+        model = card_model_of(card.type, card.params, nominal)  # Level1Model.from_card, remembered
     else:
         if "tnom" not in card.params and nominal != CIRCUIT_TEMPERATURE_C:
             card = replace(card, params={**card.params, "tnom": nominal})
         model = model_choice(card)
-    return model.at_temperature(circuit.device_temperature(element))
+    return model.at_temperature(circuit.device_temperature(element) if temperature is None else temperature)
 
 
 @dataclass(frozen=True)
@@ -101,9 +104,14 @@ class Mos1Instance:
         """β = KP·W·M/Leff (A/V²): the K of the hand analysis."""
         return beta(self.model, self.geometry)
 
+    @cached_property
+    def constants(self) -> DeviceConstants:
+        """What the square law reads of the model and size, worked out once (``load.device_constants``)."""
+        return device_constants(self.model, self.geometry)
+
     def evaluate(self, vd: float, vg: float, vs: float, vb: float) -> Level1Point:
         """The channel at absolute terminal voltages (``load.evaluate``)."""
-        return evaluate(self.model, self.geometry, vd, vg, vs, vb)
+        return evaluate_with(self.constants, vd, vg, vs, vb)
 
     def junction(self, voltage: float, drain_side: bool, gmin: float) -> tuple[float, float]:
         """Current and conductance of the bulk–drain (or bulk–source) junction at `voltage`
@@ -120,8 +128,16 @@ class Mos1Instance:
 
     def without_junctions(self, model: Level1Model) -> Mos1Instance:
         """The hand device: this instance with `model` (the hand model of its card) and no bulk
-        junction diodes, so no GMIN either."""
-        return replace(self, model=model, junctions=False)
+        junction diodes, so no GMIN either.
+
+        ``dataclasses.replace`` without its walk over every field and the frozen ``__init__``
+        (the hand analysis makes one per device and solve); the constants worked out for this
+        instance's model are not carried over."""
+        device = object.__new__(type(self))
+        fields = vars(device)
+        fields.update(vars(self), model=model, junctions=False)
+        fields.pop("constants", None)
+        return device
 
     def junction_start(self) -> list[float]:
         """ngspice's MODEINITJCT guess: vgs = type·VTO, vds = 0, vbs = −1 (and von = vgs)."""
@@ -162,7 +178,7 @@ def mosfet_instance(
     model = models.get(key) if models is not None else None
     if model is None:
         try:
-            model = card_model(circuit, card, element, model_choice)
+            model = card_model(circuit, card, element, model_choice, temperature=temperature)
         except ValueError as exc:
             raise ModelValueError(card, str(exc)) from None
         if models is not None:

@@ -134,11 +134,38 @@ class Level1Point(NamedTuple):
 _new = tuple.__new__  # evaluate's way to make its named tuples (see there)
 
 
+class DeviceConstants(NamedTuple):
+    """What ``evaluate`` reads of a sized device's model, worked out once (``device_constants``):
+    polarity, type·VTO, GAMMA, PHI, √PHI, LAMBDA and β = KP·W·M/Leff."""
+
+    polarity: int
+    signed_vto: float
+    gamma: float
+    phi: float
+    sqrt_phi: float
+    lambda_: float
+    gain: float
+
+
+def device_constants(model: Level1Model, geometry: Level1Geometry) -> DeviceConstants:
+    """``DeviceConstants`` of a model and size; raises ValueError when Leff is not positive."""
+    return _new(DeviceConstants, (
+        model.polarity, model.polarity * model.vto, model.gamma, model.phi, math.sqrt(model.phi), model.lambda_,
+        beta(model, geometry),
+    ))  # fmt: skip
+
+
 def evaluate(
     model: Level1Model, geometry: Level1Geometry, vd: float, vg: float, vs: float, vb: float
 ) -> Level1Point:
     """Square-law drain current and conductances at absolute terminal voltages (V)."""
-    polarity = model.polarity
+    return evaluate_with(device_constants(model, geometry), vd, vg, vs, vb)
+
+
+def evaluate_with(constants: DeviceConstants, vd: float, vg: float, vs: float, vb: float) -> Level1Point:
+    """``evaluate`` with the model's values worked out once (``device_constants``): the same
+    operations on the same numbers, for a solver that evaluates one device at every iteration."""
+    polarity, signed_vto, gamma, phi, sqrt_phi, lambda_, gain = constants
     vgs = polarity * (vg - vs)
     vds = polarity * (vd - vs)
     vbs = polarity * (vb - vs)
@@ -150,16 +177,25 @@ def evaluate(
     else:
         gate_drive, channel_bias, body_bias = vgs, vds, vbs
 
-    root, root_decline = body_root(model.phi, body_bias)
-    vth = polarity * model.vto + model.gamma * (root - math.sqrt(model.phi))
+    # body_root(phi, body_bias), written out: its root and decline −ds/dvbs.
+    if body_bias <= 0.0:
+        root = math.sqrt(phi - body_bias)
+        root_decline = 0.5 / root
+    else:
+        root = sqrt_phi - body_bias / (2.0 * sqrt_phi)
+        if root <= 0.0:
+            root = root_decline = 0.0
+        else:
+            root_decline = 0.5 / sqrt_phi
+    vth = signed_vto + gamma * (root - sqrt_phi)
     vov = gate_drive - vth
     vdsat = max(vov, 0.0)
     # ngspice's body factor: zero when the linearised root has been clamped.
-    body_factor = model.gamma / (2.0 * root) if root > 0.0 else 0.0
-    exact_body_factor = model.gamma * root_decline  # = −∂vth/∂vbs
+    body_factor = gamma / (2.0 * root) if root > 0.0 else 0.0
+    exact_body_factor = gamma * root_decline  # = −∂vth/∂vbs
 
     region = classify_region(vov, channel_bias)
-    current, gm, gds = channel(beta(model, geometry), model.lambda_, vov, channel_bias, region)
+    current, gm, gds = channel(gain, lambda_, vov, channel_bias, region)
     gmbs = gm * body_factor
     gmbs_exact = gm * exact_body_factor
 

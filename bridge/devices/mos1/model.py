@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Literal
 
 from .params import (
@@ -223,3 +224,34 @@ class Level1Model:
             caveats=tuple(caveats),
         )
 
+
+
+def card_model_of(
+    mos_type: str, params: Mapping[str, float], nominal_celsius: float = CIRCUIT_TEMPERATURE_C
+) -> Level1Model:
+    """``Level1Model.from_card``, remembered for the last cards asked (a check asks for each card
+    from its hand column, its level-1 solver and its comparison): the same model for the same
+    parameter mapping (the same object: cards are not changed once read) and nominal temperature.
+    Raises ValueError as from_card does (a refusal is not remembered)."""
+    return _remembered_model(mos_type, _Same(params), nominal_celsius)
+
+
+class _Same:
+    """A key equal only to a key of the very same object (a dict is not hashable; the cache holds
+    the object, so its id is not reused while the entry lives)."""
+
+    __slots__ = ("value",)
+
+    def __init__(self, value: object) -> None:
+        self.value = value
+
+    def __hash__(self) -> int:
+        return id(self.value)
+
+    def __eq__(self, other: object) -> bool:
+        return isinstance(other, _Same) and other.value is self.value
+
+
+@lru_cache(maxsize=16, typed=True)
+def _remembered_model(mos_type: str, params: _Same, nominal_celsius: float) -> Level1Model:
+    return Level1Model.from_card(mos_type, params.value, nominal_celsius)

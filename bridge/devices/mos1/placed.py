@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 
 from ..interface import stamp_pair
 from .instance import Mos1Instance
-from .load import Level1Geometry, Level1Point, junction_current
+from .load import Level1Geometry, Level1Point, evaluate_with, junction_current
 from .model import Level1Model
 
 
@@ -62,15 +62,18 @@ class PlacedMosfet:
         return self.device.thermal_voltage
 
     def with_device(self, device: Mos1Instance) -> PlacedMosfet:
-        """The same place with another instance (another model of the same element)."""
-        return PlacedMosfet(self.name, self.drain, self.gate, self.source, self.bulk, device)
+        """The same place with another instance (another model of the same element), its own
+        (empty) record of the last point; made without the frozen ``__init__``."""
+        placed = object.__new__(PlacedMosfet)
+        vars(placed).update(vars(self), device=device, last_point=[])
+        return placed
 
     def point(self, vd: float, vg: float, vs: float, vb: float) -> Level1Point:
         """``evaluate`` at absolute terminal voltages, the last answer reused for the same ones."""
         last = self.last_point
         if last and last[0] == (vd, vg, vs, vb):
             return last[1]
-        point = self.device.evaluate(vd, vg, vs, vb)
+        point = evaluate_with(self.device.constants, vd, vg, vs, vb)  # device.evaluate, one call less
         last[:] = ((vd, vg, vs, vb), point)
         return point
 
@@ -169,6 +172,9 @@ class PlacedMosfet:
         new_vbd, new_vbs = polarity * (xb - xd), polarity * (xb - xs)
         return (
             channel,
-            (cbd + gbd * (new_vbd - vbd), device.junction(new_vbd, True, gmin)[0]),
-            (cbs + gbs * (new_vbs - vbs), device.junction(new_vbs, False, gmin)[0]),
+            # device.junction, one call less (as in load)
+            (cbd + gbd * (new_vbd - vbd),
+             junction_current(new_vbd, device.drain_saturation_current, gmin, device.thermal_voltage)[0]),
+            (cbs + gbs * (new_vbs - vbs),
+             junction_current(new_vbs, device.source_saturation_current, gmin, device.thermal_voltage)[0]),
         )
