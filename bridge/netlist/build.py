@@ -554,6 +554,9 @@ class _Builder:
 _NUMBER_FIELD = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?[A-Za-z\u00b5]*")
 # Any other field: up to the next separator.
 _OTHER_FIELD = re.compile(r"[^\s=(),]+")
+# A field as written: a number when one starts there, else any other field (one match, not two).
+_WRITTEN_FIELD = re.compile(_NUMBER_FIELD.pattern + "|" + _OTHER_FIELD.pattern)
+_NODE_KEYS = tuple(f"node{index}" for index in range(1, 9))
 
 
 def written_fields(raw: RawElement) -> dict[str, Written]:
@@ -561,10 +564,12 @@ def written_fields(raw: RawElement) -> dict[str, Written]:
     `value` (a source's DC value), `model` and each `name=value` instance parameter's value.
     A value given as `{expr}` or `'expr'` is kept from its opening brace or quote."""
     card = raw.card
+    text = card.text
     fields: dict[str, Written] = {}
+    # A card of one line (most are) places a field without a search through its segments.
+    first = card.segments[0] if len(card.segments) == 1 else None
 
     def keep(key: str, offset: int) -> None:
-        text = card.text
         if offset > 0 and text[offset - 1] in "{'":
             opening = offset - 1
             closing = text.find("}" if text[opening] == "{" else "'", offset)
@@ -572,13 +577,16 @@ def written_fields(raw: RawElement) -> dict[str, Written]:
             field_text = text[opening:end]
             offset = opening
         else:
-            match = _NUMBER_FIELD.match(text, offset) or _OTHER_FIELD.match(text, offset)
+            match = _WRITTEN_FIELD.match(text, offset)
             field_text = match.group(0) if match else ""
+        if first is not None:
+            fields[key] = Written(field_text, first.line, first.column + offset - first.offset)
+            return
         place = card.locate(offset)
         fields[key] = Written(field_text, place.line, place.column)
 
-    for index, (_, offset) in enumerate(raw.nodes, start=1):
-        keep(f"node{index}", offset)
+    for index, (_, offset) in enumerate(raw.nodes):
+        keep(_NODE_KEYS[index] if index < len(_NODE_KEYS) else f"node{index + 1}", offset)
     value = raw.value
     for part in raw.source_parts:
         if isinstance(part, DcPart):
