@@ -110,6 +110,21 @@ M1 d vdd 0 0 vent W=40u L=2u
 """
 
 
+_PREPARE_AHEAD_AND_LIST_LARK = (
+    "import sys; from bridge.ahead import Preparation; preparation = Preparation(sys.argv[1:], None, helper=True); "
+    "forked = preparation.helper_pid is not None; items = list(preparation); "
+    "print(len(items), forked, 'lark' in sys.modules)"
+)
+
+
+def test_a_helper_forked_for_netlists_of_plain_cards_brings_no_parser() -> None:
+    names = ("cs_divider.cir", "bench_session.cir", "pmos_cs.cir", "source_follower.cir")
+    paths = [str(EXAMPLES / name) for name in names]
+    completed = subprocess.run([sys.executable, "-c", _PREPARE_AHEAD_AND_LIST_LARK, *paths],
+                               capture_output=True, text=True, timeout=60, check=True)
+    assert completed.stdout.split() == ["4", "True", "False"]
+
+
 def test_an_expression_card_brings_the_parser(tmp_path: Path) -> None:
     netlist = tmp_path / "vent.cir"
     netlist.write_text(_VENT_DRIVER, encoding="utf-8")
