@@ -11,7 +11,7 @@ from dataclasses import replace
 import pytest
 
 from bridge.netlist import parse_netlist
-from bridge.netlist.circuit import GROUND, Circuit
+from bridge.netlist.circuit import GROUND, Circuit, Written
 
 # A bicycle dynamo light: a PMOS switch feeds the LED string from the rectified dynamo rail.
 _DYNAMO_LIGHT = """bicycle dynamo light: PMOS high-side switch
@@ -83,3 +83,15 @@ def test_a_pickle_or_a_copy_carries_the_fields_alone() -> None:
         assert not any(name.startswith("_") for name in vars(again))
         assert again.nodes() == circuit.nodes() and dict(again.options()) == dict(circuit.options())
         assert again.element("m1") == circuit.element("M1")
+
+
+def test_the_fields_as_written_are_worked_out_at_their_first_look_and_travel_in_a_pickle() -> None:
+    circuit = _light()
+    written = circuit.element("M1").written
+    assert written._fields is None  # a check never looks: nothing worked out yet
+    carried = pickle.loads(pickle.dumps(circuit)).element("M1").written
+    assert written["model"] == Written("pled", 5, 23) and written["w"] == Written("200u", 5, 30)
+    assert written._fields is not None
+    assert dict(carried) == dict(written) == dict(copy.deepcopy(written))
+    assert list(written) == ["node1", "node2", "node3", "node4", "model", "w", "l"]
+    assert written.get("ad") is None and "l" in written

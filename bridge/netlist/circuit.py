@@ -107,7 +107,7 @@ class Element:
     controlling_source: str | None = None
     waveform: Waveform | None = None
     flags: tuple[str, ...] = ()
-    written: dict[str, Written] = field(default_factory=dict, compare=False, repr=False)
+    written: Mapping[str, Written] = field(default_factory=dict, compare=False, repr=False)
 
     @property
     def letter(self) -> str:
