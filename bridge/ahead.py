@@ -22,7 +22,6 @@ from typing import TYPE_CHECKING, Any, TypeVar
 from .check import NotASingleStage, OwnColumns, solve_own_columns
 from .netlist import Location, NetlistError, read_netlist
 from .netlist.circuit import Circuit
-from .netlist.parser import load_grammar
 from .vocabulary import Expectations
 
 # multiprocessing (its connections, and the shared memory behind RawValue) is imported when a
@@ -258,7 +257,8 @@ class Preparation:
     def _fork(self) -> None:
         from multiprocessing import Pipe, RawValue
 
-        load_grammar()  # once, here, for both processes
+        # lark is not loaded here for both: most cards read without it (parser.plain_card), and a
+        # process that meets a card needing it loads it then.
         self._shared_back = RawValue("l", self._back)
         receiving, sending = Pipe(duplex=False)
         pid = os.fork()

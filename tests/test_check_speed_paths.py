@@ -6,6 +6,7 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
+from pathlib import Path
 
 import pytest
 from conftest import EXAMPLES, REPO
@@ -79,7 +80,7 @@ _READ_AND_LIST_LARK = (
 )
 
 
-def _read_in_fresh_process(name: str) -> tuple[str, bool]:
+def _read_in_fresh_process(name: str | Path) -> tuple[str, bool]:
     completed = subprocess.run([sys.executable, "-c", _READ_AND_LIST_LARK, str(EXAMPLES / name)],
                                capture_output=True, text=True, timeout=60, check=True)
     names, loaded = completed.stdout.rsplit(" ", 1)
@@ -91,8 +92,43 @@ def test_a_netlist_of_plain_cards_is_read_without_lark() -> None:
     assert "'M1'" in names and not loaded
 
 
-def test_an_expression_card_brings_the_parser() -> None:
+def test_params_and_braced_names_and_numbers_are_read_without_lark() -> None:
+    # bench_session.cir: `.param vsupply=5 rload={10k}`, `VDD vdd 0 {vsupply}`, `RD vdd drain {rload}`.
     names, loaded = _read_in_fresh_process("bench_session.cir")
+    assert "'RD'" in names and not loaded
+
+
+# A greenhouse vent actuator driver whose drain resistor is an arithmetic expression.
+_VENT_DRIVER = """greenhouse vent driver
+.param rl=2.2k
+VDD vdd 0 12
+RD vdd d {2*rl}
+M1 d vdd 0 0 vent W=40u L=2u
+.model vent nmos (vto=1 kp=80u)
+.op
+.end
+"""
+
+
+_PREPARE_AHEAD_AND_LIST_LARK = (
+    "import sys; from bridge.ahead import Preparation; preparation = Preparation(sys.argv[1:], None, helper=True); "
+    "forked = preparation.helper_pid is not None; items = list(preparation); "
+    "print(len(items), forked, 'lark' in sys.modules)"
+)
+
+
+def test_a_helper_forked_for_netlists_of_plain_cards_brings_no_parser() -> None:
+    names = ("cs_divider.cir", "bench_session.cir", "pmos_cs.cir", "source_follower.cir")
+    paths = [str(EXAMPLES / name) for name in names]
+    completed = subprocess.run([sys.executable, "-c", _PREPARE_AHEAD_AND_LIST_LARK, *paths],
+                               capture_output=True, text=True, timeout=60, check=True)
+    assert completed.stdout.split() == ["4", "True", "False"]
+
+
+def test_an_expression_card_brings_the_parser(tmp_path: Path) -> None:
+    netlist = tmp_path / "vent.cir"
+    netlist.write_text(_VENT_DRIVER, encoding="utf-8")
+    names, loaded = _read_in_fresh_process(netlist)
     assert "'RD'" in names and loaded
 
 CORPORA = (EXAMPLES, REPO / "tests" / "batch_corpus", REPO / "tests" / "lint_corpus")
@@ -156,6 +192,25 @@ I1 0 x dc=1m ac = 1 90
     assert [_same_as_the_parser(card) for card in cards] == [True] * len(cards)
 
 
+def test_plain_cards_with_braced_names_and_numbers_and_params() -> None:
+    text = """braced fields
+.param vsupply=5 rload={10k} w.in=2u gain=vsupply tiny=1mil
+.PARAM x = 3
+R1 a b {rload} tc1={1m}
+Vdd vdd 0 {vsupply}
+V2 in 0 dc {vsupply} ac {1} {0}
+M1 d g 0 0 nch W={w.in} L={2u} {3}
+Cx a 0 {1e-12}
+.model nch nmos (vto={0.7} kp=120u)
+.options temp={x}
+"""
+    cards = _cards(text)
+    assert [_same_as_the_parser(card) for card in cards] == [True] * len(cards)
+    # A number in braces or in a `.param` is an expression's number: MIL is no scale there.
+    params = plain_card(cards[0])
+    assert [(a.name, getattr(a.value, "value", None)) for a in params.assignments][-1] == ("tiny", 1e-3)
+
+
 def test_cards_the_parser_must_read_or_refuse_are_left_to_it() -> None:
     text = """left to the parser
 R1 a b {2*rl}
@@ -165,11 +220,18 @@ V2 in 0 DC
 M1 d g s nch
 .model nch nmos (vto=)
 .op now
-.param x=1
+.param x=1+2
 .dc V1 0 5 0.1
 R3 a b 1k =
+R4 a b { rl }
+R5 a b {rl
+.param y={x} z
+.param
+.model nch nmos {vto}
+R6 {a} b 1k
+.param 2x=1
 """
-    assert [plain_card(card) for card in _cards(text)] == [None] * 10
+    assert [plain_card(card) for card in _cards(text)] == [None] * 17
 
 
 _FIRST = st.sampled_from(["R1", "c2", "L3", "M1", "mx", "V1", "i2", "Vdd", ".model", ".MODEL", ".op", ".OP",
@@ -177,7 +239,8 @@ _FIRST = st.sampled_from(["R1", "c2", "L3", "M1", "mx", "V1", "i2", "Vdd", ".mod
                           ".param", "E1", "D1", "X1", "q1", "*"])
 _FIELD = st.sampled_from(["a", "0", "1k", "2.5", "-3", "dc", "DC", "ac", "Ac", "sin", "pulse", "=", "(", ")", ",",
                           "w", "1e-3", "x1", "nmos", "vto", "3.3.0", "{1}", "'2'", "1meg", "5mil", "1q", "µ",
-                          "\t", "(vto", "=1", "1,", "nch)", "$", ";", "+"])
+                          "\t", "(vto", "=1", "1,", "nch)", "$", ";", "+", "{x}", "{1k}", "{5mil}", "{a.b}", "{ x }",
+                          "{", "}", "{2*x}", "x=", "{.5e-3V}", "{1.2.3}", "{µ}", "{x}{y}", "w={x}"])
 
 
 @given(_FIRST, st.lists(_FIELD, max_size=10))

@@ -286,3 +286,16 @@ def test_latin1_micro_byte_is_micro_to_ngspice_and_refused_here(tmp_path) -> Non
     assert ngspice_batch_op(deck)["a"] == pytest.approx(3e-6)
     with pytest.raises(NetlistError, match="not UTF-8"):
         read_netlist(deck)
+
+
+def test_a_number_read_before_reads_the_same_and_mil_only_where_allowed() -> None:
+    # Numbers already read are kept (parse_number's memo): the rules must not change with it.
+    # MIL (25.4 µ) is a scale outside expressions only; inside `{...}` `5mil` is 5 milli.
+    for _ in range(2):
+        assert parse_number("5mil") == pytest.approx(5 * 25.4e-6)
+        assert parse_number("5mil", allow_mil=False) == pytest.approx(5e-3)
+        assert parse_number("2u") == 2e-6 and parse_number("2u", allow_mil=False) == 2e-6
+    for wrong in ("k1", "1..2"):
+        for _ in range(2):
+            with pytest.raises(NumberError):
+                parse_number(wrong)

@@ -374,7 +374,7 @@ class _Builder:
             controlling_source=control,
             waveform=waveform,
             flags=tuple(flags),
-            written=written_fields(raw),
+            written=WrittenFields(card.text, _segment_places(card), _written_places(raw)),
         )
         self.elements.append(element)
         self.element_cards[name.lower()] = card
@@ -554,17 +554,86 @@ class _Builder:
 _NUMBER_FIELD = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?[A-Za-z\u00b5]*")
 # Any other field: up to the next separator.
 _OTHER_FIELD = re.compile(r"[^\s=(),]+")
+# A field as written: a number when one starts there, else any other field (one match, not two).
+_WRITTEN_FIELD = re.compile(_NUMBER_FIELD.pattern + "|" + _OTHER_FIELD.pattern)
+_NODE_KEYS = tuple(f"node{index}" for index in range(1, 9))
 
 
 def written_fields(raw: RawElement) -> dict[str, Written]:
     """The fields of an element card as written, with their places: `node1`, `node2`, ...,
     `value` (a source's DC value), `model` and each `name=value` instance parameter's value.
     A value given as `{expr}` or `'expr'` is kept from its opening brace or quote."""
-    card = raw.card
-    fields: dict[str, Written] = {}
+    return _fields_at(raw.card.text, _segment_places(raw.card), _written_places(raw))
 
-    def keep(key: str, offset: int) -> None:
-        text = card.text
+
+class WrittenFields(Mapping[str, Written]):
+    """`written_fields` of an element card, worked out at the first look: only the lint rules
+    look (a check never does). It keeps the card's text, its segments and where each field starts,
+    not the card; a pickle or a copy carries those, and the fields are worked out where read."""
+
+    __slots__ = ("_text", "_segments", "_places", "_fields")
+
+    def __init__(
+        self, text: str, segments: tuple[tuple[int, int, int], ...], places: tuple[tuple[str, int], ...]
+    ) -> None:
+        self._text, self._segments, self._places = text, segments, places
+        self._fields: dict[str, Written] | None = None
+
+    def _read(self) -> dict[str, Written]:
+        if self._fields is None:
+            self._fields = _fields_at(self._text, self._segments, self._places)
+        return self._fields
+
+    def __getitem__(self, key: str) -> Written:
+        return self._read()[key]
+
+    def __iter__(self):
+        return iter(self._read())
+
+    def __len__(self) -> int:
+        return len(self._read())
+
+    def get(self, key: str, default=None):
+        return self._read().get(key, default)
+
+    def __repr__(self) -> str:
+        return repr(self._read())
+
+    def __reduce__(self):
+        return (WrittenFields, (self._text, self._segments, self._places))
+
+
+def _segment_places(card: LogicalCard) -> tuple[tuple[int, int, int], ...]:
+    """A card's segments as (offset, line, column)."""
+    return tuple((segment.offset, segment.line, segment.column) for segment in card.segments)
+
+
+def _written_places(raw: RawElement) -> tuple[tuple[str, int], ...]:
+    """Each field `written_fields` keeps, by its key, and the offset where its value starts."""
+    places = [
+        (_NODE_KEYS[index] if index < len(_NODE_KEYS) else f"node{index + 1}", offset)
+        for index, (_, offset) in enumerate(raw.nodes)
+    ]
+    value = raw.value
+    for part in raw.source_parts:
+        if isinstance(part, DcPart):
+            value = part.value
+    if value is not None:
+        places.append(("value", value.offset))
+    if raw.model is not None:
+        places.append(("model", raw.model.offset))
+    for item in raw.items:
+        if isinstance(item, Assignment) and not isinstance(item.value, ModelText):
+            places.append((item.name.lower(), item.value.offset))
+    return tuple(places)
+
+
+def _fields_at(
+    text: str, segments: tuple[tuple[int, int, int], ...], places: tuple[tuple[str, int], ...]
+) -> dict[str, Written]:
+    """The fields of card text `text` at `places`, as written and placed by the card's `segments`."""
+    fields: dict[str, Written] = {}
+    for key, offset in places:
         if offset > 0 and text[offset - 1] in "{'":
             opening = offset - 1
             closing = text.find("}" if text[opening] == "{" else "'", offset)
@@ -572,24 +641,14 @@ def written_fields(raw: RawElement) -> dict[str, Written]:
             field_text = text[opening:end]
             offset = opening
         else:
-            match = _NUMBER_FIELD.match(text, offset) or _OTHER_FIELD.match(text, offset)
+            match = _WRITTEN_FIELD.match(text, offset)
             field_text = match.group(0) if match else ""
-        place = card.locate(offset)
-        fields[key] = Written(field_text, place.line, place.column)
-
-    for index, (_, offset) in enumerate(raw.nodes, start=1):
-        keep(f"node{index}", offset)
-    value = raw.value
-    for part in raw.source_parts:
-        if isinstance(part, DcPart):
-            value = part.value
-    if value is not None:
-        keep("value", value.offset)
-    if raw.model is not None:
-        keep("model", raw.model.offset)
-    for item in raw.items:
-        if isinstance(item, Assignment) and not isinstance(item.value, ModelText):
-            keep(item.name.lower(), item.value.offset)
+        # The last segment starting at or before the field (LogicalCard.locate).
+        start, line, column = segments[0]
+        for candidate in segments:
+            if candidate[0] <= offset:
+                start, line, column = candidate
+        fields[key] = Written(field_text, line, column + offset - start)
     return fields
 
 

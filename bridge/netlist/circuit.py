@@ -7,7 +7,10 @@ node `0`. Element and model names are kept as written; look them up with
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
+from functools import cached_property
+from types import MappingProxyType
 
 GROUND = "0"
 CIRCUIT_TEMPERATURE_C = 27.0  # ngspice's default circuit temperature (TEMP) and TNOM, °C
@@ -104,7 +107,7 @@ class Element:
     controlling_source: str | None = None
     waveform: Waveform | None = None
     flags: tuple[str, ...] = ()
-    written: dict[str, Written] = field(default_factory=dict, compare=False, repr=False)
+    written: Mapping[str, Written] = field(default_factory=dict, compare=False, repr=False)
 
     @property
     def letter(self) -> str:
@@ -211,7 +214,11 @@ class Allowance:
 
 @dataclass(frozen=True)
 class Circuit:
-    """A whole netlist as understood: the only thing the analyses see."""
+    """A whole netlist as understood: the only thing the analyses see.
+
+    Nothing changes a Circuit once read (a variant is a new one, `dataclasses.replace`), so its
+    lookups (nodes, elements by name and kind, options, temperatures) are worked out once, at
+    their first use, and kept on it; a pickle or a copy carries the fields alone."""
 
     title: str
     source_file: str
@@ -223,15 +230,26 @@ class Circuit:
     notices: tuple[Notice, ...] = ()
     allowances: tuple[Allowance, ...] = ()  # `lint: allow` markers, in file order
 
-    def element(self, name: str) -> Element | None:
-        wanted = name.lower()
-        return next((e for e in self.elements if e.name.lower() == wanted), None)
+    def __getstate__(self) -> dict[str, object]:
+        # The fields alone: the lookups kept below are worked out again where needed.
+        return {name: value for name, value in self.__dict__.items() if not name.startswith("_")}
 
-    def model(self, name: str) -> ModelCard | None:
-        return self.models.get(name.lower())
+    @cached_property
+    def _elements_by_name(self) -> dict[str, Element]:
+        by_name: dict[str, Element] = {}
+        for element in self.elements:
+            by_name.setdefault(element.name.lower(), element)  # the first of a name, as written
+        return by_name
 
-    def nodes(self) -> tuple[str, ...]:
-        """Every node but ground, in order of first appearance."""
+    @cached_property
+    def _elements_by_kind(self) -> dict[str, tuple[Element, ...]]:
+        by_kind: dict[str, list[Element]] = {}
+        for element in self.elements:
+            by_kind.setdefault(element.kind, []).append(element)
+        return {kind: tuple(elements) for kind, elements in by_kind.items()}
+
+    @cached_property
+    def _nodes(self) -> tuple[str, ...]:
         seen: dict[str, None] = {}
         for element in self.elements:
             for node in element.nodes:
@@ -239,16 +257,42 @@ class Circuit:
                     seen.setdefault(node, None)
         return tuple(seen)
 
-    def options(self) -> dict[str, float | str | None]:
-        """Every `.options` setting, later cards overriding earlier ones (a flag maps to None)."""
+    @cached_property
+    def _options(self) -> Mapping[str, float | str | None]:
         settings: dict[str, float | str | None] = {}
         for directive in self.directives:
             if directive.kind == "options":
                 settings.update(directive.settings)
-        return settings
+        return MappingProxyType(settings)
+
+    @cached_property
+    def _temperature(self) -> float:
+        cards = [d for d in self.directives if d.kind == "temp" and d.settings]
+        if cards:
+            values = [v for _, v in cards[-1].settings]
+            if len(values) == 1 and isinstance(values[0], (int, float)):
+                return float(values[0])
+            return CIRCUIT_TEMPERATURE_C
+        value = self.options().get("temp")
+        return float(value) if isinstance(value, (int, float)) else CIRCUIT_TEMPERATURE_C
+
+    def element(self, name: str) -> Element | None:
+        return self._elements_by_name.get(name.lower())
+
+    def model(self, name: str) -> ModelCard | None:
+        return self.models.get(name.lower())
+
+    def nodes(self) -> tuple[str, ...]:
+        """Every node but ground, in order of first appearance."""
+        return self._nodes
+
+    def options(self) -> Mapping[str, float | str | None]:
+        """Every `.options` setting, later cards overriding earlier ones (a flag maps to None);
+        read-only."""
+        return self._options
 
     def elements_of(self, kind: str) -> tuple[Element, ...]:
-        return tuple(e for e in self.elements if e.kind == kind)
+        return self._elements_by_kind.get(kind, ())
 
     def other_level_mosfets(self) -> tuple[tuple[Element, ModelCard], ...]:
         """The MOSFETs whose model card is not level 1 (BSIM3, BSIM4, level 2 or 3, ...), with the card."""
@@ -264,14 +308,7 @@ class Circuit:
         `.temp` card, which beats `.options temp` wherever it stands; a last `.temp` with several
         values sets nothing (ngspice warns "Could not set temperature") and leaves 27 °C; without
         `.temp`, the last `.options temp`; else 27 °C."""
-        cards = [d for d in self.directives if d.kind == "temp" and d.settings]
-        if cards:
-            values = [v for _, v in cards[-1].settings]
-            if len(values) == 1 and isinstance(values[0], (int, float)):
-                return float(values[0])
-            return CIRCUIT_TEMPERATURE_C
-        value = self.options().get("temp")
-        return float(value) if isinstance(value, (int, float)) else CIRCUIT_TEMPERATURE_C
+        return self._temperature
 
     def nominal_temperature(self) -> float:
         """ngspice's nominal temperature TNOM in °C: the last `.options tnom`, else 27 °C. A model

@@ -22,6 +22,8 @@ from .circuit import AC_VARIATIONS, Analysis, Circuit, Directive, Element, Model
 EMITTED_DIRECTIVES = ("options", "temp", "ic", "nodeset")
 
 _VECTOR = re.compile(r"^(?:@[\w.+\-]+\[[a-z0-9_]+\]|all|[vi]\([\w.+\-#]+\))$", re.IGNORECASE)
+# Vector names already checked against _VECTOR: the same few are asked for deck after deck.
+_VECTORS_SEEN: set[str] = set()
 
 
 @dataclass(frozen=True)
@@ -127,8 +129,12 @@ def emit(
     """Canonical SPICE for `circuit`; `analyses` replaces the circuit's own, `saves`
     adds a `.save` card of vector names (`all`, `@m1[id]`, `v(out)`)."""
     for vector in saves:
+        if vector in _VECTORS_SEEN:
+            continue
         if not _VECTOR.match(vector):
             raise ValueError(f"not a vector name: {vector!r}")
+        if len(_VECTORS_SEEN) < 4096:
+            _VECTORS_SEEN.add(vector)
     lines = [_title(circuit.title)]
     lines += [model_card(m) for m in circuit.models.values()]
     lines += [element_card(e) for e in circuit.elements]

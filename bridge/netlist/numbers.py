@@ -50,6 +50,12 @@ _GREEK_MU = "\u03bc"
 _UNDECODABLE = "\ufffd"
 
 
+# Fields already read with the default rules, and their values: the same few numbers (`0`, `5`,
+# `2u`) stand on card after card. Bounded: past the limit nothing more is kept.
+_READ: dict[str, float] = {}
+_READ_LIMIT = 4096
+
+
 class NumberError(ValueError):
     """A field that is not a SPICE number; `offset` is where it goes wrong."""
 
@@ -64,6 +70,8 @@ def parse_number(text: str, *, allow_mil: bool = True) -> float:
     `allow_mil` is false inside `{...}` expressions, where ngspice's expression
     parser does not know MIL.
     """
+    if allow_mil and text in _READ:
+        return _READ[text]
     match = _NUMBER.fullmatch(text)
     if match is None:
         raise NumberError(f"`{text}` is not a number", 0)
@@ -88,6 +96,8 @@ def parse_number(text: str, *, allow_mil: bool = True) -> float:
         value *= _MIL_FACTOR
     if not math.isfinite(value):
         raise NumberError(f"`{text}` is out of range", 0)
+    if allow_mil and len(_READ) < _READ_LIMIT:
+        _READ[text] = value
     return value
 
 

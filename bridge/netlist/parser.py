@@ -543,8 +543,16 @@ def _explain(card: LogicalCard, exc: UnexpectedInput) -> NetlistError:
 
 # A field as the grammar's WORD, or one of the separators `=`, `(`, `)`, `,`.
 _PLAIN_FIELD = re.compile(r"[^\s=(),{}']+|[=(),]")
-# Space the grammar does not skip (only blanks, tabs, form and vertical feeds are), or an expression.
-_NOT_PLAIN = re.compile(r"[^\S \t\f\v]|[{}']")
+# Space the grammar does not skip (only blanks, tabs, form and vertical feeds are), or a quoted expression.
+_NOT_PLAIN = re.compile(r"[^\S \t\f\v]|'")
+# The grammar's NAME and ENUMBER (grammar/spice.lark), each as a whole field.
+_EXPRESSION_NAME = re.compile(r"[a-zA-Z_][a-zA-Z0-9_.]*")
+_EXPRESSION_NUMBER = re.compile(r"(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?[a-zA-Z\u00b5\u03bc]*")
+# A braced value of one name or one number, braces tight (`{rload}`, `{10k}`), as one field; any
+# other brace stays unmatched, and the card goes to the parser.
+_PLAIN_FIELD_BRACED = re.compile(
+    r"\{(?:" + _EXPRESSION_NAME.pattern + "|" + _EXPRESSION_NUMBER.pattern + r")\}|" + _PLAIN_FIELD.pattern
+)
 _SOURCE_KEYWORDS = frozenset({"dc", "ac"})
 _WAVEFORMS = frozenset({"sin", "pulse", "pwl", "exp", "sffm"})
 _KEYWORDS = _SOURCE_KEYWORDS | _WAVEFORMS
@@ -565,7 +573,12 @@ def plain_card(card: LogicalCard) -> RawCard | None:
     text = card.text
     if _NOT_PLAIN.search(text):
         return None
-    fields = [(match.group(), match.start()) for match in _PLAIN_FIELD.finditer(text)]
+    if "{" in text or "}" in text:
+        fields = _braced_fields(text)
+        if fields is None:
+            return None
+    else:
+        fields = [(match.group(), match.start()) for match in _PLAIN_FIELD.finditer(text)]
     if not fields:
         return None
     first = fields[0][0]
@@ -582,39 +595,103 @@ def plain_card(card: LogicalCard) -> RawCard | None:
             return _plain_model(card, fields)
         if keyword == ".op":
             return RawAnalysis("op", card) if len(fields) == 1 else None
+        if keyword == ".param":
+            return _plain_param(card, fields)
         if _OPTIONS_CARD.fullmatch(first):
             return RawSetting("options", card, items=_plain_items(fields, 1, _plain_number))
-        if _KEPT_CARD.fullmatch(first):
+        if _KEPT_CARD.fullmatch(first) and "{" not in text:
             return RawKept(keyword, card)
     except (_NotPlain, NumberError):
         return None
     return None
 
 
+def _braced_fields(text: str) -> list[tuple[str, int]] | None:
+    """The fields of a card with braces, each `{name}` or `{number}` one field; None when a brace
+    is not part of such a field (an expression the parser reads)."""
+    fields = [(match.group(), match.start()) for match in _PLAIN_FIELD_BRACED.finditer(text)]
+    braced = sum(1 for field_text, _ in fields if field_text[0] == "{")
+    if braced != text.count("{") or braced != text.count("}"):
+        return None
+    return fields
+
+
+def _braced(field: tuple[str, int]) -> Literal | Reference:
+    """`{name}` or `{number}`, as the grammar's `braced` reads it (a number there takes no MIL)."""
+    inner, offset = field[0][1:-1], field[1] + 1
+    if inner[0] in "0123456789.":
+        return Literal(parse_number(inner, allow_mil=False), offset)
+    return Reference(inner, offset)
+
+
 def _plain_word(fields: list[tuple[str, int]], index: int) -> tuple[str, int]:
+    if index >= len(fields) or fields[index][0] in _SEPARATORS or fields[index][0][0] == "{":
+        raise _NotPlain
+    return fields[index]
+
+
+def _plain_value(fields: list[tuple[str, int]], index: int) -> tuple[str, int]:
+    """A field where the grammar takes a `value`: a word or a braced field."""
     if index >= len(fields) or fields[index][0] in _SEPARATORS:
         raise _NotPlain
     return fields[index]
 
 
-def _plain_number(field: tuple[str, int]) -> Literal:
+def _plain_number(field: tuple[str, int]) -> Literal | Reference:
+    if field[0][0] == "{":
+        return _braced(field)
     return Literal(parse_number(field[0]), field[1])
 
 
-def _plain_model_value(field: tuple[str, int]) -> Literal | ModelText:
+def _plain_model_value(field: tuple[str, int]) -> Literal | Reference | ModelText:
+    if field[0][0] == "{":
+        return _braced(field)
     try:
         return Literal(parse_number(field[0]), field[1])
     except NumberError:
         return ModelText(field[0], field[1])
 
 
-def _plain_items(fields: list[tuple[str, int]], start: int, value_of, *, model: bool = False) -> tuple[Item, ...]:
+def _plain_param(card: LogicalCard, fields: list[tuple[str, int]]) -> RawParams:
+    """`.param name=value ...`, each value one name, one number or one of those braced."""
+    assignments: list[Assignment] = []
+    index = 1
+    while index < len(fields):
+        name, offset = fields[index]
+        if index + 2 >= len(fields) or fields[index + 1][0] != "=" or not _EXPRESSION_NAME.fullmatch(name):
+            raise _NotPlain
+        text, at = fields[index + 2]
+        if text[0] == "{":
+            value: Expr = _braced(fields[index + 2])
+        elif _EXPRESSION_NUMBER.fullmatch(text):
+            value = Literal(parse_number(text, allow_mil=False), at)
+        elif _EXPRESSION_NAME.fullmatch(text):
+            value = Reference(text, at)
+        else:
+            raise _NotPlain
+        assignments.append(Assignment(name, value, offset))
+        index += 3
+    if not assignments:
+        raise _NotPlain
+    return RawParams(tuple(assignments), card)
+
+
+def _plain_items(
+    fields: list[tuple[str, int]], start: int, value_of, *, model: bool = False, positional: bool = False
+) -> tuple[Item, ...]:
     """`name=value` and lone words from `fields[start:]`; in a `.model` card, parentheses and
-    commas only separate."""
+    commas only separate; where `positional`, a lone braced field is a positional value."""
     items: list[Item] = []
     index = start
     while index < len(fields):
         text, offset = fields[index]
+        if text[0] == "{":
+            if not positional or (index + 1 < len(fields) and fields[index + 1][0] == "="):
+                raise _NotPlain
+            value = _braced(fields[index])
+            items.append(Positional(value, value.offset))
+            index += 1
+            continue
         if text.lower() in _KEYWORDS:
             # Read after a value, `dc`, `ac` or a waveform's name is the source keyword (the
             # parser's state after a value is shared with the sources'), which the card refuses.
@@ -625,8 +702,7 @@ def _plain_items(fields: list[tuple[str, int]], start: int, value_of, *, model: 
                 continue
             raise _NotPlain
         if index + 1 < len(fields) and fields[index + 1][0] == "=":
-            value = _plain_word(fields, index + 2)
-            items.append(Assignment(text, value_of(value), offset))
+            items.append(Assignment(text, value_of(_plain_value(fields, index + 2)), offset))
             index += 3
         else:
             items.append(Word(text, offset))
@@ -641,9 +717,10 @@ def _plain_element(card: LogicalCard, fields: list[tuple[str, int]], letter: str
     if letter == "m":
         model = _plain_word(fields, 1 + count)
         return RawElement(letter, name, nodes, card, model=Word(*model),
-                          items=_plain_items(fields, 2 + count, _plain_number))
-    value = _plain_number(_plain_word(fields, 3))
-    return RawElement(letter, name, nodes, card, value=value, items=_plain_items(fields, 4, _plain_number))
+                          items=_plain_items(fields, 2 + count, _plain_number, positional=True))
+    value = _plain_number(_plain_value(fields, 3))
+    return RawElement(letter, name, nodes, card, value=value,
+                      items=_plain_items(fields, 4, _plain_number, positional=True))
 
 
 def _plain_source(card: LogicalCard, fields: list[tuple[str, int]], letter: str) -> RawElement:

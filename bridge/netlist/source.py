@@ -101,14 +101,14 @@ def read_source(path: str | os.PathLike[str], display_name: str | None = None) -
     """Read a netlist file as text: reject empty and binary files with a located message."""
     name = display_name or str(path)
     try:
-        size = os.path.getsize(path)
-        if size > MAX_FILE_BYTES:
-            raise NetlistError(
-                f"file is {size // (1024 * 1024)} MiB: far beyond a single-stage netlist "
-                f"(limit {MAX_FILE_BYTES // (1024 * 1024)} MiB)",
-                Location(name, 1, 1),
-            )
         with open(path, "rb") as handle:
+            size = os.fstat(handle.fileno()).st_size  # the file opened: one look-up of its path
+            if size > MAX_FILE_BYTES:
+                raise NetlistError(
+                    f"file is {size // (1024 * 1024)} MiB: far beyond a single-stage netlist "
+                    f"(limit {MAX_FILE_BYTES // (1024 * 1024)} MiB)",
+                    Location(name, 1, 1),
+                )
             # No more than the limit, whatever the size said: a device or a pipe (`/dev/zero`,
             # `<(yes)`) reports size 0 and never ends.
             data = handle.read(MAX_FILE_BYTES + 1)
@@ -180,9 +180,9 @@ class _Reader:
     def __init__(self, deck: Deck) -> None:
         self.deck = deck
         # Resolved paths of the files being read, the main file first. The main file's path
-        # is resolved only at its first include (resolving costs a system call per folder,
-        # and most netlists include nothing).
-        self.include_stack: list[Path] = []
+        # is made a Path and resolved only at its first include (resolving costs a system call
+        # per folder, and most netlists include nothing).
+        self.include_stack: list[Path | str | os.PathLike[str]] = []
         self.main_resolved = False
 
     # -- physical lines → logical cards of one file ---------------------------
@@ -199,10 +199,11 @@ class _Reader:
         def flush() -> None:
             if text_parts:
                 cards.append(LogicalCard("".join(text_parts), source, tuple(segments)))
-                first = segments[0].line
-                self.deck.allowances.extend(
-                    Allowance(code, source.name, first, line, column) for code, line, column in allowed
-                )
+                if allowed:
+                    first = segments[0].line
+                    self.deck.allowances.extend(
+                        Allowance(code, source.name, first, line, column) for code, line, column in allowed
+                    )
                 text_parts.clear()
                 segments.clear()
             allowed.clear()
@@ -245,7 +246,8 @@ class _Reader:
                 text_parts.append(" ")
                 segments.append(Segment(sum(map(len, text_parts)), number, indent + 2 + lead))
                 text_parts.append(continued.strip())
-                allowed.extend((code, number, column) for code, column in allow_markers(raw))
+                if markers := allow_markers(raw):
+                    allowed.extend((code, number, column) for code, column in markers)
                 continue
             flush()
             if dot and _END.match(stripped):
@@ -255,7 +257,8 @@ class _Reader:
                 continue
             segments.append(Segment(0, number, indent + 1))
             text_parts.append(body)
-            allowed.extend((code, number, column) for code, column in allow_markers(raw))
+            if markers := allow_markers(raw):
+                allowed.extend((code, number, column) for code, column in markers)
             if len(self.deck.cards) + len(cards) >= MAX_CARDS:
                 raise NetlistError(
                     f"more than {MAX_CARDS} cards: far beyond a single-stage netlist, refused",
@@ -284,7 +287,7 @@ class _Reader:
         )
 
     # -- includes ------------------------------------------------------------
-    def expand(self, source: SourceFile, path: Path, first_line: int) -> None:
+    def expand(self, source: SourceFile, path: Path | str | os.PathLike[str], first_line: int) -> None:
         """Append the cards of `source` to the deck, expanding `.include`/`.lib`."""
         self.include_stack.append(path)
         try:
@@ -325,7 +328,7 @@ class _Reader:
         file_name = raw_name.strip("\"'")
         try:
             if not self.main_resolved:
-                self.include_stack[0] = self.include_stack[0].resolve()
+                self.include_stack[0] = Path(self.include_stack[0]).resolve()
                 self.main_resolved = True
             target = (self.include_stack[-1].parent / os.path.expanduser(file_name)).resolve()
         except (OSError, RuntimeError) as exc:  # RuntimeError: a loop of symbolic links
@@ -403,6 +406,6 @@ def read_deck(source: SourceFile, path: str | os.PathLike[str] | None = None) ->
     if title.lower().startswith(".title"):
         title = title[len(".title"):].strip()
     deck = Deck(title=title, source=source)
-    base = Path(path if path is not None else source.name)  # resolved at the first include
+    base = path if path is not None else source.name  # a resolved Path at the first include
     _Reader(deck).expand(source, base, 2)
     return deck
