@@ -204,6 +204,7 @@ class _Worker:
             self.close()
             raise SimulatorUnavailable(str(handshake.get("error") or "ngspice did not start"))
         self.version = str(handshake.get("version"))
+        self.forked = handshake.get("forked") is True  # as the worker itself says
         self.banner = tuple(handshake.get("messages") or ())
         self.ready_at = time.monotonic()
         self.ready = True
@@ -521,6 +522,13 @@ class NgspiceSession:
         """The pid of the running worker, or None before the first run and after a failure."""
         worker = self._worker
         return worker.pid if worker is not None else None
+
+    @property
+    def worker_forked(self) -> bool | None:
+        """Whether the running worker was forked from this process (else exec'd as a fresh
+        interpreter), as its handshake says; None until a worker's handshake is read."""
+        worker = self._worker
+        return worker.forked if worker is not None and worker.ready else None
 
     @property
     def startup_seconds(self) -> float | None:
