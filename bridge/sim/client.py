@@ -312,9 +312,11 @@ class _Worker:
 def _fork_is_safe(*fds: int) -> bool:
     """Whether the worker can be forked from this process rather than exec'd: POSIX, and no
     other thread alive (only the forking thread lives on in the child, so a lock another thread
-    holds, a progress bar's say, would stay held there forever). The pipes must not sit on fds
-    0-2, which the child moves them onto."""
-    return (hasattr(os, "fork") and threading.active_count() == 1
+    holds, a progress bar's say, would stay held there forever). Not on macOS, whose system
+    libraries may start threads of their own (why Python's multiprocessing spawns there by
+    default since 3.8, its documentation says). The pipes must not sit on fds 0-2, which the
+    child moves them onto."""
+    return (hasattr(os, "fork") and sys.platform != "darwin" and threading.active_count() == 1
             and threading.current_thread() is threading.main_thread() and min(fds) > 2)
 
 
