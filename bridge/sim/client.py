@@ -541,9 +541,11 @@ class NgspiceSession:
     def spawn(self) -> None:
         """Start the worker process now and return without waiting for it.
 
-        Its start-up (a Python process loading PySpice and libngspice) then runs beside the
-        caller's own work, and the first run waits only for what is left of it. Problems are
-        reported by that first run, as without ``spawn``.
+        Its start-up (loading PySpice and libngspice) then runs beside the caller's own work,
+        and the first run waits only for what is left of it. Problems are reported by that
+        first run, as without ``spawn``. Where it can (``_fork_is_safe``: no other thread
+        alive) the worker is forked from this process after numpy is imported here, else it is
+        a fresh interpreter (``python -m bridge.sim.worker``).
         """
         with self._lock:
             if self._closed or self._unavailable is not None:

@@ -1,6 +1,7 @@
 """The ngspice worker: one child process holding one libngspice, reused for many decks.
 
-Run as ``python -m bridge.sim.worker [--response-fd N] [--capture PATH] [--library PATH]``.
+Run as ``python -m bridge.sim.worker [--response-fd N] [--capture PATH] [--library PATH]``, or
+forked from the client (``run_forked``), which then serves the same protocol.
 
 Protocol, JSON Lines both ways:
 - requests on stdin: ``{"id": n, "deck": text with its analysis line, "vectors": [names] | null}``
