@@ -312,10 +312,10 @@ class _Worker:
 def _fork_is_safe(*fds: int) -> bool:
     """Whether the worker can be forked from this process rather than exec'd: POSIX, and no
     other thread alive (only the forking thread lives on in the child, so a lock another thread
-    holds, a progress bar's say, would stay held there forever). Not on macOS, whose system
-    libraries may start threads of their own (why Python's multiprocessing spawns there by
-    default since 3.8, its documentation says). The pipes must not sit on fds 0-2, which the
-    child moves them onto."""
+    holds, a progress bar's say, would stay held there forever). Not on macOS: "the fork start
+    method should be considered unsafe as it can lead to crashes of the subprocess" there
+    (Python's multiprocessing documentation, 3.8 change note, bpo-33725). The pipes must not sit
+    on fds 0-2, which the child moves them onto."""
     return (hasattr(os, "fork") and sys.platform != "darwin" and threading.active_count() == 1
             and threading.current_thread() is threading.main_thread() and min(fds) > 2)
 
@@ -325,7 +325,8 @@ def _fork_worker(library_path: str, capture_fd: int, response_write: int, workdi
     """The worker as a child forked from this process (``worker.run_forked``): it shares the
     interpreter and the modules already imported, numpy among them, instead of starting its
     own. The caller checks ``_fork_is_safe`` first."""
-    import numpy  # noqa: F401 - shared with the child; the caller imports it anyway
+    with contextlib.suppress(ImportError):  # without it, the child's PySpice says so in the handshake
+        import numpy  # noqa: F401 - shared with the child; the caller imports it anyway
 
     request_read, request_write = os.pipe()
     # What this process has buffered is written by it alone: flushed now, and the child never
