@@ -54,15 +54,17 @@ def report(body: str, *args: str) -> dict:
 @needs_library
 def test_with_no_other_thread_the_worker_is_forked_from_this_process():
     seen = report("""
+        held = open(sys.executable, "rb")  # a file of this process's own: not the worker's
         with NgspiceSession() as session:
             session.spawn()
             session.version  # the handshake
             pid = session.worker_pid
+            out, capture = os.readlink(f"/proc/{pid}/fd/1"), session._worker.capture_path
             print(json.dumps({"worker": cmdline(pid), "own": cmdline(os.getpid()),
                               "ppid": int(open(f"/proc/{pid}/stat").read().rsplit(")", 1)[1].split()[1]),
                               "forked": session.worker_forked, "b": session.run(SMALL).scalar("b"),
                               "cwd": os.readlink(f"/proc/{pid}/cwd"), "fds": sorted(os.listdir(f"/proc/{pid}/fd")),
-                              "me": os.getpid()}))
+                              "me": os.getpid(), "out": out, "capture": capture}))
         """)
     # A fork runs this very command line; an exec'd worker's is `python -m bridge.sim.worker ...`.
     assert seen["worker"] == seen["own"]
@@ -72,6 +74,7 @@ def test_with_no_other_thread_the_worker_is_forked_from_this_process():
     # As the exec'd worker: requests on 0, the capture on 1 and 2, the response pipe, nothing else;
     # in its private folder, not the caller's.
     assert len(seen["fds"]) == 4 and seen["fds"][:3] == ["0", "1", "2"]
+    assert seen["out"] == seen["capture"]
     assert "biasbridge-ngspice-" in seen["cwd"]
 
 
