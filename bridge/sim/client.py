@@ -28,10 +28,10 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from types import MappingProxyType
-from typing import TYPE_CHECKING, Any
+from typing import IO, TYPE_CHECKING, Any
 
 from bridge.sim.locate import locate_ngspice
-from bridge.sim.worker import vector_key
+from bridge.sim.worker import run_forked, vector_key
 
 # A plot's vectors are asked for by the same few names over and over (a check asks ~14 a stage):
 # each name's key is worked out once (the same function, remembered).
@@ -159,17 +159,22 @@ class _Worker:
             "--library", library_path,
         ]
         try:
-            # stdout/stderr go to the capture from the first instruction on (an import error
-            # lands there too); the worker then moves its fds 1 and 2 onto the same file.
-            self.process = subprocess.Popen(
-                command,
-                stdin=subprocess.PIPE,
-                stdout=capture_fd,
-                stderr=capture_fd,
-                pass_fds=(response_write,),
-                env=env,
-                cwd=self.workdir,
-            )
+            if _fork_is_safe(capture_fd, response_read, response_write):
+                self.process: subprocess.Popen | _ForkedProcess = _fork_worker(
+                    library_path, capture_fd, response_write, self.workdir,
+                    {"NGSPICE_LIBRARY_PATH": env["NGSPICE_LIBRARY_PATH"], "PYTHONPATH": env["PYTHONPATH"]})
+            else:
+                # stdout/stderr go to the capture from the first instruction on (an import error
+                # lands there too); the worker then moves its fds 1 and 2 onto the same file.
+                self.process = subprocess.Popen(
+                    command,
+                    stdin=subprocess.PIPE,
+                    stdout=capture_fd,
+                    stderr=capture_fd,
+                    pass_fds=(response_write,),
+                    env=env,
+                    cwd=self.workdir,
+                )
         except BaseException:
             os.close(response_read)
             os.close(capture_fd)
@@ -188,6 +193,7 @@ class _Worker:
             self, _reap, self.process, self._selector, response_read, self.capture_path, self.workdir
         )
         self._spawned = time.monotonic()
+        self.forked = isinstance(self.process, _ForkedProcess)  # else a fresh interpreter (exec)
         self._startup_timeout = startup_timeout
         self.ready = False  # the handshake has been read
         self.ready_at = math.inf
@@ -212,6 +218,7 @@ class _Worker:
             self.close()
             raise SimulatorUnavailable(str(handshake.get("error") or "ngspice did not start"))
         self.version = str(handshake.get("version"))
+        self.forked = handshake.get("forked") is True  # as the worker itself says
         self.banner = tuple(handshake.get("messages") or ())
         self.ready_at = time.monotonic()
         self.ready = True
@@ -316,11 +323,98 @@ class _Worker:
         self._finalizer()
 
 
+def _fork_is_safe(*fds: int) -> bool:
+    """Whether the worker can be forked from this process rather than exec'd: POSIX, and no
+    other thread alive (only the forking thread lives on in the child, so a lock another thread
+    holds, a progress bar's say, would stay held there forever). Not on macOS: "the fork start
+    method should be considered unsafe as it can lead to crashes of the subprocess" there
+    (Python's multiprocessing documentation, 3.8 change note, bpo-33725). The pipes must not sit
+    on fds 0-2, which the child moves them onto."""
+    return (hasattr(os, "fork") and sys.platform != "darwin" and threading.active_count() == 1
+            and threading.current_thread() is threading.main_thread() and min(fds) > 2)
+
+
+def _fork_worker(library_path: str, capture_fd: int, response_write: int, workdir: str,
+                 environment: Mapping[str, str]) -> _ForkedProcess:
+    """The worker as a child forked from this process (``worker.run_forked``): it shares the
+    interpreter and the modules already imported, numpy among them, instead of starting its
+    own. The caller checks ``_fork_is_safe`` first."""
+    with contextlib.suppress(ImportError):  # without it, the child's PySpice says so in the handshake
+        import numpy  # noqa: F401 - shared with the child; the caller imports it anyway
+
+    request_read, request_write = os.pipe()
+    # What this process has buffered is written by it alone: flushed now, and the child never
+    # flushes the stream objects it inherits.
+    for stream in (sys.stdout, sys.stderr):
+        with contextlib.suppress(Exception):
+            stream.flush()
+    try:
+        pid = os.fork()
+    except BaseException:
+        os.close(request_read)
+        os.close(request_write)
+        raise
+    if pid == 0:  # the worker: never returns into the caller's code
+        try:
+            run_forked(request_read, response_write, capture_fd, workdir, environment, library_path)
+        finally:
+            os._exit(1)
+    os.close(request_read)
+    return _ForkedProcess(pid, open(request_write, "wb"))  # noqa: SIM115 - closed by _reap
+
+
+class _ForkedProcess:
+    """A forked worker, with the part of ``subprocess.Popen`` the client uses (pid, stdin,
+    returncode, poll, wait, kill)."""
+
+    def __init__(self, pid: int, stdin: IO[bytes]) -> None:
+        self.pid = pid
+        self.stdin = stdin
+        self.returncode: int | None = None
+        self.args = [sys.executable, "-m", "bridge.sim.worker", "(forked)"]  # for TimeoutExpired
+
+    def _reaped(self, flags: int) -> bool:
+        try:
+            pid, status = os.waitpid(self.pid, flags)
+        except ChildProcessError:  # reaped elsewhere (SIGCHLD ignored): its status is lost, as Popen says
+            self.returncode = 0
+            return True
+        if pid == self.pid:
+            self.returncode = os.waitstatus_to_exitcode(status)
+            return True
+        return False
+
+    def poll(self) -> int | None:
+        if self.returncode is None:
+            self._reaped(os.WNOHANG)
+        return self.returncode
+
+    def wait(self, timeout: float | None = None) -> int:
+        if timeout is None:
+            while self.returncode is None:
+                self._reaped(0)
+            return self.returncode
+        deadline = time.monotonic() + timeout
+        delay = 0.0005  # as Popen.wait polls
+        while self.poll() is None:
+            remaining = deadline - time.monotonic()
+            if remaining <= 0:
+                raise subprocess.TimeoutExpired(self.args, timeout)
+            time.sleep(min(delay, remaining))
+            delay = min(delay * 2, 0.05)
+        return self.returncode
+
+    def kill(self) -> None:
+        if self.poll() is None:
+            with contextlib.suppress(ProcessLookupError):
+                os.kill(self.pid, signal.SIGKILL)
+
+
 def _private_workdir() -> str:
     return tempfile.mkdtemp(prefix="biasbridge-ngspice-")
 
 
-def _reap(process: subprocess.Popen, selector: selectors.BaseSelector, responses: int,
+def _reap(process: subprocess.Popen | _ForkedProcess, selector: selectors.BaseSelector, responses: int,
           capture_path: str, workdir: str) -> None:
     """Kill the worker and release what it held (also run when a session is garbage-collected)."""
     if process.poll() is None:
@@ -447,6 +541,13 @@ class NgspiceSession:
         return worker.pid if worker is not None else None
 
     @property
+    def worker_forked(self) -> bool | None:
+        """Whether the running worker was forked from this process (else exec'd as a fresh
+        interpreter), as its handshake says; None until a worker's handshake is read."""
+        worker = self._worker
+        return worker.forked if worker is not None and worker.ready else None
+
+    @property
     def startup_seconds(self) -> float | None:
         """How long the running worker took from spawn to handshake (None until it is known)."""
         worker = self._worker
@@ -455,9 +556,11 @@ class NgspiceSession:
     def spawn(self) -> None:
         """Start the worker process now and return without waiting for it.
 
-        Its start-up (a Python process loading PySpice and libngspice) then runs beside the
-        caller's own work, and the first run waits only for what is left of it. Problems are
-        reported by that first run, as without ``spawn``.
+        Its start-up (loading PySpice and libngspice) then runs beside the caller's own work,
+        and the first run waits only for what is left of it. Problems are reported by that
+        first run, as without ``spawn``. Where it can (``_fork_is_safe``: no other thread
+        alive) the worker is forked from this process after numpy is imported here, else it is
+        a fresh interpreter (``python -m bridge.sim.worker``).
         """
         with self._lock:
             if self._closed or self._unavailable is not None:

@@ -1,11 +1,13 @@
 """The ngspice worker: one child process holding one libngspice, reused for many decks.
 
-Run as ``python -m bridge.sim.worker [--response-fd N] [--capture PATH] [--library PATH]``.
+Run as ``python -m bridge.sim.worker [--response-fd N] [--capture PATH] [--library PATH]``, or
+forked from the client (``run_forked``), which then serves the same protocol.
 
 Protocol, JSON Lines both ways:
 - requests on stdin: ``{"id": n, "deck": text with its analysis line, "vectors": [names] | null}``
 - responses on the response fd (never stdout: PySpice and ngspice chatter there): first a
-  handshake ``{"handshake": true, "ok", "version", "library", "pid", "messages", "error"}``, then
+  handshake ``{"handshake": true, "ok", "version", "library", "pid", "messages", "error", "forked"}``
+  (``forked``: started by ``run_forked``, not as a fresh interpreter), then
   one ``{"id", "ok", "plot", "vectors": {name: [floats]}, "messages", "error", "kind", "retire"}``
   per request. ``kind`` is null, ``"no_convergence"`` or ``"simulator_error"``; ``retire`` true
   means ngspice asked to be unloaded (it cannot recover) and this process exits after answering.
@@ -18,12 +20,14 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import gc
 import json
 import os
 import re
 import signal
 import sys
-from typing import IO, Any
+from collections.abc import Mapping
+from typing import IO, Any, NoReturn
 
 NO_CONVERGENCE = "no_convergence"
 SIMULATOR_ERROR = "simulator_error"
@@ -375,13 +379,19 @@ def main(argv: list[str] | None = None) -> int:
     response_fd = args.response_fd if args.response_fd is not None else os.dup(1)
     channel = os.fdopen(response_fd, "wb")
     _redirect_std_streams(args.capture)
+    return serve(channel, args.library, sys.stdin.buffer)
+
+
+def serve(channel: IO[bytes], library: str | None, requests: IO[bytes], forked: bool = False) -> int:
+    """Load ngspice, send the handshake on `channel`, then answer each request line of
+    `requests` until it ends (or ngspice retires); the exit status."""
     # Ctrl-C belongs to the parent, which kills this process when it gives up on a run.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
 
     from bridge.sim.locate import locate_ngspice
 
-    location = locate_ngspice(args.library) if args.library else locate_ngspice()
-    library = args.library or location.path
+    location = locate_ngspice(library) if library else locate_ngspice()
+    library = library or location.path
     if library is None:
         _send(channel, {"handshake": True, "ok": False, "error": location.hint, "pid": os.getpid()})
         return 3
@@ -395,10 +405,10 @@ def main(argv: list[str] | None = None) -> int:
         return 3
     _send(channel, {
         "handshake": True, "ok": True, "pid": os.getpid(), "library": library,
-        "version": simulator.version, "messages": simulator.banner, "error": None,
+        "version": simulator.version, "messages": simulator.banner, "error": None, "forked": forked,
     })
 
-    for line in sys.stdin.buffer:
+    for line in requests:
         if not line.strip():
             continue
         try:
@@ -417,6 +427,80 @@ def main(argv: list[str] | None = None) -> int:
         if response["retire"]:
             return 4
     return 0
+
+
+# The stream objects a forked worker inherited from its client: kept referenced and never flushed
+# or closed in the worker, so that nothing the client had buffered is written a second time.
+_INHERITED_STREAMS: list[object] = []
+
+
+def run_forked(requests_fd: int, response_fd: int, capture_fd: int, workdir: str,
+               environment: Mapping[str, str], library: str) -> NoReturn:
+    """Become, in a child forked from the client (``client._fork_worker``), the worker that
+    ``python -m bridge.sim.worker`` would be, and leave with ``os._exit``: never returns.
+
+    Set up as the exec'd worker is: requests on fd 0, fds 1 and 2 on the capture, the response
+    fd, nothing else open; the private working folder; the environment with `environment`
+    added; signal handlers the client installed back to their defaults (as an exec resets
+    them; ignored signals stay ignored); the warning filters Python starts with. The client's
+    objects are frozen (``gc.freeze``): none is collected, finalized or flushed here.
+    """
+    code = 1
+    try:
+        gc.freeze()
+        os.dup2(requests_fd, 0)
+        os.dup2(capture_fd, 1)
+        os.dup2(capture_fd, 2)
+        os.closerange(3, response_fd)
+        os.closerange(response_fd + 1, os.sysconf("SC_OPEN_MAX"))
+        _INHERITED_STREAMS.extend((sys.stdin, sys.stdout, sys.stderr))
+        sys.stdin = open(0, encoding="utf-8", errors="surrogateescape", closefd=False)  # noqa: SIM115
+        sys.stdout = open(1, "w", encoding="utf-8", errors="backslashreplace", closefd=False)  # noqa: SIM115
+        sys.stderr = open(2, "w", encoding="utf-8", errors="backslashreplace",  # noqa: SIM115
+                          closefd=False, buffering=1)
+        _default_signals()
+        os.chdir(workdir)
+        os.environ.update(environment)
+        _default_warnings()
+        channel = os.fdopen(response_fd, "wb")
+        code = serve(channel, library, sys.stdin.buffer, forked=True)
+    except BaseException:  # noqa: BLE001 - said in the capture, as an exec'd worker's traceback is
+        with contextlib.suppress(BaseException):
+            import traceback
+
+            traceback.print_exc()
+    finally:
+        with contextlib.suppress(BaseException):
+            sys.stdout.flush()
+            sys.stderr.flush()
+        os._exit(code)  # no atexit handlers, no finalizers of the client's objects
+
+
+def _default_signals() -> None:
+    """Signals with a Python handler (the CLI's SIGTERM, say) back to the default action, and no
+    wake-up fd: as an exec leaves them. SIGINT is ignored by ``serve``."""
+    for number in signal.valid_signals():
+        with contextlib.suppress(OSError, ValueError):
+            if number != signal.SIGINT and callable(signal.getsignal(number)):
+                signal.signal(number, signal.SIG_DFL)
+    signal.set_wakeup_fd(-1)
+    import faulthandler
+
+    if faulthandler.is_enabled():  # onto the capture, not the client's (now closed) fd
+        faulthandler.cancel_dump_traceback_later()
+        faulthandler.disable()
+        faulthandler.enable()
+
+
+def _default_warnings() -> None:
+    """The warning filters a Python started without -W has (the client's may make errors of
+    warnings, as a test runner's do)."""
+    import warnings
+
+    warnings.resetwarnings()
+    for category in (DeprecationWarning, PendingDeprecationWarning, ImportWarning, ResourceWarning):
+        warnings.simplefilter("ignore", category)
+    warnings.filterwarnings("default", category=DeprecationWarning, module="__main__")
 
 
 if __name__ == "__main__":
