@@ -218,3 +218,41 @@ def test_the_attribution_re_solves_share_one_reduction(monkeypatch):
         alone = HandModel(circuit).solve(effects={effect}, working=False, start=plain.node_voltages)
         assert solution.node_voltages == alone.node_voltages
         assert solution.devices == alone.devices
+
+
+@pytest.mark.parametrize("size", [1, 2, 3, 4, 6, 9])
+def test_solve_system_is_numpy_solve_to_the_bit(size: int) -> None:
+    # reference: np.linalg.solve itself, whose gufunc solve_system calls without its checks
+    import warnings
+
+    from bridge.analysis.linear import solve_system
+
+    rng = np.random.default_rng(300 + size)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # neither path may warn, singular or not
+        for columns in (None, 1, 3):
+            for _ in range(10):
+                matrix = rng.normal(size=(size, size)) * 10.0 ** rng.integers(-12, 4, size=(size, 1))
+                rhs = rng.normal(size=size if columns is None else (size, columns))
+                ours, reference = solve_system(matrix, rhs), np.linalg.solve(matrix, rhs)
+                assert ours.shape == reference.shape and ours.tobytes() == reference.tobytes()
+        stack = rng.normal(size=(4, size, size))
+        right = rng.normal(size=(4, size, 1))
+        assert solve_system(stack, right).tobytes() == np.linalg.solve(stack, right).tobytes()
+        with pytest.raises(np.linalg.LinAlgError):  # an exactly zero pivot, as numpy says it
+            solve_system(np.ones((size, size)) if size > 1 else np.zeros((1, 1)), np.ones((size, 2)))
+        with pytest.raises(np.linalg.LinAlgError):
+            solve_system(np.zeros((size, size)), np.ones(size))
+    # other types go to numpy's own solve: integers come back as floats
+    assert solve_system(np.eye(2, dtype=int), np.array([3, 4])).tolist() == [3.0, 4.0]
+
+
+def test_a_singular_resistive_network_still_raises_through_the_block_solves() -> None:
+    # reference: the Kron reduction's internal block written out: [[1, -1], [-1, 1]] is singular
+    matrix = np.array([[2.0, -1.0, -1.0], [-1.0, 1.0, -1.0], [-1.0, -1.0, 1.0]])
+    with pytest.raises(np.linalg.LinAlgError):
+        kron(matrix, np.ones(3), [0], [1, 2])
+    with pytest.raises(np.linalg.LinAlgError):
+        solve_block(matrix, np.ones(2), [1, 2])
+    with pytest.raises(np.linalg.LinAlgError):
+        solve_each(np.ones((2, 2)), np.ones((3, 2)))

@@ -22,6 +22,7 @@ __all__ = [
     "copy_rows",
     "is_large",
     "solve_dense",
+    "solve_system",
     "sparse_factor",
     "stamp_rows",
     "stamped",
@@ -42,6 +43,11 @@ except ImportError:  # pragma: no cover - numpy moved it: its public solve does 
     _gesv = None
 else:
     _gesv = np.errstate(invalid="raise", over="ignore", divide="ignore", under="ignore")(_umath_linalg.solve1)
+    # The same for a matrix of right-hand sides (or a stack of systems): the gufunc
+    # numpy.linalg.solve calls where its second argument is not one vector.
+    _gesv_columns = np.errstate(invalid="raise", over="ignore", divide="ignore", under="ignore")(
+        _umath_linalg.solve
+    )
 
 
 def as_array(matrix: list[list[float]]) -> np.ndarray:
@@ -113,6 +119,27 @@ def _solve_lapack(matrix: np.ndarray, rhs: np.ndarray) -> list[float] | None:
         return _gesv(matrix, rhs, signature="dd->d").tolist()
     except FloatingPointError:
         return None
+
+
+def solve_system(matrix: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """``np.linalg.solve(matrix, rhs)``, the same numbers, for float64 arrays without numpy's
+    per-call conversions and checks (the same gufunc on the same arrays, one vector or a matrix
+    of right-hand sides, or stacks of systems); anything else goes to numpy.linalg.solve itself.
+    Raises np.linalg.LinAlgError where the matrix is singular, as numpy.linalg.solve does."""
+    if (
+        _gesv is None
+        or type(matrix) is not np.ndarray
+        or type(rhs) is not np.ndarray
+        or matrix.dtype.char != "d"
+        or rhs.dtype.char != "d"
+        or matrix.ndim < 2
+        or matrix.shape[-1] != matrix.shape[-2]
+    ):
+        return np.linalg.solve(matrix, rhs)
+    try:
+        return (_gesv if rhs.ndim == 1 else _gesv_columns)(matrix, rhs, signature="dd->d")
+    except FloatingPointError:
+        raise np.linalg.LinAlgError("Singular matrix") from None
 
 
 # --- large networks ---------------------------------------------------------------------------

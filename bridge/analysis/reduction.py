@@ -30,7 +30,7 @@ from typing import Protocol
 
 import numpy as np
 
-from .linear import SPARSE_FROM, condition_estimate, sparse_factor
+from .linear import SPARSE_FROM, condition_estimate, solve_system, sparse_factor
 
 __all__ = [
     "Reduction",
@@ -65,7 +65,7 @@ def schur_complement(kk, kr, rk: np.ndarray, rr, kept_sources: np.ndarray, rest_
     """
     count = rk.shape[1]
     right = np.column_stack([rk, rest_sources])
-    weights = np.linalg.solve(rr, right) if factor is None else factor.solve(right)
+    weights = solve_system(rr, right) if factor is None else factor.solve(right)
     on_kept = weights[:, :count]
     on_sources = weights[:, count:] if np.ndim(rest_sources) == 2 else weights[:, -1]
     return kk - kr @ on_kept, kept_sources - kr @ on_sources, on_kept, on_sources
@@ -326,7 +326,7 @@ def solve_block(
     CSR when large: then a sparse LU, the whole matrix's kept in `factors` once made. Raises
     np.linalg.LinAlgError where the block is exactly singular."""
     if isinstance(matrix, np.ndarray):
-        return np.linalg.solve(matrix if rows is None else _cut(matrix, rows, rows, plain), rhs)
+        return solve_system(matrix if rows is None else _cut(matrix, rows, rows, plain), rhs)
     if rows is not None:
         at = np.array(rows, dtype=int)
         return sparse_factor(matrix[at][:, at]).solve(np.asarray(rhs, dtype=float))
@@ -340,4 +340,4 @@ def solve_each(matrix: np.ndarray, rhs: np.ndarray) -> np.ndarray:
     """G⁻¹·r for every row r of `rhs` (G dense), in one call: one LAPACK solve per row, the
     same numbers as ``solve_block`` row by row."""
     count, size = rhs.shape
-    return np.linalg.solve(np.broadcast_to(matrix, (count, size, size)), rhs[:, :, None])[:, :, 0]
+    return solve_system(np.broadcast_to(matrix, (count, size, size)), rhs[:, :, None])[:, :, 0]
