@@ -723,3 +723,39 @@ def test_whole_system_is_the_reduction_that_eliminates_nothing() -> None:
             mine, theirs = getattr(ours, name), getattr(reference, name)
             assert mine.shape == theirs.shape and mine.dtype == theirs.dtype and mine.tobytes() == theirs.tobytes()
         assert net.plain_reduction.matrix == reference.matrix
+
+
+# A bicycle dynamo light: a PMOS high-side switch whose drain feeds the lamp through a choke
+# (a short at DC, merged by the hand model), its gate held by a divider, the bulk on the rail.
+DYNAMO_LIGHT = """bicycle dynamo light, PMOS high-side switch
+VDYN rail 0 6
+R1 rail g 220k
+R2 g 0 330k
+M1 d g rail rail lampfet w=40u l=2u
+LCH d lamp 100u
+RLAMP lamp 0 1.2k
+.model lampfet pmos (vto=-0.9 kp=25u gamma=0.5 phi=0.65 lambda=0.05)
+"""
+
+
+@pytest.mark.parametrize("text", [AQUARIUM, DYNAMO_LIGHT])
+def test_hand_network_points_are_its_answer_read_in_part(text: str) -> None:
+    # reference: HandNetwork.solve's whole answer and the square law evaluated afresh at its voltages
+    from bridge.analysis.hand import _dc_circuit
+    from bridge.devices.mos1.load import evaluate
+
+    circuit = parse_netlist(text, "stage.cir")
+    plain_devices, merged = _hand_devices(circuit, frozenset())
+    network = HandNetwork(circuit, plain_devices, merged)
+    first = network.solve()
+    for effects in ((), ("lambda",), ("gamma",), ("lambda", "gamma")):
+        dc = _dc_circuit(circuit, frozenset(effects))
+        devices = {t.name: t.hand_device() for t in dc.transistors}
+        for start in (None, {node: first.node_voltages[node] for node in network.nodes}):
+            whole = network.solve(devices, start)
+            voltages, points, iterations = network.solve_points(devices, start)
+            assert voltages == {"0": 0.0, **{node: whole.node_voltages[node] for node in network.nodes}}
+            assert points == whole.devices and iterations == whole.iterations
+            for t in dc.transistors:
+                at = [voltages[node] for node in (t.drain, t.gate, t.source, t.bulk)]
+                assert points[t.name] == evaluate(t.model, t.geometry, *at), (effects, t.name)

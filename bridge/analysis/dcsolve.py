@@ -1006,6 +1006,21 @@ class HandNetwork:
         state, fresh = _start(net, start)
         return _operating_point(net, _solve(net, net.source_defaults, state, fresh, METHODS), ())
 
+    def solve_points(
+        self, devices: Mapping[str, Mos1Instance] | None = None, start: Mapping[str, float] | None = None
+    ) -> tuple[dict[str, float], dict[str, Level1Point], int]:
+        """What the hand analysis reads of ``solve``'s answer, the same numbers: the voltages of
+        ``nodes`` (ground included), each MOSFET's point there (the one Newton's last test
+        evaluated) and the Newton iterations; no branch currents, junctions or caveats made."""
+        net = self._net if devices is None else self._net.with_devices(devices)
+        state, fresh = _start(net, start)
+        solved = _solve(net, net.source_defaults, state, fresh, METHODS)
+        x = solved.state.x.tolist()
+        voltages = {GROUND: 0.0}
+        voltages.update(zip(net.nodes, x[1:]))
+        points = {mos.name: mos.point(x[mos.drain], x[mos.gate], x[mos.source], x[mos.bulk]) for mos in net.mosfets}
+        return voltages, points, solved.iterations
+
 
 # --- many operating points at once: bridge.analysis.dcbatch -----------------------------------
 

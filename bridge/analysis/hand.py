@@ -308,9 +308,11 @@ _NO_POINT = (
 
 def _solve_numerically(
     circuit: Circuit, dc: _DcCircuit, start: Mapping[str, float] | None = None
-) -> tuple[dict[str, float], int]:
+) -> tuple[dict[str, float], dict[str, Level1Point], int]:
     """The hand model solved by the DC solver with the hand device (``dcsolve.HandNetwork``): the
-    voltages of the merged nodes (ground included) and the Newton iterations spent.
+    voltages of the merged nodes (ground included), each transistor's point there (in the order
+    of ``dc.transistors``: ``_device_points`` at those voltages, the same numbers) and the Newton
+    iterations spent.
 
     Newton starts from `start`'s node voltages where given (a nearby solution: the attribution
     starts each one-effect re-solve from the plain hand point), from ngspice's junction guess
@@ -325,14 +327,12 @@ def _solve_numerically(
             placed = devices
         network = dc.solver[0]
         guess = None if start is None else {node: start[node] for node in network.nodes if node in start}
-        solved = network.solve(placed, guess)
+        voltages, solved_points, iterations = network.solve_points(placed, guess)
     except InvalidElement as exc:  # a controlled source's value or control, read on this path only
         raise HandAnalysisError(str(exc)) from None
     except DcSolveError:
         raise HandAnalysisError(_NO_POINT) from None
-    voltages = {GROUND: 0.0}
-    voltages.update({node: solved.node_voltages[node] for node in network.nodes})
-    return voltages, solved.iterations
+    return voltages, {t.name: solved_points[t.name] for t in dc.transistors}, iterations
 
 
 # --- the answer -------------------------------------------------------------------------------
@@ -359,8 +359,7 @@ def _numerical_solution(
 ) -> HandSolution:
     """The model solved numerically; `working` (what the text is written from, this path's
     numbers added to it) None for an answer without text."""
-    voltages, iterations = _solve_numerically(circuit, dc, start)
-    points = _device_points(dc, voltages)
+    voltages, points, iterations = _solve_numerically(circuit, dc, start)
     devices = {name: _hand_device(point) for name, point in points.items()}
     if working is None:
         return HandSolution(topology, False, _all_nodes(dc, voltages), devices, (), (), effects)
