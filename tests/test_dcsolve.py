@@ -759,3 +759,65 @@ def test_hand_network_points_are_its_answer_read_in_part(text: str) -> None:
             for t in dc.transistors:
                 at = [voltages[node] for node in (t.drain, t.gate, t.source, t.bulk)]
                 assert points[t.name] == evaluate(t.model, t.geometry, *at), (effects, t.name)
+
+
+# A greenhouse soil-moisture sensor board: a source follower biased by a divider, a nodeset
+# guess and a warm enclosure (the level-1 solver's caveats), nothing the hand model merges.
+GREENHOUSE = """greenhouse moisture sensor, source follower
+VCC vcc 0 3.3
+RTOP vcc g 470k
+RBOT g 0 330k
+M1 vcc g s 0 probe w=30u l=3u
+RS s 0 22k
+.model probe nmos (vto=0.6 kp=45u gamma=0.4 phi=0.7 lambda=0.03)
+.nodeset v(s)=0.8
+.temp 45
+"""
+
+
+def _level1_both_ways(circuit: Circuit, monkeypatch) -> tuple[OperatingPoint, OperatingPoint]:
+    """The level-1 answer after the hand network of `circuit` was compiled, and afresh."""
+    devices, merged = _hand_devices(circuit, frozenset())
+    HandNetwork(circuit, devices, merged)
+    after_hand = dcsolve.solve_operating_point(circuit)
+    monkeypatch.setattr(dcsolve, "_hand_linear", None)
+    return after_hand, dcsolve.solve_operating_point(circuit)
+
+
+def test_level1_network_takes_the_stamps_of_the_hand_network(monkeypatch) -> None:
+    # reference: the level-1 network stamped afresh (no hand network compiled before it)
+    circuit = parse_netlist(GREENHOUSE, "greenhouse.cir")
+    devices, merged = _hand_devices(circuit, frozenset())
+    hand_net = HandNetwork(circuit, devices, merged)._net
+    net = dcsolve._build_network(circuit, level1_model)
+    assert net.linear is hand_net.linear and net.source_columns is hand_net.source_columns
+    monkeypatch.setattr(dcsolve, "_hand_linear", None)
+    fresh = dcsolve._build_network(circuit, level1_model)
+    assert net.linear is not fresh.linear and net.linear.tobytes() == fresh.linear.tobytes()
+    for name in ("nodes", "branch_names", "source_names", "gmin", "caveats", "nodeset", "merged", "eliminate"):
+        assert getattr(net, name) == getattr(fresh, name), name
+    assert [(m.name, m.drain, m.gate, m.source, m.bulk, m.device) for m in net.mosfets] == [
+        (m.name, m.drain, m.gate, m.source, m.bulk, m.device) for m in fresh.mosfets
+    ]
+    assert net.caveats  # the temperature and nodeset notes, in the solver's order
+    shared, afresh = _level1_both_ways(circuit, monkeypatch)
+    assert shared == afresh
+
+
+@pytest.mark.parametrize(
+    "change",
+    [
+        "LS s s2 10u\nRS2 s2 0 1meg",  # an inductor: a branch for the solver, merged by the hand
+        "RZ s s2 0\nRS2 s2 0 1meg",  # a 0 Ω resistor: the solver's caveat, merged by the hand
+        "RSELF s s 1k",  # both ends on one node: left out by the hand, stamped by the solver
+    ],
+)
+def test_level1_network_stamps_its_own_where_the_hand_network_differs(change: str, monkeypatch) -> None:
+    # reference: the level-1 answer without a hand network compiled before it
+    circuit = parse_netlist(GREENHOUSE.replace(".model", change + "\n.model"), "greenhouse.cir")
+    devices, merged = _hand_devices(circuit, frozenset())
+    hand_net = HandNetwork(circuit, devices, merged)._net
+    assert not dcsolve._shares_linear_part(circuit, hand_net)
+    assert dcsolve._build_network(circuit, level1_model).linear is not hand_net.linear
+    shared, afresh = _level1_both_ways(circuit, monkeypatch)
+    assert shared == afresh
