@@ -33,7 +33,6 @@ Nothing here reads files: the Circuit is the only input.
 from __future__ import annotations
 
 import math
-import weakref
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property
@@ -393,10 +392,6 @@ def _build_network(
                 element.name, f"{element.name}: element kind {element.kind} is not modelled"
             )
 
-    shared = _hand_linear
-    if hand is None and shared is not None and shared[0]() is circuit:
-        return _level1_from_hand(circuit, shared[1], model_choice, caveats, nodeset, gmin, default_w, default_l)
-
     nodes = circuit_nodes = circuit.nodes()
     index = {GROUND: 0, **{node: k + 1 for k, node in enumerate(nodes)}}
     branch_kinds = _BRANCH_KINDS
@@ -505,64 +500,6 @@ def _build_network(
         # The hand's networks whole, but for large ones (stamped sparse), where Newton on the whole
         # system would copy and factor thousands of rows at every iteration.
         eliminate=hand is None or not isinstance(linear_matrix, np.ndarray),
-    )
-
-
-# The last hand network compiled (``HandNetwork``) whose linear part the level-1 network of the
-# same circuit stamps as it is (``_shares_linear_part``): (a weak reference to the circuit, that
-# network). The check solves the hand model first, so its level-1 column takes the stamps from here.
-_hand_linear: tuple[weakref.ref, _Network] | None = None
-
-
-def _shares_linear_part(circuit: Circuit, hand_net: _Network) -> bool:
-    """Whether `circuit`'s level-1 network stamps what its hand network `hand_net` stamped, and
-    has no structure fault since the hand one had none.
-
-    So it is where the hand network merged nothing, kept every element (no resistor with both
-    ends on one node, which the hand leaves out and the solver stamps) and met no inductor (a
-    branch for the solver), no 0 Ω resistor (a caveat of the solver's) and no diode: then the
-    nodes, branches, stamps and source columns are the same, in the same order. The structure
-    test finds nothing either: without inductors both see the same voltage-source loops, and the
-    solver's MOSFET (drain and source joined through the bulk) joins all that the hand's channel
-    does, so every node the hand reaches ground from, the solver reaches too."""
-    if hand_net.merged or hand_net.diodes or not isinstance(hand_net.linear, np.ndarray):
-        return False
-    for element in circuit.elements:
-        kind = element.kind
-        if kind == "inductor":
-            return False
-        if kind == "resistor" and (element.nodes[0] == element.nodes[1] or _resistance(element) == 0.0):
-            return False
-    return True
-
-
-def _level1_from_hand(
-    circuit: Circuit, hand_net: _Network, model_choice: ModelChoice, caveats: list[str], nodeset: dict[str, float],
-    gmin: float, default_w: float, default_l: float,
-) -> _Network:
-    """``_build_network``'s level-1 network of a circuit whose hand network `hand_net` stamped the
-    same linear part (``_shares_linear_part``): its stamps and source columns taken as they are
-    (the arrays are read, never written), the MOSFETs placed with the level-1 model, their caveats
-    in element order after `caveats` (the circuit's), as ``_build_network`` makes them."""
-    index = {GROUND: 0, **{node: k + 1 for k, node in enumerate(hand_net.nodes)}}
-    models: dict[tuple[str, float], Level1Model] = {}
-    mosfets = [
-        _mosfet(element, [index[node] for node in element.nodes], circuit, models, model_choice, caveats,
-                default_w, default_l)
-        for element in circuit.elements if element.kind == "mosfet"
-    ]  # fmt: skip
-    return _Network(
-        nodes=hand_net.nodes,
-        branch_names=hand_net.branch_names,
-        linear=hand_net.linear,
-        source_columns=hand_net.source_columns,
-        source_names=hand_net.source_names,
-        source_defaults=hand_net.source_defaults,
-        mosfets=tuple(mosfets),
-        diodes=(),
-        gmin=gmin,
-        caveats=tuple(dict.fromkeys(caveats)),
-        nodeset={node: value for node, value in nodeset.items() if node in index},
     )
 
 
@@ -1053,9 +990,6 @@ class HandNetwork:
 
     def __init__(self, circuit: Circuit, devices: Mapping[str, Mos1Instance], merged: Mapping[str, str]) -> None:
         self._net = _build_network(circuit, level1_model, (devices, merged))
-        if _shares_linear_part(circuit, self._net):
-            global _hand_linear
-            _hand_linear = (weakref.ref(circuit), self._net)
 
     @property
     def nodes(self) -> tuple[str, ...]:
