@@ -393,3 +393,19 @@ def test_a_cards_lambda_and_gamma_are_remembered_as_the_level1_model_reads_them(
     for _ in range(2):  # a card that cannot be read raises each time, never a remembered answer
         with pytest.raises(ValueError, match="PHI must be positive"):
             _card_effects(bad.type, tuple(bad.params.items()))
+
+
+def test_the_solvers_array_records_compare_by_identity() -> None:
+    # The compiled MNA network holds numpy arrays: element-wise equality has no truth value, so it
+    # is compared (and hashed) as the one object it is; a deep copy is another network.
+    import copy
+
+    from bridge.analysis import dcsolve
+    from bridge.analysis.reduction import reduce_network
+    from bridge.netlist import read_netlist
+
+    net = dcsolve._build_network(read_netlist(EXAMPLES / "cs_divider.cir"), dcsolve.level1_model)
+    twin = copy.deepcopy(net)
+    assert net == net and net != twin and hash(net) != hash(twin)
+    reduction = reduce_network(net, 1e-12)
+    assert reduction == reduction and reduction != copy.deepcopy(reduction)

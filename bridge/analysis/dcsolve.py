@@ -238,7 +238,7 @@ if TYPE_CHECKING:  # the diode's modules are imported with the first diode (`_di
     _Diode = PlacedDiode
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class _Network:
     """The circuit as MNA arrays: ground is row/column 0 (stamped, then sliced away)."""
 
@@ -337,7 +337,7 @@ def _whole_system(net: _Network) -> _Reduction:
     )
 
 
-@dataclass
+@dataclass(eq=False)
 class _State:
     """Where Newton stands: the solution vector and each device's state (its last limited
     voltages: vgs, vds, vbs, vbd and von of a MOSFET in device polarity, vd of a diode), in the

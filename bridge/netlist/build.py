@@ -82,7 +82,7 @@ _DEVICE_KINDS = frozenset({"mosfet", "diode", "bjt"})
 _IDENTIFIER = re.compile(r"^[a-z_][a-z0-9_]*$", re.IGNORECASE)
 
 
-@dataclass
+@dataclass(eq=False)
 class _Definition:
     """A `.subckt` definition: ports, default parameters and its raw body."""
 
@@ -93,7 +93,7 @@ class _Definition:
     card: LogicalCard
 
 
-@dataclass
+@dataclass(eq=False)
 class _Scope:
     """What names mean inside one (sub)circuit instance."""
 
