@@ -50,7 +50,7 @@ class Supply:
     power: Columns
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class _Solved:
     """One column's solution as the rules read it."""
 

@@ -65,6 +65,65 @@ def test_a_check_without_a_helper_or_expectations_does_not_load_their_modules() 
     assert len(stdout.splitlines()) == 2
 
 
+# What `check --json` of a MOSFET stage leaves unloaded or uncompiled: the diode model, the table
+# layout, the package-data reader (for the grammar alone), the lint-only patterns.
+_CHECK_AND_LIST_LAZY = (
+    "import sys; from bridge.cli import main; status = main(sys.argv[1:]); "
+    "from bridge.netlist import build, source; "
+    "lazy = ('bridge.devices.diode', 'bridge.report.table_layout', 'importlib.resources', 'lark'); "
+    "sys.stderr.write('LOADED ' + repr(sorted(m for m in lazy if m in sys.modules)) + ' ' "
+    "+ repr((build._written_field.cache_info().misses, source._allow_patterns.cache_info().misses)) + '\\n'); "
+    "sys.exit(status)"
+)
+
+
+def test_check_json_of_a_mosfet_stage_loads_no_diode_table_or_grammar_reader() -> None:
+    files = [str(EXAMPLES / name) for name in ("cs_divider.cir", "pmos_cs.cir")]
+    completed = subprocess.run([sys.executable, "-c", _CHECK_AND_LIST_LAZY, "check", "--json", *files],
+                               capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL)
+    assert completed.returncode in (0, 1), completed.stderr
+    line = next(line for line in completed.stderr.splitlines() if line.startswith("LOADED "))
+    assert line == "LOADED [] (0, 0)"
+    results = [json.loads(text) for text in completed.stdout.splitlines()]
+    assert [sorted(result["devices"]) for result in results] == [["M1"], ["M1"]]
+
+
+# A sourdough proofing box's status LED: the NMOS sinks the LED's current through a resistor.
+_PROOFING_LED = """sourdough proofing box status LED
+VDD vdd 0 5
+VG g 0 3.3
+RL vdd anode 330
+D1 anode d led
+M1 d g 0 0 sw W=50u L=2u
+.model led d (is=1e-18 n=2)
+.model sw nmos (vto=0.8 kp=100u)
+.op
+.end
+"""
+
+_SOLVE_A_DIODE = (
+    "import sys; from bridge.netlist import read_netlist; from bridge.analysis.dcsolve import solve_operating_point; "
+    "circuit = read_netlist(sys.argv[1]); before = 'bridge.devices.diode' in sys.modules; "
+    "op = solve_operating_point(circuit); v = op.node_voltages; "
+    "print(before, 'bridge.devices.diode' in sys.modules, repr(op.diode_currents['D1']), "
+    "repr((v['vdd'] - v['anode']) / 330), repr(v['anode'] - v['d']))"
+)
+
+
+def test_a_diode_brings_its_model_with_it(tmp_path: Path) -> None:
+    netlist = tmp_path / "proofing_led.cir"
+    netlist.write_text(_PROOFING_LED, encoding="utf-8")
+    completed = subprocess.run([sys.executable, "-c", _SOLVE_A_DIODE, str(netlist)],
+                               capture_output=True, text=True, timeout=60, check=True)
+    before, after, diode_current, resistor_current, forward = completed.stdout.split()
+    assert (before, after) == ("False", "True")
+    # The LED's current is the resistor's (KCL at the anode), and it conducts: a forward drop of
+    # a volt or more at IS=1e-18, N=2 (Shockley, Vt = 25.85 mV at 27 °C from memory:
+    # n·Vt·ln(I/IS) ≈ 1.9 V at ~6 mA).
+    assert float(diode_current) == pytest.approx(float(resistor_current), rel=1e-6)
+    assert 1e-3 < float(diode_current) < 1e-2 and 1.0 < float(forward) < 2.5
+
+
 def test_check_text_still_draws_with_rich() -> None:
     # The table needs rich's console: the path above is not rich-free by accident.
     loaded, stdout = _rich_modules_loaded("check", str(EXAMPLES / "cs_divider.cir"))
@@ -334,3 +393,19 @@ def test_a_cards_lambda_and_gamma_are_remembered_as_the_level1_model_reads_them(
     for _ in range(2):  # a card that cannot be read raises each time, never a remembered answer
         with pytest.raises(ValueError, match="PHI must be positive"):
             _card_effects(bad.type, tuple(bad.params.items()))
+
+
+def test_the_solvers_array_records_compare_by_identity() -> None:
+    # The compiled MNA network holds numpy arrays: element-wise equality has no truth value, so it
+    # is compared (and hashed) as the one object it is; a deep copy is another network.
+    import copy
+
+    from bridge.analysis import dcsolve
+    from bridge.analysis.reduction import reduce_network
+    from bridge.netlist import read_netlist
+
+    net = dcsolve._build_network(read_netlist(EXAMPLES / "cs_divider.cir"), dcsolve.level1_model)
+    twin = copy.deepcopy(net)
+    assert net == net and net != twin and hash(net) != hash(twin)
+    reduction = reduce_network(net, 1e-12)
+    assert reduction == reduction and reduction != copy.deepcopy(reduction)

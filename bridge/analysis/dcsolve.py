@@ -36,7 +36,7 @@ import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property
-from typing import NamedTuple
+from typing import TYPE_CHECKING, NamedTuple
 
 import numpy as np
 
@@ -44,7 +44,6 @@ from bridge.analysis.connectivity import structure_fault
 from bridge.analysis.linear import copy_rows, solve_dense, stamp_rows, stamped
 from bridge.analysis.reduction import Reduction as _Reduction
 from bridge.analysis.reduction import reduce_network as _reduce
-from bridge.devices.diode import PlacedDiode, diode_at_temperature
 from bridge.devices.interface import DcDevice
 from bridge.devices.mos1.convergence import vcrit as _vcrit
 from bridge.devices.mos1.instance import (
@@ -61,6 +60,9 @@ from bridge.devices.mos1.model import Level1Model, card_model_of
 from bridge.devices.mos1.params import CIRCUIT_TEMPERATURE_C, K_OVER_Q
 from bridge.devices.mos1.placed import PlacedMosfet
 from bridge.netlist.circuit import GROUND, Circuit, Element, ModelCard
+
+if TYPE_CHECKING:
+    from bridge.devices.diode import PlacedDiode
 
 __all__ = [
     "BulkJunctions",
@@ -232,10 +234,11 @@ def level1_model(card: ModelCard) -> Level1Model:
 
 # The nonlinear devices as the network places them (``bridge.devices.interface.DcDevice``).
 _Mosfet = PlacedMosfet
-_Diode = PlacedDiode
+if TYPE_CHECKING:  # the diode's modules are imported with the first diode (`_diode`)
+    _Diode = PlacedDiode
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class _Network:
     """The circuit as MNA arrays: ground is row/column 0 (stamped, then sliced away)."""
 
@@ -334,7 +337,7 @@ def _whole_system(net: _Network) -> _Reduction:
     )
 
 
-@dataclass
+@dataclass(eq=False)
 class _State:
     """Where Newton stands: the solution vector and each device's state (its last limited
     voltages: vgs, vds, vbs, vbd and von of a MOSFET in device polarity, vd of a diode), in the
@@ -515,6 +518,8 @@ def _resistance(element: Element) -> float:
 
 
 def _diode(element: Element, at: list[int], circuit: Circuit, caveats: list[str]) -> PlacedDiode:
+    from bridge.devices.diode import PlacedDiode, diode_at_temperature
+
     card = circuit.model(element.model or "")
     if card is None or card.type.lower() != "d":
         raise InvalidElement(element.name, f"{element.name}: no diode model `{element.model}`")

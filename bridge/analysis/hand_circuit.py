@@ -37,7 +37,7 @@ class HandAnalysisError(ValueError):
 # --- the DC circuit ---------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class _Resistor:
     name: str
     a: str
@@ -49,7 +49,7 @@ class _Resistor:
         return self.b if self.a == node else self.a
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class _CurrentSource:
     """An independent current source: its current leaves node `leaves` and enters `enters`."""
 
@@ -59,7 +59,7 @@ class _CurrentSource:
     current: float
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class _Transistor:
     element: Element
     model: Level1Model  # the hand model: LAMBDA and GAMMA zeroed unless switched on
@@ -93,7 +93,7 @@ class _Transistor:
         return transistor
 
 
-@dataclass
+@dataclass(eq=False)
 class _DcCircuit:
     """The circuit at DC: shorts merged, voltage-source nodes fixed, the rest as lists."""
 
@@ -283,7 +283,7 @@ def _hold_nodes(
 # --- the linear network seen by one transistor ----------------------------------------------
 
 
-@dataclass
+@dataclass(eq=False)
 class _Network:
     """Node equations of the resistive part on the free (unfixed) nodes: G·v = J + ID·e.
 
@@ -392,7 +392,7 @@ def _resistors_at(dc: _DcCircuit, node: str) -> list[_Resistor]:
     return dc.incidence.get(node, [])
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class _Terminal:
     """What one device terminal sees, for the working (the solution comes from the network).
 
@@ -414,7 +414,7 @@ class _Terminal:
     detail: tuple[_Resistor, ...] = ()  # the resistors a named formula uses
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class _Stage:
     """A single-transistor stage the closed forms cover."""
 

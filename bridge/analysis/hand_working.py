@@ -86,7 +86,7 @@ def _temperature_step(transistor: _Transistor) -> Step:
 # --- the working ------------------------------------------------------------------------------
 
 
-@dataclass
+@dataclass(eq=False)
 class _Names:
     """How the working writes device-polarity quantities: VGS/VDS for NMOS, VSG/VSD for PMOS."""
 

@@ -131,7 +131,7 @@ class MnaNetwork(Protocol):
     def devices(self) -> tuple: ...
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Reduction:
     """The MNA system with its linear-only unknowns eliminated (a Schur complement).
 

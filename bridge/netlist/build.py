@@ -7,6 +7,7 @@ in SI, flattens subcircuits and checks what the simulator would reject anyway
 
 from __future__ import annotations
 
+import functools
 import re
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
@@ -81,7 +82,7 @@ _DEVICE_KINDS = frozenset({"mosfet", "diode", "bjt"})
 _IDENTIFIER = re.compile(r"^[a-z_][a-z0-9_]*$", re.IGNORECASE)
 
 
-@dataclass
+@dataclass(eq=False)
 class _Definition:
     """A `.subckt` definition: ports, default parameters and its raw body."""
 
@@ -92,7 +93,7 @@ class _Definition:
     card: LogicalCard
 
 
-@dataclass
+@dataclass(eq=False)
 class _Scope:
     """What names mean inside one (sub)circuit instance."""
 
@@ -551,11 +552,18 @@ class _Builder:
 
 
 # A plain SPICE number as written (`1M`, `2.2k`, `10uF`, `1e-6`): the field a scale rule judges.
-_NUMBER_FIELD = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?[A-Za-z\u00b5]*")
+_NUMBER_FIELD = r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?[A-Za-z\u00b5]*"
 # Any other field: up to the next separator.
-_OTHER_FIELD = re.compile(r"[^\s=(),]+")
-# A field as written: a number when one starts there, else any other field (one match, not two).
-_WRITTEN_FIELD = re.compile(_NUMBER_FIELD.pattern + "|" + _OTHER_FIELD.pattern)
+_OTHER_FIELD = r"[^\s=(),]+"
+
+
+@functools.cache
+def _written_field() -> re.Pattern[str]:
+    """A field as written: a number when one starts there, else any other field (one match, not
+    two). Compiled at its first use: only the lint rules read the fields as written."""
+    return re.compile(_NUMBER_FIELD + "|" + _OTHER_FIELD)
+
+
 _NODE_KEYS = tuple(f"node{index}" for index in range(1, 9))
 
 
@@ -641,7 +649,7 @@ def _fields_at(
             field_text = text[opening:end]
             offset = opening
         else:
-            match = _WRITTEN_FIELD.match(text, offset)
+            match = _written_field().match(text, offset)
             field_text = match.group(0) if match else ""
         # The last segment starting at or before the field (LogicalCard.locate).
         start, line, column = segments[0]

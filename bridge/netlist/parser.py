@@ -12,7 +12,6 @@ import functools
 import os
 import re
 from dataclasses import dataclass
-from importlib import resources
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -179,6 +178,8 @@ RawCard = (
 
 def grammar_text() -> str:
     """The grammar file, from the installed package data or the source tree."""
+    from importlib import resources  # with the grammar alone: a netlist of plain cards needs neither
+
     try:
         return resources.files("bridge._grammar").joinpath("spice.lark").read_text(encoding="utf-8")
     except (ModuleNotFoundError, FileNotFoundError):

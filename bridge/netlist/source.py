@@ -12,6 +12,7 @@ line and column it came from, so errors point at the user's own text. A
 
 from __future__ import annotations
 
+import functools
 import os
 import re
 from dataclasses import dataclass, field
@@ -37,9 +38,10 @@ _END = re.compile(r"\.end(?=\s|$)", re.IGNORECASE)
 _INLINE_COMMENT = re.compile(r";|(?<=\s)\$(?=\s|$)|(?<=\s)//")
 # `; lint: allow CODE[, CODE ...]` in an inline comment: the codes are a comma-separated list of
 # kebab-case words; the list ends at the first word not after a comma (free text may follow).
-_ALLOW_MARKER = re.compile(r"lint:\s*allow\s+", re.IGNORECASE)
-_ALLOW_CODE = re.compile(r"[A-Za-z0-9]+(?:-[A-Za-z0-9]+)*")
-_ALLOW_COMMA = re.compile(r"\s*,\s*")
+# Compiled with the first marker (`_allow_patterns`): the marker, a code, the comma between codes.
+_ALLOW_MARKER = r"lint:\s*allow\s+"
+_ALLOW_CODE = r"[A-Za-z0-9]+(?:-[A-Za-z0-9]+)*"
+_ALLOW_COMMA = r"\s*,\s*"
 # Control characters other than the blanks \t \n \v \f \r: a sign of binary data.
 _CONTROL_CHARACTERS = re.compile(r"[\x00-\x08\x0e-\x1f]")
 
@@ -148,6 +150,11 @@ def _strip_inline_comment(text: str) -> str:
     return text[: match.start()] if match else text
 
 
+@functools.cache
+def _allow_patterns() -> tuple[re.Pattern[str], re.Pattern[str], re.Pattern[str]]:
+    return re.compile(_ALLOW_MARKER, re.IGNORECASE), re.compile(_ALLOW_CODE), re.compile(_ALLOW_COMMA)
+
+
 def allow_markers(raw: str) -> list[tuple[str, int]]:
     """The codes of a `lint: allow` marker in the inline comment of physical line `raw`, each with
     its 1-based column; none when the line has no such comment."""
@@ -156,14 +163,15 @@ def allow_markers(raw: str) -> list[tuple[str, int]]:
     comment = _INLINE_COMMENT.search(raw)
     if comment is None:
         return []
-    marker = _ALLOW_MARKER.search(raw, comment.end())
+    allow_marker, allow_code, allow_comma = _allow_patterns()
+    marker = allow_marker.search(raw, comment.end())
     if marker is None:
         return []
     found: list[tuple[str, int]] = []
     position = marker.end()
-    while (code := _ALLOW_CODE.match(raw, position)) is not None:
+    while (code := allow_code.match(raw, position)) is not None:
         found.append((code.group().lower(), code.start() + 1))
-        comma = _ALLOW_COMMA.match(raw, code.end())
+        comma = allow_comma.match(raw, code.end())
         if comma is None or comma.end() == code.end():
             break
         position = comma.end()

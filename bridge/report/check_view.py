@@ -15,10 +15,12 @@ from typing import TYPE_CHECKING, Any
 from ..compare import HAND_FLOOR, NOT_AMPLIFYING, REGION_CHANGE, CauseGroup, CheckResult, Columns, cause_groups
 from ..netlist.numbers import engineering
 from ..vocabulary import COLUMN_NAMES, COLUMN_TITLES, COLUMNS, EFFECT_NAMES, SAT_MARGIN, UNITS, Finding
-from .table_layout import Cell, Header, Line, Part, Table, View, print_view
 
 if TYPE_CHECKING:
     from rich.console import Console
+
+    # At run time table_layout is imported where a view is drawn: `check --json` needs none of it.
+    from .table_layout import Cell, Line, Part, Table, View
 
 SEVERITY_STYLE = {"error": "bold red", "warning": "yellow", "info": "dim"}
 QUANTITY_LABELS = {SAT_MARGIN: "vds − vov"}  # the saturation margin: negative is triode
@@ -29,6 +31,8 @@ PLAIN_INFO = {"cause"}
 def print_check(console: Console, view: View) -> None:
     """The check view and an empty line, as ``console.print(view)`` and ``console.print()`` print
     them (see ``table_layout.print_view``)."""
+    from .table_layout import print_view
+
     print_view(console, view)
 
 
@@ -100,6 +104,8 @@ def _region_of(result: CheckResult, name: str | None) -> str:
 
 
 def check_renderable(result: CheckResult, steps: bool = False, *, allow_region: bool = False) -> View:
+    from .table_layout import Header, Line, Table, View
+
     shown = COLUMNS + (("expect",) if result.has_expect else ())
     simulator = f"{result.simulator[0]} {result.simulator[1]}" if result.simulator else "no simulator"
     # Solved numerically only when there is a hand column at all (not when the hand model failed).
@@ -140,6 +146,8 @@ def check_renderable(result: CheckResult, steps: bool = False, *, allow_region: 
 
 
 def _finding_line(finding: Finding, allow_region: bool, indent: str = "") -> Line:
+    from .table_layout import Line
+
     where = f"line {finding.line}: " if finding.line else ""
     severity = "info" if finding.code == NOT_AMPLIFYING and allow_region else finding.severity
     style = "" if finding.code in PLAIN_INFO else SEVERITY_STYLE.get(severity, "")
@@ -150,6 +158,8 @@ def finding_lines(result: CheckResult, allow_region: bool = False) -> list[Line]
     """The findings in their order, but each cause group (``compare.cause_groups``) together, where
     its first finding would be: a heading naming the cause, the lines that state it, then the
     differences it explains, indented under it."""
+    from .table_layout import Line
+
     groups = cause_groups(result)
     first = {min((*group.stated_by, *group.findings)): group for group in groups}
     grouped = {index for group in groups for index in (*group.stated_by, *group.findings)}
@@ -254,6 +264,8 @@ def _equivalent_lines(result: CheckResult) -> list[Line]:
     """One line per device whose hand and level-1 columns rest on a fitted level-1 equivalent."""
     if result.fitted is None:
         return []
+    from .table_layout import Line
+
     return [
         Line(f"{e.device}: hand and level-1 columns on {e.card}, a level-1 equivalent of {e.model} (level {e.level}) "
              f"fitted around ngspice's operating point: VTO = {engineering(e.vto, 'V')}, KP = "

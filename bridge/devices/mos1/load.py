@@ -294,7 +294,7 @@ def junction_current(voltage: float, saturation_current: float, gmin: float, the
     )
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class ArrayPoint:
     """``Level1Point`` over many bias points: each field an array (``region`` as codes of
     ``ask.REGIONS``); ``conductances`` are the four terminal derivatives, in order."""
