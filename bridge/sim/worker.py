@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import functools
 import gc
 import json
 import os
@@ -44,6 +45,11 @@ def vector_key(name: str) -> str:
     if match := _CURRENT_FORM.match(key):
         return f"{match.group(1)}#branch"
     return key
+
+
+# The keys of the names a plot holds, worked out once per name: deck after deck ngspice names the
+# same vectors (`@m1[id]`, `vdd#branch`, the nodes), 14 of them for a bench stage's `.op`.
+_plot_vector_key = functools.lru_cache(maxsize=1 << 12)(vector_key)
 
 
 # --- which of ngspice's messages matter --------------------------------------------------------
@@ -294,7 +300,7 @@ class Simulator:
             if info.v_compdata != ffi.NULL:
                 return None  # an .ac plot: PySpice's reading turns it into complex arrays
             length = info.v_length
-            vectors[vector_key(name)] = ffi.unpack(info.v_realdata, length) if length > 0 else []
+            vectors[_plot_vector_key(name)] = ffi.unpack(info.v_realdata, length) if length > 0 else []
         return vectors
 
     def _read_plot_through_pyspice(self, plot_name: str) -> dict[str, Any]:

@@ -1,0 +1,82 @@
+"""How the client turns the worker's answer into a SimResult: an operating point's one-value
+vectors (``client._single_point_arrays``) and every other plot (one array per vector) give the
+same values, shapes, types and read-only arrays."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from bridge.netlist.emit import SpiceDeck
+from bridge.sim.client import _sim_result, _single_point_arrays
+
+# A greenhouse sensor board's soil-moisture buffer: an NMOS source follower off a 3.3 V rail.
+MOISTURE_BUFFER = """greenhouse soil-moisture buffer
+.model NSENSE nmos (level=1 vto=0.6 kp=0.0002 lambda=0.03 gamma=0.35 phi=0.7)
+VRAIL rail 0 dc 3.3
+RTOP rail probe 47000
+RBOT probe 0 68000
+MBUF rail probe out 0 NSENSE w=1e-05 l=1e-06
+RS out 0 22000
+.save all @mbuf[id] @mbuf[gm] @mbuf[vgs] @mbuf[vds] @mbuf[von]
+.op
+.end
+"""
+
+
+def _one_array_each(vectors: dict) -> dict[str, np.ndarray]:
+    """The arrays as the client made them before: one np.asarray per vector."""
+    return {name: np.asarray(values, dtype=float) for name, values in vectors.items()}
+
+
+def _reply(vectors: dict) -> dict:
+    return {"id": 1, "ok": True, "plot": "op1", "vectors": vectors, "messages": [], "error": None,
+            "kind": None, "retire": False}
+
+
+def test_an_operating_points_vectors_are_read_only_single_values() -> None:
+    vectors = {"out": [1.2345678901234567], "rail": [3.3], "vrail#branch": [-2.5e-05], "@mbuf[id]": [0.0]}
+    result = _sim_result(_reply(vectors))
+    assert list(result.vectors) == list(vectors)
+    for name, expected in _one_array_each(vectors).items():
+        array = result.vectors[name]
+        assert array.shape == (1,) and array.dtype == np.float64
+        assert array.tolist() == expected.tolist()
+        assert not array.flags.writeable
+        with pytest.raises(ValueError):
+            array[0] = 1.0
+    assert result.scalar("v(out)") == 1.2345678901234567
+    assert result.scalar_if_any("i(vrail)") == -2.5e-05
+
+
+@pytest.mark.parametrize("vectors", [
+    {},
+    {"sweep": [0.0, 0.5, 1.0], "out": [3.3, 2.1, 0.4]},  # a .dc plot
+    {"out": [1.0], "probe": []},  # a vector with no point
+    {"out": [1]},  # not a float: left to the general reading
+    {"out": {"re": [1.0], "im": [-0.5]}},  # an .ac plot's complex vector, one frequency
+    {"frequency": {"re": [10.0, 100.0], "im": [0.0, 0.0]}, "out": {"re": [1.0, 0.5], "im": [0.0, -0.5]}},
+])
+def test_other_plots_keep_one_array_per_vector(vectors: dict) -> None:
+    assert _single_point_arrays(vectors, np) is None
+    result = _sim_result(_reply(vectors))
+    for name, values in vectors.items():
+        array = result.vectors[name]
+        if isinstance(values, dict):
+            assert array.tolist() == [complex(re, im) for re, im in zip(values["re"], values["im"], strict=True)]
+        else:
+            assert array.tolist() == values and array.dtype == np.float64
+        assert not array.flags.writeable
+
+
+def test_ngspice_operating_point_reads_as_one_array_per_vector(required_ngspice_session) -> None:
+    result = required_ngspice_session.run(SpiceDeck(MOISTURE_BUFFER, "greenhouse soil-moisture buffer"))
+    assert {"out", "probe", "rail", "vrail#branch", "@mbuf[id]", "@mbuf[von]"} <= set(result.vectors)
+    for array in result.vectors.values():
+        assert array.shape == (1,) and array.dtype == np.float64 and not array.flags.writeable
+    # The divider sets the gate: 3.3 V × 68k / (47k + 68k), no gate current (checked against ngspice -b).
+    assert result.scalar("probe") == pytest.approx(3.3 * 68 / 115, rel=1e-9)
+    # The follower's source sits a threshold and an overdrive below its gate, its current through RS.
+    out, drain_current = result.scalar("out"), result.scalar("@mbuf[id]")
+    assert 0.0 < out < result.scalar("probe") - 0.6
+    assert drain_current == pytest.approx(out / 22000, rel=1e-6)
