@@ -80,3 +80,26 @@ def test_ngspice_operating_point_reads_as_one_array_per_vector(required_ngspice_
     out, drain_current = result.scalar("out"), result.scalar("@mbuf[id]")
     assert 0.0 < out < result.scalar("probe") - 0.6
     assert drain_current == pytest.approx(out / 22000, rel=1e-6)
+
+
+BROKEN_BUFFER = MOISTURE_BUFFER.replace("RS out 0 22000", "RS out 0 22000 trim(")
+
+
+def test_each_deck_finds_ngspice_cleared_after_the_one_before(required_ngspice_session) -> None:
+    """The worker clears ngspice after each deck (`remcirc`, `destroy all`) and sends no `destroy all`
+    before the next: each `.op` plot is then still ngspice's first, `op1` (with an earlier plot kept,
+    ngspice names the next `op2`: `ngspice -b` with two `op` in a `.control` block), a deck ngspice
+    refused among them."""
+    from bridge.sim.client import SimulationFailed
+
+    session = required_ngspice_session
+    deck = SpiceDeck(MOISTURE_BUFFER, "greenhouse soil-moisture buffer")
+    first = session.run(deck)
+    with pytest.raises(SimulationFailed):
+        session.run(SpiceDeck(BROKEN_BUFFER, "greenhouse soil-moisture buffer"))
+    lower_rail = SpiceDeck(MOISTURE_BUFFER.replace("dc 3.3", "dc 2.5"), "greenhouse soil-moisture buffer")
+    again, lower = session.run(deck), session.run(lower_rail)
+    assert first.plot == again.plot == lower.plot == "op1"
+    assert again.scalar("out") == first.scalar("out")
+    assert lower.scalar("probe") == pytest.approx(2.5 * 68 / 115, rel=1e-9)
+    assert lower.scalar("out") < first.scalar("out")

@@ -171,6 +171,9 @@ class Simulator:
         exits: list[int] = []
         self._raw = raw_lines
         self._exits = exits
+        # Whether ngspice holds no circuit and no plot but its `const`: so after start-up and after
+        # each deck's `remcirc` and `destroy all`; a deck that finds it so needs no `destroy all`.
+        self._cleared = True
         # PySpice formats the path with str.format(); keep braces in a path literal.
         _Library.LIBRARY_PATH = library_path.replace("{", "{{").replace("}", "}}")
         self._ngspice = _Library(ngspice_id=0, send_data=False)
@@ -209,7 +212,9 @@ class Simulator:
             return _failure(request_id, "vectors must be a list of names", [], SIMULATOR_ERROR)
 
         self._raw.clear()
-        self._quietly("destroy all")
+        if not self._cleared:  # the previous deck stopped before its own clearing
+            self._quietly("destroy all")
+        self._cleared = False
         # PySpice calls a load failed when the word "error" appears anywhere (a title will do)
         # and a run failed on any stderr line: judge by the plot and the messages instead.
         with contextlib.suppress(*self._errors):
@@ -222,6 +227,7 @@ class Simulator:
         if not self.retired:
             self._quietly("remcirc")
             self._quietly("destroy all")
+            self._cleared = True
         self._raw.clear()
 
         aborted = any(_ABORTED.search(message) for message in messages)
