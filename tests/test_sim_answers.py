@@ -134,3 +134,24 @@ def test_an_answer_larger_than_a_pipe_is_read_whole(required_ngspice_session) ->
     assert rail[0] == 0.0 and rail[-1] == pytest.approx(3.3, abs=2e-4)
     assert probe == pytest.approx(rail * 68 / 115, rel=1e-9, abs=1e-15)  # the divider, at every step
     assert abs(out[0]) < 1e-12 and (out[1:] >= out[:-1] - 1e-12).all()  # the follower rises with its rail
+
+
+def test_the_system_search_for_libngspice_runs_once_a_process(monkeypatch) -> None:
+    """`check` asks where libngspice is twice (``ngspice_available``, then the session); on Linux
+    ``ctypes.util.find_library`` runs ``ldconfig -p`` each time it is asked."""
+    import ctypes.util
+
+    from bridge.sim import locate
+
+    asked: list[str] = []
+    real = ctypes.util.find_library
+
+    def counting(name: str) -> str | None:
+        asked.append(name)
+        return real(name)
+
+    monkeypatch.setattr(ctypes.util, "find_library", counting)
+    monkeypatch.delenv(locate.ENV_VARIABLE, raising=False)
+    first, second = locate.locate_ngspice(), locate.locate_ngspice()
+    assert first == second
+    assert len(asked) <= 1
