@@ -55,7 +55,10 @@ __all__ = [
 ]
 
 _PACKAGE_ROOT = Path(__file__).resolve().parents[2]  # the directory holding ``bridge/``
-_READ_CHUNK = 1 << 20
+# What one read of the worker's answers asks for: a pipe's capacity, 65536 bytes on Linux (pipe(7)),
+# more than a read of a pipe can return. os.read makes a buffer of the size asked for: with 1 MiB
+# a read of a bench stage's 0.5 KB answer took ~20 µs, with 64 KiB 1.5 µs (and no fewer reads).
+_READ_CHUNK = 1 << 16
 _CAPTURE_TAIL = 2000  # bytes of the worker's captured output quoted when it dies
 
 
@@ -479,15 +482,33 @@ def _sim_result(reply: Mapping[str, Any]) -> SimResult:
     if not reply.get("ok"):
         raise SimulationFailed(str(reply.get("kind") or "simulator_error"),
                                str(reply.get("error") or "ngspice failed"), messages)
-    arrays = {}
-    for name, values in (reply.get("vectors") or {}).items():
-        if isinstance(values, dict):  # an .ac plot's complex vector, in its two parts
-            array = np.asarray(values["re"], dtype=float) + 1j * np.asarray(values["im"], dtype=float)
-        else:
-            array = np.asarray(values, dtype=float)
-        array.setflags(write=False)
-        arrays[name] = array
+    vectors = reply.get("vectors") or {}
+    arrays = _single_point_arrays(vectors, np)
+    if arrays is None:
+        arrays = {}
+        for name, values in vectors.items():
+            if isinstance(values, dict):  # an .ac plot's complex vector, in its two parts
+                array = np.asarray(values["re"], dtype=float) + 1j * np.asarray(values["im"], dtype=float)
+            else:
+                array = np.asarray(values, dtype=float)
+            array.setflags(write=False)
+            arrays[name] = array
     return SimResult(plot=str(reply.get("plot")), vectors=MappingProxyType(arrays), messages=messages)
+
+
+def _single_point_arrays(vectors: Mapping[str, Any], np: Any) -> dict[str, Any] | None:
+    """An operating point's vectors, each one real value (every vector of an `.op` plot): as
+    read-only one-value views of one array, the same values and shapes as one array each (half
+    the time: 6.2 against 10.2 µs for a bench stage's 13 vectors). None for any other plot."""
+    try:
+        (single,) = zip(*vectors.values(), strict=True)  # one value each, or ValueError
+    except (TypeError, ValueError):
+        return None
+    if not all(type(value) is float for value in single):
+        return None
+    flat = np.array(single, dtype=float)
+    flat.setflags(write=False)
+    return {name: flat[index:index + 1] for index, name in enumerate(vectors)}
 
 
 class NgspiceSession:

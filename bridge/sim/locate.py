@@ -10,6 +10,7 @@ PySpice on its own asks for ``libngspice.so``, which only the ``-dev`` package p
 from __future__ import annotations
 
 import ctypes.util
+import functools
 import os
 import sysconfig
 from collections.abc import Mapping
@@ -59,6 +60,14 @@ def _resolve_soname(name: str, dirs: list[Path]) -> str:
     return name  # the dynamic loader can still open a bare soname through its cache
 
 
+@functools.lru_cache(maxsize=1)
+def _system_soname() -> str | None:
+    """``ctypes.util.find_library("ngspice")``, asked once a process: on Linux it runs
+    ``ldconfig -p`` in a child process (and, where that finds nothing, gcc and ld), ~4 ms CPU and
+    6 ms wall here, and `check` asks twice (``ngspice_available``, then the session)."""
+    return ctypes.util.find_library("ngspice")
+
+
 def locate_ngspice(
     explicit: str | None = None,
     *,
@@ -90,7 +99,7 @@ def locate_ngspice(
 
     if search:
         dirs = _library_dirs()
-        soname = ctypes.util.find_library("ngspice")
+        soname = _system_soname()
         if soname:
             path = _resolve_soname(soname, dirs)
             return LibraryLocation(path, f"ngspice library: {path}")

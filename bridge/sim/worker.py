@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import functools
 import gc
 import json
 import os
@@ -44,6 +45,11 @@ def vector_key(name: str) -> str:
     if match := _CURRENT_FORM.match(key):
         return f"{match.group(1)}#branch"
     return key
+
+
+# The keys of the names a plot holds, worked out once per name: deck after deck ngspice names the
+# same vectors (`@m1[id]`, `vdd#branch`, the nodes), 14 of them for a bench stage's `.op`.
+_plot_vector_key = functools.lru_cache(maxsize=1 << 12)(vector_key)
 
 
 # --- which of ngspice's messages matter --------------------------------------------------------
@@ -165,6 +171,9 @@ class Simulator:
         exits: list[int] = []
         self._raw = raw_lines
         self._exits = exits
+        # Whether ngspice holds no circuit and no plot but its `const`: so after start-up and after
+        # each deck's `remcirc` and `destroy all`; a deck that finds it so needs no `destroy all`.
+        self._cleared = True
         # PySpice formats the path with str.format(); keep braces in a path literal.
         _Library.LIBRARY_PATH = library_path.replace("{", "{{").replace("}", "}}")
         self._ngspice = _Library(ngspice_id=0, send_data=False)
@@ -203,7 +212,9 @@ class Simulator:
             return _failure(request_id, "vectors must be a list of names", [], SIMULATOR_ERROR)
 
         self._raw.clear()
-        self._quietly("destroy all")
+        if not self._cleared:  # the previous deck stopped before its own clearing
+            self._quietly("destroy all")
+        self._cleared = False
         # PySpice calls a load failed when the word "error" appears anywhere (a title will do)
         # and a run failed on any stderr line: judge by the plot and the messages instead.
         with contextlib.suppress(*self._errors):
@@ -216,6 +227,7 @@ class Simulator:
         if not self.retired:
             self._quietly("remcirc")
             self._quietly("destroy all")
+            self._cleared = True
         self._raw.clear()
 
         aborted = any(_ABORTED.search(message) for message in messages)
@@ -294,7 +306,7 @@ class Simulator:
             if info.v_compdata != ffi.NULL:
                 return None  # an .ac plot: PySpice's reading turns it into complex arrays
             length = info.v_length
-            vectors[vector_key(name)] = ffi.unpack(info.v_realdata, length) if length > 0 else []
+            vectors[_plot_vector_key(name)] = ffi.unpack(info.v_realdata, length) if length > 0 else []
         return vectors
 
     def _read_plot_through_pyspice(self, plot_name: str) -> dict[str, Any]:
