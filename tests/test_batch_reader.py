@@ -54,3 +54,24 @@ def test_an_included_device_is_called_no_regular_file(tmp_path):
     with pytest.raises(NetlistError) as caught:
         parse_netlist("Bicycle dynamo light\n.include /dev/null\nVDD vdd 0 6\n", "lamp.cir", str(tmp_path))
     assert caught.value.message == "included `/dev/null` is not a regular file (/dev/null)"
+
+
+def test_a_small_file_is_read_at_its_size_not_at_the_limit(tmp_path):
+    # The reader asked for the whole 16 MiB limit at every file: Python allocated that much for
+    # each netlist read (then shrank it), ~25 µs a file in a batch.
+    import tracemalloc
+
+    from bridge.netlist.source import read_source
+
+    path = tmp_path / "dynamo.cir"
+    text = "Bicycle dynamo light\nVDD vdd 0 6\nRD vdd d 4.7k\n.end\n"
+    path.write_text(text)
+    tracemalloc.start()
+    try:
+        source = read_source(path)
+        peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    assert [line.rstrip("\n") for line in source.lines][:2] == ["Bicycle dynamo light", "VDD vdd 0 6"]
+    assert peak < 1 << 20
+

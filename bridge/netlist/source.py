@@ -112,8 +112,12 @@ def read_source(path: str | os.PathLike[str], display_name: str | None = None) -
                     Location(name, 1, 1),
                 )
             # No more than the limit, whatever the size said: a device or a pipe (`/dev/zero`,
-            # `<(yes)`) reports size 0 and never ends.
-            data = handle.read(MAX_FILE_BYTES + 1)
+            # `<(yes)`) reports size 0 and never ends. A regular file is read at its size (a read
+            # of the limit would allocate 16 MiB for every netlist), and on past it only when it
+            # has grown since.
+            data = handle.read(size + 1) if size > 0 else b""
+            if size == 0 or len(data) > size:
+                data += handle.read(MAX_FILE_BYTES + 1 - len(data))
         if len(data) > MAX_FILE_BYTES:
             raise NetlistError(
                 f"more than {MAX_FILE_BYTES // (1024 * 1024)} MiB to read: far beyond a single-stage netlist",
