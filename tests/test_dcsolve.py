@@ -19,11 +19,11 @@ import numpy as np
 import pytest
 
 from bridge.analysis import dcsolve
+from bridge.analysis.compiled_network import HandNetwork
 from bridge.analysis.dcsolve import (
     GMIN_STEPPING,
     NEWTON,
     SOURCE_STEPPING,
-    HandNetwork,
     InvalidElement,
     NoConvergence,
     OperatingPoint,
@@ -690,7 +690,7 @@ def _hand_devices(circuit: Circuit, effects: frozenset[str]):
     return {t.name: t.hand_device() for t in dc.transistors}, dc.merged
 
 
-def test_hand_network_with_other_devices_is_a_network_built_with_them() -> None:
+def test_compiled_network_with_other_devices_is_a_network_built_with_them() -> None:
     # reference: a HandNetwork compiled afresh for the devices of each model
     circuit = parse_netlist(AQUARIUM, "aquarium.cir")
     plain, merged = _hand_devices(circuit, frozenset())
@@ -739,7 +739,7 @@ RLAMP lamp 0 1.2k
 
 
 @pytest.mark.parametrize("text", [AQUARIUM, DYNAMO_LIGHT])
-def test_hand_network_points_are_its_answer_read_in_part(text: str) -> None:
+def test_compiled_network_points_are_its_answer_read_in_part(text: str) -> None:
     # reference: HandNetwork.solve's whole answer and the square law evaluated afresh at its voltages
     from bridge.analysis.hand import _dc_circuit
     from bridge.devices.mos1.load import evaluate

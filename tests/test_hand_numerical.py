@@ -1,4 +1,4 @@
-"""The hand analysis's numerical path: the DC solver (dcsolve.HandNetwork) run on the hand device.
+"""The hand analysis's numerical path: the DC solver (compiled_network.HandNetwork) run on the hand device.
 
 The circuits are the test netlists whose working says "Solved the hand model numerically" (two
 transistors, devices drawn upside down, a source pushed past the supply). Each answer is derived
@@ -13,7 +13,8 @@ import re
 
 import pytest
 
-from bridge.analysis.dcsolve import HandNetwork, solve_operating_point
+from bridge.analysis.compiled_network import HandNetwork
+from bridge.analysis.dcsolve import solve_operating_point
 from bridge.analysis.hand import HandModel, _dc_circuit, hand_analysis
 from bridge.netlist import parse_netlist
 from tests.check_support import HEATER
@@ -161,7 +162,7 @@ def test_the_hand_device_has_no_junctions_where_the_level1_device_conducts() -> 
     assert level1.junctions["M1"].bulk_source > 1e-5
 
 
-def test_the_attribution_resolves_share_one_compiled_network() -> None:
+def test_the_attribution_resolves_share_one_hand_network() -> None:
     model = HandModel(parse_netlist(CASES["cascode"]()[0], "stage.cir"))
     plain = model.solve()
     lam = model.solve(effects={"lambda"}, working=False, start=plain.node_voltages)

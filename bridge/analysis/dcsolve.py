@@ -22,12 +22,12 @@ What is solved, stated once:
   ``.options temp``, instance TEMP/DTEMP) with its card's TNOM (``.options tnom`` by default): the
   MOSFET through ``Level1Model.at_temperature`` (ngspice's mos1temp.c) with its bulk junctions'
   IS/JS and kT/q at that temperature, the diode's IS and N·kT/q as ngspice's diotemp.c.
-* Newton solves only for the unknowns a nonlinear device touches: the linear rest of the MNA
-  system is eliminated once per network (``reduction.reduce_network``, a Schur complement) and
-  recovered after each solve, so a one-transistor stage iterates on a 2–4 unknown system in
-  plain Python.
+* Newton solves only for the unknowns a nonlinear device touches: the linear rest of the MNA system
+  is eliminated once per network (``reduction.reduce_network``, a Schur complement) and recovered
+  after each solve, so a one-transistor stage iterates on a 2–4 unknown system in plain Python.
 
-Nothing here reads files: the Circuit is the only input.
+Nothing here reads files: the Circuit is the only input. The hand analysis's numerical path
+(``compiled_network.HandNetwork``) runs this Newton with the hand device.
 """
 
 from __future__ import annotations
@@ -67,7 +67,6 @@ if TYPE_CHECKING:
 __all__ = [
     "BulkJunctions",
     "DcSolveError",
-    "HandNetwork",
     "InvalidElement",
     "METHODS",
     "NoConvergence",
@@ -981,55 +980,7 @@ def solve_dc_sweep(
     return points
 
 
-class HandNetwork:
-    """The circuit compiled once for the hand device, solved by this module's Newton (limiting,
-    gmin then source stepping, the same convergence tests): the hand analysis's numerical path.
-
-    `devices` gives each MOSFET's instance, the hand device (``Mos1Instance.without_junctions``:
-    the hand model, no bulk junctions and so no GMIN); `merged` maps every node to the node its
-    shorts (inductors, 0 Ω resistors) merge it into, as the hand analysis merges them. The answer
-    has no gmin: a stepped gmin is only a way there. ``solve`` takes other instances of the same
-    elements (another model: an effect switched on) on the same compiled linear part.
-    Construction raises InvalidElement, UnsupportedElement or SingularCircuit.
-    """
-
-    def __init__(self, circuit: Circuit, devices: Mapping[str, Mos1Instance], merged: Mapping[str, str]) -> None:
-        self._net = _build_network(circuit, level1_model, (devices, merged))
-
-    @property
-    def nodes(self) -> tuple[str, ...]:
-        """The nodes solved for (merged nodes by the name of their class), ground left out."""
-        return self._net.nodes
-
-    def solve(
-        self, devices: Mapping[str, Mos1Instance] | None = None, start: Mapping[str, float] | None = None
-    ) -> OperatingPoint:
-        """The operating point with `devices` in place of the instances given at construction
-        (by element name), Newton started from `start`'s node voltages (of ``nodes``) where
-        given, else from ngspice's junction guess. Raises NoConvergence."""
-        net = self._net if devices is None else self._net.with_devices(devices)
-        state, fresh = _start(net, start)
-        return _operating_point(net, _solve(net, net.source_defaults, state, fresh, METHODS), ())
-
-    def solve_points(
-        self, devices: Mapping[str, Mos1Instance] | None = None, start: Mapping[str, float] | None = None
-    ) -> tuple[dict[str, float], dict[str, Level1Point], int]:
-        """What the hand analysis reads of ``solve``'s answer, the same numbers: the voltages of
-        ``nodes`` (ground included), each MOSFET's point there (the one Newton's last test
-        evaluated) and the Newton iterations; no branch currents, junctions or caveats made."""
-        net = self._net if devices is None else self._net.with_devices(devices)
-        state, fresh = _start(net, start)
-        solved = _solve(net, net.source_defaults, state, fresh, METHODS)
-        x = solved.state.x.tolist()
-        voltages = {GROUND: 0.0}
-        voltages.update(zip(net.nodes, x[1:]))
-        points = {mos.name: mos.point(x[mos.drain], x[mos.gate], x[mos.source], x[mos.bulk]) for mos in net.mosfets}
-        return voltages, points, solved.iterations
-
-
 # --- many operating points at once: bridge.analysis.dcbatch -----------------------------------
-
-
 def solve_dc_sweep_arrays(
     circuit: Circuit, source: str, values: Sequence[float], *, start: Mapping[str, float] | np.ndarray | None = None
 ):

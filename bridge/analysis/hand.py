@@ -18,7 +18,7 @@ The hand model, stated once:
   (or a diode-connected node fed only by one) fixes ID at that current instead.
 * Anything else — several transistors, controlled sources, floating voltage sources, a drain
   held only by a current source, or LAMBDA/GAMMA switched back on through ``effects`` — is the
-  same model solved numerically, and the steps say so: the DC solver (``dcsolve.HandNetwork``)
+  same model solved numerically, and the steps say so: the DC solver (``compiled_network.HandNetwork``)
   with the hand device, the same MOSFET without bulk junctions (so without the minimum
   conductance ngspice puts across each junction either).
 
@@ -53,7 +53,8 @@ from ..devices.mos1.load import (
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..vocabulary import EFFECTS as _EFFECT_ORDER
 from ..vocabulary import Step
-from .dcsolve import DcSolveError, HandNetwork, InvalidElement
+from .compiled_network import HandNetwork
+from .dcsolve import DcSolveError, InvalidElement
 from .hand_circuit import (
     HandAnalysisError,
     _dc_circuit,
@@ -309,7 +310,7 @@ _NO_POINT = (
 def _solve_numerically(
     circuit: Circuit, dc: _DcCircuit, start: Mapping[str, float] | None = None
 ) -> tuple[dict[str, float], dict[str, Level1Point], int]:
-    """The hand model solved by the DC solver with the hand device (``dcsolve.HandNetwork``): the
+    """The hand model solved by the DC solver with the hand device (``compiled_network.HandNetwork``): the
     voltages of the merged nodes (ground included), each transistor's point there (in the order
     of ``dc.transistors``: ``_device_points`` at those voltages, the same numbers) and the Newton
     iterations spent.

@@ -19,8 +19,8 @@ import numpy as np
 from ..devices.mos1 import Level1Geometry, Level1Model
 from ..devices.mos1.instance import InstanceError, Mos1Instance, NotLevel1, default_size, mosfet_instance
 from ..netlist.circuit import GROUND, Circuit, Element
+from .compiled_network import HandNetwork
 from .connectivity import NodeSets
-from .dcsolve import HandNetwork
 from .hand_working import _q
 from .linear import stamp_rows, stamped
 from .reduction import kron, solve_block
@@ -108,7 +108,7 @@ class _DcCircuit:
     floating_sources: list[Element]  # voltage sources not referred to ground
     controlled: list[Element]
     notes: list[str] = field(default_factory=list)
-    # The numerical path's network (dcsolve.HandNetwork), once compiled (_solve_numerically). Its
+    # The numerical path's network (compiled_network.HandNetwork), once compiled (_solve_numerically). Its
     # linear part does not involve the transistors' models, and the copies HandModel.solve makes
     # with other transistor models share this list, so the attribution's re-solves compile it once.
     solver: list[HandNetwork] = field(default_factory=list, repr=False, compare=False)
