@@ -7,6 +7,7 @@ with a real signal.
 
 from __future__ import annotations
 
+import errno
 import json
 import os
 import pty
@@ -247,6 +248,20 @@ DYNAMO_LIGHT = (
 )
 
 
+def _open_for_writing(fifo: Path, seconds: float) -> int:
+    """`fifo` opened for writing without waiting, as soon as a reader has it open: until then
+    the open fails with ENXIO (fifo(7)); on a loaded machine the check's thread may take a while
+    to get there."""
+    deadline = time.monotonic() + seconds
+    while True:
+        try:
+            return os.open(fifo, os.O_WRONLY | os.O_NONBLOCK)
+        except OSError as exc:
+            if exc.errno != errno.ENXIO or time.monotonic() > deadline:
+                raise
+            time.sleep(0.02)
+
+
 def test_on_a_terminal_a_result_is_not_held_back_while_a_later_netlist_is_slow_to_come(tmp_path):
     # The second netlist is a FIFO that gets its text only once the first file's verdict is on
     # the terminal (a netlist produced by a slow program, as with `<(...)`): before, the first
@@ -280,7 +295,7 @@ def test_on_a_terminal_a_result_is_not_held_back_while_a_later_netlist_is_slow_t
 
     try:
         first_shown = read_until(lambda: f"{first} | ".encode() in output, 20)  # its batch row
-        writer = os.open(later, os.O_WRONLY | os.O_NONBLOCK)  # the check has it open for reading
+        writer = _open_for_writing(later, 20)  # once the check has it open for reading
         with os.fdopen(writer, "w") as fifo:
             fifo.write(DYNAMO_LIGHT.replace("lamp driver", "tail-light driver"))
         read_until(lambda: process.poll() is not None and not select.select([master], [], [], 0.1)[0], 60)
