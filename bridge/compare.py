@@ -9,14 +9,12 @@ attribution re-solves the hand model with one effect switched on at a time.
 
 from __future__ import annotations
 
-import functools
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 from .analysis.dcsolve import OperatingPoint, level1_model
 from .analysis.hand import HandSolution
-from .devices.mos1 import Level1Model
 from .netlist.circuit import Circuit
 from .netlist.numbers import ABSTOL, GMIN, VNTOL, engineering
 from .sim.operating_point import SimOperatingPoint
@@ -626,29 +624,13 @@ def _acting(effects: dict[str, float], element, model, reference_device) -> dict
     if model is None:
         return {}
     try:
-        has_lambda, has_gamma = _card_effects(model.type, tuple(model.params.items()))
+        card = level1_model(model)  # remembered per card (``model.card_model_of``)
     except ValueError:
         return effects
-    except TypeError:  # a parameter value that cannot be a key: read the card itself
-        try:
-            card = level1_model(model)
-        except ValueError:
-            return effects
-        has_lambda, has_gamma = card.lambda_ > 0, card.gamma > 0
     drain, _, source, bulk = element.nodes
     acting_source = drain if _runs_swapped(reference_device) else source
-    can_act = {"lambda": has_lambda, "gamma": has_gamma and bulk != acting_source}
+    can_act = {"lambda": card.lambda_ > 0, "gamma": card.gamma > 0 and bulk != acting_source}
     return {effect: change for effect, change in effects.items() if can_act.get(effect, True)}
-
-
-@functools.lru_cache(maxsize=256)
-def _card_effects(mos_type: str, params: tuple[tuple[str, object], ...]) -> tuple[bool, bool]:
-    """Whether a card of that type and those parameters (in the card's order) gives the level-1
-    model a LAMBDA and a GAMMA (GAMMA derived from NSUB and TOX where it is not given), as
-    ``level1_model`` reads them. Remembered: a batch's netlists share a few cards, and reading one
-    costs ~50 µs; a card that cannot be read raises each time."""
-    card = Level1Model.from_card(mos_type, dict(params))
-    return card.lambda_ > 0, card.gamma > 0
 
 
 def _summable_overdrive(devices: tuple, values: tuple) -> tuple:

@@ -370,9 +370,10 @@ def test_the_worker_reads_the_plot_directly_as_pyspice_reads_it() -> None:
 # ---- a card's effects, remembered per card in a batch: read as the level-1 model reads it ----
 
 
-def test_a_cards_lambda_and_gamma_are_remembered_as_the_level1_model_reads_them() -> None:
+def test_a_cards_lambda_and_gamma_are_read_once_as_the_level1_model_reads_them() -> None:
+    # compare asks each card's LAMBDA and GAMMA (does an effect act?) of the remembered model
     from bridge.analysis.dcsolve import level1_model
-    from bridge.compare import _card_effects
+    from bridge.devices.mos1 import Level1Model
     from bridge.netlist.circuit import ModelCard, Origin
 
     origin = Origin("greenhouse_sensor.cir", 3)
@@ -385,14 +386,14 @@ def test_a_cards_lambda_and_gamma_are_remembered_as_the_level1_model_reads_them(
     ]
     for card in cards:
         model = level1_model(card)
-        expected = (model.lambda_ > 0, model.gamma > 0)
-        assert _card_effects(card.type, tuple(card.params.items())) == expected, card.name
-        assert _card_effects(card.type, tuple(card.params.items())) == expected, card.name  # remembered
-    assert _card_effects("pmos", tuple(cards[2].params.items()))[1] is True  # the derived GAMMA acts
+        fresh = Level1Model.from_card(card.type, card.params)
+        assert (model.lambda_ > 0, model.gamma > 0) == (fresh.lambda_ > 0, fresh.gamma > 0), card.name
+        assert level1_model(card) is model, card.name  # remembered
+    assert level1_model(cards[2]).gamma > 0  # the derived GAMMA acts
     bad = ModelCard("bad", "nmos", 1, {"vto": 0.7, "kp": 120e-6, "phi": -0.6}, origin)
     for _ in range(2):  # a card that cannot be read raises each time, never a remembered answer
         with pytest.raises(ValueError, match="PHI must be positive"):
-            _card_effects(bad.type, tuple(bad.params.items()))
+            level1_model(bad)
 
 
 def test_the_solvers_array_records_compare_by_identity() -> None:
