@@ -109,15 +109,10 @@ def solve_dense(matrix: list[list[float]], rhs: list[float]) -> list[float] | No
 
 def _solve_lapack(matrix: np.ndarray, rhs: np.ndarray) -> list[float] | None:
     """``np.linalg.solve(matrix, rhs)`` of a square float matrix and one right-hand side, as a
-    list; None where LAPACK finds the matrix singular (an exactly zero pivot)."""
-    if _gesv is None:  # pragma: no cover
-        try:
-            return np.linalg.solve(matrix, rhs).tolist()
-        except np.linalg.LinAlgError:
-            return None
+    list (``solve_system``); None where LAPACK finds the matrix singular (an exactly zero pivot)."""
     try:
-        return _gesv(matrix, rhs, signature="dd->d").tolist()
-    except FloatingPointError:
+        return solve_system(matrix, rhs).tolist()
+    except np.linalg.LinAlgError:
         return None
 
 
