@@ -177,16 +177,7 @@ def evaluate_with(constants: DeviceConstants, vd: float, vg: float, vs: float, v
     else:
         gate_drive, channel_bias, body_bias = vgs, vds, vbs
 
-    # body_root(phi, body_bias), written out: its root and decline −ds/dvbs.
-    if body_bias <= 0.0:
-        root = math.sqrt(phi - body_bias)
-        root_decline = 0.5 / root
-    else:
-        root = sqrt_phi - body_bias / (2.0 * sqrt_phi)
-        if root <= 0.0:
-            root = root_decline = 0.0
-        else:
-            root_decline = 0.5 / sqrt_phi
+    root, root_decline = body_root(phi, body_bias)
     vth = signed_vto + gamma * (root - sqrt_phi)
     vov = gate_drive - vth
     vdsat = max(vov, 0.0)
