@@ -106,7 +106,11 @@ def threshold_vector(circuit: Circuit, mosfet: Element) -> tuple[str, float] | N
 
 def device_vectors(circuit: Circuit, mosfet: Element) -> tuple[str, ...]:
     """The quantities asked of ngspice for one MOSFET: those its model family is known to have."""
-    threshold = threshold_vector(circuit, mosfet)
+    return _quantities(threshold_vector(circuit, mosfet))
+
+
+def _quantities(threshold: tuple[str, float] | None) -> tuple[str, ...]:
+    """``device_vectors`` for the model family's threshold vector (``threshold_vector``)."""
     return COMMON_VECTORS + (("vdsat", threshold[0]) if threshold is not None else ())
 
 
@@ -133,9 +137,8 @@ def _read_operating_point(circuit: Circuit, result: SimResult) -> SimOperatingPo
 def _read_device(circuit: Circuit, mosfet: Element, result: SimResult) -> SimDevice:
     """One MOSFET's quantities; each is None where its vector is missing (the model lacks it)."""
     threshold = threshold_vector(circuit, mosfet)
-    quantities = COMMON_VECTORS + (("vdsat", threshold[0]) if threshold is not None else ())  # device_vectors
     scalar = result.scalar_if_any
-    values: dict[str, float | None] = {q: scalar(device_vector(mosfet.name, q)) for q in quantities}
+    values: dict[str, float | None] = {q: scalar(device_vector(mosfet.name, q)) for q in _quantities(threshold)}
     sign = threshold[1] if threshold is not None else 1.0
     raw_vth = values.get(threshold[0]) if threshold is not None else None
     vth = sign * raw_vth if raw_vth is not None else None
