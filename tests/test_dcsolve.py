@@ -707,8 +707,8 @@ def test_compiled_network_with_other_devices_is_a_network_built_with_them() -> N
     assert network.solve().node_voltages == first.node_voltages  # the compiled network untouched
 
 
-def test_whole_system_is_the_reduction_that_eliminates_nothing() -> None:
-    # reference: reduction.reduce_network with eliminate=False
+def test_a_reduction_that_eliminates_nothing_is_the_system_as_it_is() -> None:
+    # reference: the network's own MNA matrix and source columns, ground's row and column cut
     from bridge.analysis.reduction import reduce_network
 
     for text in (AQUARIUM, DIVIDER_FED):
@@ -716,13 +716,17 @@ def test_whole_system_is_the_reduction_that_eliminates_nothing() -> None:
         devices, merged = _hand_devices(circuit, frozenset())
         net = HandNetwork(circuit, devices, merged)._net
         assert not net.eliminate
-        ours, reference = dcsolve._whole_system(net), reduce_network(net, 0.0, eliminate=False)
-        for name in ("kept", "position", "matrix", "eliminated", "recover_kept"):
-            assert getattr(ours, name) == getattr(reference, name), name
-        for name in ("source_map", "recover_sources"):
-            mine, theirs = getattr(ours, name), getattr(reference, name)
-            assert mine.shape == theirs.shape and mine.dtype == theirs.dtype and mine.tobytes() == theirs.tobytes()
-        assert net.plain_reduction.matrix == reference.matrix
+        size, nodes = net.size, len(net.nodes)
+        for gmin in (0.0, 1e-3):
+            reduced = reduce_network(net, gmin, eliminate=False)
+            matrix = net.linear[1:, 1:].copy()
+            matrix[range(nodes), range(nodes)] += gmin
+            assert reduced.kept == tuple(range(1, size)) and reduced.position == (-1, *range(size - 1))
+            assert reduced.matrix == tuple(map(tuple, matrix.tolist()))
+            assert reduced.source_map.tobytes() == net.source_columns[1:].tobytes()
+            assert reduced.eliminated == () and reduced.recover_kept == ()
+            assert reduced.recover_sources.shape == (0, net.source_columns.shape[1])
+        assert net.plain_reduction.matrix == reduce_network(net, 0.0, eliminate=False).matrix
 
 
 # A bicycle dynamo light: a PMOS high-side switch whose drain feeds the lamp through a choke

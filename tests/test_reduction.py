@@ -201,13 +201,6 @@ def test_the_attribution_re_solves_share_one_reduction(monkeypatch):
         return real(*args, **kwargs)
 
     monkeypatch.setattr(dcsolve, "_reduce", counted)
-    whole = dcsolve._whole_system  # a dense hand network's plain reduction: nothing eliminated
-
-    def counted_whole(net):
-        reductions.append(0.0)
-        return whole(net)
-
-    monkeypatch.setattr(dcsolve, "_whole_system", counted_whole)
     model = HandModel(circuit)
     plain = model.solve()
     assert plain.closed_form  # the plain hand solves no network: the re-solves are the first

@@ -60,6 +60,7 @@ from bridge.devices.mos1.model import Level1Model, card_model_of
 from bridge.devices.mos1.params import CIRCUIT_TEMPERATURE_C, K_OVER_Q
 from bridge.devices.mos1.placed import PlacedMosfet
 from bridge.netlist.circuit import GROUND, Circuit, Element, ModelCard
+from bridge.records import with_fields
 
 if TYPE_CHECKING:
     from bridge.devices.diode import PlacedDiode
@@ -279,8 +280,6 @@ class _Network:
     @cached_property
     def plain_reduction(self) -> _Reduction:
         """The reduced system without stepped gmin: built once, used by every plain Newton."""
-        if not self.eliminate and isinstance(self.linear, np.ndarray):
-            return _whole_system(self)
         return _reduce(self, 0.0, eliminate=self.eliminate)
 
     def with_devices(self, devices: Mapping[str, Mos1Instance]) -> _Network:
@@ -290,18 +289,10 @@ class _Network:
         The reduction depends on the linear part and on the unknowns the devices touch, which
         another instance at the same place leaves as they are: it is built here once (if it was
         not yet) and handed on, so that the attribution's re-solves (one network each) share it."""
-        plain_reduction = self.plain_reduction
-        # dataclasses.replace(self, mosfets=...) without its walk over every field and the frozen
-        # __init__: the fields copied, then the cached properties (their values live in the
-        # instance dict) that hold for the new devices kept, `devices` (of the old ones) dropped.
-        network = object.__new__(_Network)
-        fields = vars(network)
-        fields.update(vars(self), mosfets=tuple(
+        # The cached properties that hold for the new devices kept, `devices` (the old ones) dropped.
+        return with_fields(self, drop=("devices",), plain_reduction=self.plain_reduction, mosfets=tuple(
             mos.with_device(devices[mos.name]) if mos.name in devices else mos for mos in self.mosfets
         ))  # fmt: skip
-        fields.pop("devices", None)
-        fields["plain_reduction"] = plain_reduction
-        return network
 
     def reduction(self, diagonal_gmin: float) -> _Reduction:
         """The system Newton solves with `diagonal_gmin` from every node to ground (each gmin
@@ -318,22 +309,6 @@ class _Network:
                     raise ValueError(f"`{name}` is not an independent source of this circuit")
                 values[k] = float(value)
         return values
-
-
-def _whole_system(net: _Network) -> _Reduction:
-    """What ``reduction.reduce_network(net, 0.0, eliminate=False)`` gives a dense network, built
-    directly: every unknown kept in order, the MNA matrix and source columns without ground,
-    nothing to recover (the hand's networks, solved whole)."""
-    size, source_count = net.size, net.source_columns.shape[1]
-    return _Reduction(
-        kept=tuple(range(1, size)),
-        position=(-1, *range(size - 1)),
-        matrix=tuple(tuple(row) for row in net.linear[1:, 1:].tolist()),
-        source_map=net.source_columns[1:].copy(),
-        eliminated=(),
-        recover_sources=np.zeros((0, source_count)),
-        recover_kept=(),
-    )
 
 
 @dataclass(eq=False)
@@ -394,7 +369,7 @@ def _build_network(
                 element.name, f"{element.name}: element kind {element.kind} is not modelled"
             )
 
-    nodes = circuit_nodes = circuit.nodes()
+    nodes = circuit.nodes()
     index = {GROUND: 0, **{node: k + 1 for k, node in enumerate(nodes)}}
     branch_kinds = _BRANCH_KINDS
     merged: dict[str, str] = {}
@@ -484,7 +459,7 @@ def _build_network(
             mosfets.append(_mosfet(element, at, circuit, models, model_choice, caveats, default_w, default_l))
         # capacitors: open at DC, nothing to stamp
 
-    _check_structure(circuit, circuit_nodes, channels=hand is not None)
+    _check_structure(circuit, circuit.nodes(), channels=hand is not None)
     linear_matrix = stamped(linear, size)
     return _Network(
         nodes=nodes,
@@ -668,8 +643,6 @@ def _newton(
     loose_floor, tight_floor = net.newton_floors
     gmin = net.gmin
     x = state.x.tolist()
-    base_matrix = reduction.matrix
-    sparse = bool(base_matrix) and isinstance(base_matrix[0], dict)
     # Every unknown but ground kept, in order (a whole system): the solution is the new vector.
     whole = not recovery and len(kept) == len(x) - 1
     # Per device, what no iteration changes: its state row (updated in place by its load) and
@@ -680,7 +653,7 @@ def _newton(
     ]
     loose_count = 0
     for iteration in range(1, max_iterations + 1):
-        matrix = copy_rows(base_matrix) if sparse else [*map(list, base_matrix)]  # copy_rows, inline
+        matrix = copy_rows(reduction.matrix)
         rhs = base_rhs[:]
         # As in ngspice, only a clipped junction step (pnjlim's icheck) forbids convergence;
         # fetlim/limvds steps are caught by the device current test instead. That matters for

@@ -19,6 +19,7 @@ import numpy as np
 from ..devices.mos1 import Level1Geometry, Level1Model
 from ..devices.mos1.instance import InstanceError, Mos1Instance, NotLevel1, default_size, mosfet_instance
 from ..netlist.circuit import GROUND, Circuit, Element
+from ..records import with_fields
 from .compiled_network import HandNetwork
 from .connectivity import NodeSets
 from .hand_working import _q
@@ -85,12 +86,8 @@ class _Transistor:
         return self.model.polarity
 
     def with_model(self, model: Level1Model) -> _Transistor:
-        """This transistor with another hand model: ``dataclasses.replace(self, model=model)``
-        without replace's walk over every field and the frozen ``__init__`` (the attribution
-        makes one per re-solve)."""
-        transistor = object.__new__(_Transistor)
-        vars(transistor).update(vars(self), model=model)
-        return transistor
+        """This transistor with another hand model (the attribution makes one per re-solve)."""
+        return with_fields(self, model=model)
 
 
 @dataclass(eq=False)
@@ -121,12 +118,9 @@ class _DcCircuit:
         return self.fixed[node] if node in self.fixed else free[node]
 
     def with_transistors(self, transistors: list[_Transistor]) -> _DcCircuit:
-        """The same reduction with `transistors` in place of its own (another hand model of each):
-        ``dataclasses.replace(self, transistors=transistors)`` without replace's walk over every
-        field; every other field is shared, `solver` and `incidence` among them."""
-        circuit = object.__new__(_DcCircuit)
-        vars(circuit).update(vars(self), transistors=transistors)
-        return circuit
+        """The same reduction with `transistors` in place of its own (another hand model of each);
+        every other field is shared, `solver` and `incidence` among them."""
+        return with_fields(self, transistors=transistors)
 
 
 def _number(value: object, what: str, element: Element) -> float:

@@ -169,10 +169,13 @@ def reduce_network(net: MnaNetwork, diagonal_gmin: float, *, eliminate: bool = T
         nodes = np.arange(len(net.nodes))
         full[nodes, nodes] += diagonal_gmin
     columns = net.source_columns[1:]
+    if not eliminate:  # every unknown kept, in order: the system as it is, nothing to recover
+        return schur_reduction(size, list(range(1, size)), [], full, columns.copy(),
+                               np.zeros((0, size - 1)), np.zeros((0, columns.shape[1])))
     touched = _device_terminals(net)
     branches = set(range(1 + len(net.nodes), size))
     everything = set(range(1, size))
-    for kept_set in (touched, touched | branches, everything) if eliminate else (everything,):
+    for kept_set in (touched, touched | branches, everything):
         kept = sorted(kept_set)
         rest = [j for j in range(1, size) if j not in kept_set]
         order = np.array(kept + rest, dtype=int) - 1

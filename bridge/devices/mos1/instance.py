@@ -15,6 +15,7 @@ from dataclasses import dataclass, replace
 from functools import cached_property
 
 from bridge.netlist.circuit import Circuit, Element, ModelCard
+from bridge.records import with_fields
 
 from .convergence import limit, limit_channel, vcrit
 from .load import DeviceConstants, Level1Geometry, Level1Point, beta, device_constants, evaluate_with, junction_current
@@ -128,16 +129,9 @@ class Mos1Instance:
 
     def without_junctions(self, model: Level1Model) -> Mos1Instance:
         """The hand device: this instance with `model` (the hand model of its card) and no bulk
-        junction diodes, so no GMIN either.
-
-        ``dataclasses.replace`` without its walk over every field and the frozen ``__init__``
-        (the hand analysis makes one per device and solve); the constants worked out for this
-        instance's model are not carried over."""
-        device = object.__new__(type(self))
-        fields = vars(device)
-        fields.update(vars(self), model=model, junctions=False)
-        fields.pop("constants", None)
-        return device
+        junction diodes, so no GMIN either (the hand analysis makes one per device and solve); the
+        constants worked out for this instance's model are not carried over."""
+        return with_fields(self, drop=("constants",), model=model, junctions=False)
 
     def junction_start(self) -> list[float]:
         """ngspice's MODEINITJCT guess: vgs = type·VTO, vds = 0, vbs = −1 (and von = vgs)."""

@@ -12,6 +12,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
+from ...records import with_fields
 from ..interface import stamp_pair
 from .instance import Mos1Instance
 from .load import Level1Geometry, Level1Point, evaluate_with, junction_current
@@ -63,10 +64,8 @@ class PlacedMosfet:
 
     def with_device(self, device: Mos1Instance) -> PlacedMosfet:
         """The same place with another instance (another model of the same element), its own
-        (empty) record of the last point; made without the frozen ``__init__``."""
-        placed = object.__new__(PlacedMosfet)
-        vars(placed).update(vars(self), device=device, last_point=[])
-        return placed
+        (empty) record of the last point."""
+        return with_fields(self, device=device, last_point=[])
 
     def point(self, vd: float, vg: float, vs: float, vb: float) -> Level1Point:
         """``evaluate`` at absolute terminal voltages, the last answer reused for the same ones."""
