@@ -240,6 +240,33 @@ def test_solve_system_is_numpy_solve_to_the_bit(size: int) -> None:
     assert solve_system(np.eye(2, dtype=int), np.array([3, 4])).tolist() == [3.0, 4.0]
 
 
+@pytest.mark.parametrize("callers", ["raise", "ignore", "warn"])
+def test_solve_system_solves_in_numpys_error_state_whatever_the_callers(callers: str) -> None:
+    # reference: np.linalg.solve itself under the same caller's state: an overflow inside the
+    # solve passes silently (inf), an exactly singular matrix raises LinAlgError, and the
+    # caller's state is in force again afterwards, after an answer and after a refusal alike
+    import warnings
+
+    from bridge.analysis.linear import solve_dense, solve_system
+
+    tiny = np.array([[1e-300, 0.0, 0.0], [0.0, 2.0, 1.0], [0.0, 1.0, 2.0]])
+    rhs = np.array([1e300, 1.0, -1.0])
+    with np.errstate(all=callers), warnings.catch_warnings():
+        warnings.simplefilter("error")
+        state = np.geterr()
+        reference = np.linalg.solve(tiny, rhs)
+        assert math.isinf(reference[0])
+        assert solve_system(tiny, rhs).tobytes() == reference.tobytes()
+        assert solve_system(tiny, rhs[:, None]).tobytes() == np.linalg.solve(tiny, rhs[:, None]).tobytes()
+        assert np.geterr() == state
+        with pytest.raises(np.linalg.LinAlgError):
+            solve_system(np.ones((3, 3)), rhs)
+        assert np.geterr() == state
+        # Newton's LAPACK path: the same state, a singular system answered None
+        assert solve_dense(np.ones((6, 6)).tolist(), [1.0] * 6) is None
+        assert np.geterr() == state
+
+
 def test_a_singular_resistive_network_still_raises_through_the_block_solves() -> None:
     # reference: the Kron reduction's internal block written out: [[1, -1], [-1, 1]] is singular
     matrix = np.array([[2.0, -1.0, -1.0], [-1.0, 1.0, -1.0], [-1.0, -1.0, 1.0]])

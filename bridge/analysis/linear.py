@@ -36,18 +36,47 @@ PLAIN_SOLVE_LIMIT = 4
 # state numpy.linalg.solve sets around it but for a singular matrix, which raises
 # FloatingPointError here instead of LinAlgError: the same call on the same arrays, without
 # numpy.linalg.solve's per-call conversions, type and shape checks and errstate object (a third
-# of a 5–8 unknown solve). The decorator form of errstate keeps its state per call (thread-safe).
+# of a 5–8 unknown solve). The error state is set per call (thread-safe): see `_in_solve_state`.
+_SOLVE_ERRORS = {"invalid": "raise", "over": "ignore", "divide": "ignore", "under": "ignore"}
+
+
+def _in_solve_state(gufunc):
+    """`gufunc` called under the error state `_SOLVE_ERRORS`, restored to the caller's after.
+
+    numpy ≥ 2 keeps the error state in a context variable, which np.errstate sets to an object
+    it makes from its arguments at every call: made here once and set the same way (per call, so
+    per thread), a 1–3 unknown solve costs ~1.7 µs where errstate's decorator took ~4 (numpy
+    2.4, measured). numpy 1.x, or internals moved: errstate's decorator itself. Both set the
+    four error kinds; the state made here keeps the error callback and buffer size in force at
+    import (numpy's defaults), where the decorator keeps the caller's: neither plays a part in
+    a solve (no kind is set to "call", and a gufunc on float64 arrays casts nothing)."""
+    try:
+        from numpy._core._multiarray_umath import _make_extobj
+        from numpy._core._ufunc_config import _extobj_contextvar
+    except ImportError:  # pragma: no cover - numpy 1.x
+        return np.errstate(**_SOLVE_ERRORS)(gufunc)
+    state = _make_extobj(**_SOLVE_ERRORS)
+    enter, leave = _extobj_contextvar.set, _extobj_contextvar.reset
+
+    def solve(matrix: np.ndarray, rhs: np.ndarray, signature: str) -> np.ndarray:
+        token = enter(state)
+        try:
+            return gufunc(matrix, rhs, signature=signature)
+        finally:
+            leave(token)
+
+    return solve
+
+
 try:
     from numpy.linalg import _umath_linalg
 except ImportError:  # pragma: no cover - numpy moved it: its public solve does the same
     _gesv = None
 else:
-    _gesv = np.errstate(invalid="raise", over="ignore", divide="ignore", under="ignore")(_umath_linalg.solve1)
+    _gesv = _in_solve_state(_umath_linalg.solve1)
     # The same for a matrix of right-hand sides (or a stack of systems): the gufunc
     # numpy.linalg.solve calls where its second argument is not one vector.
-    _gesv_columns = np.errstate(invalid="raise", over="ignore", divide="ignore", under="ignore")(
-        _umath_linalg.solve
-    )
+    _gesv_columns = _in_solve_state(_umath_linalg.solve)
 
 
 def as_array(matrix: list[list[float]]) -> np.ndarray:
