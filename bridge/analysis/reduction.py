@@ -179,11 +179,12 @@ def reduce_network(net: MnaNetwork, diagonal_gmin: float, *, eliminate: bool = T
         kept = sorted(kept_set)
         rest = [j for j in range(1, size) if j not in kept_set]
         order = np.array(kept + rest, dtype=int) - 1
-        ordered = full[order][:, order]  # kept unknowns first, then the ones to eliminate
+        # Kept unknowns first, then the ones to eliminate (take: the copies fancy indexing makes, cheaper).
+        ordered = full.take(order, 0).take(order, 1)
         count = len(kept)
         kk, kr = ordered[:count, :count], ordered[:count, count:]
         rk, rr = ordered[count:, :count], ordered[count:, count:]
-        kept_sources, rest_sources = columns[order[:count]], columns[order[count:]]
+        kept_sources, rest_sources = columns.take(order[:count], 0), columns.take(order[count:], 0)
         if rest:
             # The rank test once per network: a block that only rounds away from singular must
             # not be inverted. Keeping more is always correct.
@@ -300,12 +301,12 @@ def kron(
     rows in plain floats, to cut dense blocks from. Raises np.linalg.LinAlgError where the
     internal block is exactly singular."""
     if isinstance(matrix, np.ndarray):
-        y, jt = _cut(matrix, ports, ports, plain), injection[list(ports)]
+        y, jt = _cut(matrix, ports, ports, plain), injection.take(ports, 0)
         if not internal:
             return y, jt
         y, jt, _, _ = schur_complement(
             y, _cut(matrix, ports, internal, plain), _cut(matrix, internal, ports, plain),
-            _cut(matrix, internal, internal, plain), jt, injection[list(internal)],
+            _cut(matrix, internal, internal, plain), jt, injection.take(internal, 0),
         )  # fmt: skip
         return y, jt
     at_ports, at_internal = np.array(ports, dtype=int), np.array(internal, dtype=int)
