@@ -648,6 +648,20 @@ def test_as_array_is_np_array() -> None:
     assert ours.tobytes() == reference.tobytes()
 
 
+def test_a_small_system_is_stamped_into_the_array_np_array_makes() -> None:
+    # reference: np.array of the stamped rows, as `stamped` made it before (as_array since)
+    from bridge.analysis.linear import stamp_rows, stamped
+
+    for size in (1, 2, 5, 9):
+        rows = stamp_rows(size)
+        for k in range(size):
+            rows[k][k] += 1.0 / (k + 3)
+            rows[k][(k + 1) % size] -= 2.5e-320 if k % 2 else 1e5
+        ours, reference = stamped(rows, size), np.array(rows, dtype=float).reshape(size, size)
+        assert ours.dtype == reference.dtype and ours.shape == reference.shape and ours.flags.c_contiguous
+        assert ours.tobytes() == reference.tobytes()
+
+
 @pytest.mark.parametrize("size", range(5, 13))
 def test_lapack_path_is_numpy_solve_to_the_bit(size: int) -> None:
     # reference: np.linalg.solve itself; past the plain limit solve_dense calls the same gufunc

@@ -195,7 +195,7 @@ def stamp_rows(size: int) -> list:
 def stamped(rows: list, size: int):
     """The matrix of `stamp_rows` rows: a dense array for a small system, CSR for a large one."""
     if not is_large(size):
-        return np.array(rows, dtype=float).reshape(size, size)
+        return as_array(rows)
     return _csr(rows, size)
 
 
