@@ -228,6 +228,9 @@ def _rail_name(circuit: Circuit, node: str, voltage: float) -> str:
     return f"node {node} ({engineering(voltage, 'V')})"
 
 
+_DRIVERS = frozenset({"isource", "vcvs", "vccs", "cccs", "ccvs"})  # what can hold a node beyond the supplies
+
+
 def _beyond_supplies(circuit: Circuit, solved: _Solved) -> list[Finding]:
     """Nodes above the highest or below the lowest voltage-source terminal by BEYOND_MARGIN. Only a
     current source or a controlled source can put a node there (resistors, diodes and MOSFETs
@@ -237,7 +240,6 @@ def _beyond_supplies(circuit: Circuit, solved: _Solved) -> list[Finding]:
         return []
     levels = [0.0] + [solved.voltages[node] for e in sources for node in e.nodes[:2]]
     low, high = min(levels), max(levels)
-    drivers = [e.name for e in circuit.elements if e.kind in {"isource", "vcvs", "vccs", "cccs", "ccvs"}]
     found = []
     for node in circuit.nodes():
         voltage = solved.voltages[node]
@@ -253,6 +255,7 @@ def _beyond_supplies(circuit: Circuit, solved: _Solved) -> list[Finding]:
         if not circuit.elements_of("bjt"):
             message += (": resistors, diodes and MOSFETs only carry current from a higher node to a lower one, so "
                         "only a current or controlled source can hold a node there")
+            drivers = [e.name for e in circuit.elements if e.kind in _DRIVERS]
             if drivers:
                 message += f" — here {_names(drivers)}"
         line = _first_line(circuit, node)
@@ -272,7 +275,7 @@ def _first_line(circuit: Circuit, node: str) -> int | None:
     """The line of the first current or controlled source on `node`, else of the first element on it."""
     on_node = [e for e in circuit.elements if node in e.nodes]
     for element in on_node:
-        if element.kind in {"isource", "vcvs", "vccs", "cccs", "ccvs"}:
+        if element.kind in _DRIVERS:
             return element.origin.line
     return on_node[0].origin.line if on_node else None
 

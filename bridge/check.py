@@ -286,8 +286,8 @@ class PendingCheck:
             result = compare(
                 circuit, own.hand, own.level1, self._sim,
                 simulator=self._simulator, tolerance=self.tolerance,
-                with_effect=own.with_effect,
-                expect=self.expect, findings=findings_before, converged=converged, fitted=fitted,
+                with_effect=own.with_effect, expect=self.expect, findings=findings_before,
+                converged=converged, fitted=fitted, supplies=supply_table,
             )
             if fitted is not None:  # the devices under their own card's name
                 result = replace(result, devices={
@@ -302,7 +302,7 @@ class PendingCheck:
                 at_default = findings
                 result, findings = compared(converged)
                 findings = _with_tolerance_note(at_default, findings, self.circuit)
-        return replace(result, supplies=supply_table, findings=findings)
+        return result if findings is result.findings else replace(result, findings=findings)
 
     def _tight_rerun(self) -> SimOperatingPoint | None:
         """ngspice's operating point of the same circuit at RELTOL = 1e-6, or None when it fails.
@@ -350,7 +350,8 @@ def _without_disproved(
     vector disagrees with ngspice's own node voltages while the level-1 value matches those (within
     1 mV + 0.2 %): the difference is then ngspice's vector, not a defect of the level-1 solver
     (``bias_rules.device_vector_findings`` says so). `wrong_vectors`: those of
-    ``inconsistent_device_vectors(circuit, sim)``, when they are at hand."""
+    ``inconsistent_device_vectors(circuit, sim)``, when they are at hand. `findings` itself when
+    none is disproved."""
     if level1 is None:
         return findings
     disproved: set[str] = set()
@@ -362,6 +363,8 @@ def _without_disproved(
             value = getattr(device, quantity, None) if device is not None else None
             if value is not None and abs(value - from_nodes) <= 1e-3 + 2e-3 * abs(from_nodes):
                 disproved.add(f"{name} {quantity}")
+    if not disproved:
+        return findings
     return tuple(f for f in findings if not (f.code == SOLVER_DIFFERS and f.quantity in disproved))
 
 

@@ -212,6 +212,7 @@ def compare(
     findings: tuple[Finding, ...] = (),
     converged: SimOperatingPoint | None = None,
     fitted: FittedTolerance | None = None,
+    supplies: dict | None = None,
 ) -> CheckResult:
     """Lay the columns side by side and flag what disagrees.
 
@@ -224,6 +225,8 @@ def compare(
 
     `fitted`: hand and level-1 solved on level-1 equivalents of non-level-1 cards; the level-1
     column is then judged within its allowance, and a fitted device's cause list names the card.
+
+    `supplies`: the supply table (``bias_rules.supplies``) the result carries, when the caller has it.
     """
     found: list[Finding] = list(findings)
     reference_column = "sim" if sim is not None else "level1"
@@ -258,8 +261,10 @@ def compare(
         solver_device = converged.devices.get(element.name) if converged else sim_device
         wanted = (expect.devices.get(element.name.lower(), {}) if expect else {})
         device_resolution = _drain_resolution(element, resolution, reference_voltages)
+        on_equivalent = fitted is not None and element.name in fitted.equivalents
         quantities: dict[str, Columns] = {}
         for quantity in DEVICE_QUANTITIES:
+            subject, unit = f"{element.name} {quantity}", UNITS[quantity]
             hand_q = getattr(hand_device, quantity) if hand_device else None
             level1_q = getattr(level1_device, quantity) if level1_device else None
             if quantity == "id" and level1 is not None and level1_device is not None:
@@ -273,19 +278,18 @@ def compare(
             expected = wanted.get(quantity)
             # The hand model's gds in saturation is 0 by its own assumption (λ = 0): not a finding.
             assumed = quantity == "gds" and hand_device is not None and hand_device.region == "saturation"
-            on_equivalent = fitted is not None and element.name in fitted.equivalents
+            hand_judged = None if assumed else hand_q
             unjudged = on_equivalent and (quantity in NOT_COMPARED_FITTED or (
                 quantity == "id" and fitted.equivalents[element.name].below_floor))  # fmt: skip
             flagged = _flag_columns(
-                UNITS[quantity], None if assumed else hand_q, level1_q, sim_q, expected, reference_column,
-                tolerance, found, f"{element.name} {quantity}", element, device_resolution, solver_q,
-                math.inf if unjudged else _allowance(fitted, f"{element.name} {quantity}"),
+                unit, hand_judged, level1_q, sim_q, expected, reference_column, tolerance, found, subject, element,
+                device_resolution, solver_q, math.inf if unjudged else _allowance(fitted, subject),
             )
-            compared = _compared(None if assumed else hand_q, level1_q, sim_q, expected, reference_column)
+            compared = _compared(hand_judged, level1_q, sim_q, expected, reference_column)
+            if unjudged:
+                compared = tuple(c for c in compared if c != "level1")
             quantities[quantity] = Columns(
-                hand_q, level1_q, sim_q, _expect_value(expected), flagged,
-                tuple(c for c in compared if not (unjudged and c == "level1")),
-                device_resolution[UNITS[quantity]],
+                hand_q, level1_q, sim_q, _expect_value(expected), flagged, compared, device_resolution[unit],
             )
         quantities[SAT_MARGIN] = _sat_margin(quantities, resolution["V"])
         region = {
@@ -297,7 +301,7 @@ def compare(
         effect_solutions = with_effect if hand_device and with_effect is not None else {}
         for column in ("hand", "level1") if reference_column == "sim" else ("hand",):
             if region[column] and reference_region and region[column] != reference_region:
-                if column == "level1" and fitted is not None and element.name in fitted.equivalents:
+                if column == "level1" and on_equivalent:
                     found.append(_equivalent_region_finding(element, region[column], reference_region))
                     continue
                 message = (
@@ -349,7 +353,7 @@ def compare(
             found.append(_body_effect_cause(element, gamma, quantities["vth"], reference_column, reference_device,
                                             level1))
         effects = _attribute(element.name, hand, effect_solutions)
-        if fitted is not None and element.name in fitted.equivalents:
+        if on_equivalent:
             effects = _with_beyond_level1(effects, hand_device, level1_device and quantities["id"].level1,
                                           quantities["id"].sim)  # fmt: skip
         if hand_device and (sim_device or level1_device):
@@ -358,8 +362,7 @@ def compare(
         expect_region = str(expected_region.value) if expected_region else None
         devices[element.name] = DeviceComparison(
             element.name, mos_type, element.model or "", element.origin.line, region, quantities, effects,
-            expect_region, *_region_flags(region, expect_region, reference_column,
-                                          fitted is not None and element.name in fitted.equivalents),
+            expect_region, *_region_flags(region, expect_region, reference_column, on_equivalent),
             reference_column,
         )
     return CheckResult(
@@ -373,6 +376,7 @@ def compare(
         findings=tuple(found),
         steps=hand.steps,  # written when a view reads it (hand_working.Written)
         has_expect=expect is not None,
+        supplies={} if supplies is None else supplies,
         tolerance=tolerance,
         settled_by=_settled_by(circuit, hand, with_effect, nodes, devices, tolerance),
         fitted=fitted,
