@@ -65,6 +65,8 @@ class Columns:
 
 @dataclass(frozen=True)
 class DeviceComparison:
+    """One transistor in a check: its region and quantities in the three columns."""
+
     name: str
     type: str
     model: str
@@ -122,6 +124,8 @@ NOT_COMPARED_FITTED = frozenset({"vth", "vov", "gm", "gds"})
 
 @dataclass(frozen=True)
 class CheckResult:
+    """Everything one check found for one netlist: the columns, the findings, the working."""
+
     file: str
     title: str
     simulator: tuple[str, str] | None

@@ -74,6 +74,8 @@ class Expectation:
 
 @dataclass(frozen=True)
 class Expectations:
+    """The designer's targets from an `--expect` file: per node, and per device and quantity."""
+
     nodes: dict[str, Expectation] = field(default_factory=dict)
     devices: dict[str, dict[str, Expectation]] = field(default_factory=dict)
     file: str | None = None

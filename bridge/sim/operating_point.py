@@ -52,6 +52,8 @@ class SimDevice:
 
 @dataclass(frozen=True)
 class SimOperatingPoint:
+    """ngspice's operating point: node voltages, branch currents, each MOSFET, its messages."""
+
     node_voltages: dict[str, float]
     branch_currents: dict[str, float]
     devices: dict[str, SimDevice]
