@@ -410,3 +410,60 @@ def test_the_solvers_array_records_compare_by_identity() -> None:
     assert net == net and net != twin and hash(net) != hash(twin)
     reduction = reduce_network(net, 1e-12)
     assert reduction == reduction and reduction != copy.deepcopy(reduction)
+
+
+# ---- what a check process pays before its first stage --------------------------------------
+
+def test_the_checks_result_records_compare_by_identity(required_ngspice_session, tmp_path: Path) -> None:
+    # Nothing compares or hashes a check's result records by value (every __eq__ and __hash__ call
+    # of bridge's dataclasses was recorded over the test suite and the dump of check, sweep and
+    # the batch): they carry no generated equality, two generated methods fewer each at import.
+    # A twin with the same fields is another object; each record equals and hashes as itself.
+    import copy
+
+    from bridge.check import check_circuit
+    from bridge.compare import leading_cause
+    from bridge.expect import read_expectations
+    from bridge.netlist import read_netlist
+    from bridge.netlist.emit import emit
+    from bridge.sim.operating_point import simulate_operating_point
+
+    circuit = read_netlist(EXAMPLES / "cs_divider.cir")
+    targets = tmp_path / "targets.toml"
+    targets.write_text('[nodes]\ndrain = "2.6"\n[devices.M1]\nid = "240u"\n', encoding="utf-8")
+    expectations = read_expectations(targets, 0.05)
+    result = check_circuit(circuit, required_ngspice_session, tolerance=0.05, expect=expectations)
+    sim = simulate_operating_point(required_ngspice_session, circuit)
+    records = [
+        result, result.devices["M1"], *result.nodes.values(), *result.supplies.values(),
+        *result.settled_by.values(), leading_cause(result), sim, sim.devices["M1"], emit(circuit),
+        expectations, expectations.nodes["drain"],
+    ]
+    assert None not in records and len(records) > 10
+    for record in records:
+        twin = copy.copy(record)
+        assert record == record and record != twin, type(record).__name__
+        assert hash(record) == hash(record) != hash(twin)
+
+
+_CHECK_AND_LIST_SIGNATURES = (
+    "import dataclasses, inspect, sys; asked = []; real = inspect.signature\n"
+    "def signature(obj, *args, **kwargs):\n"
+    "    if sys._getframe(1).f_code is dataclasses._process_class.__code__: asked.append(obj.__qualname__)\n"
+    "    return real(obj, *args, **kwargs)\n"
+    "inspect.signature = signature\n"
+    "from bridge.cli import main; status = main(sys.argv[1:])\n"
+    "sys.stderr.write('ASKED ' + repr(sorted(asked)) + '\\n'); sys.exit(status)\n"
+)
+
+
+def test_check_json_writes_no_dataclass_docstring_from_its_signature() -> None:
+    # A dataclass without a docstring gets one made from inspect.signature at import (~60 µs a
+    # class): every record the check loads says what it is itself.
+    files = [str(EXAMPLES / name) for name in ("cs_divider.cir", "bench_session.cir")]
+    completed = subprocess.run([sys.executable, "-c", _CHECK_AND_LIST_SIGNATURES, "check", "--json", *files],
+                               capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL)
+    assert completed.returncode in (0, 1), completed.stderr
+    line = next(line for line in completed.stderr.splitlines() if line.startswith("ASKED "))
+    assert line == "ASKED []"
+    assert len(completed.stdout.splitlines()) == 2
