@@ -467,3 +467,58 @@ def test_check_json_writes_no_dataclass_docstring_from_its_signature() -> None:
     line = next(line for line in completed.stderr.splitlines() if line.startswith("ASKED "))
     assert line == "ASKED []"
     assert len(completed.stdout.splitlines()) == 2
+
+
+def _libngspice_in_a_usual_directory() -> bool:
+    from bridge.sim import locate
+
+    return any((directory / name).is_file() for directory in locate._library_dirs() for name in locate._LIBRARY_NAMES)
+
+
+def test_check_json_runs_no_system_search_when_a_usual_directory_holds_libngspice() -> None:
+    # ctypes.util.find_library runs `ldconfig -p` in a child process on Linux: before the worker
+    # can start, each check waited for it. ctypes.util comes only with that search.
+    if not _libngspice_in_a_usual_directory():
+        pytest.skip("no usual directory holds libngspice here: the system search is the way to it")
+    completed = subprocess.run(
+        [sys.executable, "-c", "import sys; from bridge.cli import main; status = main(sys.argv[1:]); "
+         "sys.stderr.write('LOADED %s\\n' % ('ctypes.util' in sys.modules)); sys.exit(status)",
+         "check", "--json", str(EXAMPLES / "cs_divider.cir")],
+        capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL,
+    )
+    assert completed.returncode in (0, 1), completed.stderr
+    assert "LOADED False" in completed.stderr.splitlines()
+    assert json.loads(completed.stdout)["simulator"] is not None
+
+
+def test_libngspice_is_looked_for_in_the_usual_directories_before_the_loaders_cache(tmp_path, monkeypatch) -> None:
+    import ctypes.util
+
+    from bridge.sim import locate
+
+    first, second = tmp_path / "lib", tmp_path / "local"
+    first.mkdir()
+    second.mkdir()
+    (second / "libngspice.so.0").write_bytes(b"")
+    asked: list[str] = []
+
+    def find_library(name: str) -> str:
+        asked.append(name)
+        return "libngspice.so.7"  # a library the loader's cache knows elsewhere
+
+    monkeypatch.setattr(ctypes.util, "find_library", find_library)
+    monkeypatch.setattr(locate, "_library_dirs", lambda: [first, second])
+    monkeypatch.delenv(locate.ENV_VARIABLE, raising=False)
+    locate._system_soname.cache_clear()
+    try:
+        assert locate.locate_ngspice().path == str(second / "libngspice.so.0")
+        assert asked == []
+        # Where no usual directory holds it, the loader's cache is asked, and its soname kept as it
+        # is when none of the directories has that file (the loader opens it by its cache).
+        (second / "libngspice.so.0").unlink()
+        assert locate.locate_ngspice().path == "libngspice.so.7"
+        (first / "libngspice.so.7").write_bytes(b"")
+        assert locate.locate_ngspice().path == str(first / "libngspice.so.7")
+        assert asked == ["ngspice"]  # asked once a process
+    finally:
+        locate._system_soname.cache_clear()
