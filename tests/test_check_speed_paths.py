@@ -66,11 +66,12 @@ def test_a_check_without_a_helper_or_expectations_does_not_load_their_modules() 
 
 
 # What `check --json` of a MOSFET stage leaves unloaded or uncompiled: the diode model, the table
-# layout, the package-data reader (for the grammar alone), the lint-only patterns.
+# layout, the package-data reader (for the grammar alone), the decimal module (for a printed
+# number at an exact tie alone), the lint-only patterns.
 _CHECK_AND_LIST_LAZY = (
     "import sys; from bridge.cli import main; status = main(sys.argv[1:]); "
     "from bridge.netlist import build, source; "
-    "lazy = ('bridge.devices.diode', 'bridge.report.table_layout', 'importlib.resources', 'lark'); "
+    "lazy = ('bridge.devices.diode', 'bridge.report.table_layout', 'importlib.resources', 'lark', 'decimal'); "
     "sys.stderr.write('LOADED ' + repr(sorted(m for m in lazy if m in sys.modules)) + ' ' "
     "+ repr((build._written_field.cache_info().misses, source._allow_patterns.cache_info().misses)) + '\\n'); "
     "sys.exit(status)"
