@@ -6,10 +6,10 @@ library), then the usual directories, then ``ctypes.util.find_library("ngspice")
 loader's cache: a library in a directory of its own) resolved against those directories. Debian
 ships ``libngspice.so.0`` (package ``libngspice0``); PySpice on its own asks for
 ``libngspice.so``, which only the ``-dev`` package provides. The directories come first because
-find_library runs ``ldconfig -p`` in a child process on Linux (~2 ms CPU and 4–14 ms wall before
-the worker can start, measured here), and for a distribution's package both ways give the same
-file: the cache's soname (``libngspice.so.0``) is looked up in the same directories in the same
-order (Debian 12's libngspice0: /usr/lib/x86_64-linux-gnu/libngspice.so.0 either way).
+find_library runs ``ldconfig -p`` in a child process on Linux (~1 ms CPU and 1–9 ms wall, median
+~3, at load 4–5 here, before the worker can start), and for a distribution's package both ways
+give the same file: the cache's soname (``libngspice.so.0``) is looked up in the same directories
+in the same order (Debian 12's libngspice0: /usr/lib/x86_64-linux-gnu/libngspice.so.0 either way).
 """
 
 from __future__ import annotations
