@@ -39,7 +39,7 @@ SMALL_RESISTANCE = 1.0  # Ω
 BEYOND_MARGIN = 0.5  # V
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Supply:
     """One independent voltage source with a DC value: its current as delivered (out of its +
     terminal into the circuit) and the power it delivers, V·I, per column."""

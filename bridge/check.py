@@ -453,7 +453,7 @@ class CheckQueue:
         return item
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class EquivalentColumns:
     """Hand and level-1 columns of a circuit whose MOSFET cards are not all level 1, solved with
     each such device's level-1 equivalent (``fit.equivalent.equivalent_at_operating_point``):

@@ -63,7 +63,7 @@ UNITS = {"id": "A", "vgs": "V", "vds": "V", "vth": "V", "vov": "V", "gm": "S", "
 SAT_MARGIN = "sat_margin"
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Expectation:
     """The designer's own target for one quantity, with its tolerance (relative)."""
 
@@ -72,8 +72,10 @@ class Expectation:
     line: int | None = None
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Expectations:
+    """The designer's targets from an `--expect` file: per node, and per device and quantity."""
+
     nodes: dict[str, Expectation] = field(default_factory=dict)
     devices: dict[str, dict[str, Expectation]] = field(default_factory=dict)
     file: str | None = None

@@ -66,11 +66,12 @@ def test_a_check_without_a_helper_or_expectations_does_not_load_their_modules() 
 
 
 # What `check --json` of a MOSFET stage leaves unloaded or uncompiled: the diode model, the table
-# layout, the package-data reader (for the grammar alone), the lint-only patterns.
+# layout, the package-data reader (for the grammar alone), the decimal module (for a printed
+# number at an exact tie alone), the lint-only patterns.
 _CHECK_AND_LIST_LAZY = (
     "import sys; from bridge.cli import main; status = main(sys.argv[1:]); "
     "from bridge.netlist import build, source; "
-    "lazy = ('bridge.devices.diode', 'bridge.report.table_layout', 'importlib.resources', 'lark'); "
+    "lazy = ('bridge.devices.diode', 'bridge.report.table_layout', 'importlib.resources', 'lark', 'decimal'); "
     "sys.stderr.write('LOADED ' + repr(sorted(m for m in lazy if m in sys.modules)) + ' ' "
     "+ repr((build._written_field.cache_info().misses, source._allow_patterns.cache_info().misses)) + '\\n'); "
     "sys.exit(status)"
@@ -410,3 +411,115 @@ def test_the_solvers_array_records_compare_by_identity() -> None:
     assert net == net and net != twin and hash(net) != hash(twin)
     reduction = reduce_network(net, 1e-12)
     assert reduction == reduction and reduction != copy.deepcopy(reduction)
+
+
+# ---- what a check process pays before its first stage --------------------------------------
+
+def test_the_checks_result_records_compare_by_identity(required_ngspice_session, tmp_path: Path) -> None:
+    # Nothing compares or hashes a check's result records by value (every __eq__ and __hash__ call
+    # of bridge's dataclasses was recorded over the test suite and the dump of check, sweep and
+    # the batch): they carry no generated equality, two generated methods fewer each at import.
+    # A twin with the same fields is another object; each record equals and hashes as itself.
+    import copy
+
+    from bridge.check import check_circuit
+    from bridge.compare import leading_cause
+    from bridge.expect import read_expectations
+    from bridge.netlist import read_netlist
+    from bridge.netlist.emit import emit
+    from bridge.sim.operating_point import simulate_operating_point
+
+    circuit = read_netlist(EXAMPLES / "cs_divider.cir")
+    targets = tmp_path / "targets.toml"
+    targets.write_text('[nodes]\ndrain = "2.6"\n[devices.M1]\nid = "240u"\n', encoding="utf-8")
+    expectations = read_expectations(targets, 0.05)
+    result = check_circuit(circuit, required_ngspice_session, tolerance=0.05, expect=expectations)
+    sim = simulate_operating_point(required_ngspice_session, circuit)
+    records = [
+        result, result.devices["M1"], *result.nodes.values(), *result.supplies.values(),
+        *result.settled_by.values(), leading_cause(result), sim, sim.devices["M1"], emit(circuit),
+        expectations, expectations.nodes["drain"],
+    ]
+    assert None not in records and len(records) > 10
+    for record in records:
+        twin = copy.copy(record)
+        assert record == record and record != twin, type(record).__name__
+        assert hash(record) == hash(record) != hash(twin)
+
+
+_CHECK_AND_LIST_SIGNATURES = (
+    "import dataclasses, inspect, sys; asked = []; real = inspect.signature\n"
+    "def signature(obj, *args, **kwargs):\n"
+    "    if sys._getframe(1).f_code is dataclasses._process_class.__code__: asked.append(obj.__qualname__)\n"
+    "    return real(obj, *args, **kwargs)\n"
+    "inspect.signature = signature\n"
+    "from bridge.cli import main; status = main(sys.argv[1:])\n"
+    "sys.stderr.write('ASKED ' + repr(sorted(asked)) + '\\n'); sys.exit(status)\n"
+)
+
+
+def test_check_json_writes_no_dataclass_docstring_from_its_signature() -> None:
+    # A dataclass without a docstring gets one made from inspect.signature at import (~60 µs a
+    # class): every record the check loads says what it is itself.
+    files = [str(EXAMPLES / name) for name in ("cs_divider.cir", "bench_session.cir")]
+    completed = subprocess.run([sys.executable, "-c", _CHECK_AND_LIST_SIGNATURES, "check", "--json", *files],
+                               capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL)
+    assert completed.returncode in (0, 1), completed.stderr
+    line = next(line for line in completed.stderr.splitlines() if line.startswith("ASKED "))
+    assert line == "ASKED []"
+    assert len(completed.stdout.splitlines()) == 2
+
+
+def _libngspice_in_a_usual_directory() -> bool:
+    from bridge.sim import locate
+
+    return any((directory / name).is_file() for directory in locate._library_dirs() for name in locate._LIBRARY_NAMES)
+
+
+def test_check_json_runs_no_system_search_when_a_usual_directory_holds_libngspice() -> None:
+    # ctypes.util.find_library runs `ldconfig -p` in a child process on Linux: before the worker
+    # can start, each check waited for it. ctypes.util comes only with that search.
+    if not _libngspice_in_a_usual_directory():
+        pytest.skip("no usual directory holds libngspice here: the system search is the way to it")
+    completed = subprocess.run(
+        [sys.executable, "-c", "import sys; from bridge.cli import main; status = main(sys.argv[1:]); "
+         "sys.stderr.write('LOADED %s\\n' % ('ctypes.util' in sys.modules)); sys.exit(status)",
+         "check", "--json", str(EXAMPLES / "cs_divider.cir")],
+        capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL,
+    )
+    assert completed.returncode in (0, 1), completed.stderr
+    assert "LOADED False" in completed.stderr.splitlines()
+    assert json.loads(completed.stdout)["simulator"] is not None
+
+
+def test_libngspice_is_looked_for_in_the_usual_directories_before_the_loaders_cache(tmp_path, monkeypatch) -> None:
+    import ctypes.util
+
+    from bridge.sim import locate
+
+    first, second = tmp_path / "lib", tmp_path / "local"
+    first.mkdir()
+    second.mkdir()
+    (second / "libngspice.so.0").write_bytes(b"")
+    asked: list[str] = []
+
+    def find_library(name: str) -> str:
+        asked.append(name)
+        return "libngspice.so.7"  # a library the loader's cache knows elsewhere
+
+    monkeypatch.setattr(ctypes.util, "find_library", find_library)
+    monkeypatch.setattr(locate, "_library_dirs", lambda: [first, second])
+    monkeypatch.delenv(locate.ENV_VARIABLE, raising=False)
+    locate._system_soname.cache_clear()
+    try:
+        assert locate.locate_ngspice().path == str(second / "libngspice.so.0")
+        assert asked == []
+        # Where no usual directory holds it, the loader's cache is asked, and its soname kept as it
+        # is when none of the directories has that file (the loader opens it by its cache).
+        (second / "libngspice.so.0").unlink()
+        assert locate.locate_ngspice().path == "libngspice.so.7"
+        (first / "libngspice.so.7").write_bytes(b"")
+        assert locate.locate_ngspice().path == str(first / "libngspice.so.7")
+        assert asked == ["ngspice"]  # asked once a process
+    finally:
+        locate._system_soname.cache_clear()

@@ -40,6 +40,8 @@ class HandAnalysisError(ValueError):
 
 @dataclass(frozen=True, eq=False)
 class _Resistor:
+    """A resistor between nodes `a` and `b`."""
+
     name: str
     a: str
     b: str
@@ -62,6 +64,8 @@ class _CurrentSource:
 
 @dataclass(frozen=True, eq=False)
 class _Transistor:
+    """A MOSFET of the DC circuit with the model the hand analysis gives it."""
+
     element: Element
     model: Level1Model  # the hand model: LAMBDA and GAMMA zeroed unless switched on
     card: Level1Model  # as the card gives it, for the wording of effects

@@ -663,7 +663,7 @@ def _numerical_steps(dc: _DcCircuit, effects: frozenset[str], reason: str, itera
 # --- written on demand ------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Working:
     """What one hand solution's working is written from, numbers only.
 

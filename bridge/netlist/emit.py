@@ -26,7 +26,7 @@ _VECTOR = re.compile(r"^(?:@[\w.+\-]+\[[a-z0-9_]+\]|all|[vi]\([\w.+\-#]+\))$", r
 _VECTORS_SEEN: set[str] = set()
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class SpiceDeck:
     """SPICE text made by `emit` from a Circuit; the simulator bridge accepts nothing else."""
 

@@ -24,18 +24,24 @@ class ExpressionError(ValueError):
 
 @dataclass(frozen=True)
 class Literal:
+    """A number in an expression, at `offset` in the card text."""
+
     value: float
     offset: int = 0
 
 
 @dataclass(frozen=True)
 class Reference:
+    """A `.param` name in an expression."""
+
     name: str
     offset: int
 
 
 @dataclass(frozen=True)
 class Unary:
+    """A sign applied to one operand (`-x`, `+x`)."""
+
     operator: str
     operand: Expr
     offset: int
@@ -43,6 +49,8 @@ class Unary:
 
 @dataclass(frozen=True)
 class Binary:
+    """An arithmetic operator between two operands (`a*b`, `a^b`)."""
+
     operator: str
     left: Expr
     right: Expr
@@ -51,6 +59,8 @@ class Binary:
 
 @dataclass(frozen=True)
 class Call:
+    """A call of a built-in or `.func` function."""
+
     function: str
     arguments: tuple[Expr, ...]
     offset: int

@@ -31,6 +31,8 @@ if TYPE_CHECKING:
 
 @dataclass(frozen=True)
 class Assignment:
+    """A `name=value` field of a card."""
+
     name: str
     value: Expr | ModelText  # ModelText only in a `.model` card
     offset: int
@@ -38,12 +40,16 @@ class Assignment:
 
 @dataclass(frozen=True)
 class Word:
+    """A bare word of a card (a node, a model name, a flag), as written, at `offset` in the card text."""
+
     text: str
     offset: int
 
 
 @dataclass(frozen=True)
 class Positional:
+    """A braced value given without a name (`{expr}`)."""
+
     value: Expr
     offset: int
 
@@ -65,17 +71,23 @@ class ModelText:
 
 @dataclass(frozen=True)
 class DcPart:
+    """The DC value of an independent source."""
+
     value: Expr
 
 
 @dataclass(frozen=True)
 class AcPart:
+    """The `AC magnitude phase` of an independent source (either may be left out)."""
+
     magnitude: Expr | None
     phase: Expr | None
 
 
 @dataclass(frozen=True)
 class WaveformPart:
+    """A source's waveform (`SIN(...)`, `PULSE(...)`, ...): its kind and arguments."""
+
     kind: str
     args: tuple[Expr, ...]
     offset: int
@@ -86,6 +98,8 @@ SourcePart = DcPart | AcPart | WaveformPart
 
 @dataclass(frozen=True)
 class RawElement:
+    """An element card: its letter, name, nodes with their places, and what follows them."""
+
     letter: str
     name: str
     nodes: tuple[tuple[str, int], ...]
@@ -99,6 +113,8 @@ class RawElement:
 
 @dataclass(frozen=True)
 class RawModel:
+    """A `.model name type (...)` card."""
+
     name: str
     type: Word
     items: tuple[Item, ...]
@@ -107,12 +123,16 @@ class RawModel:
 
 @dataclass(frozen=True)
 class RawParams:
+    """A `.param` card."""
+
     assignments: tuple[Assignment, ...]
     card: LogicalCard
 
 
 @dataclass(frozen=True)
 class RawFunc:
+    """A `.func name(parameters) {body}` card."""
+
     name: str
     parameters: tuple[str, ...]
     body: Expr
@@ -121,6 +141,8 @@ class RawFunc:
 
 @dataclass(frozen=True)
 class RawSweep:
+    """One `source start stop step` sweep of a `.dc` card."""
+
     source: Word
     start: Expr
     stop: Expr
@@ -129,6 +151,8 @@ class RawSweep:
 
 @dataclass(frozen=True)
 class RawAnalysis:
+    """An analysis card (`kind` "op" or "dc")."""
+
     kind: str
     card: LogicalCard
     sweeps: tuple[RawSweep, ...] = ()
@@ -136,6 +160,8 @@ class RawAnalysis:
 
 @dataclass(frozen=True)
 class RawSetting:
+    """A `.options`, `.temp`, `.ic` or `.nodeset` card (`kind`)."""
+
     kind: str  # "options", "temp", "ic", "nodeset"
     card: LogicalCard
     items: tuple[Item, ...] = ()
@@ -145,12 +171,16 @@ class RawSetting:
 
 @dataclass(frozen=True)
 class RawGlobal:
+    """A `.global` card."""
+
     nodes: tuple[str, ...]
     card: LogicalCard
 
 
 @dataclass(frozen=True)
 class RawSubckt:
+    """A `.subckt` card: the subcircuit's name and what follows it (ports, parameters)."""
+
     name: str
     items: tuple[Item, ...]
     card: LogicalCard
@@ -158,12 +188,16 @@ class RawSubckt:
 
 @dataclass(frozen=True)
 class RawEnds:
+    """An `.ends` card, with the subcircuit's name when it gives one."""
+
     name: str | None
     card: LogicalCard
 
 
 @dataclass(frozen=True)
 class RawKept:
+    """An output or other-analysis card (`.print`, `.tran`, ...): kept as written."""
+
     kind: str
     card: LogicalCard
 

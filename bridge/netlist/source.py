@@ -88,7 +88,7 @@ class LogicalCard:
         return NetlistError(message, location, self.source.lines[location.line - 1], caret)
 
 
-@dataclass
+@dataclass(eq=False)
 class Deck:
     """The title and the logical cards of a netlist, includes expanded."""
 

@@ -33,7 +33,7 @@ THRESHOLD_BY_LEVEL: dict[int, tuple[str, bool]] = {
 }
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class SimDevice:
     """One MOSFET as ngspice solved it, polarity-normalised."""
 
@@ -50,8 +50,10 @@ class SimDevice:
     region: Region | None
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class SimOperatingPoint:
+    """ngspice's operating point: node voltages, branch currents, each MOSFET, its messages."""
+
     node_voltages: dict[str, float]
     branch_currents: dict[str, float]
     devices: dict[str, SimDevice]

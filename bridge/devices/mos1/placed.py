@@ -19,7 +19,7 @@ from .load import Level1Geometry, Level1Point, evaluate_with, junction_current
 from .model import Level1Model
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class PlacedMosfet:
     """A MOSFET instance (``Mos1Instance``) placed in the network: its terminals' unknowns."""
 
