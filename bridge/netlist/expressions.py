@@ -120,7 +120,6 @@ def evaluate(
     _calling: tuple[str, ...] = (),
 ) -> float:
     """Value of `expr`; `scope` maps lower-case parameter names to values."""
-    functions = functions or {}
     if _depth > _MAX_DEPTH:
         raise ExpressionError(f"expression nested more than {_MAX_DEPTH} levels deep", _offset(expr))
     if isinstance(expr, Literal):
@@ -132,6 +131,7 @@ def evaluate(
         if key in CONSTANTS:
             return CONSTANTS[key]
         raise ExpressionError(f"undefined parameter `{expr.name}`", expr.offset)
+    functions = functions or {}
     if isinstance(expr, Unary):
         value = evaluate(expr.operand, scope, functions, _depth + 1, _calling)
         return -value if expr.operator == "-" else value

@@ -26,7 +26,6 @@ from __future__ import annotations
 
 import math
 import re
-from decimal import ROUND_HALF_UP, Decimal
 
 # Scale factors of ngspice's Table 2.2. Order matters: "meg" and "mil" are tested
 # before the single letter "m".
@@ -168,6 +167,8 @@ def _round_half_away(scaled: float, digits: int) -> str:
     mantissa, _, power = decimal.partition("e")
     if mantissa.lstrip("-").replace(".", "")[digits:].rstrip("0") != "5":
         return text  # not a tie: %g's rounding of the binary value is the decimal rounding
+    from decimal import ROUND_HALF_UP, Decimal  # here alone: only a tie needs it (~1 ms to import)
+
     quantum = Decimal(1).scaleb(int(power) - digits + 1)
     return f"{float(Decimal(decimal).quantize(quantum, rounding=ROUND_HALF_UP)):.{digits}g}"
 
