@@ -15,6 +15,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+from ..records import with_fields
 from .errors import NetlistError
 from .expressions import Binary, Call, Expr, Literal, Reference, Unary
 from .numbers import NumberError, parse_number
@@ -569,8 +570,26 @@ class _NotPlain(Exception):
     """The card is not one `plain_card` reads: the parser takes it."""
 
 
+# Plain cards already read, by their text: the same cards (`.op`, a `.model` card, a supply, a
+# transistor) stand in netlist after netlist of a batch, and a card's raw card depends on its text
+# alone but for the card itself, which a copy takes. Bounded: past the limit nothing more is kept.
+_READ_CARDS: dict[str, RawCard] = {}
+_READ_CARDS_LIMIT = 4096
+
+
 def plain_card(card: LogicalCard) -> RawCard | None:
     """The raw card of a plain card (see above) as ``parse_card`` gives it; None for any other."""
+    read = _READ_CARDS.get(card.text)
+    if read is not None:
+        return with_fields(read, card=card)
+    raw = read_plain_card(card)
+    if raw is not None and len(_READ_CARDS) < _READ_CARDS_LIMIT:
+        _READ_CARDS[card.text] = raw
+    return raw
+
+
+def read_plain_card(card: LogicalCard) -> RawCard | None:
+    """`plain_card` of a card read afresh, whatever was read before."""
     text = card.text
     if _NOT_PLAIN.search(text):
         return None
