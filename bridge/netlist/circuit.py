@@ -137,6 +137,8 @@ class Parameter:
 
 @dataclass(frozen=True)
 class DcSweep:
+    """One sweep of a `.dc` analysis: the source swept, from `start` to `stop` by `step`."""
+
     source: str
     start: float
     stop: float

@@ -24,18 +24,24 @@ class ExpressionError(ValueError):
 
 @dataclass(frozen=True)
 class Literal:
+    """A number in an expression (or a plain value), in SI; `offset` is its place in the card text."""
+
     value: float
     offset: int = 0
 
 
 @dataclass(frozen=True)
 class Reference:
+    """A name in an expression, as written: a `.param`, a `.func` argument or `pi`."""
+
     name: str
     offset: int
 
 
 @dataclass(frozen=True)
 class Unary:
+    """A sign before an operand: `-x`."""
+
     operator: str
     operand: Expr
     offset: int
@@ -43,6 +49,8 @@ class Unary:
 
 @dataclass(frozen=True)
 class Binary:
+    """`left operator right`, the operator one of `+ - * / ^`."""
+
     operator: str
     left: Expr
     right: Expr
@@ -51,6 +59,8 @@ class Binary:
 
 @dataclass(frozen=True)
 class Call:
+    """A built-in function or a `.func` applied to its arguments: `sqrt(x)`, `f(a, b)`."""
+
     function: str
     arguments: tuple[Expr, ...]
     offset: int

@@ -32,6 +32,8 @@ if TYPE_CHECKING:
 
 @dataclass(frozen=True)
 class Assignment:
+    """`name=value` on a card."""
+
     name: str
     value: Expr | ModelText  # ModelText only in a `.model` card
     offset: int
@@ -39,12 +41,16 @@ class Assignment:
 
 @dataclass(frozen=True)
 class Word:
+    """A field read as a name (a node, a model, a keyword), as written."""
+
     text: str
     offset: int
 
 
 @dataclass(frozen=True)
 class Positional:
+    """A lone value where a card takes `name=value` items (a diode's area in braces, say)."""
+
     value: Expr
     offset: int
 
@@ -66,17 +72,23 @@ class ModelText:
 
 @dataclass(frozen=True)
 class DcPart:
+    """A source's `DC value`."""
+
     value: Expr
 
 
 @dataclass(frozen=True)
 class AcPart:
+    """A source's `AC [magnitude [phase]]`."""
+
     magnitude: Expr | None
     phase: Expr | None
 
 
 @dataclass(frozen=True)
 class WaveformPart:
+    """A source's transient function: `SIN(...)`, `PULSE(...)`, `PWL(...)`, `EXP(...)`, `SFFM(...)`."""
+
     kind: str
     args: tuple[Expr, ...]
     offset: int
@@ -87,6 +99,8 @@ SourcePart = DcPart | AcPart | WaveformPart
 
 @dataclass(frozen=True)
 class RawElement:
+    """An element card: its letter, name, nodes with their places, and its fields as read."""
+
     letter: str
     name: str
     nodes: tuple[tuple[str, int], ...]
@@ -100,6 +114,8 @@ class RawElement:
 
 @dataclass(frozen=True)
 class RawModel:
+    """A `.model NAME TYPE (name=value ...)` card."""
+
     name: str
     type: Word
     items: tuple[Item, ...]
@@ -108,12 +124,16 @@ class RawModel:
 
 @dataclass(frozen=True)
 class RawParams:
+    """A `.param name=value ...` card."""
+
     assignments: tuple[Assignment, ...]
     card: LogicalCard
 
 
 @dataclass(frozen=True)
 class RawFunc:
+    """A `.func name(args) {body}` card."""
+
     name: str
     parameters: tuple[str, ...]
     body: Expr
@@ -122,6 +142,8 @@ class RawFunc:
 
 @dataclass(frozen=True)
 class RawSweep:
+    """One `SOURCE start stop step` of a `.dc` card."""
+
     source: Word
     start: Expr
     stop: Expr
@@ -130,6 +152,8 @@ class RawSweep:
 
 @dataclass(frozen=True)
 class RawAnalysis:
+    """An `.op` or `.dc` card."""
+
     kind: str
     card: LogicalCard
     sweeps: tuple[RawSweep, ...] = ()
@@ -137,6 +161,8 @@ class RawAnalysis:
 
 @dataclass(frozen=True)
 class RawSetting:
+    """An `.options`, `.temp`, `.ic` or `.nodeset` card."""
+
     kind: str  # "options", "temp", "ic", "nodeset"
     card: LogicalCard
     items: tuple[Item, ...] = ()
@@ -146,12 +172,16 @@ class RawSetting:
 
 @dataclass(frozen=True)
 class RawGlobal:
+    """A `.global node ...` card."""
+
     nodes: tuple[str, ...]
     card: LogicalCard
 
 
 @dataclass(frozen=True)
 class RawSubckt:
+    """A `.subckt NAME ports [params: ...]` card, opening a definition."""
+
     name: str
     items: tuple[Item, ...]
     card: LogicalCard
@@ -159,12 +189,16 @@ class RawSubckt:
 
 @dataclass(frozen=True)
 class RawEnds:
+    """An `.ends [NAME]` card, closing a definition."""
+
     name: str | None
     card: LogicalCard
 
 
 @dataclass(frozen=True)
 class RawKept:
+    """A card kept for display only (`.save`, `.print`, `.tran`, ...)."""
+
     kind: str
     card: LogicalCard
 
