@@ -103,3 +103,19 @@ def test_the_fields_as_written_are_not_placed_while_reading(monkeypatch: pytest.
     assert placed == []  # a check never looks at them
     assert circuit.element("M1").written["model"] == Written("nsoil", 6, 12)
     assert placed == ["M1"]
+
+
+def test_decimal_is_imported_for_a_rounding_tie_alone(tmp_path) -> None:
+    """Reading a netlist and writing numbers leaves `decimal` unloaded until a tie needs it."""
+    import subprocess
+    import sys
+
+    netlist = tmp_path / "soil.cir"
+    netlist.write_text(FIRST)
+    script = (
+        "import sys; from bridge.netlist import read_netlist; from bridge.netlist.numbers import engineering; "
+        f"read_netlist({str(netlist)!r}); before = engineering(2.1287869e-4, 'A'); loaded = 'decimal' in sys.modules; "
+        "tie = engineering(1.5625, 'V'); print(before, loaded, tie, 'decimal' in sys.modules)"
+    )
+    completed = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=60)
+    assert completed.stdout.split() == ["212.9", "µA", "False", "1.563", "V", "True"], completed.stderr
