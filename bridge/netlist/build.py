@@ -375,7 +375,7 @@ class _Builder:
             controlling_source=control,
             waveform=waveform,
             flags=tuple(flags),
-            written=WrittenFields(card.text, _segment_places(card), _written_places(raw)),
+            written=WrittenFields(raw),
         )
         self.elements.append(element)
         self.element_cards[name.lower()] = card
@@ -571,25 +571,28 @@ def written_fields(raw: RawElement) -> dict[str, Written]:
     """The fields of an element card as written, with their places: `node1`, `node2`, ...,
     `value` (a source's DC value), `model` and each `name=value` instance parameter's value.
     A value given as `{expr}` or `'expr'` is kept from its opening brace or quote."""
-    return _fields_at(raw.card.text, _segment_places(raw.card), _written_places(raw))
+    return _fields_at(*_placed(raw))
 
 
 class WrittenFields(Mapping[str, Written]):
     """`written_fields` of an element card, worked out at the first look: only the lint rules
-    look (a check never does). It keeps the card's text, its segments and where each field starts,
-    not the card; a pickle or a copy carries those, and the fields are worked out where read."""
+    look (a check never does). It keeps the raw card until then, and nothing of it is worked out
+    before (not even where each field starts); a pickle or a copy carries the card's text, its
+    segments and where each field starts, not the card, and the fields are worked out where read."""
 
-    __slots__ = ("_text", "_segments", "_places", "_fields")
+    __slots__ = ("_raw", "_placed", "_fields")
 
     def __init__(
-        self, text: str, segments: tuple[tuple[int, int, int], ...], places: tuple[tuple[str, int], ...]
+        self,
+        raw: RawElement | None,
+        placed: tuple[str, tuple[tuple[int, int, int], ...], tuple[tuple[str, int], ...]] | None = None,
     ) -> None:
-        self._text, self._segments, self._places = text, segments, places
+        self._raw, self._placed = raw, placed
         self._fields: dict[str, Written] | None = None
 
     def _read(self) -> dict[str, Written]:
         if self._fields is None:
-            self._fields = _fields_at(self._text, self._segments, self._places)
+            self._fields = _fields_at(*self._placed) if self._placed is not None else written_fields(self._raw)
         return self._fields
 
     def __getitem__(self, key: str) -> Written:
@@ -608,7 +611,12 @@ class WrittenFields(Mapping[str, Written]):
         return repr(self._read())
 
     def __reduce__(self):
-        return (WrittenFields, (self._text, self._segments, self._places))
+        return (WrittenFields, (None, self._placed if self._placed is not None else _placed(self._raw)))
+
+
+def _placed(raw: RawElement) -> tuple[str, tuple[tuple[int, int, int], ...], tuple[tuple[str, int], ...]]:
+    """What `written_fields` works from: the card's text, its segments and where each field starts."""
+    return raw.card.text, _segment_places(raw.card), _written_places(raw)
 
 
 def _segment_places(card: LogicalCard) -> tuple[tuple[int, int, int], ...]:

@@ -137,7 +137,7 @@ class Parameter:
 
 @dataclass(frozen=True)
 class DcSweep:
-    """One sweep of a `.dc` analysis: `source` from `start` to `stop` by `step`."""
+    """One sweep of a `.dc` analysis: the source swept, from `start` to `stop` by `step`."""
 
     source: str
     start: float

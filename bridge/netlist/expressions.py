@@ -24,7 +24,7 @@ class ExpressionError(ValueError):
 
 @dataclass(frozen=True)
 class Literal:
-    """A number in an expression, at `offset` in the card text."""
+    """A number in an expression (or a plain value), in SI; `offset` is its place in the card text."""
 
     value: float
     offset: int = 0
@@ -32,7 +32,7 @@ class Literal:
 
 @dataclass(frozen=True)
 class Reference:
-    """A `.param` name in an expression."""
+    """A name in an expression, as written: a `.param`, a `.func` argument or `pi`."""
 
     name: str
     offset: int
@@ -40,7 +40,7 @@ class Reference:
 
 @dataclass(frozen=True)
 class Unary:
-    """A sign applied to one operand (`-x`, `+x`)."""
+    """A sign before an operand: `-x`."""
 
     operator: str
     operand: Expr
@@ -49,7 +49,7 @@ class Unary:
 
 @dataclass(frozen=True)
 class Binary:
-    """An arithmetic operator between two operands (`a*b`, `a^b`)."""
+    """`left operator right`, the operator one of `+ - * / ^`."""
 
     operator: str
     left: Expr
@@ -59,7 +59,7 @@ class Binary:
 
 @dataclass(frozen=True)
 class Call:
-    """A call of a built-in or `.func` function."""
+    """A built-in function or a `.func` applied to its arguments: `sqrt(x)`, `f(a, b)`."""
 
     function: str
     arguments: tuple[Expr, ...]
@@ -130,7 +130,6 @@ def evaluate(
     _calling: tuple[str, ...] = (),
 ) -> float:
     """Value of `expr`; `scope` maps lower-case parameter names to values."""
-    functions = functions or {}
     if _depth > _MAX_DEPTH:
         raise ExpressionError(f"expression nested more than {_MAX_DEPTH} levels deep", _offset(expr))
     if isinstance(expr, Literal):
@@ -142,6 +141,7 @@ def evaluate(
         if key in CONSTANTS:
             return CONSTANTS[key]
         raise ExpressionError(f"undefined parameter `{expr.name}`", expr.offset)
+    functions = functions or {}
     if isinstance(expr, Unary):
         value = evaluate(expr.operand, scope, functions, _depth + 1, _calling)
         return -value if expr.operator == "-" else value

@@ -15,6 +15,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+from ..records import with_fields
 from .errors import NetlistError
 from .expressions import Binary, Call, Expr, Literal, Reference, Unary
 from .numbers import NumberError, parse_number
@@ -31,7 +32,7 @@ if TYPE_CHECKING:
 
 @dataclass(frozen=True)
 class Assignment:
-    """A `name=value` field of a card."""
+    """`name=value` on a card."""
 
     name: str
     value: Expr | ModelText  # ModelText only in a `.model` card
@@ -40,7 +41,7 @@ class Assignment:
 
 @dataclass(frozen=True)
 class Word:
-    """A bare word of a card (a node, a model name, a flag), as written, at `offset` in the card text."""
+    """A field read as a name (a node, a model, a keyword), as written."""
 
     text: str
     offset: int
@@ -48,7 +49,7 @@ class Word:
 
 @dataclass(frozen=True)
 class Positional:
-    """A braced value given without a name (`{expr}`)."""
+    """A lone value where a card takes `name=value` items (a diode's area in braces, say)."""
 
     value: Expr
     offset: int
@@ -71,14 +72,14 @@ class ModelText:
 
 @dataclass(frozen=True)
 class DcPart:
-    """The DC value of an independent source."""
+    """A source's `DC value`."""
 
     value: Expr
 
 
 @dataclass(frozen=True)
 class AcPart:
-    """The `AC magnitude phase` of an independent source (either may be left out)."""
+    """A source's `AC [magnitude [phase]]`."""
 
     magnitude: Expr | None
     phase: Expr | None
@@ -86,7 +87,7 @@ class AcPart:
 
 @dataclass(frozen=True)
 class WaveformPart:
-    """A source's waveform (`SIN(...)`, `PULSE(...)`, ...): its kind and arguments."""
+    """A source's transient function: `SIN(...)`, `PULSE(...)`, `PWL(...)`, `EXP(...)`, `SFFM(...)`."""
 
     kind: str
     args: tuple[Expr, ...]
@@ -98,7 +99,7 @@ SourcePart = DcPart | AcPart | WaveformPart
 
 @dataclass(frozen=True)
 class RawElement:
-    """An element card: its letter, name, nodes with their places, and what follows them."""
+    """An element card: its letter, name, nodes with their places, and its fields as read."""
 
     letter: str
     name: str
@@ -113,7 +114,7 @@ class RawElement:
 
 @dataclass(frozen=True)
 class RawModel:
-    """A `.model name type (...)` card."""
+    """A `.model NAME TYPE (name=value ...)` card."""
 
     name: str
     type: Word
@@ -123,7 +124,7 @@ class RawModel:
 
 @dataclass(frozen=True)
 class RawParams:
-    """A `.param` card."""
+    """A `.param name=value ...` card."""
 
     assignments: tuple[Assignment, ...]
     card: LogicalCard
@@ -131,7 +132,7 @@ class RawParams:
 
 @dataclass(frozen=True)
 class RawFunc:
-    """A `.func name(parameters) {body}` card."""
+    """A `.func name(args) {body}` card."""
 
     name: str
     parameters: tuple[str, ...]
@@ -141,7 +142,7 @@ class RawFunc:
 
 @dataclass(frozen=True)
 class RawSweep:
-    """One `source start stop step` sweep of a `.dc` card."""
+    """One `SOURCE start stop step` of a `.dc` card."""
 
     source: Word
     start: Expr
@@ -151,7 +152,7 @@ class RawSweep:
 
 @dataclass(frozen=True)
 class RawAnalysis:
-    """An analysis card (`kind` "op" or "dc")."""
+    """An `.op` or `.dc` card."""
 
     kind: str
     card: LogicalCard
@@ -160,7 +161,7 @@ class RawAnalysis:
 
 @dataclass(frozen=True)
 class RawSetting:
-    """A `.options`, `.temp`, `.ic` or `.nodeset` card (`kind`)."""
+    """An `.options`, `.temp`, `.ic` or `.nodeset` card."""
 
     kind: str  # "options", "temp", "ic", "nodeset"
     card: LogicalCard
@@ -171,7 +172,7 @@ class RawSetting:
 
 @dataclass(frozen=True)
 class RawGlobal:
-    """A `.global` card."""
+    """A `.global node ...` card."""
 
     nodes: tuple[str, ...]
     card: LogicalCard
@@ -179,7 +180,7 @@ class RawGlobal:
 
 @dataclass(frozen=True)
 class RawSubckt:
-    """A `.subckt` card: the subcircuit's name and what follows it (ports, parameters)."""
+    """A `.subckt NAME ports [params: ...]` card, opening a definition."""
 
     name: str
     items: tuple[Item, ...]
@@ -188,7 +189,7 @@ class RawSubckt:
 
 @dataclass(frozen=True)
 class RawEnds:
-    """An `.ends` card, with the subcircuit's name when it gives one."""
+    """An `.ends [NAME]` card, closing a definition."""
 
     name: str | None
     card: LogicalCard
@@ -196,7 +197,7 @@ class RawEnds:
 
 @dataclass(frozen=True)
 class RawKept:
-    """An output or other-analysis card (`.print`, `.tran`, ...): kept as written."""
+    """A card kept for display only (`.save`, `.print`, `.tran`, ...)."""
 
     kind: str
     card: LogicalCard
@@ -603,8 +604,26 @@ class _NotPlain(Exception):
     """The card is not one `plain_card` reads: the parser takes it."""
 
 
+# Plain cards already read, by their text: the same cards (`.op`, a `.model` card, a supply, a
+# transistor) stand in netlist after netlist of a batch, and a card's raw card depends on its text
+# alone but for the card itself, which a copy takes. Bounded: past the limit nothing more is kept.
+_READ_CARDS: dict[str, RawCard] = {}
+_READ_CARDS_LIMIT = 4096
+
+
 def plain_card(card: LogicalCard) -> RawCard | None:
     """The raw card of a plain card (see above) as ``parse_card`` gives it; None for any other."""
+    read = _READ_CARDS.get(card.text)
+    if read is not None:
+        return with_fields(read, card=card)
+    raw = read_plain_card(card)
+    if raw is not None and len(_READ_CARDS) < _READ_CARDS_LIMIT:
+        _READ_CARDS[card.text] = raw
+    return raw
+
+
+def read_plain_card(card: LogicalCard) -> RawCard | None:
+    """`plain_card` of a card read afresh, whatever was read before."""
     text = card.text
     if _NOT_PLAIN.search(text):
         return None

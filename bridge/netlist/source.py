@@ -304,7 +304,9 @@ class _Reader:
         self.include_stack.append(path)
         try:
             for card in self.cards_of(source, first_line):
-                if _INCLUDE.match(card.text):
+                if card.text[0] != ".":  # `.include` and `.lib` start with a dot: only then try them
+                    self.deck.cards.append(card)
+                elif _INCLUDE.match(card.text):
                     self.include(card, section=None)
                 elif _LIB.match(card.text):
                     words = card.text.split()
