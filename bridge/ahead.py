@@ -100,11 +100,11 @@ def _write_frame(fd: int, payload: bytes) -> None:
         data = data[os.write(fd, data):]
 
 
-def _read_exactly(fd: int, size: int) -> bytes | None:
-    """`size` bytes from `fd`, or None when it ends first."""
+def _read_exactly(file: io.FileIO, size: int) -> bytes | None:
+    """`size` bytes from `file`, or None when it ends first."""
     chunks = []
     while size:
-        chunk = os.read(fd, size)
+        chunk = file.read(size)
         if not chunk:
             return None
         chunks.append(chunk)
@@ -221,7 +221,7 @@ class Preparation:
         self.working = working
         self.helper_pid: int | None = None
         self.taken_here = 0  # files this process prepared while the helper was busy
-        self._from_helper: int | None = None  # the read end of the helper's pipe
+        self._from_helper: io.FileIO | None = None  # the read end of the helper's pipe (unbuffered)
         self._back = len(self.paths)  # from here on, the files are this process's
         self._shared_memory: mmap.mmap | None = None  # shared with the helper, once forked
         self._shared_back: memoryview | None = None  # `_back` as the helper reads it: [0]
@@ -256,7 +256,7 @@ class Preparation:
     def close(self) -> None:
         """Stop the helper (if it still runs) and reap it."""
         if self._from_helper is not None:
-            os.close(self._from_helper)
+            self._from_helper.close()
             self._from_helper = None
         if self.helper_pid is not None:
             with contextlib.suppress(ProcessLookupError):
@@ -341,7 +341,8 @@ class Preparation:
                 os._exit(code)  # no atexit handlers, no flushing of buffers the parent owns
         os.close(sending)
         self.helper_pid = pid
-        self._from_helper = receiving
+        # Unbuffered, so that `select` sees every byte not yet read; closed with its object.
+        self._from_helper = io.FileIO(receiving, "rb")
 
 
 T = TypeVar("T")
