@@ -8,6 +8,7 @@ with a real signal.
 from __future__ import annotations
 
 import errno
+import io
 import json
 import os
 import pickle
@@ -109,6 +110,26 @@ def test_the_pipe_pickles_each_element_without_its_fields_as_written_and_leaves_
         assert element.written == {}
         assert vars(element) | {"written": original.written} == vars(original)
     assert [dict(element.written) for element in ready.circuit.elements] == written_before
+
+
+def test_a_result_larger_than_the_pipe_holds_arrives_whole(tmp_path):
+    # A pipe holds 64 KiB (pipe(7)): a larger pickle is read in pieces, as the writer frees room.
+    ready = prepare(mixed_inputs(tmp_path)[0], None)
+    assert isinstance(ready, Prepared)
+    large = Prepared(replace(ready.circuit, title="greenhouse vent fan driver " * 8000), ready.own)
+    payload = ahead.pickled_for_the_pipe((3, large))
+    assert len(payload) > 1 << 17
+    receiving, sending = os.pipe()
+    preparation = Preparation([], None, helper=False)
+    preparation._from_helper = io.FileIO(receiving, "rb")
+    writer = threading.Thread(target=ahead._write_frame, args=(sending, payload))
+    writer.start()
+    try:
+        assert preparation._receive() == (3, large)
+    finally:
+        writer.join()
+        os.close(sending)
+        preparation.close()
 
 
 _PREPARE_AHEAD_AND_LIST_MULTIPROCESSING = (
