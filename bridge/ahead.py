@@ -310,7 +310,7 @@ class Preparation:
         # process that meets a card needing it loads it then. The one shared number is 8 bytes of
         # an anonymous shared mapping, written in one store (as multiprocessing's RawValue is, but
         # without importing multiprocessing and ctypes: ~8 ms); results come through a plain pipe.
-        self._shared_memory = mmap.mmap(-1, 8)
+        self._shared_memory = mmap.mmap(-1, 8, flags=mmap.MAP_SHARED)
         self._shared_back = memoryview(self._shared_memory).cast("q")
         self._shared_back[0] = self._back
         receiving, sending = os.pipe()
