@@ -12,22 +12,22 @@ delivered are prepared here instead: the output is the same either way, only slo
 from __future__ import annotations
 
 import contextlib
+import copyreg
+import io
+import mmap
 import os
+import pickle
+import select
 import signal
 import threading
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, replace
-from typing import TYPE_CHECKING, Any, TypeVar
+from typing import TypeVar
 
 from .check import NotASingleStage, OwnColumns, solve_own_columns
 from .netlist import Location, NetlistError, read_netlist
-from .netlist.circuit import Circuit
+from .netlist.circuit import Circuit, Element
 from .vocabulary import Expectations
-
-# multiprocessing (its connections, and the shared memory behind RawValue) is imported when a
-# helper is forked: a check without one does not pay for it.
-if TYPE_CHECKING:
-    from multiprocessing.connection import Connection
 
 # Below this many files the fork (a few ms) and the pickling cost more than they save.
 AHEAD_FROM = 4
@@ -66,15 +66,50 @@ def without_working(item: Prepared | Unusable) -> Prepared | Unusable:
     return Prepared(item.circuit, replace(item.own, hand=replace(item.own.hand, steps=(), assumptions=())))
 
 
-def without_written_fields(item: Prepared | Unusable) -> Prepared | Unusable:
-    """`item` with its elements' fields as written (``Element.written``: only lint's rules read
-    them, and equality ignores them) left out, for the pipe: of a bench stage's `Prepared`, 0.8 of
-    3.5 KB and a third of the time unpickling it takes this process."""
-    if not isinstance(item, Prepared):
-        return item
-    circuit = item.circuit
-    elements = tuple(replace(element, written={}) if element.written else element for element in circuit.elements)
-    return Prepared(replace(circuit, elements=elements), item.own)
+def _element_without_written_fields(element: Element) -> tuple[object, ...]:
+    """How the pipe pickles an element: as pickle's own reduction of it does (its class and its
+    fields), with its fields as written (``Element.written``: only lint's rules read them, and
+    equality ignores them) left empty. Of a bench stage's `Prepared`, 0.8 of 3.5 KB and a third of
+    the time unpickling it takes this process; leaving them out here copies no element."""
+    state = element.__dict__.copy()
+    state["written"] = {}
+    return copyreg.__newobj__, (Element,), state
+
+
+class _PipePickler(pickle.Pickler):
+    """The helper's pickler: pickle's own, but for ``_element_without_written_fields``."""
+
+    dispatch_table = copyreg.dispatch_table.copy()
+    dispatch_table[Element] = _element_without_written_fields
+
+
+def pickled_for_the_pipe(item: tuple[int, Prepared | Unusable]) -> bytes:
+    """`item` (an index and what was prepared) as the helper sends it; ``pickle.loads`` reads it."""
+    buffer = io.BytesIO()
+    _PipePickler(buffer, protocol=pickle.HIGHEST_PROTOCOL).dump(item)
+    return buffer.getvalue()
+
+
+# A frame on the pipe: the length of the pickle that follows, then the pickle.
+_LENGTH_BYTES = 8
+
+
+def _write_frame(fd: int, payload: bytes) -> None:
+    data = memoryview(len(payload).to_bytes(_LENGTH_BYTES, "little") + payload)
+    while data:
+        data = data[os.write(fd, data):]
+
+
+def _read_exactly(file: io.FileIO, size: int) -> bytes | None:
+    """`size` bytes from `file`, or None when it ends first."""
+    chunks = []
+    while size:
+        chunk = file.read(size)
+        if not chunk:
+            return None
+        chunks.append(chunk)
+        size -= len(chunk)
+    return b"".join(chunks)
 
 
 def prepare(path: str, expectations: Expectations | None) -> Prepared | Unusable:
@@ -186,9 +221,10 @@ class Preparation:
         self.working = working
         self.helper_pid: int | None = None
         self.taken_here = 0  # files this process prepared while the helper was busy
-        self._from_helper: Connection | None = None
+        self._from_helper: io.FileIO | None = None  # the read end of the helper's pipe (unbuffered)
         self._back = len(self.paths)  # from here on, the files are this process's
-        self._shared_back: Any = None  # `_back` as the helper reads it (a RawValue), once forked
+        self._shared_memory: mmap.mmap | None = None  # shared with the helper, once forked
+        self._shared_back: memoryview | None = None  # `_back` as the helper reads it: [0]
         self._kept: dict[int, Prepared | Unusable] = {}
         self._next = 0  # the index of the next item the iteration hands out
         if helper and len(self.paths) > 1:
@@ -209,7 +245,13 @@ class Preparation:
         index = self._next
         if index >= len(self.paths) or index >= self._back:
             return True
-        return self._from_helper is not None and self._from_helper.poll()
+        return self._from_helper is not None and self._helper_has_sent()
+
+    def _helper_has_sent(self, timeout: float = 0.0) -> bool:
+        """Whether the helper's pipe has something to read (a result, or its end), waiting up to
+        `timeout` seconds for it."""
+        assert self._from_helper is not None
+        return bool(select.select([self._from_helper], [], [], timeout)[0])
 
     def close(self) -> None:
         """Stop the helper (if it still runs) and reap it."""
@@ -222,10 +264,15 @@ class Preparation:
             with contextlib.suppress(ChildProcessError):
                 os.waitpid(self.helper_pid, 0)
             self.helper_pid = None
+        if self._shared_memory is not None:
+            assert self._shared_back is not None
+            self._shared_back.release()
+            self._shared_memory.close()
+            self._shared_memory = self._shared_back = None
 
     def _item(self, index: int) -> Prepared | Unusable:
         while index < self._back and self._from_helper is not None:
-            if not self._from_helper.poll() and self._back - 1 > index:
+            if not self._helper_has_sent() and self._back - 1 > index:
                 self._take_from_back()  # the helper is on `index`: the last free file is done here
                 continue
             received = self._receive()
@@ -236,8 +283,9 @@ class Preparation:
         return prepare(self.paths[index], self.expectations)  # no helper (any more)
 
     def _take_from_back(self) -> None:
+        assert self._shared_back is not None
         self._back -= 1
-        self._shared_back.value = self._back
+        self._shared_back[0] = self._back
         self._kept[self._back] = prepare(self.paths[self._back], self.expectations)
         self.taken_here += 1
 
@@ -245,8 +293,11 @@ class Preparation:
         """The helper's next (index, item), or None when the helper is gone (then stopped)."""
         assert self._from_helper is not None
         try:
-            received = self._from_helper.recv()
-            index, item = received
+            header = _read_exactly(self._from_helper, _LENGTH_BYTES)
+            payload = _read_exactly(self._from_helper, int.from_bytes(header, "little")) if header else None
+            if payload is None:
+                raise EOFError("the helper is gone")
+            index, item = pickle.loads(payload)
             if not isinstance(index, int) or not isinstance(item, (Prepared, Unusable)):
                 raise TypeError(type(item).__name__)
         except Exception:  # gone (EOFError, OSError) or an answer that cannot be read
@@ -255,35 +306,43 @@ class Preparation:
         return index, item
 
     def _fork(self) -> None:
-        from multiprocessing import Pipe, RawValue
-
         # lark is not loaded here for both: most cards read without it (parser.plain_card), and a
-        # process that meets a card needing it loads it then.
-        self._shared_back = RawValue("l", self._back)
-        receiving, sending = Pipe(duplex=False)
-        pid = os.fork()
+        # process that meets a card needing it loads it then. The one shared number is 8 bytes of
+        # an anonymous shared mapping, written in one store (as multiprocessing's RawValue is, but
+        # without importing multiprocessing and ctypes: ~8 ms); results come through a plain pipe.
+        self._shared_memory = mmap.mmap(-1, 8, flags=mmap.MAP_SHARED)
+        self._shared_back = memoryview(self._shared_memory).cast("q")
+        self._shared_back[0] = self._back
+        receiving, sending = os.pipe()
+        try:
+            pid = os.fork()
+        except BaseException:
+            os.close(receiving)
+            os.close(sending)
+            raise
         if pid == 0:  # the helper
             code = 1
             try:
-                receiving.close()
-                keep = sending.fileno()
                 # Every other descriptor goes, the pipes to the ngspice worker among them: the
                 # helper never simulates, and the worker must see its client alone.
-                os.closerange(3, keep)
-                os.closerange(keep + 1, os.sysconf("SC_OPEN_MAX"))
+                os.closerange(3, sending)
+                os.closerange(sending + 1, os.sysconf("SC_OPEN_MAX"))
+                shared_back = self._shared_back
                 index = 0
-                while index < self._shared_back.value:
-                    item = without_written_fields(prepare(self.paths[index], self.expectations))
-                    sending.send((index, item if self.working else without_working(item)))
+                while index < shared_back[0]:
+                    item = prepare(self.paths[index], self.expectations)
+                    item = item if self.working else without_working(item)
+                    _write_frame(sending, pickled_for_the_pipe((index, item)))
                     index += 1
                 code = 0
             except BaseException:  # noqa: BLE001 - the parent prepares what was not sent
                 pass
             finally:
                 os._exit(code)  # no atexit handlers, no flushing of buffers the parent owns
-        sending.close()
+        os.close(sending)
         self.helper_pid = pid
-        self._from_helper = receiving
+        # Unbuffered, so that `select` sees every byte not yet read; closed with its object.
+        self._from_helper = io.FileIO(receiving, "rb")
 
 
 T = TypeVar("T")

@@ -8,8 +8,10 @@ with a real signal.
 from __future__ import annotations
 
 import errno
+import io
 import json
 import os
+import pickle
 import pty
 import re
 import select
@@ -95,6 +97,57 @@ def test_without_the_working_shown_the_helper_sends_the_same_columns_without_it(
     assert any(element.written for element in here[0].circuit.elements)
 
 
+def test_the_pipe_pickles_each_element_without_its_fields_as_written_and_leaves_the_original(tmp_path):
+    # The helper's pickler leaves `Element.written` (lint's alone) out of the pickle, not out of
+    # the element it pickles; every other field, and all else prepared, arrives unchanged.
+    ready = prepare(mixed_inputs(tmp_path)[0], None)
+    assert isinstance(ready, Prepared)
+    written_before = [dict(element.written) for element in ready.circuit.elements]
+    assert any(written_before)
+    index, arrived = pickle.loads(ahead.pickled_for_the_pipe((7, ready)))
+    assert index == 7 and arrived == ready and arrived.own == ready.own
+    for element, original in zip(arrived.circuit.elements, ready.circuit.elements, strict=True):
+        assert element.written == {}
+        assert vars(element) | {"written": original.written} == vars(original)
+    assert [dict(element.written) for element in ready.circuit.elements] == written_before
+
+
+def test_a_result_larger_than_the_pipe_holds_arrives_whole(tmp_path):
+    # A pipe holds 64 KiB (pipe(7)): a larger pickle is read in pieces, as the writer frees room.
+    ready = prepare(mixed_inputs(tmp_path)[0], None)
+    assert isinstance(ready, Prepared)
+    large = Prepared(replace(ready.circuit, title="greenhouse vent fan driver " * 8000), ready.own)
+    payload = ahead.pickled_for_the_pipe((3, large))
+    assert len(payload) > 1 << 17
+    receiving, sending = os.pipe()
+    preparation = Preparation([], None, helper=False)
+    preparation._from_helper = io.FileIO(receiving, "rb")
+    writer = threading.Thread(target=ahead._write_frame, args=(sending, payload))
+    writer.start()
+    try:
+        assert preparation._receive() == (3, large)
+    finally:
+        writer.join()
+        os.close(sending)
+        preparation.close()
+
+
+_PREPARE_AHEAD_AND_LIST_MULTIPROCESSING = (
+    "import sys; from bridge.ahead import Preparation; preparation = Preparation(sys.argv[1:], None, helper=True); "
+    "forked = preparation.helper_pid is not None; items = list(preparation); "
+    "print(len(items), forked, 'multiprocessing' in sys.modules)"
+)
+
+
+def test_a_forked_helper_brings_no_multiprocessing(tmp_path):
+    # Its pipe is a plain one and the number it shares 8 bytes of a shared mapping: the fork
+    # costs no import of multiprocessing (its connections, ctypes behind RawValue).
+    paths = mixed_inputs(tmp_path)
+    completed = subprocess.run([sys.executable, "-c", _PREPARE_AHEAD_AND_LIST_MULTIPROCESSING, *paths],
+                               capture_output=True, text=True, timeout=60, check=True)
+    assert completed.stdout.split() == [str(len(paths)), "True", "False"]
+
+
 @needs_library
 def test_a_many_file_check_shows_each_derivation_with_the_helper_as_without(tmp_path, capsys, monkeypatch):
     # --steps keeps the working on its way through the helper's pipe.
@@ -149,7 +202,7 @@ def test_the_helper_holds_none_of_the_pipes_to_the_ngspice_worker(tmp_path):
         session.spawn()
         preparation = Preparation(paths, None, helper=True)
         pid = preparation.helper_pid
-        assert preparation._from_helper.poll(30)  # it has sent a result: past its start
+        assert preparation._helper_has_sent(30)  # it has sent a result: past its start
         os.kill(pid, signal.SIGSTOP)
         try:
             held = {int(fd) for fd in os.listdir(f"/proc/{pid}/fd")} - {0, 1, 2}
