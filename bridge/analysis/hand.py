@@ -44,6 +44,9 @@ from ..devices.mos1 import (
     threshold,
 )
 from ..devices.mos1.load import (
+    DeviceConstants,
+    device_constants,
+    evaluate_with,
     saturation_overdrive,
     saturation_overdrive_quadratic,
     square_law,
@@ -296,6 +299,86 @@ def _held_numbers(dc: _DcCircuit, stage: _Stage) -> _HeldNumbers:
         vgs, region = triode_channel_bias(t.model, t.geometry, -vt, current), "triode"  # VOV = VGS − Vt
     free[d] = vs + p * vgs
     return _HeldNumbers(current, free, region, vov_sat, vs=vs, vgs=vgs)
+
+
+# --- an effect switched on: the affine stage solved in ID ---------------------------------------
+
+_ROOT_ITERATIONS = 100  # bound on the scalar Newton (it takes 2–6 from the plain point)
+_ROOT_SETTLED = 1e-12  # a step this small (relative to ID) is the last: the next would be rounding
+
+
+def _affine_with_effects(
+    dc: _DcCircuit, topology: str, stage: _Stage, chosen: frozenset[str], start: Mapping[str, float] | None
+) -> HandSolution | None:
+    """The bias point of an affine stage (``_affine_numbers``'s: no held node) with `chosen`
+    switched on in `dc`'s transistor: the same network, each node V = base + ID·response, and
+    ID = id(V(ID)) of the device with the effects, solved for ID by Newton safeguarded by
+    bisection (``_current_root``). No working: for the attribution's re-solves. None where the
+    root is not found or does not hold at the device equations (the caller then takes the
+    numerical path, ``compiled_network.HandNetwork``).
+
+    The root is the numerical path's to rounding (both solve the same equations to the last
+    digit they test), without compiling the circuit for Newton. `start` (the plain hand point)
+    gives the first guess of ID: the plain device's current there."""
+    t, net = dc.transistors[0], stage.network
+    base = _solve_network(net, net.nodes, 0.0)
+    assert stage.response is not None
+    response = dict(zip(net.nodes, stage.response.tolist(), strict=True))
+    guess = 0.0
+    if start is not None and all(n in start for n in (t.drain, t.gate, t.source, t.bulk)):
+        plain = stage.transistor  # the model the stage was recognised with
+        guess = max(evaluate(plain.model, plain.geometry, start[t.drain], start[t.gate], start[t.source],
+                             start[t.bulk]).id, 0.0)  # fmt: skip
+    terminals = [(dc.fixed[n], 0.0) if n in dc.fixed else (base[n], response[n])
+                 for n in (t.drain, t.gate, t.source, t.bulk)]  # fmt: skip
+    if t.polarity * (terminals[0][0] - terminals[2][0]) < 0.0:
+        return None  # with ID = 0 the drain sits below the source: roles swapped, as _affine_numbers says
+    current = _current_root(device_constants(t.model, t.geometry), terminals, guess)
+    if current is None:
+        return None
+    voltages = {**dc.fixed, **{n: base[n] + current * response[n] for n in net.nodes}}
+    point = _device_points(dc, voltages)[t.name]
+    if not math.isclose(point.id, current, rel_tol=1e-9, abs_tol=1e-15):
+        return None
+    return HandSolution(topology, False, _all_nodes(dc, voltages), {t.name: _hand_device(point)}, (), (), chosen)
+
+
+def _current_root(
+    constants: DeviceConstants, terminals: Sequence[tuple[float, float]], guess: float
+) -> float | None:
+    """The ID ≥ 0 at which the device carries ID with each terminal (drain, gate, source, bulk) at
+    offset + ID·slope (`terminals`): the root of f(ID) = ID − id, by Newton (f′ from the
+    device's terminal conductances, the exact derivatives a solver stamps) kept inside the
+    bracket f changes sign in, bisecting where a step leaves it. f(0) = −id ≤ 0 (the drain is not
+    below the source at ID = 0, ``_affine_numbers``); None where f′ ≤ 0 (the bias network no longer
+    feeds ID back negatively: the root need not be the one Newton in the circuit finds) or the
+    iterations run out."""
+    (vd, sd), (vg, sg), (vs, ss), (vb, sb) = terminals
+    polarity = constants.polarity
+    low, high = 0.0, math.inf
+    current = guess
+    for _ in range(_ROOT_ITERATIONS):
+        point = evaluate_with(constants, vd + current * sd, vg + current * sg, vs + current * ss, vb + current * sb)
+        excess = current - point.id
+        if excess == 0.0:
+            return current
+        if excess > 0.0:
+            high = current
+        else:
+            low = current
+        gd, gg, gs, gb = point.conductances
+        slope = 1.0 - polarity * (gd * sd + gg * sg + gs * ss + gb * sb)  # id = polarity·drain current
+        if not slope > 0.0:
+            return None
+        following = current - excess / slope
+        if not low <= following <= high:
+            following = 0.5 * (low + high)
+        if not math.isfinite(following):
+            return None
+        if abs(following - current) <= _ROOT_SETTLED * abs(following):
+            return following
+        current = following
+    return None
 
 
 # --- the numerical path -----------------------------------------------------------------------
@@ -585,6 +668,10 @@ def _solve(
     """The numbers, and with `working` what their text is written from (written when read)."""
     topology, stage, reason = recognised
     if not working and (chosen or not closed_form or stage is None):
+        if chosen and closed_form and stage is not None and reason is None and stage.held_node is None:
+            solved = _affine_with_effects(dc, topology, stage, chosen, start)
+            if solved is not None:
+                return solved
         return _numerical_solution(circuit, dc, topology, chosen, None, start=start)
     if chosen:
         reason = f"{_effect_text(dc, chosen)} switched on — the closed forms assume λ = γ = 0" + (

@@ -1,0 +1,160 @@
+"""The attribution's re-solves of an affine stage (one MOSFET, no held node) with one effect
+switched on: solved for ID on the closed form's own network (``hand._affine_with_effects``),
+without compiling the circuit for the DC solver's Newton, and the same point as that numerical
+path gives (``closed_form=False``) to rounding.
+
+The stages are a greenhouse sensor board's, written for these tests: a fan driver, a soil
+probe's buffer, a PMOS heater switch, a vent motor's driver pushed into triode and a lamp
+driver left in cutoff.
+"""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+
+from bridge.analysis.hand import HandModel
+from bridge.netlist import parse_netlist
+
+# Numbers the two paths must share: both solve the same equations to their last digits.
+REL = 1e-12
+
+FAN = """Greenhouse board: fan driver, common source, divider bias, source resistor
+VDD vdd 0 12
+R1 vdd g 330k
+R2 g 0 100k
+RD vdd d 3.3k
+RS s 0 680
+M1 d g s 0 nfan W=40u L=2u
+.model nfan nmos (vto=0.9 kp=95u lambda=0.03 gamma=0.5 phi=0.65)
+.op
+.end
+"""
+
+PROBE = """Greenhouse board: soil probe buffer, drain-to-gate feedback
+VDD vdd 0 5
+RD vdd d 22k
+RF d g 1meg
+RG g 0 470k
+RS s 0 1.2k
+M1 d g s 0 nprobe W=10u L=1u
+.model nprobe nmos (vto=0.6 kp=120u lambda=0.05 gamma=0.35 phi=0.7)
+.op
+.end
+"""
+
+HEATER = """Greenhouse board: heater switch, PMOS common source, source resistor
+VDD vdd 0 9
+R1 vdd g 100k
+R2 g 0 220k
+RS vdd s 330
+RD d 0 1k
+M1 d g s vdd pheat W=80u L=2u
+.model pheat pmos (vto=-1.1 kp=40u lambda=0.04 gamma=0.55 phi=0.7)
+.op
+.end
+"""
+
+# RD large enough that the vent driver sits in triode.
+VENT = """Greenhouse board: vent motor driver in triode
+VDD vdd 0 5
+R1 vdd g 100k
+R2 g 0 100k
+RD vdd d 47k
+RS s 0 100
+M1 d g s 0 nvent W=100u L=1u
+.model nvent nmos (vto=0.7 kp=150u lambda=0.06 gamma=0.45 phi=0.7)
+.op
+.end
+"""
+
+# The gate below threshold: the lamp driver is off with either effect.
+LAMP = """Greenhouse board: grow-lamp driver, gate below threshold
+VDD vdd 0 12
+R1 vdd g 1meg
+R2 g 0 47k
+RD vdd d 1k
+RS s 0 220
+M1 d g s 0 nlamp W=20u L=2u
+.model nlamp nmos (vto=1.2 kp=100u lambda=0.02 gamma=0.5 phi=0.7)
+.op
+.end
+"""
+
+STAGES = {"fan": FAN, "probe": PROBE, "heater": HEATER, "vent": VENT, "lamp": LAMP}
+
+
+def _close(a: float, b: float) -> bool:
+    return math.isclose(a, b, rel_tol=REL, abs_tol=1e-15)
+
+
+@pytest.mark.parametrize("name", sorted(STAGES))
+@pytest.mark.parametrize("effect", ["lambda", "gamma"])
+def test_an_affine_stage_is_re_solved_for_id_without_the_dc_solver(name: str, effect: str) -> None:
+    circuit = parse_netlist(STAGES[name], f"{name}.cir")
+    model = HandModel(circuit)
+    plain = model.solve()
+    assert plain.closed_form
+    moved = model.solve(effects={effect}, working=False, start=plain.node_voltages)
+    assert not model._dc.solver  # no network compiled for the DC solver's Newton
+    numerical = HandModel(circuit).solve(effects={effect}, closed_form=False, working=False,
+                                         start=plain.node_voltages)
+    assert moved.effects == numerical.effects == frozenset({effect})
+    assert not moved.closed_form  # solved numerically (for ID), as the text of such a point says
+    assert moved.node_voltages.keys() == numerical.node_voltages.keys()
+    for node, value in moved.node_voltages.items():
+        assert math.isclose(value, numerical.node_voltages[node], rel_tol=REL, abs_tol=1e-12), node
+    (device,), (reference,) = moved.devices.values(), numerical.devices.values()
+    assert device.region == reference.region
+    for quantity in ("id", "vgs", "vds", "vth", "vov", "gm", "gds"):
+        assert _close(getattr(device, quantity), getattr(reference, quantity)), quantity
+
+
+def test_the_re_solves_reach_the_regions_they_name() -> None:
+    """Each stage where its name says, so the cases above cover saturation, triode and cutoff,
+    and the effect moves the point (λ raises a saturated device's current)."""
+    regions = {}
+    for name, text in STAGES.items():
+        model = HandModel(parse_netlist(text, f"{name}.cir"))
+        plain = model.solve()
+        moved = model.solve(effects={"lambda"}, working=False, start=plain.node_voltages)
+        (device,), (before,) = moved.devices.values(), plain.devices.values()
+        regions[name] = device.region
+        if device.region == "saturation":
+            assert device.id > before.id
+    assert regions == {"fan": "saturation", "probe": "saturation", "heater": "saturation", "vent": "triode",
+                       "lamp": "cutoff"}
+
+
+def test_the_re_solve_without_a_start_finds_the_same_point() -> None:
+    circuit = parse_netlist(FAN, "fan.cir")
+    model = HandModel(circuit)
+    plain = model.solve()
+    started = model.solve(effects={"gamma"}, working=False, start=plain.node_voltages)
+    cold = model.solve(effects={"gamma"}, working=False)
+    (a,), (b,) = started.devices.values(), cold.devices.values()
+    assert _close(a.id, b.id) and _close(a.vth, b.vth)
+
+
+# The source held only by a current source: no affine form, the numerical path re-solves it.
+FOLLOWER = """Greenhouse board: humidity sensor follower, current-source load
+VDD vdd 0 5
+VG g 0 3
+I1 s 0 200u
+M1 vdd g s 0 nhum W=20u L=2u
+.model nhum nmos (vto=0.7 kp=100u lambda=0.02 gamma=0.45 phi=0.7)
+.op
+.end
+"""
+
+
+def test_a_stage_with_a_held_source_is_re_solved_by_the_dc_solver() -> None:
+    model = HandModel(parse_netlist(FOLLOWER, "follower.cir"))
+    plain = model.solve()
+    assert plain.closed_form
+    moved = model.solve(effects={"gamma"}, working=False, start=plain.node_voltages)
+    assert len(model._dc.solver) == 1
+    (device,) = moved.devices.values()
+    assert math.isclose(device.id, 200e-6, rel_tol=1e-9)  # the current source sets ID
+    assert device.vth > plain.devices["M1"].vth  # the source above the bulk: the threshold rises
