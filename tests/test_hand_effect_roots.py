@@ -1,11 +1,13 @@
-"""The attribution's re-solves of an affine stage (one MOSFET, no held node) with one effect
-switched on: solved for ID on the closed form's own network (``hand._affine_with_effects``),
-without compiling the circuit for the DC solver's Newton, and the same point as that numerical
-path gives (``closed_form=False``) to rounding.
+"""The attribution's re-solves of a stage a closed form covers, with one effect switched on:
+solved for one unknown on the closed form's own network (ID of an affine stage,
+``hand._affine_with_effects``; the held node's voltage, ``hand._held_with_effects``), without
+compiling the circuit for the DC solver's Newton, and the same point as that numerical path
+gives (``closed_form=False``) to rounding.
 
 The stages are a greenhouse sensor board's, written for these tests: a fan driver, a soil
 probe's buffer, a PMOS heater switch, a vent motor's driver pushed into triode and a lamp
-driver left in cutoff.
+driver left in cutoff, a humidity sensor's follower and a light sensor's mirror reference (each
+held by a current source), and a pump driver's cascode (two MOSFETs: the DC solver's).
 """
 
 from __future__ import annotations
@@ -82,7 +84,44 @@ M1 d g s 0 nlamp W=20u L=2u
 .end
 """
 
-STAGES = {"fan": FAN, "probe": PROBE, "heater": HEATER, "vent": VENT, "lamp": LAMP}
+# The source held only by a current source: ID is the source's, the source node moves.
+FOLLOWER = """Greenhouse board: humidity sensor follower, current-source load
+VDD vdd 0 5
+VG g 0 3
+I1 s 0 200u
+M1 vdd g s 0 nhum W=20u L=2u
+.model nhum nmos (vto=0.7 kp=100u lambda=0.02 gamma=0.45 phi=0.7)
+.op
+.end
+"""
+
+# A diode-connected PMOS fed only by a current source, its bulk on the rail and its source
+# below it through a resistor: the drain (and gate) node is held.
+MIRROR = """Greenhouse board: light sensor mirror reference, PMOS diode fed by a current source
+VDD vdd 0 5
+RS vdd s 2.2k
+M1 d d s vdd pref W=30u L=3u
+I1 d 0 150u
+.model pref pmos (vto=-0.8 kp=45u lambda=0.04 gamma=0.5 phi=0.7)
+.op
+.end
+"""
+
+# Two MOSFETs: no closed form, the re-solves stay with the DC solver.
+CASCODE = """Greenhouse board: pump driver cascode
+VDD vdd 0 12
+VB1 b1 0 1.6
+VB2 b2 0 4
+RD vdd d 4.7k
+M2 d b2 x 0 npump W=40u L=2u
+M1 x b1 0 0 npump W=40u L=2u
+.model npump nmos (vto=0.8 kp=100u lambda=0.03 gamma=0.4 phi=0.7)
+.op
+.end
+"""
+
+STAGES = {"fan": FAN, "probe": PROBE, "heater": HEATER, "vent": VENT, "lamp": LAMP, "follower": FOLLOWER,
+          "mirror": MIRROR}
 
 
 def _close(a: float, b: float) -> bool:
@@ -91,7 +130,7 @@ def _close(a: float, b: float) -> bool:
 
 @pytest.mark.parametrize("name", sorted(STAGES))
 @pytest.mark.parametrize("effect", ["lambda", "gamma"])
-def test_an_affine_stage_is_re_solved_for_id_without_the_dc_solver(name: str, effect: str) -> None:
+def test_a_closed_form_stage_is_re_solved_without_the_dc_solver(name: str, effect: str) -> None:
     circuit = parse_netlist(STAGES[name], f"{name}.cir")
     model = HandModel(circuit)
     plain = model.solve()
@@ -113,7 +152,8 @@ def test_an_affine_stage_is_re_solved_for_id_without_the_dc_solver(name: str, ef
 
 def test_the_re_solves_reach_the_regions_they_name() -> None:
     """Each stage where its name says, so the cases above cover saturation, triode and cutoff,
-    and the effect moves the point (λ raises a saturated device's current)."""
+    and the effect moves the point as it should (λ raises a saturated device's current, except
+    where a current source holds it)."""
     regions = {}
     for name, text in STAGES.items():
         model = HandModel(parse_netlist(text, f"{name}.cir"))
@@ -121,10 +161,13 @@ def test_the_re_solves_reach_the_regions_they_name() -> None:
         moved = model.solve(effects={"lambda"}, working=False, start=plain.node_voltages)
         (device,), (before,) = moved.devices.values(), plain.devices.values()
         regions[name] = device.region
-        if device.region == "saturation":
+        assert type(device.id) is float  # plain floats, as the numerical path gives
+        if name in ("follower", "mirror"):
+            assert math.isclose(device.id, before.id, rel_tol=REL)  # the current source sets ID
+        elif device.region == "saturation":
             assert device.id > before.id
     assert regions == {"fan": "saturation", "probe": "saturation", "heater": "saturation", "vent": "triode",
-                       "lamp": "cutoff"}
+                       "lamp": "cutoff", "follower": "saturation", "mirror": "saturation"}
 
 
 def test_the_re_solve_without_a_start_finds_the_same_point() -> None:
@@ -137,24 +180,11 @@ def test_the_re_solve_without_a_start_finds_the_same_point() -> None:
     assert _close(a.id, b.id) and _close(a.vth, b.vth)
 
 
-# The source held only by a current source: no affine form, the numerical path re-solves it.
-FOLLOWER = """Greenhouse board: humidity sensor follower, current-source load
-VDD vdd 0 5
-VG g 0 3
-I1 s 0 200u
-M1 vdd g s 0 nhum W=20u L=2u
-.model nhum nmos (vto=0.7 kp=100u lambda=0.02 gamma=0.45 phi=0.7)
-.op
-.end
-"""
-
-
-def test_a_stage_with_a_held_source_is_re_solved_by_the_dc_solver() -> None:
-    model = HandModel(parse_netlist(FOLLOWER, "follower.cir"))
+def test_a_stage_of_two_mosfets_is_re_solved_by_the_dc_solver() -> None:
+    circuit = parse_netlist(CASCODE, "cascode.cir")
+    model = HandModel(circuit)
     plain = model.solve()
-    assert plain.closed_form
-    moved = model.solve(effects={"gamma"}, working=False, start=plain.node_voltages)
+    assert not plain.closed_form
+    moved = model.solve(effects={"lambda"}, working=False, start=plain.node_voltages)
     assert len(model._dc.solver) == 1
-    (device,) = moved.devices.values()
-    assert math.isclose(device.id, 200e-6, rel_tol=1e-9)  # the current source sets ID
-    assert device.vth > plain.devices["M1"].vth  # the source above the bulk: the threshold rises
+    assert moved.devices["M1"].id > plain.devices["M1"].id

@@ -301,10 +301,11 @@ def _held_numbers(dc: _DcCircuit, stage: _Stage) -> _HeldNumbers:
     return _HeldNumbers(current, free, region, vov_sat, vs=vs, vgs=vgs)
 
 
-# --- an effect switched on: the affine stage solved in ID ---------------------------------------
+# --- an effect switched on: a closed form's stage solved for one unknown -----------------------
 
 _ROOT_ITERATIONS = 100  # bound on the scalar Newton (it takes 2–6 from the plain point)
-_ROOT_SETTLED = 1e-12  # a step this small (relative to ID) is the last: the next would be rounding
+_ROOT_SETTLED = 1e-12  # a step this small (relative) is the last: the next would be rounding
+_HELD_SETTLED = 1e-15  # V: the same for a held node near 0 V
 
 
 def _affine_with_effects(
@@ -378,6 +379,58 @@ def _current_root(
         if abs(following - current) <= _ROOT_SETTLED * abs(following):
             return following
         current = following
+    return None
+
+
+def _held_with_effects(
+    dc: _DcCircuit, topology: str, stage: _Stage, chosen: frozenset[str], start: Mapping[str, float] | None
+) -> HandSolution | None:
+    """The bias point of a held stage (``_held_numbers``'s: a current source the only DC path of
+    the source, or of a diode-connected drain) with `chosen` switched on in `dc`'s transistor:
+    ID is still the source's current, the other nodes are the network's at that current, and the
+    held node's voltage is the one at which the device with the effects carries it, solved by
+    Newton from `start`'s (``_held_root``). No working; None without a start or where no root is
+    found (the caller then takes the numerical path)."""
+    t, net = dc.transistors[0], stage.network
+    held, current = stage.held_node, float(stage.held_current)  # a numpy float from the injection
+    if start is None or held is None or held not in start:
+        return None
+    voltages = {**dc.fixed, **_solve_network(net, [n for n in net.nodes if n != held], current)}
+    nodes = (t.drain, t.gate, t.source, t.bulk)
+    if any(n != held and n not in voltages for n in nodes):
+        return None
+    level = _held_root(device_constants(t.model, t.geometry), [None if n == held else voltages[n] for n in nodes],
+                       current, start[held])  # fmt: skip
+    if level is None:
+        return None
+    voltages[held] = level
+    point = _device_points(dc, voltages)[t.name]
+    if not math.isclose(point.id, current, rel_tol=1e-9, abs_tol=1e-15):
+        return None
+    return HandSolution(topology, False, _all_nodes(dc, voltages), {t.name: _hand_device(point)}, (), (), chosen)
+
+
+def _held_root(
+    constants: DeviceConstants, terminals: Sequence[float | None], current: float, guess: float
+) -> float | None:
+    """The voltage of the held node (the terminals given as None; the others at their voltages)
+    at which the device carries `current`: Newton on id − `current`, its derivative the device's
+    conductances towards the held terminals. None where that derivative vanishes (cutoff) or the
+    iterations run out."""
+    polarity = constants.polarity
+    level = guess
+    for _ in range(_ROOT_ITERATIONS):
+        vd, vg, vs, vb = (level if v is None else v for v in terminals)
+        point = evaluate_with(constants, vd, vg, vs, vb)
+        slope = polarity * sum(g for g, v in zip(point.conductances, terminals, strict=True) if v is None)
+        if slope == 0.0 or not math.isfinite(slope):
+            return None
+        following = level - (point.id - current) / slope
+        if not math.isfinite(following):
+            return None
+        if abs(following - level) <= _ROOT_SETTLED * abs(following) + _HELD_SETTLED:
+            return following
+        level = following
     return None
 
 
@@ -668,8 +721,9 @@ def _solve(
     """The numbers, and with `working` what their text is written from (written when read)."""
     topology, stage, reason = recognised
     if not working and (chosen or not closed_form or stage is None):
-        if chosen and closed_form and stage is not None and reason is None and stage.held_node is None:
-            solved = _affine_with_effects(dc, topology, stage, chosen, start)
+        if chosen and closed_form and stage is not None and reason is None:
+            solve = _affine_with_effects if stage.held_node is None else _held_with_effects
+            solved = solve(dc, topology, stage, chosen, start)
             if solved is not None:
                 return solved
         return _numerical_solution(circuit, dc, topology, chosen, None, start=start)
