@@ -54,6 +54,7 @@ from ..devices.mos1.load import (
     triode_current_quadratic,
 )
 from ..netlist.circuit import GROUND, Circuit, Element
+from ..records import with_fields
 from ..vocabulary import EFFECTS as _EFFECT_ORDER
 from ..vocabulary import Step
 from .compiled_network import HandNetwork
@@ -308,6 +309,28 @@ _ROOT_SETTLED = 1e-12  # a step this small (relative) is the last: the next woul
 _HELD_SETTLED = 1e-15  # V: the same for a held node near 0 V
 
 
+_SPLIT = 134217729.0  # 2**27 + 1: Veltkamp's split of a double into two halves of 26 bits
+
+
+def _shifted(offset: float, slope: float, current: float) -> float:
+    """offset + current·slope with the product's rounding error put back (Dekker's exact
+    product): a node that ID pulls near zero from a large offset (a drain in deep triode, 5 V −
+    4.97 V) keeps the digits the numerical path's node voltage has, and the device's current
+    there with it."""
+    product = current * slope
+    if product == 0.0 or not math.isfinite(product):
+        return offset + product
+    c = _SPLIT * current
+    current_high = c - (c - current)
+    current_low = current - current_high
+    c = _SPLIT * slope
+    slope_high = c - (c - slope)
+    slope_low = slope - slope_high
+    error = ((current_high * slope_high - product) + current_high * slope_low + current_low * slope_high
+             + current_low * slope_low)  # fmt: skip
+    return (offset + product) + error
+
+
 def _affine_with_effects(
     dc: _DcCircuit, topology: str, stage: _Stage, chosen: frozenset[str], start: Mapping[str, float] | None
 ) -> HandSolution | None:
@@ -337,11 +360,14 @@ def _affine_with_effects(
     current = _current_root(device_constants(t.model, t.geometry), terminals, guess)
     if current is None:
         return None
-    voltages = {**dc.fixed, **{n: base[n] + current * response[n] for n in net.nodes}}
+    voltages = {**dc.fixed, **{n: _shifted(base[n], response[n], current) for n in net.nodes}}
     point = _device_points(dc, voltages)[t.name]
     if not math.isclose(point.id, current, rel_tol=1e-9, abs_tol=1e-15):
         return None
-    return HandSolution(topology, False, _all_nodes(dc, voltages), {t.name: _hand_device(point)}, (), (), chosen)
+    # ID is the root itself: the device's current at the rounded node voltages can be off in its
+    # last digits where ID pulls a node near zero (in deep triode an ulp of ID is 1e-15 V of drain).
+    device = with_fields(_hand_device(point), id=current)
+    return HandSolution(topology, False, _all_nodes(dc, voltages), {t.name: device}, (), (), chosen)
 
 
 def _current_root(
@@ -359,7 +385,8 @@ def _current_root(
     low, high = 0.0, math.inf
     current = guess
     for _ in range(_ROOT_ITERATIONS):
-        point = evaluate_with(constants, vd + current * sd, vg + current * sg, vs + current * ss, vb + current * sb)
+        point = evaluate_with(constants, _shifted(vd, sd, current), _shifted(vg, sg, current),
+                              _shifted(vs, ss, current), _shifted(vb, sb, current))  # fmt: skip
         excess = current - point.id
         if excess == 0.0:
             return current
@@ -407,7 +434,16 @@ def _held_with_effects(
     point = _device_points(dc, voltages)[t.name]
     if not math.isclose(point.id, current, rel_tol=1e-9, abs_tol=1e-15):
         return None
-    return HandSolution(topology, False, _all_nodes(dc, voltages), {t.name: _hand_device(point)}, (), (), chosen)
+    device = _hand_device(point)
+    if all(n in start for n in nodes):
+        # ID is the current source's, with the effects as without: where `start` is the plain
+        # point, its own ID (the number the plain solution reports) is this one's, so that the
+        # effect moves ID by exactly 0, not by the rounding of two evaluations.
+        plain = stage.transistor
+        same = evaluate(plain.model, plain.geometry, *(start[n] for n in nodes)).id
+        if math.isclose(same, current, rel_tol=1e-9, abs_tol=1e-15):
+            device = with_fields(device, id=same)
+    return HandSolution(topology, False, _all_nodes(dc, voltages), {t.name: device}, (), (), chosen)
 
 
 def _held_root(
