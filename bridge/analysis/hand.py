@@ -20,7 +20,9 @@ The hand model, stated once:
   held only by a current source, or LAMBDA/GAMMA switched back on through ``effects`` — is the
   same model solved numerically, and the steps say so: the DC solver (``compiled_network.HandNetwork``)
   with the hand device, the same MOSFET without bulk junctions (so without the minimum
-  conductance ngspice puts across each junction either).
+  conductance ngspice puts across each junction either). The attribution's re-solves (one effect,
+  no working) of a stage a closed form covers solve the same equations for one unknown on the
+  closed form's own network instead (``_affine_with_effects``, ``_held_with_effects``).
 
 This module solves the closed forms and the numerical path on the circuit ``hand_circuit.py``
 reduces and recognises; ``hand_working.py`` writes the working from those numbers, only when
