@@ -233,3 +233,25 @@ def test_a_drain_in_deep_triode_keeps_its_digits() -> None:
     numerical = HandModel(circuit).solve(effects={"lambda"}, closed_form=False, working=False,
                                          start=plain.node_voltages)
     assert abs(Fraction(numerical.devices["M1"].id) - exact) <= exact * Fraction(1, 10**15)
+
+
+def test_the_current_root_is_the_square_law_s_and_refuses_positive_feedback() -> None:
+    """``_current_root`` alone: a saturated NMOS with its gate at 2 V and 1 kΩ under its source
+    (VOV = 2 − VTO − 1000·ID, ID = β/2·VOV², λ = γ = 0 on FAN's card: the quadratic written out
+    here); with the source's slope turned over (more ID, more overdrive: positive feedback) no
+    root is claimed."""
+    from bridge.analysis.hand import _current_root
+    from bridge.analysis.hand_circuit import hand_model
+    from bridge.devices.mos1.load import beta, device_constants
+
+    transistor = HandModel(parse_netlist(FAN, "fan.cir"))._dc.transistors[0]
+    model = hand_model(transistor.card)
+    gain, u, r = beta(model, transistor.geometry), 2.0 - model.vto, 1000.0
+    # β/2·(u − r·ID)² = ID  →  (β·r²/2)·ID² − (β·u·r + 1)·ID + β·u²/2 = 0, the smaller root.
+    a, b, c = gain * r * r / 2, -(gain * u * r + 1.0), gain * u * u / 2
+    expected = (-b - math.sqrt(b * b - 4 * a * c)) / (2 * a)
+    constants = device_constants(model, transistor.geometry)
+    terminals = [(5.0, 0.0), (2.0, 0.0), (0.0, r), (0.0, 0.0)]  # drain, gate, source, bulk
+    assert math.isclose(_current_root(constants, terminals, 0.0), expected, rel_tol=1e-13)
+    assert math.isclose(_current_root(constants, terminals, 1e-3), expected, rel_tol=1e-13)
+    assert _current_root(constants, [(5.0, 0.0), (2.0, 0.0), (0.0, -r), (0.0, 0.0)], 1e-4) is None

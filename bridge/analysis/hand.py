@@ -357,8 +357,9 @@ def _affine_with_effects(
                              start[t.bulk]).id, 0.0)  # fmt: skip
     terminals = [(dc.fixed[n], 0.0) if n in dc.fixed else (base[n], response[n])
                  for n in (t.drain, t.gate, t.source, t.bulk)]  # fmt: skip
-    if t.polarity * (terminals[0][0] - terminals[2][0]) < 0.0:
-        return None  # with ID = 0 the drain sits below the source: roles swapped, as _affine_numbers says
+    (vd, sd), (vg, sg), (vs, ss), _ = terminals
+    if t.polarity * (vd - vs) < 0.0 or -t.polarity * (sg - ss) < -1e-9 * max(-t.polarity * (sd - ss), 1.0):
+        return None  # as _affine_numbers: roles swapped at ID = 0, or ID fed back positively (Rg < 0)
     current = _current_root(device_constants(t.model, t.geometry), terminals, guess)
     if current is None:
         return None
