@@ -438,11 +438,11 @@ def _held_with_effects(
     if not math.isclose(point.id, current, rel_tol=1e-9, abs_tol=1e-15):
         return None
     device = _hand_device(point)
-    if all(n in start for n in nodes):
+    plain = stage.transistor  # recognised with the plain hand model (HandModel), or with the effects
+    if plain.model.lambda_ == 0.0 and plain.model.gamma == 0.0 and all(n in start for n in nodes):
         # ID is the current source's, with the effects as without: where `start` is the plain
         # point, its own ID (the number the plain solution reports) is this one's, so that the
         # effect moves ID by exactly 0, not by the rounding of two evaluations.
-        plain = stage.transistor
         same = evaluate(plain.model, plain.geometry, *(start[n] for n in nodes)).id
         if math.isclose(same, current, rel_tol=1e-9, abs_tol=1e-15):
             device = with_fields(device, id=same)
