@@ -403,7 +403,7 @@ def _current_root(
             return None
         following = current - excess / slope
         if not low <= following <= high:
-            following = 0.5 * (low + high)
+            following = (low + high) / 2.0  # bisection
         if not math.isfinite(following):
             return None
         if abs(following - current) <= _ROOT_SETTLED * abs(following):
