@@ -189,7 +189,9 @@ def test_small_blocks_passed_without_the_rank_test_would_pass_it() -> None:
 def test_the_attribution_re_solves_share_one_reduction(monkeypatch):
     """The hand's one-effect re-solves (λ alone, γ alone) run on networks that differ only in
     their devices: the linear part is reduced once for both, not once per re-solve, and the
-    answers are those of a model that reduced its own network (to the bit)."""
+    answers are those of a model that reduced its own network (to the bit). The numerical path
+    is asked for (``closed_form=False``): an affine stage's re-solves reduce no network at all
+    (``hand._affine_with_effects``)."""
     from bridge.analysis.hand import HandModel
 
     circuit = parse_netlist(DYNAMO, "dynamo.cir")
@@ -204,11 +206,12 @@ def test_the_attribution_re_solves_share_one_reduction(monkeypatch):
     model = HandModel(circuit)
     plain = model.solve()
     assert plain.closed_form  # the plain hand solves no network: the re-solves are the first
-    shared = {effect: model.solve(effects={effect}, working=False, start=plain.node_voltages)
+    shared = {effect: model.solve(effects={effect}, closed_form=False, working=False, start=plain.node_voltages)
               for effect in ("lambda", "gamma")}
     assert reductions == [0.0]
     for effect, solution in shared.items():
-        alone = HandModel(circuit).solve(effects={effect}, working=False, start=plain.node_voltages)
+        alone = HandModel(circuit).solve(effects={effect}, closed_form=False, working=False,
+                                         start=plain.node_voltages)
         assert solution.node_voltages == alone.node_voltages
         assert solution.devices == alone.devices
 

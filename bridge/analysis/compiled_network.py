@@ -2,7 +2,7 @@
 analysis's numerical path, the circuit compiled for the hand device and solved by
 the DC solver's Newton (``bridge.analysis.dcsolve``: limiting, gmin then source stepping, the same
 convergence tests), for a hand model no closed form covers and for the attribution's re-solves
-with one effect switched on. The hand analysis (``hand.py``) asks it; it asks dcsolve.
+of such circuits with one effect switched on. The hand analysis (``hand.py``) asks it; it asks dcsolve.
 """
 
 from __future__ import annotations

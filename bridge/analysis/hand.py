@@ -20,7 +20,9 @@ The hand model, stated once:
   held only by a current source, or LAMBDA/GAMMA switched back on through ``effects`` — is the
   same model solved numerically, and the steps say so: the DC solver (``compiled_network.HandNetwork``)
   with the hand device, the same MOSFET without bulk junctions (so without the minimum
-  conductance ngspice puts across each junction either).
+  conductance ngspice puts across each junction either). The attribution's re-solves (one effect,
+  no working) of a stage a closed form covers solve the same equations for one unknown on the
+  closed form's own network instead (``_affine_with_effects``, ``_held_with_effects``).
 
 This module solves the closed forms and the numerical path on the circuit ``hand_circuit.py``
 reduces and recognises; ``hand_working.py`` writes the working from those numbers, only when
@@ -44,6 +46,9 @@ from ..devices.mos1 import (
     threshold,
 )
 from ..devices.mos1.load import (
+    DeviceConstants,
+    device_constants,
+    evaluate_with,
     saturation_overdrive,
     saturation_overdrive_quadratic,
     square_law,
@@ -51,6 +56,7 @@ from ..devices.mos1.load import (
     triode_current_quadratic,
 )
 from ..netlist.circuit import GROUND, Circuit, Element
+from ..records import with_fields
 from ..vocabulary import EFFECTS as _EFFECT_ORDER
 from ..vocabulary import Step
 from .compiled_network import HandNetwork
@@ -296,6 +302,175 @@ def _held_numbers(dc: _DcCircuit, stage: _Stage) -> _HeldNumbers:
         vgs, region = triode_channel_bias(t.model, t.geometry, -vt, current), "triode"  # VOV = VGS − Vt
     free[d] = vs + p * vgs
     return _HeldNumbers(current, free, region, vov_sat, vs=vs, vgs=vgs)
+
+
+# --- an effect switched on: a closed form's stage solved for one unknown -----------------------
+
+_ROOT_ITERATIONS = 100  # bound on the scalar Newton (it takes 2–6 from the plain point)
+_ROOT_SETTLED = 1e-12  # a step this small (relative) is the last: the next would be rounding
+_HELD_SETTLED = 1e-15  # V: the same for a held node near 0 V
+
+
+_SPLIT = 134217729.0  # 2**27 + 1: Veltkamp's split of a double into two halves of 26 bits
+
+
+def _shifted(offset: float, slope: float, current: float) -> float:
+    """offset + current·slope with the product's rounding error put back (Dekker's exact
+    product): a node that ID pulls near zero from a large offset (a drain in deep triode, 5 V −
+    4.97 V) keeps the digits the numerical path's node voltage has, and the device's current
+    there with it."""
+    product = current * slope
+    if product == 0.0 or not math.isfinite(product):
+        return offset + product
+    c = _SPLIT * current
+    current_high = c - (c - current)
+    current_low = current - current_high
+    c = _SPLIT * slope
+    slope_high = c - (c - slope)
+    slope_low = slope - slope_high
+    error = ((current_high * slope_high - product) + current_high * slope_low + current_low * slope_high
+             + current_low * slope_low)  # fmt: skip
+    return (offset + product) + error
+
+
+def _affine_with_effects(
+    dc: _DcCircuit, topology: str, stage: _Stage, chosen: frozenset[str], start: Mapping[str, float] | None
+) -> HandSolution | None:
+    """The bias point of an affine stage (``_affine_numbers``'s: no held node) with `chosen`
+    switched on in `dc`'s transistor: the same network, each node V = base + ID·response, and
+    ID = id(V(ID)) of the device with the effects, solved for ID by Newton safeguarded by
+    bisection (``_current_root``). No working: for the attribution's re-solves. None where the
+    root is not found or does not hold at the device equations (the caller then takes the
+    numerical path, ``compiled_network.HandNetwork``).
+
+    The root is the numerical path's to rounding (both solve the same equations to the last
+    digit they test), without compiling the circuit for Newton. `start` (the plain hand point)
+    gives the first guess of ID: the plain device's current there."""
+    t, net = dc.transistors[0], stage.network
+    base = _solve_network(net, net.nodes, 0.0)
+    assert stage.response is not None
+    response = dict(zip(net.nodes, stage.response.tolist(), strict=True))
+    guess = 0.0
+    if start is not None and all(n in start for n in (t.drain, t.gate, t.source, t.bulk)):
+        plain = stage.transistor  # the model the stage was recognised with
+        guess = max(evaluate(plain.model, plain.geometry, start[t.drain], start[t.gate], start[t.source],
+                             start[t.bulk]).id, 0.0)  # fmt: skip
+    terminals = [(dc.fixed[n], 0.0) if n in dc.fixed else (base[n], response[n])
+                 for n in (t.drain, t.gate, t.source, t.bulk)]  # fmt: skip
+    (vd, sd), (vg, sg), (vs, ss), _ = terminals
+    if t.polarity * (vd - vs) < 0.0 or -t.polarity * (sg - ss) < -1e-9 * max(-t.polarity * (sd - ss), 1.0):
+        return None  # as _affine_numbers: roles swapped at ID = 0, or ID fed back positively (Rg < 0)
+    current = _current_root(device_constants(t.model, t.geometry), terminals, guess)
+    if current is None:
+        return None
+    voltages = {**dc.fixed, **{n: _shifted(base[n], response[n], current) for n in net.nodes}}
+    point = _device_points(dc, voltages)[t.name]
+    if not math.isclose(point.id, current, rel_tol=1e-9, abs_tol=1e-15):
+        return None
+    # ID is the root itself: the device's current at the rounded node voltages can be off in its
+    # last digits where ID pulls a node near zero (in deep triode an ulp of ID is 1e-15 V of drain).
+    device = with_fields(_hand_device(point), id=current)
+    return HandSolution(topology, False, _all_nodes(dc, voltages), {t.name: device}, (), (), chosen)
+
+
+def _current_root(
+    constants: DeviceConstants, terminals: Sequence[tuple[float, float]], guess: float
+) -> float | None:
+    """The ID ≥ 0 at which the device carries ID with each terminal (drain, gate, source, bulk) at
+    offset + ID·slope (`terminals`): the root of f(ID) = ID − id, by Newton (f′ from the
+    device's terminal conductances, the exact derivatives a solver stamps) kept inside the
+    bracket f changes sign in, bisecting where a step leaves it. f(0) = −id ≤ 0 (the drain is not
+    below the source at ID = 0, ``_affine_numbers``); None where f′ ≤ 0 (the bias network no longer
+    feeds ID back negatively: the root need not be the one Newton in the circuit finds) or the
+    iterations run out."""
+    (vd, sd), (vg, sg), (vs, ss), (vb, sb) = terminals
+    polarity = constants.polarity
+    low, high = 0.0, math.inf
+    current = guess
+    for _ in range(_ROOT_ITERATIONS):
+        point = evaluate_with(constants, _shifted(vd, sd, current), _shifted(vg, sg, current),
+                              _shifted(vs, ss, current), _shifted(vb, sb, current))  # fmt: skip
+        excess = current - point.id
+        if excess == 0.0:
+            return current
+        if excess > 0.0:
+            high = current
+        else:
+            low = current
+        gd, gg, gs, gb = point.conductances
+        slope = 1.0 - polarity * (gd * sd + gg * sg + gs * ss + gb * sb)  # id = polarity·drain current
+        if not slope > 0.0:
+            return None
+        following = current - excess / slope
+        if not low <= following <= high:
+            following = (low + high) / 2.0  # bisection
+        if not math.isfinite(following):
+            return None
+        if abs(following - current) <= _ROOT_SETTLED * abs(following):
+            return following
+        current = following
+    return None
+
+
+def _held_with_effects(
+    dc: _DcCircuit, topology: str, stage: _Stage, chosen: frozenset[str], start: Mapping[str, float] | None
+) -> HandSolution | None:
+    """The bias point of a held stage (``_held_numbers``'s: a current source the only DC path of
+    the source, or of a diode-connected drain) with `chosen` switched on in `dc`'s transistor:
+    ID is still the source's current, the other nodes are the network's at that current, and the
+    held node's voltage is the one at which the device with the effects carries it, solved by
+    Newton from `start`'s (``_held_root``). No working; None without a start or where no root is
+    found (the caller then takes the numerical path)."""
+    t, net = dc.transistors[0], stage.network
+    held, current = stage.held_node, float(stage.held_current)  # a numpy float from the injection
+    if start is None or held is None or held not in start:
+        return None
+    voltages = {**dc.fixed, **_solve_network(net, [n for n in net.nodes if n != held], current)}
+    nodes = (t.drain, t.gate, t.source, t.bulk)
+    if any(n != held and n not in voltages for n in nodes):
+        return None
+    level = _held_root(device_constants(t.model, t.geometry), [None if n == held else voltages[n] for n in nodes],
+                       current, start[held])  # fmt: skip
+    if level is None:
+        return None
+    voltages[held] = level
+    point = _device_points(dc, voltages)[t.name]
+    if not math.isclose(point.id, current, rel_tol=1e-9, abs_tol=1e-15):
+        return None
+    device = _hand_device(point)
+    plain = stage.transistor  # recognised with the plain hand model (HandModel), or with the effects
+    if plain.model.lambda_ == 0.0 and plain.model.gamma == 0.0 and all(n in start for n in nodes):
+        # ID is the current source's, with the effects as without: where `start` is the plain
+        # point, its own ID (the number the plain solution reports) is this one's, so that the
+        # effect moves ID by exactly 0, not by the rounding of two evaluations.
+        same = evaluate(plain.model, plain.geometry, *(start[n] for n in nodes)).id
+        if math.isclose(same, current, rel_tol=1e-9, abs_tol=1e-15):
+            device = with_fields(device, id=same)
+    return HandSolution(topology, False, _all_nodes(dc, voltages), {t.name: device}, (), (), chosen)
+
+
+def _held_root(
+    constants: DeviceConstants, terminals: Sequence[float | None], current: float, guess: float
+) -> float | None:
+    """The voltage of the held node (the terminals given as None; the others at their voltages)
+    at which the device carries `current`: Newton on id − `current`, its derivative the device's
+    conductances towards the held terminals. None where that derivative vanishes (cutoff) or the
+    iterations run out."""
+    polarity = constants.polarity
+    level = guess
+    for _ in range(_ROOT_ITERATIONS):
+        vd, vg, vs, vb = (level if v is None else v for v in terminals)
+        point = evaluate_with(constants, vd, vg, vs, vb)
+        slope = polarity * sum(g for g, v in zip(point.conductances, terminals, strict=True) if v is None)
+        if slope == 0.0 or not math.isfinite(slope):
+            return None
+        following = level - (point.id - current) / slope
+        if not math.isfinite(following):
+            return None
+        if abs(following - level) <= _ROOT_SETTLED * abs(following) + _HELD_SETTLED:
+            return following
+        level = following
+    return None
 
 
 # --- the numerical path -----------------------------------------------------------------------
@@ -585,6 +760,11 @@ def _solve(
     """The numbers, and with `working` what their text is written from (written when read)."""
     topology, stage, reason = recognised
     if not working and (chosen or not closed_form or stage is None):
+        if chosen and closed_form and stage is not None and reason is None:
+            solve = _affine_with_effects if stage.held_node is None else _held_with_effects
+            solved = solve(dc, topology, stage, chosen, start)
+            if solved is not None:
+                return solved
         return _numerical_solution(circuit, dc, topology, chosen, None, start=start)
     if chosen:
         reason = f"{_effect_text(dc, chosen)} switched on — the closed forms assume λ = γ = 0" + (
