@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import dataclasses
 import inspect
+import sys
 from collections.abc import Callable, Iterable
 from operator import attrgetter
 from reprlib import recursive_repr
@@ -59,7 +60,8 @@ def _make_record(cls: type, *, eq: bool, frozen: bool) -> type:
     explicit_hash = "__hash__" in own and not (own["__hash__"] is None and "__eq__" in own)
     for base in cls.__mro__[1:]:
         if "__dataclass_fields__" in base.__dict__ and (base.__setattr__ is _frozen_setattr) != frozen:
-            raise TypeError(f"record {cls.__qualname__}: frozen={frozen}, its base {base.__qualname__} is not")
+            raise TypeError(f"record {cls.__qualname__} (frozen={frozen}) cannot extend {base.__qualname__} "
+                            f"(frozen={not frozen})")
     if frozen and ("__setattr__" in own or "__delattr__" in own):
         raise TypeError(f"record {cls.__qualname__} is frozen: it cannot define __setattr__ or __delattr__")
     cls = dataclasses.dataclass(cls, init=False, repr=False, eq=False)
@@ -101,32 +103,37 @@ _FACTORY = _Factory()
 
 
 def _init_method(cls: type, fields: tuple[dataclasses.Field, ...], frozen: bool) -> Any:
-    """The ``__init__`` ``@dataclass`` generates for `fields`, compiled from its text."""
-    names = {f.name for f in fields}
-    self = "__record_self__" if "self" in names else "self"
-    scope: dict[str, Any] = {"__record_factory__": _FACTORY, "__record_set__": object.__setattr__}
+    """The ``__init__`` ``@dataclass`` generates for `fields`, compiled from its text as dataclass
+    compiles it: in the class's module (whose names its annotations read), the defaults and
+    factories handed in as a closure."""
+    self = "__record_self__" if any(f.name == "self" for f in fields) else "self"
+    closure: dict[str, Any] = {"__record_factory__": _FACTORY, "__record_set__": object.__setattr__}
     params, body = [self], []
     for f in fields:
         default = f"__record_default_{f.name}__"
-        if f.default_factory is not dataclasses.MISSING:
-            scope[default] = f.default_factory
-            value = f"{default}() if {f.name} is __record_factory__ else {f.name}" if f.init else f"{default}()"
-        elif f.init:
-            if f.default is not dataclasses.MISSING:
-                scope[default] = f.default
-            value = f.name
+        has_factory = f.default_factory is not dataclasses.MISSING
+        if has_factory:
+            closure[default] = f.default_factory
+        elif f.default is not dataclasses.MISSING:
+            closure[default] = f.default
+        if f.init:
+            params.append(f"{f.name}=__record_factory__" if has_factory
+                          else f"{f.name}={default}" if default in closure else f.name)
+            value = f"{default}() if {f.name} is __record_factory__ else {f.name}" if has_factory else f.name
+        elif has_factory:
+            value = f"{default}()"
         else:
             continue  # the class attribute holds its default (or nothing sets it)
-        if f.init:
-            params.append(f.name if f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING
-                          else f"{f.name}={default}" if f.default is not dataclasses.MISSING
-                          else f"{f.name}=__record_factory__")
         body.append(f"__record_set__({self}, {f.name!r}, {value})" if frozen else f"{self}.{f.name} = {value}")
     if hasattr(cls, "__post_init__"):
         body.append(f"{self}.__post_init__()")
-    text = f"def __init__({', '.join(params)}):\n" + "".join(f"    {line}\n" for line in body or ["pass"])
-    exec(text, scope)
-    init = scope["__init__"]
+    text = (f"def __record_init__({', '.join(closure)}):\n"
+            f" def __init__({', '.join(params)}):\n" + "".join(f"  {line}\n" for line in body or ["pass"])
+            + " return __init__")
+    module = sys.modules.get(cls.__module__)
+    made: dict[str, Any] = {}
+    exec(text, vars(module) if module else {}, made)
+    init = made["__record_init__"](**closure)
     init.__qualname__ = f"{cls.__qualname__}.__init__"
     init.__annotations__ = {f.name: f.type for f in fields if f.init} | {"return": None}
     return init

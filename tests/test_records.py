@@ -9,6 +9,7 @@ import importlib
 import inspect
 import pickle
 import pkgutil
+import typing
 from collections.abc import Callable
 from dataclasses import field
 
@@ -77,6 +78,9 @@ def test_a_record_behaves_as_the_dataclass_it_replaces(name: str, flags: dict) -
     assert [(f.name, f.default, f.init, f.repr, f.compare) for f in dataclasses.fields(ours)] == \
         [(f.name, f.default, f.init, f.repr, f.compare) for f in dataclasses.fields(plain)]
     assert ours.__match_args__ == plain.__match_args__
+    assert ours.__init__.__module__ == plain.__init__.__module__ == __name__
+    assert ours.__init__.__qualname__ == plain.__init__.__qualname__
+    assert typing.get_type_hints(ours.__init__) == typing.get_type_hints(plain.__init__)
     assert (ours.__hash__ is None) == (plain.__hash__ is None)
     made = [(plain(*args, **kwargs), ours(*args, **kwargs)) for args, kwargs in _arguments(name)]
     for a, b in made:
