@@ -44,7 +44,8 @@ def record(cls: type | None = None, /, *, eq: bool = True, frozen: bool = False)
     ``__post_init__`` without arguments); ``InitVar``, ``ClassVar`` and keyword-only fields are
     refused. Generated as ``@dataclass`` would: ``__init__`` (a frozen record's through
     ``object.__setattr__``), ``__repr__`` of the fields with ``repr``, and with `eq`: ``__eq__``
-    over the fields with ``compare`` (same class only, as tuples), ``__hash__`` over those
+    over the fields with ``compare`` (same class only, as tuples, as dataclass compares them up to
+    Python 3.12; 3.13's compares field by field), ``__hash__`` over those
     (`frozen`) or ``None``; a method the class defines itself is kept. A frozen record takes no
     assignment and no deletion of any attribute (``FrozenInstanceError``); a subclass of a record
     is declared a record too, as frozen as its bases. ``__dataclass_params__`` says what
