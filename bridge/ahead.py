@@ -21,19 +21,20 @@ import select
 import signal
 import threading
 from collections.abc import Callable, Iterator, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import replace
 from typing import TypeVar
 
 from .check import NotASingleStage, OwnColumns, solve_own_columns
 from .netlist import Location, NetlistError, read_netlist
 from .netlist.circuit import Circuit, Element
+from .records import record
 from .vocabulary import Expectations
 
 # Below this many files the fork (a few ms) and the pickling cost more than they save.
 AHEAD_FROM = 4
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Prepared:
     """One netlist ready for its check: the circuit and the columns that need no simulator."""
 
@@ -41,7 +42,7 @@ class Prepared:
     own: OwnColumns
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Unusable:
     """A netlist that cannot be checked: the file as given, the message and where it points
     (in that file or one it includes), and the located text printed for it."""

@@ -19,13 +19,13 @@ else the hand analysis.
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
 
 from .analysis.dcsolve import OperatingPoint
 from .analysis.hand import HandSolution
 from .compare import Columns
 from .netlist.circuit import GROUND, Circuit, Element
 from .netlist.numbers import engineering
+from .records import record
 from .sim.operating_point import SimOperatingPoint
 from .vocabulary import COLUMN_SOLUTIONS, COLUMNS, Finding
 
@@ -39,7 +39,7 @@ SMALL_RESISTANCE = 1.0  # Ω
 BEYOND_MARGIN = 0.5  # V
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class Supply:
     """One independent voltage source with a DC value: its current as delivered (out of its +
     terminal into the circuit) and the power it delivers, V·I, per column."""
@@ -50,7 +50,7 @@ class Supply:
     power: Columns
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class _Solved:
     """One column's solution as the rules read it."""
 

@@ -13,7 +13,7 @@ import math
 import re
 from collections import deque
 from collections.abc import Iterator
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 from .analysis.dcsolve import DcSolveError, OperatingPoint, solve_operating_point
 from .analysis.hand import HandAnalysisError, HandModel, HandSolution
@@ -24,6 +24,7 @@ from .devices.mos1.load import Level1Geometry
 from .netlist.circuit import Circuit, Directive
 from .netlist.numbers import engineering
 from .netlist.source import NOTICE_SEVERITY, notice_in
+from .records import record
 from .sim.client import NgspiceSession, SimulatorError
 from .sim.operating_point import (
     PendingOperatingPoint,
@@ -92,7 +93,7 @@ def start_check(
 NO_MOSFET = "the netlist has no MOSFET: biasbridge checks MOSFET bias points"
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class OwnColumns:
     """What a check computes without ngspice: the hand solution, its re-solves with one effect
     switched on (``vocabulary.EFFECTS``; None when the hand model does not cover the circuit), the
@@ -453,7 +454,7 @@ class CheckQueue:
         return item
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class EquivalentColumns:
     """Hand and level-1 columns of a circuit whose MOSFET cards are not all level 1, solved with
     each such device's level-1 equivalent (``fit.equivalent.equivalent_at_operating_point``):

@@ -11,12 +11,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 
 from .analysis.dcsolve import OperatingPoint, level1_model
 from .analysis.hand import HandSolution
 from .netlist.circuit import Circuit
 from .netlist.numbers import ABSTOL, GMIN, VNTOL, engineering
+from .records import record
 from .sim.operating_point import SimOperatingPoint
 from .vocabulary import (
     BEYOND_LEVEL1,
@@ -47,7 +48,7 @@ DEFAULT_TOLERANCE = 0.05
 NOT_AMPLIFYING = "not-amplifying"
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class Columns:
     """One quantity in each column (None where a column has no value)."""
 
@@ -63,7 +64,7 @@ class Columns:
         return getattr(self, column)
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class DeviceComparison:
     """One transistor in a check: its region and quantities in the three columns."""
 
@@ -82,7 +83,7 @@ class DeviceComparison:
     reference_column: str = "sim"  # the column the others are judged against: ngspice, else level-1
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class FittedEquivalent:
     """A device's level-1 equivalent of its card, fitted around ngspice's operating point (device
     polarity: VTO positive for an enhancement device), and how well it fits there."""
@@ -107,7 +108,7 @@ class FittedEquivalent:
     swapped: bool = False  # runs with drain and source swapped: `around` and `vbs` seen from the drain terminal
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class FittedTolerance:
     """What ``compare`` needs when hand and level-1 run on fitted equivalents: the equivalents by
     device, and per quantity (`V(d)`, `M1 id`) the absolute allowance of the level-1 column beyond
@@ -122,7 +123,7 @@ class FittedTolerance:
 NOT_COMPARED_FITTED = frozenset({"vth", "vov", "gm", "gds"})
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class CheckResult:
     """Everything one check found for one netlist: the columns, the findings, the working."""
 
@@ -681,7 +682,7 @@ def _listed(words: list[str]) -> str:
 # --- causes of several differences at once -------------------------------------------------------
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class Settled:
     """The hand comparisons one effect settles on its own: with only that effect switched on in the
     hand model, each of these `quantities` (as ``Finding.quantity`` names them: `V(d)`, `M1 id`)
@@ -733,7 +734,7 @@ REGION_CHANGE = "region"  # a cause group led by a device's region disagreement 
 HAND_DIFFERS, REGION_MISMATCH, CAUSE = "hand-differs", "region-mismatch", "cause"
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class CauseGroup:
     """Findings (indices into ``CheckResult.findings``) that one cause explains.
 
@@ -808,7 +809,7 @@ def cause_groups(result: CheckResult) -> tuple[CauseGroup, ...]:
 NO_SIMULATOR = "no-simulator"  # a leading cause: ngspice gave no column (not installed, or it failed)
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class LeadingCause:
     """The one cause a one-line summary of a check names (``leading_cause``): an effect of
     ``vocabulary.EFFECTS``, ``REGION_CHANGE`` (with its device as `subject`) or ``NO_SIMULATOR``;

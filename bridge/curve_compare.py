@@ -9,17 +9,17 @@ bridge.sweep_run puts them side by side.
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
 
 import numpy as np
 
 from .compare import SOLVER_FLOOR, SOLVER_RELATIVE
 from .curves import BOUNDARIES, Curve
 from .netlist.circuit import Circuit
+from .records import record
 from .vocabulary import Finding
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Deviation:
     """The largest |column − reference| over the sweep and where it is."""
 

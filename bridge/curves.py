@@ -10,12 +10,12 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
 
 import numpy as np
 
 from .netlist.circuit import Circuit, Element
 from .netlist.numbers import engineering
+from .records import record
 
 BOUNDARIES = ("cutoff_saturation", "saturation_triode")
 
@@ -24,7 +24,7 @@ class SweepInputError(ValueError):
     """Arguments that make no sweep: unknown source or node, a bad step, too many points."""
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Crossing:
     """One region change on the way through the sweep: which boundary, where, from what to what."""
 
@@ -35,7 +35,7 @@ class Crossing:
     accuracy: float | None = None  # |at − the true edge| is at most this (None: not stated)
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class RegionEdges:
     """A transistor's region edges in one column: the first crossing of each boundary in sweep
     order (None where never reached) and every crossing found."""
@@ -52,7 +52,7 @@ class RegionEdges:
         return next((c.accuracy for c in self.crossings if c.boundary == boundary), None)
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class GainPeak:
     """The largest |dVout/dVin| along a curve and where it is."""
 
@@ -60,7 +60,7 @@ class GainPeak:
     at: float
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Curve:
     """One column of the sweep: the output (NaN where the column has no solution), each
     transistor's region per point (None there), its edges, and the gains."""
@@ -142,7 +142,7 @@ def slope_from_curve(x: np.ndarray, y: np.ndarray, at: float) -> float | None:
     return value if math.isfinite(value) else None
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class GateBias:
     """A capacitor-coupled gate's divider replaced by one swept source at the gate.
 

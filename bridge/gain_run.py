@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import contextlib
 import math
-from dataclasses import dataclass, field
+from dataclasses import field
 
 from .analysis.band_edges import hand_band_evidence, level1_band_edges
 from .analysis.dcsolve import DcSolveError, OperatingPoint, solve_operating_point
@@ -41,6 +41,7 @@ from .commands.gain_defaults import (
 from .devices.mos1.smallsignal import card_gives_junction_capacitances
 from .gain_compare import BAND_TOLERANCE, attribution, band_findings, compare_columns, phase_findings
 from .netlist.circuit import Circuit
+from .records import record
 from .vocabulary import COLUMN_NAMES, EFFECTS, Finding, simulator_failure
 
 COLUMN_KEYS = ("hand", "level1", "sim")
@@ -48,7 +49,7 @@ COLUMN_KEYS = ("hand", "level1", "sim")
 NO_SIGNAL = 1e-9
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class GainResult:
     """Everything `gain` reports for one netlist; None where a column has no value."""
 

@@ -5,11 +5,11 @@ what this returns."""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 from .analysis.spread import spread
 from .lint.rule import LintSettings
+from .records import record
 from .spread_compare import spread_findings
 
 if TYPE_CHECKING:
@@ -22,7 +22,7 @@ if TYPE_CHECKING:
     from .vocabulary import Finding
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class SpreadRun:
     result: SpreadResult
     check: CornerCheck | None  # ngspice at the extremes' corners; None without ngspice

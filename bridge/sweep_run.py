@@ -11,7 +11,7 @@ findings of judging them in ``bridge.curve_compare``. Nothing here reads files o
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import field
 
 import numpy as np
 
@@ -21,6 +21,7 @@ from .curve_compare import Deviation, curve_deviations, several_crossings_findin
 from .curves import BOUNDARIES, Curve, GateBias, SweepInputError, grid_step, independent_source
 from .netlist.circuit import Circuit
 from .netlist.source import NOTICE_SEVERITY, notice_in
+from .records import record
 from .sim.client import NgspiceSession, SimulatorError
 from .sim.transfer import SIM_EDGE_METHOD, SIM_GAIN_METHOD, sim_curve
 from .vocabulary import Finding, not_level1_finding, simulator_failure
@@ -31,7 +32,7 @@ EDGE_METHODS = {**own_columns.EDGE_METHODS, "sim": SIM_EDGE_METHOD}
 GAIN_METHODS = {**own_columns.GAIN_METHODS, "sim": SIM_GAIN_METHOD}
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class TransferCurve:
     file: str
     title: str

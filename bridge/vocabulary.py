@@ -9,13 +9,15 @@ above it.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import field
+
+from bridge.records import record
 
 # Severities, most serious first: an error or a warning is a disagreement (exit status 1).
 SEVERITIES = ("error", "warning", "info")
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Finding:
     """One thing a check or a sweep tells the designer, at the element's source line when an
     element is its subject."""
@@ -30,7 +32,7 @@ class Finding:
     quantity: str | None = None  # the compared quantity (`M1 id`, `V(d)`) of a column comparison
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Step:
     """One line of the working: what is done, the equation with its numbers, and the result."""
 
@@ -63,7 +65,7 @@ UNITS = {"id": "A", "vgs": "V", "vds": "V", "vth": "V", "vov": "V", "gm": "S", "
 SAT_MARGIN = "sat_margin"
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class Expectation:
     """The designer's own target for one quantity, with its tolerance (relative)."""
 
@@ -72,7 +74,7 @@ class Expectation:
     line: int | None = None
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class Expectations:
     """The designer's targets from an `--expect` file: per node, and per device and quantity."""
 

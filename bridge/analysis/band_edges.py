@@ -8,11 +8,12 @@ from __future__ import annotations
 
 import contextlib
 import math
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 import numpy as np
 
 from ..netlist.circuit import Circuit
+from ..records import record
 from .hand import HandSolution
 from .smallsignal import (
     HandColumn,
@@ -69,7 +70,7 @@ def network_band_edges(
     return first_fall(below, magnitude[1:count + 1]), first_fall(above, magnitude[count + 1:])
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class BandEvidence:
     """What the hand band-edge estimates rest on, measured on the hand network itself: its own
     −3 dB points (every capacitor jωC, the hand gate capacitances at the hand bias point), its

@@ -37,7 +37,7 @@ from __future__ import annotations
 import contextlib
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import field, replace
 from typing import NamedTuple
 
 import numpy as np
@@ -78,6 +78,7 @@ from bridge.devices.mos1.temperature import at_temperature_arrays, saturation_cu
 from bridge.netlist.circuit import GROUND, Circuit
 from bridge.netlist.variant import at_temperature as circuit_at_temperature
 from bridge.netlist.variant import with_values
+from bridge.records import record
 
 __all__ = ["BatchArrays", "BatchValues", "SweepArrays", "solve_dc_batch", "solve_dc_sweep_arrays"]
 
@@ -92,7 +93,7 @@ _MODEL_FIELDS = {"vto": "vto", "kp": "kp", "gamma": "gamma", "phi": "phi", "lamb
                  "tnom": "tnom_celsius"}  # fmt: skip
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class BatchValues:
     """What changes from row to row of a batch (`count` rows); everything not named keeps the
     circuit's value. Arrays have one value per row (a scalar is taken for every row).
@@ -128,7 +129,7 @@ class BatchValues:
         return not self.resistors and not self.parameters and self.temperature is None
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class BatchArrays:
     """Operating points of a batch, solved together: ``nodes`` each node's voltage per row
     (ground included); ``solved`` which rows have a solution (NaN elsewhere); ``vectorised``
@@ -165,7 +166,7 @@ class BatchArrays:
         return self.source_values[_lookup(self.source_values, name)]
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class SweepArrays(BatchArrays):
     """A batch that is a sweep: ``x`` the swept source's values, one per row."""
 

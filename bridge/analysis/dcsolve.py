@@ -34,7 +34,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import field
 from functools import cached_property
 from typing import TYPE_CHECKING, NamedTuple
 
@@ -60,7 +60,7 @@ from bridge.devices.mos1.model import Level1Model, card_model_of
 from bridge.devices.mos1.params import CIRCUIT_TEMPERATURE_C, K_OVER_Q
 from bridge.devices.mos1.placed import PlacedMosfet
 from bridge.netlist.circuit import GROUND, Circuit, Element, ModelCard
-from bridge.records import with_fields
+from bridge.records import record, with_fields
 
 if TYPE_CHECKING:
     from bridge.devices.diode import PlacedDiode
@@ -171,7 +171,7 @@ class BulkJunctions(NamedTuple):
     bulk_source: float
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class OperatingPoint:
     """One DC solution.
 
@@ -238,7 +238,7 @@ if TYPE_CHECKING:  # the diode's modules are imported with the first diode (`_di
     _Diode = PlacedDiode
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class _Network:
     """The circuit as MNA arrays: ground is row/column 0 (stamped, then sliced away)."""
 
@@ -311,7 +311,7 @@ class _Network:
         return values
 
 
-@dataclass(eq=False)
+@record(eq=False)
 class _State:
     """Where Newton stands: the solution vector and each device's state (its last limited
     voltages: vgs, vds, vbs, vbd and von of a MOSFET in device polarity, vd of a diode), in the

@@ -35,7 +35,7 @@ from __future__ import annotations
 import copy
 import math
 from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import field, replace
 
 import numpy as np
 
@@ -56,7 +56,7 @@ from ..devices.mos1.load import (
     triode_current_quadratic,
 )
 from ..netlist.circuit import GROUND, Circuit, Element
-from ..records import with_fields
+from ..records import record, with_fields
 from ..vocabulary import EFFECTS as _EFFECT_ORDER
 from ..vocabulary import Step
 from .compiled_network import HandNetwork
@@ -92,7 +92,7 @@ __all__ = [
 EFFECTS: frozenset[str] = frozenset(_EFFECT_ORDER)
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class HandDevice:
     """A MOSFET's hand-model operating point, in device polarity (positive for an on PMOS).
 
@@ -110,7 +110,7 @@ class HandDevice:
     region: str
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class HandSolution:
     """The hand bias point: recognised topology, every node voltage (ground "0" included),
     each MOSFET's point, the working and what was assumed. ``closed_form`` is False when the
@@ -144,7 +144,7 @@ def _quadratic(a: float, b: float, c: float) -> tuple[float, ...]:
     return tuple(sorted(roots))
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class _AffineNumbers:
     """The numbers of the affine closed form: VOV = u − rg·ID, VDS = vds0 − rd·ID.
 
@@ -248,7 +248,7 @@ def _affine_numbers(dc: _DcCircuit, stage: _Stage, base: dict[str, float] | None
     )  # fmt: skip
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class _HeldNumbers:
     """The numbers of the held closed form: a current source is the only DC path of the source
     (or of a diode-connected drain), so ID = I.

@@ -12,14 +12,14 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 
 import numpy as np
 
 from ..devices.mos1 import Level1Geometry, Level1Model
 from ..devices.mos1.instance import InstanceError, Mos1Instance, NotLevel1, default_size, mosfet_instance
 from ..netlist.circuit import GROUND, Circuit, Element
-from ..records import with_fields
+from ..records import record, with_fields
 from .compiled_network import HandNetwork
 from .connectivity import NodeSets
 from .hand_working import _q
@@ -38,7 +38,7 @@ class HandAnalysisError(ValueError):
 # --- the DC circuit ---------------------------------------------------------------------------
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class _Resistor:
     """A resistor between nodes `a` and `b`."""
 
@@ -52,7 +52,7 @@ class _Resistor:
         return self.b if self.a == node else self.a
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class _CurrentSource:
     """An independent current source: its current leaves node `leaves` and enters `enters`."""
 
@@ -62,7 +62,7 @@ class _CurrentSource:
     current: float
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class _Transistor:
     """A MOSFET of the DC circuit with the model the hand analysis gives it."""
 
@@ -94,7 +94,7 @@ class _Transistor:
         return with_fields(self, model=model)
 
 
-@dataclass(eq=False)
+@record(eq=False)
 class _DcCircuit:
     """The circuit at DC: shorts merged, voltage-source nodes fixed, the rest as lists."""
 
@@ -281,7 +281,7 @@ def _hold_nodes(
 # --- the linear network seen by one transistor ----------------------------------------------
 
 
-@dataclass(eq=False)
+@record(eq=False)
 class _Network:
     """Node equations of the resistive part on the free (unfixed) nodes: G·v = J + ID·e.
 
@@ -390,7 +390,7 @@ def _resistors_at(dc: _DcCircuit, node: str) -> list[_Resistor]:
     return dc.incidence.get(node, [])
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class _Terminal:
     """What one device terminal sees, for the working (the solution comes from the network).
 
@@ -412,7 +412,7 @@ class _Terminal:
     detail: tuple[_Resistor, ...] = ()  # the resistors a named formula uses
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class _Stage:
     """A single-transistor stage the closed forms cover."""
 

@@ -10,18 +10,18 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass
 
 from ..devices.mos1 import beta, threshold
 from ..devices.mos1.instance import InstanceError, mosfet_instance
 from ..devices.mos1.load import resistor_loaded_edge_overdrive
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
+from ..records import record
 from ..vocabulary import Step
 from .hand import HandDevice, hand_model
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class ClosedFormEdges:
     """The hand edges of a resistor-loaded common source in closed form, with the working.
 
@@ -38,7 +38,7 @@ class ClosedFormEdges:
     steps: tuple[Step, ...]
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class HandGainFormula:
     """The hand small-signal gain at the bias point: −gm·(RD ∥ ro)·dVG/dVin."""
 
@@ -101,7 +101,7 @@ def _temperature_note(circuit: Circuit, mosfet: Element) -> list[Step]:
                  f"(ngspice level-1 temperature rules, TNOM = {tnom:g} °C)")]
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class CommonSource:
     """One MOSFET, its source on a rail, one drain resistor to a rail; K and Vt of its hand model."""
 
@@ -179,7 +179,7 @@ def _gate_ratio_words(circuit: Circuit, stage: CommonSource, source: Element, ra
     return f"the gate network is linear and draws no current: dVG/d{source.name} = {ratio:.6g}"
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class CommonSourceEdges:
     """The numbers of the closed-form edges: VG = gate_offset + gate_ratio·Vin, VSUP = `span`
     across drain resistor and channel, VOV at the saturation → triode edge, and both edges in
@@ -282,7 +282,7 @@ def common_source_working(circuit: Circuit, edges: CommonSourceEdges, lo: float,
     return tuple(steps)
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class CommonSourceGain:
     """The numbers of the hand small-signal gain −gm·(RD ∥ ro)·dVG/dVin at one point."""
 

@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterator, Mapping, Sequence
-from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 from ..devices.mos1 import Level1Model, Level1Point, Region, beta, leff, threshold
@@ -22,6 +21,7 @@ from ..devices.mos1.load import saturation_overdrive_quadratic, square_law
 from ..devices.mos1.params import CELSIUS_TO_KELVIN, CIRCUIT_TEMPERATURE_C
 from ..netlist.circuit import GROUND
 from ..netlist.numbers import engineering
+from ..records import record
 from ..vocabulary import Step
 
 if TYPE_CHECKING:
@@ -86,7 +86,7 @@ def _temperature_step(transistor: _Transistor) -> Step:
 # --- the working ------------------------------------------------------------------------------
 
 
-@dataclass(eq=False)
+@record(eq=False)
 class _Names:
     """How the working writes device-polarity quantities: VGS/VDS for NMOS, VSG/VSD for PMOS."""
 
@@ -663,7 +663,7 @@ def _numerical_steps(dc: _DcCircuit, effects: frozenset[str], reason: str, itera
 # --- written on demand ------------------------------------------------------------------------
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class Working:
     """What one hand solution's working is written from, numbers only.
 

@@ -25,11 +25,11 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
 from typing import Protocol
 
 import numpy as np
 
+from ..records import record
 from .linear import SPARSE_FROM, condition_estimate, solve_system, sparse_factor
 
 __all__ = [
@@ -131,7 +131,7 @@ class MnaNetwork(Protocol):
     def devices(self) -> tuple: ...
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class Reduction:
     """The MNA system with its linear-only unknowns eliminated (a Schur complement).
 

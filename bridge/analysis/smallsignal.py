@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 
 import numpy as np
 
@@ -40,6 +40,7 @@ from ..devices.mos1.smallsignal import (
 )
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
+from ..records import record
 from ..vocabulary import Step
 from .hand import HandSolution, hand_model
 
@@ -51,7 +52,7 @@ class SmallSignalError(ValueError):
     """The circuit has no small-signal model here (an element outside it, a singular network)."""
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class DeviceSignal:
     """One MOSFET's small-signal model: the derivatives of the current into its drain terminal with
     respect to drain, gate, source and bulk voltage; its bulk-junction conductances; its gate
@@ -65,7 +66,7 @@ class DeviceSignal:
     region: str = "saturation"
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class SignalSetup:
     """What a small-signal column is asked for: the input source, the output node, the element
     taken out for Rout (None: nothing) and the midband frequency (Hz)."""
@@ -120,7 +121,7 @@ def element_multiplier(element: Element) -> float:
     return float(m) if isinstance(m, (int, float)) and not isinstance(m, bool) and m > 0 else 1.0
 
 
-@dataclass
+@record
 class SignalNetwork:
     """The small-signal network of `circuit` with the MOSFETs of `devices`, driven by `input_source`."""
 
@@ -446,7 +447,7 @@ def hand_capacitances(circuit: Circuit, hand: HandSolution) -> dict[str, GateCap
 # --- the hand column ----------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class LowBandTerm:
     """One capacitor's short-circuit time constant: the resistance it sees with the other
     capacitors shorted, and its pole 1/(2π·R·C) (0 when it sees an open circuit)."""
@@ -457,7 +458,7 @@ class LowBandTerm:
     pole_hz: float
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class HandColumn:
     """The hand small-signal column; a None value is one the hand model cannot give (with why)."""
 
@@ -854,7 +855,7 @@ def _miller(circuit, hand, network, setup, shorted, closed, steps, parts=None) -
 # --- the level-1 column --------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Level1Column:
     gain: float
     rin: float

@@ -28,11 +28,12 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import field
 
 import numpy as np
 
 from ..netlist.circuit import Circuit
+from ..records import record
 from .dcsolve import solve_operating_point
 
 FULL_CORNER_LIMIT = 12  # bands: up to 2^12 = 4096 corners are all solved
@@ -42,7 +43,7 @@ CHUNK_ROWS = 100_000  # Monte-Carlo rows solved per call (bounds the solver's wo
 PERCENTILES = (0.1, 99.9)
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Band:
     """One varied quantity: `label` as shown (`RD`, `NCH.kp`, `temperature`), `kind` resistor,
     source, model or temperature, `target` the element or model name, `parameter` vto/kp/lambda for
@@ -94,7 +95,7 @@ def resistor_temperature_coefficients(circuit: Circuit) -> dict[str, tuple[float
     return found
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Points:
     """A set of rows: each band's value per row (``values[j]`` for band j) and, for corners, each
     row's ends (−1, 0, +1 per band) naming it."""
@@ -229,7 +230,7 @@ def batch_values(circuit: Circuit, bands: Sequence[Band], points: Points):  # ->
     )  # fmt: skip
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Solved:
     """A set of rows solved: per device drain current and saturation margin (vds − vov) and region
     code, per node the voltage; ``solved`` which rows have a solution (NaN elsewhere)."""
@@ -285,7 +286,7 @@ def _device(arrays, name: str):
 # The result
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Extremes:
     """One quantity over the corners and the samples. `min_corner`/`max_corner` name the point
     searched that gives the extreme (its row in ``SpreadResult.corners``: `min_row`/`max_row`);
@@ -308,7 +309,7 @@ class Extremes:
     max_named: str = ""
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Sensitivity:
     """One band's one-at-a-time effect on a device: its drain current with the band at the low and
     at the high end (the others nominal), and the difference high − low."""
@@ -322,7 +323,7 @@ class Sensitivity:
         return self.id_high - self.id_low
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class SpreadResult:
     bands: tuple[Band, ...]
     samples: int

@@ -32,7 +32,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 import numpy as np
 
@@ -53,6 +53,7 @@ from ..curves import largest_gain as _largest_gain
 from ..curves import region_edges as _edges
 from ..devices.mos1.ask import REGIONS
 from ..netlist.circuit import GROUND, Circuit
+from ..records import record
 from ..vocabulary import Finding
 from .dcbatch import SweepArrays, solve_dc_sweep_arrays
 from .dcsolve import DcSolveError, OperatingPoint, solve_operating_point
@@ -183,7 +184,7 @@ def with_source_value(circuit: Circuit, source: str, value: float) -> Circuit:
 # --- one point of each model ----------------------------------------------------------------
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class _DevicePoint:
     """What an edge search needs of one device at one point (device polarity)."""
 

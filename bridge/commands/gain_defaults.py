@@ -8,12 +8,12 @@ estimates) and names something in it, with the reason in words; the run is bridg
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 from ..analysis.hand_edges import fixed_nodes
 from ..curves import SweepInputError
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
+from ..records import record
 from .sweep_defaults import _supplies, default_source
 
 # Coupling and bypass capacitors count as shorts a hundred times above their highest pole, and
@@ -27,7 +27,7 @@ class GainInputError(ValueError):
     """A choice the command line made that names nothing usable (a bad --input or --output)."""
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Choice:
     """One default (or given) choice and why it was made."""
 

@@ -24,13 +24,14 @@ from __future__ import annotations
 import math
 import re
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 from pathlib import Path
 
 from ..analysis.spread import Band, resistor_temperature_coefficients
 from ..netlist.circuit import Circuit
 from ..netlist.errors import Location, NetlistError
 from ..netlist.numbers import NumberError, parse_number
+from ..records import record
 from ..tomlfile import read_toml
 
 MAX_SAMPLES = 10_000_000
@@ -41,7 +42,7 @@ SECTIONS = ("resistors", "supplies", "models", "temperature")
 ABSOLUTE_ZERO_C = -273.15
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Entry:
     """One tolerance and where it was written (``where`` None: the command line)."""
 
@@ -55,7 +56,7 @@ class Entry:
         return NetlistError(message, self.where, self.source_line)
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Tolerances:
     """What to vary. Percentages are of the nominal value; ``vto`` is in volts; None: not varied.
     ``elements`` (resistor or source name, lower case) and ``models`` (model name, lower case →

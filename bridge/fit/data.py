@@ -9,12 +9,12 @@ from __future__ import annotations
 
 import math
 import re
-from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
 from ..netlist.errors import Location, NetlistError
+from ..records import record
 
 REQUIRED = ("vgs", "vds", "id")
 OPTIONAL = ("vbs",)
@@ -28,7 +28,7 @@ _UNIT = re.compile(
 )
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class BiasData:
     """Measured bias points in device polarity (a conducting PMOS: positive vgs, vds, id).
 

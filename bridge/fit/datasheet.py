@@ -8,10 +8,10 @@ threshold and its slope gives KP (``kp_from_root_slope``), the ESR construction 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 from ..devices.mos1.fitting import kp_from_root_slope
 from ..devices.mos1.load import Level1Geometry
+from ..records import record
 from .least_squares import Level1Values
 
 TWO_POINT_WARNING = (
@@ -20,7 +20,7 @@ TWO_POINT_WARNING = (
 )
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class DatasheetFit:
     values: Level1Values
     points: tuple[tuple[float, float], tuple[float, float]]  # (VGS, ID) in device polarity

@@ -10,12 +10,11 @@ point, or without one the largest grown from up to BOX_STARTS strong-inversion p
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 
 from ..devices.mos1.load import Level1Geometry
 from ..netlist.circuit import ModelCard, Origin
+from ..records import record
 from ..sim.client import NgspiceSession
 from ..sim.device_iv import simulate_grid
 from .card import card_value
@@ -28,7 +27,7 @@ AROUND_VGS, AROUND_VDS = 0.25, 0.5  # V, the Gaussian widths around an operating
 BOX_STARTS = 64  # strong-inversion points a box is grown from, without an operating point
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class HoldingRange:
     """The box of the grid where the equivalent is within HOLD of ngspice at every point above the floor."""
 
@@ -36,7 +35,7 @@ class HoldingRange:
     vds: tuple[float, float]
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class CardEquivalent:
     data: BiasData  # the card's grid as ngspice simulated it
     fit: Level1Fit
@@ -160,7 +159,7 @@ def _grown(bad: np.ndarray, row: int, col: int) -> tuple[int, int, int, int]:
     return r0, r1, c0, c1
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class OperatingPointEquivalent:
     """A card's level-1 equivalent for one device of a circuit, fitted around ngspice's operating
     point of that device: at its W/L, its temperature (the card's TNOM set to it, so that the

@@ -18,12 +18,11 @@ the curve when that is more), so that noise in one reading does not make a spuri
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 
 from ..devices.mos1.fitting import kp_from_root_slope
 from ..devices.mos1.load import Level1Geometry
+from ..records import record
 from .data import BiasData
 
 WINDOW = 5  # at least this many points per tangent; a quarter of the curve when that is more
@@ -34,7 +33,7 @@ LINEAR_METHOD = "linear extrapolation at maximum gm, low-VDS curve (Ortiz-Conde 
 ROOT_METHOD = "extrapolation of √ID against VGS in saturation at maximum slope (Ortiz-Conde et al. 2002, ESR)"
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Extraction:
     """One method's result: the threshold (and KP when the method gives it), on the curve at ``vds``."""
 

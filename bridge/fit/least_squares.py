@@ -11,12 +11,12 @@ Uncertainties: one standard deviation from the covariance (JᵀJ)⁻¹·s², s²
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import numpy as np
 
 from ..devices.mos1.fitting import drain_currents, fitted_card_model, kp_from_root_slope
 from ..devices.mos1.load import Level1Geometry
+from ..records import record
 from .data import BiasData
 from .estimate import Extraction, linear_extrapolation, root_extrapolation
 
@@ -32,7 +32,7 @@ class FitError(ValueError):
     """The data cannot give a fit (too few points above the floor, no conducting curve)."""
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Level1Values:
     """VTO (device polarity: positive for an enhancement device), KP, LAMBDA, GAMMA, PHI;
     GAMMA and PHI None when they were not fitted."""
@@ -44,7 +44,7 @@ class Level1Values:
     phi: float | None = None
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class PointError:
     """One point's misfit: its row in the file, its bias, measured and model currents."""
 
@@ -60,7 +60,7 @@ class PointError:
         return self.model / self.measured - 1.0
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Level1Fit:
     """The fitted values, their one-sigma uncertainties, and how well they fit."""
 

@@ -5,12 +5,11 @@ bench data (``fit_measurements``), two datasheet points (``fit_datasheet``) and 
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 
 from ..devices.mos1.load import Level1Geometry
 from ..netlist.circuit import ModelCard
+from ..records import record
 from ..sim.client import NgspiceSession, SimulatorError
 from .card import GAMMA_NOT_FITTED, model_card_text
 from .data import BiasData
@@ -24,7 +23,7 @@ MAX_CURVES = 12  # curves drawn per plot (the rest are left off, and the plot sa
 SAME_BIAS_DIGITS = 6  # readings of one curve share VDS and VBS to the microvolt
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class FitCurve:
     """One measured ID–VGS curve at fixed VDS and VBS and the fitted model along it (device polarity)."""
 
@@ -36,7 +35,7 @@ class FitCurve:
     model: np.ndarray
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class FitOutcome:
     """Everything the fit's report shows; ``mode`` is 'data', 'datasheet' or 'card'."""
 

@@ -22,13 +22,14 @@ and body effect from the level-1 device (``devices/mos1``), never re-derived her
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 from ..bias_rules import rail_name, rail_voltages, solution_phrase, wrong_rail_bulks
 from ..devices.mos1.instance import InstanceError, Mos1Instance, mosfet_instance
 from ..devices.mos1.load import threshold
 from ..netlist.circuit import GROUND, Circuit, Element
 from ..netlist.numbers import engineering
+from ..records import record
 from ..vocabulary import Finding
 from .rule import LintContext, Rule
 
@@ -65,7 +66,7 @@ CODES: dict[str, str] = {
 }
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class _Bias:
     """One MOSFET at one solution, in device polarity (a conducting PMOS has positive id, vgs, vds)."""
 
@@ -79,7 +80,7 @@ class _Bias:
     region: str | None
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class _Point:
     """One solution as the rules read it: node voltages (ground included) and the devices."""
 

@@ -4,15 +4,15 @@ thresholds, and the one signature every rule module follows."""
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
 
 from ..analysis.dcsolve import OperatingPoint
 from ..netlist.circuit import Circuit
+from ..records import record
 from ..sim.operating_point import SimOperatingPoint
 from ..vocabulary import Finding
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class LintSettings:
     """Thresholds a designer may set (command line or `[tool.biasbridge.lint]`). Each default
     is a rule of thumb: common practice, no source."""
@@ -22,7 +22,7 @@ class LintSettings:
     resistor_rating: float = 0.25  # W: a resistor dissipating more needs a bigger part
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class LintContext:
     """One netlist as the rules see it. `level1` is the project's own level-1 solution (None
     when it cannot be solved or the cards are not level 1); `sim` ngspice's `.op` when it ran."""

@@ -17,13 +17,14 @@ import difflib
 import math
 import re
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import field
 from pathlib import Path
 
 from ..netlist.build import build_circuit
 from ..netlist.circuit import Circuit, Notice
 from ..netlist.errors import Location, NetlistError
 from ..netlist.source import SourceFile, notice_in, read_deck, read_source
+from ..records import record
 from ..tomlfile import read_toml
 from ..vocabulary import Finding
 from . import cards, registry
@@ -90,7 +91,7 @@ def unknown_patterns(patterns: Iterable[str]) -> list[str]:
     ]
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class LintConfig:
     """What `[tool.biasbridge.lint]` says; `file` is the pyproject.toml it came from (None: none)."""
 
@@ -100,7 +101,7 @@ class LintConfig:
     file: str | None = None
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Selection:
     """The codes to report: `select` (None: all) minus `ignore`, both by code or prefix."""
 
@@ -115,7 +116,7 @@ class Selection:
         return not any(matches(code, p) for p in self.ignore)
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class LintEntry:
     """One finding of one file, with the physical line it points at (for the terminal view)."""
 
@@ -128,7 +129,7 @@ class LintEntry:
         return (self.file, finding.line or 0, finding.column or 0, finding.code)
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class LintReport:
     """Every file's findings, sorted by file, line, column and code; `unreadable` is true when
     a file could not be read at all (exit status 2)."""
@@ -306,7 +307,7 @@ def _source_line(source: SourceFile | None, line: int | None) -> str | None:
     return source.lines[line - 1]
 
 
-@dataclass
+@record
 class _Read:
     """One netlist after reading: its circuit, or the entries that end it (parse or read error)."""
 

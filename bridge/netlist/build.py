@@ -10,9 +10,10 @@ from __future__ import annotations
 import functools
 import re
 from collections.abc import Iterable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 
 from ..devices.mos1.params import canonical_name as level1_parameter_name
+from ..records import record
 from .circuit import (
     GROUND,
     KIND_BY_LETTER,
@@ -82,7 +83,7 @@ _DEVICE_KINDS = frozenset({"mosfet", "diode", "bjt"})
 _IDENTIFIER = re.compile(r"^[a-z_][a-z0-9_]*$", re.IGNORECASE)
 
 
-@dataclass(eq=False)
+@record(eq=False)
 class _Definition:
     """A `.subckt` definition: ports, default parameters and its raw body."""
 
@@ -93,7 +94,7 @@ class _Definition:
     card: LogicalCard
 
 
-@dataclass(eq=False)
+@record(eq=False)
 class _Scope:
     """What names mean inside one (sub)circuit instance."""
 

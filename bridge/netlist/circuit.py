@@ -8,9 +8,11 @@ node `0`. Element and model names are kept as written; look them up with
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 from functools import cached_property
 from types import MappingProxyType
+
+from bridge.records import record
 
 GROUND = "0"
 CIRCUIT_TEMPERATURE_C = 27.0  # ngspice's default circuit temperature (TEMP) and TNOM, °C
@@ -46,7 +48,7 @@ VALUE_UNIT: dict[str, str] = {
 }
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Origin:
     """Where a card came from: file and 1-based line of its first physical line."""
 
@@ -54,7 +56,7 @@ class Origin:
     line: int
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Waveform:
     """A transient source function (SIN, PULSE, PWL, EXP, SFFM) kept as written, in SI."""
 
@@ -78,7 +80,7 @@ class Waveform:
         return self.args[0]
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Written:
     """One field of a card as the user wrote it (`1M`, `w=10`'s `10`, a node name before case
     folding): its text and where it starts, 1-based line and column in the card's file."""
@@ -88,7 +90,7 @@ class Written:
     column: int
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Element:
     """One circuit element. `value` is in SI: Ω, F, H, V or A (a source's DC value),
     a controlled source's gain; None for devices that take a model instead.
@@ -114,7 +116,7 @@ class Element:
         return LETTER_BY_KIND[self.kind]
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class ModelCard:
     """A `.model` card: parameters by lower-case name; on level-1 cards aliases resolved (vt0→vto,
     u0→uo), on other levels names as written and text values (`version`: "3.3.0") kept as str."""
@@ -126,7 +128,7 @@ class ModelCard:
     origin: Origin
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Parameter:
     """A `.param` after evaluation."""
 
@@ -135,7 +137,7 @@ class Parameter:
     origin: Origin
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class DcSweep:
     """One sweep of a `.dc` analysis: the source swept, from `start` to `stop` by `step`."""
 
@@ -145,7 +147,7 @@ class DcSweep:
     step: float
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class AcSweep:
     """The frequencies of an `.ac` analysis: `variation` "dec", "oct" or "lin", `points` per
     decade, per octave or in all, from `start` to `stop` in Hz (ngspice's `.ac` card)."""
@@ -159,7 +161,7 @@ class AcSweep:
 AC_VARIATIONS = ("dec", "oct", "lin")
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Analysis:
     """`.op` (no sweeps), `.dc` (one or two sweeps) or `.ac` (its frequencies in `ac`).
 
@@ -172,7 +174,7 @@ class Analysis:
     ac: AcSweep | None = None
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Directive:
     """A control card that does not change the circuit: kept for display.
 
@@ -187,7 +189,7 @@ class Directive:
     settings: tuple[tuple[str, float | str | None], ...] = ()
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Notice:
     """A warning about the input: something dropped, ignored or read in a way worth knowing."""
 
@@ -201,7 +203,7 @@ class Notice:
         return f"{where}{self.message} [{self.code}]"
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Allowance:
     """A `lint: allow CODE` marker in a card's inline comment: the designer accepts the lint
     finding CODE on that card. `line` is the card's first line (where its findings are);
@@ -214,7 +216,7 @@ class Allowance:
     column: int
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Circuit:
     """A whole netlist as understood: the only thing the analyses see.
 

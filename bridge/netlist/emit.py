@@ -13,8 +13,8 @@ from __future__ import annotations
 import math
 import re
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass
 
+from ..records import record
 from .circuit import AC_VARIATIONS, Analysis, Circuit, Directive, Element, ModelCard
 
 # Directives that change the operating point or its convergence: emitted. The rest
@@ -26,7 +26,7 @@ _VECTOR = re.compile(r"^(?:@[\w.+\-]+\[[a-z0-9_]+\]|all|[vi]\([\w.+\-#]+\))$", r
 _VECTORS_SEEN: set[str] = set()
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class SpiceDeck:
     """SPICE text made by `emit` from a Circuit; the simulator bridge accepts nothing else."""
 

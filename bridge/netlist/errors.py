@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from bridge.records import record
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Location:
     """A place in a netlist file: 1-based line and column."""
 

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass
+
+from bridge.records import record
 
 
 class ExpressionError(ValueError):
@@ -22,7 +23,7 @@ class ExpressionError(ValueError):
         return ExpressionError(f"{self} (in the body of `.func {function}`)", offset, function)
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Literal:
     """A number in an expression (or a plain value), in SI; `offset` is its place in the card text."""
 
@@ -30,7 +31,7 @@ class Literal:
     offset: int = 0
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Reference:
     """A name in an expression, as written: a `.param`, a `.func` argument or `pi`."""
 
@@ -38,7 +39,7 @@ class Reference:
     offset: int
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Unary:
     """A sign before an operand: `-x`."""
 
@@ -47,7 +48,7 @@ class Unary:
     offset: int
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Binary:
     """`left operator right`, the operator one of `+ - * / ^`."""
 
@@ -57,7 +58,7 @@ class Binary:
     offset: int
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Call:
     """A built-in function or a `.func` applied to its arguments: `sqrt(x)`, `f(a, b)`."""
 
@@ -69,7 +70,7 @@ class Call:
 Expr = Literal | Reference | Unary | Binary | Call
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class UserFunction:
     """A `.func name(args) {body}` definition."""
 

@@ -11,11 +11,10 @@ from __future__ import annotations
 import functools
 import os
 import re
-from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from ..records import with_fields
+from ..records import record, with_fields
 from .errors import NetlistError
 from .expressions import Binary, Call, Expr, Literal, Reference, Unary
 from .numbers import NumberError, parse_number
@@ -30,7 +29,7 @@ if TYPE_CHECKING:
 # ---- raw cards: what one card says, before parameters and models are known ----
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Assignment:
     """`name=value` on a card."""
 
@@ -39,7 +38,7 @@ class Assignment:
     offset: int
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Word:
     """A field read as a name (a node, a model, a keyword), as written."""
 
@@ -47,7 +46,7 @@ class Word:
     offset: int
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Positional:
     """A lone value where a card takes `name=value` items (a diode's area in braces, say)."""
 
@@ -58,7 +57,7 @@ class Positional:
 Item = Assignment | Word | Positional
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class ModelText:
     """A model parameter's value that is not a number (`version=3.3.0`), kept as written.
 
@@ -70,14 +69,14 @@ class ModelText:
     offset: int
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class DcPart:
     """A source's `DC value`."""
 
     value: Expr
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class AcPart:
     """A source's `AC [magnitude [phase]]`."""
 
@@ -85,7 +84,7 @@ class AcPart:
     phase: Expr | None
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class WaveformPart:
     """A source's transient function: `SIN(...)`, `PULSE(...)`, `PWL(...)`, `EXP(...)`, `SFFM(...)`."""
 
@@ -97,7 +96,7 @@ class WaveformPart:
 SourcePart = DcPart | AcPart | WaveformPart
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class RawElement:
     """An element card: its letter, name, nodes with their places, and its fields as read."""
 
@@ -112,7 +111,7 @@ class RawElement:
     source_parts: tuple[SourcePart, ...] = ()
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class RawModel:
     """A `.model NAME TYPE (name=value ...)` card."""
 
@@ -122,7 +121,7 @@ class RawModel:
     card: LogicalCard
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class RawParams:
     """A `.param name=value ...` card."""
 
@@ -130,7 +129,7 @@ class RawParams:
     card: LogicalCard
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class RawFunc:
     """A `.func name(args) {body}` card."""
 
@@ -140,7 +139,7 @@ class RawFunc:
     card: LogicalCard
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class RawSweep:
     """One `SOURCE start stop step` of a `.dc` card."""
 
@@ -150,7 +149,7 @@ class RawSweep:
     step: Expr
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class RawAnalysis:
     """An `.op` or `.dc` card."""
 
@@ -159,7 +158,7 @@ class RawAnalysis:
     sweeps: tuple[RawSweep, ...] = ()
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class RawSetting:
     """An `.options`, `.temp`, `.ic` or `.nodeset` card."""
 
@@ -170,7 +169,7 @@ class RawSetting:
     node_values: tuple[tuple[str, Expr], ...] = ()
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class RawGlobal:
     """A `.global node ...` card."""
 
@@ -178,7 +177,7 @@ class RawGlobal:
     card: LogicalCard
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class RawSubckt:
     """A `.subckt NAME ports [params: ...]` card, opening a definition."""
 
@@ -187,7 +186,7 @@ class RawSubckt:
     card: LogicalCard
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class RawEnds:
     """An `.ends [NAME]` card, closing a definition."""
 
@@ -195,7 +194,7 @@ class RawEnds:
     card: LogicalCard
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class RawKept:
     """A card kept for display only (`.save`, `.print`, `.tran`, ...)."""
 

@@ -15,9 +15,10 @@ from __future__ import annotations
 import functools
 import os
 import re
-from dataclasses import dataclass, field
+from dataclasses import field
 from pathlib import Path
 
+from ..records import record
 from .circuit import Allowance, Notice
 from .errors import Location, NetlistError
 
@@ -46,7 +47,7 @@ _ALLOW_COMMA = r"\s*,\s*"
 _CONTROL_CHARACTERS = re.compile(r"[\x00-\x08\x0e-\x1f]")
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class SourceFile:
     """One file's physical lines, kept to show the offending line in errors."""
 
@@ -54,7 +55,7 @@ class SourceFile:
     lines: tuple[str, ...]
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Segment:
     """Card text from `offset` on came from `line`, starting at `column` (1-based)."""
 
@@ -63,7 +64,7 @@ class Segment:
     column: int
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class LogicalCard:
     """One card with its continuations joined and its comments removed."""
 
@@ -88,7 +89,7 @@ class LogicalCard:
         return NetlistError(message, location, self.source.lines[location.line - 1], caret)
 
 
-@dataclass(eq=False)
+@record(eq=False)
 class Deck:
     """The title and the logical cards of a netlist, includes expanded."""
 

@@ -10,11 +10,11 @@ cause and the drain-current difference are the comparison's (``compare.leading_c
 from __future__ import annotations
 
 from collections import Counter
-from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 from ..compare import NO_SIMULATOR, REGION_CHANGE, CheckResult, hand_difference, leading_cause
 from ..netlist.numbers import engineering
+from ..records import record
 from ..vocabulary import COLUMNS, EFFECT_NAMES
 
 if TYPE_CHECKING:
@@ -29,7 +29,7 @@ HEADING = ("stage | topology | per transistor: region hand/level-1/ngspice, id h
            "leading cause | verdict")
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class BatchRow:
     """One stage's line and its verdict (one of ``VERDICTS``)."""
 

@@ -27,12 +27,13 @@ its + node and out of it at its − node, so `I 0 out ac 1` drives 1 A into `out
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 import numpy as np
 
 from ..netlist.circuit import GROUND, AcSweep, Analysis, Circuit, Element, Origin
 from ..netlist.emit import SpiceDeck, emit
+from ..records import record
 from .client import NgspiceSession
 
 # Two-terminal elements that can be the load whose view of the output Rout is.
@@ -40,7 +41,7 @@ LOAD_KINDS = frozenset({"resistor", "capacitor", "inductor", "vsource", "isource
 HALF_POWER = 1.0 / math.sqrt(2.0)  # the −3 dB ratio of magnitudes
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class AcSetup:
     input_source: str  # the independent V (or I) source that carries the signal: the deck gives it
     #                    AC magnitude 1, phase 0, and every other source AC 0
@@ -52,7 +53,7 @@ class AcSetup:
     points_per_decade: int = 40
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class AcMeasurement:
     midband_hz: float
     gain: complex  # v(output) / v(input source's + node − its − node), at midband

@@ -25,11 +25,12 @@ import threading
 import time
 import weakref
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import field
 from pathlib import Path
 from types import MappingProxyType
 from typing import IO, TYPE_CHECKING, Any
 
+from bridge.records import record
 from bridge.sim.locate import locate_ngspice
 from bridge.sim.worker import run_forked, vector_key
 
@@ -101,7 +102,7 @@ class SimulatorTimeout(SimulatorError, TimeoutError):
         self.timeout = timeout
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class SimResult:
     """The vectors of the plot one analysis made, keyed as the worker names them: float arrays,
     complex ones for an `.ac` plot."""

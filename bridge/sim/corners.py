@@ -11,12 +11,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import field
 
 from ..analysis.spread import Band, SpreadResult
 from ..netlist.circuit import Circuit
 from ..netlist.numbers import engineering
 from ..netlist.variant import at_temperature, with_model_parameters, with_values
+from ..records import record
 from ..vocabulary import Finding, simulator_failure
 from .client import NgspiceSession, SimulatorError
 from .operating_point import SimOperatingPoint, submit_operating_point
@@ -49,7 +50,7 @@ def corner_circuit(circuit: Circuit, bands: Sequence[Band], values: Sequence[flo
     return varied
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class CornerCheck:
     """ngspice's values at the extremes' corners: ``devices[name][quantity]`` and ``nodes[node]``
     are (sim at the min corner, sim at the max corner), None where ngspice gave none."""

@@ -12,18 +12,18 @@ card's parameters as the netlist reader read them, never the user's text.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
 
 import numpy as np
 
 from ..netlist.circuit import Analysis, Circuit, DcSweep, Directive, Element, ModelCard, Origin
 from ..netlist.emit import SpiceDeck, emit
+from ..records import record
 from .client import NgspiceSession
 
 ORIGIN = Origin("<device-iv>", 0)
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class DeviceGrid:
     """Drain currents over a grid, flattened: one entry per (vbs, vds, vgs) point (device polarity)."""
 

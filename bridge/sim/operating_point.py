@@ -10,11 +10,10 @@ quantity (and what is derived from it) None.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 from ..devices.mos1 import Region, classify_region, overdrive
 from ..netlist.circuit import GROUND, Analysis, Circuit, Element, Origin
 from ..netlist.emit import emit
+from ..records import record
 from .client import NgspiceSession, PendingRun, SimResult
 
 # The quantities every ngspice MOSFET family verified here reports under these names, normalised
@@ -33,7 +32,7 @@ THRESHOLD_BY_LEVEL: dict[int, tuple[str, bool]] = {
 }
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class SimDevice:
     """One MOSFET as ngspice solved it, polarity-normalised."""
 
@@ -50,7 +49,7 @@ class SimDevice:
     region: Region | None
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class SimOperatingPoint:
     """ngspice's operating point: node voltages, branch currents, each MOSFET, its messages."""
 

@@ -5,14 +5,14 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
 
+from ...records import record
 from ..interface import stamp_pair
 from ..mos1.convergence import pnjlim
 from .load import diode_current
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class PlacedDiode:
     """A diode between the unknowns `anode` and `cathode`, IS (area and M included) and N·kT/q at
     its temperature, and its pnjlim critical voltage."""

@@ -11,12 +11,13 @@ has none, and limits only its gate and drain voltages.
 from __future__ import annotations
 
 from collections.abc import Callable, MutableMapping
-from dataclasses import dataclass, replace
+from dataclasses import replace
 from functools import cached_property
 
 from bridge.netlist.circuit import Circuit, Element, ModelCard
 from bridge.records import with_fields
 
+from ...records import record
 from .convergence import limit, limit_channel, vcrit
 from .load import DeviceConstants, Level1Geometry, Level1Point, beta, device_constants, evaluate_with, junction_current
 from .model import Level1Model, card_model_of
@@ -85,7 +86,7 @@ def card_model(
     return model.at_temperature(circuit.device_temperature(element) if temperature is None else temperature)
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Mos1Instance:
     """A sized level-1 MOSFET at its temperature, with its bulk junctions (per M, times M)."""
 

@@ -14,11 +14,11 @@ is its numpy twin over many bias points at once (sweeps, batches), equal to it t
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 from typing import NamedTuple
 
 import numpy as np
 
+from ...records import record
 from .ask import Region, classify_region
 from .model import Level1Model
 from .params import DEFAULT_L, DEFAULT_W
@@ -26,7 +26,7 @@ from .params import DEFAULT_L, DEFAULT_W
 MAX_EXP_ARG = 709.0  # ngspice's clamp on junction exponents (exp overflows past it)
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Level1Geometry:
     """Instance size: drawn width and length in metres, and the parallel multiplier M."""
 
@@ -285,7 +285,7 @@ def junction_current(voltage: float, saturation_current: float, gmin: float, the
     )
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class ArrayPoint:
     """``Level1Point`` over many bias points: each field an array (``region`` as codes of
     ``ask.REGIONS``); ``conductances`` are the four terminal derivatives, in order."""

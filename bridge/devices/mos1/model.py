@@ -10,10 +10,10 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass
 from functools import lru_cache
 from typing import Literal
 
+from ...records import record
 from .params import (
     CELSIUS_TO_KELVIN,
     CHARGE,
@@ -33,7 +33,7 @@ Region = Literal["cutoff", "triode", "saturation"]
 MosType = Literal["nmos", "pmos"]
 
 
-@dataclass(frozen=True)
+@record(frozen=True)
 class Level1Model:
     """Level-1 model card after ngspice's defaulting and derivations (at 27 °C).
 

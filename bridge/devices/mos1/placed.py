@@ -10,16 +10,16 @@ its channel, limits only vgs and vds, and its convergence test sees the channel 
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import field
 
-from ...records import with_fields
+from ...records import record, with_fields
 from ..interface import stamp_pair
 from .instance import Mos1Instance
 from .load import Level1Geometry, Level1Point, evaluate_with, junction_current
 from .model import Level1Model
 
 
-@dataclass(frozen=True, eq=False)
+@record(frozen=True, eq=False)
 class PlacedMosfet:
     """A MOSFET instance (``Mos1Instance``) placed in the network: its terminals' unknowns."""
 
