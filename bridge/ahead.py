@@ -199,7 +199,8 @@ class _StreamReader:
 
 
 class _Frame:
-    """One frame's bytes as a file for an Unpickler (which reads a file only)."""
+    """One frame's bytes as a file for an Unpickler (which reads a file only: ``read``,
+    ``readinto`` and ``readline``, as io.BufferedIOBase has them)."""
 
     def __init__(self) -> None:
         self._data = b""
@@ -215,6 +216,12 @@ class _Frame:
         start = self._at
         self._at = len(self._data) if size < 0 else min(start + size, len(self._data))
         return self._data[start:self._at]
+
+    def readinto(self, buffer: bytearray | memoryview) -> int:
+        view = memoryview(buffer).cast("B")
+        data = self.read(len(view))
+        view[:len(data)] = data
+        return len(data)
 
     def readline(self) -> bytes:
         start = self._at

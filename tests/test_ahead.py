@@ -161,6 +161,10 @@ def test_the_pipe_is_one_stream_cut_every_few_items_and_each_arrives_as_prepared
             assert len(pickles[index]) < len(alone)
     with pytest.raises(pickle.UnpicklingError):
         ahead._StreamReader().unpickled(pickles[0] + pickles[0])
+    # The frame is a file as an Unpickler reads one: large buffers and text lines included.
+    odd = (0, (bytearray(b"greenhouse " * 20000), b"vent" * 30000))
+    for protocol in (0, pickle.HIGHEST_PROTOCOL):
+        assert ahead._StreamReader().unpickled(pickle.dumps(odd, protocol=protocol)) == odd
 
 
 def test_the_helper_delivers_across_the_cuts_of_its_stream_what_preparing_here_gives(tmp_path, monkeypatch):
