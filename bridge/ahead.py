@@ -153,11 +153,13 @@ class _PipeStream:
     A stream's pickler keeps what it has pickled in its memo: an object met again later in the
     stream goes as a reference to it, and the classes of the records and the names of their
     fields, the same in every item, are written (and read here) once per stream instead of once
-    per item. Over the 200 bench stages the later items refer back only to strings and classes
-    (no other object is shared between two netlists' results); anything else the helper shares
-    between items would arrive shared as this process shares it when it prepares them itself.
+    per item. Over the 200 bench stages and tests/batch_corpus the later items refer back only to
+    immutable objects (strings, classes, the empty frozenset; with the working, numpy's float64
+    dtype and scalar constructor): no other object is shared between two netlists' results, and
+    anything the helper shared would arrive shared as it is when this process prepares them.
     Both memos hold what went through them (nothing sent is freed, so no object's id is reused,
-    and nothing sent is changed: frozen records), so each stream is cut at `_STREAM_ITEMS`."""
+    and nothing sent is changed: frozen records); to bound that, a stream is cut every
+    `_STREAM_ITEMS` items. A pickle that fails ends the helper (the memos would no longer match)."""
 
     def __init__(self, working: bool = True) -> None:
         self._buffer = io.BytesIO()
