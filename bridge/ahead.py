@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import contextlib
 import copyreg
+import functools
 import io
 import mmap
 import os
@@ -21,14 +22,16 @@ import select
 import signal
 import threading
 from collections.abc import Callable, Iterator, Sequence
-from dataclasses import replace
 from typing import TypeVar
 
+from .analysis.dcsolve import BulkJunctions, OperatingPoint
+from .analysis.hand import HandDevice, HandSolution
 from .check import NotASingleStage, OwnColumns, solve_own_columns
+from .devices.mos1.load import Level1Point, TerminalConductances
 from .netlist import Location, NetlistError, read_netlist
-from .netlist.circuit import Circuit, Element
+from .netlist.circuit import Analysis, Circuit, Directive, Element, ModelCard, Notice, Origin, Parameter, Waveform
 from .records import record
-from .vocabulary import Expectations
+from .vocabulary import Expectations, Finding
 
 # Below this many files the fork (a few ms) and the pickling cost more than they save.
 AHEAD_FROM = 4
@@ -57,38 +60,175 @@ class Unusable:
         return cls(file, exc.message, exc.location, exc.render())
 
 
-def without_working(item: Prepared | Unusable) -> Prepared | Unusable:
-    """`item` with its hand solution's working (``steps``, ``assumptions``) left empty, for a check
-    whose view does not show it. The working is written when it is first read, and pickling reads
-    it: for the 200 bench stages that writing was a third of pickling a `Prepared` for the pipe
-    and its text 40 % of the 5.9 KB sent (0.21 → 0.09 ms a stage pickled, 5.9 → 3.5 KB)."""
-    if not isinstance(item, Prepared):  # (asking whether the working is empty would write it)
-        return item
-    return Prepared(item.circuit, replace(item.own, hand=replace(item.own.hand, steps=(), assumptions=())))
+# What the pipe leaves out of the records it pickles, and why: this process never reads it in a
+# check, whatever the view (the table, --json, --details; --steps keeps the working). A record
+# arrives with these fields made anew by the factory given (empty); a Circuit's lookups never go
+# (Circuit.__getstate__).
+_LEFT_OUT: dict[type, dict[str, Callable[[], object]]] = {
+    # Fields as written (``Element.written``): only lint's rules read them, and equality ignores
+    # them. Of a bench stage's `Prepared`, 0.8 of 3.5 KB and a third of the time unpickling it.
+    Element: {"written": dict},
+}
+# Without --steps, the hand working too (``HandSolution.steps``, ``.assumptions``): shown by
+# --steps alone, and written when first read, so pickling it wrote it: for the 200 bench stages
+# that writing was a third of pickling a `Prepared` and its text 40 % of the 5.9 KB sent (0.21 →
+# 0.09 ms a stage pickled, 5.9 → 3.5 KB). Left out by the reduction, nothing is copied or written.
+_LEFT_OUT_WITHOUT_STEPS: dict[type, dict[str, Callable[[], object]]] = {
+    HandSolution: {"steps": tuple, "assumptions": tuple},
+}
+
+# The records a `Prepared` or an `Unusable` is made of, each pickled by its fields alone (see
+# ``_pipe_dispatch_table``): frozen dataclasses (state: their fields) and named tuples.
+_RECORDS = (
+    Prepared, Unusable, Location, OwnColumns, Circuit, Element, Origin, ModelCard, Parameter, Analysis,
+    Directive, Notice, Waveform, HandSolution, HandDevice, OperatingPoint, Finding,
+)
+_NAMED_TUPLES = (Level1Point, TerminalConductances, BulkJunctions)
 
 
-def _element_without_written_fields(element: Element) -> tuple[object, ...]:
-    """How the pipe pickles an element: as pickle's own reduction of it does (its class and its
-    fields), with its fields as written (``Element.written``: only lint's rules read them, and
-    equality ignores them) left empty. Of a bench stage's `Prepared`, 0.8 of 3.5 KB and a third of
-    the time unpickling it takes this process; leaving them out here copies no element."""
-    state = element.__dict__.copy()
-    state["written"] = {}
-    return copyreg.__newobj__, (Element,), state
+def _by_fields(record: object) -> tuple[object, ...]:
+    """pickle's own reduction of a plain frozen dataclass (its class, then its fields as state),
+    made here without pickle's generic search for a reduction (``__reduce_ex__``, then
+    ``__getnewargs_ex__``, ``__getnewargs__``, ``__getstate__``): the same bytes, ~20 % less CPU."""
+    return copyreg.__newobj__, (type(record),), record.__dict__
 
 
-class _PipePickler(pickle.Pickler):
-    """The helper's pickler: pickle's own, but for ``_element_without_written_fields``."""
-
-    dispatch_table = copyreg.dispatch_table.copy()
-    dispatch_table[Element] = _element_without_written_fields
+def _by_state(record: object) -> tuple[object, ...]:
+    """As ``_by_fields``, for a record with its own ``__getstate__`` (a Circuit: its fields alone)."""
+    return copyreg.__newobj__, (type(record),), record.__getstate__()  # type: ignore[attr-defined]
 
 
-def pickled_for_the_pipe(item: tuple[int, Prepared | Unusable]) -> bytes:
-    """`item` (an index and what was prepared) as the helper sends it; ``pickle.loads`` reads it."""
+def _by_values(record: tuple) -> tuple[object, ...]:
+    """pickle's own reduction of a named tuple (its class and its values), made directly."""
+    return copyreg.__newobj__, (type(record), *record)
+
+
+def _pipe_dispatch_table(working: bool) -> dict[type, Callable[..., tuple[object, ...]]]:
+    """The reductions of the helper's pickler: every record by its fields (the same bytes as pickle's
+    own), less what `_LEFT_OUT` (and, without the working shown, `_LEFT_OUT_WITHOUT_STEPS`) names."""
+    table: dict[type, Callable[..., tuple[object, ...]]] = dict(copyreg.dispatch_table)
+    for cls in _RECORDS:
+        table[cls] = _by_state if "__getstate__" in vars(cls) else _by_fields
+    for cls in _NAMED_TUPLES:
+        table[cls] = _by_values
+    for cls, left_out in (_LEFT_OUT if working else {**_LEFT_OUT, **_LEFT_OUT_WITHOUT_STEPS}).items():
+        table[cls] = functools.partial(_leaving_out, left_out, table[cls])
+    return table
+
+
+def _leaving_out(left_out: dict[str, Callable[[], object]], reduction: Callable[..., tuple[object, ...]],
+                 record: object) -> tuple[object, ...]:
+    """`reduction`'s of `record`, with the fields of `left_out` made anew by their factories (the
+    record itself unchanged: its state is copied)."""
+    cls, args, state = reduction(record)
+    state = state.copy()
+    for name, empty in left_out.items():
+        state[name] = empty()
+    return cls, args, state
+
+
+def _pipe_pickler(file: io.BytesIO, working: bool = True) -> pickle.Pickler:
+    pickler = pickle.Pickler(file, protocol=pickle.HIGHEST_PROTOCOL)
+    pickler.dispatch_table = _pipe_dispatch_table(working)
+    return pickler
+
+
+def pickled_for_the_pipe(item: tuple[int, Prepared | Unusable], working: bool = True) -> bytes:
+    """`item` (an index and what was prepared) as the helper sends it first in a stream (see
+    ``_PipeStream``); ``pickle.loads`` reads it."""
     buffer = io.BytesIO()
-    _PipePickler(buffer, protocol=pickle.HIGHEST_PROTOCOL).dump(item)
+    _pipe_pickler(buffer, working).dump(item)
     return buffer.getvalue()
+
+
+# The helper's results are one pickle stream of up to this many items: one Pickler there and one
+# Unpickler here for all of them, both made anew every `_STREAM_ITEMS` items (see ``_PipeStream``).
+_STREAM_ITEMS = 32
+
+
+class _PipeStream:
+    """The helper's side of the pipe: its results pickled as one stream, each item one frame's
+    pickle (``_write_frame``), read here by ``_StreamReader``.
+
+    A stream's pickler keeps what it has pickled in its memo: an object met again later in the
+    stream goes as a reference to it, and the classes of the records and the names of their
+    fields, the same in every item, are written (and read here) once per stream instead of once
+    per item. Over the 200 bench stages and tests/batch_corpus the later items refer back only to
+    immutable objects (strings, classes, the empty frozenset; with the working, numpy's float64
+    dtype and scalar constructor): no other object is shared between two netlists' results, and
+    anything the helper shared would arrive shared as it is when this process prepares them.
+    Both memos hold what went through them (nothing sent is freed, so no object's id is reused,
+    and nothing sent is changed: frozen records); to bound that, a stream is cut every
+    `_STREAM_ITEMS` items. A pickle that fails ends the helper (the memos would no longer match)."""
+
+    def __init__(self, working: bool = True) -> None:
+        self._buffer = io.BytesIO()
+        self._working = working  # False: the hand working left out (``_LEFT_OUT_WITHOUT_STEPS``)
+        self._pickler: pickle.Pickler | None = None
+        self._sent = 0
+
+    def pickled(self, item: tuple[int, Prepared | Unusable]) -> bytes:
+        """`item`'s pickle, the next of the stream."""
+        if self._sent % _STREAM_ITEMS == 0:
+            self._pickler = _pipe_pickler(self._buffer, self._working)
+        assert self._pickler is not None
+        self._buffer.seek(0)
+        self._buffer.truncate()
+        self._pickler.dump(item)
+        self._sent += 1
+        return self._buffer.getvalue()
+
+
+class _StreamReader:
+    """This process's side of ``_PipeStream``: each frame's pickle read by the stream's Unpickler
+    (whose memo holds the stream so far), made anew where the helper's pickler was."""
+
+    def __init__(self) -> None:
+        self._frame = _Frame()
+        self._unpickler: pickle.Unpickler | None = None
+        self._received = 0
+
+    def unpickled(self, payload: bytes) -> object:
+        if self._received % _STREAM_ITEMS == 0:
+            self._unpickler = pickle.Unpickler(self._frame)
+        assert self._unpickler is not None
+        self._frame.hold(payload)
+        self._received += 1
+        item = self._unpickler.load()
+        if not self._frame.read_to_end():
+            raise pickle.UnpicklingError("a frame holds more than one pickle")
+        return item
+
+
+class _Frame:
+    """One frame's bytes as a file for an Unpickler (which reads a file only: ``read``,
+    ``readinto`` and ``readline``, as io.BufferedIOBase has them)."""
+
+    def __init__(self) -> None:
+        self._data = b""
+        self._at = 0
+
+    def hold(self, data: bytes) -> None:
+        self._data, self._at = data, 0
+
+    def read_to_end(self) -> bool:
+        return self._at == len(self._data)
+
+    def read(self, size: int = -1) -> bytes:
+        start = self._at
+        self._at = len(self._data) if size < 0 else min(start + size, len(self._data))
+        return self._data[start:self._at]
+
+    def readinto(self, buffer: bytearray | memoryview) -> int:
+        view = memoryview(buffer).cast("B")
+        data = self.read(len(view))
+        view[:len(data)] = data
+        return len(data)
+
+    def readline(self) -> bytes:
+        start = self._at
+        self._at = self._data.find(b"\n", start) + 1 or len(self._data)
+        return self._data[start:self._at]
 
 
 # A frame on the pipe: the length of the pickle that follows, then the pickle.
@@ -211,7 +351,7 @@ class Preparation:
     Iterate once. The helper is forked at construction: before the caller starts any thread (a
     progress bar's, say), since only the forking thread lives on in the child. With `working`
     False (no view will show the hand derivation: `check` without --steps) the helper sends each
-    hand solution without its working (see ``without_working``).
+    hand solution without its working (see ``_LEFT_OUT_WITHOUT_STEPS``).
     """
 
     def __init__(
@@ -227,6 +367,7 @@ class Preparation:
         self._shared_memory: mmap.mmap | None = None  # shared with the helper, once forked
         self._shared_back: memoryview | None = None  # `_back` as the helper reads it: [0]
         self._kept: dict[int, Prepared | Unusable] = {}
+        self._stream = _StreamReader()  # the helper's pickles, read in the order they come
         self._next = 0  # the index of the next item the iteration hands out
         if helper and len(self.paths) > 1:
             self._fork()
@@ -298,7 +439,7 @@ class Preparation:
             payload = _read_exactly(self._from_helper, int.from_bytes(header, "little")) if header else None
             if payload is None:
                 raise EOFError("the helper is gone")
-            index, item = pickle.loads(payload)
+            index, item = self._stream.unpickled(payload)  # type: ignore[misc]
             if not isinstance(index, int) or not isinstance(item, (Prepared, Unusable)):
                 raise TypeError(type(item).__name__)
         except Exception:  # gone (EOFError, OSError) or an answer that cannot be read
@@ -329,11 +470,11 @@ class Preparation:
                 os.closerange(3, sending)
                 os.closerange(sending + 1, os.sysconf("SC_OPEN_MAX"))
                 shared_back = self._shared_back
+                stream = _PipeStream(self.working)
                 index = 0
                 while index < shared_back[0]:
                     item = prepare(self.paths[index], self.expectations)
-                    item = item if self.working else without_working(item)
-                    _write_frame(sending, pickled_for_the_pipe((index, item)))
+                    _write_frame(sending, stream.pickled((index, item)))
                     index += 1
                 code = 0
             except BaseException:  # noqa: BLE001 - the parent prepares what was not sent

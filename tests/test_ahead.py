@@ -132,6 +132,54 @@ def test_a_result_larger_than_the_pipe_holds_arrives_whole(tmp_path):
         preparation.close()
 
 
+def test_the_pipe_pickles_each_record_as_pickle_itself_does_but_for_what_it_leaves_out(tmp_path):
+    # The pipe reduces every record itself (its class, then its fields): the bytes pickle's own
+    # reduction writes, once the fields the pipe leaves out are empty in the item itself.
+    for path in mixed_inputs(tmp_path)[:12]:
+        item = prepare(path, None)
+        if isinstance(item, Prepared):
+            circuit = replace(item.circuit, elements=tuple(replace(e, written={}) for e in item.circuit.elements))
+            item = Prepared(circuit, item.own)
+            bare = Prepared(circuit, replace(item.own, hand=replace(item.own.hand, steps=(), assumptions=())))
+            assert ahead.pickled_for_the_pipe((5, item), working=False) == pickle.dumps((5, bare), protocol=5)
+        assert ahead.pickled_for_the_pipe((5, item)) == pickle.dumps((5, item), protocol=5)
+
+
+def test_the_pipe_is_one_stream_cut_every_few_items_and_each_arrives_as_prepared(tmp_path, monkeypatch):
+    # Later pickles of a stream refer back to what it sent before (classes, field names), so they
+    # are smaller than each item alone; a stream is cut every _STREAM_ITEMS items, on both sides.
+    monkeypatch.setattr(ahead, "_STREAM_ITEMS", 4)
+    items = [(index, prepare(path, None)) for index, path in enumerate(mixed_inputs(tmp_path))]
+    stream, reader = ahead._PipeStream(), ahead._StreamReader()
+    pickles = [stream.pickled(item) for item in items]
+    assert [reader.unpickled(payload) for payload in pickles] == items
+    for index, item in items:
+        alone = ahead.pickled_for_the_pipe((index, item))
+        if index % 4 == 0:  # the first of a stream
+            assert pickles[index] == alone
+        elif isinstance(item, Prepared):
+            assert len(pickles[index]) < len(alone)
+    with pytest.raises(pickle.UnpicklingError):
+        ahead._StreamReader().unpickled(pickles[0] + pickles[0])
+    # The frame is a file as an Unpickler reads one: large buffers and text lines included.
+    odd = (0, (bytearray(b"greenhouse " * 20000), b"vent" * 30000))
+    for protocol in (0, pickle.HIGHEST_PROTOCOL):
+        assert ahead._StreamReader().unpickled(pickle.dumps(odd, protocol=protocol)) == odd
+
+
+def test_the_helper_delivers_across_the_cuts_of_its_stream_what_preparing_here_gives(tmp_path, monkeypatch):
+    monkeypatch.setattr(ahead, "_STREAM_ITEMS", 3)  # before the fork: the helper cuts where this process does
+    paths = mixed_inputs(tmp_path)
+    here = list(Preparation(paths, None, helper=False))
+    preparation = Preparation(paths, None, helper=True, working=False)
+    assert preparation.helper_pid is not None
+    sent = list(preparation)
+    assert [item.circuit if isinstance(item, Prepared) else item for item in sent] == [
+        item.circuit if isinstance(item, Prepared) else item for item in here]
+    assert [(item.own.with_effect, item.own.level1, item.own.findings) for item in sent if isinstance(item, Prepared)] \
+        == [(item.own.with_effect, item.own.level1, item.own.findings) for item in here if isinstance(item, Prepared)]
+
+
 _PREPARE_AHEAD_AND_LIST_MULTIPROCESSING = (
     "import sys; from bridge.ahead import Preparation; preparation = Preparation(sys.argv[1:], None, helper=True); "
     "forked = preparation.helper_pid is not None; items = list(preparation); "
@@ -159,6 +207,22 @@ def test_a_many_file_check_shows_each_derivation_with_the_helper_as_without(tmp_
         outputs.append(capsys.readouterr().out)
     assert outputs[0] == outputs[1]
     assert outputs[0].count("Hand analysis, step by step:") == len(paths)
+
+
+@needs_library
+@pytest.mark.parametrize("view", [[], ["--details"], ["--json"]])
+def test_a_many_file_check_shows_each_view_with_the_helper_as_without(tmp_path, capsys, monkeypatch, view):
+    # The helper's pipe leaves out what this process never reads (see ahead._LEFT_OUT): the
+    # table of rows, the full views and the JSON lines are the same with it as without it.
+    monkeypatch.setattr(ahead, "_STREAM_ITEMS", 3)
+    paths = [str(path) for path in BUNDLED] + [str(path) for path in BUNDLED[:3]]
+    outputs = []
+    for load in (0.0, 99.0):  # an idle machine: a helper; a busy one: none
+        monkeypatch.setattr(ahead, "busy_elsewhere", lambda beside=(), load=load: load)
+        main(["check", *view, *paths])
+        outputs.append(capsys.readouterr().out)
+    assert outputs[0] == outputs[1]
+    assert outputs[0].count(str(BUNDLED[0])) >= 2
 
 
 def test_while_the_helper_stalls_this_process_takes_the_files_from_the_back(tmp_path):
