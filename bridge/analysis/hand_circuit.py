@@ -366,7 +366,39 @@ def _reduce(net: _Network, kept: list[str], ports: list[str]) -> tuple[np.ndarra
     (``reduction.kron``)."""
     port_set = set(ports)
     internal = [net.index[n] for n in kept if n not in port_set]
-    return kron(net.conductance, net.injection, [net.index[n] for n in ports], internal, net.plain)
+    at = [net.index[n] for n in ports]
+    if internal and _isolated(net, at, internal):
+        internal = []  # eliminating them would subtract exact zeros (see _isolated)
+    return kron(net.conductance, net.injection, at, internal, net.plain)
+
+
+def _isolated(net: _Network, ports: list[int], internal: list[int]) -> bool:
+    """Whether Kron's reduction onto `ports` would leave the port block of G·v = J as it is, to
+    the bit, if `internal` were eliminated (a divider's gate seen from the channel, a load behind
+    an open capacitor): each internal node touches no other port or internal node (G is exactly 0
+    between them, both ways), and its own equation g·v = j solves finitely (g finite and not 0,
+    1/g, j/g and j·(1/g) finite, so LAPACK's LU neither stops at a zero pivot nor makes an inf,
+    whether it divides or multiplies by the reciprocal).
+
+    Then the block kron inverts is diagonal, its solve gives exact zeros against the zero
+    couplings and finite numbers elsewhere, and Y = G_pp − 0·(…), J_p − 0·(…) are G_pp and J_p:
+    a zero product is ±0, and no entry of G or J is −0 (both are stamped as sums starting from
+    +0, and x + (−x) is +0), so subtracting ±0 changes none. Dense networks only (``net.plain``)."""
+    rows = net.plain
+    if rows is None:
+        return False
+    together = ports + internal
+    for i in internal:
+        row = rows[i]
+        for k in together:
+            if k != i and (row[k] != 0.0 or rows[k][i] != 0.0):
+                return False
+        g, j = row[i], float(net.injection[i])
+        if g == 0.0 or not math.isfinite(g):
+            return False
+        if not (math.isfinite(1.0 / g) and math.isfinite(j / g) and math.isfinite(j * (1.0 / g))):
+            return False
+    return True
 
 
 def _large(net: _Network) -> bool:
