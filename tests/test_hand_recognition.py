@@ -109,3 +109,52 @@ def test_a_node_with_a_zero_or_subnormal_equation_is_eliminated_the_long_way() -
     rows = [[1e-3, -1e-6], [-1e-6, 2e-3]]
     net = _Network(["d", "g"], {"d": 0, "g": 1}, np.array(rows), np.array([1e-3, 1.0]), np.zeros(2), rows)
     assert not _isolated(net, [0], [1])  # coupled to the port
+
+
+def _examples_with_affine_stages():
+    from bridge.analysis.hand import HandModel
+
+    for path in NETLISTS:
+        try:
+            model = HandModel(read_netlist(str(path)))
+        except (NetlistError, HandAnalysisError):
+            continue
+        _, stage, reason = model._recognised
+        if stage is not None and reason is None and stage.held_node is None:
+            yield path, model
+
+
+def test_the_base_voltages_are_solved_once_for_every_solve_of_a_model(monkeypatch) -> None:
+    """The plain solve and the one-effect re-solves of an affine stage read the network's
+    voltages with ID = 0 from one solve; each gives what a model of its own (solving them
+    afresh) gives, to the bit."""
+    from bridge.analysis import hand
+    from bridge.analysis.hand import HandModel
+
+    solved = []
+    original = hand._solve_network
+
+    def counted(net, kept, current):
+        if current == 0.0 and kept is net.nodes:
+            solved.append(net)
+        return original(net, kept, current)
+
+    monkeypatch.setattr(hand, "_solve_network", counted)
+    stages = list(_examples_with_affine_stages())
+    assert len(stages) >= 5
+    compared = 0
+    for path, model in stages:
+        solved.clear()
+        plain = model.solve(working=False)
+        try:
+            again = [model.solve(effects={effect}, working=False, start=plain.node_voltages)
+                     for effect in ("lambda", "gamma")]  # fmt: skip
+        except HandAnalysisError:  # no point with an effect (a 1e300 V supply): nothing to share
+            continue
+        assert len(solved) == 1, path
+        compared += 1
+        alone = [HandModel(model.circuit).solve(effects={effect}, working=False, start=plain.node_voltages)
+                 for effect in ("lambda", "gamma")]  # fmt: skip
+        assert [(s.node_voltages, s.devices) for s in again] == [(s.node_voltages, s.devices) for s in alone], path
+        assert HandModel(model.circuit).solve(working=False).node_voltages == plain.node_voltages
+    assert compared >= 5

@@ -345,19 +345,21 @@ def _injection(dc: _DcCircuit, index: Mapping[str, int]) -> list[float]:
 
 def _unanchored_groups(dc: _DcCircuit, net: _Network) -> list[set[str]]:
     """Groups of free nodes joined by resistors that reach no fixed node through one."""
+    index = net.index  # the free nodes
     free = NodeSets(net.nodes)
     anchored: set[str] = set()
     for resistor in dc.resistors:
-        if resistor.a in free and resistor.b in free:
+        if resistor.a in index and resistor.b in index:
             free.join(resistor.a, resistor.b)
     for resistor in dc.resistors:
         for here, there in ((resistor.a, resistor.b), (resistor.b, resistor.a)):
-            if here in free and there in dc.fixed:
+            if here in index and there in dc.fixed:
                 anchored.add(free.root(here))
     groups: dict[str, set[str]] = {}
     for node in net.nodes:
-        if free.root(node) not in anchored:
-            groups.setdefault(free.root(node), set()).add(node)
+        root = free.root(node)
+        if root not in anchored:
+            groups.setdefault(root, set()).add(node)
     return list(groups.values())
 
 
@@ -714,12 +716,22 @@ def _topology_label(dc: _DcCircuit, stage: _Stage) -> str:
         parts = ["common-source", gate_phrase, source_phrase]
         if drain.kind == "rail":
             parts.append("no drain resistor")
+    if _split_supplies(dc, stage):
+        parts.append("split supplies")
+    return pmos + ", ".join(p for p in parts if p)
+
+
+def _split_supplies(dc: _DcCircuit, stage: _Stage) -> bool:
+    """Whether the stage uses rails on both sides of ground (one below, one above), counting a
+    rail as used where a resistor, a current source or the transistor's drain, gate or source
+    reaches it. Without fixed nodes of both signs no stage can."""
+    fixed = dc.fixed.values()
+    if not (any(v < 0 for v in fixed) and any(v > 0 for v in fixed)):
+        return False
     used = {n for r in dc.resistors for n in (r.a, r.b)} | {n for c in dc.current_sources for n in (c.leaves, c.enters)}
     used |= {stage.transistor.drain, stage.transistor.gate, stage.transistor.source}
     rails = [v for n, v in dc.fixed.items() if n in used]
-    if any(v < 0 for v in rails) and any(v > 0 for v in rails):
-        parts.append("split supplies")
-    return pmos + ", ".join(p for p in parts if p)
+    return any(v < 0 for v in rails) and any(v > 0 for v in rails)
 
 
 def _solve_network(net: _Network, kept: list[str], drain_current: float) -> dict[str, float]:
