@@ -1,6 +1,7 @@
 """The hand model's recognition takes shortcuts that must give what the long way gives, to the bit:
 Kron's reduction skips nodes whose elimination would subtract exact zeros
-(``hand_circuit._isolated``).
+(``hand_circuit._isolated``), the gate's equation is read off G where nothing is eliminated
+(``_first_row``), and an affine stage's voltages with ID = 0 are solved once per model.
 
 The long way is computed here beside the short one, on the example netlists, the batch corpus
 and random networks (exact zeros, negative, huge, tiny and subnormal conductances).
@@ -15,7 +16,15 @@ import numpy as np
 import pytest
 
 from bridge.analysis import hand_circuit
-from bridge.analysis.hand_circuit import HandAnalysisError, _dc_circuit, _isolated, _Network, _recognise, _reduce
+from bridge.analysis.hand_circuit import (
+    HandAnalysisError,
+    _dc_circuit,
+    _first_row,
+    _isolated,
+    _Network,
+    _recognise,
+    _reduce,
+)
 from bridge.analysis.reduction import kron
 from bridge.netlist import NetlistError, read_netlist
 
@@ -33,12 +42,24 @@ def _same_bits(short, full) -> bool:
     return all(a.shape == b.shape and a.dtype == b.dtype and a.tobytes() == b.tobytes() for a, b in zip(short, full))
 
 
+def _same_first_row(net: _Network, kept: list[str], ports: list[str], full) -> bool:
+    """``_first_row`` against the full reduction's first row and injection, and the row's sum
+    (the gate terminal's test for a path to the rails)."""
+    row, injected = _first_row(net, kept, ports)
+    y, jt = full
+    same_sum = np.array(row.sum()).tobytes() == np.array(y[0].sum()).tobytes()
+    same_injection = type(injected) is type(jt[0]) and np.array(injected).tobytes() == np.array(jt[0]).tobytes()
+    return same_injection and same_sum and _same_bits((row,), (y[0],))
+
+
 def test_reductions_of_the_examples_match_the_full_elimination(monkeypatch) -> None:
     seen = {"calls": 0, "skipped": 0}
 
     def compared(net, kept, ports):
         short = _reduce(net, kept, ports)
-        assert _same_bits(short, _full_kron(net, kept, ports))
+        full = _full_kron(net, kept, ports)
+        assert _same_bits(short, full)
+        assert _same_first_row(net, kept, ports, full)
         internal = [net.index[n] for n in kept if n not in set(ports)]
         seen["calls"] += 1
         seen["skipped"] += bool(internal) and _isolated(net, [net.index[n] for n in ports], internal)
@@ -92,6 +113,7 @@ def test_reductions_of_random_networks_match_the_full_elimination(seed: int) -> 
                 continue
             short = _reduce(net, kept, ports)
             assert _same_bits(short, full), (net.plain, kept, ports)
+            assert _same_first_row(net, kept, ports, full), (net.plain, kept, ports)
             internal = [net.index[n] for n in kept if n not in set(ports)]
             skipped += bool(internal) and _isolated(net, [net.index[n] for n in ports], internal)
     assert skipped > 50  # the shortcut was taken, not only the long way

@@ -366,12 +366,30 @@ def _unanchored_groups(dc: _DcCircuit, net: _Network) -> list[set[str]]:
 def _reduce(net: _Network, kept: list[str], ports: list[str]) -> tuple[np.ndarray, np.ndarray]:
     """Kron reduction onto `ports`: Y·v_ports = J_ports, the other kept nodes eliminated
     (``reduction.kron``)."""
+    at, internal = _eliminated(net, kept, ports)
+    return kron(net.conductance, net.injection, at, internal, net.plain)
+
+
+def _eliminated(net: _Network, kept: list[str], ports: list[str]) -> tuple[list[int], list[int]]:
+    """The indices of `ports`, and of the other `kept` nodes Kron's reduction onto them must
+    eliminate: none where eliminating them would subtract exact zeros (``_isolated``)."""
     port_set = set(ports)
     internal = [net.index[n] for n in kept if n not in port_set]
     at = [net.index[n] for n in ports]
     if internal and _isolated(net, at, internal):
-        internal = []  # eliminating them would subtract exact zeros (see _isolated)
-    return kron(net.conductance, net.injection, at, internal, net.plain)
+        internal = []
+    return at, internal
+
+
+def _first_row(net: _Network, kept: list[str], ports: list[str]) -> tuple[np.ndarray, np.floating]:
+    """The first port's equation after ``_reduce(net, kept, ports)``: Y's first row and J's first
+    entry, the same numbers. Where nothing is eliminated they are G's and J's own, read off
+    without cutting the whole block of the ports."""
+    at, internal = _eliminated(net, kept, ports)
+    if internal or net.plain is None:
+        y, jt = kron(net.conductance, net.injection, at, internal, net.plain)
+        return y[0], jt[0]
+    return net.conductance[at[0]].take(at), net.injection[at[0]]
 
 
 def _isolated(net: _Network, ports: list[int], internal: list[int]) -> bool:
@@ -527,12 +545,12 @@ def _gate_terminal(dc: _DcCircuit, net: _Network, transistor: _Transistor, kept:
     if g in dc.fixed:
         return _Terminal("rail", dc.fixed[g], 0.0, dc.rail_label[g])
     ports = [g] + [n for n in dict.fromkeys((d, s)) if n in kept and n != g]
-    y, jt = _reduce(net, kept, ports)
-    offset = jt[0] / y[0, 0]
-    gains = {ports[k]: -y[0, k] / y[0, 0] for k in range(1, len(ports))}
+    row, injected = _first_row(net, kept, ports)  # the gate's equation: row·v_ports = injected
+    offset = injected / row[0]
+    gains = {ports[k]: -row[k] / row[0] for k in range(1, len(ports))}
     drain_gain = gains.get(d, 0.0)
     source_gain = gains.get(s, 0.0)
-    returned = y[0].sum() > 1e-12 * y[0, 0]  # some conductance from the gate to the rails
+    returned = row.sum() > 1e-12 * row[0]  # some conductance from the gate to the rails
     resistors, currents = _incident(dc, g)
     tiny = 1e-12
     if abs(drain_gain) > tiny:
@@ -562,7 +580,7 @@ def _gate_terminal(dc: _DcCircuit, net: _Network, transistor: _Transistor, kept:
             elements=_group_resistors(dc, g, None),
             returned=returned,
         )
-    resistance = 1.0 / y[0, 0]
+    resistance = 1.0 / row[0]
     all_to_rails = all(r.far_end(g) in dc.fixed for r in resistors)
     if all_to_rails and not currents and len(resistors) in (1, 2):
         kind = "resistor" if len(resistors) == 1 else "divider"
