@@ -144,7 +144,8 @@ def _quadratic(a: float, b: float, c: float) -> tuple[float, ...]:
     return tuple(sorted(roots))
 
 
-@dataclass(frozen=True, eq=False)
+# Made per solve and never changed once made: not frozen (see hand_circuit's records).
+@dataclass(eq=False)
 class _AffineNumbers:
     """The numbers of the affine closed form: VOV = u − rg·ID, VDS = vds0 − rd·ID.
 
@@ -248,7 +249,7 @@ def _affine_numbers(dc: _DcCircuit, stage: _Stage, base: dict[str, float] | None
     )  # fmt: skip
 
 
-@dataclass(frozen=True, eq=False)
+@dataclass(eq=False)
 class _HeldNumbers:
     """The numbers of the held closed form: a current source is the only DC path of the source
     (or of a diode-connected drain), so ID = I.

@@ -38,7 +38,10 @@ class HandAnalysisError(ValueError):
 # --- the DC circuit ---------------------------------------------------------------------------
 
 
-@dataclass(frozen=True, eq=False)
+# The hand's records are made for each stage (and each solve) and never changed once made; they
+# are not frozen dataclasses, whose __init__ sets every field through object.__setattr__ (about
+# six times the time of a plain one for a record of eleven fields).
+@dataclass(eq=False)
 class _Resistor:
     """A resistor between nodes `a` and `b`."""
 
@@ -52,7 +55,7 @@ class _Resistor:
         return self.b if self.a == node else self.a
 
 
-@dataclass(frozen=True, eq=False)
+@dataclass(eq=False)
 class _CurrentSource:
     """An independent current source: its current leaves node `leaves` and enters `enters`."""
 
@@ -62,7 +65,7 @@ class _CurrentSource:
     current: float
 
 
-@dataclass(frozen=True, eq=False)
+@dataclass(eq=False)
 class _Transistor:
     """A MOSFET of the DC circuit with the model the hand analysis gives it."""
 
@@ -442,7 +445,7 @@ def _resistors_at(dc: _DcCircuit, node: str) -> list[_Resistor]:
     return dc.incidence.get(node, [])
 
 
-@dataclass(frozen=True, eq=False)
+@dataclass(eq=False)
 class _Terminal:
     """What one device terminal sees, for the working (the solution comes from the network).
 
@@ -464,7 +467,7 @@ class _Terminal:
     detail: tuple[_Resistor, ...] = ()  # the resistors a named formula uses
 
 
-@dataclass(frozen=True, eq=False)
+@dataclass(eq=False)
 class _Stage:
     """A single-transistor stage the closed forms cover."""
 

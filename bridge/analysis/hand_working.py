@@ -663,7 +663,8 @@ def _numerical_steps(dc: _DcCircuit, effects: frozenset[str], reason: str, itera
 # --- written on demand ------------------------------------------------------------------------
 
 
-@dataclass(frozen=True, eq=False)
+# Made per solve and never changed once made: not frozen (see hand_circuit's records).
+@dataclass(eq=False)
 class Working:
     """What one hand solution's working is written from, numbers only.
 
