@@ -275,3 +275,19 @@ def test_a_remembered_card_model_is_the_card_model_of_that_very_card() -> None:
         assert card_model_of("nmos", params, 20.0).tnom_celsius == 20.0
     with pytest.raises(ValueError, match="PHI must be positive"):
         card_model_of("nmos", {"phi": -1.0})
+
+
+def test_cards_of_the_same_values_share_their_remembered_model() -> None:
+    """Stages that include one library read its cards into mappings of their own: one model for
+    all of them; a card with a zero value only for itself (−0.0 equals 0.0 but is another card)."""
+    from bridge.devices.mos1.model import card_model_of
+
+    params = {"vto": 0.7, "kp": 120e-6, "lambda": 0.02, "gamma": 0.4, "phi": 0.65}
+    ours = card_model_of("nmos", params, 27.0)
+    assert card_model_of("nmos", dict(params), 27.0) is ours
+    assert card_model_of("nmos", {**params, "kp": 121e-6}, 27.0).kp == 121e-6
+    assert card_model_of("nmos", dict(reversed(params.items())), 27.0) == ours  # another order: built again
+    plus, minus = {"vto": 0.7, "lambda": 0.0}, {"vto": 0.7, "lambda": -0.0}
+    assert math.copysign(1.0, card_model_of("nmos", plus).lambda_) == 1.0
+    assert math.copysign(1.0, card_model_of("nmos", minus).lambda_) == -1.0
+    assert card_model_of("nmos", dict(plus)) is not card_model_of("nmos", plus)

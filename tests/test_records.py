@@ -160,6 +160,42 @@ def test_a_subclass_record_extends_its_base() -> None:
             extra: int = 0
 
 
+def test_a_frozen_record_stores_its_fields_as_dataclass_does_even_through_a_descriptor() -> None:
+    # A frozen record's __init__ writes its instance dict directly unless a field's name is a data
+    # descriptor of the class: then, as dataclass does, through object.__setattr__ (the setter runs).
+    def with_a_setter_base():
+        class Base:
+            """A base whose `gain` is a property with a setter."""
+            @property
+            def gain(self) -> float:
+                return self.__dict__["stored"]
+
+            @gain.setter
+            def gain(self, value: float) -> None:
+                self.__dict__["stored"] = 2 * value
+        return Base
+
+    @dataclasses.dataclass(frozen=True)
+    class Twin(with_a_setter_base()):
+        gain: float
+
+    @record(frozen=True)
+    class Made(with_a_setter_base()):
+        gain: float
+
+    assert Made(3.0).gain == Twin(3.0).gain == 6.0
+    assert vars(Made(3.0)) == vars(Twin(3.0)) == {"stored": 6.0}
+
+    @record(frozen=True)
+    class Plain:
+        """Two fields, stored straight into the instance dict."""
+        vto: float
+        kp: float = 1e-4
+    assert vars(Plain(0.7)) == {"vto": 0.7, "kp": 1e-4}
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        Plain(0.7).vto = 0.8
+
+
 def test_record_refuses_fields_it_does_not_build() -> None:
     with pytest.raises(TypeError, match="keyword-only"):
         @record(frozen=True)

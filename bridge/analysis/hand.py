@@ -334,7 +334,8 @@ def _shifted(offset: float, slope: float, current: float) -> float:
 
 
 def _affine_with_effects(
-    dc: _DcCircuit, topology: str, stage: _Stage, chosen: frozenset[str], start: Mapping[str, float] | None
+    dc: _DcCircuit, topology: str, stage: _Stage, chosen: frozenset[str], start: Mapping[str, float] | None,
+    base: dict[str, float] | None = None,
 ) -> HandSolution | None:
     """The bias point of an affine stage (``_affine_numbers``'s: no held node) with `chosen`
     switched on in `dc`'s transistor: the same network, each node V = base + ID·response, and
@@ -345,9 +346,11 @@ def _affine_with_effects(
 
     The root is the numerical path's to rounding (both solve the same equations to the last
     digit they test), without compiling the circuit for Newton. `start` (the plain hand point)
-    gives the first guess of ID: the plain device's current there."""
+    gives the first guess of ID: the plain device's current there. `base`: the network's node
+    voltages with ID = 0, when already solved."""
     t, net = dc.transistors[0], stage.network
-    base = _solve_network(net, net.nodes, 0.0)
+    if base is None:
+        base = _solve_network(net, net.nodes, 0.0)
     assert stage.response is not None
     response = dict(zip(net.nodes, stage.response.tolist(), strict=True))
     guess = 0.0
@@ -587,6 +590,18 @@ class HandModel:
         self.circuit = circuit
         self._dc = _dc_circuit(circuit, frozenset())
         self._recognised = _recognise(self._dc)
+        self._base: dict[str, float] | None = None
+
+    def _base_voltages(self) -> dict[str, float] | None:
+        """The affine stage's node voltages with ID = 0 (``_affine_numbers``' base: they depend on
+        the network alone, not on the effects), solved at the first solve that reads them and
+        shared by the others; None where no affine closed form is recognised."""
+        _, stage, reason = self._recognised
+        if stage is None or reason is not None or stage.held_node is not None:
+            return None
+        if self._base is None:
+            self._base = _solve_network(stage.network, stage.network.nodes, 0.0)
+        return self._base
 
     def solve(
         self,
@@ -606,7 +621,9 @@ class HandModel:
         if chosen:
             # The same reduction with each transistor's hand model rebuilt from its card.
             dc = dc.with_transistors([t.with_model(hand_model(t.card, chosen)) for t in dc.transistors])
-        return _solve(self.circuit, dc, chosen, self._recognised, closed_form, working, start)
+        # The closed forms read the base voltages: the plain solve and the re-solves without working.
+        base = self._base_voltages() if closed_form and (not chosen or not working) else None
+        return _solve(self.circuit, dc, chosen, self._recognised, closed_form, working, start, base)
 
     def solved_unchanged(self, effect: str, plain: HandSolution) -> HandSolution | None:
         """The bias point with `effect` switched on where it provably cannot act: then it IS
@@ -756,13 +773,17 @@ def _solve(
     closed_form: bool,
     working: bool,
     start: Mapping[str, float] | None = None,
+    base: dict[str, float] | None = None,
 ) -> HandSolution:
-    """The numbers, and with `working` what their text is written from (written when read)."""
+    """The numbers, and with `working` what their text is written from (written when read).
+    `base`: an affine stage's node voltages with ID = 0, when already solved."""
     topology, stage, reason = recognised
     if not working and (chosen or not closed_form or stage is None):
         if chosen and closed_form and stage is not None and reason is None:
-            solve = _affine_with_effects if stage.held_node is None else _held_with_effects
-            solved = solve(dc, topology, stage, chosen, start)
+            if stage.held_node is None:
+                solved = _affine_with_effects(dc, topology, stage, chosen, start, base)
+            else:
+                solved = _held_with_effects(dc, topology, stage, chosen, start)
             if solved is not None:
                 return solved
         return _numerical_solution(circuit, dc, topology, chosen, None, start=start)
@@ -780,7 +801,7 @@ def _solve(
     if stage is None or reason is not None:
         return _numerical_solution(circuit, dc, topology, chosen, text(reason=reason or ""))
 
-    closed = _held_numbers(dc, stage) if stage.held_node is not None else _affine_numbers(dc, stage)
+    closed = _held_numbers(dc, stage) if stage.held_node is not None else _affine_numbers(dc, stage, base)
     if isinstance(closed, str):
         return _numerical_solution(circuit, dc, topology, chosen, text(stage=stage, reason=closed))
     if closed.failure is not None:

@@ -345,28 +345,80 @@ def _injection(dc: _DcCircuit, index: Mapping[str, int]) -> list[float]:
 
 def _unanchored_groups(dc: _DcCircuit, net: _Network) -> list[set[str]]:
     """Groups of free nodes joined by resistors that reach no fixed node through one."""
+    index = net.index  # the free nodes
     free = NodeSets(net.nodes)
     anchored: set[str] = set()
     for resistor in dc.resistors:
-        if resistor.a in free and resistor.b in free:
+        if resistor.a in index and resistor.b in index:
             free.join(resistor.a, resistor.b)
     for resistor in dc.resistors:
         for here, there in ((resistor.a, resistor.b), (resistor.b, resistor.a)):
-            if here in free and there in dc.fixed:
+            if here in index and there in dc.fixed:
                 anchored.add(free.root(here))
     groups: dict[str, set[str]] = {}
     for node in net.nodes:
-        if free.root(node) not in anchored:
-            groups.setdefault(free.root(node), set()).add(node)
+        root = free.root(node)
+        if root not in anchored:
+            groups.setdefault(root, set()).add(node)
     return list(groups.values())
 
 
 def _reduce(net: _Network, kept: list[str], ports: list[str]) -> tuple[np.ndarray, np.ndarray]:
     """Kron reduction onto `ports`: Y·v_ports = J_ports, the other kept nodes eliminated
     (``reduction.kron``)."""
+    at, internal = _eliminated(net, kept, ports)
+    return kron(net.conductance, net.injection, at, internal, net.plain)
+
+
+def _eliminated(net: _Network, kept: list[str], ports: list[str]) -> tuple[list[int], list[int]]:
+    """The indices of `ports`, and of the other `kept` nodes Kron's reduction onto them must
+    eliminate: none where eliminating them would subtract exact zeros (``_isolated``)."""
     port_set = set(ports)
     internal = [net.index[n] for n in kept if n not in port_set]
-    return kron(net.conductance, net.injection, [net.index[n] for n in ports], internal, net.plain)
+    at = [net.index[n] for n in ports]
+    if internal and _isolated(net, at, internal):
+        internal = []
+    return at, internal
+
+
+def _first_row(net: _Network, kept: list[str], ports: list[str]) -> tuple[np.ndarray, np.floating]:
+    """The first port's equation after ``_reduce(net, kept, ports)``: Y's first row and J's first
+    entry, the same numbers. Where nothing is eliminated they are G's and J's own, read off
+    without cutting the whole block of the ports."""
+    at, internal = _eliminated(net, kept, ports)
+    if internal or net.plain is None:
+        y, jt = kron(net.conductance, net.injection, at, internal, net.plain)
+        return y[0], jt[0]
+    return net.conductance[at[0]].take(at), net.injection[at[0]]
+
+
+def _isolated(net: _Network, ports: list[int], internal: list[int]) -> bool:
+    """Whether Kron's reduction onto `ports` would leave the port block of G·v = J as it is, to
+    the bit, if `internal` were eliminated (a divider's gate seen from the channel, a load behind
+    an open capacitor): each internal node touches no other port or internal node (G is exactly 0
+    between them, both ways), and its own equation g·v = j solves finitely (g finite and not 0,
+    1/g, j/g and j·(1/g) finite, so LAPACK's LU neither stops at a zero pivot nor makes an inf,
+    whether it divides or multiplies by the reciprocal).
+
+    Then the block kron inverts is diagonal, its solve gives exact zeros against the zero
+    couplings and finite numbers elsewhere, and Y = G_pp − 0·(…), J_p − 0·(…) are G_pp and J_p:
+    a zero product is ±0, and no entry of G or J is −0 (both are stamped as sums starting from
+    +0, and x + (−x) is +0), so subtracting ±0 changes none. Dense networks only (``net.plain``)."""
+    rows = net.plain
+    if rows is None:
+        return False
+    together = ports + internal
+    for i in internal:
+        row = rows[i]
+        for k in together:
+            if k != i and (row[k] != 0.0 or rows[k][i] != 0.0):
+                return False
+        g, j = row[i], float(net.injection[i])
+        if g == 0.0 or not math.isfinite(g):
+            return False
+        if not (math.isfinite(1.0 / g) and math.isfinite(j / g) and math.isfinite(j * (1.0 / g))):
+            return False
+    return True
 
 
 def _large(net: _Network) -> bool:
@@ -493,12 +545,12 @@ def _gate_terminal(dc: _DcCircuit, net: _Network, transistor: _Transistor, kept:
     if g in dc.fixed:
         return _Terminal("rail", dc.fixed[g], 0.0, dc.rail_label[g])
     ports = [g] + [n for n in dict.fromkeys((d, s)) if n in kept and n != g]
-    y, jt = _reduce(net, kept, ports)
-    offset = jt[0] / y[0, 0]
-    gains = {ports[k]: -y[0, k] / y[0, 0] for k in range(1, len(ports))}
+    row, injected = _first_row(net, kept, ports)  # the gate's equation: row·v_ports = injected
+    offset = injected / row[0]
+    gains = {ports[k]: -row[k] / row[0] for k in range(1, len(ports))}
     drain_gain = gains.get(d, 0.0)
     source_gain = gains.get(s, 0.0)
-    returned = y[0].sum() > 1e-12 * y[0, 0]  # some conductance from the gate to the rails
+    returned = row.sum() > 1e-12 * row[0]  # some conductance from the gate to the rails
     resistors, currents = _incident(dc, g)
     tiny = 1e-12
     if abs(drain_gain) > tiny:
@@ -528,7 +580,7 @@ def _gate_terminal(dc: _DcCircuit, net: _Network, transistor: _Transistor, kept:
             elements=_group_resistors(dc, g, None),
             returned=returned,
         )
-    resistance = 1.0 / y[0, 0]
+    resistance = 1.0 / row[0]
     all_to_rails = all(r.far_end(g) in dc.fixed for r in resistors)
     if all_to_rails and not currents and len(resistors) in (1, 2):
         kind = "resistor" if len(resistors) == 1 else "divider"
@@ -682,12 +734,22 @@ def _topology_label(dc: _DcCircuit, stage: _Stage) -> str:
         parts = ["common-source", gate_phrase, source_phrase]
         if drain.kind == "rail":
             parts.append("no drain resistor")
+    if _split_supplies(dc, stage):
+        parts.append("split supplies")
+    return pmos + ", ".join(p for p in parts if p)
+
+
+def _split_supplies(dc: _DcCircuit, stage: _Stage) -> bool:
+    """Whether the stage uses rails on both sides of ground (one below, one above), counting a
+    rail as used where a resistor, a current source or the transistor's drain, gate or source
+    reaches it. Without fixed nodes of both signs no stage can."""
+    fixed = dc.fixed.values()
+    if not (any(v < 0 for v in fixed) and any(v > 0 for v in fixed)):
+        return False
     used = {n for r in dc.resistors for n in (r.a, r.b)} | {n for c in dc.current_sources for n in (c.leaves, c.enters)}
     used |= {stage.transistor.drain, stage.transistor.gate, stage.transistor.source}
     rails = [v for n, v in dc.fixed.items() if n in used]
-    if any(v < 0 for v in rails) and any(v > 0 for v in rails):
-        parts.append("split supplies")
-    return pmos + ", ".join(p for p in parts if p)
+    return any(v < 0 for v in rails) and any(v > 0 for v in rails)
 
 
 def _solve_network(net: _Network, kept: list[str], drain_current: float) -> dict[str, float]:

@@ -230,10 +230,13 @@ def card_model_of(
     mos_type: str, params: Mapping[str, float], nominal_celsius: float = CIRCUIT_TEMPERATURE_C
 ) -> Level1Model:
     """``Level1Model.from_card``, remembered for the last cards asked (a check asks for each card
-    from its hand column, its level-1 solver and its comparison): the same model for the same
-    parameter mapping (the same object: cards are not changed once read) and nominal temperature.
+    from its hand column, its level-1 solver and its comparison; the stages of a batch share their
+    library's cards): the same model for a parameter mapping with the same names and values in the
+    same order (cards are not changed once read) and nominal temperature; a mapping holding a zero
+    (which may be −0.0, equal to 0.0 but not the same card) only for that very mapping.
     Raises ValueError as from_card does (a refusal is not remembered)."""
-    return _remembered_model(mos_type, _Same(params), nominal_celsius)
+    key = _Same(params) if 0 in params.values() else _SameValues(params)
+    return _remembered_model(mos_type, key, nominal_celsius)
 
 
 class _Same:
@@ -252,6 +255,24 @@ class _Same:
         return isinstance(other, _Same) and other.value is self.value
 
 
+class _SameValues:
+    """A key equal to a key of a mapping with the same items in the same order (the mapping it
+    was made from is kept for ``from_card``)."""
+
+    __slots__ = ("value", "items", "hashed")
+
+    def __init__(self, value: Mapping[str, float]) -> None:
+        self.value = value
+        self.items = tuple(value.items())
+        self.hashed = hash(self.items)
+
+    def __hash__(self) -> int:
+        return self.hashed
+
+    def __eq__(self, other: object) -> bool:
+        return isinstance(other, _SameValues) and other.items == self.items
+
+
 @lru_cache(maxsize=16, typed=True)
-def _remembered_model(mos_type: str, params: _Same, nominal_celsius: float) -> Level1Model:
+def _remembered_model(mos_type: str, params: _Same | _SameValues, nominal_celsius: float) -> Level1Model:
     return Level1Model.from_card(mos_type, params.value, nominal_celsius)
