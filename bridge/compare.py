@@ -12,9 +12,11 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from functools import lru_cache
 
-from .analysis.dcsolve import OperatingPoint, level1_model
+from .analysis.dcsolve import OperatingPoint
 from .analysis.hand import HandSolution
+from .devices.mos1.model import Level1Model
 from .netlist.circuit import Circuit
 from .netlist.numbers import ABSTOL, GMIN, VNTOL, engineering
 from .sim.operating_point import SimOperatingPoint
@@ -38,6 +40,8 @@ from .vocabulary import (
 # tolerance of the reference OR within the floor, so near-zero values are not flagged for
 # picoamp or microvolt noise (common practice, no source): voltages, currents, conductances.
 HAND_FLOOR = {"V": 5e-3, "A": 1e-9, "S": 1e-8}
+# ... as every message and the legend write them (formatted once, not in every finding).
+HAND_FLOOR_TEXT = {unit: engineering(floor, unit) for unit, floor in HAND_FLOOR.items()}
 # Our level-1 solver and ngspice solve the same equations; ngspice stops at RELTOL = 1e-3
 # (ngspice manual, .options), so agreement to 0.2 % on currents and 1 mV on voltages is the bar.
 SOLVER_RELATIVE = 2e-3
@@ -440,7 +444,7 @@ def _flag_columns(
                 f"{subject}: hand {engineering(hand_v, unit, resolution=resolution)} vs "
                 f"{COLUMN_NAMES[reference_column]} {engineering(reference, unit, resolution=resolution)} "
                 f"({_difference(hand_v, reference, resolution, unit)}; tolerance {tolerance * 100:g} % or "
-                f"{engineering(HAND_FLOOR[unit], unit)})",
+                f"{HAND_FLOOR_TEXT[unit]})",
                 line, name, quantity=subject,
             )
         )
@@ -631,14 +635,27 @@ def _acting(effects: dict[str, float], element, model, reference_device) -> dict
     when the card gives it one and the bulk is not tied to the terminal acting as source."""
     if model is None:
         return {}
-    try:
-        card = level1_model(model)  # remembered per card (``model.card_model_of``)
-    except ValueError:
+    card = _lambda_gamma(model.type, tuple(model.params.items()))
+    if card is None:
         return effects
+    lambda_, gamma = card
     drain, _, source, bulk = element.nodes
     acting_source = drain if _runs_swapped(reference_device) else source
-    can_act = {"lambda": card.lambda_ > 0, "gamma": card.gamma > 0 and bulk != acting_source}
+    can_act = {"lambda": lambda_ > 0, "gamma": gamma > 0 and bulk != acting_source}
     return {effect: change for effect, change in effects.items() if can_act.get(effect, True)}
+
+
+@lru_cache(maxsize=256)
+def _lambda_gamma(mos_type: str, params: tuple[tuple[str, float | str], ...]) -> tuple[float, float] | None:
+    """LAMBDA and GAMMA of the level-1 model of a card of this type and these parameters
+    (``dcsolve.level1_model``), None for a card it refuses. Remembered by the card's content: a card
+    that came from the ahead helper is a new object in every check, which ``level1_model`` (that
+    remembers by object) would build afresh (~25 µs)."""
+    try:
+        card = Level1Model.from_card(mos_type, dict(params))
+    except ValueError:
+        return None
+    return card.lambda_, card.gamma
 
 
 def _summable_overdrive(devices: tuple, values: tuple) -> tuple:

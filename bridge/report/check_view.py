@@ -12,7 +12,7 @@ from __future__ import annotations
 import math
 from typing import TYPE_CHECKING, Any
 
-from ..compare import HAND_FLOOR, NOT_AMPLIFYING, REGION_CHANGE, CauseGroup, CheckResult, Columns, cause_groups
+from ..compare import HAND_FLOOR_TEXT, NOT_AMPLIFYING, REGION_CHANGE, CauseGroup, CheckResult, Columns, cause_groups
 from ..netlist.numbers import engineering
 from ..vocabulary import COLUMN_NAMES, COLUMN_TITLES, COLUMNS, EFFECT_NAMES, SAT_MARGIN, UNITS, Finding
 
@@ -74,7 +74,7 @@ def _agreement(result: CheckResult) -> str:
 def _legend(result: CheckResult) -> str:
     """What colour, `!`, 0 and a percentage mean in this table, said once under it."""
     reference = "ngspice" if result.simulator else COLUMN_NAMES["level1"]
-    floors = ", ".join(engineering(HAND_FLOOR[unit], unit) for unit in ("V", "A", "S"))
+    floors = ", ".join(HAND_FLOOR_TEXT[unit] for unit in ("V", "A", "S"))
     solver = "; level-1: 0.2 % or a smaller floor" if result.simulator else ""
     if result.fitted is not None and result.simulator:
         solver = "; level-1: 0.2 % plus what the fitted equivalent's error allows, or a smaller floor"
