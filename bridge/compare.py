@@ -718,30 +718,41 @@ def _settled_by(
     ``Settled``), judged by the same rule as the hand column (``_differs``, tolerance or floor)."""
     if not with_effect:
         return {}
+    # What each comparison is judged against is the same for every effect: looked up once.
+    node_references = [
+        (node, f"V({node})", columns.sim if columns.sim is not None else columns.level1)
+        for node, columns in nodes.items()
+    ]
+    device_references = [
+        (name, device.region.get(device.reference_column), [
+            (quantity, f"{name} {quantity}", device.quantities[quantity].get(device.reference_column),
+             HAND_FLOOR[UNITS[quantity]])
+            for quantity in DEVICE_QUANTITIES
+        ])
+        for name, device in devices.items() if hand.devices.get(name) is not None
+    ]  # fmt: skip
     settled: dict[str, Settled] = {}
     for effect, solution in with_effect.items():
         quantities: list[str] = []
         regions: list[str] = []
-        for node, columns in nodes.items():
-            reference = columns.sim if columns.sim is not None else columns.level1
+        for node, label, reference in node_references:
             value = solution.node_voltages.get(node)
             if value is not None and reference is not None and not _differs(value, reference, tolerance,
                                                                              HAND_FLOOR["V"]):
-                quantities.append(f"V({node})")
-        for name, device in devices.items():
+                quantities.append(label)
+        for name, reference_region, references in device_references:
             moved = solution.devices.get(name)
-            if moved is None or hand.devices.get(name) is None:
+            if moved is None:
                 continue
-            reference_region = device.region.get(device.reference_column)
             if reference_region is not None and moved.region == reference_region:
                 regions.append(name)
-            for quantity in DEVICE_QUANTITIES:
-                reference = device.quantities[quantity].get(device.reference_column)
-                value = None if quantity == "vov" and _runs_swapped(moved) else getattr(moved, quantity)
+            swapped = _runs_swapped(moved)
+            for quantity, label, reference, floor in references:
+                value = None if quantity == "vov" and swapped else getattr(moved, quantity)
                 assumed = quantity == "gds" and moved.region == "saturation" and effect != "lambda"
                 if assumed or (value is not None and reference is not None
-                               and not _differs(value, reference, tolerance, HAND_FLOOR[UNITS[quantity]])):
-                    quantities.append(f"{name} {quantity}")
+                               and not _differs(value, reference, tolerance, floor)):
+                    quantities.append(label)
         settled[effect] = Settled(tuple(quantities), tuple(regions))
     return settled
 
