@@ -9,6 +9,7 @@ lay them out; this module says only what they hold.
 
 from __future__ import annotations
 
+import json
 import math
 from typing import TYPE_CHECKING, Any
 
@@ -251,6 +252,17 @@ def check_json(result: CheckResult) -> dict[str, Any]:
         "amplifies": result.amplifies,
         "groups": [group_json(group) for group in cause_groups(result)],
     }
+
+
+# One encoder for every line of `check --json` (json.dumps makes one a call); without the circular
+# reference check, which a tree that check_json has just built cannot need.
+_LINE_ENCODER = json.JSONEncoder(allow_nan=False, check_circular=False)
+
+
+def check_json_line(result: CheckResult) -> str:
+    """The `check --json` line of `result` (without its newline): ``check_json`` as
+    ``json.dumps(..., allow_nan=False)`` writes it."""
+    return _LINE_ENCODER.encode(check_json(result))
 
 
 def group_json(group: CauseGroup) -> dict[str, Any]:
