@@ -250,12 +250,11 @@ def compare(
         sim_v = sim.node_voltages.get(node) if sim else None
         solver_v = converged.node_voltages.get(node) if converged else sim_v
         expected = expect.nodes.get(node) if expect else None
-        flagged = _flag_columns(
+        flagged, compared = _flag_columns(
             "V", hand_v, level1_v, sim_v, expected, reference_column, tolerance, found, f"V({node})", None,
             resolution, solver_v, _allowance(fitted, f"V({node})"),
         )
-        nodes[node] = Columns(hand_v, level1_v, sim_v, _expect_value(expected), flagged,
-                              _compared(hand_v, level1_v, sim_v, expected, reference_column), resolution["V"])
+        nodes[node] = Columns(hand_v, level1_v, sim_v, _expect_value(expected), flagged, compared, resolution["V"])
 
     devices: dict[str, DeviceComparison] = {}
     mosfets = circuit.elements_of("mosfet")
@@ -289,11 +288,10 @@ def compare(
             hand_judged = None if assumed else hand_q
             unjudged = on_equivalent and (quantity in NOT_COMPARED_FITTED or (
                 quantity == "id" and fitted.equivalents[element.name].below_floor))  # fmt: skip
-            flagged = _flag_columns(
+            flagged, compared = _flag_columns(
                 unit, hand_judged, level1_q, sim_q, expected, reference_column, tolerance, found, subject, element,
                 device_resolution, solver_q, math.inf if unjudged else _allowance(fitted, subject),
             )
-            compared = _compared(hand_judged, level1_q, sim_q, expected, reference_column)
             if unjudged:
                 compared = tuple(c for c in compared if c != "level1")
             quantities[quantity] = Columns(
@@ -428,8 +426,11 @@ def _flag_columns(
     resolutions: Mapping[str, float],
     solver_v: float | None,
     allowance: float | None = None,
-) -> tuple[str, ...]:
-    """`solver_v`: ngspice's value the level-1 column is judged against (`sim_v`, or a re-run's);
+) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """The columns that differ from the reference (each with its finding, added to `found`) and
+    those compared with it, flagged or not (the ones with a value to compare).
+
+    `solver_v`: ngspice's value the level-1 column is judged against (`sim_v`, or a re-run's);
     `allowance`: with fitted equivalents, how far beyond 0.2 % their fit error lets it be."""
     reference = sim_v if reference_column == "sim" else level1_v
     line = element.origin.line if element is not None else None
@@ -482,7 +483,14 @@ def _flag_columns(
                 element.origin.line if element is not None else None, name, quantity=subject,
             )
         )
-    return tuple(flagged)
+    if reference is None:
+        return tuple(flagged), ()
+    compared = ["hand"] if hand_v is not None else []
+    if reference_column == "sim" and level1_v is not None:
+        compared.append("level1")
+    if expected is not None and isinstance(expected.value, float):
+        compared.append("expect")
+    return tuple(flagged), tuple(compared)
 
 
 def _difference(value: float, reference: float, resolution: float, unit: str) -> str:
@@ -492,22 +500,6 @@ def _difference(value: float, reference: float, resolution: float, unit: str) ->
         change = value - reference
         return f"{'+' if change > 0 else ''}{engineering(change, unit)} from a value at the solver's resolution"
     return _percent(_relative_change(value, reference))
-
-
-def _compared(
-    hand_v: float | None, level1_v: float | None, sim_v: float | None, expected: Expectation | None,
-    reference_column: str,
-) -> tuple[str, ...]:
-    """The columns `_flag_columns` compares with the reference (those with a value to compare)."""
-    reference = sim_v if reference_column == "sim" else level1_v
-    if reference is None:
-        return ()
-    columns = ["hand"] if hand_v is not None else []
-    if reference_column == "sim" and level1_v is not None:
-        columns.append("level1")
-    if expected is not None and isinstance(expected.value, float):
-        columns.append("expect")
-    return tuple(columns)
 
 
 def _sat_margin(quantities: Mapping[str, Columns], resolution: float) -> Columns:
