@@ -692,11 +692,11 @@ def _listed(words: list[str]) -> str:
 
 @dataclass(frozen=True, eq=False)
 class Settled:
-    """The hand comparisons one effect settles on its own: with only that effect switched on in the
-    hand model, each of these `quantities` (as ``Finding.quantity`` names them: `V(d)`, `M1 id`)
-    is within the hand tolerance of the reference column (or, for gds in saturation without λ,
-    not compared, as the plain hand model's), and each of these `regions` (device names) is the
-    reference column's region."""
+    """The hand differences one effect settles on its own: with only that effect switched on in the
+    hand model, each of these `quantities` (as ``Finding.quantity`` names them: `V(d)`, `M1 id`),
+    of those the hand column is flagged on, is within the hand tolerance of the reference column
+    (or, for gds in saturation without λ, not compared, as the plain hand model's), and each of
+    these `regions` (device names) is the reference column's region."""
 
     quantities: tuple[str, ...] = ()
     regions: tuple[str, ...] = ()
@@ -706,20 +706,22 @@ def _settled_by(
     circuit: Circuit, hand: HandSolution, with_effect: Mapping[str, HandSolution] | None,
     nodes: Mapping[str, Columns], devices: Mapping[str, DeviceComparison], tolerance: float,
 ) -> dict[str, Settled]:
-    """Per effect, the hand comparisons its re-solved hand model brings to the reference (see
-    ``Settled``), judged by the same rule as the hand column (``_differs``, tolerance or floor)."""
+    """Per effect, the hand differences its re-solved hand model brings to the reference (see
+    ``Settled``), judged by the same rule as the hand column (``_differs``, tolerance or floor).
+    Only the quantities flagged in the hand column are judged again: no other can be a difference
+    that a cause explains (``cause_groups``)."""
     if not with_effect:
         return {}
-    # What each comparison is judged against is the same for every effect: looked up once.
+    # What each difference is judged against is the same for every effect: looked up once.
     node_references = [
         (node, f"V({node})", columns.sim if columns.sim is not None else columns.level1)
-        for node, columns in nodes.items()
+        for node, columns in nodes.items() if "hand" in columns.flagged
     ]
     device_references = [
         (name, device.region.get(device.reference_column), [
             (quantity, f"{name} {quantity}", device.quantities[quantity].get(device.reference_column),
              HAND_FLOOR[UNITS[quantity]])
-            for quantity in DEVICE_QUANTITIES
+            for quantity in DEVICE_QUANTITIES if "hand" in device.quantities[quantity].flagged
         ])
         for name, device in devices.items() if hand.devices.get(name) is not None
     ]  # fmt: skip

@@ -18,7 +18,7 @@ from conftest import EXAMPLES
 
 from bridge.analysis.dcsolve import level1_model
 from bridge.check import solve_own_columns, start_check
-from bridge.compare import HAND_FLOOR, HAND_FLOOR_TEXT, _lambda_gamma, compare
+from bridge.compare import HAND_FLOOR, HAND_FLOOR_TEXT, _lambda_gamma, cause_groups, compare
 from bridge.devices.mos1.model import Level1Model
 from bridge.netlist import NetlistError, parse_netlist, read_netlist
 from bridge.netlist.numbers import engineering
@@ -172,3 +172,19 @@ def test_simresult_is_still_made_with_arrays_alone():
     array = np.array([2.0])
     result = SimResult(plot="op1", vectors={"d": array})
     assert result.points is None and result.scalar("v(d)") == 2.0 and result.scalar_if_any("x") is None
+
+
+def test_an_effect_is_judged_on_the_hand_differences_alone(ngspice_session):
+    """``CheckResult.settled_by`` names only quantities flagged in the hand column (the ones a cause
+    can explain), and among them those the effect alone brings within tolerance."""
+    circuit = parse_netlist(RAIN_GAUGE.replace("lambda=0.04", "lambda=0.15"), "rain_gauge_long.cir")
+    result = start_check(circuit, ngspice_session, tolerance=0.05).finish()
+    flagged = {f"V({node})" for node, columns in result.nodes.items() if "hand" in columns.flagged}
+    flagged |= {f"{name} {quantity}" for name, device in result.devices.items()
+                for quantity, columns in device.quantities.items() if "hand" in columns.flagged}
+    assert "M1 id" in flagged and set(result.settled_by) == {"lambda", "gamma"}
+    for settled in result.settled_by.values():
+        assert set(settled.quantities) <= flagged
+    # LAMBDA alone brings the hand id to the reference: the group of the difference it explains.
+    assert "M1 id" in result.settled_by["lambda"].quantities
+    assert any(group.cause == "lambda" for group in cause_groups(result))
