@@ -163,7 +163,7 @@ def command_check(args: argparse.Namespace) -> int:
     helper = worth_a_helper(len(args.files), beside=() if worker is None else (worker,))
     prepared = Preparation(args.files, expectations, helper=helper, working=args.steps)
     from .check import CheckQueue, PendingCheck, start_check
-    from .report.check_view import check_json, check_renderable, print_check
+    from .report.check_view import check_json_line, check_renderable, print_check
 
     # JSON lines are written without rich: it is not even imported (see _json_terminal).
     console = None if args.json else _console()
@@ -200,7 +200,7 @@ def command_check(args: argparse.Namespace) -> int:
             report(Unusable.from_error(item.circuit.source_file, exc))
             return
         if args.json:
-            sys.stdout.write(json.dumps(check_json(result), allow_nan=False) + "\n")
+            sys.stdout.write(check_json_line(result) + "\n")
         elif batch is not None:
             batch.row(result)
         else:

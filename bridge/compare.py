@@ -12,9 +12,11 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import field
+from functools import lru_cache
 
-from .analysis.dcsolve import OperatingPoint, level1_model
+from .analysis.dcsolve import OperatingPoint
 from .analysis.hand import HandSolution
+from .devices.mos1.model import Level1Model
 from .netlist.circuit import Circuit
 from .netlist.numbers import ABSTOL, GMIN, VNTOL, engineering
 from .records import record
@@ -39,6 +41,8 @@ from .vocabulary import (
 # tolerance of the reference OR within the floor, so near-zero values are not flagged for
 # picoamp or microvolt noise (common practice, no source): voltages, currents, conductances.
 HAND_FLOOR = {"V": 5e-3, "A": 1e-9, "S": 1e-8}
+# ... as every message and the legend write them (formatted once, not in every finding).
+HAND_FLOOR_TEXT = {unit: engineering(floor, unit) for unit, floor in HAND_FLOOR.items()}
 # Our level-1 solver and ngspice solve the same equations; ngspice stops at RELTOL = 1e-3
 # (ngspice manual, .options), so agreement to 0.2 % on currents and 1 mV on voltages is the bar.
 SOLVER_RELATIVE = 2e-3
@@ -247,12 +251,11 @@ def compare(
         sim_v = sim.node_voltages.get(node) if sim else None
         solver_v = converged.node_voltages.get(node) if converged else sim_v
         expected = expect.nodes.get(node) if expect else None
-        flagged = _flag_columns(
+        flagged, compared = _flag_columns(
             "V", hand_v, level1_v, sim_v, expected, reference_column, tolerance, found, f"V({node})", None,
             resolution, solver_v, _allowance(fitted, f"V({node})"),
         )
-        nodes[node] = Columns(hand_v, level1_v, sim_v, _expect_value(expected), flagged,
-                              _compared(hand_v, level1_v, sim_v, expected, reference_column), resolution["V"])
+        nodes[node] = Columns(hand_v, level1_v, sim_v, _expect_value(expected), flagged, compared, resolution["V"])
 
     devices: dict[str, DeviceComparison] = {}
     mosfets = circuit.elements_of("mosfet")
@@ -286,11 +289,10 @@ def compare(
             hand_judged = None if assumed else hand_q
             unjudged = on_equivalent and (quantity in NOT_COMPARED_FITTED or (
                 quantity == "id" and fitted.equivalents[element.name].below_floor))  # fmt: skip
-            flagged = _flag_columns(
+            flagged, compared = _flag_columns(
                 unit, hand_judged, level1_q, sim_q, expected, reference_column, tolerance, found, subject, element,
                 device_resolution, solver_q, math.inf if unjudged else _allowance(fitted, subject),
             )
-            compared = _compared(hand_judged, level1_q, sim_q, expected, reference_column)
             if unjudged:
                 compared = tuple(c for c in compared if c != "level1")
             quantities[quantity] = Columns(
@@ -425,8 +427,11 @@ def _flag_columns(
     resolutions: Mapping[str, float],
     solver_v: float | None,
     allowance: float | None = None,
-) -> tuple[str, ...]:
-    """`solver_v`: ngspice's value the level-1 column is judged against (`sim_v`, or a re-run's);
+) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """The columns that differ from the reference (each with its finding, added to `found`) and
+    those compared with it, flagged or not (the ones with a value to compare).
+
+    `solver_v`: ngspice's value the level-1 column is judged against (`sim_v`, or a re-run's);
     `allowance`: with fitted equivalents, how far beyond 0.2 % their fit error lets it be."""
     reference = sim_v if reference_column == "sim" else level1_v
     line = element.origin.line if element is not None else None
@@ -441,7 +446,7 @@ def _flag_columns(
                 f"{subject}: hand {engineering(hand_v, unit, resolution=resolution)} vs "
                 f"{COLUMN_NAMES[reference_column]} {engineering(reference, unit, resolution=resolution)} "
                 f"({_difference(hand_v, reference, resolution, unit)}; tolerance {tolerance * 100:g} % or "
-                f"{engineering(HAND_FLOOR[unit], unit)})",
+                f"{HAND_FLOOR_TEXT[unit]})",
                 line, name, quantity=subject,
             )
         )
@@ -479,7 +484,14 @@ def _flag_columns(
                 element.origin.line if element is not None else None, name, quantity=subject,
             )
         )
-    return tuple(flagged)
+    if reference is None:
+        return tuple(flagged), ()
+    compared = ["hand"] if hand_v is not None else []
+    if reference_column == "sim" and level1_v is not None:
+        compared.append("level1")
+    if expected is not None and isinstance(expected.value, float):
+        compared.append("expect")
+    return tuple(flagged), tuple(compared)
 
 
 def _difference(value: float, reference: float, resolution: float, unit: str) -> str:
@@ -489,22 +501,6 @@ def _difference(value: float, reference: float, resolution: float, unit: str) ->
         change = value - reference
         return f"{'+' if change > 0 else ''}{engineering(change, unit)} from a value at the solver's resolution"
     return _percent(_relative_change(value, reference))
-
-
-def _compared(
-    hand_v: float | None, level1_v: float | None, sim_v: float | None, expected: Expectation | None,
-    reference_column: str,
-) -> tuple[str, ...]:
-    """The columns `_flag_columns` compares with the reference (those with a value to compare)."""
-    reference = sim_v if reference_column == "sim" else level1_v
-    if reference is None:
-        return ()
-    columns = ["hand"] if hand_v is not None else []
-    if reference_column == "sim" and level1_v is not None:
-        columns.append("level1")
-    if expected is not None and isinstance(expected.value, float):
-        columns.append("expect")
-    return tuple(columns)
 
 
 def _sat_margin(quantities: Mapping[str, Columns], resolution: float) -> Columns:
@@ -632,14 +628,27 @@ def _acting(effects: dict[str, float], element, model, reference_device) -> dict
     when the card gives it one and the bulk is not tied to the terminal acting as source."""
     if model is None:
         return {}
-    try:
-        card = level1_model(model)  # remembered per card (``model.card_model_of``)
-    except ValueError:
+    card = _lambda_gamma(model.type, tuple(model.params.items()))
+    if card is None:
         return effects
+    lambda_, gamma = card
     drain, _, source, bulk = element.nodes
     acting_source = drain if _runs_swapped(reference_device) else source
-    can_act = {"lambda": card.lambda_ > 0, "gamma": card.gamma > 0 and bulk != acting_source}
+    can_act = {"lambda": lambda_ > 0, "gamma": gamma > 0 and bulk != acting_source}
     return {effect: change for effect, change in effects.items() if can_act.get(effect, True)}
+
+
+@lru_cache(maxsize=256)
+def _lambda_gamma(mos_type: str, params: tuple[tuple[str, float | str], ...]) -> tuple[float, float] | None:
+    """LAMBDA and GAMMA of the level-1 model of a card of this type and these parameters
+    (``dcsolve.level1_model``), None for a card it refuses. Remembered by the card's content: a card
+    that came from the ahead helper is a new object in every check, which ``level1_model`` (that
+    remembers by object) would build afresh (~25 µs)."""
+    try:
+        card = Level1Model.from_card(mos_type, dict(params))
+    except ValueError:
+        return None
+    return card.lambda_, card.gamma
 
 
 def _summable_overdrive(devices: tuple, values: tuple) -> tuple:
@@ -684,11 +693,11 @@ def _listed(words: list[str]) -> str:
 
 @record(frozen=True, eq=False)
 class Settled:
-    """The hand comparisons one effect settles on its own: with only that effect switched on in the
-    hand model, each of these `quantities` (as ``Finding.quantity`` names them: `V(d)`, `M1 id`)
-    is within the hand tolerance of the reference column (or, for gds in saturation without λ,
-    not compared, as the plain hand model's), and each of these `regions` (device names) is the
-    reference column's region."""
+    """The hand differences one effect settles on its own: with only that effect switched on in the
+    hand model, each of these `quantities` (as ``Finding.quantity`` names them: `V(d)`, `M1 id`),
+    of those the hand column is flagged on, is within the hand tolerance of the reference column
+    (or, for gds in saturation without λ, not compared, as the plain hand model's), and each of
+    these `regions` (device names) is the reference column's region."""
 
     quantities: tuple[str, ...] = ()
     regions: tuple[str, ...] = ()
@@ -698,34 +707,47 @@ def _settled_by(
     circuit: Circuit, hand: HandSolution, with_effect: Mapping[str, HandSolution] | None,
     nodes: Mapping[str, Columns], devices: Mapping[str, DeviceComparison], tolerance: float,
 ) -> dict[str, Settled]:
-    """Per effect, the hand comparisons its re-solved hand model brings to the reference (see
-    ``Settled``), judged by the same rule as the hand column (``_differs``, tolerance or floor)."""
+    """Per effect, the hand differences its re-solved hand model brings to the reference (see
+    ``Settled``), judged by the same rule as the hand column (``_differs``, tolerance or floor).
+    Only the quantities flagged in the hand column are judged again: no other can be a difference
+    that a cause explains (``cause_groups``)."""
     if not with_effect:
         return {}
+    # What each difference is judged against is the same for every effect: looked up once.
+    node_references = [
+        (node, f"V({node})", columns.sim if columns.sim is not None else columns.level1)
+        for node, columns in nodes.items() if "hand" in columns.flagged
+    ]
+    device_references = [
+        (name, device.region.get(device.reference_column), [
+            (quantity, f"{name} {quantity}", device.quantities[quantity].get(device.reference_column),
+             HAND_FLOOR[UNITS[quantity]])
+            for quantity in DEVICE_QUANTITIES if "hand" in device.quantities[quantity].flagged
+        ])
+        for name, device in devices.items() if hand.devices.get(name) is not None
+    ]  # fmt: skip
     settled: dict[str, Settled] = {}
     for effect, solution in with_effect.items():
         quantities: list[str] = []
         regions: list[str] = []
-        for node, columns in nodes.items():
-            reference = columns.sim if columns.sim is not None else columns.level1
+        for node, label, reference in node_references:
             value = solution.node_voltages.get(node)
             if value is not None and reference is not None and not _differs(value, reference, tolerance,
                                                                              HAND_FLOOR["V"]):
-                quantities.append(f"V({node})")
-        for name, device in devices.items():
+                quantities.append(label)
+        for name, reference_region, references in device_references:
             moved = solution.devices.get(name)
-            if moved is None or hand.devices.get(name) is None:
+            if moved is None:
                 continue
-            reference_region = device.region.get(device.reference_column)
             if reference_region is not None and moved.region == reference_region:
                 regions.append(name)
-            for quantity in DEVICE_QUANTITIES:
-                reference = device.quantities[quantity].get(device.reference_column)
-                value = None if quantity == "vov" and _runs_swapped(moved) else getattr(moved, quantity)
+            swapped = _runs_swapped(moved)
+            for quantity, label, reference, floor in references:
+                value = None if quantity == "vov" and swapped else getattr(moved, quantity)
                 assumed = quantity == "gds" and moved.region == "saturation" and effect != "lambda"
                 if assumed or (value is not None and reference is not None
-                               and not _differs(value, reference, tolerance, HAND_FLOOR[UNITS[quantity]])):
-                    quantities.append(f"{name} {quantity}")
+                               and not _differs(value, reference, tolerance, floor)):
+                    quantities.append(label)
         settled[effect] = Settled(tuple(quantities), tuple(regions))
     return settled
 

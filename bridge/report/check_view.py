@@ -9,10 +9,11 @@ lay them out; this module says only what they hold.
 
 from __future__ import annotations
 
+import json
 import math
 from typing import TYPE_CHECKING, Any
 
-from ..compare import HAND_FLOOR, NOT_AMPLIFYING, REGION_CHANGE, CauseGroup, CheckResult, Columns, cause_groups
+from ..compare import HAND_FLOOR_TEXT, NOT_AMPLIFYING, REGION_CHANGE, CauseGroup, CheckResult, Columns, cause_groups
 from ..netlist.numbers import engineering
 from ..vocabulary import COLUMN_NAMES, COLUMN_TITLES, COLUMNS, EFFECT_NAMES, SAT_MARGIN, UNITS, Finding
 
@@ -74,7 +75,7 @@ def _agreement(result: CheckResult) -> str:
 def _legend(result: CheckResult) -> str:
     """What colour, `!`, 0 and a percentage mean in this table, said once under it."""
     reference = "ngspice" if result.simulator else COLUMN_NAMES["level1"]
-    floors = ", ".join(engineering(HAND_FLOOR[unit], unit) for unit in ("V", "A", "S"))
+    floors = ", ".join(HAND_FLOOR_TEXT[unit] for unit in ("V", "A", "S"))
     solver = "; level-1: 0.2 % or a smaller floor" if result.simulator else ""
     if result.fitted is not None and result.simulator:
         solver = "; level-1: 0.2 % plus what the fitted equivalent's error allows, or a smaller floor"
@@ -251,6 +252,17 @@ def check_json(result: CheckResult) -> dict[str, Any]:
         "amplifies": result.amplifies,
         "groups": [group_json(group) for group in cause_groups(result)],
     }
+
+
+# One encoder for every line of `check --json` (json.dumps makes one a call); without the circular
+# reference check, which a tree that check_json has just built cannot need.
+_LINE_ENCODER = json.JSONEncoder(allow_nan=False, check_circular=False)
+
+
+def check_json_line(result: CheckResult) -> str:
+    """The `check --json` line of `result` (without its newline): ``check_json`` as
+    ``json.dumps(..., allow_nan=False)`` writes it."""
+    return _LINE_ENCODER.encode(check_json(result))
 
 
 def group_json(group: CauseGroup) -> dict[str, Any]:

@@ -24,7 +24,7 @@ import tempfile
 import threading
 import time
 import weakref
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import field
 from pathlib import Path
 from types import MappingProxyType
@@ -110,6 +110,9 @@ class SimResult:
     plot: str
     vectors: Mapping[str, np.ndarray]
     messages: tuple[str, ...] = field(default=())
+    # An operating point's values (a plot of one point), as floats by the same keys: what
+    # ``scalar`` reads, without going through `vectors` (see ``_PointArrays``). None for any other plot.
+    points: Mapping[str, float] | None = None
 
     def __getitem__(self, name: str) -> np.ndarray:
         """A vector by name; ``v(out)``, ``out``, ``i(v1)`` and ``v1#branch`` all work."""
@@ -120,6 +123,8 @@ class SimResult:
 
     def scalar(self, name: str) -> float:
         """The single value of a vector of an operating point."""
+        if self.points is not None:
+            return self.points[_vector_key(name)]
         values = self[name]
         if values.shape != (1,):
             raise ValueError(f"{name} has {values.size} points, not one")
@@ -127,6 +132,8 @@ class SimResult:
 
     def scalar_if_any(self, name: str) -> float | None:
         """``scalar(name)`` when the plot has that vector, else None (one lookup for both)."""
+        if self.points is not None:
+            return self.points.get(_vector_key(name))
         values = self.vectors.get(_vector_key(name))
         if values is None:
             return None
@@ -484,32 +491,71 @@ def _sim_result(reply: Mapping[str, Any]) -> SimResult:
         raise SimulationFailed(str(reply.get("kind") or "simulator_error"),
                                str(reply.get("error") or "ngspice failed"), messages)
     vectors = reply.get("vectors") or {}
-    arrays = _single_point_arrays(vectors, np)
-    if arrays is None:
-        arrays = {}
-        for name, values in vectors.items():
-            if isinstance(values, dict):  # an .ac plot's complex vector, in its two parts
-                array = np.asarray(values["re"], dtype=float) + 1j * np.asarray(values["im"], dtype=float)
-            else:
-                array = np.asarray(values, dtype=float)
-            array.setflags(write=False)
-            arrays[name] = array
+    points = _single_points(vectors)
+    if points is not None:
+        return SimResult(plot=str(reply.get("plot")), vectors=_PointArrays(points), messages=messages,
+                         points=MappingProxyType(points))
+    arrays = {}
+    for name, values in vectors.items():
+        if isinstance(values, dict):  # an .ac plot's complex vector, in its two parts
+            array = np.asarray(values["re"], dtype=float) + 1j * np.asarray(values["im"], dtype=float)
+        else:
+            array = np.asarray(values, dtype=float)
+        array.setflags(write=False)
+        arrays[name] = array
     return SimResult(plot=str(reply.get("plot")), vectors=MappingProxyType(arrays), messages=messages)
 
 
-def _single_point_arrays(vectors: Mapping[str, Any], np: Any) -> dict[str, Any] | None:
-    """An operating point's vectors, each one real value (every vector of an `.op` plot): as
-    read-only one-value views of one array, the same values and shapes as one array each (half
-    the time: 6.2 against 10.2 µs for a bench stage's 13 vectors). None for any other plot."""
+def _single_points(vectors: Mapping[str, Any]) -> dict[str, float] | None:
+    """An operating point's vectors, each one real value (every vector of an `.op` plot): the floats
+    the answer holds, by name. None for any other plot."""
     try:
         (single,) = zip(*vectors.values(), strict=True)  # one value each, or ValueError
     except (TypeError, ValueError):
         return None
     if not all(type(value) is float for value in single):
         return None
-    flat = np.array(single, dtype=float)
+    return dict(zip(vectors, single))
+
+
+class _PointArrays(Mapping):
+    """An operating point's `vectors`: read-only one-value arrays, made at the first look
+    (``_point_arrays``); a check reads the floats (``SimResult.points``) and never makes them."""
+
+    def __init__(self, points: Mapping[str, float]) -> None:
+        self._points = points
+        self._arrays: dict[str, Any] | None = None
+
+    def __getitem__(self, name: str) -> Any:
+        if self._arrays is None:
+            import numpy as np
+
+            self._arrays = _point_arrays(self._points, np)
+        return self._arrays[name]
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._points)
+
+    def __len__(self) -> int:
+        return len(self._points)
+
+    def __contains__(self, name: object) -> bool:
+        return name in self._points
+
+
+def _single_point_arrays(vectors: Mapping[str, Any], np: Any) -> dict[str, Any] | None:
+    """An operating point's vectors, each one real value (every vector of an `.op` plot), as
+    ``_point_arrays`` makes them. None for any other plot."""
+    points = _single_points(vectors)
+    return None if points is None else _point_arrays(points, np)
+
+
+def _point_arrays(points: Mapping[str, float], np: Any) -> dict[str, Any]:
+    """An operating point's values as read-only one-value views of one array, the same values and
+    shapes as one array each (half the time: 6.2 against 10.2 µs for a bench stage's 13 vectors)."""
+    flat = np.array(list(points.values()), dtype=float)
     flat.setflags(write=False)
-    return {name: flat[index:index + 1] for index, name in enumerate(vectors)}
+    return {name: flat[index:index + 1] for index, name in enumerate(points)}
 
 
 class NgspiceSession:
