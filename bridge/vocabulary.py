@@ -2,9 +2,9 @@
 the hand model leaves out, the columns of a check, the device quantities, the designer's
 expectations, and the findings said the same way wherever they arise.
 
-A leaf: it imports nothing of biasbridge's (only the standard library), so the analyses, the
-comparison, the rules and the reports all import these names from here and none from a module
-above it.
+A leaf: it imports nothing of biasbridge's but `bridge.records` (how every record is made, itself
+importing only the standard library), so the analyses, the comparison, the rules and the reports
+all import these names from here and none from a module above it.
 """
 
 from __future__ import annotations
