@@ -368,6 +368,34 @@ def test_the_worker_reads_the_plot_directly_as_pyspice_reads_it() -> None:
     assert len(dc_direct["d"]) == 101 and all(len(values) == 1 for values in op_direct.values())
 
 
+# ---- the worker's ngspice loads BSIM instances on one OpenMP thread ---------------------------
+
+_THREADS = r"""
+import sys
+from bridge.sim.worker import Simulator
+simulator = Simulator(sys.argv[1])
+simulator._raw.clear()
+simulator._ngspice.exec_command("echo threads=$num_threads")
+print(repr([line for line in simulator._raw if "threads=" in line]))
+"""
+
+
+def test_the_workers_ngspice_runs_models_on_one_openmp_thread() -> None:
+    # A libngspice built with OpenMP loads BSIM3/4 instances on `num_threads` threads (2 unless
+    # set, ngspice's spinit.in); whose spin-waits cost most of a busy machine's CPU: one thread.
+    from bridge.sim.client import ngspice_available
+    from bridge.sim.locate import locate_ngspice
+
+    available, hint = ngspice_available()
+    if not available:
+        pytest.skip(hint)
+    completed = subprocess.run([sys.executable, "-c", _THREADS, str(locate_ngspice().path)],
+                               capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL)
+    assert completed.returncode == 0, completed.stderr
+    lines = completed.stdout.splitlines()[-1]
+    assert "threads=1" in lines and "threads=$" not in lines, lines
+
+
 # ---- a card's effects, remembered per card in a batch: read as the level-1 model reads it ----
 
 

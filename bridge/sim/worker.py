@@ -180,6 +180,14 @@ class Simulator:
         self.library_path = library_path
         self.banner = notable_messages(raw_lines)
         self.version = self._version(raw_lines)
+        # A libngspice built with OpenMP (Debian's links libgomp) loads BSIM3/BSIM4 instances on
+        # `num_threads` threads, 2 unless set (ngspice's spinit.in: "set the number of threads in
+        # openmp; default (if compiled with --enable-openmp) is: 2"). A check's decks hold one or
+        # two transistors, and on a busy machine the threads' spin-waits took most of the CPU: the
+        # 177 test netlists with their 16 BSIM stages, 2 CPUs held by two other jobs, 5.6–11.7 s
+        # wall and 4.8–8.4 s CPU against 2.2–2.7 s and 1.3–1.6 s on one thread (1.35 s idle), and
+        # a card's fit grid could pass its 10 s timeout. One thread: the same device equations.
+        self._quietly("set num_threads=1")
         raw_lines.clear()
 
     @property
