@@ -620,7 +620,7 @@ def _body_effect_cause(
         current = None if junction is None else (junction.bulk_drain if terminal == "drain" else junction.bulk_source)
         if current is not None and current > 0:
             message += f": {engineering(current, 'A')} through it in the level-1 solver"
-    return Finding("info", "cause", message, element.origin.line, element.name)
+    return Finding("info", "cause", message, element.origin.line, element.name, effect="gamma")
 
 
 def _acting(effects: dict[str, float], element, model, reference_device) -> dict[str, float]:
@@ -808,9 +808,12 @@ def cause_groups(result: CheckResult) -> tuple[CauseGroup, ...]:
             continue
         taken.update(members)
         subjects = {findings[index].subject for index in members}
+        # A device's cause lines: the one on every effect's share of its id goes with its first
+        # group, one that speaks of a single effect (the body effect's) with that effect's group.
         statements = [
             index for index, finding in enumerate(findings)
             if finding.code == CAUSE and finding.subject in subjects and index not in stated
+            and finding.effect in (None, effect)
         ]
         stated.update(statements)
         groups.append(CauseGroup(effect, None, tuple(statements), tuple(members)))

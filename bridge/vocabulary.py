@@ -30,6 +30,7 @@ class Finding:
     column: int | None = None  # 1-based, where the finding points inside its line (lint)
     fix: str | None = None  # one line on what to change (lint)
     quantity: str | None = None  # the compared quantity (`M1 id`, `V(d)`) of a column comparison
+    effect: str | None = None  # the one effect of EFFECTS a `cause` finding speaks of (None: several)
 
 
 @record(frozen=True)

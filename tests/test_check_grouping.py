@@ -178,3 +178,37 @@ def test_a_difference_two_effects_settle_goes_to_the_one_that_settles_more():
     settled = {"lambda": Settled(("M1 id",), ()), "gamma": Settled(("M1 id", "M1 vth"), ("M1",))}
     groups = cause_groups(_result(findings, settled))
     assert groups == (CauseGroup("gamma", None, (), (0, 1, 2)),)
+
+
+# A model-railway throttle stage: LAMBDA settles two hand differences, GAMMA the threshold's.
+RAILWAY_THROTTLE = """\
+Model railway throttle: NMOS current sink for the track LED, divider bias
+VDD vdd 0 9
+R1 vdd g 220k
+R2 g 0 82k
+RD vdd d 1.5k
+RS s 0 470
+M1 d g s 0 ntrack W=30u L=3u
+.model ntrack nmos (vto=1.0 kp=80u lambda=0.02 gamma=0.4 phi=0.7)
+.op
+.end
+"""
+
+
+@needs_library
+def test_the_body_effects_cause_line_goes_with_the_body_effects_group(required_ngspice_session, tmp_path):
+    result = check_circuit(read_netlist(_write(tmp_path, "throttle.cir", RAILWAY_THROTTLE)),
+                           required_ngspice_session, tolerance=0.05)
+    groups = {group.cause: group for group in cause_groups(result)}
+    assert set(groups) == {"lambda", "gamma"}
+    assert [result.findings[i].quantity for i in groups["gamma"].findings] == ["M1 vth"]
+    assert len(groups["lambda"].findings) == 2
+    # The body effect's own line (what GAMMA does to the threshold) states the GAMMA group; the line
+    # on every effect's share of the id states the device's first group (the largest: LAMBDA's).
+    body, shares = (result.findings[i] for i in (*groups["gamma"].stated_by, *groups["lambda"].stated_by))
+    assert body.effect == "gamma" and "the body effect (GAMMA = 0.4" in body.message
+    assert shares.effect is None and "each effect switched on alone" in shares.message
+    assert len(groups["gamma"].stated_by) == len(groups["lambda"].stated_by) == 1
+    lines = [line.text for line in finding_lines(result)]
+    gamma_heading = next(i for i, text in enumerate(lines) if text.startswith("cause: body effect (GAMMA)"))
+    assert "the body effect (GAMMA = 0.4" in lines[gamma_heading + 1]
