@@ -77,6 +77,13 @@ class GainResult:
     def agree(self) -> bool:
         return not any(f.severity in ("error", "warning") for f in self.findings)
 
+    @property
+    def compared(self) -> bool:
+        """Whether any quantity (gain, Rin, Rout) has a value in two columns: without one (no
+        signal source, say) nothing was compared, and nothing can have disagreed."""
+        return any(sum(value is not None and math.isfinite(value) for value in values.values()) >= 2
+                   for values in (self.gain, self.rin, self.rout))
+
 
 def _empty() -> dict[str, float | None]:
     return dict.fromkeys(COLUMN_KEYS)

@@ -198,6 +198,11 @@ M1 d g 0 0 N W={W} L={L}"""
     result = run_gain(_stage(body), None)
     assert [f.code for f in result.findings] == ["no-signal-source"]
     assert result.frequency is None and set(result.gain.values()) == {None}
+    # Nothing was compared, so the verdict does not say the columns disagree.
+    assert not result.agree and not result.compared
+    from bridge.report.gain_view import gain_renderable
+    verdict = gain_renderable(result).renderables[-1].plain
+    assert verdict == "verdict: nothing compared (see above)"
 
 
 def test_no_midband_when_the_bands_overlap():

@@ -85,7 +85,8 @@ def gain_renderable(result: GainResult, *, steps: bool = False):
     if result.attribution:
         words = ", ".join(f"{EFFECT_NAMES.get(e, e)} {100 * c:+.1f} %" for e, c in result.attribution.items())
         parts.append(Text(f"attribution (hand gain, one effect on at a time): {words}"))
-    parts.append(Text("verdict: " + ("agree" if result.agree else "disagree"), style="bold"))
+    verdict = "agree" if result.agree else "disagree" if result.compared else "nothing compared (see above)"
+    parts.append(Text("verdict: " + verdict, style="bold"))
     return Group(*parts)
 
 
