@@ -14,6 +14,7 @@ from __future__ import annotations
 import contextlib
 import copyreg
 import functools
+import gc
 import io
 import mmap
 import os
@@ -456,6 +457,12 @@ class Preparation:
         self._shared_back = memoryview(self._shared_memory).cast("q")
         self._shared_back[0] = self._back
         receiving, sending = os.pipe()
+        # Everything alive now is moved out of the cyclic GC's reach (gc.freeze, as Python's gc
+        # documentation advises right before a fork without exec): neither process's collections
+        # then write into the objects both share, so their pages are not copied on write. The
+        # 200 bench stages, helper forked, alternating with and without (17 rounds, load 1–1.5):
+        # CPU 0.724 → 0.680 s, wall 0.470 → 0.458 s; 13 rounds earlier 0.536 → 0.519, 0.346 → 0.327.
+        gc.freeze()
         try:
             pid = os.fork()
         except BaseException:

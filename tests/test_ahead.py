@@ -196,6 +196,23 @@ def test_a_forked_helper_brings_no_multiprocessing(tmp_path):
     assert completed.stdout.split() == [str(len(paths)), "True", "False"]
 
 
+_FROZEN_BEFORE_THE_FORK = (
+    "import gc, sys; from bridge.ahead import Preparation; before = gc.get_freeze_count(); "
+    "preparation = Preparation(sys.argv[1:], None, helper=True); "
+    "forked = preparation.helper_pid is not None; items = list(preparation); "
+    "print(len(items), forked, before == 0, gc.get_freeze_count() > 0)"
+)
+
+
+def test_what_is_alive_when_the_helper_forks_is_out_of_the_cyclic_gcs_reach(tmp_path):
+    # gc.freeze right before the fork: neither process's collections write into the objects they
+    # share, so the shared pages are not copied (Python's gc documentation, gc.freeze).
+    paths = mixed_inputs(tmp_path)
+    completed = subprocess.run([sys.executable, "-c", _FROZEN_BEFORE_THE_FORK, *paths],
+                               capture_output=True, text=True, timeout=60, check=True)
+    assert completed.stdout.split() == [str(len(paths)), "True", "True", "True"]
+
+
 @needs_library
 def test_a_many_file_check_shows_each_derivation_with_the_helper_as_without(tmp_path, capsys, monkeypatch):
     # --steps keeps the working on its way through the helper's pipe.
