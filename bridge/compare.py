@@ -12,11 +12,9 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import field
-from functools import lru_cache
 
-from .analysis.dcsolve import OperatingPoint
+from .analysis.dcsolve import OperatingPoint, level1_model
 from .analysis.hand import HandSolution
-from .devices.mos1.model import Level1Model
 from .netlist.circuit import Circuit
 from .netlist.numbers import ABSTOL, GMIN, VNTOL, engineering
 from .records import record
@@ -628,27 +626,16 @@ def _acting(effects: dict[str, float], element, model, reference_device) -> dict
     when the card gives it one and the bulk is not tied to the terminal acting as source."""
     if model is None:
         return {}
-    card = _lambda_gamma(model.type, tuple(model.params.items()))
-    if card is None:
+    try:
+        # Remembered by the card's names and values (``model.card_model_of``): a card that came
+        # from the ahead helper, a new object in every check, is not built again.
+        card = level1_model(model)
+    except ValueError:
         return effects
-    lambda_, gamma = card
     drain, _, source, bulk = element.nodes
     acting_source = drain if _runs_swapped(reference_device) else source
-    can_act = {"lambda": lambda_ > 0, "gamma": gamma > 0 and bulk != acting_source}
+    can_act = {"lambda": card.lambda_ > 0, "gamma": card.gamma > 0 and bulk != acting_source}
     return {effect: change for effect, change in effects.items() if can_act.get(effect, True)}
-
-
-@lru_cache(maxsize=256)
-def _lambda_gamma(mos_type: str, params: tuple[tuple[str, float | str], ...]) -> tuple[float, float] | None:
-    """LAMBDA and GAMMA of the level-1 model of a card of this type and these parameters
-    (``dcsolve.level1_model``), None for a card it refuses. Remembered by the card's content: a card
-    that came from the ahead helper is a new object in every check, which ``level1_model`` (that
-    remembers by object) would build afresh (~25 µs)."""
-    try:
-        card = Level1Model.from_card(mos_type, dict(params))
-    except ValueError:
-        return None
-    return card.lambda_, card.gamma
 
 
 def _summable_overdrive(devices: tuple, values: tuple) -> tuple:
