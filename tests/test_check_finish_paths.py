@@ -23,7 +23,7 @@ from bridge.devices.mos1.model import Level1Model
 from bridge.netlist import NetlistError, parse_netlist, read_netlist
 from bridge.netlist.numbers import engineering
 from bridge.report.check_view import check_json, check_json_line
-from bridge.sim.client import SimResult, _sim_result, _single_point_arrays
+from bridge.sim.client import SimResult, _point_arrays, _sim_result, _single_points
 from bridge.sim.operating_point import _read_operating_point, submit_operating_point
 
 RAIN_GAUGE = """Rain gauge tipping-bucket buffer: NMOS common source, divider bias, source resistor
@@ -63,7 +63,7 @@ def test_an_operating_point_answer_is_read_from_its_floats():
         result.scalar("nowhere")
     assert result.messages == ("a note",) and result.plot == "op1"
     # The arrays, when asked for, are the ones the answer made before: one read-only value each.
-    before = _single_point_arrays(OP_REPLY["vectors"], np)
+    before = _point_arrays(_single_points(OP_REPLY["vectors"]), np)
     assert list(result.vectors) == list(before) and len(result.vectors) == len(before)
     assert "d" in result and "nowhere" not in result
     for name, array in before.items():

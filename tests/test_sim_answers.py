@@ -1,5 +1,5 @@
 """How the client turns the worker's answer into a SimResult: an operating point's one-value
-vectors (``client._single_point_arrays``) and every other plot (one array per vector) give the
+vectors (``client._single_points``) and every other plot (one array per vector) give the
 same values, shapes, types and read-only arrays."""
 
 from __future__ import annotations
@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from bridge.netlist.emit import SpiceDeck
-from bridge.sim.client import _sim_result, _single_point_arrays
+from bridge.sim.client import _sim_result, _single_points
 
 # A greenhouse sensor board's soil-moisture buffer: an NMOS source follower off a 3.3 V rail.
 MOISTURE_BUFFER = """greenhouse soil-moisture buffer
@@ -58,7 +58,7 @@ def test_an_operating_points_vectors_are_read_only_single_values() -> None:
     {"frequency": {"re": [10.0, 100.0], "im": [0.0, 0.0]}, "out": {"re": [1.0, 0.5], "im": [0.0, -0.5]}},
 ])
 def test_other_plots_keep_one_array_per_vector(vectors: dict) -> None:
-    assert _single_point_arrays(vectors, np) is None
+    assert _single_points(vectors) is None
     result = _sim_result(_reply(vectors))
     for name, values in vectors.items():
         array = result.vectors[name]

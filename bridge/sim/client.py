@@ -543,13 +543,6 @@ class _PointArrays(Mapping):
         return name in self._points
 
 
-def _single_point_arrays(vectors: Mapping[str, Any], np: Any) -> dict[str, Any] | None:
-    """An operating point's vectors, each one real value (every vector of an `.op` plot), as
-    ``_point_arrays`` makes them. None for any other plot."""
-    points = _single_points(vectors)
-    return None if points is None else _point_arrays(points, np)
-
-
 def _point_arrays(points: Mapping[str, float], np: Any) -> dict[str, Any]:
     """An operating point's values as read-only one-value views of one array, the same values and
     shapes as one array each (half the time: 6.2 against 10.2 µs for a bench stage's 13 vectors)."""
