@@ -180,37 +180,35 @@ def test_the_helper_delivers_across_the_cuts_of_its_stream_what_preparing_here_g
         == [(item.own.with_effect, item.own.level1, item.own.findings) for item in here if isinstance(item, Prepared)]
 
 
-_PREPARE_AHEAD_AND_LIST_MULTIPROCESSING = (
-    "import sys; from bridge.ahead import Preparation; preparation = Preparation(sys.argv[1:], None, helper=True); "
+# Prepares `paths` with a helper in a fresh process and prints what the tests below ask of it.
+_PREPARE_AHEAD = (
+    "import gc, json, sys; from bridge.ahead import Preparation; frozen_before = gc.get_freeze_count(); "
+    "preparation = Preparation(sys.argv[1:], None, helper=True); "
     "forked = preparation.helper_pid is not None; items = list(preparation); "
-    "print(len(items), forked, 'multiprocessing' in sys.modules)"
+    "print(json.dumps({'items': len(items), 'forked': forked, 'multiprocessing': 'multiprocessing' in sys.modules, "
+    "'frozen_before': frozen_before, 'frozen_after': gc.get_freeze_count()}))"
 )
+
+
+def _prepared_ahead_in_a_fresh_process(paths: list[str]) -> dict:
+    completed = subprocess.run([sys.executable, "-c", _PREPARE_AHEAD, *paths],
+                               capture_output=True, text=True, timeout=60, check=True)
+    seen = json.loads(completed.stdout.splitlines()[-1])
+    assert (seen["items"], seen["forked"]) == (len(paths), True)
+    return seen
 
 
 def test_a_forked_helper_brings_no_multiprocessing(tmp_path):
     # Its pipe is a plain one and the number it shares 8 bytes of a shared mapping: the fork
     # costs no import of multiprocessing (its connections, ctypes behind RawValue).
-    paths = mixed_inputs(tmp_path)
-    completed = subprocess.run([sys.executable, "-c", _PREPARE_AHEAD_AND_LIST_MULTIPROCESSING, *paths],
-                               capture_output=True, text=True, timeout=60, check=True)
-    assert completed.stdout.split() == [str(len(paths)), "True", "False"]
-
-
-_FROZEN_BEFORE_THE_FORK = (
-    "import gc, sys; from bridge.ahead import Preparation; before = gc.get_freeze_count(); "
-    "preparation = Preparation(sys.argv[1:], None, helper=True); "
-    "forked = preparation.helper_pid is not None; items = list(preparation); "
-    "print(len(items), forked, before == 0, gc.get_freeze_count() > 0)"
-)
+    assert _prepared_ahead_in_a_fresh_process(mixed_inputs(tmp_path))["multiprocessing"] is False
 
 
 def test_what_is_alive_when_the_helper_forks_is_out_of_the_cyclic_gcs_reach(tmp_path):
     # gc.freeze right before the fork: neither process's collections write into the objects they
     # share, so the shared pages are not copied (Python's gc documentation, gc.freeze).
-    paths = mixed_inputs(tmp_path)
-    completed = subprocess.run([sys.executable, "-c", _FROZEN_BEFORE_THE_FORK, *paths],
-                               capture_output=True, text=True, timeout=60, check=True)
-    assert completed.stdout.split() == [str(len(paths)), "True", "True", "True"]
+    seen = _prepared_ahead_in_a_fresh_process(mixed_inputs(tmp_path))
+    assert seen["frozen_before"] == 0 and seen["frozen_after"] > 0
 
 
 @needs_library
