@@ -149,13 +149,15 @@ class Simulator:
         # PySpice logs ("Unsupported Ngspice version", "Unit is None ...") would only land in
         # the capture; silencing them saves the formatting.
         logging.getLogger("PySpice").setLevel(logging.CRITICAL + 1)
-        from PySpice.Spice.NgSpice import Shared
+        from .binding import shared_module
+
+        shared = shared_module()  # PySpice's own module, its C declarations loaded ahead
 
         # PySpice signals every failure as NameError or a subclass of it (NgSpiceCommandError,
         # NgSpiceCircuitError), including the return codes of the library calls.
         self._errors: tuple[type[Exception], ...] = (NameError,)
 
-        class _Library(Shared.NgSpiceShared):
+        class _Library(shared.NgSpiceShared):
             """Collects every line ngspice prints and notices its 'controlled exit'."""
 
             def send_char(self, message: str, ngspice_id: int) -> int:
