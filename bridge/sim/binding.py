@@ -1,9 +1,9 @@
 """PySpice's shared-mode wrapper, imported with ngspice's C declarations compiled ahead.
 
 PySpice declares libngspice's API to cffi by parsing its ``api.h`` at every start
-(``cffi.FFI().cdef``, which imports pycparser): of a worker's start, importing PySpice and
-initialising ngspice, that was about 40 of 85–95 ms CPU (median-free spot runs, idle machine;
-importing the parser ~25 ms, the parse ~8 ms). cffi's out-of-line ABI mode keeps the same
+(``cffi.FFI().cdef``, which imports pycparser): importing PySpice and initialising ngspice took
+82–95 ms CPU in a fresh process with numpy loaded, 38–56 ms without the parser (four runs each,
+idle machine; importing pycparser ~25 ms, the parse ~8). cffi's out-of-line ABI mode keeps the same
 declarations as a compact table that loads in well under a millisecond:
 ``_ngspice_declarations.py`` is that table, emitted by cffi itself from PySpice's own ``api.h``
 (``python -m bridge.sim.binding`` writes it again), with the header text it was built from.
