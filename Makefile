@@ -1,5 +1,11 @@
 # biasbridge: one target per thing a person runs.
-PYTHON ?= python3
+# The interpreter the venv is made with: the system's /usr/bin/python3 where it is Python >= 3.10
+# with its venv module (Debian's links the interpreter into its executable; a pyenv build of
+# 3.11.7 made --enable-shared without --enable-optimizations ran `check` of 200 stages 12 % slower
+# in CPU and 16 % in wall time: DEVELOPERS.md, speed notes), else the first python3 on PATH.
+# `make PYTHON=python3.12 install` chooses another (after `make clean`, for an existing venv).
+SYSTEM_PYTHON := /usr/bin/python3
+PYTHON ?= $(shell $(SYSTEM_PYTHON) -c 'import sys, ensurepip, venv; sys.exit(sys.version_info < (3, 10))' >/dev/null 2>&1 && echo $(SYSTEM_PYTHON) || echo python3)
 VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed

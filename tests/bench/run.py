@@ -7,6 +7,7 @@ goal is missed, so a regression is visible.
 from __future__ import annotations
 
 import os
+import platform
 import re
 import resource
 import shutil
@@ -112,6 +113,16 @@ def run_ngspice_batch(ngspice: str, files: Sequence[Path]) -> tuple[float, float
     return time.perf_counter() - start, children_cpu() - cpu
 
 
+def interpreter_build() -> str:
+    """Whether this interpreter's libpython is linked into its executable or loaded as a shared
+    library (its memory map says; sysconfig describes only how the shared library was built)."""
+    try:
+        maps = Path("/proc/self/maps").read_text()
+    except OSError:
+        return ""
+    return " (libpython loaded as a shared library)" if "libpython" in maps else " (libpython in the executable)"
+
+
 def load_average() -> str:
     """The machine's 1, 5 and 15 minute load averages and its CPU count, for the record."""
     one, five, fifteen = os.getloadavg()
@@ -144,6 +155,8 @@ def check_goals() -> list[bool]:
     before and after)."""
     results = []
     print(f"{'machine before the check goals':<52} {load_average()}")
+    print(f"{'interpreter (the venv the Makefile made)':<52} Python {platform.python_version()} from "
+          f"{Path(sys.base_prefix) / 'bin'}{interpreter_build()}")
     with tempfile.TemporaryDirectory() as folder:
         bytecode = Path(folder) / "bytecode"
         env = child_environment(bytecode)
