@@ -155,7 +155,7 @@ def check_goals() -> list[bool]:
     before and after)."""
     results = []
     print(f"{'machine before the check goals':<52} {load_average()}")
-    print(f"{'interpreter (the venv the Makefile made)':<52} Python {platform.python_version()} from "
+    print(f"{'interpreter':<52} Python {platform.python_version()} from "
           f"{Path(sys.base_prefix) / 'bin'}{interpreter_build()}")
     with tempfile.TemporaryDirectory() as folder:
         bytecode = Path(folder) / "bytecode"
