@@ -112,6 +112,10 @@ def test_another_header_is_parsed_and_answers_instead_of_the_table() -> None:
     assert other.sizeof("tide_gauge_t") == 16
     with pytest.raises(cffi.CDefError):
         other.typeof("vecvalues")  # the table no longer answers
+    other.cdef("typedef double tide_level_t;")  # a later cdef adds to the same parsed declarations
+    assert other.sizeof("tide_gauge_t") == 16 and other.sizeof("tide_level_t") == 8
+    other.cdef(table.HEADER)  # the table's header too, now parsed like any other text
+    assert other.sizeof("vecvalues") == table.ffi.sizeof("vecvalues") and other.sizeof("tide_level_t") == 8
 
 
 # Runs one deck through a Simulator in a fresh interpreter; "parsed" imports PySpice first, so its

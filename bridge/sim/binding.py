@@ -30,8 +30,8 @@ class DeclaredFFI:
     """In place of ``cffi.FFI`` while PySpice's module is imported: its ``FFI()`` and ``FFI.NULL``.
 
     An instance answers from the compiled table (``table_ffi``); ``cdef`` of the header the table
-    was built from does nothing, of any other text parses it into a plain ``cffi.FFI`` that then
-    answers instead."""
+    was built from does nothing; any other text is parsed into a plain ``cffi.FFI`` that answers
+    from then on (and parses every later ``cdef``)."""
 
     table_ffi: Any = None
     table_header: str = ""
@@ -41,14 +41,14 @@ class DeclaredFFI:
         self._ffi = self.table_ffi
 
     def cdef(self, source: str, **options: Any) -> None:
-        if source == self.table_header and not options and self._ffi is self.table_ffi:
-            return
-        import cffi
+        if self._ffi is self.table_ffi:
+            if source == self.table_header and not options:
+                return
+            import cffi
 
-        parsed = cffi.FFI()
-        parsed.cdef(source, **options)
-        self.__dict__.clear()  # drop the answers remembered from the table
-        self._ffi = parsed
+            self.__dict__.clear()  # drop the answers remembered from the table
+            self._ffi = cffi.FFI()
+        self._ffi.cdef(source, **options)  # declared as PySpice's own FFI would be, one cdef after another
 
     def __getattr__(self, name: str) -> Any:
         # Only for names not yet looked up: each is remembered on the instance, so PySpice's calls
