@@ -368,3 +368,40 @@ def test_parse_number_reads_the_suggested_value():
     fix = next(f.fix for f in findings(context(stage("thin_margin"))) if f.code == "op-saturation-margin")
     value = re.search(r"at most (\S+) kΩ", fix).group(1)
     assert parse_number(value + "k") == pytest.approx(43.71e3)
+
+
+# A snow-depth gauge's bias string: a bleeder written `1M` across the rail (meant 1 MΩ, read as
+# 1 mΩ by SPICE: ngspice manual, 2.1.4.2, `M` is milli, mega is `MEG`), and a current shunt
+# written `10m` on purpose.
+_SNOW_GAUGE = """\
+Snow-depth gauge: NMOS stage, a bleeder and a shunt
+VDD vdd 0 5
+RBLEED vdd 0 {bleeder}
+RSHUNT d2 0 10m
+R1 vdd g 300k
+R2 g 0 100k
+RD vdd d 20k
+M1 d g d2 0 NSNOW W=20u L=2u
+""" + ending("NSNOW")
+
+
+def test_a_hot_resistor_written_with_a_capital_m_is_told_that_m_is_milli():
+    hot = [f for f in findings(context(parse_netlist(_SNOW_GAUGE.format(bleeder="1M"), "snow.cir")))
+           if f.code == "op-resistor-power"]
+    assert [f.subject for f in hot] == ["RBLEED"]
+    assert hot[0].message.endswith("; `1M` is 1 mΩ in SPICE (`M` is milli, mega is `MEG`)")
+    assert hot[0].fix.startswith("if mega was meant, write `1MEG`; otherwise use a part rated for at least")
+    # Written as mega, the bleeder draws 5 µA: nothing to say; written `4.7MOhm`, the same slip.
+    assert not [f for f in findings(context(parse_netlist(_SNOW_GAUGE.format(bleeder="1MEG"), "snow.cir")))
+                if f.code == "op-resistor-power"]
+    ohm = [f for f in findings(context(parse_netlist(_SNOW_GAUGE.format(bleeder="4.7MOhm"), "snow.cir")))
+           if f.code == "op-resistor-power"]
+    assert "`4.7MOhm` is 4.7 mΩ in SPICE" in ohm[0].message and "write `4.7MEG`" in ohm[0].fix
+
+
+def test_a_hot_resistor_written_in_milliohms_with_a_small_m_gets_no_scale_hint():
+    # A 1 Ω-class bleeder written `500m`: a deliberate milli; its power is still reported.
+    hot = [f for f in findings(context(parse_netlist(_SNOW_GAUGE.format(bleeder="500m"), "snow.cir")))
+           if f.code == "op-resistor-power"]
+    assert [f.subject for f in hot] == ["RBLEED"]
+    assert "milli" not in hot[0].message and "MEG" not in hot[0].fix

@@ -47,6 +47,17 @@ def _is_milli(letters: str | None) -> bool:
     return bool(letters) and letters[0] in "mM" and letters[:3].lower() not in ("meg", "mil")
 
 
+def mega_written_as_milli(resistor: Element) -> tuple[str, str] | None:
+    """A resistor value written with a capital `M` (`1M`, `4.7MOhm`), which SPICE reads as milli:
+    the text as written and the one that says mega (`1MEG`). None for any other writing: a small
+    `m` is taken to mean milli on purpose (a current shunt)."""
+    letters = _letters(resistor, "value")
+    if not _is_milli(letters) or not letters.startswith("M"):
+        return None
+    written = field(resistor, "value").text
+    return written, written[: len(written) - len(letters)] + "MEG"
+
+
 def gate_side_resistors(circuit: Circuit) -> set[str]:
     """Resistors on a MOSFET gate's side of the bias network (gate resistor, divider, drain-to-gate
     feedback): those reached from a gate node through resistors over nodes that hold only
