@@ -67,6 +67,35 @@ def test_milli_reaches_a_divider_behind_a_gate_resistor_and_drain_feedback() -> 
     assert sorted(f.subject for f in lint(text, suffixes.milli_meant_meg)) == ["R1", "RF"]
 
 
+def test_a_capital_m_on_a_drain_or_source_load_is_reported_as_milli() -> None:
+    # `RD vdd d 1M`: the drain resistor of a micro-power stage, meant as 1 MΩ, read as 1 mΩ.
+    findings = lint(dynamo().replace("RD vdd d 15k", "RD vdd d 1M"), suffixes.milli_meant_meg)
+    assert [(f.code, f.subject, f.line, f.column) for f in findings] == [("scale-milli-meant-meg", "RD", 5, 10)]
+    assert findings[0].message == (
+        "`1M` is 1 mΩ in SPICE (`M` is milli): RD, the one resistor on the drain of M1, drops 1 mV per "
+        "ampere there: at a stage's currents the drain sits at its rail and cannot swing; mega is `MEG`")
+    assert findings[0].fix == "write `1MEG` for 1 MΩ"
+    # A source resistor to ground, with its bypass capacitor beside it: the same slip.
+    source = dynamo().replace("M1 d g 0 0", "M1 d g s 0")
+    source = source.replace("RD vdd d 15k", "RD vdd d 15k\nRS s 0 2.2M\nCS s 0 10u")
+    findings = lint(source, suffixes.milli_meant_meg)
+    assert [f.subject for f in findings] == ["RS"]
+    assert "RS, the one resistor on the source of M1, drops 2.2 mV per ampere" in findings[0].message
+    assert "neither the bias current nor any degeneration" in findings[0].message
+
+
+def test_a_small_m_on_a_load_or_a_capital_m_off_a_load_is_not_taken_for_mega() -> None:
+    # `10m` on the source: a deliberate milliohm shunt.
+    shunt = dynamo().replace("M1 d g 0 0", "M1 d g s 0").replace("RD vdd d 15k", "RD vdd d 15k\nRSENSE s 0 10m")
+    assert lint(shunt, suffixes.milli_meant_meg) == []
+    # Two resistors on the drain node (a load and a probe): no one load resistor, nothing said.
+    two = dynamo().replace("RD vdd d 15k", "RD vdd d 1M\nRP d 0 100k")
+    assert lint(two, suffixes.milli_meant_meg) == []
+    # A capital `M` in series with the supply (not on a drain or source): left to the range rule.
+    series = dynamo().replace("RD vdd d 15k", "RSUP vdd v2 1M\nRD v2 d 15k")
+    assert lint(series, suffixes.milli_meant_meg) == []
+
+
 def test_meg_mil_and_kilo_are_not_milli() -> None:
     for value in ("1MEG", "1Meg", "1k", "470k", "2.2MEGohm"):
         assert lint(dynamo(r2=value), suffixes.milli_meant_meg) == [], value

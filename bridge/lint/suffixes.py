@@ -58,16 +58,69 @@ def mega_written_as_milli(resistor: Element) -> tuple[str, str] | None:
     return written, written[: len(written) - len(letters)] + "MEG"
 
 
+def _touching(circuit: Circuit) -> dict[str, list[tuple[Element, int]]]:
+    """Per node, the elements on it and the index of the terminal they touch it with."""
+    touching: dict[str, list[tuple[Element, int]]] = {}
+    for element in circuit.elements:
+        for index, node in enumerate(element.nodes):
+            touching.setdefault(node, []).append((element, index))
+    return touching
+
+
+def load_resistors(circuit: Circuit) -> dict[str, str]:
+    """Resistors that are a MOSFET's drain or source load, by name, with what they load (``drain of
+    M1``): the one resistor on a drain or source node that holds besides it only MOSFET terminals
+    and capacitors, its other end on a rail or ground. Its value sets that terminal's voltage and
+    the stage's gain: a milliohm there leaves the terminal within ID × 1 mΩ of the rail."""
+    fixed = fixed_voltages(circuit)
+    touching = _touching(circuit)
+    loads: dict[str, str] = {}
+    for mosfet in circuit.elements_of("mosfet"):
+        for index, terminal in ((0, "drain"), (2, "source")):
+            node = mosfet.nodes[index]
+            if node in fixed:
+                continue
+            on_node = touching.get(node, ())
+            resistors = [element for element, _ in on_node if element.kind == "resistor"]
+            if len(resistors) != 1 or any(e.kind not in {"resistor", "mosfet", "capacitor"} for e, _ in on_node):
+                continue
+            resistor = resistors[0]
+            if all(other in fixed for other in resistor.nodes if other != node):
+                loads.setdefault(resistor.name, f"{terminal} of {mosfet.name}")
+    return loads
+
+
+def meant_as_mega(circuit: Circuit) -> dict[str, str]:
+    """The resistors whose milli scale (`1M` = 1 mΩ) is taken to be a slip for mega, by name, with
+    where they sit: on a gate's side of the bias network (`M` or `m`: no DC current flows there,
+    milliohms set nothing), or a drain or source load written with a capital `M` (a small `m` there
+    may be a deliberate shunt)."""
+    found: dict[str, str] = {}
+    loads = None
+    gate_side = gate_side_resistors(circuit)
+    for resistor in circuit.elements_of("resistor"):
+        value = resistor.value
+        if value is None or not 0 < value < 1.0:
+            continue
+        letters = _letters(resistor, "value")
+        if not _is_milli(letters):
+            continue
+        if resistor.name in gate_side:
+            found[resistor.name] = "gate"
+        elif letters.startswith("M"):
+            loads = load_resistors(circuit) if loads is None else loads
+            if resistor.name in loads:
+                found[resistor.name] = loads[resistor.name]
+    return found
+
+
 def gate_side_resistors(circuit: Circuit) -> set[str]:
     """Resistors on a MOSFET gate's side of the bias network (gate resistor, divider, drain-to-gate
     feedback): those reached from a gate node through resistors over nodes that hold only
     resistors, capacitors and gates. No DC current flows there but the divider's own, so a
     resistor's value only sets the bias impedance: kilohms to megohms, never milliohms."""
     fixed = fixed_voltages(circuit)
-    touching: dict[str, list[tuple[Element, int]]] = {}
-    for element in circuit.elements:
-        for index, node in enumerate(element.nodes):
-            touching.setdefault(node, []).append((element, index))
+    touching = _touching(circuit)
 
     def gate_only(node: str) -> bool:
         if node in fixed:
@@ -93,24 +146,22 @@ def gate_side_resistors(circuit: Circuit) -> set[str]:
 
 
 def milli_meant_meg(context: LintContext) -> list[Finding]:
-    """`M` (milli) on a gate-side resistor: `1M` is 1 mΩ, where `1MEG` was meant."""
+    """`M` (milli) where `MEG` was meant (``meant_as_mega``): `1M` is 1 mΩ."""
     circuit = context.circuit
     findings = []
-    gate_side = gate_side_resistors(circuit)
-    for resistor in circuit.elements_of("resistor"):
-        value = resistor.value
-        if resistor.name not in gate_side or value is None or not 0 < value < 1.0:
-            continue
-        letters = _letters(resistor, "value")
-        if not _is_milli(letters):
-            continue
+    for name, where in meant_as_mega(circuit).items():
+        resistor = circuit.element(name)
         text = field(resistor, "value").text
-        mantissa = text[: len(text) - len(letters)]
-        message = (
-            f"`{text}` is {engineering(value, 'Ω')} in SPICE (`M` is milli): {resistor.name} is in a gate's "
-            "bias network, where no DC current flows and milliohms set nothing; mega is `MEG`"
-        )
-        fix = f"write `{mantissa}MEG` for {engineering(value * 1e9, 'Ω')}"
+        mantissa = text[: len(text) - len(_letters(resistor, "value"))]
+        if where == "gate":
+            place = f"{name} is in a gate's bias network, where no DC current flows and milliohms set nothing"
+        else:
+            role = ("the drain sits at its rail and cannot swing" if where.startswith("drain")
+                    else "it sets neither the bias current nor any degeneration")
+            place = (f"{name}, the one resistor on the {where}, drops {engineering(resistor.value, 'V')} per "
+                     f"ampere there: at a stage's currents {role}")
+        message = f"`{text}` is {engineering(resistor.value, 'Ω')} in SPICE (`M` is milli): {place}; mega is `MEG`"
+        fix = f"write `{mantissa}MEG` for {engineering(resistor.value * 1e9, 'Ω')}"
         findings.append(
             Finding("warning", "scale-milli-meant-meg", message, resistor.origin.line, resistor.name,
                     column(resistor, "value"), fix)
@@ -180,18 +231,18 @@ def mosfet_size(context: LintContext) -> list[Finding]:
 
 def resistor_range(context: LintContext) -> list[Finding]:
     """A resistor outside any plausible range for a bias network (common practice, no source);
-    one already reported as `scale-milli-meant-meg` is not reported again."""
+    one reported as `scale-milli-meant-meg` is not reported again."""
     circuit = context.circuit
     low, high = RESISTOR_RANGE
-    gate_side = None
+    meant = None
     findings = []
     for resistor in circuit.elements_of("resistor"):
         value = resistor.value
         if value is None or low <= value <= high:
             continue
         if 0 < value < 1.0 and _is_milli(_letters(resistor, "value")):
-            gate_side = gate_side_resistors(circuit) if gate_side is None else gate_side
-            if resistor.name in gate_side:
+            meant = meant_as_mega(circuit) if meant is None else meant
+            if resistor.name in meant:
                 continue
         written = field(resistor, "value")
         as_written = f" (`{written.text}`)" if written is not None else ""
@@ -210,7 +261,10 @@ def resistor_range(context: LintContext) -> list[Finding]:
 
 RULES: tuple[Rule, ...] = (milli_meant_meg, farad_read_as_femto, mosfet_size, resistor_range)
 CODES: dict[str, str] = {
-    "scale-milli-meant-meg": "`M` (milli) on a gate-side bias resistor: `1M` is 1 mΩ, mega is `MEG`",
+    "scale-milli-meant-meg": (
+        "`M` (milli) on a gate-side bias resistor or a capital `M` on a drain or source load: `1M` is 1 mΩ, "
+        "mega is `MEG`"
+    ),
     "scale-farad-read-as-femto": "a capacitor written `10F`: the `F` is femto, not farads",
     "scale-mosfet-size": "a MOSFET W or L outside plausible sizes (no suffix: metres)",
     "scale-resistor-range": "a resistor outside any plausible bias-network range (1 mΩ to 1 TΩ)",
