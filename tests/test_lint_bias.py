@@ -399,6 +399,16 @@ def test_a_hot_resistor_written_with_a_capital_m_is_told_that_m_is_milli():
     assert "`4.7MOhm` is 4.7 mΩ in SPICE" in ohm[0].message and "write `4.7MEG`" in ohm[0].fix
 
 
+def test_the_slip_is_said_once_where_the_scale_rule_says_it_already():
+    # A source resistor written `1M` on a stage whose bulk sits on the supply: the forward-biased
+    # junction drives a large current through it; `scale-milli-meant-meg` names the slip there.
+    text = _SNOW_GAUGE.format(bleeder="100k").replace("RSHUNT d2 0 10m", "RS d2 0 1M").replace(
+        "M1 d g d2 0 NSNOW", "M1 d g d2 vdd NSNOW")
+    hot = [f for f in findings(context(parse_netlist(text, "snow.cir"))) if f.code == "op-resistor-power"]
+    assert [f.subject for f in hot] == ["RS"]
+    assert "milli" not in hot[0].message and "MEG" not in hot[0].fix
+
+
 def test_a_hot_resistor_written_in_milliohms_with_a_small_m_gets_no_scale_hint():
     # A 1 Ω-class bleeder written `500m`: a deliberate milli; its power is still reported.
     hot = [f for f in findings(context(parse_netlist(_SNOW_GAUGE.format(bleeder="500m"), "snow.cir")))

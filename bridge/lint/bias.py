@@ -32,7 +32,7 @@ from ..netlist.numbers import engineering
 from ..records import record
 from ..vocabulary import Finding
 from .rule import LintContext, Rule
-from .suffixes import mega_written_as_milli
+from .suffixes import meant_as_mega, mega_written_as_milli
 
 # A junction forward biased by less than this is not reported: its current is below IS·e² (a few
 # times IS, femtoamperes for ngspice's default IS = 1e-14 A). Common practice, no source.
@@ -581,6 +581,7 @@ def _op_resistor_power_at(ctx: LintContext, reference: _Point) -> list[Finding]:
     from the solution's node voltages)."""
     rating = ctx.settings.resistor_rating
     found = []
+    said = None
     for resistor in ctx.circuit.elements_of("resistor"):
         a, b = resistor.nodes[:2]
         if not resistor.value or resistor.value <= 0 or a not in reference.voltages or b not in reference.voltages:
@@ -597,9 +598,14 @@ def _op_resistor_power_at(ctx: LintContext, reference: _Point) -> list[Finding]:
         )
         fix = (f"use a part rated for at least {engineering(DERATING * power, 'W')} (twice the dissipation), or "
                f"lower the current through {resistor.name}")
-        if (writing := mega_written_as_milli(resistor)) is not None:  # the classic slip, said where it shows
-            message += f"; `{writing[0]}` is {engineering(resistor.value, 'Ω')} in SPICE (`M` is milli, mega is `MEG`)"
-            fix = f"if mega was meant, write `{writing[1]}`; otherwise {fix}"
+        # The classic slip, said here unless `scale-milli-meant-meg` says it of this resistor already.
+        writing = mega_written_as_milli(resistor)
+        if writing is not None:
+            said = meant_as_mega(ctx.circuit) if said is None else said
+            if resistor.name not in said:
+                message += (f"; `{writing[0]}` is {engineering(resistor.value, 'Ω')} in SPICE "
+                            "(`M` is milli, mega is `MEG`)")
+                fix = f"if mega was meant, write `{writing[1]}`; otherwise {fix}"
         found.append(_at(resistor, "op-resistor-power", message, fix))
     return found
 
