@@ -54,8 +54,13 @@ def mega_written_as_milli(resistor: Element) -> tuple[str, str] | None:
     letters = _letters(resistor, "value")
     if not _is_milli(letters) or not letters.startswith("M"):
         return None
+    return _as_mega(resistor)
+
+
+def _as_mega(resistor: Element) -> tuple[str, str]:
+    """A resistor value written with a milli scale letter, as written and as mega: (`2M`, `2MEG`)."""
     written = field(resistor, "value").text
-    return written, written[: len(written) - len(letters)] + "MEG"
+    return written, written[: len(written) - len(_letters(resistor, "value"))] + "MEG"
 
 
 def _touching(circuit: Circuit) -> dict[str, list[tuple[Element, int]]]:
@@ -151,8 +156,7 @@ def milli_meant_meg(context: LintContext) -> list[Finding]:
     findings = []
     for name, where in meant_as_mega(circuit).items():
         resistor = circuit.element(name)
-        text = field(resistor, "value").text
-        mantissa = text[: len(text) - len(_letters(resistor, "value"))]
+        text, mega = _as_mega(resistor)
         if where == "gate":
             place = f"{name} is in a gate's bias network, where no DC current flows and milliohms set nothing"
         else:
@@ -161,7 +165,7 @@ def milli_meant_meg(context: LintContext) -> list[Finding]:
             place = (f"{name}, the one resistor on the {where}, drops {engineering(resistor.value, 'V')} per "
                      f"ampere there: at a stage's currents {role}")
         message = f"`{text}` is {engineering(resistor.value, 'Ω')} in SPICE (`M` is milli): {place}; mega is `MEG`"
-        fix = f"write `{mantissa}MEG` for {engineering(resistor.value * 1e9, 'Ω')}"
+        fix = f"write `{mega}` for {engineering(resistor.value * 1e9, 'Ω')}"
         findings.append(
             Finding("warning", "scale-milli-meant-meg", message, resistor.origin.line, resistor.name,
                     column(resistor, "value"), fix)
