@@ -51,10 +51,12 @@ def mega_written_as_milli(resistor: Element) -> tuple[str, str] | None:
     """A resistor value written with a capital `M` (`1M`, `4.7MOhm`), which SPICE reads as milli:
     the text as written and the one that says mega (`1MEG`). None for any other writing: a small
     `m` is taken to mean milli on purpose (a current shunt)."""
-    letters = _letters(resistor, "value")
-    if not _is_milli(letters) or not letters.startswith("M"):
-        return None
-    return _as_mega(resistor)
+    return _as_mega(resistor) if _is_capital_milli(_letters(resistor, "value")) else None
+
+
+def _is_capital_milli(letters: str | None) -> bool:
+    """Milli letters that begin with a capital `M` (`M`, `MOhm`): mega mistaken, not milli meant."""
+    return _is_milli(letters) and letters.startswith("M")
 
 
 def _as_mega(resistor: Element) -> tuple[str, str]:
@@ -100,19 +102,21 @@ def meant_as_mega(circuit: Circuit) -> dict[str, str]:
     where they sit: on a gate's side of the bias network (`M` or `m`: no DC current flows there,
     milliohms set nothing), or a drain or source load written with a capital `M` (a small `m` there
     may be a deliberate shunt)."""
+    milli = []
+    for resistor in circuit.elements_of("resistor"):
+        if resistor.value is not None and 0 < resistor.value < 1.0:
+            letters = _letters(resistor, "value")
+            if _is_milli(letters):
+                milli.append((resistor, letters))
+    if not milli:  # the usual netlist: no network to trace
+        return {}
     found: dict[str, str] = {}
     loads = None
     gate_side = gate_side_resistors(circuit)
-    for resistor in circuit.elements_of("resistor"):
-        value = resistor.value
-        if value is None or not 0 < value < 1.0:
-            continue
-        letters = _letters(resistor, "value")
-        if not _is_milli(letters):
-            continue
+    for resistor, letters in milli:
         if resistor.name in gate_side:
             found[resistor.name] = "gate"
-        elif letters.startswith("M"):
+        elif _is_capital_milli(letters):
             loads = load_resistors(circuit) if loads is None else loads
             if resistor.name in loads:
                 found[resistor.name] = loads[resistor.name]
